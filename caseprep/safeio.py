@@ -1,0 +1,44 @@
+"""Atomic file writing: write to a temporary file beside the target, then rename.
+
+A reader never sees a half-written file, and an interrupted run leaves the old
+file (or no file) behind, never a truncated one.
+"""
+from __future__ import annotations
+
+import json
+import os
+import tempfile
+from pathlib import Path
+
+
+def write_bytes_atomic(path: str | os.PathLike, data: bytes, mode: int | None = None) -> None:
+    """Write ``data`` to ``path`` atomically (temp file in the same folder + rename)."""
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
+    try:
+        with os.fdopen(fd, "wb") as fh:
+            fh.write(data)
+            fh.flush()
+            os.fsync(fh.fileno())
+        if mode is not None:
+            os.chmod(tmp, mode)
+        else:
+            os.chmod(tmp, 0o644)
+        os.replace(tmp, path)
+    except BaseException:
+        try:
+            os.unlink(tmp)
+        except FileNotFoundError:
+            pass
+        raise
+
+
+def write_text_atomic(path: str | os.PathLike, text: str, mode: int | None = None) -> None:
+    """Write UTF-8 ``text`` to ``path`` atomically."""
+    write_bytes_atomic(path, text.encode("utf-8"), mode=mode)
+
+
+def write_json_atomic(path: str | os.PathLike, obj: object) -> None:
+    """Write ``obj`` as indented JSON to ``path`` atomically."""
+    write_text_atomic(path, json.dumps(obj, indent=2, sort_keys=False) + "\n")

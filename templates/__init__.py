@@ -1,0 +1,1 @@
+# Makes the templates folder installable as the package caseprep.templates.

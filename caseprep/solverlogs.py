@@ -46,6 +46,7 @@ def fatal_error(text: str) -> str | None:
     starts with ``#0  Foam::error::printStack`` followed by the signal
     handler's frame), and MPI's report of an aborted run.
     """
+    text = re.sub(r"(?m)^\[\d+\] ?", "", text)  # parallel runs prefix each rank's lines with [rank]
     m = re.search(r"-->\s*FOAM FATAL (?:IO )?ERROR\s*:?\s*\n(.*?)(?:\n\s*From function|\nFOAM (?:exiting|aborting)|\Z)",
                   text, re.S)
     if m:
@@ -59,6 +60,10 @@ def fatal_error(text: str) -> str | None:
         if "sigSegv" in frame:
             return "segmentation fault"
         return f"crashed in {frame}"
+    m = re.search(r"exited on signal \d+ \(([^)]*)\)|Signal: ([A-Za-z ]+) \(\d+\)", text)
+    if m:
+        sig = (m.group(1) or m.group(2)).strip().lower()
+        return f"{sig} (the solution diverged)" if "floating point" in sig else sig
     if re.search(r"MPI_ABORT was invoked|mpirun noticed that process rank", text):
         return "an MPI rank aborted"
     return None

@@ -175,3 +175,15 @@ def test_tiny_case_fresh_logs(tmp_path):
     assert so.iterations == 20 and so.end_reason == "end-time"
     assert set(so.final_residuals) >= {"Ux", "Uy", "Uz", "p"}
     assert all((case / f).is_file() for f in ex.files)
+
+
+def test_solver_crash_parallel():
+    # 2 ranks: the stack dump lines carry a "[rank] " prefix and MPI adds its own report.
+    r = sl.parse_solver(read("simpleFoam_crash_parallel.log"))
+    assert r.end_reason == "crashed" and r.n_procs == 2
+    assert r.error == "floating point exception (the solution diverged)"
+
+
+def test_fatal_error_parallel_prefix():
+    text = "[1] \n[1] --> FOAM FATAL ERROR: \n[1] cannot find file \"p\"\n[1] \n[1]     From function x\n"
+    assert sl.fatal_error(text) == 'cannot find file "p"'

@@ -110,6 +110,9 @@ def run_cmd(sweep_dir, jobs, ranks, only, stages, force, residual_tol, quiet, sk
         click.echo(runner.format_summary_table(exc.records))
         click.echo("interrupted: running cases were stopped and recorded; run the same command again to resume.")
         sys.exit(130)
+    except KeyboardInterrupt:  # before any case started
+        click.echo("interrupted before any case started.", err=True)
+        sys.exit(130)
     dt = __import__("time").monotonic() - t0
     click.echo("")
     click.echo(runner.format_summary_table(records))

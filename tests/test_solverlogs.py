@@ -187,3 +187,12 @@ def test_solver_crash_parallel():
 def test_fatal_error_parallel_prefix():
     text = "[1] \n[1] --> FOAM FATAL ERROR: \n[1] cannot find file \"p\"\n[1] \n[1]     From function x\n"
     assert sl.fatal_error(text) == 'cannot find file "p"'
+
+
+def test_solver_turbulent_fields():
+    # The tiny case with the k-omega SST model (nu 1.5e-5): k and omega residuals appear
+    # per iteration, omega solved before k.
+    r = sl.parse_solver(read("simpleFoam_komegasst.log"))
+    assert list(r.residuals) == ["Ux", "Uy", "Uz", "p", "omega", "k"]
+    assert r.residuals["k"][0] == 1.0 and r.times[-1] == 30.0 and r.end_reason == "end-time"
+    assert r.final_residuals["omega"] == 0.0016972368 and r.final_residuals["k"] == 0.014078294

@@ -87,6 +87,7 @@ def run_cmd(sweep_dir, jobs, ranks, only, stages, force, residual_tol, quiet, sk
     failed, 2 for a usage error, 130 when interrupted (run again to resume).
     """
     import os
+    import time
 
     from . import runner
 
@@ -99,7 +100,7 @@ def run_cmd(sweep_dir, jobs, ranks, only, stages, force, residual_tol, quiet, sk
     if jobs * ranks > cores:
         click.echo(f"note: {jobs} jobs × {ranks} ranks = {jobs * ranks} processes on {cores} cores; "
                    "cases will compete for the processors", err=True)
-    t0 = __import__("time").monotonic()
+    t0 = time.monotonic()
     opts = runner.RunOptions(residual_tol=residual_tol)
     try:
         records = runner.run_sweep(sweep_dir, jobs=jobs, ranks=ranks, stages=list(stages) or None,
@@ -113,7 +114,7 @@ def run_cmd(sweep_dir, jobs, ranks, only, stages, force, residual_tol, quiet, sk
     except KeyboardInterrupt:  # before any case started
         click.echo("interrupted before any case started.", err=True)
         sys.exit(130)
-    dt = __import__("time").monotonic() - t0
+    dt = time.monotonic() - t0
     click.echo("")
     click.echo(runner.format_summary_table(records))
     failed = [r for r in records if r.failed]

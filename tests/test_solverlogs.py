@@ -2,14 +2,14 @@
 
 The fixtures under tests/data/logs/ are excerpts of logs produced by
 tests/tiny_case.py (variants ok / collapsed / crash, 30 and 500 iterations,
-1 and 2 ranks) and of a deliberately sheared background mesh; lines were
+1 and 2 ranks), of the tiny case switched to the k-omega SST turbulence model,
+and of a deliberately sheared background mesh; lines were
 deleted, never edited. Expected values are the numbers printed in those logs,
 so exact equality (or float round-trip equality) is the right check.
 """
 from __future__ import annotations
 
 import math
-import shutil
 from pathlib import Path
 
 import pytest

@@ -36,5 +36,97 @@ def main() -> None:
     """
 
 
+def _progress_printer(quiet: bool):
+    """A progress callback printing one line per event (stderr-free, stdout)."""
+    from .runner import format_duration
+
+    def show(ev) -> None:
+        head = f"[{ev.index}/{ev.total}] {ev.case_id}"
+        if ev.event == "case-start":
+            click.echo(f"{head}: start ({ev.message})")
+        elif ev.event == "stage-start" and not quiet:
+            click.echo(f"{head}: {ev.stage} …")
+        elif ev.event == "running":
+            click.echo(f"{head}: {ev.stage} running {format_duration(ev.stage_elapsed)} (case {format_duration(ev.elapsed)})")
+        elif ev.event == "stage-done" and not quiet:
+            click.echo(f"{head}: {ev.stage} done in {format_duration(ev.stage_elapsed)}")
+        elif ev.event == "stage-failed":
+            click.echo(f"{head}: {ev.stage} FAILED after {format_duration(ev.stage_elapsed)}: {ev.message}")
+        elif ev.event == "skipped":
+            click.echo(f"{head}: skipped ({ev.message})")
+        elif ev.event == "interrupted":
+            click.echo(f"{head}: interrupted during {ev.stage}")
+        elif ev.event == "case-done" and ev.record is not None:
+            r = ev.record
+            extra = f" flags: {', '.join(r.flags)}" if r.flags else ""
+            click.echo(f"{head}: {r.status} in {format_duration(r.wall_time)}{extra}")
+            if r.failed and r.log_tail:
+                click.echo("    " + "\n    ".join(r.log_tail.splitlines()[-12:]))
+    return show
+
+
+@main.command("run")
+@click.argument("sweep_dir", type=click.Path(file_okay=False, path_type=str))
+@click.option("-j", "--jobs", type=int, default=1, show_default=True, help="Cases run at the same time.")
+@click.option("--ranks", type=int, default=1, show_default=True,
+              help="MPI ranks per case (1 = serial). Keep jobs × ranks ≤ cores.")
+@click.option("--only", "only", multiple=True, metavar="ID", help="Run only this case id (repeatable).")
+@click.option("--stage", "stages", multiple=True, type=click.Choice(["mesh", "solve", "export"]),
+              help="Run only this stage (repeatable); default all three.")
+@click.option("--force", is_flag=True, help="Run stages again even if they are marked done.")
+@click.option("--residual-tol", type=float, default=1e-3, show_default=True,
+              help="Flag a run that used its whole iteration budget with a final residual above this.")
+@click.option("-q", "--quiet", is_flag=True, help="Print only case starts, failures and results.")
+@click.option("--skip-solver-check", is_flag=True, hidden=True)
+def run_cmd(sweep_dir, jobs, ranks, only, stages, force, residual_tol, quiet, skip_solver_check) -> None:
+    """Run the solver over the cases of SWEEP_DIR (a folder written by
+    `caseprep write`): mesh, solve and export each case, resumably.
+
+    Each case's outcome goes to <case>/underfloor-run.json and the sweep's
+    run_summary.json. Exit code 0 when every case ran, 1 when any case
+    failed, 2 for a usage error, 130 when interrupted (run again to resume).
+    """
+    import os
+    import time
+
+    from . import runner
+
+    if not skip_solver_check:
+        missing = runner.missing_solver_binaries()
+        if missing:
+            raise UserError(expected="the solver's programs on PATH", got=", ".join(missing),
+                            fix=f"install them: {runner.INSTALL_HINT}")
+    cores = os.cpu_count() or 1
+    if jobs * ranks > cores:
+        click.echo(f"note: {jobs} jobs × {ranks} ranks = {jobs * ranks} processes on {cores} cores; "
+                   "cases will compete for the processors", err=True)
+    t0 = time.monotonic()
+    opts = runner.RunOptions(residual_tol=residual_tol)
+    try:
+        records = runner.run_sweep(sweep_dir, jobs=jobs, ranks=ranks, stages=list(stages) or None,
+                                   only=list(only) or None, force=force, progress=_progress_printer(quiet),
+                                   options=opts)
+    except runner.SweepInterrupted as exc:
+        click.echo("")
+        click.echo(runner.format_summary_table(exc.records))
+        click.echo("interrupted: running cases were stopped and recorded; run the same command again to resume.")
+        sys.exit(130)
+    except KeyboardInterrupt:  # before any case started
+        click.echo("interrupted before any case started.", err=True)
+        sys.exit(130)
+    dt = time.monotonic() - t0
+    click.echo("")
+    click.echo(runner.format_summary_table(records))
+    failed = [r for r in records if r.failed]
+    flagged = [r for r in records if r.flags and not r.failed]
+    click.echo("")
+    for f in sorted({f for r in records for f in r.flags}):
+        click.echo(f"  {f}: {runner.FLAG_TEXT.get(f, f)}")
+    click.echo(f"{len(records)} case(s) in {runner.format_duration(dt)}: {len(records) - len(failed)} ran, "
+               f"{len(failed)} failed, {len(flagged)} flagged. Records: {sweep_dir}/run_summary.json")
+    if failed:
+        sys.exit(1)
+
+
 if __name__ == "__main__":  # pragma: no cover
     sys.exit(main())

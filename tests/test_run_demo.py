@@ -1,0 +1,79 @@
+"""The demo driver (example_cases/run_demo.py): prerequisites, results files,
+resuming. The solver-marked test runs it on a pre-written tiny real sweep."""
+from __future__ import annotations
+
+import csv
+import importlib.util
+import io
+import os
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+
+ROOT = Path(__file__).resolve().parent.parent
+DEMO = ROOT / "example_cases" / "run_demo.py"
+sys.path.insert(0, str(Path(__file__).parent))
+from tiny_case import write_tiny_sweep  # noqa: E402
+
+
+def load_demo():
+    spec = importlib.util.spec_from_file_location("run_demo", DEMO)
+    mod = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(mod)
+    return mod
+
+
+def run(args, env=None):
+    e = dict(os.environ, PYTHONPATH=str(ROOT))
+    e.update(env or {})
+    return subprocess.run([sys.executable, str(DEMO), *args], capture_output=True, text=True, env=e, timeout=600)
+
+
+def test_missing_config_is_a_clear_stop(tmp_path):
+    p = run(["--out", str(tmp_path / "o"), "--config", str(tmp_path / "nope.toml")])
+    assert p.returncode == 2 and "is missing" in p.stderr and "Traceback" not in p.stderr
+
+
+def test_missing_solver_says_how_to_install(tmp_path):
+    cfg = tmp_path / "c.toml"
+    cfg.write_text("")
+    # A PATH holding only the Python interpreter's folder: no solver programs.
+    p = run(["--out", str(tmp_path / "o"), "--config", str(cfg)], env={"PATH": str(Path(sys.executable).parent)})
+    assert p.returncode == 2
+    assert "sudo apt-get install -y --no-install-recommends openfoam" in p.stderr
+
+
+def test_results_files_content():
+    demo = load_demo()
+    rows = [{"case": "a", "status": "ok", "flags": "", "cells": 100, "coefficients.CL": -1.23456},
+            {"case": "b<x>", "status": "solve-failed", "flags": "solver-crashed", "cells": None}]
+    text = demo.to_csv(rows)
+    got = list(csv.DictReader(io.StringIO(text)))
+    assert got[0]["coefficients.CL"] == "-1.235" and got[1]["cells"] == "" and got[1]["coefficients.CL"] == ""
+    page = demo.to_html(rows, ["a note"], "t", 12.0)
+    assert "validate" in page.lower() and "permitted and safe" in page and "qualified engineers" in page
+    assert "b&lt;x&gt;" in page and "solver-crashed" in page and "a note" in page
+    assert "<script" not in page and "http" not in page  # self-contained
+    flat = demo._flatten({"coefficients": {"CL": 1.0, "cop": [1.0, 2.0, 3.0], "ok": True}})
+    assert flat == {"coefficients.CL": 1.0, "coefficients.cop_x": 1.0, "coefficients.cop_y": 2.0,
+                    "coefficients.cop_z": 3.0, "coefficients.ok": "True"}
+
+
+@pytest.mark.solver
+def test_demo_on_tiny_sweep_resumes(tmp_path):
+    out = tmp_path / "demo"
+    write_tiny_sweep(out / "sweep", ("ok", "crash"), n_iter=10)
+    cfg = tmp_path / "c.toml"
+    cfg.write_text("")  # the sweep exists already, so the config is not read
+    p = run(["--out", str(out), "--config", str(cfg)])
+    assert p.returncode == 1, p.stdout + p.stderr  # the crash case failed, the other ran
+    assert "tiny_crash: solve FAILED" in p.stdout and "floating point exception" in p.stdout
+    assert "tiny_ok: ok" in p.stdout
+    rows = {r["case"]: r for r in csv.DictReader((out / "results.csv").open())}
+    assert rows["tiny_ok"]["status"] == "ok" and rows["tiny_ok"]["iterations"] == "10"
+    assert rows["tiny_crash"]["status"] == "solve-failed"
+    assert "permitted and safe" in (out / "results.html").read_text()
+    p2 = run(["--out", str(out), "--config", str(cfg)])
+    assert "tiny_ok: done in an earlier run, skipped" in p2.stdout

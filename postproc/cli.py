@@ -119,9 +119,11 @@ def run_forces(target: str, patches: tuple[str, ...] = (), rho: float | None = N
                      ("front_axle", _vec3(front_axle)), ("rear_axle", _vec3(rear_axle)), ("cog", _vec3(cog))):
             if v is not None:
                 kw[k] = v
-        kw.setdefault("rho", rho if rho is not None else 1.225)
         if kw.get("rho") is None:
             kw["rho"] = rho
+        if kw.get("rho") is None:
+            raise UserError(expected="a density for the dynamic pressure", got="none", key="--rho",
+                            fix="give --rho (kg/m³) with --area/--length/--speed")
         if "area" in kw and "length" in kw and "speed" in kw:
             rv = co.ReferenceValues(**kw)
     if rv is not None:
@@ -130,7 +132,7 @@ def run_forces(target: str, patches: tuple[str, ...] = (), rho: float | None = N
         out["reference"] = {"area": rv.area, "length": rv.length, "rho": rv.rho, "speed": rv.speed, "q": rv.q,
                             "moment_point": list(rv.moment_point)}
         out["coefficients"] = co.coefficients(res, rv, placement, wind).to_dict()
-        if rv.front_axle is not None and rv.rear_axle is not None and rv.wheelbase:
+        if rv.front_axle is not None and rv.rear_axle is not None:
             out["balance"] = co.balance(res, rv, placement).to_dict()
     if case_dir is not None and (case_dir / "postProcessing").is_dir():
         try:
@@ -203,14 +205,13 @@ def _table(r: dict) -> str:
 @click.option("--area", type=float, help="Reference area, m².")
 @click.option("--length", type=float, help="Reference length, m.")
 @click.option("--speed", type=float, help="Air speed for q, m/s.")
-@click.option("--wheelbase", type=float, help="Wheelbase, m.")
-@click.option("--front-axle", nargs=3, type=float, help="Front axle X Y Z, m, body frame.")
+@click.option("--front-axle", nargs=3, type=float, help="Front axle X Y Z, m, body frame (wheelbase = distance to the rear axle).")
 @click.option("--rear-axle", nargs=3, type=float, help="Rear axle X Y Z, m, body frame.")
 @click.option("--cog", nargs=3, type=float, help="Centre of gravity X Y Z, m, body frame.")
 @click.option("--window", type=int, default=200, show_default=True, help="Monitor samples for the convergence verdict.")
 @click.option("--json", "as_json", is_flag=True, help="Print one JSON object instead of the table.")
 def forces_cmd(target, patches, rho, kinematic, normals, shear_on, p_ref, about, pressure_field, shear_field,
-               no_shear, allow_nonfinite, allow_open, area, length, speed, wheelbase, front_axle, rear_axle, cog,
+               no_shear, allow_nonfinite, allow_open, area, length, speed, front_axle, rear_axle, cog,
                window, as_json) -> None:
     """Forces, moments, coefficients, axle loads and aero balance of the body
     patches of FILE_OR_CASE (a .vtm/.vtp/.vtu/.vtk surface or a case folder
@@ -221,7 +222,7 @@ def forces_cmd(target, patches, rho, kinematic, normals, shear_on, p_ref, about,
 
     r = run_forces(target, tuple(patches), rho, kinematic, normals.replace("-", "_"), shear_on, p_ref,
                    tuple(about) if about else None, pressure_field, shear_field, no_shear, allow_nonfinite,
-                   allow_open, area, length, speed, wheelbase, front_axle or None, rear_axle or None, cog or None, window)
+                   allow_open, area, length, speed, None, front_axle or None, rear_axle or None, cog or None, window)
     click.echo(json.dumps(r, indent=2) if as_json else _table(r))
 
 

@@ -269,10 +269,14 @@ def balance(result: ForceResult, ref: ReferenceValues, placement: Placement | No
     yawing moment (from a lateral offset of the drag) is counted in N, as in
     any measured yawing moment. Undefined when |Y| ≤ 1e-6 · |F| or no CG.
 
-    Needs ``ref.front_axle``, ``ref.rear_axle`` (body frame, m) and
-    ``ref.wheelbase`` (m, reference length of C_M); ``ref.cog`` for the margin.
+    The wheelbase ℓ (m, also the reference length of C_M) is the axles'
+    distance along x_A once both are projected on the ground; it equals the
+    manifest's ``wheelbase`` at zero pitch and is 1 − cos θ shorter when
+    pitched (statics needs the distance between the tyre contacts).
+    Needs ``ref.front_axle``, ``ref.rear_axle`` (body frame, m);
+    ``ref.cog`` for the margin.
     """
-    if ref.front_axle is None or ref.rear_axle is None or not ref.wheelbase:
+    if ref.front_axle is None or ref.rear_axle is None:
         raise UserError(expected="front and rear axle positions and a wheelbase", got="missing reference values",
                         key="reference", fix="give --front-axle, --rear-axle (body frame, m) or use a case with a manifest")
     xA, yA, zA, g = axle_axes(placement)
@@ -281,8 +285,11 @@ def balance(result: ForceResult, ref: ReferenceValues, placement: Placement | No
     on_ground = lambda p: p - np.dot(p - g, zA) * zA  # noqa: E731
     fa_g, ra_g = on_ground(fa), on_ground(ra)
     mid = 0.5 * (fa_g + ra_g)
-    wb = float(ref.wheelbase)
     wb_geom = float(np.dot(ra_g - fa_g, xA))
+    if not wb_geom > 0:
+        raise UserError(expected="a rear axle behind the front axle (larger body x)", got=f"{wb_geom:.6g} m apart",
+                        key="reference.rear_axle", fix="check the axle positions (body frame, x rearward)")
+    wb = wb_geom
     qA = ref.q * ref.area
     F = np.asarray(result.force, dtype=float)
     fmag = float(np.linalg.norm(F))

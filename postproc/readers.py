@@ -104,10 +104,11 @@ def _run_reader(reader, path: Path) -> object:
         msgs.append(str(calldata) if calldata else event)
 
     on_error.CallDataType = vtk.VTK_STRING  # type: ignore[attr-defined]
-    reader.AddObserver(vtkCommand.ErrorEvent, on_error)
-    ex = reader.GetExecutive() if hasattr(reader, "GetExecutive") else None
-    if ex is not None:
-        ex.AddObserver(vtkCommand.ErrorEvent, on_error)
+    for ev in (vtkCommand.ErrorEvent, vtkCommand.WarningEvent):  # a premature end of file is only a warning
+        reader.AddObserver(ev, on_error)
+        ex = reader.GetExecutive() if hasattr(reader, "GetExecutive") else None
+        if ex is not None:
+            ex.AddObserver(ev, on_error)
     reader.SetFileName(str(path))
     logger = vtk.vtkLogger
     old = logger.GetCurrentVerbosityCutoff()
@@ -170,7 +171,7 @@ def _from_polydata(ds, path: Path) -> tuple[np.ndarray, np.ndarray, np.ndarray, 
 
 
 def _from_unstructured(ds, path: Path) -> tuple[np.ndarray, np.ndarray, np.ndarray, dict, tuple]:
-    types = _np(ds.GetCellTypesArray()) if ds.GetNumberOfCells() else np.zeros(0, np.uint8)
+    types = _np(ds.GetCellTypes()) if ds.GetNumberOfCells() else np.zeros(0, np.uint8)
     ca = ds.GetCells()
     off = _np(ca.GetOffsetsArray()).astype(np.int64, copy=False)
     conn = _np(ca.GetConnectivityArray()).astype(np.int64, copy=False)
@@ -212,8 +213,20 @@ def _dataset_to_parts(ds, path: Path):
                     fix="export the surface as .vtp or legacy polydata")
 
 
+def _validate(name: str, piece: tuple, source: str) -> None:
+    P, off, conn, cells, _ = piece
+    m = off.size - 1
+    bad = [k for k, v in cells.items() if v.shape[0] != m]
+    if (conn.size and (conn.min() < 0 or conn.max() >= P.shape[0])) or off[-1] != conn.size or bad:
+        raise UserError(expected="a consistent VTK surface (faces referring to existing points, one value per face)",
+                        got="inconsistent sizes" + (f" of the arrays {', '.join(bad)}" if bad else ""),
+                        file=source, key=name, fix="the file may be truncated; re-export it")
+
+
 def _merge(pieces: Sequence[tuple[str, tuple]], source: str, time: float | None = None) -> Surface:
     """Concatenate parts (name, (points, offsets, conn, cells, point_names))."""
+    for name, piece in pieces:
+        _validate(name, piece, source)
     if len(pieces) == 1:
         name, (P, off, conn, cells, pts) = pieces[0]
         return Surface(points=P, offsets=off, connectivity=conn, cell_data=cells, point_arrays=pts,

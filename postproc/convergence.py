@@ -135,9 +135,10 @@ def _parse_dat(path: Path) -> tuple[list[str], np.ndarray]:
     if not rows:
         raise UserError(expected="monitor samples", got="no data rows", file=str(path),
                         fix="run the solver with the forces function object switched on")
-    width = min(len(r) for r in rows[-10:])
-    rows = [r for r in rows if len(r) >= width]  # a half-written last line is dropped below
-    arr = np.array([r[:width] for r in rows], dtype=np.float64)
+    lengths = [len(r) for r in rows]
+    width = max(set(lengths), key=lengths.count)
+    rows = [r for r in rows if len(r) == width]  # a half-written last line (run still going) is dropped
+    arr = np.array(rows, dtype=np.float64)
     if not header or len(header) != width:
         header = ["Time"] + [f"c{i}" for i in range(1, width)]
     return header, arr

@@ -51,7 +51,7 @@ def run_forces(target: str, patches: tuple[str, ...] = (), rho: float | None = N
 
     from . import coefficients as co
     from . import convergence as cv
-    from .forces import closure, face_geometry, integrate_forces
+    from .forces import integrate_forces
     from .readers import latest_export, read_surface
 
     path = Path(target)
@@ -88,17 +88,16 @@ def run_forces(target: str, patches: tuple[str, ...] = (), rho: float | None = N
     p = surf.array(pressure_field)
     tau = None if no_shear else surf.array(shear_field)
     try:
-        S, C = face_geometry(surf.points, surf.faces)
-        opening = closure(S)
+        res = integrate_forces(surf.points, surf.faces, p, tau, rho=rho or 1.0, p_ref=p_ref,
+                               about=about, normals=normals, shear_on=shear_on, kinematic=kinematic,
+                               part_ids=surf.part_ids, part_names=surf.part_names, allow_nonfinite=allow_nonfinite)
+        opening = res.open_fraction
         if p_ref != 0.0 and opening > 1e-9 and not allow_open:
             raise UserError(
                 expected="a closed surface when a non-zero reference pressure is subtracted",
                 got=f"an open surface (|ΣS|/Σ|S| = {opening:.3g}) with p_ref = {p_ref:g} Pa",
                 key="--p-ref", fix="an open patch's force depends on p_ref; use --p-ref 0 (the solver's gauge), "
                 "select the whole closed body, or accept it with --allow-open")
-        res = integrate_forces(area_vectors=S, centroids=C, pressure=p, shear=tau, rho=rho or 1.0, p_ref=p_ref,
-                               about=about, normals=normals, shear_on=shear_on, kinematic=kinematic,
-                               part_ids=surf.part_ids, part_names=surf.part_names, allow_nonfinite=allow_nonfinite)
     except UserError as exc:
         raise UserError(f"{surf.source}: {exc}") from None
     out = {

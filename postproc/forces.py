@@ -69,8 +69,9 @@ SHEAR_ON: tuple[str, ...] = ("fluid", "wall")
 
 CHUNK = 262_144  # faces per chunk: bounds the temporary memory
 
-#: A face whose area is below this fraction of the mean face area is degenerate.
-DEGENERATE_REL_AREA = 1e-12
+#: A face whose area is below this fraction of the squared bounding-box
+#: diagonal is degenerate (1e-14: a 5 m body's faces below ~0.5 µm × 0.5 µm).
+DEGENERATE_REL_AREA = 1e-14
 
 
 @dataclass(frozen=True)
@@ -92,6 +93,7 @@ class ForceResult:
     about: np.ndarray
     n_faces: int
     parts: dict[str, "ForceResult"] = field(default_factory=dict)
+    open_fraction: float = 0.0  # |Σ S| / Σ |S| of the whole surface (0 closed, 1 flat patch)
 
     def moment_about(self, point: Sequence[float]) -> np.ndarray:
         """Total moment (N·m) about another point (m): M' = M + (r_0 − r') × F."""
@@ -108,7 +110,7 @@ class ForceResult:
             moment_pressure=self.moment_pressure + np.cross(d, self.force_pressure),
             moment_viscous=self.moment_viscous + np.cross(d, self.force_viscous),
             area=self.area, about=q.copy(), n_faces=self.n_faces,
-            parts={k: v.shifted(q) for k, v in self.parts.items()},
+            parts={k: v.shifted(q) for k, v in self.parts.items()}, open_fraction=self.open_fraction,
         )
 
     def to_dict(self) -> dict:
@@ -123,6 +125,7 @@ class ForceResult:
             "about": self.about.tolist(),
             "area": float(self.area),
             "n_faces": int(self.n_faces),
+            "open_fraction": float(self.open_fraction),
         }
         if self.parts:
             d["parts"] = {k: {kk: vv for kk, vv in v.to_dict().items() if kk != "parts"} for k, v in self.parts.items()}
@@ -161,16 +164,17 @@ def _as_faces(faces) -> tuple[np.ndarray | None, np.ndarray, np.ndarray | None]:
 def _fan_block(P: np.ndarray, block: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Area vectors and centroids of faces given as an (m, k) index block."""
     k = block.shape[1]
-    p0 = P[block[:, 0]]
+    f64 = np.float64
+    p0 = P[block[:, 0]].astype(f64)
     if k == 3:
-        p1, p2 = P[block[:, 1]], P[block[:, 2]]
+        p1, p2 = P[block[:, 1]].astype(f64), P[block[:, 2]].astype(f64)
         S = 0.5 * np.cross(p1 - p0, p2 - p0)
         return S, (p0 + p1 + p2) / 3.0
     tri_S = []
     tri_c = []
     S = np.zeros_like(p0)
     for j in range(1, k - 1):
-        p1, p2 = P[block[:, j]], P[block[:, j + 1]]
+        p1, p2 = P[block[:, j]].astype(f64), P[block[:, j + 1]].astype(f64)
         a = 0.5 * np.cross(p1 - p0, p2 - p0)
         S += a
         tri_S.append(a)
@@ -186,7 +190,7 @@ def _fan_block(P: np.ndarray, block: np.ndarray) -> tuple[np.ndarray, np.ndarray
         c = c / (3.0 * wsum[:, None])
     bad = ~np.isfinite(c).all(axis=1)
     if bad.any():  # zero-area faces: vertex average
-        c[bad] = P[block[bad]].mean(axis=1)
+        c[bad] = P[block[bad]].astype(f64).mean(axis=1)
     return S, c
 
 
@@ -204,9 +208,9 @@ def _fan_general(P: np.ndarray, conn: np.ndarray, off: np.ndarray) -> tuple[np.n
     first = np.cumsum(ntri) - ntri
     j = np.arange(face.size) - np.repeat(first, ntri) + 1
     base = off[:-1].astype(np.int64)[face]
-    p0 = P[conn[base]]
-    p1 = P[conn[base + j]]
-    p2 = P[conn[base + j + 1]]
+    p0 = P[conn[base]].astype(np.float64)
+    p1 = P[conn[base + j]].astype(np.float64)
+    p2 = P[conn[base + j + 1]].astype(np.float64)
     a = 0.5 * np.cross(p1 - p0, p2 - p0)
     S = np.column_stack([np.bincount(face, a[:, i], minlength=m) for i in range(3)])
     n = S / np.maximum(np.linalg.norm(S, axis=1), np.finfo(float).tiny)[:, None]
@@ -223,6 +227,14 @@ def _fan_general(P: np.ndarray, conn: np.ndarray, off: np.ndarray) -> tuple[np.n
     return S, c
 
 
+def _geometry_slice(P, block, conn, off, lo: int, hi: int) -> tuple[np.ndarray, np.ndarray]:
+    """Area vectors and centroids (float64) of faces lo…hi−1."""
+    if block is not None:
+        return _fan_block(P, block[lo:hi])
+    o = off[lo:hi + 1]
+    return _fan_general(P, conn[o[0]:o[-1]], o - o[0])
+
+
 def face_geometry(points: np.ndarray, faces) -> tuple[np.ndarray, np.ndarray]:
     """Area vectors (M×3, m², orientation from the vertex order by the
     right-hand rule) and centroids (M×3, m) of polygonal faces, float64.
@@ -231,7 +243,7 @@ def face_geometry(points: np.ndarray, faces) -> tuple[np.ndarray, np.ndarray]:
     The area vector is exact for any polygon (½ Σ p_i × p_{i+1}); the centroid
     is exact for planar polygons.
     """
-    P = np.asarray(points, dtype=np.float64)
+    P = np.asarray(points)
     block, conn, off = _as_faces(faces)
     if block is not None:
         if block.shape[1] < 3:
@@ -347,13 +359,17 @@ def integrate_forces(
     if area_vectors is None:
         if points is None or faces is None:
             raise UserError(expected="points and faces, or area_vectors and centroids", got="neither", key="faces")
-        S, C = face_geometry(points, faces)
+        block, conn, off = _as_faces(faces)
+        m = block.shape[0] if block is not None else off.size - 1
+        if block is not None and block.shape[1] < 3 and m:
+            raise UserError(expected="faces with at least 3 vertices", got=f"{block.shape[1]}-vertex faces", key="faces",
+                            fix="give a polygonal surface (lines and points carry no area)")
     else:
         S = np.asarray(area_vectors, dtype=np.float64)
         if centroids is None:
             raise UserError(expected="centroids together with area_vectors", got=None, key="centroids")
         C = np.asarray(centroids, dtype=np.float64)
-    m = S.shape[0]
+        m = S.shape[0]
     p = np.asarray(pressure)
     if p.shape != (m,):
         raise UserError(expected=f"one pressure value per face ({m},)", got=f"shape {p.shape}", key="pressure",
@@ -366,18 +382,18 @@ def integrate_forces(
         raise UserError(expected="at least one face", got="an empty surface", key="faces",
                         fix="check the patch selection")
 
-    mag = np.linalg.norm(S, axis=1)
-    degenerate = mag <= DEGENERATE_REL_AREA * mag.mean() if mag.mean() > 0 else np.ones(m, bool)
-    if degenerate.any() and not allow_degenerate:
-        i = int(np.flatnonzero(degenerate)[0])
-        raise UserError(
-            expected="faces of non-zero area", got=f"{int(degenerate.sum())} zero-area (degenerate) face(s) of {m}; "
-            f"first at face {i}, centroid ({C[i, 0]:.6g}, {C[i, 1]:.6g}, {C[i, 2]:.6g}) m",
-            key="faces", fix="clean the surface (merge duplicate points, drop collapsed faces) before integrating")
+    if area_vectors is None:
+        P = np.asarray(points)
+        lo_hi_geom = lambda lo, hi: _geometry_slice(P, block, conn, off, lo, hi)  # noqa: E731
+        bb = P.max(axis=0).astype(np.float64) - P.min(axis=0) if P.size else np.zeros(3)
+    else:
+        lo_hi_geom = lambda lo, hi: (S[lo:hi], C[lo:hi])  # noqa: E731
+        bb = C.max(axis=0) - C.min(axis=0) if m else np.zeros(3)
+    tiny_area = DEGENERATE_REL_AREA * float(bb @ bb)
 
-    skip = _check_finite("pressure", p, lambda i: C[i], allow_nonfinite)
+    skip = _check_finite("pressure", p, lambda i: lo_hi_geom(i, i + 1)[1][0], allow_nonfinite)
     if tau is not None:
-        s2 = _check_finite("shear", tau, lambda i: C[i], allow_nonfinite)
+        s2 = _check_finite("shear", tau, lambda i: lo_hi_geom(i, i + 1)[1][0], allow_nonfinite)
         skip = s2 if skip is None else (skip | s2 if s2 is not None else skip)
 
     scale = float(rho) if kinematic else 1.0
@@ -398,10 +414,20 @@ def integrate_forces(
     shape = (n_parts, 3) if part is not None else (3,)
     Fp, Mp, Fv, Mv = (np.zeros(shape) for _ in range(4))
     A = np.zeros(n_parts) if part is not None else 0.0
+    S_sum = np.zeros(3)
+    n_degenerate, first_degenerate = 0, None
     for lo in range(0, m, CHUNK):
         hi = min(lo + CHUNK, m)
-        s = S[lo:hi]
-        r = C[lo:hi] - r0
+        s, c = lo_hi_geom(lo, hi)
+        mag = np.linalg.norm(s, axis=1)
+        deg = mag <= tiny_area
+        if deg.any():
+            if first_degenerate is None:
+                i = int(np.flatnonzero(deg)[0])
+                first_degenerate = (lo + i, c[i])
+            n_degenerate += int(deg.sum())
+        S_sum += s.sum(axis=0)
+        r = c - r0
         pc = p[lo:hi].astype(np.float64) * scale - p_ref
         pc *= sgn_n
         msk = None if skip is None else skip[lo:hi]
@@ -413,20 +439,29 @@ def integrate_forces(
         Mp += mo
         if tau is not None:
             t = tau[lo:hi].astype(np.float64) * (scale * sgn_t)
-            t *= mag[lo:hi, None]
+            t *= mag[:, None]
             if msk is not None:
                 t[msk] = 0.0
             f, mo = _sums(t, r, pa, n_parts)
             Fv += f
             Mv += mo
         if part is not None:
-            A += np.bincount(pa, mag[lo:hi], minlength=n_parts)
+            A += np.bincount(pa, mag, minlength=n_parts)
         else:
-            A += float(mag[lo:hi].sum())
+            A += float(mag.sum())
+    if n_degenerate and not allow_degenerate:
+        i, ci = first_degenerate
+        raise UserError(
+            expected="faces of non-zero area", got=f"{n_degenerate} zero-area (degenerate) face(s) of {m}; "
+            f"first at face {i}, centroid ({ci[0]:.6g}, {ci[1]:.6g}, {ci[2]:.6g}) m",
+            key="faces", fix="clean the surface (merge duplicate points, drop collapsed faces) before integrating")
+    total_area = float(np.sum(A))
+    opening = float(np.linalg.norm(S_sum) / total_area) if total_area > 0 else 1.0
 
     def make(fp, mp, fv, mv, area, n):
         return ForceResult(force=fp + fv, force_pressure=fp.copy(), force_viscous=fv.copy(), moment=mp + mv,
-                           moment_pressure=mp.copy(), moment_viscous=mv.copy(), area=float(area), about=r0.copy(), n_faces=n)
+                           moment_pressure=mp.copy(), moment_viscous=mv.copy(), area=float(area), about=r0.copy(),
+                           n_faces=n, open_fraction=opening)
 
     if part is None:
         return make(Fp, Mp, Fv, Mv, A, m)

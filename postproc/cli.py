@@ -111,5 +111,39 @@ def forces_cmd(target, patches, rho, kinematic, normals, shear_on, p_ref, about,
     click.echo(json.dumps(r, indent=2) if as_json else _table(r))
 
 
+# --------------------------------------------------------------------------- sweep
+
+@main.command("sweep")
+@click.argument("sweep_dir", type=click.Path(file_okay=False))
+@click.option("-o", "--out", "out_dir", type=click.Path(file_okay=False),
+              help="Where to write results.csv, results.json, report.html and results/ (default: the sweep folder).")
+@click.option("--title", help="Report title (default from the study name).")
+@click.option("--force", is_flag=True, help="Replace earlier results in the output folder.")
+@click.option("-q", "--quiet", is_flag=True, help="No per-case progress lines.")
+def sweep_cmd(sweep_dir: str, out_dir: str | None, title: str | None, force: bool, quiet: bool) -> None:
+    """Post-process every case of SWEEP_DIR (written by `caseprep write`, run
+    by `caseprep run`): forces, coefficients, aero balance, convergence and
+    the runner's flags → results table, variant ranking and an HTML report.
+
+    Flagged cases (mesh failed, layers collapsed, not converged, not run…)
+    are listed and never ranked.
+    """
+    from .sweep import postprocess_sweep
+
+    def progress(i, n, o):
+        if quiet:
+            return
+        r = o.result
+        what = (f"C_L {r.cl:+.4f}  C_D {r.cd:.4f}" if r.cl == r.cl else "no coefficients")
+        click.echo(f"[{i}/{n}] {r.case_id}: {o.status}; {what}" + (f"; flags: {', '.join(r.flags)}" if r.flags else ""))
+
+    outcomes, paths = postprocess_sweep(sweep_dir, out_dir, title=title, progress=progress, force=force)
+    n_flag = sum(bool(o.result.flags) for o in outcomes)
+    click.echo(f"{len(outcomes)} case(s), {n_flag} flagged (not ranked).")
+    click.echo(f"results: {paths['csv']}, {paths['json']}; report: {paths['report']}")
+    click.echo("Caution: CFD is an approximation — validate by physical test; run vehicles only where permitted "
+               "and safe; defer to local rules and qualified engineers.")
+
+
 if __name__ == "__main__":  # pragma: no cover
     sys.exit(main())

@@ -202,7 +202,8 @@ def build_context(results: list[CaseResult], title: str, study: str = "", notes:
         charts.append(("Downforce coefficient against yaw (mean over ride heights)", svg_chart(ys, "yaw β (deg)", "−C_L")))
     maps = []
     for v in variants:
-        rows = [r for r in base if r.variant == v]
+        rows = [r for r in base if r.variant == v
+                and math.isfinite(r.ride_height_front) and math.isfinite(r.ride_height_rear) and math.isfinite(r.cl)]
         if len(rows) >= 3:
             fit = fit_response_surface([r.ride_height_front for r in rows], [r.ride_height_rear for r in rows],
                                        [-r.cl for r in rows], degree=2)

@@ -1,0 +1,228 @@
+"""Post-process a whole sweep: every case's forces, coefficients, balance and
+convergence, joined with what the runner recorded, into one results table,
+then the variant ranking and the HTML report.
+
+Inputs: a sweep folder written by ``caseprep write`` (``manifest.json``) and
+run by ``caseprep run`` (``<case>/underfloor-run.json``, ``VTK/``).
+Outputs (in the sweep folder unless told otherwise, atomic writes):
+
+* ``results/<case_id>.json`` — the full forces report of each case;
+* ``results.csv`` and ``results.json`` — one row per case;
+* ``report.html`` — the self-contained sweep report (postproc.report).
+
+Coefficients are in the wind axes of caseprep.frames (C_L positive up,
+downforce = −C_L; C_D along the relative wind; C_S along +y_W), on the
+reference area and the dynamic pressure of the resultant air speed recorded
+in the manifest. A case is **flagged** (never ranked) when the runner
+flagged it, when it did not finish, when its forces could not be computed,
+or when the runtime force monitor is still drifting at the end of the run.
+"""
+from __future__ import annotations
+
+import csv
+import io
+import json
+import math
+import os
+from dataclasses import asdict, dataclass, field
+from pathlib import Path
+from typing import Any, Callable
+
+from caseprep import runner
+from caseprep.errors import UserError
+from caseprep.manifest import CaseRecord, Manifest, read_manifest
+from caseprep.safeio import write_json_atomic, write_text_atomic
+
+from .caseforces import forces_report
+from .ranking import CaseResult, rank_variants
+from .report import write_report
+
+RESULTS_DIR = "results"
+
+#: Flags added by the post-processing (the runner's are in caseprep.runner.FLAG_TEXT).
+POST_FLAG_TEXT = {
+    "not-run": "the case has not been run (or not to the end): no results",
+    "forces-failed": "the forces could not be computed from the case's export",
+    "forces-drifting": "the runtime force monitor was still drifting at the end of the run (not settled)",
+}
+
+
+@dataclass(frozen=True)
+class CaseOutcome:
+    """One case of the sweep after post-processing: the ranking row, the run
+    status, the flags' explanations and any note."""
+
+    result: CaseResult
+    status: str
+    cells: int | None
+    iterations: int | None
+    convergence: str | None
+    notes: tuple[str, ...] = ()
+    report: dict[str, Any] | None = field(default=None, repr=False)
+
+
+def _flag_text(flag: str) -> str:
+    return POST_FLAG_TEXT.get(flag) or runner.FLAG_TEXT.get(flag, flag)
+
+
+def process_case(manifest: Manifest, case: CaseRecord) -> CaseOutcome:
+    """Post-process one case of ``manifest``: its run record, its forces
+    report (when its export exists) and its :class:`CaseResult` row."""
+    case_dir = manifest.case_dir(case)
+    rec = runner.read_case_record(case_dir)
+    flags: list[str] = list(rec.flags) if rec is not None else []
+    status = runner.effective_status(rec) if rec is not None else "not-run"
+    notes: list[str] = []
+    p = case.params
+    base = dict(
+        case_id=case.case_id,
+        variant=case.variant,
+        ride_height_front=float(p.get("ride_height_front", math.nan)),
+        ride_height_rear=float(p.get("ride_height_rear", math.nan)),
+        pitch_deg=float(p.get("pitch_deg", 0.0)),
+        yaw_deg=float(p.get("yaw_deg", 0.0)),
+    )
+    exported = (case_dir / "logs" / "export.done").is_file()
+    report = None
+    verdict = None
+    if not exported:
+        if "not-run" not in flags and status in ("ok", "not-run", "skipped"):
+            flags.append("not-run")
+        elif status not in ("ok", "skipped") and status not in flags:
+            flags.append(status)
+    else:
+        try:
+            report = forces_report(str(case_dir))
+        except UserError as exc:
+            flags.append("forces-failed")
+            notes.append(f"forces: {exc}")
+    nan = math.nan
+    cl = cd = cs = nan
+    clf = clr = bal = margin = None
+    if report is not None:
+        c = report.get("coefficients")
+        if c:
+            cl, cd, cs = float(c["lift"]), float(c["drag"]), float(c["side"])
+        else:
+            flags.append("forces-failed")
+            notes.append("no reference values in the manifest: coefficients not computed")
+        b = report.get("balance")
+        if b:
+            clf, clr = b.get("c_lift_front"), b.get("c_lift_rear")
+            bal, margin = b.get("balance_front"), b.get("stability_margin")
+            notes.extend(b.get("notes", []))
+        conv = report.get("convergence")
+        if conv:
+            verdict = conv.get("verdict")
+            if verdict == "diverging":
+                flags.append("forces-drifting")
+        else:
+            notes.append("no runtime force monitor found: convergence not assessed")
+    result = CaseResult(**base, cl=cl, cd=cd, cs=cs, cl_front=clf, cl_rear=clr, balance=bal,
+                        stability_margin=margin, flags=tuple(dict.fromkeys(flags)))
+    return CaseOutcome(result=result, status=status, cells=rec.cells if rec else None,
+                       iterations=rec.iterations if rec else None, convergence=verdict,
+                       notes=tuple(notes), report=report)
+
+
+def outcome_row(o: CaseOutcome) -> dict[str, Any]:
+    """A flat dict of one case for the CSV/JSON tables."""
+    r = asdict(o.result)
+    r["flags"] = " ".join(o.result.flags)
+    r["downforce_coefficient"] = -o.result.cl if math.isfinite(o.result.cl) else None
+    r.update(status=o.status, cells=o.cells, iterations=o.iterations, convergence=o.convergence,
+             notes="; ".join(o.notes))
+    return r
+
+
+def _csv(rows: list[dict[str, Any]]) -> str:
+    cols: list[str] = []
+    for r in rows:
+        cols += [k for k in r if k not in cols]
+    buf = io.StringIO()
+    w = csv.writer(buf, lineterminator="\n")
+    w.writerow(cols)
+    for r in rows:
+        w.writerow(["" if r.get(k) is None or (isinstance(r.get(k), float) and not math.isfinite(r[k]))
+                    else (f"{r[k]:.6g}" if isinstance(r.get(k), float) else r[k]) for k in cols])
+    return buf.getvalue()
+
+
+def _json_safe(v):
+    if isinstance(v, float) and not math.isfinite(v):
+        return None
+    if isinstance(v, dict):
+        return {k: _json_safe(x) for k, x in v.items()}
+    if isinstance(v, (list, tuple)):
+        return [_json_safe(x) for x in v]
+    return v
+
+
+def postprocess_sweep(
+    sweep_dir: str | os.PathLike,
+    out_dir: str | os.PathLike | None = None,
+    title: str | None = None,
+    progress: Callable[[int, int, CaseOutcome], None] | None = None,
+    force: bool = False,
+) -> tuple[list[CaseOutcome], dict[str, Path]]:
+    """Post-process every case of a sweep and write the tables and report.
+
+    ``out_dir`` defaults to the sweep folder. ``progress(i, n, outcome)`` is
+    called after each case. Existing results are not replaced unless
+    ``force`` (UserError naming the file). Returns the outcomes and the written paths
+    (keys ``csv``, ``json``, ``report``, ``cases``). Raises UserError for a
+    folder that is not a sweep.
+    """
+    manifest = read_manifest(sweep_dir)
+    out = Path(out_dir) if out_dir is not None else Path(manifest.root or sweep_dir)
+    existing = [p for p in (out / "results.csv", out / "results.json", out / "report.html") if p.exists()]
+    if existing and not force:
+        raise UserError(expected="no earlier results in the output folder", got=", ".join(str(p) for p in existing),
+                        fix="pass --force to replace them, or -o to write somewhere else")
+    outcomes = []
+    n = len(manifest.cases)
+    for i, case in enumerate(manifest.cases):
+        o = process_case(manifest, case)
+        outcomes.append(o)
+        if o.report is not None:
+            write_json_atomic(out / RESULTS_DIR / f"{case.case_id}.json", _json_safe(o.report))
+        if progress is not None:
+            progress(i + 1, n, o)
+    rows = [outcome_row(o) for o in outcomes]
+    paths = {
+        "csv": out / "results.csv",
+        "json": out / "results.json",
+        "report": out / "report.html",
+        "cases": out / RESULTS_DIR,
+    }
+    write_text_atomic(paths["csv"], _csv(rows))
+    ranking = rank_variants([o.result for o in outcomes])
+    write_json_atomic(paths["json"], _json_safe({
+        "study": manifest.study,
+        "axes": "wind axes of caseprep.frames: C_L positive up (downforce = -C_L), C_D along the relative wind, "
+                "C_S along +y_W; balance = front share of downforce; ride heights m; angles deg",
+        "flags": {f: _flag_text(f) for f in sorted({f for o in outcomes for f in o.result.flags})},
+        "cases": rows,
+        "ranking": [asdict(s) for s in ranking],
+    }))
+    notes = []
+    flags = sorted({f for o in outcomes for f in o.result.flags})
+    for f in flags:
+        k = sum(f in o.result.flags for o in outcomes)
+        notes.append(f"{k} case(s) flagged '{f}': {_flag_text(f)}")
+    write_report([o.result for o in outcomes], paths["report"],
+                 title=title or f"Sweep report — {manifest.study or Path(sweep_dir).name}",
+                 study=manifest.study, notes=notes)
+    return outcomes, paths
+
+
+def read_results(path: str | os.PathLike) -> dict[str, Any]:
+    """Read a ``results.json`` written by :func:`postprocess_sweep`."""
+    p = Path(path)
+    if p.is_dir():
+        p = p / "results.json"
+    try:
+        return json.loads(p.read_text(encoding="utf-8"))
+    except FileNotFoundError:
+        raise UserError(expected="a results.json written by `postproc sweep`", got=str(p),
+                        fix="run `postproc sweep SWEEP_DIR` first") from None

@@ -330,6 +330,25 @@ def layer_total_thickness(first: float, expansion: float, n: int) -> float:
     return first * (expansion**n - 1.0) / (expansion - 1.0)
 
 
+def effective_write_interval(n_iterations: int, write_interval: int) -> int:
+    """Write interval (iterations) actually used so the last iteration is written.
+
+    The solver writes only at multiples of the interval, so an interval that
+    does not divide ``n_iterations`` would lose the final state. Returns the
+    largest divisor of ``n_iterations`` not above ``write_interval`` if it is
+    at least half of it, else ``n_iterations`` (write at the end only).
+    """
+    n, w = int(n_iterations), int(write_interval)
+    if n < 1 or w < 1:
+        raise ValueError(f"expected positive iteration counts, got n_iterations={n}, write_interval={w}")
+    if w >= n:
+        return n
+    for d in range(w, 0, -1):
+        if n % d == 0:
+            return d if 2 * d >= w else n
+    return n  # pragma: no cover - d = 1 always divides
+
+
 def context(spec: CaseSpec) -> dict[str, Any]:
     """Template context of one case: formatted numbers and patch tables."""
     _check_component(spec.case_id, "case id")
@@ -392,7 +411,7 @@ def context(spec: CaseSpec) -> dict[str, Any]:
         "monitored_patches": monitored,
         "wall_patches": walls_with_ground,
         "n_iterations": int(sv.n_iterations),
-        "write_interval": int(sv.write_interval),
+        "write_interval": effective_write_interval(sv.n_iterations, sv.write_interval),
         "monitor_interval": int(sv.monitor_interval),
         "n_procs": int(sv.n_procs),
         "split": list(sv.split),
@@ -463,12 +482,14 @@ def render_case(spec: CaseSpec, env: jinja2.Environment | None = None) -> dict[s
     return out
 
 
-def render_sweep_scripts(specs: list[CaseSpec], env: jinja2.Environment | None = None) -> dict[str, CaseFile]:
-    """Sweep-root files: ``cases.txt``, ``run_all.sh``, ``slurm_array.sh``."""
+def render_sweep_scripts(case_ids: list[str], max_ranks: int,
+                         env: jinja2.Environment | None = None) -> dict[str, CaseFile]:
+    """Sweep-root files: ``cases.txt`` (the ids, one per line), ``run_all.sh``,
+    ``slurm_array.sh`` (one array task per line of cases.txt, ``max_ranks``
+    MPI ranks per task by default)."""
     env = env or _env()
-    ids = [_check_component(s.case_id, "case id") for s in specs]
-    max_ranks = max((s.solver.n_procs for s in specs), default=1)
-    ctx = {"n_cases": len(ids), "max_ranks": max_ranks, "cases_dir": CASES_DIR}
+    ids = [_check_component(i, "case id") for i in case_ids]
+    ctx = {"n_cases": len(ids), "max_ranks": max(1, int(max_ranks)), "cases_dir": CASES_DIR}
     return {
         "cases.txt": CaseFile("".join(i + "\n" for i in ids)),
         "run_all.sh": CaseFile(env.get_template("sweep/run_all.sh.j2").render(ctx), 0o755),

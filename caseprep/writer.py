@@ -36,6 +36,7 @@ import re
 import shutil
 import struct
 import tempfile
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Mapping, Sequence
@@ -222,7 +223,13 @@ def _first_difference(folder: Path, files: Mapping[str, CaseFile]) -> str | None
     return None
 
 
-def _assemble(tmp: Path, files: Mapping[str, CaseFile]) -> int:
+def _current_umask() -> int:
+    mask = os.umask(0o022)
+    os.umask(mask)
+    return mask
+
+
+def _assemble(tmp: Path, files: Mapping[str, CaseFile], umask: int = 0o022) -> int:
     """Write ``files`` into the fresh folder ``tmp``; returns bytes written.
 
     Plain writes (no per-file sync): the folder is renamed into place only
@@ -245,16 +252,17 @@ def _assemble(tmp: Path, files: Mapping[str, CaseFile]) -> int:
             os.write(fd, data)
         finally:
             os.close(fd)
-        os.chmod(p, f.mode & 0o777)  # umask-independent
+        if f.mode & umask:
+            os.chmod(p, f.mode & 0o777)  # the umask took bits away: set the intended mode
         nbytes += len(data)
     return nbytes
 
 
-def _place_case(cases_dir: Path, case_id: str, files: Mapping[str, CaseFile], replace: bool) -> int:
+def _place_case(cases_dir: Path, case_id: str, files: Mapping[str, CaseFile], replace: bool, umask: int) -> int:
     tmp = Path(tempfile.mkdtemp(prefix=f".uf-new-{case_id}-", dir=cases_dir))
     try:
         os.chmod(tmp, 0o755)  # mkdtemp makes it private
-        n = _assemble(tmp, files)
+        n = _assemble(tmp, files, umask)
         final = cases_dir / case_id
         if replace:
             old = Path(tempfile.mkdtemp(prefix=f".uf-old-{case_id}-", dir=cases_dir))
@@ -370,11 +378,13 @@ def write_sweep(
     cases_dir.mkdir(parents=True, exist_ok=True)
     for name in geo_todo:
         write_bytes_atomic(geo_dir / name, geometry[name], mode=0o644)
-    nbytes = 0
-    for cid in new:
-        nbytes += _place_case(cases_dir, cid, rendered[cid], replace=False)
-    for cid in replace:
-        nbytes += _place_case(cases_dir, cid, rendered[cid], replace=True)
+    umask = _current_umask()
+    jobs = [(cid, False) for cid in new] + [(cid, True) for cid in replace]
+    # File creation is metadata-bound (system calls release the GIL): a few
+    # threads, each assembling whole case folders, overlap that waiting.
+    with ThreadPoolExecutor(max_workers=min(8, max(1, len(jobs)))) as pool:
+        sizes = list(pool.map(lambda j: _place_case(cases_dir, j[0], rendered[j[0]], replace=j[1], umask=umask), jobs))
+    nbytes = sum(sizes)
 
     # 4. manifest (existing records of cases not in this plan are kept while their folder exists)
     old: Manifest | None = None

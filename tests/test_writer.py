@@ -237,3 +237,31 @@ def test_run_all_skips_finished_and_reports_failures(src, tmp_path):
     assert r.returncode == 7 and "c-2" in r.stdout
     text = (out / "slurm_array.sh").read_text()
     assert "#SBATCH --array=1-3" in text and "#SBATCH --ntasks=1" in text
+
+
+# ---------------------------------------------------------------------- CLI
+def test_write_command_plumbing(src, tmp_path, monkeypatch):
+    """`caseprep write` with the planning half stood in by hand-made specs
+    (replace by a config-driven test once caseprep.planner/config land)."""
+    import sys
+    import types
+
+    from click.testing import CliRunner
+
+    from caseprep.cli import main
+
+    specs = [make_spec("c-1"), replace(make_spec("c-2"), fidelity="fine")]
+    monkeypatch.setitem(sys.modules, "caseprep.config", types.SimpleNamespace(load_config=lambda p: {"path": p}))
+    monkeypatch.setitem(sys.modules, "caseprep.planner", types.SimpleNamespace(plan=lambda cfg: list(specs)))
+    out = tmp_path / "out"
+    cfg = str(src / "sweep.toml")
+    r = CliRunner().invoke(main, ["write", cfg, "-o", str(out), "--fidelity", "smoke"])
+    assert r.exit_code == 0, r.output
+    assert (out / "cases.txt").read_text().split() == ["c-1"]
+    r = CliRunner().invoke(main, ["write", cfg, "-o", str(out), "--fidelity", "smok"])
+    assert r.exit_code == 2 and "Did you mean 'smoke'" in r.output
+    specs[0] = make_spec("c-1", speed=33.0)
+    r = CliRunner().invoke(main, ["write", cfg, "-o", str(out)])
+    assert r.exit_code == 2 and "--force" in r.output and "Traceback" not in r.output
+    r = CliRunner().invoke(main, ["write", cfg, "-o", str(out), "--force"])
+    assert r.exit_code == 0 and "1 new, 1 replaced" in r.output

@@ -39,7 +39,7 @@ import numpy as np
 
 __all__ = [
     "Dimensions", "Word", "FoamSyntaxError", "fmt", "fmt_scalar", "fmt_vector", "word",
-    "is_word", "header", "parse", "parse_file", "tokenize",
+    "is_word", "header", "parse", "parse_file", "tokenize", "named_items",
 ]
 
 # A solver "word": no whitespace, quotes, braces, parentheses, semicolons or slashes.

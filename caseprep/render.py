@@ -30,7 +30,6 @@ its patch name; it must not also be listed in ``geometry_solid_names``
 """
 from __future__ import annotations
 
-import math
 import posixpath
 from dataclasses import dataclass
 from functools import lru_cache
@@ -500,12 +499,3 @@ def render_sweep_scripts(case_ids: list[str], max_ranks: int,
 def outputs_record() -> dict[str, str]:
     """Where a case's monitors and exports land (relative to the case folder)."""
     return dict(OUTPUTS)
-
-
-def domain_face_normal(spec: CaseSpec, role: str) -> np.ndarray:
-    """Outward unit normal (mesh frame) of a background face by its corner
-    order (right-hand rule) — used by tests to check face orientation."""
-    c = spec.domain.box.corners()
-    f = DOMAIN_PATCH_FACES[role][0]
-    n = np.cross(c[f[1]] - c[f[0]], c[f[2]] - c[f[0]])
-    return n / math.sqrt(float(n @ n))

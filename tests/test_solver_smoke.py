@@ -97,3 +97,30 @@ def test_case_meshes_solves_and_exports(tmp_path):
         assert (case / "VTK" / f"smoke-1_{ITER}.vtm").is_file()
         rows = [l for l in forces.read_text().splitlines() if l and not l.startswith("#")]
         assert len(rows) == ITER
+
+
+def test_single_solid_body_and_wheel_file_patch_names(tmp_path):
+    """Single-solid surfaces are named by the mesher after their entry: the
+    body file's one solid (whatever its name inside) becomes the patch named in
+    the spec, a wheel file becomes the wheel's patch with a rotating wall."""
+    from dataclasses import replace
+
+    from uf_specs import demo_wheel, write_box_stl
+
+    src = tmp_path / "src"
+    src.mkdir()
+    text = write_body_stl(src / "two.stl").read_text()
+    lines = [l for l in text.splitlines() if not l.startswith(("solid", "endsolid"))]
+    (src / "car.stl").write_text("solid shell\n" + "\n".join(lines) + "\nendsolid shell\n")
+    write_box_stl(src / "wheel_fl.stl", (0.15, -0.28, 0.0), (0.25, -0.22, 0.1), "tyre")
+    (src / "sweep.toml").write_text("# demo smoke sweep\n")
+    spec = make_spec("smoke-2", layers=False, n_iterations=3, wheels=(demo_wheel(),))
+    spec = replace(spec, geometry="car.stl", geometry_solid_names=("car",))
+    out = tmp_path / "sweep"
+    write_sweep([spec], out, src / "sweep.toml")
+    case = out / "cases" / "smoke-2"
+    run(case, "mesh", "solve")
+    patches = mesh_boundary(case)
+    assert sorted(patches) == sorted(all_patches(spec))
+    assert patches["car"]["nFaces"] > 0 and patches["wheel_fl"]["nFaces"] > 0
+    assert read_manifest(out).case("smoke-2").patches["wheels"] == ["wheel_fl"]

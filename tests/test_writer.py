@@ -3,7 +3,6 @@ only-new / --force rules, the manifest and the run scripts' contract."""
 from __future__ import annotations
 
 import hashlib
-import json
 import os
 import struct
 import subprocess

@@ -168,3 +168,26 @@ def demo_wheel(name: str = "wheel_fl", geometry: str | None = "wheel_fl.stl", sp
 
 def with_solver(spec: CaseSpec, **kw) -> CaseSpec:
     return replace(spec, solver=replace(spec.solver, **kw))
+
+
+def write_box_stl(path: Path, lo, hi, solid: str) -> Path:
+    """A closed axis-aligned box (m, body frame) as a one-solid ASCII STL,
+    outward normals — a stand-in demo 'wheel' for mesher tests."""
+    lo, hi = np.asarray(lo, float), np.asarray(hi, float)
+    c = np.array([[x, y, z] for x in (lo[0], hi[0]) for y in (lo[1], hi[1]) for z in (lo[2], hi[2])])
+    quads = [(0, 1, 3, 2), (4, 6, 7, 5), (0, 4, 5, 1), (2, 3, 7, 6), (0, 2, 6, 4), (1, 5, 7, 3)]
+    centre = c.mean(axis=0)
+    out = [f"solid {solid}"]
+    for q in quads:
+        for a, b, d in ((q[0], q[1], q[2]), (q[0], q[2], q[3])):
+            n = np.cross(c[b] - c[a], c[d] - c[a])
+            if n @ (c[[a, b, d]].mean(axis=0) - centre) < 0:
+                b, d = d, b
+                n = -n
+            n = n / np.linalg.norm(n)
+            out += ["facet normal {:.9g} {:.9g} {:.9g}".format(*n), "outer loop"]
+            out += ["vertex {:.9g} {:.9g} {:.9g}".format(*c[k]) for k in (a, b, d)]
+            out += ["endloop", "endfacet"]
+    out.append(f"endsolid {solid}")
+    path.write_text("\n".join(out) + "\n")
+    return path

@@ -264,3 +264,13 @@ def test_write_command_plumbing(src, tmp_path, monkeypatch):
     assert r.exit_code == 2 and "--force" in r.output and "Traceback" not in r.output
     r = CliRunner().invoke(main, ["write", cfg, "-o", str(out), "--force"])
     assert r.exit_code == 0 and "1 new, 1 replaced" in r.output
+
+
+def test_cases_of_an_earlier_plan_stay_listed(src, tmp_path):
+    out = tmp_path / "out"
+    write_sweep(specs3()[:2], out, src / "sweep.toml")
+    s = write_sweep(specs3()[2:], out, src / "sweep.toml")
+    assert s.written == ("c-3",)
+    assert [c.case_id for c in read_manifest(out).cases] == ["c-1", "c-2", "c-3"]
+    assert (out / "cases.txt").read_text().split() == ["c-1", "c-2", "c-3"]
+    assert "#SBATCH --array=1-3" in (out / "slurm_array.sh").read_text()

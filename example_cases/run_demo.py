@@ -11,11 +11,11 @@ Steps
 2. Run every case with the case runner (1 case at a time, 2 MPI ranks by
    default), printing progress. A case that fails is reported with the tail
    of its log; the others go on.
-3. Post-process every exported case with `postproc forces CASE --json` when
-   that command is available, else note its absence.
-4. Write OUT/results.csv and OUT/results.html (self-contained: the table,
-   the flags explained and the safety caution) and print where they are and
-   how long the demo took.
+3. Post-process every case (postproc.sweep: forces, coefficients, aero
+   balance, convergence, the runner's flags) and write OUT/results.csv,
+   OUT/results.json, OUT/results/<case>.json and OUT/report.html (the
+   self-contained sweep report with the ranking and the safety caution);
+   print where they are and how long the demo took.
 
 Exit codes: 0 all cases ran, 1 some case failed, 2 a missing prerequisite
 (example config, solver), 130 interrupted (run again to resume).
@@ -23,12 +23,7 @@ Exit codes: 0 all cases ran, 1 some case failed, 2 a missing prerequisite
 from __future__ import annotations
 
 import argparse
-import csv
-import html
-import io
-import json
 import math
-import subprocess
 import sys
 import time
 from pathlib import Path
@@ -41,7 +36,7 @@ if str(ROOT) not in sys.path:  # running from a source tree without installing
 from caseprep import runner  # noqa: E402
 from caseprep.errors import UserError  # noqa: E402
 from caseprep.manifest import read_manifest  # noqa: E402
-from caseprep.safeio import write_text_atomic  # noqa: E402
+from postproc.sweep import postprocess_sweep  # noqa: E402
 
 DEFAULT_CONFIG = HERE / "floor_study" / "sweep.toml"
 SAFETY = ("CFD is an approximation: the numbers depend on the mesh, the turbulence model and the set-up. "
@@ -105,141 +100,6 @@ def progress(ev: runner.Progress) -> None:
             say("      " + "\n      ".join(r.log_tail.splitlines()[-15:]))
 
 
-# ---------------------------------------------------------------- post-processing
-
-
-def postprocess_forces(case_dir: Path) -> tuple[dict | None, str | None]:
-    """Run `postproc forces CASE --json`; (report, None) or (None, why not)."""
-    cmd = [sys.executable, "-m", "postproc.cli", "forces", str(case_dir), "--json"]
-    p = subprocess.run(cmd, capture_output=True, text=True, cwd=ROOT)
-    if p.returncode != 0:
-        err = (p.stderr or p.stdout).strip()
-        if "No such command" in err:
-            return None, "forces post-processing (`postproc forces`) is not in this installation yet"
-        return None, err.splitlines()[-1] if err else f"postproc exited {p.returncode}"
-    try:
-        return json.loads(p.stdout), None
-    except ValueError:
-        return None, "postproc printed something other than JSON"
-
-
-def _flatten(d, prefix: str = "") -> dict[str, float | str]:
-    """Scalar leaves of nested dicts as ``a.b`` keys; 3-vectors as ``a_x/_y/_z``."""
-    out: dict[str, float | str] = {}
-    for k, v in d.items():
-        key = f"{prefix}{k}"
-        if isinstance(v, bool):
-            out[key] = str(v)
-        elif isinstance(v, (int, float)):
-            out[key] = v
-        elif isinstance(v, str) and len(v) < 40:
-            out[key] = v
-        elif isinstance(v, list) and len(v) == 3 and all(isinstance(x, (int, float)) for x in v):
-            for axis, x in zip("xyz", v):
-                out[f"{key}_{axis}"] = x
-        elif isinstance(v, dict):
-            out.update(_flatten(v, key + "."))
-    return out
-
-
-def force_columns(report: dict) -> dict[str, float | str]:
-    """The columns a forces report contributes: its coefficients, aero
-    balance and convergence verdict (whatever keys they carry)."""
-    cols: dict[str, float | str] = {}
-    for section in ("coefficients", "balance"):
-        if isinstance(report.get(section), dict):
-            cols.update(_flatten(report[section], section + "."))
-    conv = report.get("convergence")
-    if isinstance(conv, dict):
-        for k in ("verdict", "converged", "status"):
-            if k in conv:
-                cols[f"convergence.{k}"] = str(conv[k])
-    return cols
-
-
-# ---------------------------------------------------------------- results table
-
-
-def results_rows(manifest, records: dict[str, runner.CaseRunRecord], forces: dict[str, dict]) -> list[dict]:
-    rows = []
-    for c in manifest.cases:
-        r = records.get(c.case_id)
-        row: dict[str, object] = {"case": c.case_id, "variant": c.variant}
-        for k, v in c.params.items():
-            row[k] = v
-        if r is not None:
-            row.update({
-                "status": runner.effective_status(r), "flags": " ".join(r.flags), "cells": r.cells,
-                "mesh_check": {True: "OK", False: "FAILED", None: ""}[r.mesh_ok],
-                "layer_coverage": None if r.layer_coverage is None else round(r.layer_coverage, 3),
-                "iterations": r.iterations, "end": r.end_reason or "",
-                "max_final_residual": max(r.final_residuals.values()) if r.final_residuals else None,
-                "wall_time_s": r.wall_time if r.status != "skipped" else sum(s.wall_time or 0 for s in r.stages),
-            })
-        row.update(forces.get(c.case_id, {}))
-        rows.append(row)
-    return rows
-
-
-def _cell(v) -> str:
-    if v is None:
-        return ""
-    if isinstance(v, float):
-        if not math.isfinite(v):
-            return ""
-        return f"{v:.4g}"
-    return str(v)
-
-
-def to_csv(rows: list[dict]) -> str:
-    cols: list[str] = []
-    for r in rows:
-        cols += [k for k in r if k not in cols]
-    buf = io.StringIO()
-    w = csv.writer(buf, lineterminator="\n")
-    w.writerow(cols)
-    for r in rows:
-        w.writerow([_cell(r.get(c)) for c in cols])
-    return buf.getvalue()
-
-
-def to_html(rows: list[dict], notes: list[str], title: str, elapsed: float) -> str:
-    cols: list[str] = []
-    for r in rows:
-        cols += [k for k in r if k not in cols]
-    e = html.escape
-    head = "".join(f"<th>{e(c)}</th>" for c in cols)
-    body = []
-    for r in rows:
-        bad = r.get("status") not in ("ok",) or r.get("flags")
-        body.append(f"<tr class=\"{'flag' if bad else ''}\">" + "".join(f"<td>{e(_cell(r.get(c)))}</td>" for c in cols)
-                    + "</tr>")
-    flags = sorted({f for r in rows for f in str(r.get("flags") or "").split()})
-    legend = "".join(f"<li><b>{e(f)}</b>: {e(runner.FLAG_TEXT.get(f, f))}</li>" for f in flags) or "<li>none</li>"
-    note_html = "".join(f"<li>{e(n)}</li>" for n in notes) or "<li>none</li>"
-    return f"""<!doctype html>
-<html lang="en"><head><meta charset="utf-8"><title>{e(title)}</title>
-<style>
-body {{ font-family: sans-serif; margin: 2em; color: #222; }}
-table {{ border-collapse: collapse; font-size: 0.85em; }}
-th, td {{ border: 1px solid #bbb; padding: 0.25em 0.5em; text-align: right; }}
-th {{ background: #eee; }} td:first-child, th:first-child {{ text-align: left; }}
-tr.flag td {{ background: #fff3e0; }}
-.caution {{ border-left: 4px solid #c62828; background: #fdecea; padding: 0.6em 1em; max-width: 60em; }}
-</style></head><body>
-<h1>{e(title)}</h1>
-<p class="caution"><b>Safety.</b> {e(SAFETY)}</p>
-<p>Demo data: an invented example study, smoke-level meshes — for showing the workflow, not for decisions.
-Body-frame axes: x rearward, y right, z up; SI units. Demo wall time {e(runner.format_duration(elapsed))}.</p>
-<table><thead><tr>{head}</tr></thead><tbody>
-{chr(10).join(body)}
-</tbody></table>
-<h2>Flags</h2><ul>{legend}</ul>
-<h2>Notes</h2><ul>{note_html}</ul>
-</body></html>
-"""
-
-
 # ---------------------------------------------------------------- main
 
 
@@ -279,35 +139,26 @@ def main(argv: list[str] | None = None) -> int:
                          130)
     except UserError as exc:
         return _stop(str(exc), 2)
-    records = {r.case_id: r for r in recs}
 
-    notes: list[str] = []
-    forces: dict[str, dict] = {}
-    unavailable = None
-    for c in manifest.cases:
-        r = records.get(c.case_id)
-        if r is None or runner.effective_status(r) != "ok" or unavailable:
-            continue
-        report, why = postprocess_forces(manifest.case_dir(c))
-        if report is not None:
-            forces[c.case_id] = force_columns(report)
-        elif why and "not in this installation" in why:
-            unavailable = why
-        else:
-            notes.append(f"{c.case_id}: forces not computed: {why}")
-    if unavailable:
-        notes.insert(0, unavailable + "; the table shows the run results only.")
-    say("post-processed forces of %d case(s)" % len(forces) + (f" ({unavailable})" if unavailable else ""))
+    say("post-processing every case (forces, coefficients, balance, convergence) …")
 
+    def post_progress(i, n, o):
+        r = o.result
+        what = f"C_L {r.cl:+.4f}, C_D {r.cd:.4f}" if math.isfinite(r.cl) else "no coefficients"
+        say(f"  [{i}/{n}] {r.case_id}: {what}" + (f" — flags: {', '.join(r.flags)}" if r.flags else ""))
+
+    try:
+        outcomes, paths = postprocess_sweep(sweep_dir, out_dir=out, force=True, progress=post_progress,
+                                            title="underfloor demo — example floor study (DEMO data, smoke meshes)")
+    except UserError as exc:
+        return _stop(str(exc), 2)
     elapsed = time.monotonic() - t0
-    rows = results_rows(manifest, records, forces)
-    write_text_atomic(out / "results.csv", to_csv(rows))
-    write_text_atomic(out / "results.html", to_html(rows, notes, "underfloor demo — example floor study", elapsed))
     say("")
     say(runner.format_summary_table(recs))
     failed = [r for r in recs if r.failed]
     say("")
-    say(f"results: {out / 'results.html'} and {out / 'results.csv'}; run records: {sweep_dir / runner.SUMMARY_NAME}")
+    say(f"report: {paths['report']}; tables: {paths['csv']}, {paths['json']}; run records: "
+        f"{sweep_dir / runner.SUMMARY_NAME}")
     say(f"demo took {runner.format_duration(elapsed)}; {len(recs) - len(failed)} of {len(recs)} case(s) ran"
         + (f", {len(failed)} failed (see above)" if failed else ""))
     say("Caution: " + SAFETY)

@@ -10,7 +10,6 @@ import sys
 import click
 
 from caseprep.cli import FriendlyGroup
-from caseprep.errors import UserError
 
 from . import __version__
 from .caseforces import forces_report

@@ -133,10 +133,10 @@ def write_stl_ascii(path: str | Path, solids: list[tuple[str, np.ndarray]]) -> s
         n = n / np.where(ln > 0, ln, 1.0)
         lines.append(f"solid {name}")
         for k in range(t.shape[0]):
-            lines.append(f"  facet normal {n[k, 0]:.9e} {n[k, 1]:.9e} {n[k, 2]:.9e}")
+            lines.append(f"  facet normal {n[k, 0]:.6g} {n[k, 1]:.6g} {n[k, 2]:.6g}")
             lines.append("    outer loop")
             for j in range(3):
-                lines.append(f"      vertex {t[k, j, 0]:.9e} {t[k, j, 1]:.9e} {t[k, j, 2]:.9e}")
+                lines.append(f"      vertex {t[k, j, 0]:.10g} {t[k, j, 1]:.10g} {t[k, j, 2]:.10g}")
             lines.append("    endloop")
             lines.append("  endfacet")
         lines.append(f"endsolid {name}")

@@ -306,6 +306,33 @@ def _model_for(loc: tuple) -> type[BaseModel]:
     return model
 
 
+def _fixed_len(loc: tuple) -> int | None:
+    """Length of the fixed-size list (tuple) at ``loc``, from the model annotation."""
+    import types
+    import typing
+
+    names = [i for i, p in enumerate(loc) if isinstance(p, str)]
+    if not names:
+        return None
+    k = names[-1]
+    model = _model_for(loc[:k])
+    f = model.model_fields.get(loc[k])
+    if f is None:
+        return None
+    ann = f.annotation
+    depth = len(loc) - k - 1
+    for _ in range(depth + 1):
+        if typing.get_origin(ann) in (typing.Union, types.UnionType):
+            ann = next(a for a in typing.get_args(ann) if a is not type(None))
+        args = typing.get_args(ann)
+        if typing.get_origin(ann) is not tuple:
+            return None
+        if _ == depth:
+            return None if (len(args) == 2 and args[1] is Ellipsis) else len(args)
+        ann = args[0]
+    return None
+
+
 _TYPE_WORDS = {
     "float_type": "a number", "int_type": "a whole number", "string_type": "a text string (in quotes)",
     "bool_type": "true or false", "tuple_type": "a list", "dict_type": "a table", "model_type": "a table",
@@ -346,7 +373,17 @@ def _translate(exc: ValidationError, file: str) -> list[UserError]:
             continue
         key = _key(loc)
         unit = _unit(loc)
-        if typ == "missing":
+        if (typ == "missing" and isinstance(loc[-1], int)) or typ in ("too_short", "too_long"):
+            ploc = loc[:-1] if typ == "missing" else loc
+            n = _fixed_len(ploc) or ctx.get("expected") or ctx.get("max_length") or ctx.get("min_length")
+            pk = _key(ploc)
+            if pk in seen and typ == "missing":
+                continue
+            seen.add(pk)
+            what = "x, y, z in m, body frame" if n == 3 and _unit(ploc) == " (m)" else "numbers"
+            errs.append(UserError(expected=f"a list of {n} values ({what})", got=list(inp) if isinstance(inp, (tuple, list)) else inp,
+                                  file=file, key=pk, fix=f"give exactly {n} values"))
+        elif typ == "missing":
             errs.append(UserError(expected=f"the key {key}{unit}", got="nothing", file=file, key=key,
                                   fix=f"add `{loc[-1]} = …` (see the README's config table)"))
         elif typ == "literal_error":
@@ -354,11 +391,6 @@ def _translate(exc: ValidationError, file: str) -> list[UserError]:
             choices = re.findall(r"'([^']*)'", allowed)
             errs.append(UserError(expected=f"one of {allowed}", got=inp, file=file, key=key,
                                   fix=("use one of the listed values." + did_you_mean(str(inp), choices)) if isinstance(inp, str) else "use one of the listed values"))
-        elif typ in ("too_short", "too_long"):
-            n = ctx.get("expected") or ctx.get("max_length") or ctx.get("min_length")
-            what = "[x, y, z] in m, body frame" if unit == " (m)" and n == 3 else f"{n} items"
-            errs.append(UserError(expected=f"a list of {n} values ({what})", got=inp, file=file, key=key,
-                                  fix="give exactly that many numbers"))
         elif typ.startswith("uf_"):
             errs.append(UserError(expected=ctx.get("expected", "a valid value"), got=inp, file=file, key=key, fix=ctx.get("fix")))
         else:

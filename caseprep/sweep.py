@@ -31,7 +31,9 @@ Case ids
 --------
 ``<variant>-<8 hex>`` where the hex digits are the start of the SHA-256 of the
 point's canonical parameter set: variant, front and rear ride height (m,
-rounded to 1 µm), yaw (deg, 1e-4), speed (m/s, 1e-4) and mesh level. The id
+rounded to 1 µm), yaw (deg, 1e-4), speed (m/s, 1e-4) and mesh level (and,
+without a ground, the pitch in deg, 1e-4; with a ground the two ride heights
+already fix it). The id
 depends on the point alone, so adding a value to an axis adds cases without
 renaming the existing ones, and the same physical point gets the same id in
 the factorial and the pairs mode. Study-wide settings (air, mesh preset, yaw
@@ -91,14 +93,17 @@ def _fmt(x: float | None, nd: int) -> str:
 
 def canonical_parameters(p: SweepPoint) -> str:
     """The canonical, rounded text of a point's parameters (hashed for the id)."""
-    return json.dumps({
+    d = {
         "variant": p.variant,
         "ride_height_front": _fmt(p.ride_height_front, 6),
         "ride_height_rear": _fmt(p.ride_height_rear, 6),
         "yaw_deg": _fmt(p.yaw_deg, 4),
         "speed": _fmt(p.speed, 4),
         "mesh_level": int(p.mesh_level),
-    }, sort_keys=True, separators=(",", ":"))
+    }
+    if p.ride_height_front is None:  # no ground: the pitch is not implied by ride heights
+        d["pitch_deg"] = _fmt(p.pitch_deg, 4)
+    return json.dumps(d, sort_keys=True, separators=(",", ":"))
 
 
 def case_id(p: SweepPoint) -> str:

@@ -195,10 +195,10 @@ def plan_domain(*, extent_points: np.ndarray, placement: Placement, ground: str,
     box = _box("domain", g0, axes, origin, origin + lens)
     blockage = frontal_area / float(lens[1] * lens[2])
     if blockage > max_blockage:
-        problems.append(f"blockage {blockage:.2%} is above the limit of {max_blockage:.2%} (frontal area {frontal_area:.4g} m², "
+        problems.append(f"blockage {100 * blockage:.2f} % is above the limit of {100 * max_blockage:.2f} % (frontal area {frontal_area:.4g} m², "
                         f"inlet {lens[1]:.4g} m × {lens[2]:.4g} m); enlarge domain.width/height or raise domain.max_blockage")
     elif blockage > WARN_BLOCKAGE:
-        warnings.append(f"blockage {blockage:.2%} is above 1 % (common-practice limit); results carry a blockage effect")
+        warnings.append(f"blockage {100 * blockage:.2f} % is above 1 % (common-practice limit); results carry a blockage effect")
     domain = Domain(box=box, cells=(int(n[0]), int(n[1]), int(n[2])), ground=ground, blockage=float(blockage))
 
     smin, smax = settings.surface_levels

@@ -128,8 +128,13 @@ def load_geometries(cfg: Config) -> tuple[dict[str, VariantGeometry], dict[str, 
             errs.append(UserError(expected=f"the wheel solids {', '.join(missing)} in the geometry", got=f"solids {', '.join(s.solid_names)}",
                                   file=v.geometry, key=key, fix="name the solids in the STL or fix body.wheels[].solid"))
         g = analyse(s, exclude_from_clearance=wheel_solids)
-        probs = surface_problems(g.report, v.geometry, key, unit)
-        errs.extend(probs)
+        errs.extend(surface_problems(g.report, v.geometry, key, unit))
+        (y0, y1) = g.bounds[0][1], g.bounds[1][1]
+        if min(-y0, y1) < 1e-3 * max(y1 - y0, 1e-9):
+            errs.append(UserError(expected="a whole body spanning both sides of y = 0", got=f"y from {y0:.4g} m to {y1:.4g} m",
+                                  file=v.geometry, key=key,
+                                  fix="half models with a symmetry plane are not supported: mirror the geometry to a full body "
+                                      "(and draw it with y = 0 on the centre line)"))
         body_solids = tuple(n for n in s.solid_names if n not in wheel_solids) or s.solid_names
         allp = [g.hull] + list(wheel_pts.values())
         if wheel_solids:

@@ -276,6 +276,7 @@ def plan_case(cfg: Config, pt: SweepPoint, geoms: dict[str, VariantGeometry], ai
         "geometry_length_unit": vg.length_unit,
         "geometry_scale_to_m": LENGTH_UNITS[vg.length_unit],
         "wheel_sources": wheel_sources,
+        "wheel_length_unit": cfg.body.length_unit,
         "air": {"temperature": air.temperature, "pressure": air.pressure, "mu": air.mu},
         "frontal_area_wind": frontal_wind,
         "min_clearance_x_percent": pct,

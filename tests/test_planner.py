@@ -285,6 +285,8 @@ def test_cli_check_bad_geometry_and_case(tmp_path):
     res = CliRunner().invoke(main, ["check", str(tmp_path / "sweep.toml")])
     assert res.exit_code == 2 and "Traceback" not in res.output
     assert "closed surface" in res.output and "penetrates the ground" in res.output
+    res = CliRunner().invoke(main, ["plan", str(tmp_path / "sweep.toml")])
+    assert res.exit_code == 2 and "Traceback" not in res.output and "closed surface" in res.output
 
 
 def test_cli_missing_config():

@@ -138,7 +138,7 @@ class DomainPlan:
     gap_level: int | None
     estimated_cells: int
     warnings: tuple[str, ...]
-    problems: tuple[str, ...]
+    problems: tuple[tuple[str, str], ...]  # (what is wrong, how to fix it)
 
 
 def plan_domain(*, extent_points: np.ndarray, placement: Placement, ground: str, body_length: float,
@@ -158,7 +158,7 @@ def plan_domain(*, extent_points: np.ndarray, placement: Placement, ground: str,
     (m) fix the section instead of sizing it for ``target_blockage``.
     """
     warnings: list[str] = []
-    problems: list[str] = []
+    problems: list[tuple[str, str]] = []
     axes = wind_axes(placement)
     g0 = placement.ground_point_body if ground != "none" else np.zeros(3)
     q = (np.asarray(extent_points, float) - g0) @ axes.T  # coordinates along e1, e2, e3
@@ -188,15 +188,18 @@ def plan_domain(*, extent_points: np.ndarray, placement: Placement, ground: str,
     if ground == "none":
         z0 = 0.5 * (lo[2] + hi[2]) - 0.5 * lens[2]
     if width is not None and (lo[1] < y0 or hi[1] > y0 + lens[1]):
-        problems.append(f"the body ({bw:.4g} m wide across the wind) does not fit in domain.width = {W} m")
+        problems.append((f"the body ({bw:.4g} m wide across the wind) does not fit in domain.width = {W} m",
+                         "enlarge domain.width or leave it out (automatic size)"))
     if height is not None and hi[2] > z0 + lens[2]:
-        problems.append(f"the body (top at {hi[2]:.4g} m) does not fit under domain.height = {H} m")
+        problems.append((f"the body (top at {hi[2]:.4g} m) does not fit under domain.height = {H} m",
+                         "enlarge domain.height or leave it out (automatic size)"))
     origin = np.array([x0, y0, z0])
     box = _box("domain", g0, axes, origin, origin + lens)
     blockage = frontal_area / float(lens[1] * lens[2])
     if blockage > max_blockage:
-        problems.append(f"blockage {100 * blockage:.2f} % is above the limit of {100 * max_blockage:.2f} % (frontal area {frontal_area:.4g} m², "
-                        f"inlet {lens[1]:.4g} m × {lens[2]:.4g} m); enlarge domain.width/height or raise domain.max_blockage")
+        problems.append((f"blockage {100 * blockage:.2f} % is above the limit of {100 * max_blockage:.2f} % (frontal area "
+                         f"{frontal_area:.4g} m², inlet {lens[1]:.4g} m × {lens[2]:.4g} m)",
+                         "enlarge domain.width/height, or raise domain.max_blockage to accept the blockage knowingly"))
     elif blockage > WARN_BLOCKAGE:
         warnings.append(f"blockage {100 * blockage:.2f} % is above 1 % (common-practice limit); results carry a blockage effect")
     domain = Domain(box=box, cells=(int(n[0]), int(n[1]), int(n[2])), ground=ground, blockage=float(blockage))
@@ -216,11 +219,11 @@ def plan_domain(*, extent_points: np.ndarray, placement: Placement, ground: str,
             gap_level = int(need)
             if need > settings.max_level:
                 finest = d0 / 2**settings.max_level
-                problems.append(
+                problems.append((
                     f"the smallest ground clearance {min_clearance * 1e3:.3f} mm needs {settings.gap_cells:g} cells of at most "
                     f"{min_clearance / settings.gap_cells * 1e3:.3f} mm; the finest level allowed (level {settings.max_level}, "
-                    f"{finest * 1e3:.3f} mm cells) gives {min_clearance / finest:.2f} cells. Raise the ride height, use a finer "
-                    f"fidelity or mesh level, or raise mesh.max_level")
+                    f"{finest * 1e3:.3f} mm cells) gives {min_clearance / finest:.2f} cells",
+                    "raise the ride height, use a finer fidelity or mesh level, or raise mesh.max_level"))
                 gap_level = settings.max_level
             top = 1.5 * max(max(ride_heights) if ride_heights else 0.0, min_clearance)
             regions.append(RefinementRegion(_box("underbody", g0, axes, np.array([lo[0] - margin, lo[1] - margin, -margin]),

@@ -31,7 +31,7 @@ from .geometry import LENGTH_UNITS, BodyGeometry, analyse, hull_points, hull_pro
 from .manifest import Reference
 from .physics import air_density, inlet_turbulence, isa_troposphere, sutherland_viscosity
 from .spec import CaseSpec, Flow, SolverSpec, Wheel
-from .sweep import SweepPoint, expand
+from .sweep import SweepPoint, expand_collect
 
 
 @dataclass(frozen=True)
@@ -167,14 +167,8 @@ def plan_all(cfg: Config) -> PlanResult:
     warnings: list[str] = []
     geoms, _, gerrs = load_geometries(cfg)
     problems.extend(gerrs)
-    try:
-        points = expand(cfg)
-    except UserErrors as e:
-        problems.extend(e.errors)
-        points = []
-    except UserError as e:
-        problems.append(e)
-        points = []
+    points, perrs = expand_collect(cfg)
+    problems.extend(perrs)
     air = air_properties(cfg)
     settings = mesh_settings(cfg.mesh.fidelity, cfg.mesh.base_cell, cfg.mesh.surface_levels, cfg.mesh.feature_level,
                              cfg.mesh.max_level, cfg.mesh.gap_cells, cfg.mesh.layers, cfg.mesh.layer_expansion,
@@ -236,9 +230,10 @@ def plan_case(cfg: Config, pt: SweepPoint, geoms: dict[str, VariantGeometry], ai
                      upstream=cfg.domain.upstream, downstream=cfg.domain.downstream, width=cfg.domain.width,
                      height=cfg.domain.height, target_blockage=cfg.domain.target_blockage, max_blockage=cfg.domain.max_blockage)
     if dp.problems:
-        extra = f" (smallest clearance at {where})" if where else ""
-        msgs = [UserError(expected="a case the mesh can represent", got=p + extra + f" in case {cid}", file=cfg.file, key=pt.source,
-                          fix="see the message above") for p in dp.problems]
+        extra = f" (at {where})" if where else ""
+        msgs = [UserError(f"case {cid} ({cfg.file} at {pt.source}): {what}{extra if 'clearance' in what else ''}", fix=fix,
+                          file=cfg.file, key=pt.source)
+                for what, fix in dp.problems]
         raise msgs[0] if len(msgs) == 1 else UserErrors(msgs)
     notes.extend(dp.warnings)
     ell = cfg.solver.turbulence_length_scale or 1e-3 * lref

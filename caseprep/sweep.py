@@ -135,8 +135,16 @@ def pitch_from_heights(ride_height_front: float, ride_height_rear: float, ref_fr
 
 def expand(cfg: Config) -> list[SweepPoint]:
     """All points of the sweep, in a stable order (variants as listed, then
-    the axes in config order). Raises UserErrors for impossible points
-    (e.g. a pitch the reference points cannot reach, duplicate points)."""
+    the axes in config order). Raises UserError/UserErrors for impossible
+    points (e.g. a pitch the reference points cannot reach, duplicates)."""
+    pts, errs = expand_collect(cfg)
+    if errs:
+        raise errs[0] if len(errs) == 1 else UserErrors(errs)
+    return pts
+
+
+def expand_collect(cfg: Config) -> tuple[list[SweepPoint], list[UserError]]:
+    """As :func:`expand`, returning (valid points, problems) instead of raising."""
     s = cfg.sweep
     b = cfg.body
     file = cfg.file
@@ -195,12 +203,13 @@ def expand(cfg: Config) -> list[SweepPoint]:
             if sp is not None:
                 pts.append(sp)
     seen: dict[str, SweepPoint] = {}
+    unique: list[SweepPoint] = []
     for p in pts:
         cid = p.case_id
         if cid in seen:
             errs.append(UserError(expected="each operating point once", got=f"{cid} twice ({seen[cid].source} and {p.source})",
                                   file=file, key=p.source, fix="remove the duplicate value or point"))
+            continue
         seen[cid] = p
-    if errs:
-        raise errs[0] if len(errs) == 1 else UserErrors(errs)
-    return pts
+        unique.append(p)
+    return unique, errs

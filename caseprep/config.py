@@ -22,7 +22,6 @@ from pydantic import BaseModel, ConfigDict, PrivateAttr, ValidationError, field_
 from pydantic_core import PydanticCustomError
 
 from .errors import UserError, UserErrors, did_you_mean
-from .frames import YAW_MODES
 
 NAME_RE = re.compile(r"^[A-Za-z][A-Za-z0-9_-]*$")
 NAME_RULE = "a name made of letters, digits, '_' and '-', starting with a letter"

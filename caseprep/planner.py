@@ -181,6 +181,9 @@ def plan_all(cfg: Config) -> PlanResult:
             continue
         try:
             spec, notes = plan_case(cfg, pt, geoms, air, settings, (fa, ra, wb, lref, mp))
+        except UserErrors as e:
+            problems.extend(e.errors)
+            continue
         except UserError as e:
             problems.append(e)
             continue

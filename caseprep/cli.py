@@ -147,7 +147,8 @@ def write_cmd(config: str, out_dir: str, force: bool, fidelity: str | None) -> N
     from .planner import plan
     from .writer import write_sweep
 
-    specs = plan(load_config(config))
+    cfg = load_config(config)
+    specs = plan(cfg)
     if fidelity is not None:
         names = sorted({s.fidelity for s in specs})
         specs = [s for s in specs if s.fidelity == fidelity]
@@ -156,7 +157,7 @@ def write_cmd(config: str, out_dir: str, force: bool, fidelity: str | None) -> N
 
             raise UserError(expected=f"a fidelity level of the sweep ({', '.join(names)})", got=fidelity,
                             file=config, key="--fidelity", fix="pick one of those levels." + did_you_mean(fidelity, names))
-    summary = write_sweep(specs, out_dir, config, force=force)
+    summary = write_sweep(specs, out_dir, config, force=force, study=cfg.study.name)
     click.echo(f"{summary.root}: {len(summary.written)} new, {len(summary.replaced)} replaced, "
                f"{len(summary.unchanged)} unchanged case(s); manifest {summary.manifest}")
     if summary.geometry_written:

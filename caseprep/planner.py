@@ -274,6 +274,11 @@ def plan_case(cfg: Config, pt: SweepPoint, geoms: dict[str, VariantGeometry], ai
         "geometry_length_unit": vg.length_unit,
         "geometry_scale_to_m": LENGTH_UNITS[vg.length_unit],
         "wheel_sources": wheel_sources,
+        # what the writer reads: shared file name → source path and → scale to metres
+        "geometry_sources": {f"{pt.variant}.stl": str(vg.source),
+                             **{f"wheel_{n}.stl": str(p) for n, p in wheel_sources.items()}},
+        "geometry_scales": {f"{pt.variant}.stl": LENGTH_UNITS[vg.length_unit],
+                            **{f"wheel_{n}.stl": LENGTH_UNITS[cfg.body.length_unit] for n in wheel_sources}},
         "wheel_length_unit": cfg.body.length_unit,
         "air": {"temperature": air.temperature, "pressure": air.pressure, "mu": air.mu},
         "frontal_area_wind": frontal_wind,

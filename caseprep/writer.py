@@ -164,8 +164,9 @@ def _prepare_geometry(specs: Sequence[CaseSpec], sources: Mapping, config_dir: P
     out: dict[str, bytes] = {}
     want: dict[str, tuple[list[str], CaseSpec, float]] = {}
     for spec in specs:
-        scale = float(spec.extra.get("geometry_scale", 1.0))
+        scales = spec.extra.get("geometry_scales") or {}
         for name, solids in _expected_solids(spec).items():
+            scale = float(scales.get(name, spec.extra.get("geometry_scale", 1.0)))
             prev = want.get(name)
             if prev is not None and (sorted(prev[0]) != sorted(solids) or prev[2] != scale):
                 raise UserError(expected=f"every case to use {name!r} with the same solids and scale",
@@ -308,7 +309,8 @@ def write_sweep(
     its folder is where relative geometry paths start). ``geometry_sources``
     maps shared geometry file names (``spec.geometry``, ``Wheel.geometry``) to
     source files; else ``spec.extra["geometry_sources"]``, else the name next
-    to the config. ``spec.extra["geometry_scale"]`` (default 1) multiplies the
+    to the config. ``spec.extra["geometry_scales"][name]`` (else ``spec.extra["geometry_scale"]``,
+    default 1) multiplies the
     source coordinates (e.g. 0.001 for a file drawn in mm) when the shared
     copy is made. ``study``: manifest study name (default: the existing
     manifest's, else the config file's stem).

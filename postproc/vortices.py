@@ -70,6 +70,7 @@ class VortexCore:
 
 
 def find_cores(section: PlaneSection, q_threshold: float, *, min_polygons: int = 3,
+               min_circulation_fraction: float = 0.01,
                free_stream: np.ndarray | None = None, q_scale: float | None = None,
                q_name: str = "Q", vorticity_name: str = "vorticity", velocity_name: str = "U") -> list[VortexCore]:
     """Vortex cores on one station.
@@ -81,6 +82,9 @@ def find_cores(section: PlaneSection, q_threshold: float, *, min_polygons: int =
         (m/s, (M, 3)) per polygon.
     q_threshold : cores are connected regions with Q > q_threshold (1/s²).
     min_polygons : smaller regions are ignored (noise).
+    min_circulation_fraction : regions whose |circulation| is below this
+        fraction of the strongest region's on the station are ignored (noise
+        patches of Q slightly above the threshold).
     free_stream : free-stream velocity (3,) m/s, body axes, for the axial
         excess; None leaves it out.
     q_scale : (V/L)² in 1/s² for ``peak_q_star``; None leaves it out.
@@ -110,8 +114,10 @@ def find_cores(section: PlaneSection, q_threshold: float, *, min_polygons: int =
     wabs = np.abs(w[idx, ax]) * A[idx]
     wsum = np.bincount(lab, weights=wabs, minlength=n)
     cores = []
+    big = count >= min_polygons
+    gmax = float(np.abs(circ[big]).max()) if big.any() else 0.0
     for r in range(n):
-        if count[r] < min_polygons:
+        if count[r] < min_polygons or abs(circ[r]) < min_circulation_fraction * gmax:
             continue
         members = idx[lab == r]
         ww = np.abs(w[members, ax]) * A[members]

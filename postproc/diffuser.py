@@ -205,24 +205,31 @@ def underside_profile(points: np.ndarray, ground_point: np.ndarray, ground_norma
     return 0.5 * (edges[1:] + edges[:-1]), hmin
 
 
-def find_diffuser(x: np.ndarray, h: np.ndarray, *, min_rise: float = 0.1, tol: float = 1e-3) -> tuple[float, float]:
+def find_diffuser(x: np.ndarray, h: np.ndarray, *, search_from: float = 0.25, tol: float = 0.01,
+                  min_rise: float = 0.1) -> tuple[float, float]:
     """Throat and exit stations (m) from the floor's side profile h(x) (m
-    above ground, x rearward): the throat is where the final, monotonic rise
-    of the underside towards the tail begins, the exit the last profile
-    station. ``tol`` (m) tolerates small dips; the rise must be at least
-    ``min_rise`` × the throat height, else :class:`UserError`.
-    (Common practice, no source.)"""
+    above ground, x rearward; NaN bins ignored).
+
+    The throat is the rearmost point of minimum height (within ``tol`` × the
+    height range) behind the first ``search_from`` fraction of the profile
+    (skipping a low splitter or plank at the nose); the exit is the last
+    profile point (the floor's trailing edge). The rise from throat to exit
+    must be at least ``min_rise`` × the throat height, else
+    :class:`UserError` (no diffuser). Common practice, no source.
+    """
     ok = np.isfinite(h)
     x, h = np.asarray(x)[ok], np.asarray(h)[ok]
     if x.size < 3:
         raise UserError(expected="a body surface with an underside profile", got=f"{x.size} profile points",
                         key="--throat/--exit", fix="give the throat and exit stations explicitly")
-    i = x.size - 1
-    while i > 0 and h[i - 1] <= h[i] + tol:
-        i -= 1
-    throat, exit_ = float(x[i]), float(x[-1])
-    if i == x.size - 1 or h[-1] - h[i] < min_rise * max(h[i], 1e-9):
+    start = x[0] + search_from * (x[-1] - x[0])
+    rear = x >= start
+    xr, hr = x[rear], h[rear]
+    span = float(hr.max() - hr.min())
+    i = int(np.flatnonzero(hr <= hr.min() + tol * span)[-1])
+    throat, exit_ = float(xr[i]), float(xr[-1])
+    if i >= xr.size - 1 or hr[-1] - hr[i] < min_rise * max(hr[i], 1e-9):
         raise UserError(expected="an underside that rises towards the tail (a diffuser)",
-                        got=f"heights {h[i]:.4g} m at x = {throat:.4g} m to {h[-1]:.4g} m at x = {exit_:.4g} m",
+                        got=f"heights {hr[i]:.4g} m at x = {throat:.4g} m to {hr[-1]:.4g} m at x = {exit_:.4g} m",
                         key="--throat/--exit", fix="give the throat and exit stations explicitly")
     return throat, exit_

@@ -140,3 +140,20 @@ def burgers(points, gamma, nu, alpha):
     u[:, 1] = -0.5 * alpha * y - f * z
     u[:, 2] = -0.5 * alpha * z + f * y
     return u
+
+
+def box_patch(grid, nx, ny, nz, which):
+    """The z-bottom (``"bottom"``) or z-top (``"top"``) boundary of a
+    :func:`box_grid` as pyvista PolyData (quads, the grid's points)."""
+    k = 0 if which == "bottom" else nz
+    i, j = np.meshgrid(np.arange(nx), np.arange(ny), indexing="ij")
+    i, j = i.ravel(), j.ravel()
+
+    def nid(a, b):
+        return a + (nx + 1) * (b + (ny + 1) * k)
+
+    q = np.stack([nid(i, j), nid(i + 1, j), nid(i + 1, j + 1), nid(i, j + 1)], axis=1)
+    if which == "top":
+        q = q[:, ::-1]
+    faces = np.column_stack([np.full(len(q), 4), q]).ravel()
+    return pv.PolyData(np.asarray(grid.points), faces=faces).clean()

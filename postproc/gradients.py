@@ -114,12 +114,27 @@ def face_pairs(topo: CellTopology) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     conn = np.asarray(topo.connectivity)
     pid = np.arange(topo.n_points, dtype=np.int64)
     h1, h2 = _mix64(pid, 0x9E3779B97F4A7C15), _mix64(pid, 0x632BE59BD9B4E019)
-    k1s, k2s, owners = [], [], []
     n_faces = np.zeros(ct.shape[0], dtype=np.int32)
     present = np.unique(ct)
     unknown = [int(t) for t in present if int(t) not in VOLUME_CELL_TYPES]
     if unknown:
         raise ValueError(f"expected volume cells (VTK types {sorted(VOLUME_CELL_TYPES)}), got cell types {unknown}")
+    is_poly = ct == VTK_POLYHEDRON
+    for t in present:
+        t = int(t)
+        if t != VTK_POLYHEDRON:
+            n_faces[ct == t] = len(CELL_FACES[t])
+    if is_poly.any():
+        if topo.poly_face_offsets is None:
+            raise ValueError("polyhedral cells without their face lists")
+        lo = np.asarray(topo.poly_loc_offsets, dtype=np.int64)
+        n_faces[is_poly] = np.diff(lo)[is_poly]
+    total = int(n_faces.sum(dtype=np.int64))
+    # one slot per (cell, face): keys filled in place to keep the peak memory low
+    k1 = np.empty(total, dtype=np.uint64)
+    k2 = np.empty(total, dtype=np.uint64)
+    own = np.empty(total, dtype=np.int32)
+    pos = 0
     for t in present:
         t = int(t)
         if t == VTK_POLYHEDRON:
@@ -130,23 +145,19 @@ def face_pairs(topo: CellTopology) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         if np.any(off[cells + 1] - start != npt):
             raise ValueError(f"cells of VTK type {t} with a point count other than {npt}")
         for face in CELL_FACES[t]:
+            sl = slice(pos, pos + cells.size)
             with np.errstate(over="ignore"):
-                a1 = np.zeros(cells.size, dtype=np.uint64)
-                a2 = np.zeros(cells.size, dtype=np.uint64)
+                k1[sl] = 0
+                k2[sl] = 0
                 for v in face:
                     ids = conn[start + v]
-                    a1 += h1[ids]
-                    a2 += h2[ids]
-            k1s.append(a1)
-            k2s.append(a2)
-            owners.append(cells.astype(np.int64))
-        n_faces[cells] = len(CELL_FACES[t])
-    if np.any(present == VTK_POLYHEDRON):
-        if topo.poly_face_offsets is None:
-            raise ValueError("polyhedral cells without their face lists")
+                    k1[sl] += h1[ids]
+                    k2[sl] += h2[ids]
+            own[sl] = cells
+            pos += cells.size
+    if is_poly.any():
         fo = np.asarray(topo.poly_face_offsets, dtype=np.int64)
         fc = np.asarray(topo.poly_face_connectivity, dtype=np.int64)
-        lo = np.asarray(topo.poly_loc_offsets, dtype=np.int64)
         lc = np.asarray(topo.poly_loc_connectivity, dtype=np.int64)
         nonempty = fo[1:] > fo[:-1]
         with np.errstate(over="ignore"):
@@ -156,20 +167,17 @@ def face_pairs(topo: CellTopology) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
                 f1[nonempty] = np.add.reduceat(h1[fc], fo[:-1][nonempty])
                 f2[nonempty] = np.add.reduceat(h2[fc], fo[:-1][nonempty])
         counts = np.diff(lo)
-        own = np.repeat(np.arange(counts.size, dtype=np.int64), counts)
-        k1s.append(f1[lc])
-        k2s.append(f2[lc])
-        owners.append(own)
-        poly = ct == VTK_POLYHEDRON
-        n_faces[poly] = counts[poly]
-    k1 = np.concatenate(k1s)
-    k2 = np.concatenate(k2s)
-    own = np.concatenate(owners)
-    del k1s, k2s, owners
+        sl = slice(pos, pos + lc.size)
+        k1[sl] = f1[lc]
+        k2[sl] = f2[lc]
+        own[sl] = np.repeat(np.arange(counts.size, dtype=np.int32), counts)
+        pos += lc.size
+        del f1, f2
     order = np.argsort(k1, kind="stable")
     k1 = k1[order]
     k2 = k2[order]
     own = own[order]
+    del order
     same = (k1[1:] == k1[:-1]) & (k2[1:] == k2[:-1]) & (own[1:] != own[:-1])
     idx = np.flatnonzero(same)
     # a face shared by exactly two cells gives one adjacent equal pair; drop
@@ -177,7 +185,7 @@ def face_pairs(topo: CellTopology) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     if idx.size > 1:
         chain = np.concatenate([[False], idx[1:] == idx[:-1] + 1])
         idx = idx[~chain]
-    return own[idx], own[idx + 1], n_faces
+    return own[idx].astype(np.int64), own[idx + 1].astype(np.int64), n_faces
 
 
 def adjacency_matrix(a: np.ndarray, b: np.ndarray, n_cells: int) -> sp.csr_matrix:
@@ -223,6 +231,15 @@ class GradientOperator:
     def matrix(self, k: int) -> sp.csr_matrix:
         """The full sparse matrix G_k = C_k − diag(s_k) (so ∂φ/∂x_k = G_k φ)."""
         return (self.coeffs[k] - sp.diags(self.row_sums[k])).tocsr()
+
+    def gradient_rows(self, field64: np.ndarray, start: int, stop: int) -> np.ndarray:
+        """Gradient (stop−start, m, 3) of a float64 field (N, m) on the cells
+        start…stop−1 only (bounded memory for derived quantities)."""
+        out = np.empty((stop - start, field64.shape[1], 3))
+        for k in range(3):
+            res = self.coeffs[k][start:stop] @ field64
+            out[:, :, k] = res - self.row_sums[k][start:stop, None] * field64[start:stop]
+        return out
 
     def gradient(self, field: np.ndarray) -> np.ndarray:
         """Gradient of a cell field. ``field`` (N,) → (N, 3); (N, m) → (N, m, 3)
@@ -328,7 +345,7 @@ def lsq_gradient_operator(
     max_layers: int = 3,
     quality_limit: float = 1e-6,
     dtype: type = np.float64,
-    chunk: int = 4_000_000,
+    chunk: int = 262_144,
 ) -> GradientOperator:
     """Assemble the weighted least-squares gradient operator (see module
     docstring for the formula, exactness for linear fields and citations).
@@ -367,10 +384,9 @@ def lsq_gradient_operator(
         r = np.searchsorted(indptr, np.arange(s, e), side="right") - 1 if s or e < nnz else np.repeat(np.arange(n), deg)
         d = X[indices[s:e]] - X[r]
         w = 1.0 / np.maximum(np.einsum("ij,ij->i", d, d), 1e-300)
-        xx, yy, zz, xy, xz, yz = Minv[r].T
-        data[0, s:e] = w * (xx * d[:, 0] + xy * d[:, 1] + xz * d[:, 2])
-        data[1, s:e] = w * (xy * d[:, 0] + yy * d[:, 1] + yz * d[:, 2])
-        data[2, s:e] = w * (xz * d[:, 0] + yz * d[:, 1] + zz * d[:, 2])
+        # c = w M⁻¹ d, M⁻¹ stored as (xx, yy, zz, xy, xz, yz)
+        for k, cols in enumerate(((0, 3, 4), (3, 1, 5), (4, 5, 2))):
+            data[k, s:e] = w * (Minv[r, cols[0]] * d[:, 0] + Minv[r, cols[1]] * d[:, 1] + Minv[r, cols[2]] * d[:, 2])
     coeffs = tuple(sp.csr_matrix((data[k], indices, indptr), shape=(n, n), copy=False) for k in range(3))
     ones = np.ones(n)
     row_sums = np.stack([coeffs[k] @ ones for k in range(3)])
@@ -422,7 +438,7 @@ def _sym3_eigvals(a: np.ndarray) -> np.ndarray:
     return np.stack([e3, e2, e1], axis=1)
 
 
-def lambda2(J: np.ndarray, chunk: int = 262_144) -> np.ndarray:
+def lambda2(J: np.ndarray, chunk: int = 65_536) -> np.ndarray:
     """λ2 criterion (1/s²): the middle eigenvalue of S² + Ω² (S, Ω the
     symmetric/antisymmetric parts of J[i, m, k] = ∂u_m/∂x_k).
 
@@ -467,7 +483,7 @@ def normalised_q(q: np.ndarray, speed: float, length: float) -> np.ndarray:
 
 def velocity_gradient_fields(op: GradientOperator, velocity: np.ndarray, *, speed: float | None = None,
                              length: float | None = None, with_lambda2: bool = True,
-                             chunk: int = 1_000_000) -> VelocityGradientFields:
+                             chunk: int = 262_144) -> VelocityGradientFields:
     """Vorticity, Q, λ2 and Q* of a cell velocity field (N, 3) in m/s.
 
     The velocity gradient is computed with ``op`` (1/s), a chunk of cells at a
@@ -477,13 +493,15 @@ def velocity_gradient_fields(op: GradientOperator, velocity: np.ndarray, *, spee
     U = np.asarray(velocity)
     if U.ndim != 2 or U.shape[1] != 3:
         raise ValueError(f"expected a velocity array of shape (N, 3), got {U.shape}")
-    J = op.gradient(U)
+    if U.shape[0] != op.n_cells:
+        raise ValueError(f"expected a velocity with {op.n_cells} cell values, got {U.shape[0]}")
+    U64 = U.astype(np.float64, copy=False)
     n = U.shape[0]
     w = np.empty((n, 3))
     q = np.empty(n)
     l2 = np.empty(n) if with_lambda2 else None
     for s in range(0, n, chunk):
-        j = J[s:s + chunk]
+        j = op.gradient_rows(U64, s, min(n, s + chunk))
         w[s:s + chunk] = vorticity(j)
         q[s:s + chunk] = q_criterion(j)
         if l2 is not None:

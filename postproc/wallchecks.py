@@ -28,8 +28,8 @@ ABSURD_YPLUS = 1.0e4
 
 
 def friction_velocity(wall_shear_kinematic: np.ndarray) -> np.ndarray:
-    """u_τ = √|τ_w/ρ| (m/s) from the kinematic wall shear stress (…, 3) or
-    its magnitude (…,) in m²/s²."""
+    """u_τ = √|τ_w/ρ| (m/s) from the kinematic wall shear stress, m²/s²:
+    vectors (N, 3), or magnitudes (N,) — a 1-D array is read as magnitudes."""
     t = np.asarray(wall_shear_kinematic, dtype=np.float64)
     mag = np.linalg.norm(t, axis=-1) if t.ndim >= 2 and t.shape[-1] == 3 else np.abs(t)
     return np.sqrt(mag)

@@ -1,0 +1,399 @@
+"""Volume and patch I/O for the flow-structure tools (the only flow module
+that touches pyvista/VTK).
+
+Reads the solver converter's output: ``VTK/<case>_<time>.vtm`` (a multiblock
+with ``internal`` → ``internal.vtu`` and ``boundary`` → one ``<patch>.vtp``
+per patch), a bare ``.vtu`` internal mesh, or a case folder (the newest
+``VTK/*.vtm``). Hands the kernels plain numpy arrays: topology
+(:class:`postproc.gradients.CellTopology`), cell centres, cell data, plane
+sections (:class:`postproc.sections.PlaneSection`) and surface patches
+(:class:`postproc.sections.Surface`).
+
+Axes: the mesh frame, which for underfloor cases is the body frame (x
+rearward, y right, z up, m). Pressure arrays from the incompressible solver
+are kinematic (m²/s²).
+"""
+from __future__ import annotations
+
+import re
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from caseprep.errors import UserError
+from caseprep.manifest import CaseRecord, find_case_manifest
+
+from .gradients import VOLUME_CELL_TYPES, VTK_POLYHEDRON, CellTopology
+from .sections import PlaneSection, Surface
+
+_TIME_RE = re.compile(r"_(\d+(?:\.\d+)?(?:[eE][-+]?\d+)?)$")
+
+
+@dataclass
+class FlowCase:
+    """A loaded result: internal mesh (pyvista grid, kept private to the I/O
+    layer), boundary patches as :class:`Surface`, the case record from the
+    sweep manifest when there is one, and where it came from."""
+
+    grid: object
+    patches: dict[str, Surface]
+    source: Path
+    record: CaseRecord | None = None
+    time: float | None = None
+    extra: dict = field(default_factory=dict)
+
+    @property
+    def n_cells(self) -> int:
+        return int(self.grid.n_cells)
+
+    def cell_array_names(self) -> list[str]:
+        return list(self.grid.cell_data.keys())
+
+    def cell_array(self, name: str, *, where: str | None = None) -> np.ndarray:
+        """A cell-data array of the internal mesh (a view, do not modify)."""
+        if name not in self.grid.cell_data:
+            names = ", ".join(self.cell_array_names()) or "none"
+            raise UserError(
+                expected=f"a cell-data array {name!r} in the internal mesh",
+                got=f"arrays: {names}",
+                file=str(where or self.source),
+                key=name,
+                fix="write the field with the solver's VTK converter (it must be in the time folder), "
+                    "or name the array with the matching option",
+            )
+        return np.asarray(self.grid.cell_data[name])
+
+
+def _newest_vtm(case_dir: Path) -> Path:
+    vdir = case_dir / "VTK"
+    files = sorted(vdir.glob("*.vtm")) if vdir.is_dir() else []
+    if not files:
+        raise UserError(
+            expected="a case folder with VTK/<case>_<time>.vtm (the solver's VTK converter output)",
+            got=f"no .vtm in {vdir}",
+            file=str(case_dir),
+            fix="run the solver's VTK converter in the case folder first (the case's run script does it)",
+        )
+
+    def t(p: Path) -> float:
+        m = _TIME_RE.search(p.stem)
+        return float(m.group(1)) if m else -1.0
+
+    return max(files, key=t)
+
+
+def resolve_result(path: str | Path) -> tuple[Path, Path | None]:
+    """(result file, case folder or None) for a case folder, a .vtm or a .vtu."""
+    p = Path(path)
+    if not p.exists():
+        raise UserError(expected="an existing case folder, .vtm or .vtu file", got=str(path),
+                        fix="check the path")
+    if p.is_dir():
+        return _newest_vtm(p), p
+    if p.suffix.lower() not in (".vtm", ".vtu"):
+        raise UserError(expected="a volume result (.vtm multiblock or .vtu internal mesh) or a case folder",
+                        got=p.name, file=str(p),
+                        fix="surface files (.vtp, .stl) hold no volume data; pass the case's .vtm")
+    case_dir = p.parent.parent if p.parent.name == "VTK" else None
+    return p, case_dir
+
+
+def _surface_from_polydata(pd, name: str) -> Surface:
+    import pyvista as pv
+
+    if not isinstance(pd, pv.PolyData):
+        pd = pd.extract_surface()
+    pts = np.asarray(pd.points, dtype=np.float64)
+    faces = pd.faces
+    off, conn = _polys_offsets(pd)
+    cd = {k: np.asarray(pd.cell_data[k]) for k in pd.cell_data.keys()}
+    pdd = {k: np.asarray(pd.point_data[k]) for k in pd.point_data.keys()}
+    del faces
+    return Surface(name=name, points=pts, offsets=off, connectivity=conn, cell_data=cd, point_data=pdd)
+
+
+def _polys_offsets(pd) -> tuple[np.ndarray, np.ndarray]:
+    polys = pd.GetPolys()
+    from vtkmodules.util.numpy_support import vtk_to_numpy
+
+    off = vtk_to_numpy(polys.GetOffsetsArray()).astype(np.int64)
+    conn = vtk_to_numpy(polys.GetConnectivityArray()).astype(np.int64)
+    return off, conn
+
+
+def read_flow(path: str | Path, *, need_volume: bool = True) -> FlowCase:
+    """Read a solver result for the flow-structure tools.
+
+    ``path``: a case folder (newest ``VTK/*.vtm``), a ``.vtm`` multiblock or a
+    ``.vtu`` internal mesh. The case record comes from the sweep manifest
+    above the case folder when there is one. Raises :class:`UserError` for
+    missing files, surface-only data where a volume is needed, and NaN/inf in
+    the velocity or pressure.
+    """
+    import pyvista as pv
+
+    f, case_dir = resolve_result(path)
+    try:
+        data = pv.read(str(f))
+    except Exception as exc:  # VTK reader errors
+        raise UserError(expected="a readable VTK file", got=f"{type(exc).__name__}: {exc}", file=str(f),
+                        fix="re-run the solver's VTK converter") from None
+    grid, patches = None, {}
+    if isinstance(data, pv.MultiBlock):
+        names = [data.get_block_name(i) for i in range(data.n_blocks)]
+        for i, nm in enumerate(names):
+            blk = data[i]
+            if blk is None:
+                continue
+            if isinstance(blk, pv.MultiBlock):
+                for j in range(blk.n_blocks):
+                    sub = blk[j]
+                    if sub is not None and sub.n_cells:
+                        patches[blk.get_block_name(j)] = _surface_from_polydata(sub, blk.get_block_name(j))
+            elif isinstance(blk, pv.UnstructuredGrid) and grid is None and (nm or "").lower() in ("internal", "internalmesh", ""):
+                grid = blk
+            elif isinstance(blk, pv.UnstructuredGrid) and grid is None:
+                grid = blk
+            elif isinstance(blk, pv.PolyData) and blk.n_cells:
+                patches[nm] = _surface_from_polydata(blk, nm)
+    elif isinstance(data, pv.UnstructuredGrid):
+        grid = data
+    elif isinstance(data, pv.DataSet):
+        if need_volume:
+            raise UserError(expected="volume cells (an unstructured internal mesh)",
+                            got=f"a {type(data).__name__}", file=str(f),
+                            fix="pass the case's .vtm or internal.vtu, not a surface file")
+    if grid is None and need_volume:
+        raise UserError(expected="an internal (volume) mesh block", got="surface patches only", file=str(f),
+                        fix="run the VTK converter without surface-only options so that internal.vtu is written")
+    if grid is not None and need_volume:
+        types = np.unique(np.asarray(grid.celltypes))
+        vol = [t for t in types.tolist() if t in VOLUME_CELL_TYPES]
+        if not vol:
+            raise UserError(expected="volume cells (tetrahedra, hexahedra, wedges, pyramids, polyhedra)",
+                            got=f"VTK cell types {types.tolist()} (2D/surface data)", file=str(f),
+                            fix="pass the internal mesh, not a slice or a surface")
+        if len(vol) != len(types):
+            grid = grid.extract_cells(np.flatnonzero(np.isin(grid.celltypes, vol)))
+    record = None
+    if case_dir is not None:
+        found = find_case_manifest(case_dir)
+        if found is not None:
+            record = found[1]
+    m = _TIME_RE.search(f.stem)
+    return FlowCase(grid=grid, patches=patches, source=f, record=record,
+                    time=float(m.group(1)) if m else None)
+
+
+def grid_from_arrays(points, celltypes, cells) -> object:
+    """Build an internal mesh from VTK-layout arrays (tests, demos)."""
+    import pyvista as pv
+
+    return pv.UnstructuredGrid(np.asarray(cells), np.asarray(celltypes, dtype=np.uint8), np.asarray(points))
+
+
+def flow_case_from_grid(grid, patches: dict[str, Surface] | None = None, source: str = "<memory>",
+                        record: CaseRecord | None = None) -> FlowCase:
+    """Wrap an in-memory grid as a :class:`FlowCase` (tests, API users)."""
+    return FlowCase(grid=grid, patches=dict(patches or {}), source=Path(source), record=record)
+
+
+def surface_from_polydata(pd, name: str = "surface") -> Surface:
+    """A pyvista PolyData as a plain-array :class:`Surface`."""
+    return _surface_from_polydata(pd, name)
+
+
+def surface_to_polydata(surface: Surface):
+    """A :class:`Surface` as pyvista PolyData (with its cell and point data)."""
+    import pyvista as pv
+
+    counts = np.diff(surface.offsets)
+    faces = np.insert(surface.connectivity, surface.offsets[:-1], counts) if counts.size else np.zeros(0, dtype=np.int64)
+    pd = pv.PolyData(surface.points, faces=faces)
+    for k, v in surface.cell_data.items():
+        pd.cell_data[k] = v
+    for k, v in surface.point_data.items():
+        pd.point_data[k] = v
+    return pd
+
+
+def topology(grid) -> CellTopology:
+    """The mesh topology as plain arrays (int64/int32), for
+    :func:`postproc.gradients.cell_adjacency`."""
+    ct = np.asarray(grid.celltypes)
+    off = np.asarray(grid.offset if not hasattr(grid, "cell_offsets") else grid.cell_offsets)
+    conn = np.asarray(grid.cell_connectivity)
+    kw = {}
+    if np.any(ct == VTK_POLYHEDRON):
+        kw = dict(
+            poly_face_offsets=np.asarray(grid.polyhedron_face_offsets),
+            poly_face_connectivity=np.asarray(grid.polyhedron_face_connectivity),
+            poly_loc_offsets=np.asarray(grid.polyhedron_face_location_offsets),
+            poly_loc_connectivity=np.asarray(grid.polyhedron_face_location_connectivity),
+        )
+    return CellTopology(celltypes=ct, offsets=off, connectivity=conn, n_points=int(grid.n_points), **kw)
+
+
+def cell_centres(grid) -> np.ndarray:
+    """Cell centres (N, 3), m: the mean of each cell's distinct vertices.
+
+    For hexahedra, prisms and the solver's polyhedra this is within a small
+    fraction of a cell of the volume centroid where the solver stores its
+    cell values; gradients taken with these centres are exact for fields
+    that are linear in them.
+    """
+    pts = np.asarray(grid.points, dtype=np.float64)
+    off = np.asarray(grid.offset if not hasattr(grid, "cell_offsets") else grid.cell_offsets).astype(np.int64)
+    conn = np.asarray(grid.cell_connectivity)
+    counts = np.diff(off)
+    out = np.empty((counts.size, 3))
+    nz = counts > 0
+    for k in range(3):
+        s = np.add.reduceat(pts[conn, k], off[:-1][nz]) if conn.size else np.zeros(0)
+        out[nz, k] = s / counts[nz]
+    out[~nz] = np.nan
+    return out
+
+
+def cell_volumes(grid, ids: np.ndarray | None = None) -> np.ndarray:
+    """Cell volumes (m³) of all cells or of the cells ``ids`` (VTK's cell-size filter)."""
+    g = grid if ids is None else grid.extract_cells(np.asarray(ids))
+    if g.n_cells == 0:
+        return np.zeros(0)
+    sized = g.compute_cell_sizes(length=False, area=False, volume=True, vertex_count=False)
+    return np.abs(np.asarray(sized.cell_data["Volume"], dtype=np.float64))
+
+
+def vtk_cell_gradient(grid, name: str, *, q_criterion: bool = True) -> tuple[np.ndarray, np.ndarray | None]:
+    """Reference: VTK's vtkGradientFilter on the cell array ``name``.
+
+    Returns (gradient (N, 3, 3) with [i, m, k] = ∂u_m/∂x_k, Q (N,) or None).
+    """
+    import vtk
+    from vtkmodules.util.numpy_support import vtk_to_numpy
+
+    g = vtk.vtkUnstructuredGrid()
+    g.ShallowCopy(grid)
+    f = vtk.vtkGradientFilter()
+    f.SetInputData(g)
+    f.SetInputArrayToProcess(0, 0, 0, vtk.vtkDataObject.FIELD_ASSOCIATION_CELLS, name)
+    f.SetResultArrayName("grad")
+    f.SetComputeQCriterion(bool(q_criterion))
+    f.SetQCriterionArrayName("Qvtk")
+    f.Update()
+    out = f.GetOutput()
+    # VTK stores the gradient row-major as [du/dx du/dy du/dz dv/dx ...]
+    grad = vtk_to_numpy(out.GetCellData().GetArray("grad")).reshape(-1, 3, 3).astype(np.float64)
+    q = vtk_to_numpy(out.GetCellData().GetArray("Qvtk")).astype(np.float64) if q_criterion else None
+    return grad, q
+
+
+def slice_stations(grid, xs, arrays: dict[str, np.ndarray], *, axis: int = 0) -> list[PlaneSection]:
+    """Cut the internal mesh by planes normal to ``axis`` at the positions
+    ``xs`` (m) in one pass (VTK's vtkCutter with several values) and return
+    one :class:`PlaneSection` per station, carrying the cell arrays
+    ``arrays`` (name → (N,) or (N, c) cell values, piecewise constant on
+    each cut cell) and the id of the cut cell of every polygon.
+    """
+    import vtk
+    from vtkmodules.util.numpy_support import numpy_to_vtk, vtk_to_numpy
+
+    g = vtk.vtkUnstructuredGrid()
+    g.CopyStructure(grid)
+    cd = g.GetCellData()
+    keep = []
+    for name, arr in arrays.items():
+        a = np.ascontiguousarray(np.asarray(arr, dtype=np.float64))
+        keep.append(a)
+        va = numpy_to_vtk(a.reshape(a.shape[0], -1), deep=0)
+        va.SetName(name)
+        cd.AddArray(va)
+    ids = np.arange(g.GetNumberOfCells(), dtype=np.int64)
+    keep.append(ids)
+    vid = numpy_to_vtk(ids, deep=0)
+    vid.SetName("__cell")
+    cd.AddArray(vid)
+    plane = vtk.vtkPlane()
+    n = [0.0, 0.0, 0.0]
+    n[axis] = 1.0
+    plane.SetOrigin(0.0, 0.0, 0.0)
+    plane.SetNormal(*n)
+    cut = vtk.vtkCutter()
+    cut.SetCutFunction(plane)
+    cut.SetInputData(g)
+    xs = [float(x) for x in xs]
+    cut.SetNumberOfContours(len(xs))
+    for i, x in enumerate(xs):
+        cut.SetValue(i, x)
+    cut.GenerateTrianglesOff()
+    cut.Update()
+    out = cut.GetOutput()
+    if out.GetNumberOfCells() == 0:
+        return [PlaneSection.empty(x, axis, list(arrays)) for x in xs]
+    pts = vtk_to_numpy(out.GetPoints().GetData()).astype(np.float64)
+    polys = out.GetPolys()
+    off = vtk_to_numpy(polys.GetOffsetsArray()).astype(np.int64)
+    conn = vtk_to_numpy(polys.GetConnectivityArray()).astype(np.int64)
+    ocd = out.GetCellData()
+    data = {name: vtk_to_numpy(ocd.GetArray(name)).astype(np.float64) for name in arrays}
+    src = vtk_to_numpy(ocd.GetArray("__cell")).astype(np.int64)
+    # which station each polygon belongs to: its first vertex's coordinate
+    first = pts[conn[off[:-1]], axis]
+    xs_arr = np.asarray(xs)
+    which = np.argmin(np.abs(first[:, None] - xs_arr[None, :]), axis=1)
+    sections = []
+    for i, x in enumerate(xs):
+        sel = np.flatnonzero(which == i)
+        sections.append(PlaneSection.from_polygons(x, axis, pts, off, conn, sel,
+                                                   {k: v[sel] for k, v in data.items()}, src[sel]))
+    del keep
+    return sections
+
+
+def slice_surface(surface: Surface, axis: int, value: float) -> tuple[np.ndarray, np.ndarray, dict[str, np.ndarray]]:
+    """Cut a surface patch by the plane x_axis = value.
+
+    Returns (segments (S, 2, 3) m, source polygon ids (S,), cell data of the
+    cut polygons). Empty arrays when the plane misses the patch.
+    """
+    import pyvista as pv
+    import vtk
+    from vtkmodules.util.numpy_support import vtk_to_numpy
+
+    pd = surface_to_polydata(surface)
+    pd.cell_data["__cell"] = np.arange(pd.n_cells, dtype=np.int64)
+    plane = vtk.vtkPlane()
+    n = [0.0, 0.0, 0.0]
+    n[axis] = 1.0
+    o = [0.0, 0.0, 0.0]
+    o[axis] = float(value)
+    plane.SetOrigin(*o)
+    plane.SetNormal(*n)
+    cut = vtk.vtkCutter()
+    cut.SetCutFunction(plane)
+    cut.SetInputData(pd)
+    cut.Update()
+    out = pv.wrap(cut.GetOutput())
+    if out.n_cells == 0:
+        return np.zeros((0, 2, 3)), np.zeros(0, dtype=np.int64), {}
+    lines = out.GetLines()
+    off = vtk_to_numpy(lines.GetOffsetsArray()).astype(np.int64)
+    conn = vtk_to_numpy(lines.GetConnectivityArray()).astype(np.int64)
+    pts = np.asarray(out.points, dtype=np.float64)
+    # polylines → segments
+    a_idx, b_idx, owner = [], [], []
+    counts = np.diff(off)
+    for c in np.unique(counts):
+        rows = np.flatnonzero(counts == c)
+        base = off[rows]
+        for s in range(c - 1):
+            a_idx.append(conn[base + s])
+            b_idx.append(conn[base + s + 1])
+            owner.append(rows)
+    a = np.concatenate(a_idx)
+    b = np.concatenate(b_idx)
+    own = np.concatenate(owner)
+    segs = np.stack([pts[a], pts[b]], axis=1)
+    cd = {k: np.asarray(out.cell_data[k])[own] for k in out.cell_data.keys() if k != "__cell"}
+    return segs, np.asarray(out.cell_data["__cell"])[own], cd

@@ -1,0 +1,510 @@
+"""Cell-data gradients on unstructured (polyhedral) meshes, and the
+velocity-gradient quantities built from them: vorticity, Q-criterion, λ2.
+
+Pure numpy/scipy kernels: arrays in, arrays/dataclasses out. Reading meshes
+is done in :mod:`postproc.flowio`, which hands over the topology as plain
+integer arrays.
+
+Axes: whatever frame the cell centres are given in (underfloor meshes are in
+the body frame: x rearward, y right, z up, metres). Gradients are in 1/m times
+the field's unit; the velocity-gradient tensor is ``J[i, m, k] = ∂u_m/∂x_k``
+(1/s for u in m/s).
+
+Method
+------
+1. **Face adjacency.** Every cell's faces (from the standard VTK cell face
+   tables, or the polyhedron face lists) are keyed by two order-independent
+   64-bit hashes of their vertex ids (sums of two different integer mixers
+   over the face's vertices, modulo 2⁶⁴). Sorting the keys puts the two copies
+   of each interior face side by side; a pair matches only when both hashes
+   agree (a false match needs two simultaneous 64-bit collisions). This works
+   for any mix of tetrahedra, pyramids, wedges, hexahedra and polyhedra, and
+   needs neither the face table nor a point→cell map in memory.
+2. **Weighted least squares** (e.g. Blazek, *Computational Fluid Dynamics:
+   Principles and Applications*, 3rd ed. 2015, §5.3.4; Mavriplis 2003, AIAA
+   2003-3986). For cell i with stencil neighbours j, d_ij = x_j − x_i and
+   w_ij = 1/|d_ij|², the gradient minimises Σ_j w_ij (φ_j − φ_i − d_ij·g)²:
+
+       g_i = M_i⁻¹ Σ_j w_ij d_ij (φ_j − φ_i),    M_i = Σ_j w_ij d_ij d_ijᵀ.
+
+   The coefficients c_ij = w_ij M_i⁻¹ d_ij are assembled once into sparse
+   matrices C_k (k = x, y, z) sharing one sparsity pattern, and the gradient
+   of any cell field is a sparse product:  ∂φ/∂x_k = C_k φ − s_k ∘ φ with
+   s_k = C_k 1 (row sums).
+
+   *Exactness for linear fields.* If φ = a + g·x then φ_j − φ_i = d_ijᵀ g for
+   every neighbour, so Σ_j w_ij d_ij (φ_j − φ_i) = M_i g and the formula
+   returns g exactly whenever M_i is invertible (three non-coplanar
+   neighbour directions). Hence solid-body rotation, pure shear and pure
+   strain give their exact Q on any mesh, up to floating-point round-off.
+3. **Boundary cells.** A cell with fewer than ``min_neighbours`` face
+   neighbours, or whose M_i is nearly singular, gets its stencil widened by
+   the next face-neighbour layer (neighbours of neighbours), up to
+   ``max_layers`` layers. Cells still singular after that (isolated cells)
+   get a zero gradient and are counted in ``n_degenerate``.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import scipy.sparse as sp
+
+# VTK cell type ids and their faces (local point ids). Orientation does not
+# matter here: faces are matched by vertex set. From the VTK file-format
+# documentation (cell type figures); checked in tests against VTK's own
+# vtkCell.GetFace on each type.
+VTK_TETRA, VTK_VOXEL, VTK_HEXAHEDRON, VTK_WEDGE, VTK_PYRAMID, VTK_POLYHEDRON = 10, 11, 12, 13, 14, 42
+CELL_FACES: dict[int, tuple[tuple[int, ...], ...]] = {
+    VTK_TETRA: ((0, 1, 3), (1, 2, 3), (2, 0, 3), (0, 2, 1)),
+    VTK_VOXEL: ((0, 2, 6, 4), (1, 3, 7, 5), (0, 1, 5, 4), (2, 3, 7, 6), (0, 1, 3, 2), (4, 5, 7, 6)),
+    VTK_HEXAHEDRON: ((0, 4, 7, 3), (1, 2, 6, 5), (0, 1, 5, 4), (3, 7, 6, 2), (0, 3, 2, 1), (4, 5, 6, 7)),
+    VTK_WEDGE: ((0, 1, 2), (3, 5, 4), (0, 3, 4, 1), (1, 4, 5, 2), (2, 5, 3, 0)),
+    VTK_PYRAMID: ((0, 3, 2, 1), (0, 1, 4), (1, 2, 4), (2, 3, 4), (3, 0, 4)),
+}
+VOLUME_CELL_TYPES = frozenset(CELL_FACES) | {VTK_POLYHEDRON}
+
+
+@dataclass(frozen=True)
+class CellTopology:
+    """Plain-array description of an unstructured volume mesh.
+
+    ``celltypes`` (N,) VTK type ids; ``offsets`` (N+1,) and ``connectivity``
+    point ids of each cell (VTK layout). Polyhedra (type 42) also need
+    ``poly_face_offsets``/``poly_face_connectivity`` (the face polygons) and
+    ``poly_loc_offsets``/``poly_loc_connectivity`` (for each cell, the ids of
+    its faces; rows of non-polyhedral cells are empty).
+    """
+
+    celltypes: np.ndarray
+    offsets: np.ndarray
+    connectivity: np.ndarray
+    n_points: int
+    poly_face_offsets: np.ndarray | None = None
+    poly_face_connectivity: np.ndarray | None = None
+    poly_loc_offsets: np.ndarray | None = None
+    poly_loc_connectivity: np.ndarray | None = None
+
+    @property
+    def n_cells(self) -> int:
+        return int(self.celltypes.shape[0])
+
+
+def _mix64(x: np.ndarray, seed: int) -> np.ndarray:
+    """splitmix64 finaliser (Steele, Lea & Flood 2014, "Fast splittable
+    pseudorandom number generators", OOPSLA) of integers ``x`` + seed: a
+    well-spread 64-bit hash per point id."""
+    with np.errstate(over="ignore"):
+        z = x.astype(np.uint64) + np.uint64(seed)
+        z = (z ^ (z >> np.uint64(30))) * np.uint64(0xBF58476D1CE4E5B9)
+        z = (z ^ (z >> np.uint64(27))) * np.uint64(0x94D049BB133111EB)
+        return z ^ (z >> np.uint64(31))
+
+
+def face_pairs(topo: CellTopology) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Interior faces of the mesh as cell pairs.
+
+    Returns ``(a, b, n_faces)``: int arrays of the two cells sharing each
+    interior face, and the number of faces of every cell (N,). Faces seen
+    only once are boundary faces. Raises ValueError on cell types without a
+    face table (2D cells, lines, higher-order cells).
+    """
+    ct = np.asarray(topo.celltypes)
+    off = np.asarray(topo.offsets)
+    conn = np.asarray(topo.connectivity)
+    pid = np.arange(topo.n_points, dtype=np.int64)
+    h1, h2 = _mix64(pid, 0x9E3779B97F4A7C15), _mix64(pid, 0x632BE59BD9B4E019)
+    n_faces = np.zeros(ct.shape[0], dtype=np.int32)
+    present = np.unique(ct)
+    unknown = [int(t) for t in present if int(t) not in VOLUME_CELL_TYPES]
+    if unknown:
+        raise ValueError(f"expected volume cells (VTK types {sorted(VOLUME_CELL_TYPES)}), got cell types {unknown}")
+    is_poly = ct == VTK_POLYHEDRON
+    for t in present:
+        t = int(t)
+        if t != VTK_POLYHEDRON:
+            n_faces[ct == t] = len(CELL_FACES[t])
+    if is_poly.any():
+        if topo.poly_face_offsets is None:
+            raise ValueError("polyhedral cells without their face lists")
+        lo = np.asarray(topo.poly_loc_offsets, dtype=np.int64)
+        n_faces[is_poly] = np.diff(lo)[is_poly]
+    total = int(n_faces.sum(dtype=np.int64))
+    # one slot per (cell, face): keys filled in place to keep the peak memory low
+    k1 = np.empty(total, dtype=np.uint64)
+    k2 = np.empty(total, dtype=np.uint64)
+    own = np.empty(total, dtype=np.int32)
+    pos = 0
+    for t in present:
+        t = int(t)
+        if t == VTK_POLYHEDRON:
+            continue
+        cells = np.flatnonzero(ct == t)
+        npt = max(max(f) for f in CELL_FACES[t]) + 1
+        start = off[cells]
+        if np.any(off[cells + 1] - start != npt):
+            raise ValueError(f"cells of VTK type {t} with a point count other than {npt}")
+        for face in CELL_FACES[t]:
+            sl = slice(pos, pos + cells.size)
+            with np.errstate(over="ignore"):
+                k1[sl] = 0
+                k2[sl] = 0
+                for v in face:
+                    ids = conn[start + v]
+                    k1[sl] += h1[ids]
+                    k2[sl] += h2[ids]
+            own[sl] = cells
+            pos += cells.size
+    if is_poly.any():
+        fo = np.asarray(topo.poly_face_offsets, dtype=np.int64)
+        fc = np.asarray(topo.poly_face_connectivity, dtype=np.int64)
+        lc = np.asarray(topo.poly_loc_connectivity, dtype=np.int64)
+        nonempty = fo[1:] > fo[:-1]
+        with np.errstate(over="ignore"):
+            f1 = np.zeros(fo.size - 1, dtype=np.uint64)
+            f2 = np.zeros(fo.size - 1, dtype=np.uint64)
+            if fc.size:
+                f1[nonempty] = np.add.reduceat(h1[fc], fo[:-1][nonempty])
+                f2[nonempty] = np.add.reduceat(h2[fc], fo[:-1][nonempty])
+        counts = np.diff(lo)
+        sl = slice(pos, pos + lc.size)
+        k1[sl] = f1[lc]
+        k2[sl] = f2[lc]
+        own[sl] = np.repeat(np.arange(counts.size, dtype=np.int32), counts)
+        pos += lc.size
+        del f1, f2
+    order = np.argsort(k1, kind="stable")
+    k1 = k1[order]
+    k2 = k2[order]
+    own = own[order]
+    del order
+    same = (k1[1:] == k1[:-1]) & (k2[1:] == k2[:-1]) & (own[1:] != own[:-1])
+    idx = np.flatnonzero(same)
+    # a face shared by exactly two cells gives one adjacent equal pair; drop
+    # chains (three or more copies: non-conforming input) after the first pair
+    if idx.size > 1:
+        chain = np.concatenate([[False], idx[1:] == idx[:-1] + 1])
+        idx = idx[~chain]
+    return own[idx].astype(np.int64), own[idx + 1].astype(np.int64), n_faces
+
+
+def adjacency_matrix(a: np.ndarray, b: np.ndarray, n_cells: int) -> sp.csr_matrix:
+    """Symmetric cell adjacency (CSR, int32 indices, data 1) from cell pairs,
+    without self-loops and duplicate entries."""
+    rows = np.concatenate([a, b]).astype(np.int32)
+    cols = np.concatenate([b, a]).astype(np.int32)
+    A = sp.csr_matrix((np.ones(rows.size, dtype=np.int8), (rows, cols)), shape=(n_cells, n_cells))
+    A.sum_duplicates()
+    A.data[:] = 1
+    return A
+
+
+def cell_adjacency(topo: CellTopology) -> tuple[sp.csr_matrix, np.ndarray]:
+    """Face adjacency (CSR) of a volume mesh and the number of boundary
+    faces of each cell (faces without a neighbour)."""
+    a, b, n_faces = face_pairs(topo)
+    A = adjacency_matrix(a, b, topo.n_cells)
+    n_boundary = n_faces - np.diff(A.indptr).astype(np.int32)
+    return A, n_boundary
+
+
+@dataclass(frozen=True)
+class GradientOperator:
+    """Least-squares cell gradient as sparse matrices.
+
+    ``coeffs[k]`` is the CSR matrix C_k (k = 0, 1, 2 for x, y, z; 1/m),
+    ``row_sums[k]`` = C_k 1. The gradient of a cell field φ along x_k is
+    ``C_k φ − row_sums[k] φ``. ``n_extended``: cells whose stencil was widened
+    beyond their face neighbours; ``n_degenerate``: cells left with a zero
+    gradient (no well-posed stencil).
+    """
+
+    coeffs: tuple[sp.csr_matrix, sp.csr_matrix, sp.csr_matrix]
+    row_sums: np.ndarray
+    n_extended: int
+    n_degenerate: int
+
+    @property
+    def n_cells(self) -> int:
+        return int(self.row_sums.shape[1])
+
+    def matrix(self, k: int) -> sp.csr_matrix:
+        """The full sparse matrix G_k = C_k − diag(s_k) (so ∂φ/∂x_k = G_k φ)."""
+        return (self.coeffs[k] - sp.diags(self.row_sums[k])).tocsr()
+
+    def gradient_rows(self, field64: np.ndarray, start: int, stop: int) -> np.ndarray:
+        """Gradient (stop−start, m, 3) of a float64 field (N, m) on the cells
+        start…stop−1 only (bounded memory for derived quantities)."""
+        out = np.empty((stop - start, field64.shape[1], 3))
+        for k in range(3):
+            res = self.coeffs[k][start:stop] @ field64
+            out[:, :, k] = res - self.row_sums[k][start:stop, None] * field64[start:stop]
+        return out
+
+    def gradient(self, field: np.ndarray) -> np.ndarray:
+        """Gradient of a cell field. ``field`` (N,) → (N, 3); (N, m) → (N, m, 3)
+        with ``out[i, c, k] = ∂field_c/∂x_k``. Computed in float64; the input
+        is not modified."""
+        f = np.asarray(field)
+        if f.shape[0] != self.n_cells:
+            raise ValueError(f"expected a field with {self.n_cells} cell values, got {f.shape[0]}")
+        f64 = f.astype(np.float64, copy=False)
+        out = np.empty(f.shape + (3,), dtype=np.float64)
+        for k in range(3):
+            s = self.row_sums[k]
+            res = self.coeffs[k] @ f64
+            out[..., k] = res - (s[:, None] * f64 if f.ndim == 2 else s * f64)
+        return out
+
+
+def _sym3_moments(d: np.ndarray, w: np.ndarray, rows: np.ndarray, n: int) -> np.ndarray:
+    """Σ_j w d dᵀ per row as the 6 unique entries (xx, yy, zz, xy, xz, yz)."""
+    pairs = ((0, 0), (1, 1), (2, 2), (0, 1), (0, 2), (1, 2))
+    return np.stack([np.bincount(rows, weights=w * d[:, a] * d[:, b], minlength=n) for a, b in pairs], axis=1)
+
+
+def _sym3_inverse(m: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Inverse of symmetric 3×3 matrices given as (n, 6) unique entries
+    (adjugate / determinant), and a scale-free conditioning measure
+    det/(trace/3)³ ∈ [0, 1] (1 for an isotropic stencil, 0 when singular)."""
+    xx, yy, zz, xy, xz, yz = m.T
+    a00 = yy * zz - yz * yz
+    a01 = xz * yz - xy * zz
+    a02 = xy * yz - xz * yy
+    a11 = xx * zz - xz * xz
+    a12 = xy * xz - xx * yz
+    a22 = xx * yy - xy * xy
+    det = xx * a00 + xy * a01 + xz * a02
+    tr = (xx + yy + zz) / 3.0
+    with np.errstate(divide="ignore", invalid="ignore"):
+        quality = np.where(tr > 0, det / tr**3, 0.0)
+        inv = np.stack([a00, a11, a22, a01, a02, a12], axis=1) / det[:, None]
+    return inv, np.nan_to_num(quality)
+
+
+def _row_moments(X: np.ndarray, indptr: np.ndarray, indices: np.ndarray, rows_of: np.ndarray | None,
+                 chunk: int) -> np.ndarray:
+    """Moments Σ_j w_ij d_ij d_ijᵀ (n_rows, 6) of a CSR stencil whose row r
+    belongs to cell ``rows_of[r]`` (identity when None)."""
+    nr = indptr.size - 1
+    deg = np.diff(indptr)
+    M = np.zeros((nr, 6))
+    nnz = indices.size
+    for s in range(0, nnz, chunk):
+        e = min(nnz, s + chunk)
+        r = np.searchsorted(indptr, np.arange(s, e), side="right") - 1 if s or e < nnz else np.repeat(np.arange(nr), deg)
+        ci = r if rows_of is None else rows_of[r]
+        d = X[indices[s:e]] - X[ci]
+        w = 1.0 / np.maximum(np.einsum("ij,ij->i", d, d), 1e-300)
+        M += _sym3_moments(d, w, r, nr)
+    return M
+
+
+def _stencil(A: sp.csr_matrix, X: np.ndarray, min_neighbours: int, max_layers: int,
+             quality_limit: float, chunk: int) -> tuple[sp.csr_matrix, np.ndarray, int]:
+    """Face-neighbour stencil, widened by further face-neighbour layers for
+    the cells that need it (few neighbours or an ill-posed M). Returns the
+    stencil (CSR pattern, no diagonal), the moments M (n, 6) and the number of
+    widened cells. Only the rows of widened cells are recomputed."""
+    A = sp.csr_matrix((np.ones(A.indices.size, dtype=np.float32), A.indices, A.indptr), shape=A.shape)
+    n = A.shape[0]
+    M = _row_moments(X, A.indptr, A.indices, None, chunk)
+    _, q = _sym3_inverse(M)
+    bad = np.flatnonzero((np.diff(A.indptr) < min_neighbours) | (q < quality_limit))
+    n_widened = int(bad.size)
+    S = A
+    for _ in range(max_layers - 1):
+        if bad.size == 0:
+            break
+        R = S[bad]
+        R = (R + R @ A).tocsr()
+        # drop each row's own cell
+        own = sp.csr_matrix((np.ones(bad.size, dtype=np.float32), (np.arange(bad.size), bad)), shape=R.shape)
+        R = (R - R.multiply(own)).tocsr()
+        R.eliminate_zeros()
+        R.data[:] = 1
+        Mb = _row_moments(X, R.indptr, R.indices, bad, chunk)
+        M[bad] = Mb
+        keep = np.ones(n, dtype=np.float32)
+        keep[bad] = 0
+        scatter = sp.csr_matrix((np.ones(bad.size, dtype=np.float32), (bad, np.arange(bad.size))), shape=(n, bad.size))
+        S = (sp.diags(keep) @ S + scatter @ R).tocsr()
+        S.eliminate_zeros()
+        _, qb = _sym3_inverse(Mb)
+        still = (np.diff(R.indptr) < min_neighbours) | (qb < quality_limit)
+        bad = bad[still]
+    S.sort_indices()
+    return S, M, n_widened
+
+
+def lsq_gradient_operator(
+    centres: np.ndarray,
+    adjacency: sp.csr_matrix,
+    *,
+    min_neighbours: int = 4,
+    max_layers: int = 3,
+    quality_limit: float = 1e-6,
+    dtype: type = np.float64,
+    chunk: int = 262_144,
+) -> GradientOperator:
+    """Assemble the weighted least-squares gradient operator (see module
+    docstring for the formula, exactness for linear fields and citations).
+
+    Parameters
+    ----------
+    centres : (N, 3) cell centres (m, mesh frame; the points where the cell
+        values live).
+    adjacency : (N, N) symmetric face adjacency (:func:`cell_adjacency`).
+    min_neighbours : cells with fewer face neighbours get a wider stencil.
+    max_layers : widest stencil, in face-neighbour layers.
+    quality_limit : stencils whose det(M)/(tr(M)/3)³ is below this are
+        treated as ill-posed and widened.
+    dtype : storage type of the coefficients (float64 keeps linear
+        exactness to round-off; float32 halves the memory for very large
+        meshes whose data are single precision anyway).
+    chunk : number of stencil entries processed at a time (bounds memory).
+
+    Valid for any conforming mesh of volume cells; the gradient is first-order
+    accurate on irregular meshes and exact for linear fields.
+    """
+    X = np.asarray(centres, dtype=np.float64)
+    n = X.shape[0]
+    if adjacency.shape != (n, n):
+        raise ValueError(f"expected an adjacency of shape ({n}, {n}), got {adjacency.shape}")
+    S, M, n_ext = _stencil(adjacency, X, min_neighbours, max_layers, quality_limit, chunk)
+    indptr, indices = S.indptr, S.indices.astype(np.int32, copy=False)
+    deg = np.diff(indptr)
+    nnz = indices.size
+    Minv, q = _sym3_inverse(M)
+    degenerate = ~(q >= quality_limit * 1e-3) | ~np.isfinite(Minv).all(axis=1)
+    Minv[degenerate] = 0.0
+    data = np.empty((3, nnz), dtype=dtype)
+    for s in range(0, nnz, chunk):
+        e = min(nnz, s + chunk)
+        r = np.searchsorted(indptr, np.arange(s, e), side="right") - 1 if s or e < nnz else np.repeat(np.arange(n), deg)
+        d = X[indices[s:e]] - X[r]
+        w = 1.0 / np.maximum(np.einsum("ij,ij->i", d, d), 1e-300)
+        # c = w M⁻¹ d, M⁻¹ stored as (xx, yy, zz, xy, xz, yz)
+        for k, cols in enumerate(((0, 3, 4), (3, 1, 5), (4, 5, 2))):
+            data[k, s:e] = w * (Minv[r, cols[0]] * d[:, 0] + Minv[r, cols[1]] * d[:, 1] + Minv[r, cols[2]] * d[:, 2])
+    coeffs = tuple(sp.csr_matrix((data[k], indices, indptr), shape=(n, n), copy=False) for k in range(3))
+    ones = np.ones(n)
+    row_sums = np.stack([coeffs[k] @ ones for k in range(3)])
+    return GradientOperator(coeffs=coeffs, row_sums=row_sums, n_extended=n_ext, n_degenerate=int(degenerate.sum()))
+
+
+# ---------------------------------------------------------------------------
+# velocity-gradient quantities
+# ---------------------------------------------------------------------------
+
+def vorticity(J: np.ndarray) -> np.ndarray:
+    """Vorticity ω = ∇×u (1/s), (N, 3), from J[i, m, k] = ∂u_m/∂x_k (1/s)."""
+    return np.stack([J[:, 2, 1] - J[:, 1, 2], J[:, 0, 2] - J[:, 2, 0], J[:, 1, 0] - J[:, 0, 1]], axis=1)
+
+
+def q_criterion(J: np.ndarray) -> np.ndarray:
+    """Q-criterion (1/s²): Q = ½(‖Ω‖² − ‖S‖²) = −½ J_mk J_km, with S and Ω the
+    symmetric and antisymmetric parts of J[i, m, k] = ∂u_m/∂x_k.
+
+    Hunt, Wray & Moin 1988, "Eddies, streams and convergence zones in
+    turbulent flows", CTR Report CTR-S88, p. 193. Q > 0 where rotation
+    dominates strain (a vortex core, in incompressible flow also a pressure
+    minimum in the cross-section). Valid for any velocity field; exact-zero
+    on pure shear, Ω² on solid-body rotation at rate Ω, negative on pure strain.
+    """
+    J = np.asarray(J, dtype=np.float64)
+    return -0.5 * np.einsum("imk,ikm->i", J, J)
+
+
+def _sym3_eigvals(a: np.ndarray) -> np.ndarray:
+    """Sorted eigenvalues (n, 3) of symmetric 3×3 matrices (n, 3, 3), closed
+    form (Smith 1961, "Eigenvalues of a symmetric 3×3 matrix", Commun. ACM
+    4(4):168)."""
+    a11, a22, a33 = a[:, 0, 0], a[:, 1, 1], a[:, 2, 2]
+    a12, a13, a23 = a[:, 0, 1], a[:, 0, 2], a[:, 1, 2]
+    p1 = a12**2 + a13**2 + a23**2
+    q = (a11 + a22 + a33) / 3.0
+    p2 = (a11 - q) ** 2 + (a22 - q) ** 2 + (a33 - q) ** 2 + 2.0 * p1
+    p = np.sqrt(p2 / 6.0)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        inv_p = np.where(p > 0, 1.0 / p, 0.0)
+    b11, b22, b33 = (a11 - q) * inv_p, (a22 - q) * inv_p, (a33 - q) * inv_p
+    b12, b13, b23 = a12 * inv_p, a13 * inv_p, a23 * inv_p
+    r = 0.5 * (b11 * (b22 * b33 - b23 * b23) - b12 * (b12 * b33 - b23 * b13) + b13 * (b12 * b23 - b22 * b13))
+    phi = np.arccos(np.clip(r, -1.0, 1.0)) / 3.0
+    e1 = q + 2.0 * p * np.cos(phi)
+    e3 = q + 2.0 * p * np.cos(phi + 2.0 * np.pi / 3.0)
+    e2 = 3.0 * q - e1 - e3
+    return np.stack([e3, e2, e1], axis=1)
+
+
+def lambda2(J: np.ndarray, chunk: int = 65_536) -> np.ndarray:
+    """λ2 criterion (1/s²): the middle eigenvalue of S² + Ω² (S, Ω the
+    symmetric/antisymmetric parts of J[i, m, k] = ∂u_m/∂x_k).
+
+    Jeong & Hussain 1995, "On the identification of a vortex", J. Fluid Mech.
+    285:69–94. λ2 < 0 inside a vortex core. Eigenvalues in closed form
+    (Smith 1961).
+    """
+    J = np.asarray(J, dtype=np.float64)
+    out = np.empty(J.shape[0])
+    for s in range(0, J.shape[0], chunk):
+        j = J[s:s + chunk]
+        S = 0.5 * (j + j.transpose(0, 2, 1))
+        W = 0.5 * (j - j.transpose(0, 2, 1))
+        A = S @ S + W @ W
+        out[s:s + chunk] = _sym3_eigvals(A)[:, 1]
+    return out
+
+
+@dataclass(frozen=True)
+class VelocityGradientFields:
+    """Velocity-gradient quantities per cell (body frame).
+
+    ``vorticity`` (N, 3) 1/s; ``q`` (N,) 1/s²; ``lambda2`` (N,) 1/s² (or None
+    when not asked for); ``q_star`` = Q/(V/L)² (dimensionless, None without
+    reference values).
+    """
+
+    vorticity: np.ndarray
+    q: np.ndarray
+    lambda2: np.ndarray | None
+    q_star: np.ndarray | None
+
+
+def normalised_q(q: np.ndarray, speed: float, length: float) -> np.ndarray:
+    """Q* = Q / (V/L)² (dimensionless) with V the reference speed (m/s) and L
+    the reference length (m): the Q-criterion in units of the vehicle's
+    convective time scale squared (common practice, no source)."""
+    if not (speed > 0 and length > 0):
+        raise ValueError(f"expected a positive reference speed and length, got {speed}, {length}")
+    return np.asarray(q, dtype=np.float64) / (speed / length) ** 2
+
+
+def velocity_gradient_fields(op: GradientOperator, velocity: np.ndarray, *, speed: float | None = None,
+                             length: float | None = None, with_lambda2: bool = True,
+                             chunk: int = 262_144) -> VelocityGradientFields:
+    """Vorticity, Q, λ2 and Q* of a cell velocity field (N, 3) in m/s.
+
+    The velocity gradient is computed with ``op`` (1/s), a chunk of cells at a
+    time for the derived quantities. ``speed`` (m/s) and ``length`` (m) give
+    Q* = Q/(V/L)². The input is not modified.
+    """
+    U = np.asarray(velocity)
+    if U.ndim != 2 or U.shape[1] != 3:
+        raise ValueError(f"expected a velocity array of shape (N, 3), got {U.shape}")
+    if U.shape[0] != op.n_cells:
+        raise ValueError(f"expected a velocity with {op.n_cells} cell values, got {U.shape[0]}")
+    U64 = U.astype(np.float64, copy=False)
+    n = U.shape[0]
+    w = np.empty((n, 3))
+    q = np.empty(n)
+    l2 = np.empty(n) if with_lambda2 else None
+    for s in range(0, n, chunk):
+        j = op.gradient_rows(U64, s, min(n, s + chunk))
+        w[s:s + chunk] = vorticity(j)
+        q[s:s + chunk] = q_criterion(j)
+        if l2 is not None:
+            l2[s:s + chunk] = lambda2(j)
+    qs = normalised_q(q, speed, length) if speed is not None and length is not None else None
+    return VelocityGradientFields(vorticity=w, q=q, lambda2=l2, q_star=qs)

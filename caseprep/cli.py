@@ -136,27 +136,19 @@ def run_cmd(sweep_dir, jobs, ranks, only, stages, force, residual_tol, quiet, sk
               help="Replace cases (and shared geometry) that exist with different content; "
                    "their mesh, results and logs are deleted.")
 @click.option("--fidelity", default=None, metavar="NAME",
-              help="Write only the cases of this fidelity level (as named in the config).")
+              help="Mesh fidelity preset to write at (smoke, coarse, production), overriding the config's mesh.fidelity.")
 def write_cmd(config: str, out_dir: str, force: bool, fidelity: str | None) -> None:
     """Write the case folders of CONFIG's sweep into a sweep folder.
 
     Existing identical cases are left alone and new ones added; a case that
     exists with different content is refused unless --force is given.
     """
-    from .config import load_config  # planning half: loaded only when needed
+    from .config import load_config, with_fidelity  # planning half: loaded only when needed
     from .planner import plan
     from .writer import write_sweep
 
-    cfg = load_config(config)
+    cfg = with_fidelity(load_config(config), fidelity)
     specs = plan(cfg)
-    if fidelity is not None:
-        names = sorted({s.fidelity for s in specs})
-        specs = [s for s in specs if s.fidelity == fidelity]
-        if not specs:
-            from .errors import did_you_mean
-
-            raise UserError(expected=f"a fidelity level of the sweep ({', '.join(names)})", got=fidelity,
-                            file=config, key="--fidelity", fix="pick one of those levels." + did_you_mean(fidelity, names))
     summary = write_sweep(specs, out_dir, config, force=force, study=cfg.study.name)
     click.echo(f"{summary.root}: {len(summary.written)} new, {len(summary.replaced)} replaced, "
                f"{len(summary.unchanged)} unchanged case(s); manifest {summary.manifest}")

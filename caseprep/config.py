@@ -644,3 +644,19 @@ def load_config(path: str | Path) -> Config:
     except tomllib.TOMLDecodeError as exc:
         raise UserError(f"{p} is not valid TOML: {exc}", fix="fix the syntax at that line (strings in quotes, arrays in [ ])") from None
     return parse_config(data, file=str(p), base_dir=p.parent)
+
+
+FIDELITIES: tuple[str, ...] = ("smoke", "coarse", "production")
+
+
+def with_fidelity(cfg: Config, fidelity: str | None, file: str = "--fidelity") -> Config:
+    """``cfg`` with its mesh fidelity preset replaced by ``fidelity`` (one of
+    :data:`FIDELITIES`); ``None`` returns ``cfg`` unchanged. Used by
+    ``caseprep write --fidelity`` and the demo to write a sweep at another
+    level without editing the config."""
+    if fidelity is None or fidelity == cfg.mesh.fidelity:
+        return cfg
+    if fidelity not in FIDELITIES:
+        raise UserError(expected=f"a fidelity preset ({', '.join(FIDELITIES)})", got=fidelity, key=file,
+                        fix="pick one of those." + did_you_mean(fidelity, FIDELITIES))
+    return cfg.model_copy(update={"mesh": cfg.mesh.model_copy(update={"fidelity": fidelity})})

@@ -51,28 +51,16 @@ def say(msg: str = "") -> None:
 def write_sweep(config_path: Path, sweep_dir: Path, fidelity: str, force: bool) -> None:
     """Plan and write the sweep with the caseprep Python API."""
     try:
-        from caseprep.config import load_config
+        from caseprep.config import load_config, with_fidelity
         from caseprep.planner import plan
         from caseprep.writer import write_sweep as _write
     except ImportError as exc:
         raise SystemExit(_stop(f"this checkout lacks part of caseprep ({exc}); the sweep cannot be written", 2))
     config = load_config(config_path)
-    config = _with_fidelity(config, fidelity)
+    config = with_fidelity(config, fidelity)
     specs = plan(config)
     say(f"writing {len(specs)} case(s) at fidelity {fidelity!r} into {sweep_dir} …")
-    _write(specs, sweep_dir, config_path, force=force)
-
-
-def _with_fidelity(config, fidelity: str):
-    """The config with its mesh fidelity set to ``fidelity`` (frozen pydantic
-    models are copied with ``model_copy``)."""
-    mesh = getattr(config, "mesh", None)
-    if mesh is None or not hasattr(mesh, "fidelity") or getattr(mesh, "fidelity") == fidelity:
-        return config
-    if hasattr(config, "model_copy"):
-        return config.model_copy(update={"mesh": mesh.model_copy(update={"fidelity": fidelity})})
-    import dataclasses
-    return dataclasses.replace(config, mesh=dataclasses.replace(mesh, fidelity=fidelity))
+    _write(specs, sweep_dir, config_path, force=force, study=config.study.name)
 
 
 def _stop(msg: str, code: int) -> int:

@@ -239,31 +239,37 @@ def test_run_all_skips_finished_and_reports_failures(src, tmp_path):
 
 
 # ---------------------------------------------------------------------- CLI
-def test_write_command_plumbing(src, tmp_path, monkeypatch):
-    """`caseprep write` with the planning half stood in by hand-made specs
-    (replace by a config-driven test once caseprep.planner/config land)."""
-    import sys
-    import types
+def test_write_command_on_the_example_config(tmp_path):
+    """`caseprep write` driven by the bundled demo config: --fidelity override,
+    only-new re-runs, refusal of a changed case without --force."""
+    import shutil
 
     from click.testing import CliRunner
 
     from caseprep.cli import main
 
-    specs = [make_spec("c-1"), replace(make_spec("c-2"), fidelity="fine")]
-    monkeypatch.setitem(sys.modules, "caseprep.config", types.SimpleNamespace(load_config=lambda p: {"path": p}))
-    monkeypatch.setitem(sys.modules, "caseprep.planner", types.SimpleNamespace(plan=lambda cfg: list(specs)))
-    out = tmp_path / "out"
+    root = Path(__file__).resolve().parent.parent / "example_cases" / "floor_study"
+    src = tmp_path / "study"
+    shutil.copytree(root, src)
     cfg = str(src / "sweep.toml")
+    out = tmp_path / "out"
     r = CliRunner().invoke(main, ["write", cfg, "-o", str(out), "--fidelity", "smoke"])
     assert r.exit_code == 0, r.output
-    assert (out / "cases.txt").read_text().split() == ["c-1"]
+    m = read_manifest(out)
+    assert len(m.cases) == 12 and {c.fidelity for c in m.cases} == {"smoke"}
+    assert m.study == "demo-floor-study"
     r = CliRunner().invoke(main, ["write", cfg, "-o", str(out), "--fidelity", "smok"])
-    assert r.exit_code == 2 and "Did you mean 'smoke'" in r.output
-    specs[0] = make_spec("c-1", speed=33.0)
-    r = CliRunner().invoke(main, ["write", cfg, "-o", str(out)])
+    assert r.exit_code == 2 and "Did you mean 'smoke'" in r.output and "Traceback" not in r.output
+    r = CliRunner().invoke(main, ["write", cfg, "-o", str(out), "--fidelity", "smoke"])
+    assert r.exit_code == 0 and "0 new, 0 replaced, 12 unchanged" in r.output
+    text = (src / "sweep.toml").read_text()
+    # a warmer day changes ρ and ν in every case but no case id
+    (src / "sweep.toml").write_text(text.replace("temperature = 293.15", "temperature = 303.15", 1))
+    assert "303.15" in (src / "sweep.toml").read_text()
+    r = CliRunner().invoke(main, ["write", cfg, "-o", str(out), "--fidelity", "smoke"])
     assert r.exit_code == 2 and "--force" in r.output and "Traceback" not in r.output
-    r = CliRunner().invoke(main, ["write", cfg, "-o", str(out), "--force"])
-    assert r.exit_code == 0 and "1 new, 1 replaced" in r.output
+    r = CliRunner().invoke(main, ["write", cfg, "-o", str(out), "--fidelity", "smoke", "--force"])
+    assert r.exit_code == 0 and "12 replaced" in r.output, r.output
 
 
 def test_cases_of_an_earlier_plan_stay_listed(src, tmp_path):

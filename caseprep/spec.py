@@ -222,5 +222,9 @@ class CaseSpec:
             min_clearance=self.min_clearance,
             min_clearance_at=self.min_clearance_at,
             estimated_cells=self.estimated_cells,
-            extra=dict(self.extra),
+            extra={
+                **dict(self.extra),
+                "turbulence_model": self.flow.model,
+                "target_yplus": self.mesh.layers.target_yplus if self.mesh.layers is not None else None,
+            },
         )

@@ -168,8 +168,13 @@ def _fmt(x, nd: int = 3) -> str:
     return f"{x:.{nd}f}"
 
 
-def build_context(results: list[CaseResult], title: str, study: str = "", notes: list[str] | None = None) -> dict:
-    """Everything the report template needs, as plain strings/lists."""
+def build_context(results: list[CaseResult], title: str, study: str = "", notes: list[str] | None = None,
+                  checks: list[dict] | None = None) -> dict:
+    """Everything the report template needs, as plain strings/lists.
+
+    ``checks``: optional per-case run and mesh facts (keys case_id, status,
+    cells, iterations, convergence, yplus_median, yplus_p95,
+    yplus_share_in_range, yplus_range) for the "Run and mesh checks" table."""
     scores: list[VariantScore] = rank_variants(results)
     variants = [s.variant for s in scores]
     ok = [r for r in results if not r.flags]
@@ -239,15 +244,18 @@ def build_context(results: list[CaseResult], title: str, study: str = "", notes:
         "table": table,
         "flagged": [r for r in table if r["flags"]],
         "notes": list(notes or []),
+        "checks": [{k: (_fmt(v, 1) if isinstance(v, float) and "yplus" in k and "share" not in k
+                         else _fmt(v, 2) if isinstance(v, float) else ("—" if v is None else v))
+                     for k, v in c.items()} for c in (checks or [])],
         "n_cases": len(results),
         "n_ok": len(ok),
     }
 
 
 def write_report(results: list[CaseResult], path: str | os.PathLike, title: str = "Sweep report",
-                 study: str = "", notes: list[str] | None = None) -> Path:
+                 study: str = "", notes: list[str] | None = None, checks: list[dict] | None = None) -> Path:
     """Render the report to ``path`` (atomic write) and return the path."""
-    ctx = build_context(results, title=title, study=study, notes=notes)
+    ctx = build_context(results, title=title, study=study, notes=notes, checks=checks)
     text = environment().get_template("report/sweep_report.html.j2").render(**ctx)
     p = Path(path)
     write_text_atomic(p, text)

@@ -6,7 +6,8 @@ Inputs: a sweep folder written by ``caseprep write`` (``manifest.json``) and
 run by ``caseprep run`` (``<case>/underfloor-run.json``, ``VTK/``).
 Outputs (in the sweep folder unless told otherwise, atomic writes):
 
-* ``results/<case_id>.json`` — the full forces report of each case;
+* ``results/<case_id>.json`` — the full forces report of each case, with
+  the body's y+ statistics per patch and the case's flags;
 * ``results.csv`` and ``results.json`` — one row per case;
 * ``report.html`` — the self-contained sweep report (postproc.report).
 
@@ -33,7 +34,10 @@ from caseprep.errors import UserError
 from caseprep.manifest import CaseRecord, Manifest, read_manifest
 from caseprep.safeio import write_json_atomic, write_text_atomic
 
+from . import wallchecks as wc
 from .caseforces import forces_report
+from .forces import face_geometry
+from .readers import latest_export, read_surface
 from .ranking import CaseResult, rank_variants
 from .report import write_report
 
@@ -59,6 +63,42 @@ class CaseOutcome:
     convergence: str | None
     notes: tuple[str, ...] = ()
     report: dict[str, Any] | None = field(default=None, repr=False)
+    yplus: dict[str, dict] = field(default_factory=dict)
+
+
+#: Intended y+ ranges of the wall treatments (common practice, no source):
+#: wall functions want the first cell in the log layer, a resolved laminar or
+#: low-Re wall wants it inside the viscous sublayer.
+YPLUS_RANGES = {"kOmegaSST": (30.0, 300.0), "laminar": (0.0, 5.0)}
+ALL_WALLS = "all body and wheel patches"
+
+
+def wall_yplus(case_dir: Path, case: CaseRecord) -> tuple[dict[str, dict], str | None]:
+    """y+ statistics of the body and wheel patches from the case's VTK export
+    (the solver's ``yPlus`` face field): per patch min/median/p95/max and the
+    area share inside the wall treatment's intended range
+    (:data:`YPLUS_RANGES`, chosen from the manifest's turbulence model).
+    Returns (stats by patch, None) or ({}, why not)."""
+    names = list(case.patches.get("body") or []) + list(case.patches.get("wheels") or [])
+    if not names:
+        return {}, "no body patches in the manifest"
+    try:
+        surf = read_surface(latest_export(case_dir), names)
+        yp = surf.array("yPlus")
+    except UserError as exc:
+        return {}, f"y+ not assessed: {exc}".splitlines()[0]
+    model = str(case.extra.get("turbulence_model", "kOmegaSST"))
+    target = YPLUS_RANGES.get(model, YPLUS_RANGES["kOmegaSST"])
+    S, _ = face_geometry(surf.points, (surf.offsets, surf.connectivity))
+    import numpy as np
+
+    areas = np.linalg.norm(S, axis=1)
+    out = {}
+    for i, name in enumerate(surf.part_names):
+        sel = surf.part_ids == i
+        out[name] = wc.yplus_stats(name, yp[sel], areas[sel], target).to_dict()
+    out[ALL_WALLS] = wc.yplus_stats(ALL_WALLS, yp, areas, target).to_dict()
+    return out, None
 
 
 def _flag_text(flag: str) -> str:
@@ -118,11 +158,16 @@ def process_case(manifest: Manifest, case: CaseRecord) -> CaseOutcome:
                 flags.append("forces-drifting")
         else:
             notes.append("no runtime force monitor found: convergence not assessed")
+    yplus: dict[str, dict] = {}
+    if report is not None:
+        yplus, why = wall_yplus(case_dir, case)
+        if why:
+            notes.append(why)
     result = CaseResult(**base, cl=cl, cd=cd, cs=cs, cl_front=clf, cl_rear=clr, balance=bal,
                         stability_margin=margin, flags=tuple(dict.fromkeys(flags)))
     return CaseOutcome(result=result, status=status, cells=rec.cells if rec else None,
                        iterations=rec.iterations if rec else None, convergence=verdict,
-                       notes=tuple(notes), report=report)
+                       notes=tuple(notes), report=report, yplus=yplus)
 
 
 def outcome_row(o: CaseOutcome) -> dict[str, Any]:
@@ -130,8 +175,12 @@ def outcome_row(o: CaseOutcome) -> dict[str, Any]:
     r = asdict(o.result)
     r["flags"] = " ".join(o.result.flags)
     r["downforce_coefficient"] = -o.result.cl if math.isfinite(o.result.cl) else None
-    r.update(status=o.status, cells=o.cells, iterations=o.iterations, convergence=o.convergence,
-             notes="; ".join(o.notes))
+    r.update(status=o.status, cells=o.cells, iterations=o.iterations, convergence=o.convergence)
+    if o.yplus:
+        a = o.yplus[ALL_WALLS]  # all body and wheel faces together
+        r.update(yplus_median=a["median"], yplus_p95=a["p95"], yplus_max=a["max"],
+                 yplus_share_in_range=a["share_in_target"], yplus_range="{:g}-{:g}".format(*a["target"]))
+    r["notes"] = "; ".join(o.notes)
     return r
 
 
@@ -185,7 +234,8 @@ def postprocess_sweep(
         o = process_case(manifest, case)
         outcomes.append(o)
         if o.report is not None:
-            write_json_atomic(out / RESULTS_DIR / f"{case.case_id}.json", _json_safe(o.report))
+            write_json_atomic(out / RESULTS_DIR / f"{case.case_id}.json",
+                              _json_safe({**o.report, "yplus": o.yplus, "flags": list(o.result.flags)}))
         if progress is not None:
             progress(i + 1, n, o)
     rows = [outcome_row(o) for o in outcomes]
@@ -210,9 +260,12 @@ def postprocess_sweep(
     for f in flags:
         k = sum(f in o.result.flags for o in outcomes)
         notes.append(f"{k} case(s) flagged '{f}': {_flag_text(f)}")
+    check_keys = ("case_id", "status", "cells", "iterations", "convergence", "yplus_median", "yplus_p95",
+                  "yplus_share_in_range", "yplus_range")
+    checks = [{k: r.get(k) for k in check_keys} for r in rows]
     write_report([o.result for o in outcomes], paths["report"],
                  title=title or f"Sweep report — {manifest.study or Path(sweep_dir).name}",
-                 study=manifest.study, notes=notes)
+                 study=manifest.study, notes=notes, checks=checks)
     return outcomes, paths
 
 

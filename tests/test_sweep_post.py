@@ -67,5 +67,9 @@ def test_real_smoke_sweep(tmp_path):
     # 30 iterations are not enough to settle: the runner or the monitor says so, and the case is not ranked
     assert o.result.flags
     data = json.loads(paths["json"].read_text())
-    assert data["cases"][0]["case_id"] == "smoke-a"
+    row = data["cases"][0]
+    assert row["case_id"] == "smoke-a"
+    # y+ of the body comes from the solver's yPlus field: positive, ordered statistics
+    assert 0 < row["yplus_median"] <= row["yplus_p95"] <= row["yplus_max"]
+    assert 0.0 <= row["yplus_share_in_range"] <= 1.0 and row["yplus_range"] == "30-300"
     assert (paths["cases"] / "smoke-a.json").is_file()

@@ -222,7 +222,8 @@ def build_context(results: list[CaseResult], title: str, study: str = "", notes:
                          "rms": _fmt(fit.rms, 4), "dfront": _fmt(float(g[0]) / 1000.0, 4),
                          "drear": _fmt(float(g[1]) / 1000.0, 4)})
     ranking = [{
-        "rank": s.rank, "variant": s.variant, "score": _fmt(s.score), "pareto": "yes" if s.pareto else "",
+        "rank": s.rank if s.metrics.get("downforce") is not None else "—", "variant": s.variant,
+        "score": _fmt(s.score) if s.metrics.get("downforce") is not None else "—", "pareto": "yes" if s.pareto else "",
         "n": s.n_cases, "flagged": s.n_flagged,
         **{k: _fmt(v) for k, v in s.metrics.items()},
         "notes": "; ".join(s.notes),

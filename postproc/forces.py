@@ -50,8 +50,10 @@ so its result depends on ``p_ref``. :func:`closure` measures how open a
 surface is.
 
 Accumulation is in float64 whatever the input dtype (the solver exports
-Float32), chunk by chunk so the working memory stays a fraction of the
-input arrays.
+Float32). Faces are grouped by vertex count (triangles, quads, each larger
+polygon size) and processed in chunks small enough for the CPU cache, with
+component arithmetic on contiguous 1-D arrays; the working memory is the
+float64 coordinates plus a few chunk-sized arrays.
 """
 from __future__ import annotations
 

@@ -56,7 +56,8 @@ def forces_report(target: str, patches: tuple[str, ...] = (), rho: float | None 
         raise UserError(expected="a VTK file or a case folder", got=str(path), fix="check the path")
     if patches is not None and any(not p.strip() for p in patches):
         raise UserError(expected="non-empty patch names or patterns", got="an empty --patches value", key="--patches")
-    surf = read_surface(vtk_file, list(patches) or None)
+    wanted = [pressure_field] + ([] if no_shear else [shear_field])
+    surf = read_surface(vtk_file, list(patches) or None, arrays=wanted)  # only the arrays used
     ref = record.reference if record is not None else None
     if rho is None and ref is not None:
         rho = ref.rho

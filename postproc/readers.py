@@ -41,8 +41,9 @@ class Surface:
     """Polygonal faces with face (cell) data.
 
     points (N, 3) m; offsets (M+1,) and connectivity: VTK ≥ 9 polygon layout;
-    cell_data: face arrays by name; point_arrays: names of point data present
-    (not loaded); part_ids (M,) index into part_names; source: file path.
+    cell_data: face arrays by name (those loaded); point_arrays: names of point
+    data present (not loaded); part_ids (M,) index into part_names; source:
+    file path; cell_arrays: names of all face arrays present (loaded or not).
     """
 
     points: np.ndarray
@@ -55,6 +56,7 @@ class Surface:
     source: str
     time: float | None = None
     notes: tuple[str, ...] = field(default_factory=tuple)
+    cell_arrays: tuple[str, ...] = ()
 
     @property
     def n_faces(self) -> int:
@@ -70,15 +72,18 @@ class Surface:
         if name in self.cell_data:
             return self.cell_data[name]
         extra = ""
+        present = sorted(set(self.cell_arrays) | set(self.cell_data))
+        if name in present:
+            raise KeyError(f"face array {name!r} of {self.source} was not loaded (read_surface(arrays=...))")
         if name in self.point_arrays:
             extra = f" ({name!r} exists only as point data; forces need face (cell) data)"
         raise UserError(
             expected=f"a face (cell) data array {name!r}" + extra,
-            got="face arrays: " + (", ".join(sorted(self.cell_data)) or "none")
+            got="face arrays: " + (", ".join(present) or "none")
                 + "; point arrays: " + (", ".join(sorted(self.point_arrays)) or "none"),
             file=self.source, key=name,
             fix="name the array with --pressure-field/--shear-field (or --no-shear for an inviscid result)"
-                + did_you_mean(name, self.cell_data),
+                + did_you_mean(name, present),
         )
 
 
@@ -92,8 +97,12 @@ class _ErrorCatcher:
         self.messages.append(event)
 
 
-def _run_reader(reader, path: Path) -> object:
-    """Run a vtk reader on ``path``; any vtk error becomes a UserError."""
+def _run_reader(reader, path: Path, arrays: Sequence[str] | None = None) -> tuple[object, tuple | None]:
+    """Run a vtk reader on ``path``; any vtk error becomes a UserError.
+
+    XML readers load only the face arrays named in ``arrays`` (None: all) and
+    no point arrays; returns the dataset and, for those readers, the names of
+    all face and point arrays in the file (else None)."""
     import vtk
 
     from vtkmodules.vtkCommonCore import vtkCommand
@@ -113,7 +122,18 @@ def _run_reader(reader, path: Path) -> object:
     logger = vtk.vtkLogger
     old = logger.GetCurrentVerbosityCutoff()
     logger.SetStderrVerbosity(logger.VERBOSITY_OFF)
+    names = None
     try:
+        if hasattr(reader, "GetCellDataArraySelection"):
+            reader.UpdateInformation()
+            cs, ps = reader.GetCellDataArraySelection(), reader.GetPointDataArraySelection()
+            names = (tuple(cs.GetArrayName(i) for i in range(cs.GetNumberOfArrays())),
+                     tuple(ps.GetArrayName(i) for i in range(ps.GetNumberOfArrays())))
+            if arrays is not None:
+                for n in names[0]:
+                    if n not in arrays:
+                        cs.DisableArray(n)
+            ps.DisableAllArrays()  # point data are never used (forces need face data)
         reader.Update()
     finally:
         logger.SetStderrVerbosity(old)
@@ -126,7 +146,7 @@ def _run_reader(reader, path: Path) -> object:
             file=str(path),
             fix="the file may be truncated or not VTK; re-export it with the solver's converter (foamToVTK)",
         )
-    return out
+    return out, names
 
 
 def _np(vtk_array) -> np.ndarray:
@@ -214,7 +234,7 @@ def _dataset_to_parts(ds, path: Path):
 
 
 def _validate(name: str, piece: tuple, source: str) -> None:
-    P, off, conn, cells, _ = piece
+    P, off, conn, cells = piece[:4]
     m = off.size - 1
     bad = [k for k, v in cells.items() if v.shape[0] != m]
     if (conn.size and (conn.min() < 0 or conn.max() >= P.shape[0])) or off[-1] != conn.size or bad:
@@ -224,18 +244,19 @@ def _validate(name: str, piece: tuple, source: str) -> None:
 
 
 def _merge(pieces: Sequence[tuple[str, tuple]], source: str, time: float | None = None) -> Surface:
-    """Concatenate parts (name, (points, offsets, conn, cells, point_names))."""
+    """Concatenate parts (name, (points, offsets, conn, cells, point_names, face_array_names))."""
     for name, piece in pieces:
         _validate(name, piece, source)
     if len(pieces) == 1:
-        name, (P, off, conn, cells, pts) = pieces[0]
+        name, (P, off, conn, cells, pts, names) = pieces[0]
         return Surface(points=P, offsets=off, connectivity=conn, cell_data=cells, point_arrays=pts,
-                       part_ids=np.zeros(off.size - 1, np.int64), part_names=(name,), source=source, time=time)
+                       part_ids=np.zeros(off.size - 1, np.int64), part_names=(name,), source=source, time=time,
+                       cell_arrays=tuple(names))
     common = set.intersection(*(set(p[1][3]) for p in pieces))
     Ps, offs, conns, ids = [], [], [], []
     npts = 0
     nconn = 0
-    for i, (name, (P, off, conn, cells, pts)) in enumerate(pieces):
+    for i, (name, (P, off, conn, cells, pts, _)) in enumerate(pieces):
         Ps.append(P)
         offs.append(off[:-1] + nconn if i < len(pieces) - 1 else off + nconn)
         conns.append(conn + npts)
@@ -248,7 +269,8 @@ def _merge(pieces: Sequence[tuple[str, tuple]], source: str, time: float | None 
     notes = (f"face arrays present on only some patches were dropped: {', '.join(missing)}",) if missing else ()
     return Surface(points=np.concatenate(Ps), offsets=np.concatenate(offs), connectivity=np.concatenate(conns),
                    cell_data=cells, point_arrays=pts, part_ids=np.concatenate(ids),
-                   part_names=tuple(p[0] for p in pieces), source=source, time=time, notes=notes)
+                   part_names=tuple(p[0] for p in pieces), source=source, time=time, notes=notes,
+                   cell_arrays=tuple(sorted(set.intersection(*(set(p[1][5]) for p in pieces)))))
 
 
 # --------------------------------------------------------------------------- patches
@@ -275,14 +297,20 @@ def select_patches(available: Sequence[str], patterns: Iterable[str] | None, sou
 
 # --------------------------------------------------------------------------- formats
 
-def _read_single(reader_factory: Callable[[], object]) -> Callable[[Path, Sequence[str] | None], Surface]:
-    def read(path: Path, patterns: Sequence[str] | None = None) -> Surface:
+def _read_single(reader_factory: Callable[[], object]) -> Callable[..., Surface]:
+    def read(path: Path, patterns: Sequence[str] | None = None, arrays: Sequence[str] | None = None) -> Surface:
         _check_file(path)
-        ds = _run_reader(reader_factory(), path)
-        parts = _dataset_to_parts(ds, path)
+        ds, names = _run_reader(reader_factory(), path, arrays)
+        P, off, conn, cells, pts = _dataset_to_parts(ds, path)
+        if names is not None:
+            pts = names[1]
+        else:  # legacy reader: everything was loaded
+            names = (tuple(cells),)
+            if arrays is not None:
+                cells = {k: v for k, v in cells.items() if k in arrays}
         name = path.stem
         select_patches([name], patterns, str(path))
-        return _merge([(name, parts)], str(path))
+        return _merge([(name, (P, off, conn, cells, pts, names[0]))], str(path))
     return read
 
 
@@ -349,7 +377,7 @@ def vtm_blocks(path: Path) -> tuple[list[tuple[str, Path]], float | None]:
     return out, time
 
 
-def read_vtm(path: Path, patterns: Sequence[str] | None = None) -> Surface:
+def read_vtm(path: Path, patterns: Sequence[str] | None = None, arrays: Sequence[str] | None = None) -> Surface:
     """Read the selected patches of an XML multiblock file (see module doc)."""
     blocks, time = vtm_blocks(path)
     surfaces = [(n, f) for n, f in blocks if f.suffix != ".vtu" or n != "internal"]
@@ -371,12 +399,13 @@ def read_vtm(path: Path, patterns: Sequence[str] | None = None) -> Surface:
             reader = _READERS.get(f.suffix.lower())
             if reader is None or f.suffix.lower() == ".vtm":
                 raise UserError(expected="a .vtp/.vtu/.vtk block", got=f.suffix, file=str(f))
-            sub = reader(f, None)
-            pieces.append((n, (sub.points, sub.offsets, sub.connectivity, sub.cell_data, sub.point_arrays)))
+            sub = reader(f, None, arrays)
+            pieces.append((n, (sub.points, sub.offsets, sub.connectivity, sub.cell_data, sub.point_arrays,
+                               sub.cell_arrays)))
     return _merge(pieces, str(path), time)
 
 
-_READERS: dict[str, Callable[[Path, Sequence[str] | None], Surface]] = {
+_READERS: dict[str, Callable[..., Surface]] = {
     ".vtm": read_vtm,
     ".vtp": _read_single(_vtp_reader),
     ".vtu": _read_single(_vtu_reader),
@@ -388,18 +417,21 @@ def known_extensions() -> tuple[str, ...]:
     return tuple(sorted(_READERS))
 
 
-def read_surface(path: str | os.PathLike, patches: Sequence[str] | None = None) -> Surface:
+def read_surface(path: str | os.PathLike, patches: Sequence[str] | None = None,
+                 arrays: Sequence[str] | None = None) -> Surface:
     """Read a VTK surface or multiblock into a :class:`Surface` (by extension).
 
     ``patches``: names or globs (multiblocks: required; single files: matched
-    against the file's stem, the one part name)."""
+    against the file's stem, the one part name). ``arrays``: the face arrays
+    to load (None: all); the names of the others stay listed in
+    ``Surface.cell_arrays``. Point data are not loaded (names only)."""
     p = Path(path)
     reader = _READERS.get(p.suffix.lower())
     if reader is None:
         raise UserError(expected="a VTK file with one of the extensions " + ", ".join(known_extensions()),
                         got=p.suffix or "no extension", file=str(p),
                         fix="export the results with foamToVTK, or give a case folder holding a VTK/ export")
-    return reader(p, patches)
+    return reader(p, patches, arrays)
 
 
 # --------------------------------------------------------------------------- case folders

@@ -6,6 +6,9 @@
 2. the whole `postproc forces` on a file vs merely reading that file; target ≤ 1.3×.
 3. peak extra memory of the integration (tracemalloc) vs the loaded arrays; target < 3×.
 
+The two sides of each comparison run interleaved, 3 repeats each, and the
+medians are compared (the machine may be shared; the minimum is printed too).
+
     python tests/benchmarks/bench_forces.py [--faces 2000000]
 """
 from __future__ import annotations
@@ -22,7 +25,7 @@ import numpy as np
 ROOT = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(ROOT))
 
-from postproc.cli import run_forces  # noqa: E402
+from postproc.caseforces import forces_report as run_forces  # noqa: E402
 from postproc.forces import integrate_forces  # noqa: E402
 from postproc.readers import read_surface  # noqa: E402
 
@@ -102,13 +105,19 @@ def vtk_route(pd, rho):
     return vtk_to_numpy(res.GetArray("dF"))[0], vtk_to_numpy(res.GetArray("dM"))[0]
 
 
-def best(f, repeat=3):
-    t = []
+def interleaved(fa, fb, repeat=3):
+    """Run fa and fb alternately ``repeat`` times: (times of a, times of b, last outputs)."""
+    ta, tb = [], []
     for _ in range(repeat):
-        t0 = time.perf_counter()
-        out = f()
-        t.append(time.perf_counter() - t0)
-    return min(t), out
+        for f, t in ((fa, ta), (fb, tb)):
+            t0 = time.perf_counter()
+            out = f()
+            t.append(time.perf_counter() - t0)
+            if f is fa:
+                out_a = out
+            else:
+                out_b = out
+    return np.array(ta), np.array(tb), out_a, out_b
 
 
 def main() -> None:
@@ -132,15 +141,20 @@ def main() -> None:
         w.SetFileName(str(f))
         w.Write()
         s = read_surface(f)
-        t_vtk, (F_vtk, M_vtk) = best(lambda: vtk_route(pd, 1.2))
-        t_ours, r = best(lambda: integrate_forces(s.points, s.faces, s.array("p"), s.array("wallShearStress"), rho=1.2))
+        t_vtk, t_ours, (F_vtk, M_vtk), r = interleaved(
+            lambda: vtk_route(pd, 1.2),
+            lambda: integrate_forces(s.points, s.faces, s.array("p"), s.array("wallShearStress"), rho=1.2))
         err = np.abs(r.force - F_vtk).max() / np.abs(F_vtk).max()
+        err_m = np.abs(r.moment - M_vtk).max() / np.abs(M_vtk).max()
         print(f"faces: {m}")
-        print(f"integration: ours {t_ours:.3f} s, VTK filters {t_vtk:.3f} s, speed-up {t_vtk / t_ours:.2f}x (target >= 3); "
-              f"max rel. difference of the force {err:.1e}")
-        t_read, _ = best(lambda: read_surface(f))
-        t_cmd, _ = best(lambda: run_forces(str(f), rho=1.2))
-        print(f"whole command: {t_cmd:.3f} s, read only {t_read:.3f} s, ratio {t_cmd / t_read:.2f} (target <= 1.3)")
+        print(f"integration (median of 3, interleaved): ours {np.median(t_ours):.3f} s (min {t_ours.min():.3f}), "
+              f"VTK filters {np.median(t_vtk):.3f} s (min {t_vtk.min():.3f}), "
+              f"speed-up {np.median(t_vtk) / np.median(t_ours):.2f}x (target >= 3); "
+              f"max rel. difference of the force {err:.1e}, of the moment {err_m:.1e}")
+        t_read, t_cmd, _, _ = interleaved(lambda: read_surface(f), lambda: run_forces(str(f), rho=1.2))
+        print(f"whole command (median of 3, interleaved): {np.median(t_cmd):.3f} s (min {t_cmd.min():.3f}), "
+              f"read only {np.median(t_read):.3f} s (min {t_read.min():.3f}), "
+              f"ratio {np.median(t_cmd) / np.median(t_read):.2f} (target <= 1.3)")
         loaded = sum(a.nbytes for a in (s.points, s.offsets, s.connectivity, s.array("p"), s.array("wallShearStress")))
         tracemalloc.start()
         integrate_forces(s.points, s.faces, s.array("p"), s.array("wallShearStress"), rho=1.2)

@@ -29,6 +29,9 @@ FIDELITIES = ("smoke", "coarse", "production")
 GROUND_MODES = ("moving", "stationary", "none")
 TURBULENCE_MODELS = ("kOmegaSST", "laminar")
 LENGTH_UNIT_NAMES = ("m", "mm", "in")
+# ``variants.<name>.geometry = "none"``: an empty test section (no body), e.g.
+# to check the ground's boundary layer or the empty-section flow.
+EMPTY_GEOMETRY = "none"
 
 Vec3 = tuple[float, float, float]
 
@@ -62,7 +65,7 @@ KEYS: dict[str, tuple[str, str, str]] = {
     "body.wheels[].radius": ("m", "rolling radius", "required"),
     "body.wheels[].geometry": ("—", "STL file of the wheel (same length_unit)", "none"),
     "body.wheels[].solid": ("—", "or: name of the wheel's solid in the body STL", "none"),
-    "variants.<name>.geometry": ("—", "STL file of this variant (relative to the config)", "required"),
+    "variants.<name>.geometry": ("—", 'STL file of this variant (relative to the config), or "none" (empty test section)', "required"),
     "variants.<name>.length_unit": ("—", "overrides body.length_unit", "body.length_unit"),
     "variants.<name>.reference_area": ("m²", "overrides body.reference_area", "body.reference_area"),
     "variants.<name>.description": ("—", "free text", '""'),
@@ -92,8 +95,11 @@ KEYS: dict[str, tuple[str, str, str]] = {
     "mesh.target_yplus": ("—", "target y+ of the first cell", "preset"),
     "mesh.layers": ("—", "number of prism layers (0: none)", "preset"),
     "mesh.layer_expansion": ("—", "layer growth ratio", "preset"),
+    "mesh.ground_first_cell": ("m", "empty test section: height of the first background cell on the ground (graded upwards)", "uniform cells"),
     "domain.upstream": ("body lengths", "inlet distance ahead of the body", "3"),
     "domain.downstream": ("body lengths", "outlet distance behind the body", "6"),
+    "domain.length": ("m", "empty test section: length from inlet to outlet", "required with geometry = \"none\""),
+    "domain.lead_in": ("m", "empty test section: slip floor from the inlet to the ground's leading edge (part of domain.length)", "0"),
     "domain.width": ("m", "domain width (default: sized for blockage)", "auto"),
     "domain.height": ("m", "domain height (default: sized for blockage)", "auto"),
     "domain.target_blockage": ("—", "blockage the automatic size aims at (fraction)", "0.01"),
@@ -210,9 +216,12 @@ class MeshCfg(_M):
     target_yplus: float | None = None
     layers: int | None = None
     layer_expansion: float | None = None
+    ground_first_cell: float | None = None
 
 
 class DomainCfg(_M):
+    length: float | None = None
+    lead_in: float | None = None
     upstream: float = 3.0
     downstream: float = 6.0
     width: float | None = None
@@ -252,6 +261,11 @@ class Config(_M):
     @property
     def variant_names(self) -> tuple[str, ...]:
         return tuple(self.variants)
+
+    @property
+    def empty_section(self) -> bool:
+        """True for an empty test section (a variant with ``geometry = "none"``)."""
+        return any(v.geometry == EMPTY_GEOMETRY for v in self.variants.values())
 
     def length_unit(self, variant: str) -> str:
         return self.variants[variant].length_unit or self.body.length_unit
@@ -448,7 +462,7 @@ def _semantic(cfg: Config, base: Path, file: str) -> list[UserError]:
             errs.append(UserError(expected=NAME_RULE + " (it becomes a folder, a patch and a shell word)", got=name,
                                   file=file, key=f"variants.{name}", fix="rename the variant, e.g. 'diffuser_8deg'"))
         p = (base / v.geometry)
-        if not p.is_file():
+        if v.geometry != EMPTY_GEOMETRY and not p.is_file():
             errs.append(UserError(expected="an existing geometry file", got=str(p), file=file, key=f"variants.{name}.geometry",
                                   fix="check the path (relative paths are relative to the config file's folder)"))
         ra = v.reference_area
@@ -464,7 +478,10 @@ def _semantic(cfg: Config, base: Path, file: str) -> list[UserError]:
     _positive(errs, file, "body.reference_length", b.reference_length, "m")
     _positive(errs, file, "body.wheelbase", b.wheelbase, "m")
     has_ground = cfg.ground.mode != "none"
-    if has_ground:
+    empty = cfg.empty_section
+    if empty:
+        errs.extend(_empty_section_problems(cfg, file))
+    if has_ground and not empty:
         for k in ("front_axle", "rear_axle", "ride_height_point_front", "ride_height_point_rear"):
             if getattr(b, k) is None:
                 errs.append(UserError(expected=f"the key body.{k} ([x, y, z] in m, body frame)", got="nothing", file=file,
@@ -477,7 +494,7 @@ def _semantic(cfg: Config, base: Path, file: str) -> list[UserError]:
         if b.front_axle is not None and b.rear_axle is not None and b.wheelbase is None and not b.rear_axle[0] > b.front_axle[0]:
             errs.append(UserError(expected="rear_axle behind (larger x than) front_axle", got=f"{b.front_axle} / {b.rear_axle}",
                                   file=file, key="body.rear_axle", fix="body x points rearward; or give body.wheelbase"))
-    if b.reference_length is None and b.wheelbase is None and (b.front_axle is None or b.rear_axle is None or not has_ground):
+    if not empty and b.reference_length is None and b.wheelbase is None and (b.front_axle is None or b.rear_axle is None or not has_ground):
         errs.append(UserError(expected="body.reference_length (m)", got="nothing", file=file, key="body.reference_length",
                               fix="give body.reference_length (or body.wheelbase)"))
     for i, w in enumerate(b.wheels):
@@ -516,7 +533,7 @@ def _semantic(cfg: Config, base: Path, file: str) -> list[UserError]:
         errs.append(UserError(expected="no sweep.pitch_deg with ride_heights_front_rear (the pairs fix the pitch)", got=s.pitch_deg,
                               file=file, key="sweep.pitch_deg", fix="remove sweep.pitch_deg"))
     rh_fix = "ride heights are measured upwards from the ground; use a value > 0"
-    if has_ground:
+    if has_ground and not empty:
         if s.points is None and s.ride_height is None and s.ride_heights_front_rear is None:
             errs.append(UserError(expected="sweep.ride_height or sweep.ride_heights_front_rear (m)", got="neither", file=file,
                                   key="sweep", fix="give the ride heights to run, e.g. ride_height = [0.03]"))
@@ -528,8 +545,10 @@ def _semantic(cfg: Config, base: Path, file: str) -> list[UserError]:
     else:
         for k in ("ride_height", "ride_heights_front_rear"):
             if getattr(s, k) is not None:
-                errs.append(UserError(expected="no ride heights without a ground", got=getattr(s, k), file=file, key=f"sweep.{k}",
-                                      fix='remove them, or set ground.mode = "moving"'))
+                what, fix = (("an empty test section", "remove them (there is no body to place)") if empty else
+                             ("a ground", 'remove them, or set ground.mode = "moving"'))
+                errs.append(UserError(expected=f"no ride heights without {what}", got=getattr(s, k), file=file, key=f"sweep.{k}",
+                                      fix=fix))
     for i, y in enumerate(s.yaw_deg):
         if not abs(y) < 45.0:
             errs.append(UserError(expected="a yaw angle with |β| < 45 deg", got=y, file=file, key=f"sweep.yaw_deg[{i}]"))
@@ -549,7 +568,7 @@ def _semantic(cfg: Config, base: Path, file: str) -> list[UserError]:
                                   fix="define it or fix the name." + did_you_mean(pt.variant, known)))
         pair = pt.ride_height_front is not None or pt.ride_height_rear is not None
         single = pt.ride_height is not None
-        if has_ground:
+        if has_ground and not empty:
             if pair and single:
                 errs.append(UserError(expected="either ride_height (+ pitch_deg) or ride_height_front and ride_height_rear",
                                       got="both", file=file, key=key))
@@ -573,6 +592,11 @@ def _semantic(cfg: Config, base: Path, file: str) -> list[UserError]:
 
     m = cfg.mesh
     _positive(errs, file, "mesh.base_cell", m.base_cell, "m")
+    _positive(errs, file, "mesh.ground_first_cell", m.ground_first_cell, "m")
+    if m.ground_first_cell is not None and not empty:
+        errs.append(UserError(expected="mesh.ground_first_cell only for an empty test section (a variant with geometry = \"none\")",
+                              got=m.ground_first_cell, file=file, key="mesh.ground_first_cell",
+                              fix="remove it; with a body the ground is meshed by the refinement regions"))
     _positive(errs, file, "mesh.target_yplus", m.target_yplus, "dimensionless")
     _positive(errs, file, "mesh.gap_cells", m.gap_cells, "cells")
     if m.surface_levels is not None and not 0 <= m.surface_levels[0] <= m.surface_levels[1] <= 12:
@@ -586,8 +610,21 @@ def _semantic(cfg: Config, base: Path, file: str) -> list[UserError]:
     if m.layer_expansion is not None and not 1.0 <= m.layer_expansion <= 2.0:
         errs.append(UserError(expected="a layer expansion ratio from 1.0 to 2.0", got=m.layer_expansion, file=file, key="mesh.layer_expansion"))
     d = cfg.domain
-    for k in ("upstream", "downstream", "width", "height"):
+    for k in ("length", "upstream", "downstream", "width", "height"):
         _positive(errs, file, f"domain.{k}", getattr(d, k), KEYS[f"domain.{k}"][0])
+    if d.lead_in is not None and not d.lead_in >= 0.0:
+        errs.append(UserError(expected="a lead-in length ≥ 0 (m)", got=d.lead_in, file=file, key="domain.lead_in"))
+    elif d.lead_in is not None and d.length is not None and not d.lead_in < d.length:
+        errs.append(UserError(expected="domain.lead_in shorter than domain.length (the ground must start inside the section)",
+                              got=f"{d.lead_in} m ≥ {d.length} m", file=file, key="domain.lead_in",
+                              fix="shorten the lead-in or lengthen the section"))
+    if d.lead_in is not None and not empty:
+        errs.append(UserError(expected="domain.lead_in only for an empty test section (a variant with geometry = \"none\")",
+                              got=d.lead_in, file=file, key="domain.lead_in", fix="remove it"))
+    if d.length is not None and not empty:
+        errs.append(UserError(expected="domain.length only for an empty test section (a variant with geometry = \"none\")",
+                              got=d.length, file=file, key="domain.length",
+                              fix="remove it; with a body the length follows from domain.upstream and domain.downstream"))
     if not 0 < d.target_blockage <= d.max_blockage < 1:
         errs.append(UserError(expected="0 < target_blockage ≤ max_blockage < 1 (fractions, 0.01 = 1 %)",
                               got=f"{d.target_blockage} / {d.max_blockage}", file=file, key="domain.max_blockage"))
@@ -605,8 +642,49 @@ def _semantic(cfg: Config, base: Path, file: str) -> list[UserError]:
     return errs
 
 
+def _empty_section_problems(cfg: Config, file: str) -> list[UserError]:
+    """Rules of an empty test section (a variant with ``geometry = "none"``):
+    the only variant, over a ground, no wheels or ride heights, and the
+    section's size and cell size given (there is no body to size them from)."""
+    errs: list[UserError] = []
+    names = [n for n, v in cfg.variants.items() if v.geometry == EMPTY_GEOMETRY]
+    if len(cfg.variants) > 1:
+        others = [n for n in cfg.variants if n not in names]
+        errs.append(UserError(expected='an empty test section (geometry = "none") as the only variant', got=f"also {', '.join(others or names[1:])}",
+                              file=file, key=f"variants.{names[0]}.geometry",
+                              fix="write the empty test section as its own study (its domain is given explicitly)"))
+    if cfg.ground.mode == "none":
+        errs.append(UserError(expected='a ground (ground.mode = "moving" or "stationary") for an empty test section', got="none",
+                              file=file, key="ground.mode", fix='set ground.mode = "stationary" or "moving"'))
+    for k in ("domain.length", "domain.width", "domain.height", "mesh.base_cell"):
+        sec, key = k.split(".")
+        if getattr(getattr(cfg, sec), key) is None:
+            errs.append(UserError(expected=f"the key {k} (m) for an empty test section", got="nothing", file=file, key=k,
+                                  fix=f"add `{key} = …` under [{sec}]: with no body there is nothing to size it from"))
+    if cfg.body.wheels:
+        errs.append(UserError(expected="no wheels in an empty test section", got=f"{len(cfg.body.wheels)} wheels", file=file,
+                              key="body.wheels", fix="remove the wheels"))
+    if cfg.sweep.pitch_deg is not None and any(p != 0.0 for p in cfg.sweep.pitch_deg):
+        errs.append(UserError(expected="no pitch in an empty test section", got=cfg.sweep.pitch_deg, file=file,
+                              key="sweep.pitch_deg", fix="remove sweep.pitch_deg (there is no body to pitch)"))
+    for i, pt in enumerate(cfg.sweep.points or ()):
+        if pt.pitch_deg not in (None, 0.0):
+            errs.append(UserError(expected="no pitch in an empty test section", got=pt.pitch_deg, file=file,
+                                  key=f"sweep.points[{i}].pitch_deg", fix="remove pitch_deg (there is no body to pitch)"))
+    d, m = cfg.domain, cfg.mesh
+    if m.base_cell is not None and d.height is not None and not d.height >= 2.0 * m.base_cell:
+        errs.append(UserError(expected="domain.height at least two base cells (mesh.base_cell)", got=f"{d.height} m for cells of {m.base_cell} m",
+                              file=file, key="domain.height", fix="raise domain.height or lower mesh.base_cell"))
+    if m.ground_first_cell is not None and m.base_cell is not None and not m.ground_first_cell < m.base_cell:
+        errs.append(UserError(expected="mesh.ground_first_cell smaller than mesh.base_cell (the cells grow away from the ground)",
+                              got=f"{m.ground_first_cell} m ≥ {m.base_cell} m", file=file, key="mesh.ground_first_cell",
+                              fix="lower mesh.ground_first_cell, or leave it out for uniform cells"))
+    return errs
+
+
 def _resolve_paths(cfg: Config, base: Path) -> Config:
-    variants = {n: v.model_copy(update={"geometry": str((base / v.geometry).resolve())}) for n, v in cfg.variants.items()}
+    variants = {n: (v if v.geometry == EMPTY_GEOMETRY else v.model_copy(update={"geometry": str((base / v.geometry).resolve())}))
+                for n, v in cfg.variants.items()}
     wheels = tuple(w.model_copy(update={"geometry": str((base / w.geometry).resolve())}) if w.geometry else w for w in cfg.body.wheels)
     return cfg.model_copy(update={"variants": variants, "body": cfg.body.model_copy(update={"wheels": wheels})})
 

@@ -22,8 +22,8 @@ from pathlib import Path
 
 import numpy as np
 
-from .config import Config, load_config
-from .domain import mesh_settings, plan_domain, decomposition_split
+from .config import EMPTY_GEOMETRY, Config, load_config
+from .domain import mesh_settings, plan_domain, plan_empty_section, decomposition_split
 from .errors import UserError, UserErrors
 from .frames import (Placement, air_speed, body_to_ground_rotation, ground_velocity_ground, place_body,
                      wind_direction_ground)
@@ -116,6 +116,8 @@ def load_geometries(cfg: Config) -> tuple[dict[str, VariantGeometry], dict[str, 
             wheel_pts[w.name] = g.hull
     out: dict[str, VariantGeometry] = {}
     for name, v in cfg.variants.items():
+        if v.geometry == EMPTY_GEOMETRY:
+            continue  # empty test section: nothing to read
         unit = cfg.length_unit(name)
         key = f"variants.{name}.geometry"
         try:
@@ -177,10 +179,14 @@ def plan_all(cfg: Config) -> PlanResult:
     baseline = next(iter(cfg.variants))
     cases: list[CaseSpec] = []
     for pt in points:
-        if pt.variant not in geoms or (cfg.body.reference_area == "auto" and baseline not in geoms):
+        empty = cfg.variants[pt.variant].geometry == EMPTY_GEOMETRY
+        if not empty and (pt.variant not in geoms or (cfg.body.reference_area == "auto" and baseline not in geoms)):
             continue
         try:
-            spec, notes = plan_case(cfg, pt, geoms, air, settings, (fa, ra, wb, lref, mp))
+            if empty:
+                spec, notes = plan_empty_case(cfg, pt, air)
+            else:
+                spec, notes = plan_case(cfg, pt, geoms, air, settings, (fa, ra, wb, lref, mp))
         except UserErrors as e:
             problems.extend(e.errors)
             continue
@@ -291,6 +297,67 @@ def plan_case(cfg: Config, pt: SweepPoint, geoms: dict[str, VariantGeometry], ai
         reference=ref, fidelity=cfg.mesh.fidelity, min_clearance=clearance,
         min_clearance_at=_vec(at) if at is not None else None, estimated_cells=dp.estimated_cells, extra=extra)
     return spec, notes
+
+
+def plan_empty_case(cfg: Config, pt: SweepPoint, air: Air) -> tuple[CaseSpec, list[str]]:
+    """Plan one point of an empty test section (a variant with ``geometry =
+    "none"``): no body; the ground (moving or stationary) starts at the inlet.
+
+    The "body frame" of the case is the ground frame turned by the model yaw
+    (crosswind: the ground frame itself; yawed-model: turned by −β), so the
+    ground moves along its x axis in crosswind and with the air in
+    yawed-model, as with a body. The domain is ``domain.length`` ×
+    ``domain.width`` × ``domain.height`` (m) aligned with the wind, the base
+    cell ``mesh.base_cell`` (m), optionally graded from
+    ``mesh.ground_first_cell`` (m) on the ground
+    (:func:`caseprep.domain.plan_empty_section`). Reference values: area =
+    the inlet face (width × height, m²) unless ``body.reference_area`` is a
+    number, length = ``domain.length`` unless ``body.reference_length`` is
+    given (there is no body to take them from).
+    """
+    mode = cfg.sweep.yaw_mode
+    beta = float(np.radians(pt.yaw_deg))
+    R = body_to_ground_rotation(0.0, beta, mode)
+    P = Placement(rotation=R, translation=np.zeros(3), pitch=0.0, beta=beta, yaw_mode=mode)
+    d, m = cfg.domain, cfg.mesh
+    dp = plan_empty_section(placement=P, length=d.length, width=d.width, height=d.height, base_cell=m.base_cell,
+                            mesh_level=pt.mesh_level, ground=cfg.ground.mode, first_cell=m.ground_first_cell,
+                            lead_in=float(d.lead_in or 0.0))
+    V = pt.speed
+    U = air_speed(V, beta, mode)
+    w_body = P.vector_to_body(wind_direction_ground(beta, mode))
+    vg_body = P.vector_to_body(ground_velocity_ground(V, beta, mode)) if cfg.ground.mode == "moving" else np.zeros(3)
+    lref = cfg.body.reference_length if cfg.body.reference_length is not None else float(d.length)
+    ell = cfg.solver.turbulence_length_scale or 1e-3 * lref
+    k, om, nut = inlet_turbulence(U, cfg.solver.turbulence_intensity, ell)
+    flow = Flow(inlet_velocity=_vec(U * w_body), ground_velocity=_vec(vg_body), air_speed=float(U), rho=air.rho, nu=air.nu,
+                p_ref=0.0, model=cfg.solver.turbulence_model, intensity=cfg.solver.turbulence_intensity, length_scale=float(ell),
+                k=k, omega=om, nut=nut)
+    iters = cfg.solver.iterations or mesh_settings(m.fidelity).preset.iterations
+    corners = dp.domain.box.corners()
+    split = decomposition_split(cfg.solver.ranks, corners.max(axis=0) - corners.min(axis=0))
+    solver = SolverSpec(n_iterations=int(iters), write_interval=int(cfg.solver.write_interval or iters),
+                        n_procs=int(cfg.solver.ranks), split=split)
+    ra = cfg.body.reference_area
+    area = float(ra) if not isinstance(ra, str) else float(d.width * d.height)
+    origin = _vec(P.ground_point_body)
+    mp = _vec(cfg.body.moment_point) if cfg.body.moment_point is not None else origin
+    ref = Reference(area=area, length=float(lref), wheelbase=float(lref), front_axle=origin, rear_axle=origin, moment_point=mp,
+                    rho=air.rho, nu=air.nu, speed=float(U), p_ref=0.0, cog=None)
+    extra = {
+        "empty_section": True,
+        # the ground's leading edge: e1 = lead_in (m) from the inlet, along the wind
+        "ground_leading_edge": float(d.lead_in or 0.0),
+        # first background cell on the ground (m), after the mesh level's refinement
+        "ground_first_cell": None if m.ground_first_cell is None else float(m.ground_first_cell / 2.0 ** (0.5 * pt.mesh_level)),
+        "air": {"temperature": air.temperature, "pressure": air.pressure, "mu": air.mu},
+        "warnings": [],
+    }
+    spec = CaseSpec(
+        case_id=pt.case_id, variant=pt.variant, params=pt.params(), yaw_mode=mode, placement=P, geometry="",
+        geometry_solid_names=(), flow=flow, wheels=(), domain=dp.domain, mesh=dp.mesh, solver=solver, reference=ref,
+        fidelity=m.fidelity, min_clearance=None, min_clearance_at=None, estimated_cells=dp.estimated_cells, extra=extra)
+    return spec, []
 
 
 def reference_area(cfg: Config, variant: str, geoms: dict[str, VariantGeometry]) -> float:

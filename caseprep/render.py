@@ -77,6 +77,19 @@ DOMAIN_PATCH_FACES = {
     "top": [(4, 5, 6, 7)],
     "sides": [(0, 1, 5, 4), (3, 7, 6, 2)],
 }
+# With a lead-in floor the box is two blocks along e1: vertices 8-11 sit at
+# e1 = lead_in (8, 9 on the floor at e2 = 0, L2; 10, 11 on the top), block 1
+# (0 8 9 3 4 10 11 7) over the slip lead-in floor, block 2 (8 1 2 9 10 5 6 11)
+# over the ground.
+LEAD_IN_PATCH_FACES = {
+    "inlet": [(0, 4, 7, 3)],
+    "outlet": [(1, 2, 6, 5)],
+    "lead_in": [(0, 3, 9, 8)],
+    "bottom": [(8, 9, 2, 1)],
+    "top": [(4, 10, 11, 7), (10, 5, 6, 11)],
+    "sides": [(0, 8, 10, 4), (8, 1, 5, 10), (3, 7, 11, 9), (9, 11, 6, 2)],
+}
+LEAD_IN_PATCH = "lead_in"
 
 
 @dataclass(frozen=True)
@@ -142,8 +155,17 @@ class Surface:
         return _stem(self.file) + ".eMesh"
 
 
+def empty_section(spec: CaseSpec) -> bool:
+    """True for an empty test section: no body solids and no wheels (the
+    background mesh is the whole mesh; no snapping, no force monitor)."""
+    return not spec.geometry_solid_names and not spec.wheels
+
+
 def surfaces(spec: CaseSpec) -> list[Surface]:
-    """The snapped surfaces of a case (body file first, then wheel files)."""
+    """The snapped surfaces of a case (body file first, then wheel files);
+    none for an empty test section (:func:`empty_section`)."""
+    if empty_section(spec):
+        return []
     _check_component(spec.geometry, "geometry file name")
     wheel_solids = [w.patch for w in spec.wheels if w.geometry is None]
     overlap = set(wheel_solids) & set(spec.geometry_solid_names)
@@ -189,13 +211,34 @@ def domain_patches(spec: CaseSpec) -> list[dict[str, Any]]:
     if g not in ("moving", "stationary", "none"):
         raise ValueError(f"expected domain.ground moving/stationary/none, got {g!r}")
     out = []
-    for role in ("inlet", "outlet", "bottom", "top", "sides"):
+    lead = spec.domain.lead_in > 0.0
+    faces = LEAD_IN_PATCH_FACES if lead else DOMAIN_PATCH_FACES
+    for role in faces:
         name, ptype = role, "patch"
         if role == "bottom":
             name = ground_patch_name(g)
             ptype = "patch" if g == "none" else "wall"
-        out.append({"name": name, "type": ptype, "faces": DOMAIN_PATCH_FACES[role], "role": role})
+        out.append({"name": name, "type": ptype, "faces": faces[role], "role": role})
     return out
+
+
+def background_blocks(spec: CaseSpec) -> tuple[list[np.ndarray], list[dict[str, Any]]]:
+    """Vertices (mesh frame, m) and hex blocks of the background mesh: one
+    block on the domain box, or two along e1 with a lead-in floor (see
+    :data:`LEAD_IN_PATCH_FACES`). Each block: vertex indices, cell counts,
+    grading (1, 1, ``ground_grading``)."""
+    d = spec.domain
+    corners = list(d.box.corners())
+    n1, n2, n3 = d.cells
+    if d.lead_in <= 0.0:
+        return corners, [{"verts": (0, 1, 2, 3, 4, 5, 6, 7), "cells": (n1, n2, n3)}]
+    if not 0 < d.lead_in_cells < n1 or not d.lead_in < d.box.lengths[0]:
+        raise ValueError(f"lead-in {d.lead_in} m / {d.lead_in_cells} cells does not fit the box ({d.box.lengths[0]} m, {n1} cells)")
+    e1 = np.asarray(d.box.axes[0], dtype=float) * d.lead_in
+    corners += [corners[0] + e1, corners[3] + e1, corners[4] + e1, corners[7] + e1]
+    k = d.lead_in_cells
+    return corners, [{"verts": (0, 8, 9, 3, 4, 10, 11, 7), "cells": (k, n2, n3)},
+                     {"verts": (8, 1, 2, 9, 10, 5, 6, 11), "cells": (n1 - k, n2, n3)}]
 
 
 def all_patches(spec: CaseSpec) -> list[str]:
@@ -390,8 +433,10 @@ def context(spec: CaseSpec) -> dict[str, Any]:
         "fields": field_names(spec),
         "field_info": FIELD_INFO,
         "bc": bc,
-        "corners": [foamdict.fmt_vector(c) for c in d.box.corners()],
+        "corners": [foamdict.fmt_vector(c) for c in background_blocks(spec)[0]],
+        "blocks": [{"verts": b["verts"], "cells": list(b["cells"])} for b in background_blocks(spec)[1]],
         "cells": list(d.cells),
+        "grading": foamdict.fmt_scalar(d.ground_grading),
         "domain_patches": domain_patches(spec),
         "surfaces": surf,
         "surface_min": m.surface_levels[0],
@@ -443,6 +488,10 @@ CASE_TEMPLATES = (
 )
 
 
+# files only a case with surfaces needs
+SURFACE_ONLY = ("system/snappyHexMeshDict", "system/surfaceFeatureExtractDict")
+
+
 @lru_cache(maxsize=1)
 def _env() -> jinja2.Environment:
     env = environment()
@@ -462,6 +511,8 @@ def render_case(spec: CaseSpec, env: jinja2.Environment | None = None) -> dict[s
     ctx = context(spec)
     out: dict[str, CaseFile] = {}
     for tpl, path, mode in CASE_TEMPLATES:
+        if not ctx["surfaces"] and path in SURFACE_ONLY:
+            continue  # empty test section: nothing to snap
         out[path] = CaseFile(env.get_template(tpl).render(ctx), mode)
     field_tpl = env.get_template("case/0/field.j2")
     for name in ctx["fields"]:

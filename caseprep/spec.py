@@ -72,12 +72,20 @@ class Domain:
     the bottom face is a slip far-field boundary like the sides and top).
     ``blockage`` is the frontal area of the body normal to the wind divided by
     the inlet face area (fraction, not %).
+    ``ground_grading``: ratio of the last to the first background cell size
+    along e3 (1 = uniform; > 1: cells grow away from the ground).
+    ``lead_in`` (m): length along e1, from the inlet, of a slip floor ahead
+    of the ground's leading edge (0: the ground starts at the inlet);
+    ``lead_in_cells`` of the ``cells[0]`` cells along e1 lie on it.
     """
 
     box: OrientedBox
     cells: tuple[int, int, int]
     ground: str
     blockage: float
+    ground_grading: float = 1.0
+    lead_in: float = 0.0
+    lead_in_cells: int = 0
 
 
 @dataclass(frozen=True)

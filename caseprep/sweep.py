@@ -148,7 +148,8 @@ def expand_collect(cfg: Config) -> tuple[list[SweepPoint], list[UserError]]:
     s = cfg.sweep
     b = cfg.body
     file = cfg.file
-    has_ground = cfg.ground.mode != "none"
+    # ride heights place a body over a ground; an empty test section has none
+    has_ground = cfg.ground.mode != "none" and not cfg.empty_section
     variants = list(s.variants) if s.variants else list(cfg.variants)
     speeds = s.speed if s.speed is not None else (cfg.air.speed,)
     f = np.asarray(b.ride_height_point_front, float) if has_ground else None

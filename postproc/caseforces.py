@@ -114,7 +114,10 @@ def forces_report(target: str, patches: tuple[str, ...] = (), rho: float | None 
         out["reference"] = {"area": rv.area, "length": rv.length, "rho": rv.rho, "speed": rv.speed, "q": rv.q,
                             "moment_point": list(rv.moment_point)}
         out["coefficients"] = co.coefficients(res, rv, placement, wind).to_dict()
-        if rv.front_axle is not None and rv.rear_axle is not None:
+        if record is not None and record.ground == "none":
+            # far field: no ground, no axles on it (the manifest's axles are placeholders)
+            out["notes"].append("no ground (far field): axle loads, aero balance and centres of pressure not computed")
+        elif rv.front_axle is not None and rv.rear_axle is not None:
             out["balance"] = co.balance(res, rv, placement).to_dict()
     if case_dir is not None and (case_dir / "postProcessing").is_dir():
         try:

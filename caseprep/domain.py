@@ -32,6 +32,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from typing import Callable
 
 import numpy as np
 
@@ -145,7 +146,8 @@ def plan_domain(*, extent_points: np.ndarray, placement: Placement, ground: str,
                 body_area: float, frontal_area: float, min_clearance: float | None, ride_heights: tuple[float, float] | None,
                 settings: MeshSettings, mesh_level: int, air_speed: float, nu: float,
                 upstream: float = 3.0, downstream: float = 6.0, width: float | None = None, height: float | None = None,
-                target_blockage: float = 0.01, max_blockage: float = 0.05) -> DomainPlan:
+                target_blockage: float = 0.01, max_blockage: float = 0.05,
+                extent_range: Callable[[np.ndarray], tuple[np.ndarray, np.ndarray]] | None = None) -> DomainPlan:
     """Size the domain and the mesh of one case.
 
     ``extent_points`` (N,3): body (and wheel) points in the body frame, m
@@ -155,14 +157,22 @@ def plan_domain(*, extent_points: np.ndarray, placement: Placement, ground: str,
     wind (m²); ``min_clearance`` smallest ground clearance (m, None without a
     ground); ``ride_heights`` (front, rear) m; ``air_speed`` m/s; ``nu``
     m²/s; ``upstream``/``downstream`` in body lengths; ``width``/``height``
-    (m) fix the section instead of sizing it for ``target_blockage``.
+    (m) fix the section instead of sizing it for ``target_blockage``;
+    ``extent_range(axes)`` (optional) returns the (min, max) of
+    ``extent_points @ axes.T`` — a caller planning many cases passes a cached
+    version (the range depends on the rotation only).
     """
     warnings: list[str] = []
     problems: list[tuple[str, str]] = []
     axes = wind_axes(placement)
     g0 = placement.ground_point_body if ground != "none" else np.zeros(3)
-    q = (np.asarray(extent_points, float) - g0) @ axes.T  # coordinates along e1, e2, e3
-    lo, hi = q.min(axis=0), q.max(axis=0)
+    if extent_range is None:
+        q = np.asarray(extent_points, float) @ axes.T  # coordinates along e1, e2, e3
+        lo, hi = q.min(axis=0), q.max(axis=0)
+    else:
+        lo, hi = extent_range(axes)
+    off = g0 @ axes.T  # measured from the ground point
+    lo, hi = lo - off, hi - off
     L = body_length
     bw, bh = hi[1] - lo[1], hi[2] - lo[2]
     d0 = base_cell_size(settings, L, mesh_level)

@@ -178,6 +178,7 @@ def plan_all(cfg: Config) -> PlanResult:
     fa, ra, wb, lref, mp = _reference_geometry(cfg)
     baseline = next(iter(cfg.variants))
     cases: list[CaseSpec] = []
+    cache = _RotationCache()
     for pt in points:
         empty = cfg.variants[pt.variant].geometry == EMPTY_GEOMETRY
         if not empty and (pt.variant not in geoms or (cfg.body.reference_area == "auto" and baseline not in geoms)):
@@ -186,7 +187,7 @@ def plan_all(cfg: Config) -> PlanResult:
             if empty:
                 spec, notes = plan_empty_case(cfg, pt, air)
             else:
-                spec, notes = plan_case(cfg, pt, geoms, air, settings, (fa, ra, wb, lref, mp))
+                spec, notes = plan_case(cfg, pt, geoms, air, settings, (fa, ra, wb, lref, mp), cache)
         except UserErrors as e:
             problems.extend(e.errors)
             continue
@@ -198,8 +199,32 @@ def plan_all(cfg: Config) -> PlanResult:
     return PlanResult(tuple(cases), tuple(problems), tuple(warnings))
 
 
-def plan_case(cfg: Config, pt: SweepPoint, geoms: dict[str, VariantGeometry], air: Air, settings, refgeo) -> tuple[CaseSpec, list[str]]:
+class _RotationCache:
+    """Results that depend on a variant's geometry and the body's rotation
+    only (not on its translation), so a sweep computes them once per distinct
+    (variant, pitch, yaw) instead of once per case: the lowest hull vertex
+    along the ground normal, the frontal area normal to the wind and the
+    extent of the body along the domain axes. Exact: the same numbers as
+    computing them per case."""
+
+    def __init__(self) -> None:
+        self._d: dict = {}
+
+    @staticmethod
+    def _key(tag: str, variant: str, a: np.ndarray) -> tuple:
+        return (tag, variant, np.asarray(a, dtype=float).tobytes())
+
+    def get(self, tag: str, variant: str, a: np.ndarray, compute):
+        k = self._key(tag, variant, a)
+        if k not in self._d:
+            self._d[k] = compute()
+        return self._d[k]
+
+
+def plan_case(cfg: Config, pt: SweepPoint, geoms: dict[str, VariantGeometry], air: Air, settings, refgeo,
+              cache: _RotationCache | None = None) -> tuple[CaseSpec, list[str]]:
     """Plan one point; raises UserError if the case must be refused."""
+    cache = cache if cache is not None else _RotationCache()
     fa, ra, wb, lref, mp = refgeo
     vg = geoms[pt.variant]
     g = vg.body
@@ -211,9 +236,15 @@ def plan_case(cfg: Config, pt: SweepPoint, geoms: dict[str, VariantGeometry], ai
     if ground != "none":
         P = place_body(np.asarray(cfg.body.ride_height_point_front, float), np.asarray(cfg.body.ride_height_point_rear, float),
                        pt.ride_height_front, pt.ride_height_rear, beta, mode)
-        heights = g.hull @ P.rotation[2] + P.translation[2]
-        i = int(np.argmin(heights))
-        clearance = float(heights[i])
+        nz = P.rotation[2]
+
+        def lowest():
+            h = g.hull @ nz
+            j = int(np.argmin(h))
+            return j, float(h[j])
+
+        i, h_min = cache.get("lowest", pt.variant, nz, lowest)
+        clearance = h_min + float(P.translation[2])
         at = g.hull[i]
         pct = float(100.0 * (at[0] - g.bounds[0][0]) / g.length)
         where = f"body point ({at[0]:.4f}, {at[1]:.4f}, {at[2]:.4f}) m, {pct:.0f} % of the length from the nose"
@@ -231,7 +262,14 @@ def plan_case(cfg: Config, pt: SweepPoint, geoms: dict[str, VariantGeometry], ai
     U = air_speed(V, beta, mode)
     w_body = P.vector_to_body(wind_direction_ground(beta, mode))
     vg_body = P.vector_to_body(ground_velocity_ground(V, beta, mode)) if ground == "moving" else np.zeros(3)
-    frontal_wind = hull_projected_area(vg.extent_hull, w_body)
+    frontal_wind = cache.get("frontal", pt.variant, w_body, lambda: hull_projected_area(vg.extent_hull, w_body))
+
+    def extent_range(axes: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        def compute():
+            q = vg.extent_hull @ axes.T
+            return q.min(axis=0), q.max(axis=0)
+        return cache.get("extent", pt.variant, axes, compute)
+
     dp = plan_domain(extent_points=vg.extent_hull, placement=P, ground=ground, body_length=g.length, body_area=g.area,
                      frontal_area=frontal_wind, min_clearance=clearance,
                      ride_heights=(pt.ride_height_front, pt.ride_height_rear) if ground != "none" else None,

@@ -20,10 +20,9 @@ import time
 from pathlib import Path
 
 HERE = Path(__file__).resolve().parent
-sys.path.insert(0, str(HERE))                 # bench_write (demo body)
 sys.path.insert(0, str(HERE.parent.parent))   # repository root
 
-from bench_write import write_binary_stl  # noqa: E402
+import numpy as np  # noqa: E402
 
 from caseprep.config import load_config  # noqa: E402
 from caseprep.planner import plan  # noqa: E402
@@ -58,6 +57,43 @@ fidelity = "coarse"
 """
 
 
+def write_closed_body(path: Path, n_triangles: int) -> int:
+    """A closed, outward-oriented demo body (1 m ellipsoid, flattened floor at
+    z = 0.02 m) of about ``n_triangles`` triangles, as a binary STL: a latitude
+    -longitude grid with triangle fans at the two poles (no degenerate faces)."""
+    nv = max(8, int(np.sqrt(n_triangles / 2)))          # around the axis
+    nu = max(3, n_triangles // (2 * nv) + 1)            # along the axis (rings = nu - 1)
+    th = np.linspace(0, np.pi, nu + 1)[1:-1]            # ring angles, poles excluded
+    ph = np.linspace(0, 2 * np.pi, nv + 1)[:-1]
+    T, P = np.meshgrid(th, ph, indexing="ij")
+    x = 0.5 - 0.5 * np.cos(T)
+    y = 0.2 * np.sin(T) * np.cos(P)
+    z = np.maximum(0.1 + 0.1 * np.sin(T) * np.sin(P), 0.02)
+    ring = np.stack([x, y, z], axis=-1)                 # (nu-1, nv, 3)
+    nose, tail = np.array([0.0, 0.0, 0.1]), np.array([1.0, 0.0, 0.1])
+    j = np.arange(nv)
+    j1 = (j + 1) % nv
+    tris = [np.stack([np.broadcast_to(nose, (nv, 3)), ring[0, j1], ring[0, j]], 1)]
+    a, b = ring[:-1], ring[1:]
+    tris.append(np.stack([a[:, j], a[:, j1], b[:, j1]], 2).reshape(-1, 3, 3))
+    tris.append(np.stack([a[:, j], b[:, j1], b[:, j]], 2).reshape(-1, 3, 3))
+    tris.append(np.stack([np.broadcast_to(tail, (nv, 3)), ring[-1, j], ring[-1, j1]], 1))
+    tri = np.concatenate(tris)
+    # orient outward: flip all when the signed volume is negative
+    vol = np.einsum("ij,ij->i", tri[:, 0], np.cross(tri[:, 1], tri[:, 2])).sum() / 6.0
+    if vol < 0:
+        tri = tri[:, ::-1]
+    rec = np.zeros(len(tri), dtype=[("n", "<f4", 3), ("v", "<f4", (3, 3)), ("a", "<u2")])
+    rec["v"] = tri
+    nrm = np.cross(tri[:, 1] - tri[:, 0], tri[:, 2] - tri[:, 0])
+    rec["n"] = nrm / np.linalg.norm(nrm, axis=1, keepdims=True)
+    with open(path, "wb") as fh:
+        fh.write(b"underfloor demo benchmark body".ljust(80, b" "))
+        fh.write(np.uint32(len(rec)).tobytes())
+        fh.write(rec.tobytes())
+    return len(rec)
+
+
 def du(path: Path, skip: Path) -> int:
     total = 0
     for root, _dirs, files in os.walk(path):
@@ -76,7 +112,7 @@ def main() -> None:
     a = ap.parse_args()
     with tempfile.TemporaryDirectory(prefix="uf-bench-cw-") as tmp:
         tmp = Path(tmp)
-        ntri = write_binary_stl(tmp / "body.stl", a.triangles)
+        ntri = write_closed_body(tmp / "body.stl", a.triangles)
         (tmp / "sweep.toml").write_text(CONFIG)
         t0 = time.perf_counter()
         cfg = load_config(tmp / "sweep.toml")

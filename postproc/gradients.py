@@ -101,36 +101,16 @@ def _mix64(x: np.ndarray, seed: int) -> np.ndarray:
         return z ^ (z >> np.uint64(31))
 
 
-def face_pairs(topo: CellTopology) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Interior faces of the mesh as cell pairs.
-
-    Returns ``(a, b, n_faces)``: int arrays of the two cells sharing each
-    interior face, and the number of faces of every cell (N,). Faces seen
-    only once are boundary faces. Raises ValueError on cell types without a
-    face table (2D cells, lines, higher-order cells).
-    """
+def _face_keys(topo: CellTopology, n_faces: np.ndarray, present: np.ndarray, h1: np.ndarray, h2: np.ndarray,
+               chunk: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Two order-independent 64-bit keys and the owner cell of every (cell,
+    face) slot. Standard cells: one gather of the point hashes per cell
+    vertex (a chunk of cells at a time), then one sum per face of the table.
+    Polyhedra: one segmented sum over the face stream."""
     ct = np.asarray(topo.celltypes)
     off = np.asarray(topo.offsets)
     conn = np.asarray(topo.connectivity)
-    pid = np.arange(topo.n_points, dtype=np.int64)
-    h1, h2 = _mix64(pid, 0x9E3779B97F4A7C15), _mix64(pid, 0x632BE59BD9B4E019)
-    n_faces = np.zeros(ct.shape[0], dtype=np.int32)
-    present = np.unique(ct)
-    unknown = [int(t) for t in present if int(t) not in VOLUME_CELL_TYPES]
-    if unknown:
-        raise ValueError(f"expected volume cells (VTK types {sorted(VOLUME_CELL_TYPES)}), got cell types {unknown}")
-    is_poly = ct == VTK_POLYHEDRON
-    for t in present:
-        t = int(t)
-        if t != VTK_POLYHEDRON:
-            n_faces[ct == t] = len(CELL_FACES[t])
-    if is_poly.any():
-        if topo.poly_face_offsets is None:
-            raise ValueError("polyhedral cells without their face lists")
-        lo = np.asarray(topo.poly_loc_offsets, dtype=np.int64)
-        n_faces[is_poly] = np.diff(lo)[is_poly]
     total = int(n_faces.sum(dtype=np.int64))
-    # one slot per (cell, face): keys filled in place to keep the peak memory low
     k1 = np.empty(total, dtype=np.uint64)
     k2 = np.empty(total, dtype=np.uint64)
     own = np.empty(total, dtype=np.int32)
@@ -139,53 +119,132 @@ def face_pairs(topo: CellTopology) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         t = int(t)
         if t == VTK_POLYHEDRON:
             continue
-        cells = np.flatnonzero(ct == t)
-        npt = max(max(f) for f in CELL_FACES[t]) + 1
-        start = off[cells]
-        if np.any(off[cells + 1] - start != npt):
-            raise ValueError(f"cells of VTK type {t} with a point count other than {npt}")
-        for face in CELL_FACES[t]:
-            sl = slice(pos, pos + cells.size)
+        faces = CELL_FACES[t]
+        npt = max(max(f) for f in faces) + 1
+        cells = np.flatnonzero(ct == t).astype(np.int32) if present.size > 1 else None
+        nc = int(cells.size) if cells is not None else int(ct.size)
+        nf = len(faces)
+        for s in range(0, nc, chunk):
+            e = min(nc, s + chunk)
+            c = cells[s:e] if cells is not None else np.arange(s, e, dtype=np.int32)
+            start = off[c].astype(np.int64)
+            if np.any(off[c + 1] - start != npt):
+                raise ValueError(f"cells of VTK type {t} with a point count other than {npt}")
+            ids = conn[start[:, None] + np.arange(npt)]
             with np.errstate(over="ignore"):
-                k1[sl] = 0
-                k2[sl] = 0
-                for v in face:
-                    ids = conn[start + v]
-                    k1[sl] += h1[ids]
-                    k2[sl] += h2[ids]
-            own[sl] = cells
-            pos += cells.size
-    if is_poly.any():
+                for key, h in ((k1, h1), (k2, h2)):
+                    hp = h[ids]
+                    for f, face in enumerate(faces):
+                        sl = slice(pos + f * nc + s, pos + f * nc + e)
+                        acc = hp[:, face[0]].copy()
+                        for v in face[1:]:
+                            acc += hp[:, v]
+                        key[sl] = acc
+            for f in range(nf):
+                own[pos + f * nc + s:pos + f * nc + e] = c
+        pos += nf * nc
+    if np.any(ct == VTK_POLYHEDRON):
         fo = np.asarray(topo.poly_face_offsets, dtype=np.int64)
-        fc = np.asarray(topo.poly_face_connectivity, dtype=np.int64)
-        lc = np.asarray(topo.poly_loc_connectivity, dtype=np.int64)
+        fc = np.asarray(topo.poly_face_connectivity)
+        lo = np.asarray(topo.poly_loc_offsets, dtype=np.int64)
+        lc = np.asarray(topo.poly_loc_connectivity)
         nonempty = fo[1:] > fo[:-1]
         with np.errstate(over="ignore"):
-            f1 = np.zeros(fo.size - 1, dtype=np.uint64)
-            f2 = np.zeros(fo.size - 1, dtype=np.uint64)
-            if fc.size:
-                f1[nonempty] = np.add.reduceat(h1[fc], fo[:-1][nonempty])
-                f2[nonempty] = np.add.reduceat(h2[fc], fo[:-1][nonempty])
+            for key, h in ((k1, h1), (k2, h2)):
+                f = np.zeros(fo.size - 1, dtype=np.uint64)
+                if fc.size:
+                    f[nonempty] = np.add.reduceat(h[fc], fo[:-1][nonempty])
+                key[pos:pos + lc.size] = f[lc]
+                del f
         counts = np.diff(lo)
-        sl = slice(pos, pos + lc.size)
-        k1[sl] = f1[lc]
-        k2[sl] = f2[lc]
-        own[sl] = np.repeat(np.arange(counts.size, dtype=np.int32), counts)
+        own[pos:pos + lc.size] = np.repeat(np.arange(counts.size, dtype=np.int32), counts)
         pos += lc.size
-        del f1, f2
-    order = np.argsort(k1, kind="stable")
-    k1 = k1[order]
-    k2 = k2[order]
-    own = own[order]
-    del order
-    same = (k1[1:] == k1[:-1]) & (k2[1:] == k2[:-1]) & (own[1:] != own[:-1])
+    return k1, k2, own
+
+
+def _match_keys(k1: np.ndarray, k2: np.ndarray, own: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Pairs of slots with equal keys (k1, k2) and different owners.
+
+    One in-place sort of 64-bit words: the high bits of k1 with the slot
+    number packed into the low bits (so no argsort and no gathered copies of
+    the keys). Slots whose high bits agree sit side by side; a run of two is
+    confirmed with k2, runs of three or more (high-bit collisions of different
+    faces, or a non-conforming face shared by more than two cells) are sorted
+    again by the full keys. ``k1`` is overwritten.
+    """
+    total = k1.size
+    b = max(1, int(total - 1).bit_length())
+    low = np.uint64((1 << b) - 1)
+    k1 &= ~low
+    for s in range(0, total, 1 << 22):
+        e = min(total, s + (1 << 22))
+        k1[s:e] |= np.arange(s, e, dtype=np.uint64)
+    k1.sort()
+    slot = (k1 & low).astype(np.int64 if total > 2**31 - 1 else np.int32)
+    same = (k1[1:] ^ k1[:-1]) <= low  # equal high bits
     idx = np.flatnonzero(same)
-    # a face shared by exactly two cells gives one adjacent equal pair; drop
-    # chains (three or more copies: non-conforming input) after the first pair
-    if idx.size > 1:
-        chain = np.concatenate([[False], idx[1:] == idx[:-1] + 1])
-        idx = idx[~chain]
-    return own[idx].astype(np.int64), own[idx + 1].astype(np.int64), n_faces
+    del same
+    if idx.size == 0:
+        return np.zeros(0, np.int32), np.zeros(0, np.int32)
+    # runs of exactly two slots: idx not adjacent to another idx
+    adj = idx[1:] == idx[:-1] + 1
+    single = ~(np.concatenate([[False], adj]) | np.concatenate([adj, [False]]))
+    del adj
+    multi = idx[~single]
+    pos = np.unique(np.concatenate([multi, multi + 1])) if multi.size else None
+    hi = k1[pos] & ~low if multi.size else None
+    del k1
+    i2 = idx[single]
+    sa, sb = slot[i2], slot[i2 + 1]
+    ok = (k2[sa] == k2[sb]) & (own[sa] != own[sb])
+    a, b_ = own[sa[ok]], own[sb[ok]]
+    if multi.size:
+        # the slots of the longer runs, paired exactly by (high bits of k1, k2)
+        sl = slot[pos]
+        order = np.lexsort((own[sl], k2[sl], hi))
+        sl, hi = sl[order], hi[order]
+        eq = (hi[1:] == hi[:-1]) & (k2[sl[1:]] == k2[sl[:-1]]) & (own[sl[1:]] != own[sl[:-1]])
+        j = np.flatnonzero(eq)
+        if j.size > 1:
+            chain = np.concatenate([[False], j[1:] == j[:-1] + 1])
+            j = j[~chain]
+        a = np.concatenate([a, own[sl[j]]])
+        b_ = np.concatenate([b_, own[sl[j + 1]]])
+    return a, b_
+
+
+def face_pairs(topo: CellTopology, *, chunk: int = 262_144) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Interior faces of the mesh as cell pairs.
+
+    Returns ``(a, b, n_faces)``: int32 arrays of the two cells sharing each
+    interior face, and the number of faces of every cell (N,). Faces seen
+    only once are boundary faces. Raises ValueError on cell types without a
+    face table (2D cells, lines, higher-order cells). ``chunk``: cells
+    hashed at a time (bounds the temporary memory).
+    """
+    ct = np.asarray(topo.celltypes)
+    pid = np.arange(topo.n_points, dtype=np.uint64)
+    h1, h2 = _mix64(pid, 0x9E3779B97F4A7C15), _mix64(pid, 0x632BE59BD9B4E019)
+    del pid
+    n_faces = np.zeros(ct.shape[0], dtype=np.int32)
+    present = np.unique(ct)
+    unknown = [int(t) for t in present if int(t) not in VOLUME_CELL_TYPES]
+    if unknown:
+        raise ValueError(f"expected volume cells (VTK types {sorted(VOLUME_CELL_TYPES)}), got cell types {unknown}")
+    for t in present:
+        t = int(t)
+        if t != VTK_POLYHEDRON:
+            n_faces[ct == t] = len(CELL_FACES[t])
+    if VTK_POLYHEDRON in present:
+        if topo.poly_face_offsets is None:
+            raise ValueError("polyhedral cells without their face lists")
+        lo = np.asarray(topo.poly_loc_offsets, dtype=np.int64)
+        is_poly = ct == VTK_POLYHEDRON
+        n_faces[is_poly] = np.diff(lo)[is_poly]
+    k1, k2, own = _face_keys(topo, n_faces, present, h1, h2, chunk)
+    del h1, h2
+    a, b = _match_keys(k1, k2, own)
+    return a, b, n_faces
 
 
 def adjacency_matrix(a: np.ndarray, b: np.ndarray, n_cells: int) -> sp.csr_matrix:
@@ -257,12 +316,6 @@ class GradientOperator:
         return out
 
 
-def _sym3_moments(d: np.ndarray, w: np.ndarray, rows: np.ndarray, n: int) -> np.ndarray:
-    """Σ_j w d dᵀ per row as the 6 unique entries (xx, yy, zz, xy, xz, yz)."""
-    pairs = ((0, 0), (1, 1), (2, 2), (0, 1), (0, 2), (1, 2))
-    return np.stack([np.bincount(rows, weights=w * d[:, a] * d[:, b], minlength=n) for a, b in pairs], axis=1)
-
-
 def _sym3_inverse(m: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Inverse of symmetric 3×3 matrices given as (n, 6) unique entries
     (adjugate / determinant), and a scale-free conditioning measure
@@ -282,59 +335,85 @@ def _sym3_inverse(m: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return inv, np.nan_to_num(quality)
 
 
-def _row_moments(X: np.ndarray, indptr: np.ndarray, indices: np.ndarray, rows_of: np.ndarray | None,
-                 chunk: int) -> np.ndarray:
-    """Moments Σ_j w_ij d_ij d_ijᵀ (n_rows, 6) of a CSR stencil whose row r
-    belongs to cell ``rows_of[r]`` (identity when None)."""
-    nr = indptr.size - 1
+def _lsq_rows(X: np.ndarray, indptr: np.ndarray, indices: np.ndarray, cells: np.ndarray, dtype,
+              degenerate_limit: float) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """LSQ coefficients of a block of stencil rows.
+
+    Row r (cell ``cells[r]``) has the neighbours ``indices[indptr[r]:indptr[r+1]]``
+    (``indptr`` starts at 0). Returns the coefficients (3, nnz) in ``dtype``
+    (c_ij = w_ij M_i⁻¹ d_ij, 1/m), their row sums (3, rows) taken over the
+    stored (rounded) values, the conditioning measure of every M_i and the
+    degenerate rows (zero coefficients). Memory is proportional to the block.
+    """
+    nr = cells.size
     deg = np.diff(indptr)
-    M = np.zeros((nr, 6))
-    nnz = indices.size
-    for s in range(0, nnz, chunk):
-        e = min(nnz, s + chunk)
-        r = np.searchsorted(indptr, np.arange(s, e), side="right") - 1 if s or e < nnz else np.repeat(np.arange(nr), deg)
-        ci = r if rows_of is None else rows_of[r]
-        d = X[indices[s:e]] - X[ci]
-        w = 1.0 / np.maximum(np.einsum("ij,ij->i", d, d), 1e-300)
-        M += _sym3_moments(d, w, r, nr)
-    return M
+    r = np.repeat(np.arange(nr, dtype=np.int32), deg)
+    d = X[indices]
+    d -= X[cells[r]]
+    w = 1.0 / np.maximum(np.einsum("ij,ij->i", d, d), 1e-300)
+    M = np.empty((nr, 6))
+    for m, (a, b) in enumerate(((0, 0), (1, 1), (2, 2), (0, 1), (0, 2), (1, 2))):
+        M[:, m] = np.bincount(r, weights=w * d[:, a] * d[:, b], minlength=nr)
+    Minv, q = _sym3_inverse(M)
+    del M
+    degenerate = ~(q >= degenerate_limit) | ~np.isfinite(Minv).all(axis=1)
+    Minv[degenerate] = 0.0
+    Mr = Minv[r]  # (nnz, 6): xx, yy, zz, xy, xz, yz of the row's M⁻¹
+    c = np.empty((3, r.size), dtype=dtype)
+    sums = np.empty((3, nr))
+    for k, cols in enumerate(((0, 3, 4), (3, 1, 5), (4, 5, 2))):
+        c[k] = w * (Mr[:, cols[0]] * d[:, 0] + Mr[:, cols[1]] * d[:, 1] + Mr[:, cols[2]] * d[:, 2])
+        sums[k] = np.bincount(r, weights=c[k], minlength=nr)
+    return c, sums, q, degenerate
 
 
-def _stencil(A: sp.csr_matrix, X: np.ndarray, min_neighbours: int, max_layers: int,
-             quality_limit: float, chunk: int) -> tuple[sp.csr_matrix, np.ndarray, int]:
-    """Face-neighbour stencil, widened by further face-neighbour layers for
-    the cells that need it (few neighbours or an ill-posed M). Returns the
-    stencil (CSR pattern, no diagonal), the moments M (n, 6) and the number of
-    widened cells. Only the rows of widened cells are recomputed."""
-    A = sp.csr_matrix((np.ones(A.indices.size, dtype=np.float32), A.indices, A.indptr), shape=A.shape)
-    n = A.shape[0]
-    M = _row_moments(X, A.indptr, A.indices, None, chunk)
-    _, q = _sym3_inverse(M)
-    bad = np.flatnonzero((np.diff(A.indptr) < min_neighbours) | (q < quality_limit))
-    n_widened = int(bad.size)
-    S = A
-    for _ in range(max_layers - 1):
-        if bad.size == 0:
-            break
-        R = S[bad]
-        R = (R + R @ A).tocsr()
-        # drop each row's own cell
-        own = sp.csr_matrix((np.ones(bad.size, dtype=np.float32), (np.arange(bad.size), bad)), shape=R.shape)
+def _row_blocks(indptr: np.ndarray, chunk: int) -> list[tuple[int, int]]:
+    """Row ranges [r0, r1) holding about ``chunk`` stencil entries each."""
+    n = indptr.size - 1
+    nnz = int(indptr[-1])
+    cuts = np.searchsorted(indptr, np.arange(chunk, nnz, chunk), side="right") - 1
+    b = np.unique(np.concatenate([[0], cuts, [n]]))
+    return [(int(b[i]), int(b[i + 1])) for i in range(b.size - 1)]
+
+
+def _widen(A: sp.csr_matrix, X: np.ndarray, bad: np.ndarray, min_neighbours: int, max_layers: int,
+           quality_limit: float, dtype, degenerate_limit: float):
+    """Wider stencils for the cells ``bad`` (sorted): add face-neighbour
+    layers until the row has ``min_neighbours`` cells and a well-posed M, up
+    to ``max_layers`` layers. Returns (cells, indptr, indices, coeffs (3, nnz),
+    row sums (3, rows), degenerate (rows,)) of the final rows, cells sorted."""
+    P = sp.csr_matrix((np.ones(A.indices.size, dtype=np.float32), A.indices, A.indptr), shape=A.shape)
+    R = P[bad]
+    done = []
+    rows = bad
+    for layer in range(max_layers - 1):
+        R = (R + R @ P).tocsr()
+        own = sp.csr_matrix((np.ones(rows.size, dtype=np.float32), (np.arange(rows.size), rows)), shape=R.shape)
         R = (R - R.multiply(own)).tocsr()
         R.eliminate_zeros()
-        R.data[:] = 1
-        Mb = _row_moments(X, R.indptr, R.indices, bad, chunk)
-        M[bad] = Mb
-        keep = np.ones(n, dtype=np.float32)
-        keep[bad] = 0
-        scatter = sp.csr_matrix((np.ones(bad.size, dtype=np.float32), (bad, np.arange(bad.size))), shape=(n, bad.size))
-        S = (sp.diags(keep) @ S + scatter @ R).tocsr()
-        S.eliminate_zeros()
-        _, qb = _sym3_inverse(Mb)
-        still = (np.diff(R.indptr) < min_neighbours) | (qb < quality_limit)
-        bad = bad[still]
-    S.sort_indices()
-    return S, M, n_widened
+        R.sort_indices()
+        c, s, q, dg = _lsq_rows(X, R.indptr.astype(np.int64), R.indices.astype(np.int32), rows, dtype,
+                                degenerate_limit)
+        still = (np.diff(R.indptr) < min_neighbours) | (q < quality_limit)
+        if layer == max_layers - 2:
+            still[:] = False
+        fin = ~still
+        ends = np.repeat(fin, np.diff(R.indptr))
+        done.append((rows[fin], np.diff(R.indptr)[fin], R.indices[ends].astype(np.int32), c[:, ends], s[:, fin],
+                     dg[fin]))
+        rows = rows[still]
+        R = R[still]
+        if rows.size == 0:
+            break
+    cells = np.concatenate([x[0] for x in done])
+    order = np.argsort(cells, kind="stable")
+    deg = np.concatenate([x[1] for x in done])
+    ind_all = np.concatenate([x[2] for x in done])
+    c_all = np.concatenate([x[3] for x in done], axis=1)
+    # rows in cell order; a stable sort by the owning cell keeps each row's entries together and in order
+    take = np.argsort(np.repeat(cells, deg), kind="stable")
+    return (cells[order], deg[order], ind_all[take], c_all[:, take],
+            np.concatenate([x[4] for x in done], axis=1)[:, order], np.concatenate([x[5] for x in done])[order])
 
 
 def lsq_gradient_operator(
@@ -364,6 +443,13 @@ def lsq_gradient_operator(
         meshes whose data are single precision anyway).
     chunk : number of stencil entries processed at a time (bounds memory).
 
+    Assembly: the stencil entries are processed a block of rows at a time:
+    moments M_i by bincount over the entries, all 3×3 inverses at once in
+    closed form (adjugate/determinant), coefficients written straight into
+    the CSR data arrays in the adjacency's own pattern (int32 indices shared
+    by the three matrices). Only the few rows that need a wider stencil are
+    rebuilt with sparse products and spliced in.
+
     Valid for any conforming mesh of volume cells; the gradient is first-order
     accurate on irregular meshes and exact for linear fields.
     """
@@ -371,25 +457,52 @@ def lsq_gradient_operator(
     n = X.shape[0]
     if adjacency.shape != (n, n):
         raise ValueError(f"expected an adjacency of shape ({n}, {n}), got {adjacency.shape}")
-    S, M, n_ext = _stencil(adjacency, X, min_neighbours, max_layers, quality_limit, chunk)
-    indptr, indices = S.indptr, S.indices.astype(np.int32, copy=False)
+    indptr = np.asarray(adjacency.indptr, dtype=np.int64)
+    indices = np.asarray(adjacency.indices, dtype=np.int32)
+    nnz = int(indptr[-1])
     deg = np.diff(indptr)
-    nnz = indices.size
-    Minv, q = _sym3_inverse(M)
-    degenerate = ~(q >= quality_limit * 1e-3) | ~np.isfinite(Minv).all(axis=1)
-    Minv[degenerate] = 0.0
+    deg_limit = quality_limit * 1e-3
     data = np.empty((3, nnz), dtype=dtype)
-    for s in range(0, nnz, chunk):
-        e = min(nnz, s + chunk)
-        r = np.searchsorted(indptr, np.arange(s, e), side="right") - 1 if s or e < nnz else np.repeat(np.arange(n), deg)
-        d = X[indices[s:e]] - X[r]
-        w = 1.0 / np.maximum(np.einsum("ij,ij->i", d, d), 1e-300)
-        # c = w M⁻¹ d, M⁻¹ stored as (xx, yy, zz, xy, xz, yz)
-        for k, cols in enumerate(((0, 3, 4), (3, 1, 5), (4, 5, 2))):
-            data[k, s:e] = w * (Minv[r, cols[0]] * d[:, 0] + Minv[r, cols[1]] * d[:, 1] + Minv[r, cols[2]] * d[:, 2])
-    coeffs = tuple(sp.csr_matrix((data[k], indices, indptr), shape=(n, n), copy=False) for k in range(3))
-    ones = np.ones(n)
-    row_sums = np.stack([coeffs[k] @ ones for k in range(3)])
+    row_sums = np.empty((3, n))
+    q = np.empty(n)
+    degenerate = np.zeros(n, dtype=bool)
+    for r0, r1 in _row_blocks(indptr, chunk):
+        s, e = int(indptr[r0]), int(indptr[r1])
+        c, rs, q[r0:r1], degenerate[r0:r1] = _lsq_rows(X, indptr[r0:r1 + 1] - s, indices[s:e],
+                                                        np.arange(r0, r1, dtype=np.int32), dtype, deg_limit)
+        data[:, s:e] = c
+        row_sums[:, r0:r1] = rs
+        del c, rs
+    bad = np.flatnonzero((deg < min_neighbours) | (q < quality_limit))
+    del q
+    n_ext = int(bad.size)
+    if bad.size and max_layers > 1:
+        cells, wdeg, windices, wdata, wsums, wdeg_flag = _widen(adjacency, X, bad, min_neighbours, max_layers,
+                                                               quality_limit, dtype, deg_limit)
+        # splice the widened rows into the CSR arrays: kept entries keep their
+        # order, the new rows fill the gaps (boolean masks, no index arrays)
+        is_w = np.zeros(n, dtype=bool)
+        is_w[cells] = True
+        new_deg = deg.copy()
+        new_deg[cells] = wdeg
+        keep = np.repeat(~is_w, deg)
+        dest = np.repeat(~is_w, new_deg)
+        new_nnz = int(new_deg.sum())
+        idx2 = np.empty(new_nnz, dtype=np.int32)
+        idx2[dest] = indices[keep]
+        idx2[~dest] = windices
+        data2 = np.empty((3, new_nnz), dtype=dtype)
+        for k in range(3):
+            data2[k, dest] = data[k, keep]
+            data2[k, ~dest] = wdata[k]
+        indices, data = idx2, data2
+        del idx2, data2, keep, dest
+        indptr = np.concatenate([[0], np.cumsum(new_deg)])
+        row_sums[:, cells] = wsums
+        degenerate[cells] = wdeg_flag
+    ip = indptr.astype(np.int32) if indptr[-1] < 2**31 - 1 else indptr
+    ind = indices if ip.dtype == np.int32 else indices.astype(np.int64)
+    coeffs = tuple(sp.csr_matrix((data[k], ind, ip), shape=(n, n), copy=False) for k in range(3))
     return GradientOperator(coeffs=coeffs, row_sums=row_sums, n_extended=n_ext, n_degenerate=int(degenerate.sum()))
 
 

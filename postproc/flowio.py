@@ -235,7 +235,7 @@ def topology(grid) -> CellTopology:
     return CellTopology(celltypes=ct, offsets=off, connectivity=conn, n_points=int(grid.n_points), **kw)
 
 
-def cell_centres(grid) -> np.ndarray:
+def cell_centres(grid, chunk: int = 262_144) -> np.ndarray:
     """Cell centres (N, 3), m: the mean of each cell's distinct vertices.
 
     For hexahedra, prisms and the solver's polyhedra this is within a small
@@ -247,12 +247,19 @@ def cell_centres(grid) -> np.ndarray:
     off = np.asarray(grid.offset if not hasattr(grid, "cell_offsets") else grid.cell_offsets).astype(np.int64)
     conn = np.asarray(grid.cell_connectivity)
     counts = np.diff(off)
-    out = np.empty((counts.size, 3))
-    nz = counts > 0
-    for k in range(3):
-        s = np.add.reduceat(pts[conn, k], off[:-1][nz]) if conn.size else np.zeros(0)
-        out[nz, k] = s / counts[nz]
-    out[~nz] = np.nan
+    n = counts.size
+    out = np.full((n, 3), np.nan)
+    # a block of cells at a time: the gathered vertex coordinates stay small
+    for c0 in range(0, n, chunk):
+        c1 = min(n, c0 + chunk)
+        cnt = counts[c0:c1]
+        nz = np.flatnonzero(cnt > 0)
+        if nz.size == 0:
+            continue
+        ids = conn[off[c0]:off[c1]]
+        starts = off[c0:c1][nz] - off[c0]
+        for k in range(3):
+            out[c0 + nz, k] = np.add.reduceat(pts[ids, k], starts) / cnt[nz]
     return out
 
 

@@ -180,9 +180,16 @@ def _match_keys(k1: np.ndarray, k2: np.ndarray, own: np.ndarray) -> tuple[np.nda
         e = min(total, s + (1 << 22))
         k1[s:e] |= np.arange(s, e, dtype=np.uint64)
     k1.sort()
-    slot = (k1 & low).astype(np.int64 if total > 2**31 - 1 else np.int32)
-    same = (k1[1:] ^ k1[:-1]) <= low  # equal high bits
-    idx = np.flatnonzero(same)
+    # slot numbers and "equal high bits as the next word", a block at a time (no full-size uint64 temporaries)
+    slot = np.empty(total, dtype=np.int64 if total > 2**31 - 1 else np.int32)
+    same = np.empty(max(total - 1, 0), dtype=bool)
+    for s in range(0, total, 1 << 22):
+        e = min(total, s + (1 << 22))
+        slot[s:e] = k1[s:e] & low
+        e1 = min(total - 1, e)
+        if e1 > s:
+            same[s:e1] = (k1[s + 1:e1 + 1] ^ k1[s:e1]) <= low
+    idx = np.flatnonzero(same).astype(slot.dtype)
     del same
     if idx.size == 0:
         return np.zeros(0, np.int32), np.zeros(0, np.int32)
@@ -195,9 +202,19 @@ def _match_keys(k1: np.ndarray, k2: np.ndarray, own: np.ndarray) -> tuple[np.nda
     hi = k1[pos] & ~low if multi.size else None
     del k1
     i2 = idx[single]
-    sa, sb = slot[i2], slot[i2 + 1]
-    ok = (k2[sa] == k2[sb]) & (own[sa] != own[sb])
-    a, b_ = own[sa[ok]], own[sb[ok]]
+    del idx, single
+    a_parts, b_parts = [], []
+    for s in range(0, i2.size, 1 << 22):
+        sa, sb = slot[i2[s:s + (1 << 22)]], slot[i2[s:s + (1 << 22)] + 1]
+        ok = k2[sa] == k2[sb]
+        oa, ob = own[sa[ok]], own[sb[ok]]
+        diff = oa != ob
+        a_parts.append(oa[diff])
+        b_parts.append(ob[diff])
+    del i2
+    a = np.concatenate(a_parts) if a_parts else np.zeros(0, np.int32)
+    b_ = np.concatenate(b_parts) if b_parts else np.zeros(0, np.int32)
+    del a_parts, b_parts
     if multi.size:
         # the slots of the longer runs, paired exactly by (high bits of k1, k2)
         sl = slot[pos]
@@ -213,7 +230,7 @@ def _match_keys(k1: np.ndarray, k2: np.ndarray, own: np.ndarray) -> tuple[np.nda
     return a, b_
 
 
-def face_pairs(topo: CellTopology, *, chunk: int = 262_144) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def face_pairs(topo: CellTopology, *, chunk: int = 65_536) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Interior faces of the mesh as cell pairs.
 
     Returns ``(a, b, n_faces)``: int32 arrays of the two cells sharing each
@@ -316,11 +333,11 @@ class GradientOperator:
         return out
 
 
-def _sym3_inverse(m: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Inverse of symmetric 3×3 matrices given as (n, 6) unique entries
-    (adjugate / determinant), and a scale-free conditioning measure
-    det/(trace/3)³ ∈ [0, 1] (1 for an isotropic stencil, 0 when singular)."""
-    xx, yy, zz, xy, xz, yz = m.T
+def _sym3_inverse(xx, yy, zz, xy, xz, yz) -> tuple[tuple[np.ndarray, ...], np.ndarray]:
+    """Inverse of symmetric 3×3 matrices given by their 6 unique entries
+    (arrays, adjugate / determinant), returned in the same order (xx, yy, zz,
+    xy, xz, yz), and a scale-free conditioning measure det/(trace/3)³ ∈ [0, 1]
+    (1 for an isotropic stencil, 0 when singular)."""
     a00 = yy * zz - yz * yz
     a01 = xz * yz - xy * zz
     a02 = xy * yz - xz * yy
@@ -329,42 +346,70 @@ def _sym3_inverse(m: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     a22 = xx * yy - xy * xy
     det = xx * a00 + xy * a01 + xz * a02
     tr = (xx + yy + zz) / 3.0
-    with np.errstate(divide="ignore", invalid="ignore"):
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
         quality = np.where(tr > 0, det / tr**3, 0.0)
-        inv = np.stack([a00, a11, a22, a01, a02, a12], axis=1) / det[:, None]
+        inv_det = 1.0 / det
+        inv = tuple(a * inv_det for a in (a00, a11, a22, a01, a02, a12))
     return inv, np.nan_to_num(quality)
 
 
-def _lsq_rows(X: np.ndarray, indptr: np.ndarray, indices: np.ndarray, cells: np.ndarray, dtype,
-              degenerate_limit: float) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+def _lsq_rows(Xc: tuple[np.ndarray, np.ndarray, np.ndarray], indptr: np.ndarray, indices: np.ndarray,
+              cells: np.ndarray | tuple[int, int], dtype,
+              degenerate_limit: float) -> tuple[list[np.ndarray], np.ndarray, np.ndarray, np.ndarray]:
     """LSQ coefficients of a block of stencil rows.
 
-    Row r (cell ``cells[r]``) has the neighbours ``indices[indptr[r]:indptr[r+1]]``
-    (``indptr`` starts at 0). Returns the coefficients (3, nnz) in ``dtype``
-    (c_ij = w_ij M_i⁻¹ d_ij, 1/m), their row sums (3, rows) taken over the
-    stored (rounded) values, the conditioning measure of every M_i and the
-    degenerate rows (zero coefficients). Memory is proportional to the block.
+    ``Xc``: the x, y, z cell-centre coordinates as three contiguous arrays (m).
+    Row r (cell ``cells[r]``, or cell r0 + r when ``cells`` is a range
+    (r0, r1)) has the neighbours ``indices[indptr[r]:indptr[r+1]]``
+    (``indptr`` starts at 0). Returns the coefficients (3 arrays of nnz) in
+    ``dtype`` (c_ij = w_ij M_i⁻¹ d_ij, 1/m), their row sums (3, rows) taken
+    over the stored (rounded) values, the conditioning measure of every M_i
+    and the degenerate rows (zero coefficients). Column-wise 1-D takes and
+    repeats (no fancy indexing of 2-D arrays); memory is proportional to the
+    block.
     """
-    nr = cells.size
     deg = np.diff(indptr)
+    if isinstance(cells, tuple):
+        own = [x[cells[0]:cells[1]] for x in Xc]
+    else:
+        own = [np.take(x, cells) for x in Xc]
+    nr = deg.size
     r = np.repeat(np.arange(nr, dtype=np.int32), deg)
-    d = X[indices]
-    d -= X[cells[r]]
-    w = 1.0 / np.maximum(np.einsum("ij,ij->i", d, d), 1e-300)
-    M = np.empty((nr, 6))
-    for m, (a, b) in enumerate(((0, 0), (1, 1), (2, 2), (0, 1), (0, 2), (1, 2))):
-        M[:, m] = np.bincount(r, weights=w * d[:, a] * d[:, b], minlength=nr)
-    Minv, q = _sym3_inverse(M)
+    d = []
+    for x, xo in zip(Xc, own):
+        dk = np.take(x, indices)
+        dk -= np.repeat(xo, deg)
+        d.append(dk)
+    dist2 = d[0] * d[0]
+    dist2 += d[1] * d[1]
+    dist2 += d[2] * d[2]
+    np.maximum(dist2, 1e-300, out=dist2)
+    w = np.reciprocal(dist2, out=dist2)
+    wd = [w * dk for dk in d]
+    del w
+    M = [np.bincount(r, weights=wd[a] * d[b], minlength=nr)
+         for a, b in ((0, 0), (1, 1), (2, 2), (0, 1), (0, 2), (1, 2))]
+    del d
+    Minv, q = _sym3_inverse(*M)
     del M
-    degenerate = ~(q >= degenerate_limit) | ~np.isfinite(Minv).all(axis=1)
-    Minv[degenerate] = 0.0
-    Mr = Minv[r]  # (nnz, 6): xx, yy, zz, xy, xz, yz of the row's M⁻¹
-    c = np.empty((3, r.size), dtype=dtype)
+    bad = ~(q >= degenerate_limit)
+    for m in Minv:
+        bad |= ~np.isfinite(m)
+    rep = []
+    for m in Minv:
+        m[bad] = 0.0
+        rep.append(np.repeat(m, deg))
+    del Minv
+    c = []
     sums = np.empty((3, nr))
-    for k, cols in enumerate(((0, 3, 4), (3, 1, 5), (4, 5, 2))):
-        c[k] = w * (Mr[:, cols[0]] * d[:, 0] + Mr[:, cols[1]] * d[:, 1] + Mr[:, cols[2]] * d[:, 2])
-        sums[k] = np.bincount(r, weights=c[k], minlength=nr)
-    return c, sums, q, degenerate
+    for k, (i0, i1, i2) in enumerate(((0, 3, 4), (3, 1, 5), (4, 5, 2))):
+        ck = rep[i0] * wd[0]
+        ck += rep[i1] * wd[1]
+        ck += rep[i2] * wd[2]
+        ck = ck.astype(dtype, copy=False)
+        sums[k] = np.bincount(r, weights=ck, minlength=nr)
+        c.append(ck)
+    return c, sums, q, bad
 
 
 def _row_blocks(indptr: np.ndarray, chunk: int) -> list[tuple[int, int]]:
@@ -376,44 +421,86 @@ def _row_blocks(indptr: np.ndarray, chunk: int) -> list[tuple[int, int]]:
     return [(int(b[i]), int(b[i + 1])) for i in range(b.size - 1)]
 
 
-def _widen(A: sp.csr_matrix, X: np.ndarray, bad: np.ndarray, min_neighbours: int, max_layers: int,
-           quality_limit: float, dtype, degenerate_limit: float):
+def _next_layer(indptr: np.ndarray, indices: np.ndarray, rows: np.ndarray, Rp: np.ndarray,
+                Ri: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """One more face-neighbour layer for the stencil rows (Rp, Ri) of the
+    cells ``rows``: the union of each row with the face neighbours of its
+    entries, without the row's own cell, sorted and without duplicates.
+    Work proportional to the rows' entries (no product with the whole
+    adjacency)."""
+    n = indptr.size - 1
+    er = np.repeat(np.arange(rows.size, dtype=np.int64), np.diff(Rp))
+    L = (indptr[Ri + 1] - indptr[Ri]).astype(np.int64)
+    first = np.cumsum(L) - L
+    pos = np.repeat(indptr[Ri].astype(np.int64) - first, L) + np.arange(int(L.sum()), dtype=np.int64)
+    cols = np.concatenate([Ri.astype(np.int64), indices[pos].astype(np.int64)])
+    rr = np.concatenate([er, np.repeat(er, L)])
+    keep = cols != rows[rr]
+    key = np.unique(rr[keep] * n + cols[keep])
+    rr, cols = key // n, key % n
+    Rp = np.concatenate([[0], np.cumsum(np.bincount(rr, minlength=rows.size))])
+    return Rp, cols.astype(np.int32)
+
+
+def _widen(indptr: np.ndarray, indices: np.ndarray, Xc: tuple, bad: np.ndarray, min_neighbours: int,
+           max_layers: int, quality_limit: float, degenerate_limit: float
+           ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Wider stencils for the cells ``bad`` (sorted): add face-neighbour
     layers until the row has ``min_neighbours`` cells and a well-posed M, up
-    to ``max_layers`` layers. Returns (cells, indptr, indices, coeffs (3, nnz),
-    row sums (3, rows), degenerate (rows,)) of the final rows, cells sorted."""
-    P = sp.csr_matrix((np.ones(A.indices.size, dtype=np.float32), A.indices, A.indptr), shape=A.shape)
-    R = P[bad]
+    to ``max_layers`` layers. Returns (cells, row lengths, indices) of the
+    final rows, cells sorted, each row's indices sorted."""
     done = []
     rows = bad
+    Rp = np.concatenate([[0], np.cumsum(indptr[bad + 1] - indptr[bad])])
+    Ri = indices[np.repeat(indptr[bad] - Rp[:-1], np.diff(Rp)) + np.arange(int(Rp[-1]))]
     for layer in range(max_layers - 1):
-        R = (R + R @ P).tocsr()
-        own = sp.csr_matrix((np.ones(rows.size, dtype=np.float32), (np.arange(rows.size), rows)), shape=R.shape)
-        R = (R - R.multiply(own)).tocsr()
-        R.eliminate_zeros()
-        R.sort_indices()
-        c, s, q, dg = _lsq_rows(X, R.indptr.astype(np.int64), R.indices.astype(np.int32), rows, dtype,
-                                degenerate_limit)
-        still = (np.diff(R.indptr) < min_neighbours) | (q < quality_limit)
+        Rp, Ri = _next_layer(indptr, indices, rows, Rp, Ri)
+        rdeg = np.diff(Rp)
         if layer == max_layers - 2:
-            still[:] = False
-        fin = ~still
-        ends = np.repeat(fin, np.diff(R.indptr))
-        done.append((rows[fin], np.diff(R.indptr)[fin], R.indices[ends].astype(np.int32), c[:, ends], s[:, fin],
-                     dg[fin]))
+            still = np.zeros(rows.size, dtype=bool)
+        else:
+            _, _, q, _ = _lsq_rows(Xc, Rp, Ri, rows, np.float64, degenerate_limit)
+            still = (rdeg < min_neighbours) | (q < quality_limit)
+        ends = np.repeat(~still, rdeg)
+        done.append((rows[~still], rdeg[~still], Ri[ends]))
         rows = rows[still]
-        R = R[still]
         if rows.size == 0:
             break
+        Ri = Ri[~ends]
+        Rp = np.concatenate([[0], np.cumsum(rdeg[still])])
     cells = np.concatenate([x[0] for x in done])
-    order = np.argsort(cells, kind="stable")
     deg = np.concatenate([x[1] for x in done])
-    ind_all = np.concatenate([x[2] for x in done])
-    c_all = np.concatenate([x[3] for x in done], axis=1)
+    ind = np.concatenate([x[2] for x in done])
     # rows in cell order; a stable sort by the owning cell keeps each row's entries together and in order
     take = np.argsort(np.repeat(cells, deg), kind="stable")
-    return (cells[order], deg[order], ind_all[take], c_all[:, take],
-            np.concatenate([x[4] for x in done], axis=1)[:, order], np.concatenate([x[5] for x in done])[order])
+    order = np.argsort(cells, kind="stable")
+    return cells[order], deg[order], ind[take]
+
+
+def _splice_rows(indptr: np.ndarray, arrays: list, cells: np.ndarray, new_deg_rows: np.ndarray,
+                 new_rows: list) -> tuple[np.ndarray, list]:
+    """Replace the CSR rows ``cells`` (sorted) of the entry arrays ``arrays``
+    (indices and/or data, all in the pattern ``indptr``) by ``new_rows`` (in
+    cell order, lengths ``new_deg_rows``). Kept entries keep their order, the
+    new rows fill the gaps (boolean masks, no index arrays); one array is
+    replaced at a time, so the old one is freed before the next is copied."""
+    n = indptr.size - 1
+    deg = np.diff(indptr)
+    is_w = np.zeros(n, dtype=bool)
+    is_w[cells] = True
+    new_deg = deg.copy()
+    new_deg[cells] = new_deg_rows
+    keep = np.repeat(~is_w, deg)
+    dest = np.repeat(~is_w, new_deg)
+    fill = ~dest
+    new_nnz = int(new_deg.sum())
+    for i in range(len(arrays)):
+        out = np.empty(new_nnz, dtype=arrays[i].dtype)
+        out[dest] = arrays[i][keep]
+        out[fill] = new_rows[i]
+        arrays[i] = out
+        del out
+    return np.concatenate([[0], np.cumsum(new_deg)]), arrays
 
 
 def lsq_gradient_operator(
@@ -457,52 +544,51 @@ def lsq_gradient_operator(
     n = X.shape[0]
     if adjacency.shape != (n, n):
         raise ValueError(f"expected an adjacency of shape ({n}, {n}), got {adjacency.shape}")
-    indptr = np.asarray(adjacency.indptr, dtype=np.int64)
-    indices = np.asarray(adjacency.indices, dtype=np.int32)
-    nnz = int(indptr[-1])
-    deg = np.diff(indptr)
+    a_ptr = np.asarray(adjacency.indptr, dtype=np.int64)
+    a_ind = np.asarray(adjacency.indices, dtype=np.int32)
+    indptr, indices = a_ptr, a_ind  # the operator's pattern: face neighbours, then widened rows
     deg_limit = quality_limit * 1e-3
-    data = np.empty((3, nnz), dtype=dtype)
+    Xc = tuple(np.ascontiguousarray(X[:, k]) for k in range(3))
+    # 1. cells with too few face neighbours: wider pattern first (few rows)
+    widened = np.zeros(n, dtype=bool)
+    few = np.flatnonzero(np.diff(indptr) < min_neighbours)
+    if few.size and max_layers > 1:
+        cells, wdeg, wind = _widen(a_ptr, a_ind, Xc, few, min_neighbours, max_layers, quality_limit, deg_limit)
+        indptr, (indices,) = _splice_rows(indptr, [indices], cells, wdeg, [wind])
+        widened[cells] = True
+    # 2. all rows, a block at a time, straight into the CSR data arrays
+    nnz = int(indptr[-1])
+    data = [np.empty(nnz, dtype=dtype) for _ in range(3)]
     row_sums = np.empty((3, n))
-    q = np.empty(n)
+    ill = np.zeros(n, dtype=bool)
     degenerate = np.zeros(n, dtype=bool)
     for r0, r1 in _row_blocks(indptr, chunk):
         s, e = int(indptr[r0]), int(indptr[r1])
-        c, rs, q[r0:r1], degenerate[r0:r1] = _lsq_rows(X, indptr[r0:r1 + 1] - s, indices[s:e],
-                                                        np.arange(r0, r1, dtype=np.int32), dtype, deg_limit)
-        data[:, s:e] = c
-        row_sums[:, r0:r1] = rs
-        del c, rs
-    bad = np.flatnonzero((deg < min_neighbours) | (q < quality_limit))
-    del q
-    n_ext = int(bad.size)
-    if bad.size and max_layers > 1:
-        cells, wdeg, windices, wdata, wsums, wdeg_flag = _widen(adjacency, X, bad, min_neighbours, max_layers,
-                                                               quality_limit, dtype, deg_limit)
-        # splice the widened rows into the CSR arrays: kept entries keep their
-        # order, the new rows fill the gaps (boolean masks, no index arrays)
-        is_w = np.zeros(n, dtype=bool)
-        is_w[cells] = True
-        new_deg = deg.copy()
-        new_deg[cells] = wdeg
-        keep = np.repeat(~is_w, deg)
-        dest = np.repeat(~is_w, new_deg)
-        new_nnz = int(new_deg.sum())
-        idx2 = np.empty(new_nnz, dtype=np.int32)
-        idx2[dest] = indices[keep]
-        idx2[~dest] = windices
-        data2 = np.empty((3, new_nnz), dtype=dtype)
+        c, rs, q, degenerate[r0:r1] = _lsq_rows(Xc, indptr[r0:r1 + 1] - s, indices[s:e], (r0, r1), dtype,
+                                                deg_limit)
         for k in range(3):
-            data2[k, dest] = data[k, keep]
-            data2[k, ~dest] = wdata[k]
-        indices, data = idx2, data2
-        del idx2, data2, keep, dest
-        indptr = np.concatenate([[0], np.cumsum(new_deg)])
-        row_sums[:, cells] = wsums
-        degenerate[cells] = wdeg_flag
+            data[k][s:e] = c[k]
+        row_sums[:, r0:r1] = rs
+        ill[r0:r1] = q < quality_limit
+        del c, rs, q
+    # 3. ill-posed face stencils (rare): widen, recompute those rows, splice
+    ill = np.flatnonzero(ill & ~widened)
+    if ill.size and max_layers > 1:
+        cells, wdeg, wind = _widen(a_ptr, a_ind, Xc, ill, min_neighbours, max_layers, quality_limit, deg_limit)
+        wp = np.concatenate([[0], np.cumsum(wdeg)])
+        c, rs, _, dg = _lsq_rows(Xc, wp, wind, cells, dtype, deg_limit)
+        indptr, arrays = _splice_rows(indptr, [indices] + data, cells, wdeg, [wind] + c)
+        indices, data = arrays[0], arrays[1:]
+        del arrays, c
+        row_sums[:, cells] = rs
+        degenerate[cells] = dg
+        widened[cells] = True
+    n_ext = int(widened.sum()) if max_layers > 1 else int(few.size + ill.size)
     ip = indptr.astype(np.int32) if indptr[-1] < 2**31 - 1 else indptr
     ind = indices if ip.dtype == np.int32 else indices.astype(np.int64)
+    del indptr, a_ptr
     coeffs = tuple(sp.csr_matrix((data[k], ind, ip), shape=(n, n), copy=False) for k in range(3))
+    del data
     return GradientOperator(coeffs=coeffs, row_sums=row_sums, n_extended=n_ext, n_degenerate=int(degenerate.sum()))
 
 

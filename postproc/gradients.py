@@ -127,19 +127,21 @@ def _face_keys(topo: CellTopology, n_faces: np.ndarray, present: np.ndarray, h1:
         for s in range(0, nc, chunk):
             e = min(nc, s + chunk)
             c = cells[s:e] if cells is not None else np.arange(s, e, dtype=np.int32)
-            start = off[c].astype(np.int64)
-            if np.any(off[c + 1] - start != npt):
+            start = np.take(off, c).astype(np.int64)
+            if np.any(np.take(off, c + 1) - start != npt):
                 raise ValueError(f"cells of VTK type {t} with a point count other than {npt}")
-            ids = conn[start[:, None] + np.arange(npt)]
+            # one 1-D take per cell vertex (contiguous columns), then one sum per face
+            ids = [np.take(conn, start + v) for v in range(npt)]
             with np.errstate(over="ignore"):
                 for key, h in ((k1, h1), (k2, h2)):
-                    hp = h[ids]
+                    hp = [np.take(h, iv) for iv in ids]
                     for f, face in enumerate(faces):
-                        sl = slice(pos + f * nc + s, pos + f * nc + e)
-                        acc = hp[:, face[0]].copy()
-                        for v in face[1:]:
-                            acc += hp[:, v]
-                        key[sl] = acc
+                        acc = hp[face[0]] + hp[face[1]]
+                        for v in face[2:]:
+                            acc += hp[v]
+                        key[pos + f * nc + s:pos + f * nc + e] = acc
+                    del hp
+            del ids
             for f in range(nf):
                 own[pos + f * nc + s:pos + f * nc + e] = c
         pos += nf * nc
@@ -153,8 +155,8 @@ def _face_keys(topo: CellTopology, n_faces: np.ndarray, present: np.ndarray, h1:
             for key, h in ((k1, h1), (k2, h2)):
                 f = np.zeros(fo.size - 1, dtype=np.uint64)
                 if fc.size:
-                    f[nonempty] = np.add.reduceat(h[fc], fo[:-1][nonempty])
-                key[pos:pos + lc.size] = f[lc]
+                    f[nonempty] = np.add.reduceat(np.take(h, fc), fo[:-1][nonempty])
+                key[pos:pos + lc.size] = np.take(f, lc)
                 del f
         counts = np.diff(lo)
         own[pos:pos + lc.size] = np.repeat(np.arange(counts.size, dtype=np.int32), counts)
@@ -205,9 +207,9 @@ def _match_keys(k1: np.ndarray, k2: np.ndarray, own: np.ndarray) -> tuple[np.nda
     del idx, single
     a_parts, b_parts = [], []
     for s in range(0, i2.size, 1 << 22):
-        sa, sb = slot[i2[s:s + (1 << 22)]], slot[i2[s:s + (1 << 22)] + 1]
-        ok = k2[sa] == k2[sb]
-        oa, ob = own[sa[ok]], own[sb[ok]]
+        sa, sb = np.take(slot, i2[s:s + (1 << 22)]), np.take(slot, i2[s:s + (1 << 22)] + 1)
+        ok = np.take(k2, sa) == np.take(k2, sb)
+        oa, ob = np.take(own, sa[ok]), np.take(own, sb[ok])
         diff = oa != ob
         a_parts.append(oa[diff])
         b_parts.append(ob[diff])

@@ -235,14 +235,20 @@ def topology(grid) -> CellTopology:
     return CellTopology(celltypes=ct, offsets=off, connectivity=conn, n_points=int(grid.n_points), **kw)
 
 
-def cell_centres(grid, chunk: int = 262_144) -> np.ndarray:
-    """Cell centres (N, 3), m: the mean of each cell's distinct vertices.
+def cell_centres(grid, *, kind: str = "centroid", chunk: int = 262_144) -> np.ndarray:
+    """Cell centres (N, 3), m (mesh frame).
 
-    For hexahedra, prisms and the solver's polyhedra this is within a small
-    fraction of a cell of the volume centroid where the solver stores its
-    cell values; gradients taken with these centres are exact for fields
+    ``kind="centroid"`` (default): volume centroids
+    (:func:`postproc.cellgeom.cell_centroids`), the points where the solver
+    stores its cell values. ``kind="vertex-mean"``: the mean of each cell's
+    vertices (cheaper; off by up to ~0.2 of a cell on the polyhedra at
+    refinement interfaces). Gradients taken with either are exact for fields
     that are linear in them.
     """
+    if kind == "centroid":
+        return cell_geometry(grid)[0]
+    if kind != "vertex-mean":
+        raise ValueError(f"expected kind 'centroid' or 'vertex-mean', got {kind!r}")
     pts = np.asarray(grid.points, dtype=np.float64)
     off = np.asarray(grid.offset if not hasattr(grid, "cell_offsets") else grid.cell_offsets).astype(np.int64)
     conn = np.asarray(grid.cell_connectivity)
@@ -263,13 +269,22 @@ def cell_centres(grid, chunk: int = 262_144) -> np.ndarray:
     return out
 
 
+def cell_geometry(grid) -> tuple[np.ndarray, np.ndarray]:
+    """Volume centroids (N, 3), m, and volumes (N,), m³, of all cells of the
+    internal mesh (:func:`postproc.cellgeom.cell_centroids`; mesh frame)."""
+    from .cellgeom import cell_centroids
+
+    return cell_centroids(np.asarray(grid.points), topology(grid))
+
+
 def cell_volumes(grid, ids: np.ndarray | None = None) -> np.ndarray:
-    """Cell volumes (m³) of all cells or of the cells ``ids`` (VTK's cell-size filter)."""
+    """Cell volumes (m³) of all cells or of the cells ``ids``, by pyramid
+    decomposition (:func:`postproc.cellgeom.cell_centroids`; VTK's own
+    cell-size filter misjudges non-convex polyhedra)."""
     g = grid if ids is None else grid.extract_cells(np.asarray(ids))
     if g.n_cells == 0:
         return np.zeros(0)
-    sized = g.compute_cell_sizes(length=False, area=False, volume=True, vertex_count=False)
-    return np.abs(np.asarray(sized.cell_data["Volume"], dtype=np.float64))
+    return cell_geometry(g)[1]
 
 
 def vtk_cell_gradient(grid, name: str, *, q_criterion: bool = True) -> tuple[np.ndarray, np.ndarray | None]:

@@ -107,6 +107,7 @@ class GradientData:
     operator: grad.GradientOperator
     velocity: np.ndarray
     fields: grad.VelocityGradientFields
+    volumes: np.ndarray | None = None
 
 
 def gradient_data(case: flowio.FlowCase, velocity: str = "U", *, with_lambda2: bool = True,
@@ -119,12 +120,12 @@ def gradient_data(case: flowio.FlowCase, velocity: str = "U", *, with_lambda2: b
     _finite(case, velocity, U)
     topo = flowio.topology(case.grid)
     A, _ = grad.cell_adjacency(topo)
-    X = flowio.cell_centres(case.grid)
+    X, vol = flowio.cell_geometry(case.grid)
     # single-precision data (the solver's VTK arrays are Float32): single-
     # precision coefficients halve the operator's memory at no loss
     op = grad.lsq_gradient_operator(X, A, dtype=np.float32 if U.dtype == np.float32 else np.float64)
     f = grad.velocity_gradient_fields(op, U, speed=speed, length=length, with_lambda2=with_lambda2)
-    return GradientData(adjacency=A, centres=X, operator=op, velocity=U, fields=f)
+    return GradientData(adjacency=A, centres=X, operator=op, velocity=U, fields=f, volumes=vol)
 
 
 def _check_stations(case: flowio.FlowCase, xs, what: str) -> np.ndarray:
@@ -186,7 +187,7 @@ def analyse_vortices(case: flowio.FlowCase, *, stations=None, q_star: float = 10
     if regions:
         ids = np.flatnonzero(gd.fields.q > thr)
         if ids.size:
-            vol = flowio.cell_volumes(case.grid, ids)
+            vol = gd.volumes[ids] if gd.volumes is not None else flowio.cell_volumes(case.grid, ids)
             regs = vx.q_regions(gd.adjacency, gd.fields.q, thr, gd.centres, vol, gd.fields.vorticity)
     return vx.VortexResult(stations=xs, cores=cores, tracks=tracks, regions=regs, q_threshold=thr, q_scale=q_scale)
 

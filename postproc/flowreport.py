@@ -232,8 +232,12 @@ def analyse_diffuser(case: flowio.FlowCase, *, throat: float | None = None, exit
             raise UserError(expected="body surface patches to find the diffuser", got="none",
                             file=str(case.source), key="--throat/--exit", fix="give --throat and --exit (m, body x)")
         band = y_range
-        x, h = dif.underside_profile(np.concatenate(pts), refs.ground_point, refs.ground_normal, y_band=band)
-        t, e = dif.find_diffuser(x, h)
+        allp = np.concatenate(pts)
+        # the profile in the body frame (flat floor level, rake removed) finds
+        # the ramp; the clearance above the ground is the rise reference
+        x, z = dif.underside_profile(allp, np.zeros(3), np.array([0.0, 0.0, 1.0]), y_band=band)
+        _, h = dif.underside_profile(allp, refs.ground_point, refs.ground_normal, y_band=band)
+        t, e = dif.find_diffuser(x, z, clearance=h)
         throat = t if throat is None else throat
         exit = e if exit is None else exit
     _check_stations(case, [throat, exit], "--throat/--exit")
@@ -304,9 +308,14 @@ def analyse_walls(case: flowio.FlowCase, *, target: tuple[float, float] = (30.0,
     X = centres if centres is not None else flowio.cell_centres(case.grid)
     tree = None
     patches = {}
+    notes = list(refs.notes)
     for name, s in case.patches.items():
         yp = s.cell_values("yPlus")
         src = "yPlus"
+        if yp is not None and not np.any(np.asarray(yp)):
+            # the solver writes y+ on every patch, zero on those that are not walls
+            notes.append(f"patch {name!r}: y+ identically zero (not a wall), left out")
+            continue
         if yp is None:
             tau = s.cell_values("wallShearStress")
             if tau is None:
@@ -355,4 +364,4 @@ def analyse_walls(case: flowio.FlowCase, *, target: tuple[float, float] = (30.0,
             lower = -50.0 * 0.5 * refs.speed**2
             upper = 5.0 * 0.5 * refs.speed**2
         flags.append(wc.field_flags(name, arr, X, lower=lower, upper=upper).to_dict())
-    return {"yplus": patches, "shear_reversals": reversals, "field_flags": flags, "notes": list(refs.notes)}
+    return {"yplus": patches, "shear_reversals": reversals, "field_flags": flags, "notes": notes}

@@ -35,7 +35,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from .gradients import CELL_FACES, VTK_POLYHEDRON, CellTopology
+from .gradients import CELL_FACES, VTK_POLYHEDRON, CellTopology, auto_chunk
 
 
 def _cross(ax, ay, az, bx, by, bz):
@@ -135,6 +135,8 @@ def cell_centroids(points: np.ndarray, topo: CellTopology, *, chunk: int = 131_0
     off = np.asarray(topo.offsets).astype(np.int64)
     conn = np.asarray(topo.connectivity)
     n = ct.size
+    chunk = auto_chunk(n, chunk)
+    cols = [np.ascontiguousarray(P[:, k]) for k in range(3)]
     cen = np.empty((n, 3))
     vol = np.zeros(n)
     present = [int(t) for t in np.unique(ct)]
@@ -147,7 +149,6 @@ def cell_centroids(points: np.ndarray, topo: CellTopology, *, chunk: int = 131_0
         faces = CELL_FACES[t]
         npt = max(max(f) for f in faces) + 1
         cells = np.flatnonzero(ct == t)
-        cols = [np.ascontiguousarray(P[:, k]) for k in range(3)]
         for s in range(0, cells.size, chunk):
             c = cells[s:s + chunk]
             start = np.take(off, c)
@@ -175,12 +176,13 @@ def cell_centroids(points: np.ndarray, topo: CellTopology, *, chunk: int = 131_0
             vol[c] = np.abs(vv)
     if VTK_POLYHEDRON in present:
         fo = np.asarray(topo.poly_face_offsets).astype(np.int64)
-        fc = np.asarray(topo.poly_face_connectivity).astype(np.int64)
+        fc = np.asarray(topo.poly_face_connectivity)
         lo = np.asarray(topo.poly_loc_offsets).astype(np.int64)
-        lc = np.asarray(topo.poly_loc_connectivity).astype(np.int64)
+        lc = np.asarray(topo.poly_loc_connectivity)
         cells = np.flatnonzero(ct == VTK_POLYHEDRON)
-        for s in range(0, cells.size, chunk):
-            c = cells[s:s + chunk]
+        pchunk = max(256, chunk // 8)  # a polyhedron has ~5× the face vertices of a hexahedron
+        for s in range(0, cells.size, pchunk):
+            c = cells[s:s + pchunk]
             cnt = np.take(lo, c + 1) - np.take(lo, c)
             # the faces of these cells, in cell order
             fpos = np.repeat(np.take(lo, c) - (np.cumsum(cnt) - cnt), cnt) + np.arange(int(cnt.sum()))

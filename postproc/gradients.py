@@ -101,6 +101,13 @@ def _mix64(x: np.ndarray, seed: int) -> np.ndarray:
         return z ^ (z >> np.uint64(31))
 
 
+def auto_chunk(total: int, chunk: int, floor: int = 8_192) -> int:
+    """Block size for a pass over ``total`` items: at most ``chunk``, and
+    about an eighth of the total for small meshes so that the temporaries
+    of one block stay small next to the mesh itself (at least ``floor``)."""
+    return int(max(1, min(chunk, max(floor, total // 8))))
+
+
 def _face_keys(topo: CellTopology, n_faces: np.ndarray, present: np.ndarray, h1: np.ndarray, h2: np.ndarray,
                chunk: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Two order-independent 64-bit keys and the owner cell of every (cell,
@@ -260,7 +267,7 @@ def face_pairs(topo: CellTopology, *, chunk: int = 65_536) -> tuple[np.ndarray, 
         lo = np.asarray(topo.poly_loc_offsets, dtype=np.int64)
         is_poly = ct == VTK_POLYHEDRON
         n_faces[is_poly] = np.diff(lo)[is_poly]
-    k1, k2, own = _face_keys(topo, n_faces, present, h1, h2, chunk)
+    k1, k2, own = _face_keys(topo, n_faces, present, h1, h2, auto_chunk(ct.shape[0], chunk))
     del h1, h2
     a, b = _match_keys(k1, k2, own)
     return a, b, n_faces
@@ -564,7 +571,7 @@ def lsq_gradient_operator(
     row_sums = np.empty((3, n))
     ill = np.zeros(n, dtype=bool)
     degenerate = np.zeros(n, dtype=bool)
-    for r0, r1 in _row_blocks(indptr, chunk):
+    for r0, r1 in _row_blocks(indptr, auto_chunk(nnz, chunk, 32_768)):
         s, e = int(indptr[r0]), int(indptr[r1])
         c, rs, q, degenerate[r0:r1] = _lsq_rows(Xc, indptr[r0:r1 + 1] - s, indices[s:e], (r0, r1), dtype,
                                                 deg_limit)
@@ -701,6 +708,7 @@ def velocity_gradient_fields(op: GradientOperator, velocity: np.ndarray, *, spee
     w = np.empty((n, 3))
     q = np.empty(n)
     l2 = np.empty(n) if with_lambda2 else None
+    chunk = auto_chunk(n, chunk)
     for s in range(0, n, chunk):
         j = op.gradient_rows(U64, s, min(n, s + chunk))
         w[s:s + chunk] = vorticity(j)

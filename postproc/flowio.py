@@ -235,6 +235,61 @@ def topology(grid) -> CellTopology:
     return CellTopology(celltypes=ct, offsets=off, connectivity=conn, n_points=int(grid.n_points), **kw)
 
 
+@dataclass
+class BoundaryFaces:
+    """The boundary patches' polygons in the internal mesh's point numbering.
+
+    ``offsets`` (F+1,), ``point_ids`` (volume-mesh point ids; −1 for a vertex
+    with no volume-mesh point at the same place), ``centres`` (F, 3) face
+    centres (m, mesh frame) and ``patches`` (patch name → slice of the faces).
+    """
+
+    offsets: np.ndarray
+    point_ids: np.ndarray
+    centres: np.ndarray
+    patches: dict[str, slice]
+
+    def values(self, case: "FlowCase", name: str) -> np.ndarray | None:
+        """Face values of the array ``name`` on all patches, in face order;
+        None when a patch does not carry it."""
+        parts = []
+        for pname, sl in self.patches.items():
+            v = case.patches[pname].cell_values(name)
+            if v is None or v.shape[0] != sl.stop - sl.start:
+                return None
+            parts.append(np.asarray(v, dtype=np.float64))
+        return np.concatenate(parts) if parts else None
+
+
+def boundary_faces(case: "FlowCase", *, rel_tol: float = 1e-7) -> BoundaryFaces | None:
+    """The patch polygons of ``case`` with their vertices looked up among
+    the internal mesh's points (nearest point within ``rel_tol`` × the mesh
+    diagonal; the converter writes both from the same coordinates), or None
+    without patches."""
+    if not case.patches or case.grid is None:
+        return None
+    from scipy.spatial import cKDTree
+
+    pts = np.asarray(case.grid.points, dtype=np.float64)
+    b = np.asarray(case.grid.bounds, dtype=float)
+    tol = rel_tol * float(np.linalg.norm(b[1::2] - b[0::2]))
+    tree = cKDTree(pts)
+    offs, ids, cens, slices = [np.zeros(1, dtype=np.int64)], [], [], {}
+    nf = 0
+    base = 0
+    for name, s in case.patches.items():
+        d, j = tree.query(np.asarray(s.points, dtype=np.float64), distance_upper_bound=tol)
+        j = np.where(np.isfinite(d), j, -1).astype(np.int64)
+        ids.append(j[np.asarray(s.connectivity, dtype=np.int64)])
+        offs.append(np.asarray(s.offsets[1:], dtype=np.int64) + base)
+        base += int(s.offsets[-1])
+        cens.append(s.centroids)
+        slices[name] = slice(nf, nf + s.n_cells)
+        nf += s.n_cells
+    return BoundaryFaces(offsets=np.concatenate(offs), point_ids=np.concatenate(ids),
+                         centres=np.concatenate(cens), patches=slices)
+
+
 def cell_centres(grid, *, kind: str = "centroid", chunk: int = 262_144) -> np.ndarray:
     """Cell centres (N, 3), m (mesh frame).
 

@@ -111,20 +111,33 @@ class GradientData:
 
 
 def gradient_data(case: flowio.FlowCase, velocity: str = "U", *, with_lambda2: bool = True,
-                  speed: float | None = None, length: float | None = None) -> GradientData:
-    """Velocity-gradient quantities of the case from its cell data."""
+                  speed: float | None = None, length: float | None = None,
+                  use_boundary: bool = True) -> GradientData:
+    """Velocity-gradient quantities of the case from its cell data; with
+    ``use_boundary`` the patches' face velocities are used in the stencils
+    of the wall-adjacent cells (when every patch carries the velocity)."""
     U = case.cell_array(velocity)
     if U.ndim != 2 or U.shape[1] != 3:
         raise UserError(expected=f"a 3-component velocity array {velocity!r}", got=f"shape {U.shape}",
                         file=str(case.source), key=velocity, fix="name the velocity array with --velocity")
     _finite(case, velocity, U)
     topo = flowio.topology(case.grid)
-    A, _ = grad.cell_adjacency(topo)
     X, vol = flowio.cell_geometry(case.grid)
     # single-precision data (the solver's VTK arrays are Float32): single-
     # precision coefficients halve the operator's memory at no loss
-    op = grad.lsq_gradient_operator(X, A, dtype=np.float32 if U.dtype == np.float32 else np.float64)
-    f = grad.velocity_gradient_fields(op, U, speed=speed, length=length, with_lambda2=with_lambda2)
+    dtype = np.float32 if U.dtype == np.float32 else np.float64
+    bf = flowio.boundary_faces(case) if use_boundary else None
+    Ub = bf.values(case, velocity) if bf is not None else None
+    if Ub is not None and Ub.ndim == 2 and Ub.shape[1] == 3 and np.isfinite(Ub).all():
+        # the patches' face velocities (wall, inflow, outflow values) join
+        # the stencils of the cells that own those faces
+        A, _, owners = grad.cell_adjacency(topo, boundary_polygons=(bf.offsets, bf.point_ids))
+        op = grad.lsq_gradient_operator(X, A, dtype=dtype, boundary_points=bf.centres, boundary_owner=owners)
+    else:
+        A, _ = grad.cell_adjacency(topo)
+        op = grad.lsq_gradient_operator(X, A, dtype=dtype)
+        Ub = None
+    f = grad.velocity_gradient_fields(op, U, speed=speed, length=length, with_lambda2=with_lambda2, boundary=Ub)
     return GradientData(adjacency=A, centres=X, operator=op, velocity=U, fields=f, volumes=vol)
 
 

@@ -50,247 +50,23 @@ from dataclasses import dataclass
 import numpy as np
 import scipy.sparse as sp
 
-# VTK cell type ids and their faces (local point ids). Orientation does not
-# matter here: faces are matched by vertex set. From the VTK file-format
-# documentation (cell type figures); checked in tests against VTK's own
-# vtkCell.GetFace on each type.
-VTK_TETRA, VTK_VOXEL, VTK_HEXAHEDRON, VTK_WEDGE, VTK_PYRAMID, VTK_POLYHEDRON = 10, 11, 12, 13, 14, 42
-CELL_FACES: dict[int, tuple[tuple[int, ...], ...]] = {
-    VTK_TETRA: ((0, 1, 3), (1, 2, 3), (2, 0, 3), (0, 2, 1)),
-    VTK_VOXEL: ((0, 2, 6, 4), (1, 3, 7, 5), (0, 1, 5, 4), (2, 3, 7, 6), (0, 1, 3, 2), (4, 5, 7, 6)),
-    VTK_HEXAHEDRON: ((0, 4, 7, 3), (1, 2, 6, 5), (0, 1, 5, 4), (3, 7, 6, 2), (0, 3, 2, 1), (4, 5, 6, 7)),
-    VTK_WEDGE: ((0, 1, 2), (3, 5, 4), (0, 3, 4, 1), (1, 4, 5, 2), (2, 5, 3, 0)),
-    VTK_PYRAMID: ((0, 3, 2, 1), (0, 1, 4), (1, 2, 4), (2, 3, 4), (3, 0, 4)),
-}
-VOLUME_CELL_TYPES = frozenset(CELL_FACES) | {VTK_POLYHEDRON}
-
-
-@dataclass(frozen=True)
-class CellTopology:
-    """Plain-array description of an unstructured volume mesh.
-
-    ``celltypes`` (N,) VTK type ids; ``offsets`` (N+1,) and ``connectivity``
-    point ids of each cell (VTK layout). Polyhedra (type 42) also need
-    ``poly_face_offsets``/``poly_face_connectivity`` (the face polygons) and
-    ``poly_loc_offsets``/``poly_loc_connectivity`` (for each cell, the ids of
-    its faces; rows of non-polyhedral cells are empty).
-    """
-
-    celltypes: np.ndarray
-    offsets: np.ndarray
-    connectivity: np.ndarray
-    n_points: int
-    poly_face_offsets: np.ndarray | None = None
-    poly_face_connectivity: np.ndarray | None = None
-    poly_loc_offsets: np.ndarray | None = None
-    poly_loc_connectivity: np.ndarray | None = None
-
-    @property
-    def n_cells(self) -> int:
-        return int(self.celltypes.shape[0])
-
-
-def _mix64(x: np.ndarray, seed: int) -> np.ndarray:
-    """splitmix64 finaliser (Steele, Lea & Flood 2014, "Fast splittable
-    pseudorandom number generators", OOPSLA) of integers ``x`` + seed: a
-    well-spread 64-bit hash per point id."""
-    with np.errstate(over="ignore"):
-        z = x.astype(np.uint64) + np.uint64(seed)
-        z = (z ^ (z >> np.uint64(30))) * np.uint64(0xBF58476D1CE4E5B9)
-        z = (z ^ (z >> np.uint64(27))) * np.uint64(0x94D049BB133111EB)
-        return z ^ (z >> np.uint64(31))
-
-
-def auto_chunk(total: int, chunk: int, floor: int = 8_192) -> int:
-    """Block size for a pass over ``total`` items: at most ``chunk``, and
-    about an eighth of the total for small meshes so that the temporaries
-    of one block stay small next to the mesh itself (at least ``floor``)."""
-    return int(max(1, min(chunk, max(floor, total // 8))))
-
-
-def _face_keys(topo: CellTopology, n_faces: np.ndarray, present: np.ndarray, h1: np.ndarray, h2: np.ndarray,
-               chunk: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Two order-independent 64-bit keys and the owner cell of every (cell,
-    face) slot. Standard cells: one gather of the point hashes per cell
-    vertex (a chunk of cells at a time), then one sum per face of the table.
-    Polyhedra: one segmented sum over the face stream."""
-    ct = np.asarray(topo.celltypes)
-    off = np.asarray(topo.offsets)
-    conn = np.asarray(topo.connectivity)
-    total = int(n_faces.sum(dtype=np.int64))
-    k1 = np.empty(total, dtype=np.uint64)
-    k2 = np.empty(total, dtype=np.uint64)
-    own = np.empty(total, dtype=np.int32)
-    pos = 0
-    for t in present:
-        t = int(t)
-        if t == VTK_POLYHEDRON:
-            continue
-        faces = CELL_FACES[t]
-        npt = max(max(f) for f in faces) + 1
-        cells = np.flatnonzero(ct == t).astype(np.int32) if present.size > 1 else None
-        nc = int(cells.size) if cells is not None else int(ct.size)
-        nf = len(faces)
-        for s in range(0, nc, chunk):
-            e = min(nc, s + chunk)
-            c = cells[s:e] if cells is not None else np.arange(s, e, dtype=np.int32)
-            start = np.take(off, c).astype(np.int64)
-            if np.any(np.take(off, c + 1) - start != npt):
-                raise ValueError(f"cells of VTK type {t} with a point count other than {npt}")
-            # one 1-D take per cell vertex (contiguous columns), then one sum per face
-            ids = [np.take(conn, start + v) for v in range(npt)]
-            with np.errstate(over="ignore"):
-                for key, h in ((k1, h1), (k2, h2)):
-                    hp = [np.take(h, iv) for iv in ids]
-                    for f, face in enumerate(faces):
-                        acc = hp[face[0]] + hp[face[1]]
-                        for v in face[2:]:
-                            acc += hp[v]
-                        key[pos + f * nc + s:pos + f * nc + e] = acc
-                    del hp
-            del ids
-            for f in range(nf):
-                own[pos + f * nc + s:pos + f * nc + e] = c
-        pos += nf * nc
-    if np.any(ct == VTK_POLYHEDRON):
-        fo = np.asarray(topo.poly_face_offsets, dtype=np.int64)
-        fc = np.asarray(topo.poly_face_connectivity)
-        lo = np.asarray(topo.poly_loc_offsets, dtype=np.int64)
-        lc = np.asarray(topo.poly_loc_connectivity)
-        nonempty = fo[1:] > fo[:-1]
-        with np.errstate(over="ignore"):
-            for key, h in ((k1, h1), (k2, h2)):
-                f = np.zeros(fo.size - 1, dtype=np.uint64)
-                if fc.size:
-                    f[nonempty] = np.add.reduceat(np.take(h, fc), fo[:-1][nonempty])
-                key[pos:pos + lc.size] = np.take(f, lc)
-                del f
-        counts = np.diff(lo)
-        own[pos:pos + lc.size] = np.repeat(np.arange(counts.size, dtype=np.int32), counts)
-        pos += lc.size
-    return k1, k2, own
-
-
-def _match_keys(k1: np.ndarray, k2: np.ndarray, own: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Pairs of slots with equal keys (k1, k2) and different owners.
-
-    One in-place sort of 64-bit words: the high bits of k1 with the slot
-    number packed into the low bits (so no argsort and no gathered copies of
-    the keys). Slots whose high bits agree sit side by side; a run of two is
-    confirmed with k2, runs of three or more (high-bit collisions of different
-    faces, or a non-conforming face shared by more than two cells) are sorted
-    again by the full keys. ``k1`` is overwritten.
-    """
-    total = k1.size
-    b = max(1, int(total - 1).bit_length())
-    low = np.uint64((1 << b) - 1)
-    k1 &= ~low
-    for s in range(0, total, 1 << 22):
-        e = min(total, s + (1 << 22))
-        k1[s:e] |= np.arange(s, e, dtype=np.uint64)
-    k1.sort()
-    # slot numbers and "equal high bits as the next word", a block at a time (no full-size uint64 temporaries)
-    slot = np.empty(total, dtype=np.int64 if total > 2**31 - 1 else np.int32)
-    same = np.empty(max(total - 1, 0), dtype=bool)
-    for s in range(0, total, 1 << 22):
-        e = min(total, s + (1 << 22))
-        slot[s:e] = k1[s:e] & low
-        e1 = min(total - 1, e)
-        if e1 > s:
-            same[s:e1] = (k1[s + 1:e1 + 1] ^ k1[s:e1]) <= low
-    idx = np.flatnonzero(same).astype(slot.dtype)
-    del same
-    if idx.size == 0:
-        return np.zeros(0, np.int32), np.zeros(0, np.int32)
-    # runs of exactly two slots: idx not adjacent to another idx
-    adj = idx[1:] == idx[:-1] + 1
-    single = ~(np.concatenate([[False], adj]) | np.concatenate([adj, [False]]))
-    del adj
-    multi = idx[~single]
-    pos = np.unique(np.concatenate([multi, multi + 1])) if multi.size else None
-    hi = k1[pos] & ~low if multi.size else None
-    del k1
-    i2 = idx[single]
-    del idx, single
-    a_parts, b_parts = [], []
-    for s in range(0, i2.size, 1 << 22):
-        sa, sb = np.take(slot, i2[s:s + (1 << 22)]), np.take(slot, i2[s:s + (1 << 22)] + 1)
-        ok = np.take(k2, sa) == np.take(k2, sb)
-        oa, ob = np.take(own, sa[ok]), np.take(own, sb[ok])
-        diff = oa != ob
-        a_parts.append(oa[diff])
-        b_parts.append(ob[diff])
-    del i2
-    a = np.concatenate(a_parts) if a_parts else np.zeros(0, np.int32)
-    b_ = np.concatenate(b_parts) if b_parts else np.zeros(0, np.int32)
-    del a_parts, b_parts
-    if multi.size:
-        # the slots of the longer runs, paired exactly by (high bits of k1, k2)
-        sl = slot[pos]
-        order = np.lexsort((own[sl], k2[sl], hi))
-        sl, hi = sl[order], hi[order]
-        eq = (hi[1:] == hi[:-1]) & (k2[sl[1:]] == k2[sl[:-1]]) & (own[sl[1:]] != own[sl[:-1]])
-        j = np.flatnonzero(eq)
-        if j.size > 1:
-            chain = np.concatenate([[False], j[1:] == j[:-1] + 1])
-            j = j[~chain]
-        a = np.concatenate([a, own[sl[j]]])
-        b_ = np.concatenate([b_, own[sl[j + 1]]])
-    return a, b_
-
-
-def face_pairs(topo: CellTopology, *, chunk: int = 65_536) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Interior faces of the mesh as cell pairs.
-
-    Returns ``(a, b, n_faces)``: int32 arrays of the two cells sharing each
-    interior face, and the number of faces of every cell (N,). Faces seen
-    only once are boundary faces. Raises ValueError on cell types without a
-    face table (2D cells, lines, higher-order cells). ``chunk``: cells
-    hashed at a time (bounds the temporary memory).
-    """
-    ct = np.asarray(topo.celltypes)
-    pid = np.arange(topo.n_points, dtype=np.uint64)
-    h1, h2 = _mix64(pid, 0x9E3779B97F4A7C15), _mix64(pid, 0x632BE59BD9B4E019)
-    del pid
-    n_faces = np.zeros(ct.shape[0], dtype=np.int32)
-    present = np.unique(ct)
-    unknown = [int(t) for t in present if int(t) not in VOLUME_CELL_TYPES]
-    if unknown:
-        raise ValueError(f"expected volume cells (VTK types {sorted(VOLUME_CELL_TYPES)}), got cell types {unknown}")
-    for t in present:
-        t = int(t)
-        if t != VTK_POLYHEDRON:
-            n_faces[ct == t] = len(CELL_FACES[t])
-    if VTK_POLYHEDRON in present:
-        if topo.poly_face_offsets is None:
-            raise ValueError("polyhedral cells without their face lists")
-        lo = np.asarray(topo.poly_loc_offsets, dtype=np.int64)
-        is_poly = ct == VTK_POLYHEDRON
-        n_faces[is_poly] = np.diff(lo)[is_poly]
-    k1, k2, own = _face_keys(topo, n_faces, present, h1, h2, auto_chunk(ct.shape[0], chunk))
-    del h1, h2
-    a, b = _match_keys(k1, k2, own)
-    return a, b, n_faces
-
-
-def adjacency_matrix(a: np.ndarray, b: np.ndarray, n_cells: int) -> sp.csr_matrix:
-    """Symmetric cell adjacency (CSR, int32 indices, data 1) from cell pairs,
-    without self-loops and duplicate entries."""
-    rows = np.concatenate([a, b]).astype(np.int32)
-    cols = np.concatenate([b, a]).astype(np.int32)
-    A = sp.csr_matrix((np.ones(rows.size, dtype=np.int8), (rows, cols)), shape=(n_cells, n_cells))
-    A.sum_duplicates()
-    A.data[:] = 1
-    return A
-
-
-def cell_adjacency(topo: CellTopology) -> tuple[sp.csr_matrix, np.ndarray]:
-    """Face adjacency (CSR) of a volume mesh and the number of boundary
-    faces of each cell (faces without a neighbour)."""
-    a, b, n_faces = face_pairs(topo)
-    A = adjacency_matrix(a, b, topo.n_cells)
-    n_boundary = n_faces - np.diff(A.indptr).astype(np.int32)
-    return A, n_boundary
+from .meshtopo import (  # noqa: F401  (re-exported: the topology half of the flow kernels)
+    CELL_FACES,
+    VOLUME_CELL_TYPES,
+    VTK_HEXAHEDRON,
+    VTK_POLYHEDRON,
+    VTK_PYRAMID,
+    VTK_TETRA,
+    VTK_VOXEL,
+    VTK_WEDGE,
+    CellTopology,
+    _match_keys,
+    _mix64,
+    adjacency_matrix,
+    auto_chunk,
+    cell_adjacency,
+    face_pairs,
+)
 
 
 @dataclass(frozen=True)
@@ -308,36 +84,62 @@ class GradientOperator:
     row_sums: np.ndarray
     n_extended: int
     n_degenerate: int
+    boundary_index: np.ndarray | None = None
+    n_boundary_given: int = 0
 
     @property
     def n_cells(self) -> int:
         return int(self.row_sums.shape[1])
 
+    @property
+    def n_boundary(self) -> int:
+        """Boundary points in the stencils (columns after the N cells)."""
+        return int(self.coeffs[0].shape[1]) - self.n_cells
+
     def matrix(self, k: int) -> sp.csr_matrix:
-        """The full sparse matrix G_k = C_k − diag(s_k) (so ∂φ/∂x_k = G_k φ)."""
-        return (self.coeffs[k] - sp.diags(self.row_sums[k])).tocsr()
+        """The full sparse matrix G_k = C_k − diag(s_k), shape (N, N + B), so
+        that ∂φ/∂x_k = G_k [φ; φ_b] (cell values, then boundary values)."""
+        return (self.coeffs[k] - sp.diags(self.row_sums[k], shape=self.coeffs[k].shape)).tocsr()
+
+    def extend(self, field64: np.ndarray, boundary: np.ndarray | None) -> np.ndarray:
+        """[cell values; boundary values] as the operator's columns expect:
+        ``boundary`` holds one value per boundary point given at assembly
+        (B_given, ...) or is None for an operator without boundary points."""
+        if self.n_boundary == 0:
+            return field64
+        if boundary is None:
+            raise ValueError(f"expected the values at the {self.n_boundary_given} boundary points this operator "
+                             "was assembled with, got none")
+        b = np.asarray(boundary, dtype=np.float64)
+        if b.shape[0] != self.n_boundary_given or b.shape[1:] != field64.shape[1:]:
+            raise ValueError(f"expected boundary values of shape {(self.n_boundary_given,) + field64.shape[1:]}, "
+                             f"got {b.shape}")
+        return np.concatenate([field64, b[self.boundary_index]])
 
     def gradient_rows(self, field64: np.ndarray, start: int, stop: int) -> np.ndarray:
-        """Gradient (stop−start, m, 3) of a float64 field (N, m) on the cells
-        start…stop−1 only (bounded memory for derived quantities)."""
+        """Gradient (stop−start, m, 3) of a float64 field (N [+ B], m), already
+        :meth:`extend`-ed, on the cells start…stop−1 only (bounded memory for
+        derived quantities)."""
         out = np.empty((stop - start, field64.shape[1], 3))
         for k in range(3):
             res = self.coeffs[k][start:stop] @ field64
             out[:, :, k] = res - self.row_sums[k][start:stop, None] * field64[start:stop]
         return out
 
-    def gradient(self, field: np.ndarray) -> np.ndarray:
+    def gradient(self, field: np.ndarray, boundary: np.ndarray | None = None) -> np.ndarray:
         """Gradient of a cell field. ``field`` (N,) → (N, 3); (N, m) → (N, m, 3)
-        with ``out[i, c, k] = ∂field_c/∂x_k``. Computed in float64; the input
-        is not modified."""
+        with ``out[i, c, k] = ∂field_c/∂x_k``. ``boundary``: the field's values
+        at the boundary points the operator was assembled with (needed then).
+        Computed in float64; the inputs are not modified."""
         f = np.asarray(field)
         if f.shape[0] != self.n_cells:
             raise ValueError(f"expected a field with {self.n_cells} cell values, got {f.shape[0]}")
         f64 = f.astype(np.float64, copy=False)
+        fx = self.extend(f64, boundary)
         out = np.empty(f.shape + (3,), dtype=np.float64)
         for k in range(3):
             s = self.row_sums[k]
-            res = self.coeffs[k] @ f64
+            res = self.coeffs[k] @ fx
             out[..., k] = res - (s[:, None] * f64 if f.ndim == 2 else s * f64)
         return out
 
@@ -521,6 +323,8 @@ def lsq_gradient_operator(
     quality_limit: float = 1e-6,
     dtype: type = np.float64,
     chunk: int = 262_144,
+    boundary_points: np.ndarray | None = None,
+    boundary_owner: np.ndarray | None = None,
 ) -> GradientOperator:
     """Assemble the weighted least-squares gradient operator (see module
     docstring for the formula, exactness for linear fields and citations).
@@ -538,6 +342,13 @@ def lsq_gradient_operator(
         exactness to round-off; float32 halves the memory for very large
         meshes whose data are single precision anyway).
     chunk : number of stencil entries processed at a time (bounds memory).
+    boundary_points, boundary_owner : (B, 3) boundary-face centres (m) and
+        the cell owning each face (−1: not used). Each owning cell gets its
+        boundary faces as extra stencil points (d_ib = x_b − x_i), so that
+        wall-adjacent cells see the boundary values (no-slip wall velocity,
+        inflow value) instead of extrapolating one-sidedly (Blazek 2015,
+        §5.3.4). The operator then needs the B face values with every field
+        (``boundary`` argument of :meth:`GradientOperator.gradient`).
 
     Assembly: the stencil entries are processed a block of rows at a time:
     moments M_i by bincount over the entries, all 3×3 inverses at once in
@@ -557,14 +368,45 @@ def lsq_gradient_operator(
     a_ind = np.asarray(adjacency.indices, dtype=np.int32)
     indptr, indices = a_ptr, a_ind  # the operator's pattern: face neighbours, then widened rows
     deg_limit = quality_limit * 1e-3
-    Xc = tuple(np.ascontiguousarray(X[:, k]) for k in range(3))
-    # 1. cells with too few face neighbours: wider pattern first (few rows)
+    bidx, bo, bptr, bcol = None, np.zeros(0, np.int32), None, None
+    Xb = np.zeros((0, 3))
+    if boundary_points is not None:
+        bo_all = np.asarray(boundary_owner, dtype=np.int64)
+        bidx = np.flatnonzero((bo_all >= 0) & (bo_all < n))
+        bo = bo_all[bidx].astype(np.int32)
+        Xb = np.asarray(boundary_points, dtype=np.float64)[bidx]
+        # boundary points of each cell as a CSR (cell → column n + b)
+        order = np.argsort(bo, kind="stable")
+        bptr = np.concatenate([[0], np.cumsum(np.bincount(bo, minlength=n))]).astype(np.int64)
+        bcol = (n + order).astype(np.int32)
+    nb = Xb.shape[0]
+    Xc = tuple(np.ascontiguousarray(np.concatenate([X[:, k], Xb[:, k]])) for k in range(3))
+    bdeg = np.diff(bptr) if bptr is not None else np.zeros(n, dtype=np.int64)
+
+    def with_boundary(cells, wdeg, wind):
+        """Append the cells' own boundary points to their (widened) rows."""
+        if nb == 0:
+            return wdeg, wind
+        k = bdeg[cells]
+        pos = np.repeat(bptr[cells] - (np.cumsum(k) - k), k) + np.arange(int(k.sum()))
+        rows = np.concatenate([np.repeat(np.arange(cells.size), wdeg), np.repeat(np.arange(cells.size), k)])
+        cols = np.concatenate([wind, bcol[pos]])
+        o = np.lexsort((cols, rows))
+        return wdeg + k, cols[o].astype(np.int32)
+
+    # 1. cells with too few stencil points: wider pattern first (few rows)
     widened = np.zeros(n, dtype=bool)
-    few = np.flatnonzero(np.diff(indptr) < min_neighbours)
+    few = np.flatnonzero(np.diff(indptr) + bdeg < min_neighbours)
     if few.size and max_layers > 1:
         cells, wdeg, wind = _widen(a_ptr, a_ind, Xc, few, min_neighbours, max_layers, quality_limit, deg_limit)
         indptr, (indices,) = _splice_rows(indptr, [indices], cells, wdeg, [wind])
         widened[cells] = True
+    if nb:
+        # every row with its own boundary points (columns n + b, after the cells)
+        allc = np.arange(n)
+        deg2, ind2 = with_boundary(allc, np.diff(indptr), indices)
+        indptr, indices = np.concatenate([[0], np.cumsum(deg2)]), ind2
+        del allc, deg2, ind2
     # 2. all rows, a block at a time, straight into the CSR data arrays
     nnz = int(indptr[-1])
     data = [np.empty(nnz, dtype=dtype) for _ in range(3)]
@@ -584,6 +426,7 @@ def lsq_gradient_operator(
     ill = np.flatnonzero(ill & ~widened)
     if ill.size and max_layers > 1:
         cells, wdeg, wind = _widen(a_ptr, a_ind, Xc, ill, min_neighbours, max_layers, quality_limit, deg_limit)
+        wdeg, wind = with_boundary(cells, wdeg, wind)
         wp = np.concatenate([[0], np.cumsum(wdeg)])
         c, rs, _, dg = _lsq_rows(Xc, wp, wind, cells, dtype, deg_limit)
         indptr, arrays = _splice_rows(indptr, [indices] + data, cells, wdeg, [wind] + c)
@@ -596,9 +439,11 @@ def lsq_gradient_operator(
     ip = indptr.astype(np.int32) if indptr[-1] < 2**31 - 1 else indptr
     ind = indices if ip.dtype == np.int32 else indices.astype(np.int64)
     del indptr, a_ptr
-    coeffs = tuple(sp.csr_matrix((data[k], ind, ip), shape=(n, n), copy=False) for k in range(3))
+    coeffs = tuple(sp.csr_matrix((data[k], ind, ip), shape=(n, n + nb), copy=False) for k in range(3))
     del data
-    return GradientOperator(coeffs=coeffs, row_sums=row_sums, n_extended=n_ext, n_degenerate=int(degenerate.sum()))
+    return GradientOperator(coeffs=coeffs, row_sums=row_sums, n_extended=n_ext, n_degenerate=int(degenerate.sum()),
+                            boundary_index=bidx,
+                            n_boundary_given=0 if boundary_points is None else int(len(boundary_points)))
 
 
 # ---------------------------------------------------------------------------
@@ -691,19 +536,21 @@ def normalised_q(q: np.ndarray, speed: float, length: float) -> np.ndarray:
 
 def velocity_gradient_fields(op: GradientOperator, velocity: np.ndarray, *, speed: float | None = None,
                              length: float | None = None, with_lambda2: bool = True,
-                             chunk: int = 262_144) -> VelocityGradientFields:
+                             chunk: int = 262_144, boundary: np.ndarray | None = None) -> VelocityGradientFields:
     """Vorticity, Q, λ2 and Q* of a cell velocity field (N, 3) in m/s.
 
     The velocity gradient is computed with ``op`` (1/s), a chunk of cells at a
     time for the derived quantities. ``speed`` (m/s) and ``length`` (m) give
-    Q* = Q/(V/L)². The input is not modified.
+    Q* = Q/(V/L)². ``boundary`` (B, 3): the velocity at the operator's
+    boundary points (m/s), needed when it was assembled with them. The
+    inputs are not modified.
     """
     U = np.asarray(velocity)
     if U.ndim != 2 or U.shape[1] != 3:
         raise ValueError(f"expected a velocity array of shape (N, 3), got {U.shape}")
     if U.shape[0] != op.n_cells:
         raise ValueError(f"expected a velocity with {op.n_cells} cell values, got {U.shape[0]}")
-    U64 = U.astype(np.float64, copy=False)
+    U64 = op.extend(U.astype(np.float64, copy=False), boundary)
     n = U.shape[0]
     w = np.empty((n, 3))
     q = np.empty(n)

@@ -78,9 +78,17 @@ def test_q_from_cell_data_agrees_with_the_solvers_q(solved):
     sign, ratio = stats(interior, 25)
     assert sign >= 0.95
     assert 0.9 <= ratio <= 1.1
-    # All cells, top 10 %: boundary cells differ by design (the solver's
-    # gradient uses the boundary-face values, ours one-sided cell values),
-    # measured 97 % / 0.955 here, 85 % / 0.999 on the demo floor case.
+    # Wall-adjacent cells: both gradients use the boundary-face values (the
+    # solver's Gauss sum over the faces, our stencil with the patches' face
+    # values as extra points), so the magnitudes agree (measured median
+    # ratio 0.999 on the quarter with the largest |Q|; 0.64 without the face
+    # values); the sign of Q in these shear-dominated cells is a small
+    # difference of large terms: measured 85 % agreement.
+    boundary = ~interior
+    sign, ratio = stats(boundary, 25)
+    assert sign >= 0.75
+    assert 0.85 <= ratio <= 1.15
+    # all cells, top 10 %: measured 96 % / 0.990 (demo floor case: 94 % / 1.04)
     sign, ratio = stats(np.ones_like(interior), 10)
-    assert sign >= 0.8
-    assert 0.8 <= ratio <= 1.2
+    assert sign >= 0.9
+    assert 0.9 <= ratio <= 1.1

@@ -34,6 +34,7 @@ warnings.filterwarnings("ignore")
 from flow_meshes import box_grid, lamb_oseen  # noqa: E402
 
 from postproc import flowio  # noqa: E402
+from postproc import flowreport  # noqa: E402
 from postproc import gradients as G  # noqa: E402
 from postproc import vortices as vx  # noqa: E402
 
@@ -126,12 +127,20 @@ def main(argv=None):
     t_apply = time.perf_counter() - t
     print(f"ours: one more gradient with the operator built: {t_apply:.2f} s")
     inner = nb == 0
+    if a.path:
+        # what `postproc vortices/flow` does: the patches' face velocities join the wall cells' stencils
+        t = time.perf_counter()
+        gd = flowreport.gradient_data(case)
+        print(f"ours with the patches' boundary values (the command's path, incl. point lookup): "
+              f"{time.perf_counter() - t:.2f} s, {gd.operator.n_boundary} boundary points")
     if a.path and "Q" in grid.cell_data:
         # the solver's own Q function object (Gauss-linear gradient), when it was run and exported
         qs = np.asarray(grid.cell_data["Q"], dtype=float)
-        for label, m, top in (("interior cells, top 25 % |Q|", inner, 25), ("all cells, top 10 % |Q|", np.ones_like(inner), 10)):
-            s, r = q_agreement(f.q, qs, m, top)
-            print(f"ours vs the solver's Q, {label}: sign agreement {100 * s:.1f} %, median |Q| ratio {r:.3f}")
+        for name, qq in (("ours (cells only)", f.q), ("ours with boundary values", gd.fields.q)):
+            for label, m, top in (("interior cells, top 25 % |Q|", inner, 25), ("wall cells, top 25 % |Q|", ~inner, 25),
+                                  ("all cells, top 10 % |Q|", np.ones_like(inner), 10)):
+                s, r = q_agreement(qq, qs, m, top)
+                print(f"{name} vs the solver's Q, {label}: sign agreement {100 * s:.1f} %, median |Q| ratio {r:.3f}")
     if not a.path:
         qa = analytic_q(X[inner])
         scale = (GAM / (2 * np.pi * RC**2)) ** 2

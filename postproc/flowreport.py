@@ -108,6 +108,7 @@ class GradientData:
     velocity: np.ndarray
     fields: grad.VelocityGradientFields
     volumes: np.ndarray | None = None
+    n_boundary: np.ndarray | None = None
 
 
 def gradient_data(case: flowio.FlowCase, velocity: str = "U", *, with_lambda2: bool = True,
@@ -131,14 +132,14 @@ def gradient_data(case: flowio.FlowCase, velocity: str = "U", *, with_lambda2: b
     if Ub is not None and Ub.ndim == 2 and Ub.shape[1] == 3 and np.isfinite(Ub).all():
         # the patches' face velocities (wall, inflow, outflow values) join
         # the stencils of the cells that own those faces
-        A, _, owners = grad.cell_adjacency(topo, boundary_polygons=(bf.offsets, bf.point_ids))
+        A, nbf, owners = grad.cell_adjacency(topo, boundary_polygons=(bf.offsets, bf.point_ids))
         op = grad.lsq_gradient_operator(X, A, dtype=dtype, boundary_points=bf.centres, boundary_owner=owners)
     else:
-        A, _ = grad.cell_adjacency(topo)
+        A, nbf = grad.cell_adjacency(topo)
         op = grad.lsq_gradient_operator(X, A, dtype=dtype)
         Ub = None
     f = grad.velocity_gradient_fields(op, U, speed=speed, length=length, with_lambda2=with_lambda2, boundary=Ub)
-    return GradientData(adjacency=A, centres=X, operator=op, velocity=U, fields=f, volumes=vol)
+    return GradientData(adjacency=A, centres=X, operator=op, velocity=U, fields=f, volumes=vol, n_boundary=nbf)
 
 
 def _check_stations(case: flowio.FlowCase, xs, what: str) -> np.ndarray:
@@ -163,13 +164,17 @@ def body_extent(case: flowio.FlowCase, refs: Refs) -> tuple[float, float] | None
 
 def analyse_vortices(case: flowio.FlowCase, *, stations=None, q_star: float = 100.0, speed: float | None = None,
                      length: float | None = None, max_jump: float | None = None, regions: bool = True,
-                     velocity: str = "U", gd: GradientData | None = None) -> vx.VortexResult:
+                     velocity: str = "U", gd: GradientData | None = None,
+                     wall_rotation_min: float | None = 1.5) -> vx.VortexResult:
     """Vortex cores per station, tracks and 3D Q-regions of a case.
 
     ``stations``: x positions (m, body frame) or None for every 5 % of the
     reference length from the nose to half a length behind the tail.
     ``q_star``: threshold on Q* = Q/(V/L)². ``max_jump``: track linking limit
-    (m), default 2 station spacings.
+    (m), default 2 station spacings. ``wall_rotation_min``: cells on the
+    boundary where ‖Ω‖ < this × ‖S‖ (boundary-layer shear, not a vortex:
+    :func:`postproc.vortices.wall_shear_cells`) do not count as core cells;
+    None keeps every cell.
     """
     refs = references(case, speed=speed, length=length)
     if not (refs.speed and refs.length):
@@ -189,7 +194,15 @@ def analyse_vortices(case: flowio.FlowCase, *, stations=None, q_star: float = 10
     else:
         xs = _check_stations(case, stations, "--stations")
     xs = np.sort(xs)
-    arrays = {"Q": gd.fields.q, "vorticity": gd.fields.vorticity, "U": gd.velocity}
+    q = gd.fields.q
+    n_excl = 0
+    if wall_rotation_min is not None and gd.n_boundary is not None:
+        shear = vx.wall_shear_cells(q, gd.fields.vorticity, gd.n_boundary > 0, wall_rotation_min)
+        n_excl = int(np.count_nonzero(shear & (q > q_star * q_scale)))
+        if shear.any():
+            q = q.copy()
+            q[shear] = -np.abs(q[shear])
+    arrays = {"Q": q, "vorticity": gd.fields.vorticity, "U": gd.velocity}
     secs = flowio.slice_stations(case.grid, xs, arrays)
     thr = q_star * q_scale
     cores = [vx.find_cores(s, thr, free_stream=refs.free_stream, q_scale=q_scale) for s in secs]
@@ -198,11 +211,12 @@ def analyse_vortices(case: flowio.FlowCase, *, stations=None, q_star: float = 10
     tracks = vx.link_tracks(cores, max_jump)
     regs = []
     if regions:
-        ids = np.flatnonzero(gd.fields.q > thr)
+        ids = np.flatnonzero(q > thr)
         if ids.size:
             vol = gd.volumes[ids] if gd.volumes is not None else flowio.cell_volumes(case.grid, ids)
-            regs = vx.q_regions(gd.adjacency, gd.fields.q, thr, gd.centres, vol, gd.fields.vorticity)
-    return vx.VortexResult(stations=xs, cores=cores, tracks=tracks, regions=regs, q_threshold=thr, q_scale=q_scale)
+            regs = vx.q_regions(gd.adjacency, q, thr, gd.centres, vol, gd.fields.vorticity)
+    return vx.VortexResult(stations=xs, cores=cores, tracks=tracks, regions=regs, q_threshold=thr, q_scale=q_scale,
+                           wall_cells_excluded=n_excl, wall_rotation_min=wall_rotation_min)
 
 
 def _station_section(case, refs, x, y_range, pressure, velocity, use_floor: bool):

@@ -12,14 +12,9 @@ the field's unit; the velocity-gradient tensor is ``J[i, m, k] = ∂u_m/∂x_k``
 
 Method
 ------
-1. **Face adjacency.** Every cell's faces (from the standard VTK cell face
-   tables, or the polyhedron face lists) are keyed by two order-independent
-   64-bit hashes of their vertex ids (sums of two different integer mixers
-   over the face's vertices, modulo 2⁶⁴). Sorting the keys puts the two copies
-   of each interior face side by side; a pair matches only when both hashes
-   agree (a false match needs two simultaneous 64-bit collisions). This works
-   for any mix of tetrahedra, pyramids, wedges, hexahedra and polyhedra, and
-   needs neither the face table nor a point→cell map in memory.
+1. **Face adjacency** by vertex-set keys (:mod:`postproc.meshtopo`, whose
+   names are re-exported here): any mix of tetrahedra, pyramids, wedges,
+   hexahedra and polyhedra.
 2. **Weighted least squares** (e.g. Blazek, *Computational Fluid Dynamics:
    Principles and Applications*, 3rd ed. 2015, §5.3.4; Mavriplis 2003, AIAA
    2003-3986). For cell i with stencil neighbours j, d_ij = x_j − x_i and
@@ -37,9 +32,11 @@ Method
    returns g exactly whenever M_i is invertible (three non-coplanar
    neighbour directions). Hence solid-body rotation, pure shear and pure
    strain give their exact Q on any mesh, up to floating-point round-off.
-3. **Boundary cells.** A cell with fewer than ``min_neighbours`` face
-   neighbours, or whose M_i is nearly singular, gets its stencil widened by
-   the next face-neighbour layer (neighbours of neighbours), up to
+3. **Boundary cells.** Boundary-face centres with their face values may
+   join the stencils of the cells that own them (then every field needs its
+   boundary values too). A cell with fewer than ``min_neighbours`` stencil
+   points, or whose M_i is nearly singular, gets its stencil widened by the
+   next face-neighbour layer (neighbours of neighbours), up to
    ``max_layers`` layers. Cells still singular after that (isolated cells)
    get a zero gradient and are counted in ``n_degenerate``.
 """

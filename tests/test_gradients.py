@@ -265,8 +265,10 @@ def test_boundary_face_values_join_the_stencil_and_keep_linear_exactness(kind):
     assert op.n_boundary == 2 * 6 * 5  # every bottom and top face found its cell
     U = case.cell_array("U")
     Ub = np.concatenate([case.patches[n].cell_data["U"] for n in ("bottom", "top")])
+    U0, Ub0 = U.copy(), Ub.copy()
     J = op.gradient(U, boundary=Ub)
     np.testing.assert_allclose(J, np.broadcast_to(Jt, J.shape), atol=1e-9 * np.abs(Jt).max())
+    assert np.array_equal(U, U0) and np.array_equal(Ub, Ub0)  # inputs untouched
     with pytest.raises(ValueError, match="boundary points"):
         op.gradient(U)
 

@@ -187,10 +187,19 @@ def underfloor_mask(centroids: np.ndarray, ground_point: np.ndarray, ground_norm
 
 
 def underside_profile(points: np.ndarray, ground_point: np.ndarray, ground_normal: np.ndarray, *,
-                      y_band: tuple[float, float] | None = None, n_bins: int = 100) -> tuple[np.ndarray, np.ndarray]:
-    """Lowest height above ground (m) of body-surface points per x bin
-    (body frame): the floor's side profile. Returns (x bin centres, heights);
-    empty bins are NaN."""
+                      y_band: tuple[float, float] | None = None, n_bins: int = 100,
+                      n_span_bins: int = 16) -> tuple[np.ndarray, np.ndarray]:
+    """The floor's side profile: height (m) of the underside above the plane
+    through ``ground_point`` with unit normal ``ground_normal`` per x bin
+    (body frame, x rearward). Returns (x bin centres, heights); empty bins
+    are NaN.
+
+    The points are binned in x and in y (``n_span_bins`` spanwise bins); the
+    lowest point of each (x, y) bin is the underside there, and the profile
+    is the median over the spanwise bins. Thin appendages reaching lower
+    than the floor (strakes, fences, a plank) cover few spanwise bins and
+    leave the profile alone. Common practice, no source.
+    """
     p = np.asarray(points, dtype=np.float64)
     if y_band is not None:
         p = p[(p[:, 1] >= y_band[0]) & (p[:, 1] <= y_band[1])]
@@ -199,25 +208,43 @@ def underside_profile(points: np.ndarray, ground_point: np.ndarray, ground_norma
     h = (p - np.asarray(ground_point, float)) @ np.asarray(ground_normal, float)
     edges = np.linspace(p[:, 0].min(), p[:, 0].max(), n_bins + 1)
     b = np.clip(np.searchsorted(edges, p[:, 0], side="right") - 1, 0, n_bins - 1)
-    hmin = np.full(n_bins, np.inf)
-    np.minimum.at(hmin, b, h)
+    yedges = np.linspace(p[:, 1].min(), p[:, 1].max(), n_span_bins + 1)
+    by = np.clip(np.searchsorted(yedges, p[:, 1], side="right") - 1, 0, n_span_bins - 1)
+    hmin = np.full((n_bins, n_span_bins), np.inf)
+    np.minimum.at(hmin, (b, by), h)
     hmin[~np.isfinite(hmin)] = np.nan
-    return 0.5 * (edges[1:] + edges[:-1]), hmin
+    with np.errstate(all="ignore"):
+        import warnings
+
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", RuntimeWarning)  # all-NaN x bins stay NaN
+            prof = np.nanmedian(hmin, axis=1)
+    return 0.5 * (edges[1:] + edges[:-1]), prof
 
 
 def find_diffuser(x: np.ndarray, h: np.ndarray, *, search_from: float = 0.25, tol: float = 0.01,
-                  min_rise: float = 0.1) -> tuple[float, float]:
-    """Throat and exit stations (m) from the floor's side profile h(x) (m
-    above ground, x rearward; NaN bins ignored).
+                  min_rise: float = 0.1, clearance: np.ndarray | None = None) -> tuple[float, float]:
+    """Throat and exit stations (m) from the floor's side profile h(x) (m,
+    x rearward; NaN bins ignored).
+
+    ``h`` is best the underside height in the body frame (z up, the flat
+    floor level): then a raked floor, whose clearance above the ground grows
+    steadily towards the tail, does not move the throat to the front of the
+    floor. ``clearance`` (optional, same bins): the height above the ground,
+    the reference for ``min_rise``; without it ``h`` is taken as the
+    clearance.
 
     The throat is the rearmost point of minimum height (within ``tol`` × the
     height range) behind the first ``search_from`` fraction of the profile
     (skipping a low splitter or plank at the nose); the exit is the last
     profile point (the floor's trailing edge). The rise from throat to exit
-    must be at least ``min_rise`` × the throat height, else
+    must be at least ``min_rise`` × the throat clearance, else
     :class:`UserError` (no diffuser). Common practice, no source.
     """
     ok = np.isfinite(h)
+    if clearance is not None:
+        ok &= np.isfinite(clearance)
+        clearance = np.asarray(clearance)[ok]
     x, h = np.asarray(x)[ok], np.asarray(h)[ok]
     if x.size < 3:
         raise UserError(expected="a body surface with an underside profile", got=f"{x.size} profile points",
@@ -225,10 +252,11 @@ def find_diffuser(x: np.ndarray, h: np.ndarray, *, search_from: float = 0.25, to
     start = x[0] + search_from * (x[-1] - x[0])
     rear = x >= start
     xr, hr = x[rear], h[rear]
+    cr = clearance[rear] if clearance is not None else hr
     span = float(hr.max() - hr.min())
     i = int(np.flatnonzero(hr <= hr.min() + tol * span)[-1])
     throat, exit_ = float(xr[i]), float(xr[-1])
-    if i >= xr.size - 1 or hr[-1] - hr[i] < min_rise * max(hr[i], 1e-9):
+    if i >= xr.size - 1 or hr[-1] - hr[i] < min_rise * max(cr[i], 1e-9):
         raise UserError(expected="an underside that rises towards the tail (a diffuser)",
                         got=f"heights {hr[i]:.4g} m at x = {throat:.4g} m to {hr[-1]:.4g} m at x = {exit_:.4g} m",
                         key="--throat/--exit", fix="give the throat and exit stations explicitly")

@@ -235,34 +235,111 @@ def topology(grid) -> CellTopology:
     return CellTopology(celltypes=ct, offsets=off, connectivity=conn, n_points=int(grid.n_points), **kw)
 
 
-def cell_centres(grid) -> np.ndarray:
-    """Cell centres (N, 3), m: the mean of each cell's distinct vertices.
+@dataclass
+class BoundaryFaces:
+    """The boundary patches' polygons in the internal mesh's point numbering.
 
-    For hexahedra, prisms and the solver's polyhedra this is within a small
-    fraction of a cell of the volume centroid where the solver stores its
-    cell values; gradients taken with these centres are exact for fields
+    ``offsets`` (F+1,), ``point_ids`` (volume-mesh point ids; −1 for a vertex
+    with no volume-mesh point at the same place), ``centres`` (F, 3) face
+    centres (m, mesh frame) and ``patches`` (patch name → slice of the faces).
+    """
+
+    offsets: np.ndarray
+    point_ids: np.ndarray
+    centres: np.ndarray
+    patches: dict[str, slice]
+
+    def values(self, case: "FlowCase", name: str) -> np.ndarray | None:
+        """Face values of the array ``name`` on all patches, in face order;
+        None when a patch does not carry it."""
+        parts = []
+        for pname, sl in self.patches.items():
+            v = case.patches[pname].cell_values(name)
+            if v is None or v.shape[0] != sl.stop - sl.start:
+                return None
+            parts.append(np.asarray(v, dtype=np.float64))
+        return np.concatenate(parts) if parts else None
+
+
+def boundary_faces(case: "FlowCase", *, rel_tol: float = 1e-7) -> BoundaryFaces | None:
+    """The patch polygons of ``case`` with their vertices looked up among
+    the internal mesh's points (nearest point within ``rel_tol`` × the mesh
+    diagonal; the converter writes both from the same coordinates), or None
+    without patches."""
+    if not case.patches or case.grid is None:
+        return None
+    from scipy.spatial import cKDTree
+
+    pts = np.asarray(case.grid.points, dtype=np.float64)
+    b = np.asarray(case.grid.bounds, dtype=float)
+    tol = rel_tol * float(np.linalg.norm(b[1::2] - b[0::2]))
+    tree = cKDTree(pts)
+    offs, ids, cens, slices = [np.zeros(1, dtype=np.int64)], [], [], {}
+    nf = 0
+    base = 0
+    for name, s in case.patches.items():
+        d, j = tree.query(np.asarray(s.points, dtype=np.float64), distance_upper_bound=tol)
+        j = np.where(np.isfinite(d), j, -1).astype(np.int64)
+        ids.append(j[np.asarray(s.connectivity, dtype=np.int64)])
+        offs.append(np.asarray(s.offsets[1:], dtype=np.int64) + base)
+        base += int(s.offsets[-1])
+        cens.append(s.centroids)
+        slices[name] = slice(nf, nf + s.n_cells)
+        nf += s.n_cells
+    return BoundaryFaces(offsets=np.concatenate(offs), point_ids=np.concatenate(ids),
+                         centres=np.concatenate(cens), patches=slices)
+
+
+def cell_centres(grid, *, kind: str = "centroid", chunk: int = 262_144) -> np.ndarray:
+    """Cell centres (N, 3), m (mesh frame).
+
+    ``kind="centroid"`` (default): volume centroids
+    (:func:`postproc.cellgeom.cell_centroids`), the points where the solver
+    stores its cell values. ``kind="vertex-mean"``: the mean of each cell's
+    vertices (cheaper; off by up to ~0.2 of a cell on the polyhedra at
+    refinement interfaces). Gradients taken with either are exact for fields
     that are linear in them.
     """
+    if kind == "centroid":
+        return cell_geometry(grid)[0]
+    if kind != "vertex-mean":
+        raise ValueError(f"expected kind 'centroid' or 'vertex-mean', got {kind!r}")
     pts = np.asarray(grid.points, dtype=np.float64)
     off = np.asarray(grid.offset if not hasattr(grid, "cell_offsets") else grid.cell_offsets).astype(np.int64)
     conn = np.asarray(grid.cell_connectivity)
     counts = np.diff(off)
-    out = np.empty((counts.size, 3))
-    nz = counts > 0
-    for k in range(3):
-        s = np.add.reduceat(pts[conn, k], off[:-1][nz]) if conn.size else np.zeros(0)
-        out[nz, k] = s / counts[nz]
-    out[~nz] = np.nan
+    n = counts.size
+    out = np.full((n, 3), np.nan)
+    # a block of cells at a time: the gathered vertex coordinates stay small
+    for c0 in range(0, n, chunk):
+        c1 = min(n, c0 + chunk)
+        cnt = counts[c0:c1]
+        nz = np.flatnonzero(cnt > 0)
+        if nz.size == 0:
+            continue
+        ids = conn[off[c0]:off[c1]]
+        starts = off[c0:c1][nz] - off[c0]
+        for k in range(3):
+            out[c0 + nz, k] = np.add.reduceat(pts[ids, k], starts) / cnt[nz]
     return out
 
 
+def cell_geometry(grid) -> tuple[np.ndarray, np.ndarray]:
+    """Volume centroids (N, 3), m, and volumes (N,), m³, of all cells of the
+    internal mesh (:func:`postproc.cellgeom.cell_centroids`; mesh frame)."""
+    from .cellgeom import cell_centroids
+
+    return cell_centroids(np.asarray(grid.points), topology(grid))
+
+
 def cell_volumes(grid, ids: np.ndarray | None = None) -> np.ndarray:
-    """Cell volumes (m³) of all cells or of the cells ``ids`` (VTK's cell-size filter)."""
+    """Cell volumes (m³) of all cells or of the cells ``ids``, by pyramid
+    decomposition (:func:`postproc.cellgeom.cell_centroids`; VTK's own
+    cell-size filter misjudges non-convex polyhedra)."""
     g = grid if ids is None else grid.extract_cells(np.asarray(ids))
     if g.n_cells == 0:
         return np.zeros(0)
-    sized = g.compute_cell_sizes(length=False, area=False, volume=True, vertex_count=False)
-    return np.abs(np.asarray(sized.cell_data["Volume"], dtype=np.float64))
+    return cell_geometry(g)[1]
 
 
 def vtk_cell_gradient(grid, name: str, *, q_criterion: bool = True) -> tuple[np.ndarray, np.ndarray | None]:

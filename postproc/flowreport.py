@@ -107,24 +107,39 @@ class GradientData:
     operator: grad.GradientOperator
     velocity: np.ndarray
     fields: grad.VelocityGradientFields
+    volumes: np.ndarray | None = None
+    n_boundary: np.ndarray | None = None
 
 
 def gradient_data(case: flowio.FlowCase, velocity: str = "U", *, with_lambda2: bool = True,
-                  speed: float | None = None, length: float | None = None) -> GradientData:
-    """Velocity-gradient quantities of the case from its cell data."""
+                  speed: float | None = None, length: float | None = None,
+                  use_boundary: bool = True) -> GradientData:
+    """Velocity-gradient quantities of the case from its cell data; with
+    ``use_boundary`` the patches' face velocities are used in the stencils
+    of the wall-adjacent cells (when every patch carries the velocity)."""
     U = case.cell_array(velocity)
     if U.ndim != 2 or U.shape[1] != 3:
         raise UserError(expected=f"a 3-component velocity array {velocity!r}", got=f"shape {U.shape}",
                         file=str(case.source), key=velocity, fix="name the velocity array with --velocity")
     _finite(case, velocity, U)
     topo = flowio.topology(case.grid)
-    A, _ = grad.cell_adjacency(topo)
-    X = flowio.cell_centres(case.grid)
+    X, vol = flowio.cell_geometry(case.grid)
     # single-precision data (the solver's VTK arrays are Float32): single-
     # precision coefficients halve the operator's memory at no loss
-    op = grad.lsq_gradient_operator(X, A, dtype=np.float32 if U.dtype == np.float32 else np.float64)
-    f = grad.velocity_gradient_fields(op, U, speed=speed, length=length, with_lambda2=with_lambda2)
-    return GradientData(adjacency=A, centres=X, operator=op, velocity=U, fields=f)
+    dtype = np.float32 if U.dtype == np.float32 else np.float64
+    bf = flowio.boundary_faces(case) if use_boundary else None
+    Ub = bf.values(case, velocity) if bf is not None else None
+    if Ub is not None and Ub.ndim == 2 and Ub.shape[1] == 3 and np.isfinite(Ub).all():
+        # the patches' face velocities (wall, inflow, outflow values) join
+        # the stencils of the cells that own those faces
+        A, nbf, owners = grad.cell_adjacency(topo, boundary_polygons=(bf.offsets, bf.point_ids))
+        op = grad.lsq_gradient_operator(X, A, dtype=dtype, boundary_points=bf.centres, boundary_owner=owners)
+    else:
+        A, nbf = grad.cell_adjacency(topo)
+        op = grad.lsq_gradient_operator(X, A, dtype=dtype)
+        Ub = None
+    f = grad.velocity_gradient_fields(op, U, speed=speed, length=length, with_lambda2=with_lambda2, boundary=Ub)
+    return GradientData(adjacency=A, centres=X, operator=op, velocity=U, fields=f, volumes=vol, n_boundary=nbf)
 
 
 def _check_stations(case: flowio.FlowCase, xs, what: str) -> np.ndarray:
@@ -149,13 +164,17 @@ def body_extent(case: flowio.FlowCase, refs: Refs) -> tuple[float, float] | None
 
 def analyse_vortices(case: flowio.FlowCase, *, stations=None, q_star: float = 100.0, speed: float | None = None,
                      length: float | None = None, max_jump: float | None = None, regions: bool = True,
-                     velocity: str = "U", gd: GradientData | None = None) -> vx.VortexResult:
+                     velocity: str = "U", gd: GradientData | None = None,
+                     wall_rotation_min: float | None = 1.5) -> vx.VortexResult:
     """Vortex cores per station, tracks and 3D Q-regions of a case.
 
     ``stations``: x positions (m, body frame) or None for every 5 % of the
     reference length from the nose to half a length behind the tail.
     ``q_star``: threshold on Q* = Q/(V/L)². ``max_jump``: track linking limit
-    (m), default 2 station spacings.
+    (m), default 2 station spacings. ``wall_rotation_min``: cells on the
+    boundary where ‖Ω‖ < this × ‖S‖ (boundary-layer shear, not a vortex:
+    :func:`postproc.vortices.wall_shear_cells`) do not count as core cells;
+    None keeps every cell.
     """
     refs = references(case, speed=speed, length=length)
     if not (refs.speed and refs.length):
@@ -175,7 +194,15 @@ def analyse_vortices(case: flowio.FlowCase, *, stations=None, q_star: float = 10
     else:
         xs = _check_stations(case, stations, "--stations")
     xs = np.sort(xs)
-    arrays = {"Q": gd.fields.q, "vorticity": gd.fields.vorticity, "U": gd.velocity}
+    q = gd.fields.q
+    n_excl = 0
+    if wall_rotation_min is not None and gd.n_boundary is not None:
+        shear = vx.wall_shear_cells(q, gd.fields.vorticity, gd.n_boundary > 0, wall_rotation_min)
+        n_excl = int(np.count_nonzero(shear & (q > q_star * q_scale)))
+        if shear.any():
+            q = q.copy()
+            q[shear] = -np.abs(q[shear])
+    arrays = {"Q": q, "vorticity": gd.fields.vorticity, "U": gd.velocity}
     secs = flowio.slice_stations(case.grid, xs, arrays)
     thr = q_star * q_scale
     cores = [vx.find_cores(s, thr, free_stream=refs.free_stream, q_scale=q_scale) for s in secs]
@@ -184,11 +211,12 @@ def analyse_vortices(case: flowio.FlowCase, *, stations=None, q_star: float = 10
     tracks = vx.link_tracks(cores, max_jump)
     regs = []
     if regions:
-        ids = np.flatnonzero(gd.fields.q > thr)
+        ids = np.flatnonzero(q > thr)
         if ids.size:
-            vol = flowio.cell_volumes(case.grid, ids)
-            regs = vx.q_regions(gd.adjacency, gd.fields.q, thr, gd.centres, vol, gd.fields.vorticity)
-    return vx.VortexResult(stations=xs, cores=cores, tracks=tracks, regions=regs, q_threshold=thr, q_scale=q_scale)
+            vol = gd.volumes[ids] if gd.volumes is not None else flowio.cell_volumes(case.grid, ids)
+            regs = vx.q_regions(gd.adjacency, q, thr, gd.centres, vol, gd.fields.vorticity)
+    return vx.VortexResult(stations=xs, cores=cores, tracks=tracks, regions=regs, q_threshold=thr, q_scale=q_scale,
+                           wall_cells_excluded=n_excl, wall_rotation_min=wall_rotation_min)
 
 
 def _station_section(case, refs, x, y_range, pressure, velocity, use_floor: bool):
@@ -231,8 +259,12 @@ def analyse_diffuser(case: flowio.FlowCase, *, throat: float | None = None, exit
             raise UserError(expected="body surface patches to find the diffuser", got="none",
                             file=str(case.source), key="--throat/--exit", fix="give --throat and --exit (m, body x)")
         band = y_range
-        x, h = dif.underside_profile(np.concatenate(pts), refs.ground_point, refs.ground_normal, y_band=band)
-        t, e = dif.find_diffuser(x, h)
+        allp = np.concatenate(pts)
+        # the profile in the body frame (flat floor level, rake removed) finds
+        # the ramp; the clearance above the ground is the rise reference
+        x, z = dif.underside_profile(allp, np.zeros(3), np.array([0.0, 0.0, 1.0]), y_band=band)
+        _, h = dif.underside_profile(allp, refs.ground_point, refs.ground_normal, y_band=band)
+        t, e = dif.find_diffuser(x, z, clearance=h)
         throat = t if throat is None else throat
         exit = e if exit is None else exit
     _check_stations(case, [throat, exit], "--throat/--exit")
@@ -303,9 +335,14 @@ def analyse_walls(case: flowio.FlowCase, *, target: tuple[float, float] = (30.0,
     X = centres if centres is not None else flowio.cell_centres(case.grid)
     tree = None
     patches = {}
+    notes = list(refs.notes)
     for name, s in case.patches.items():
         yp = s.cell_values("yPlus")
         src = "yPlus"
+        if yp is not None and not np.any(np.asarray(yp)):
+            # the solver writes y+ on every patch, zero on those that are not walls
+            notes.append(f"patch {name!r}: y+ identically zero (not a wall), left out")
+            continue
         if yp is None:
             tau = s.cell_values("wallShearStress")
             if tau is None:
@@ -354,4 +391,4 @@ def analyse_walls(case: flowio.FlowCase, *, target: tuple[float, float] = (30.0,
             lower = -50.0 * 0.5 * refs.speed**2
             upper = 5.0 * 0.5 * refs.speed**2
         flags.append(wc.field_flags(name, arr, X, lower=lower, upper=upper).to_dict())
-    return {"yplus": patches, "shear_reversals": reversals, "field_flags": flags, "notes": list(refs.notes)}
+    return {"yplus": patches, "shear_reversals": reversals, "field_flags": flags, "notes": notes}

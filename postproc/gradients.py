@@ -12,14 +12,9 @@ the field's unit; the velocity-gradient tensor is ``J[i, m, k] = ∂u_m/∂x_k``
 
 Method
 ------
-1. **Face adjacency.** Every cell's faces (from the standard VTK cell face
-   tables, or the polyhedron face lists) are keyed by two order-independent
-   64-bit hashes of their vertex ids (sums of two different integer mixers
-   over the face's vertices, modulo 2⁶⁴). Sorting the keys puts the two copies
-   of each interior face side by side; a pair matches only when both hashes
-   agree (a false match needs two simultaneous 64-bit collisions). This works
-   for any mix of tetrahedra, pyramids, wedges, hexahedra and polyhedra, and
-   needs neither the face table nor a point→cell map in memory.
+1. **Face adjacency** by vertex-set keys (:mod:`postproc.meshtopo`, whose
+   names are re-exported here): any mix of tetrahedra, pyramids, wedges,
+   hexahedra and polyhedra.
 2. **Weighted least squares** (e.g. Blazek, *Computational Fluid Dynamics:
    Principles and Applications*, 3rd ed. 2015, §5.3.4; Mavriplis 2003, AIAA
    2003-3986). For cell i with stencil neighbours j, d_ij = x_j − x_i and
@@ -37,9 +32,11 @@ Method
    returns g exactly whenever M_i is invertible (three non-coplanar
    neighbour directions). Hence solid-body rotation, pure shear and pure
    strain give their exact Q on any mesh, up to floating-point round-off.
-3. **Boundary cells.** A cell with fewer than ``min_neighbours`` face
-   neighbours, or whose M_i is nearly singular, gets its stencil widened by
-   the next face-neighbour layer (neighbours of neighbours), up to
+3. **Boundary cells.** Boundary-face centres with their face values may
+   join the stencils of the cells that own them (then every field needs its
+   boundary values too). A cell with fewer than ``min_neighbours`` stencil
+   points, or whose M_i is nearly singular, gets its stencil widened by the
+   next face-neighbour layer (neighbours of neighbours), up to
    ``max_layers`` layers. Cells still singular after that (isolated cells)
    get a zero gradient and are counted in ``n_degenerate``.
 """
@@ -50,162 +47,23 @@ from dataclasses import dataclass
 import numpy as np
 import scipy.sparse as sp
 
-# VTK cell type ids and their faces (local point ids). Orientation does not
-# matter here: faces are matched by vertex set. From the VTK file-format
-# documentation (cell type figures); checked in tests against VTK's own
-# vtkCell.GetFace on each type.
-VTK_TETRA, VTK_VOXEL, VTK_HEXAHEDRON, VTK_WEDGE, VTK_PYRAMID, VTK_POLYHEDRON = 10, 11, 12, 13, 14, 42
-CELL_FACES: dict[int, tuple[tuple[int, ...], ...]] = {
-    VTK_TETRA: ((0, 1, 3), (1, 2, 3), (2, 0, 3), (0, 2, 1)),
-    VTK_VOXEL: ((0, 2, 6, 4), (1, 3, 7, 5), (0, 1, 5, 4), (2, 3, 7, 6), (0, 1, 3, 2), (4, 5, 7, 6)),
-    VTK_HEXAHEDRON: ((0, 4, 7, 3), (1, 2, 6, 5), (0, 1, 5, 4), (3, 7, 6, 2), (0, 3, 2, 1), (4, 5, 6, 7)),
-    VTK_WEDGE: ((0, 1, 2), (3, 5, 4), (0, 3, 4, 1), (1, 4, 5, 2), (2, 5, 3, 0)),
-    VTK_PYRAMID: ((0, 3, 2, 1), (0, 1, 4), (1, 2, 4), (2, 3, 4), (3, 0, 4)),
-}
-VOLUME_CELL_TYPES = frozenset(CELL_FACES) | {VTK_POLYHEDRON}
-
-
-@dataclass(frozen=True)
-class CellTopology:
-    """Plain-array description of an unstructured volume mesh.
-
-    ``celltypes`` (N,) VTK type ids; ``offsets`` (N+1,) and ``connectivity``
-    point ids of each cell (VTK layout). Polyhedra (type 42) also need
-    ``poly_face_offsets``/``poly_face_connectivity`` (the face polygons) and
-    ``poly_loc_offsets``/``poly_loc_connectivity`` (for each cell, the ids of
-    its faces; rows of non-polyhedral cells are empty).
-    """
-
-    celltypes: np.ndarray
-    offsets: np.ndarray
-    connectivity: np.ndarray
-    n_points: int
-    poly_face_offsets: np.ndarray | None = None
-    poly_face_connectivity: np.ndarray | None = None
-    poly_loc_offsets: np.ndarray | None = None
-    poly_loc_connectivity: np.ndarray | None = None
-
-    @property
-    def n_cells(self) -> int:
-        return int(self.celltypes.shape[0])
-
-
-def _mix64(x: np.ndarray, seed: int) -> np.ndarray:
-    """splitmix64 finaliser (Steele, Lea & Flood 2014, "Fast splittable
-    pseudorandom number generators", OOPSLA) of integers ``x`` + seed: a
-    well-spread 64-bit hash per point id."""
-    with np.errstate(over="ignore"):
-        z = x.astype(np.uint64) + np.uint64(seed)
-        z = (z ^ (z >> np.uint64(30))) * np.uint64(0xBF58476D1CE4E5B9)
-        z = (z ^ (z >> np.uint64(27))) * np.uint64(0x94D049BB133111EB)
-        return z ^ (z >> np.uint64(31))
-
-
-def face_pairs(topo: CellTopology) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Interior faces of the mesh as cell pairs.
-
-    Returns ``(a, b, n_faces)``: int arrays of the two cells sharing each
-    interior face, and the number of faces of every cell (N,). Faces seen
-    only once are boundary faces. Raises ValueError on cell types without a
-    face table (2D cells, lines, higher-order cells).
-    """
-    ct = np.asarray(topo.celltypes)
-    off = np.asarray(topo.offsets)
-    conn = np.asarray(topo.connectivity)
-    pid = np.arange(topo.n_points, dtype=np.int64)
-    h1, h2 = _mix64(pid, 0x9E3779B97F4A7C15), _mix64(pid, 0x632BE59BD9B4E019)
-    n_faces = np.zeros(ct.shape[0], dtype=np.int32)
-    present = np.unique(ct)
-    unknown = [int(t) for t in present if int(t) not in VOLUME_CELL_TYPES]
-    if unknown:
-        raise ValueError(f"expected volume cells (VTK types {sorted(VOLUME_CELL_TYPES)}), got cell types {unknown}")
-    is_poly = ct == VTK_POLYHEDRON
-    for t in present:
-        t = int(t)
-        if t != VTK_POLYHEDRON:
-            n_faces[ct == t] = len(CELL_FACES[t])
-    if is_poly.any():
-        if topo.poly_face_offsets is None:
-            raise ValueError("polyhedral cells without their face lists")
-        lo = np.asarray(topo.poly_loc_offsets, dtype=np.int64)
-        n_faces[is_poly] = np.diff(lo)[is_poly]
-    total = int(n_faces.sum(dtype=np.int64))
-    # one slot per (cell, face): keys filled in place to keep the peak memory low
-    k1 = np.empty(total, dtype=np.uint64)
-    k2 = np.empty(total, dtype=np.uint64)
-    own = np.empty(total, dtype=np.int32)
-    pos = 0
-    for t in present:
-        t = int(t)
-        if t == VTK_POLYHEDRON:
-            continue
-        cells = np.flatnonzero(ct == t)
-        npt = max(max(f) for f in CELL_FACES[t]) + 1
-        start = off[cells]
-        if np.any(off[cells + 1] - start != npt):
-            raise ValueError(f"cells of VTK type {t} with a point count other than {npt}")
-        for face in CELL_FACES[t]:
-            sl = slice(pos, pos + cells.size)
-            with np.errstate(over="ignore"):
-                k1[sl] = 0
-                k2[sl] = 0
-                for v in face:
-                    ids = conn[start + v]
-                    k1[sl] += h1[ids]
-                    k2[sl] += h2[ids]
-            own[sl] = cells
-            pos += cells.size
-    if is_poly.any():
-        fo = np.asarray(topo.poly_face_offsets, dtype=np.int64)
-        fc = np.asarray(topo.poly_face_connectivity, dtype=np.int64)
-        lc = np.asarray(topo.poly_loc_connectivity, dtype=np.int64)
-        nonempty = fo[1:] > fo[:-1]
-        with np.errstate(over="ignore"):
-            f1 = np.zeros(fo.size - 1, dtype=np.uint64)
-            f2 = np.zeros(fo.size - 1, dtype=np.uint64)
-            if fc.size:
-                f1[nonempty] = np.add.reduceat(h1[fc], fo[:-1][nonempty])
-                f2[nonempty] = np.add.reduceat(h2[fc], fo[:-1][nonempty])
-        counts = np.diff(lo)
-        sl = slice(pos, pos + lc.size)
-        k1[sl] = f1[lc]
-        k2[sl] = f2[lc]
-        own[sl] = np.repeat(np.arange(counts.size, dtype=np.int32), counts)
-        pos += lc.size
-        del f1, f2
-    order = np.argsort(k1, kind="stable")
-    k1 = k1[order]
-    k2 = k2[order]
-    own = own[order]
-    del order
-    same = (k1[1:] == k1[:-1]) & (k2[1:] == k2[:-1]) & (own[1:] != own[:-1])
-    idx = np.flatnonzero(same)
-    # a face shared by exactly two cells gives one adjacent equal pair; drop
-    # chains (three or more copies: non-conforming input) after the first pair
-    if idx.size > 1:
-        chain = np.concatenate([[False], idx[1:] == idx[:-1] + 1])
-        idx = idx[~chain]
-    return own[idx].astype(np.int64), own[idx + 1].astype(np.int64), n_faces
-
-
-def adjacency_matrix(a: np.ndarray, b: np.ndarray, n_cells: int) -> sp.csr_matrix:
-    """Symmetric cell adjacency (CSR, int32 indices, data 1) from cell pairs,
-    without self-loops and duplicate entries."""
-    rows = np.concatenate([a, b]).astype(np.int32)
-    cols = np.concatenate([b, a]).astype(np.int32)
-    A = sp.csr_matrix((np.ones(rows.size, dtype=np.int8), (rows, cols)), shape=(n_cells, n_cells))
-    A.sum_duplicates()
-    A.data[:] = 1
-    return A
-
-
-def cell_adjacency(topo: CellTopology) -> tuple[sp.csr_matrix, np.ndarray]:
-    """Face adjacency (CSR) of a volume mesh and the number of boundary
-    faces of each cell (faces without a neighbour)."""
-    a, b, n_faces = face_pairs(topo)
-    A = adjacency_matrix(a, b, topo.n_cells)
-    n_boundary = n_faces - np.diff(A.indptr).astype(np.int32)
-    return A, n_boundary
+from .meshtopo import (  # noqa: F401  (re-exported: the topology half of the flow kernels)
+    CELL_FACES,
+    VOLUME_CELL_TYPES,
+    VTK_HEXAHEDRON,
+    VTK_POLYHEDRON,
+    VTK_PYRAMID,
+    VTK_TETRA,
+    VTK_VOXEL,
+    VTK_WEDGE,
+    CellTopology,
+    _match_keys,
+    _mix64,
+    adjacency_matrix,
+    auto_chunk,
+    cell_adjacency,
+    face_pairs,
+)
 
 
 @dataclass(frozen=True)
@@ -223,51 +81,71 @@ class GradientOperator:
     row_sums: np.ndarray
     n_extended: int
     n_degenerate: int
+    boundary_index: np.ndarray | None = None
+    n_boundary_given: int = 0
 
     @property
     def n_cells(self) -> int:
         return int(self.row_sums.shape[1])
 
+    @property
+    def n_boundary(self) -> int:
+        """Boundary points in the stencils (columns after the N cells)."""
+        return int(self.coeffs[0].shape[1]) - self.n_cells
+
     def matrix(self, k: int) -> sp.csr_matrix:
-        """The full sparse matrix G_k = C_k − diag(s_k) (so ∂φ/∂x_k = G_k φ)."""
-        return (self.coeffs[k] - sp.diags(self.row_sums[k])).tocsr()
+        """The full sparse matrix G_k = C_k − diag(s_k), shape (N, N + B), so
+        that ∂φ/∂x_k = G_k [φ; φ_b] (cell values, then boundary values)."""
+        return (self.coeffs[k] - sp.diags(self.row_sums[k], shape=self.coeffs[k].shape)).tocsr()
+
+    def extend(self, field64: np.ndarray, boundary: np.ndarray | None) -> np.ndarray:
+        """[cell values; boundary values] as the operator's columns expect:
+        ``boundary`` holds one value per boundary point given at assembly
+        (B_given, ...) or is None for an operator without boundary points."""
+        if self.n_boundary == 0:
+            return field64
+        if boundary is None:
+            raise ValueError(f"expected the values at the {self.n_boundary_given} boundary points this operator "
+                             "was assembled with, got none")
+        b = np.asarray(boundary, dtype=np.float64)
+        if b.shape[0] != self.n_boundary_given or b.shape[1:] != field64.shape[1:]:
+            raise ValueError(f"expected boundary values of shape {(self.n_boundary_given,) + field64.shape[1:]}, "
+                             f"got {b.shape}")
+        return np.concatenate([field64, b[self.boundary_index]])
 
     def gradient_rows(self, field64: np.ndarray, start: int, stop: int) -> np.ndarray:
-        """Gradient (stop−start, m, 3) of a float64 field (N, m) on the cells
-        start…stop−1 only (bounded memory for derived quantities)."""
+        """Gradient (stop−start, m, 3) of a float64 field (N [+ B], m), already
+        :meth:`extend`-ed, on the cells start…stop−1 only (bounded memory for
+        derived quantities)."""
         out = np.empty((stop - start, field64.shape[1], 3))
         for k in range(3):
             res = self.coeffs[k][start:stop] @ field64
             out[:, :, k] = res - self.row_sums[k][start:stop, None] * field64[start:stop]
         return out
 
-    def gradient(self, field: np.ndarray) -> np.ndarray:
+    def gradient(self, field: np.ndarray, boundary: np.ndarray | None = None) -> np.ndarray:
         """Gradient of a cell field. ``field`` (N,) → (N, 3); (N, m) → (N, m, 3)
-        with ``out[i, c, k] = ∂field_c/∂x_k``. Computed in float64; the input
-        is not modified."""
+        with ``out[i, c, k] = ∂field_c/∂x_k``. ``boundary``: the field's values
+        at the boundary points the operator was assembled with (needed then).
+        Computed in float64; the inputs are not modified."""
         f = np.asarray(field)
         if f.shape[0] != self.n_cells:
             raise ValueError(f"expected a field with {self.n_cells} cell values, got {f.shape[0]}")
         f64 = f.astype(np.float64, copy=False)
+        fx = self.extend(f64, boundary)
         out = np.empty(f.shape + (3,), dtype=np.float64)
         for k in range(3):
             s = self.row_sums[k]
-            res = self.coeffs[k] @ f64
+            res = self.coeffs[k] @ fx
             out[..., k] = res - (s[:, None] * f64 if f.ndim == 2 else s * f64)
         return out
 
 
-def _sym3_moments(d: np.ndarray, w: np.ndarray, rows: np.ndarray, n: int) -> np.ndarray:
-    """Σ_j w d dᵀ per row as the 6 unique entries (xx, yy, zz, xy, xz, yz)."""
-    pairs = ((0, 0), (1, 1), (2, 2), (0, 1), (0, 2), (1, 2))
-    return np.stack([np.bincount(rows, weights=w * d[:, a] * d[:, b], minlength=n) for a, b in pairs], axis=1)
-
-
-def _sym3_inverse(m: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Inverse of symmetric 3×3 matrices given as (n, 6) unique entries
-    (adjugate / determinant), and a scale-free conditioning measure
-    det/(trace/3)³ ∈ [0, 1] (1 for an isotropic stencil, 0 when singular)."""
-    xx, yy, zz, xy, xz, yz = m.T
+def _sym3_inverse(xx, yy, zz, xy, xz, yz) -> tuple[tuple[np.ndarray, ...], np.ndarray]:
+    """Inverse of symmetric 3×3 matrices given by their 6 unique entries
+    (arrays, adjugate / determinant), returned in the same order (xx, yy, zz,
+    xy, xz, yz), and a scale-free conditioning measure det/(trace/3)³ ∈ [0, 1]
+    (1 for an isotropic stencil, 0 when singular)."""
     a00 = yy * zz - yz * yz
     a01 = xz * yz - xy * zz
     a02 = xy * yz - xz * yy
@@ -276,65 +154,161 @@ def _sym3_inverse(m: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     a22 = xx * yy - xy * xy
     det = xx * a00 + xy * a01 + xz * a02
     tr = (xx + yy + zz) / 3.0
-    with np.errstate(divide="ignore", invalid="ignore"):
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
         quality = np.where(tr > 0, det / tr**3, 0.0)
-        inv = np.stack([a00, a11, a22, a01, a02, a12], axis=1) / det[:, None]
+        inv_det = 1.0 / det
+        inv = tuple(a * inv_det for a in (a00, a11, a22, a01, a02, a12))
     return inv, np.nan_to_num(quality)
 
 
-def _row_moments(X: np.ndarray, indptr: np.ndarray, indices: np.ndarray, rows_of: np.ndarray | None,
-                 chunk: int) -> np.ndarray:
-    """Moments Σ_j w_ij d_ij d_ijᵀ (n_rows, 6) of a CSR stencil whose row r
-    belongs to cell ``rows_of[r]`` (identity when None)."""
-    nr = indptr.size - 1
+def _lsq_rows(Xc: tuple[np.ndarray, np.ndarray, np.ndarray], indptr: np.ndarray, indices: np.ndarray,
+              cells: np.ndarray | tuple[int, int], dtype,
+              degenerate_limit: float) -> tuple[list[np.ndarray], np.ndarray, np.ndarray, np.ndarray]:
+    """LSQ coefficients of a block of stencil rows.
+
+    ``Xc``: the x, y, z cell-centre coordinates as three contiguous arrays (m).
+    Row r (cell ``cells[r]``, or cell r0 + r when ``cells`` is a range
+    (r0, r1)) has the neighbours ``indices[indptr[r]:indptr[r+1]]``
+    (``indptr`` starts at 0). Returns the coefficients (3 arrays of nnz) in
+    ``dtype`` (c_ij = w_ij M_i⁻¹ d_ij, 1/m), their row sums (3, rows) taken
+    over the stored (rounded) values, the conditioning measure of every M_i
+    and the degenerate rows (zero coefficients). Column-wise 1-D takes and
+    repeats (no fancy indexing of 2-D arrays); memory is proportional to the
+    block.
+    """
     deg = np.diff(indptr)
-    M = np.zeros((nr, 6))
-    nnz = indices.size
-    for s in range(0, nnz, chunk):
-        e = min(nnz, s + chunk)
-        r = np.searchsorted(indptr, np.arange(s, e), side="right") - 1 if s or e < nnz else np.repeat(np.arange(nr), deg)
-        ci = r if rows_of is None else rows_of[r]
-        d = X[indices[s:e]] - X[ci]
-        w = 1.0 / np.maximum(np.einsum("ij,ij->i", d, d), 1e-300)
-        M += _sym3_moments(d, w, r, nr)
-    return M
+    if isinstance(cells, tuple):
+        own = [x[cells[0]:cells[1]] for x in Xc]
+    else:
+        own = [np.take(x, cells) for x in Xc]
+    nr = deg.size
+    r = np.repeat(np.arange(nr, dtype=np.int32), deg)
+    d = []
+    for x, xo in zip(Xc, own):
+        dk = np.take(x, indices)
+        dk -= np.repeat(xo, deg)
+        d.append(dk)
+    dist2 = d[0] * d[0]
+    dist2 += d[1] * d[1]
+    dist2 += d[2] * d[2]
+    np.maximum(dist2, 1e-300, out=dist2)
+    w = np.reciprocal(dist2, out=dist2)
+    wd = [w * dk for dk in d]
+    del w
+    M = [np.bincount(r, weights=wd[a] * d[b], minlength=nr)
+         for a, b in ((0, 0), (1, 1), (2, 2), (0, 1), (0, 2), (1, 2))]
+    del d
+    Minv, q = _sym3_inverse(*M)
+    del M
+    bad = ~(q >= degenerate_limit)
+    for m in Minv:
+        bad |= ~np.isfinite(m)
+    rep = []
+    for m in Minv:
+        m[bad] = 0.0
+        rep.append(np.repeat(m, deg))
+    del Minv
+    c = []
+    sums = np.empty((3, nr))
+    for k, (i0, i1, i2) in enumerate(((0, 3, 4), (3, 1, 5), (4, 5, 2))):
+        ck = rep[i0] * wd[0]
+        ck += rep[i1] * wd[1]
+        ck += rep[i2] * wd[2]
+        ck = ck.astype(dtype, copy=False)
+        sums[k] = np.bincount(r, weights=ck, minlength=nr)
+        c.append(ck)
+    return c, sums, q, bad
 
 
-def _stencil(A: sp.csr_matrix, X: np.ndarray, min_neighbours: int, max_layers: int,
-             quality_limit: float, chunk: int) -> tuple[sp.csr_matrix, np.ndarray, int]:
-    """Face-neighbour stencil, widened by further face-neighbour layers for
-    the cells that need it (few neighbours or an ill-posed M). Returns the
-    stencil (CSR pattern, no diagonal), the moments M (n, 6) and the number of
-    widened cells. Only the rows of widened cells are recomputed."""
-    A = sp.csr_matrix((np.ones(A.indices.size, dtype=np.float32), A.indices, A.indptr), shape=A.shape)
-    n = A.shape[0]
-    M = _row_moments(X, A.indptr, A.indices, None, chunk)
-    _, q = _sym3_inverse(M)
-    bad = np.flatnonzero((np.diff(A.indptr) < min_neighbours) | (q < quality_limit))
-    n_widened = int(bad.size)
-    S = A
-    for _ in range(max_layers - 1):
-        if bad.size == 0:
+def _row_blocks(indptr: np.ndarray, chunk: int) -> list[tuple[int, int]]:
+    """Row ranges [r0, r1) holding about ``chunk`` stencil entries each."""
+    n = indptr.size - 1
+    nnz = int(indptr[-1])
+    cuts = np.searchsorted(indptr, np.arange(chunk, nnz, chunk), side="right") - 1
+    b = np.unique(np.concatenate([[0], cuts, [n]]))
+    return [(int(b[i]), int(b[i + 1])) for i in range(b.size - 1)]
+
+
+def _next_layer(indptr: np.ndarray, indices: np.ndarray, rows: np.ndarray, Rp: np.ndarray,
+                Ri: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """One more face-neighbour layer for the stencil rows (Rp, Ri) of the
+    cells ``rows``: the union of each row with the face neighbours of its
+    entries, without the row's own cell, sorted and without duplicates.
+    Work proportional to the rows' entries (no product with the whole
+    adjacency)."""
+    n = indptr.size - 1
+    er = np.repeat(np.arange(rows.size, dtype=np.int64), np.diff(Rp))
+    L = (indptr[Ri + 1] - indptr[Ri]).astype(np.int64)
+    first = np.cumsum(L) - L
+    pos = np.repeat(indptr[Ri].astype(np.int64) - first, L) + np.arange(int(L.sum()), dtype=np.int64)
+    cols = np.concatenate([Ri.astype(np.int64), indices[pos].astype(np.int64)])
+    rr = np.concatenate([er, np.repeat(er, L)])
+    keep = cols != rows[rr]
+    key = np.unique(rr[keep] * n + cols[keep])
+    rr, cols = key // n, key % n
+    Rp = np.concatenate([[0], np.cumsum(np.bincount(rr, minlength=rows.size))])
+    return Rp, cols.astype(np.int32)
+
+
+def _widen(indptr: np.ndarray, indices: np.ndarray, Xc: tuple, bad: np.ndarray, min_neighbours: int,
+           max_layers: int, quality_limit: float, degenerate_limit: float
+           ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Wider stencils for the cells ``bad`` (sorted): add face-neighbour
+    layers until the row has ``min_neighbours`` cells and a well-posed M, up
+    to ``max_layers`` layers. Returns (cells, row lengths, indices) of the
+    final rows, cells sorted, each row's indices sorted."""
+    done = []
+    rows = bad
+    Rp = np.concatenate([[0], np.cumsum(indptr[bad + 1] - indptr[bad])])
+    Ri = indices[np.repeat(indptr[bad] - Rp[:-1], np.diff(Rp)) + np.arange(int(Rp[-1]))]
+    for layer in range(max_layers - 1):
+        Rp, Ri = _next_layer(indptr, indices, rows, Rp, Ri)
+        rdeg = np.diff(Rp)
+        if layer == max_layers - 2:
+            still = np.zeros(rows.size, dtype=bool)
+        else:
+            _, _, q, _ = _lsq_rows(Xc, Rp, Ri, rows, np.float64, degenerate_limit)
+            still = (rdeg < min_neighbours) | (q < quality_limit)
+        ends = np.repeat(~still, rdeg)
+        done.append((rows[~still], rdeg[~still], Ri[ends]))
+        rows = rows[still]
+        if rows.size == 0:
             break
-        R = S[bad]
-        R = (R + R @ A).tocsr()
-        # drop each row's own cell
-        own = sp.csr_matrix((np.ones(bad.size, dtype=np.float32), (np.arange(bad.size), bad)), shape=R.shape)
-        R = (R - R.multiply(own)).tocsr()
-        R.eliminate_zeros()
-        R.data[:] = 1
-        Mb = _row_moments(X, R.indptr, R.indices, bad, chunk)
-        M[bad] = Mb
-        keep = np.ones(n, dtype=np.float32)
-        keep[bad] = 0
-        scatter = sp.csr_matrix((np.ones(bad.size, dtype=np.float32), (bad, np.arange(bad.size))), shape=(n, bad.size))
-        S = (sp.diags(keep) @ S + scatter @ R).tocsr()
-        S.eliminate_zeros()
-        _, qb = _sym3_inverse(Mb)
-        still = (np.diff(R.indptr) < min_neighbours) | (qb < quality_limit)
-        bad = bad[still]
-    S.sort_indices()
-    return S, M, n_widened
+        Ri = Ri[~ends]
+        Rp = np.concatenate([[0], np.cumsum(rdeg[still])])
+    cells = np.concatenate([x[0] for x in done])
+    deg = np.concatenate([x[1] for x in done])
+    ind = np.concatenate([x[2] for x in done])
+    # rows in cell order; a stable sort by the owning cell keeps each row's entries together and in order
+    take = np.argsort(np.repeat(cells, deg), kind="stable")
+    order = np.argsort(cells, kind="stable")
+    return cells[order], deg[order], ind[take]
+
+
+def _splice_rows(indptr: np.ndarray, arrays: list, cells: np.ndarray, new_deg_rows: np.ndarray,
+                 new_rows: list) -> tuple[np.ndarray, list]:
+    """Replace the CSR rows ``cells`` (sorted) of the entry arrays ``arrays``
+    (indices and/or data, all in the pattern ``indptr``) by ``new_rows`` (in
+    cell order, lengths ``new_deg_rows``). Kept entries keep their order, the
+    new rows fill the gaps (boolean masks, no index arrays); one array is
+    replaced at a time, so the old one is freed before the next is copied."""
+    n = indptr.size - 1
+    deg = np.diff(indptr)
+    is_w = np.zeros(n, dtype=bool)
+    is_w[cells] = True
+    new_deg = deg.copy()
+    new_deg[cells] = new_deg_rows
+    keep = np.repeat(~is_w, deg)
+    dest = np.repeat(~is_w, new_deg)
+    fill = ~dest
+    new_nnz = int(new_deg.sum())
+    for i in range(len(arrays)):
+        out = np.empty(new_nnz, dtype=arrays[i].dtype)
+        out[dest] = arrays[i][keep]
+        out[fill] = new_rows[i]
+        arrays[i] = out
+        del out
+    return np.concatenate([[0], np.cumsum(new_deg)]), arrays
 
 
 def lsq_gradient_operator(
@@ -346,6 +320,8 @@ def lsq_gradient_operator(
     quality_limit: float = 1e-6,
     dtype: type = np.float64,
     chunk: int = 262_144,
+    boundary_points: np.ndarray | None = None,
+    boundary_owner: np.ndarray | None = None,
 ) -> GradientOperator:
     """Assemble the weighted least-squares gradient operator (see module
     docstring for the formula, exactness for linear fields and citations).
@@ -363,6 +339,20 @@ def lsq_gradient_operator(
         exactness to round-off; float32 halves the memory for very large
         meshes whose data are single precision anyway).
     chunk : number of stencil entries processed at a time (bounds memory).
+    boundary_points, boundary_owner : (B, 3) boundary-face centres (m) and
+        the cell owning each face (−1: not used). Each owning cell gets its
+        boundary faces as extra stencil points (d_ib = x_b − x_i), so that
+        wall-adjacent cells see the boundary values (no-slip wall velocity,
+        inflow value) instead of extrapolating one-sidedly (Blazek 2015,
+        §5.3.4). The operator then needs the B face values with every field
+        (``boundary`` argument of :meth:`GradientOperator.gradient`).
+
+    Assembly: the stencil entries are processed a block of rows at a time:
+    moments M_i by bincount over the entries, all 3×3 inverses at once in
+    closed form (adjugate/determinant), coefficients written straight into
+    the CSR data arrays in the adjacency's own pattern (int32 indices shared
+    by the three matrices). Only the few rows that need a wider stencil are
+    rebuilt with sparse products and spliced in.
 
     Valid for any conforming mesh of volume cells; the gradient is first-order
     accurate on irregular meshes and exact for linear fields.
@@ -371,26 +361,86 @@ def lsq_gradient_operator(
     n = X.shape[0]
     if adjacency.shape != (n, n):
         raise ValueError(f"expected an adjacency of shape ({n}, {n}), got {adjacency.shape}")
-    S, M, n_ext = _stencil(adjacency, X, min_neighbours, max_layers, quality_limit, chunk)
-    indptr, indices = S.indptr, S.indices.astype(np.int32, copy=False)
-    deg = np.diff(indptr)
-    nnz = indices.size
-    Minv, q = _sym3_inverse(M)
-    degenerate = ~(q >= quality_limit * 1e-3) | ~np.isfinite(Minv).all(axis=1)
-    Minv[degenerate] = 0.0
-    data = np.empty((3, nnz), dtype=dtype)
-    for s in range(0, nnz, chunk):
-        e = min(nnz, s + chunk)
-        r = np.searchsorted(indptr, np.arange(s, e), side="right") - 1 if s or e < nnz else np.repeat(np.arange(n), deg)
-        d = X[indices[s:e]] - X[r]
-        w = 1.0 / np.maximum(np.einsum("ij,ij->i", d, d), 1e-300)
-        # c = w M⁻¹ d, M⁻¹ stored as (xx, yy, zz, xy, xz, yz)
-        for k, cols in enumerate(((0, 3, 4), (3, 1, 5), (4, 5, 2))):
-            data[k, s:e] = w * (Minv[r, cols[0]] * d[:, 0] + Minv[r, cols[1]] * d[:, 1] + Minv[r, cols[2]] * d[:, 2])
-    coeffs = tuple(sp.csr_matrix((data[k], indices, indptr), shape=(n, n), copy=False) for k in range(3))
-    ones = np.ones(n)
-    row_sums = np.stack([coeffs[k] @ ones for k in range(3)])
-    return GradientOperator(coeffs=coeffs, row_sums=row_sums, n_extended=n_ext, n_degenerate=int(degenerate.sum()))
+    a_ptr = np.asarray(adjacency.indptr, dtype=np.int64)
+    a_ind = np.asarray(adjacency.indices, dtype=np.int32)
+    indptr, indices = a_ptr, a_ind  # the operator's pattern: face neighbours, then widened rows
+    deg_limit = quality_limit * 1e-3
+    bidx, bo, bptr, bcol = None, np.zeros(0, np.int32), None, None
+    Xb = np.zeros((0, 3))
+    if boundary_points is not None:
+        bo_all = np.asarray(boundary_owner, dtype=np.int64)
+        bidx = np.flatnonzero((bo_all >= 0) & (bo_all < n))
+        bo = bo_all[bidx].astype(np.int32)
+        Xb = np.asarray(boundary_points, dtype=np.float64)[bidx]
+        # boundary points of each cell as a CSR (cell → column n + b)
+        order = np.argsort(bo, kind="stable")
+        bptr = np.concatenate([[0], np.cumsum(np.bincount(bo, minlength=n))]).astype(np.int64)
+        bcol = (n + order).astype(np.int32)
+    nb = Xb.shape[0]
+    Xc = tuple(np.ascontiguousarray(np.concatenate([X[:, k], Xb[:, k]])) for k in range(3))
+    bdeg = np.diff(bptr) if bptr is not None else np.zeros(n, dtype=np.int64)
+
+    def with_boundary(cells, wdeg, wind):
+        """Append the cells' own boundary points to their (widened) rows."""
+        if nb == 0:
+            return wdeg, wind
+        k = bdeg[cells]
+        pos = np.repeat(bptr[cells] - (np.cumsum(k) - k), k) + np.arange(int(k.sum()))
+        rows = np.concatenate([np.repeat(np.arange(cells.size), wdeg), np.repeat(np.arange(cells.size), k)])
+        cols = np.concatenate([wind, bcol[pos]])
+        o = np.lexsort((cols, rows))
+        return wdeg + k, cols[o].astype(np.int32)
+
+    # 1. cells with too few stencil points: wider pattern first (few rows)
+    widened = np.zeros(n, dtype=bool)
+    few = np.flatnonzero(np.diff(indptr) + bdeg < min_neighbours)
+    if few.size and max_layers > 1:
+        cells, wdeg, wind = _widen(a_ptr, a_ind, Xc, few, min_neighbours, max_layers, quality_limit, deg_limit)
+        indptr, (indices,) = _splice_rows(indptr, [indices], cells, wdeg, [wind])
+        widened[cells] = True
+    if nb:
+        # every row with its own boundary points (columns n + b, after the cells)
+        allc = np.arange(n)
+        deg2, ind2 = with_boundary(allc, np.diff(indptr), indices)
+        indptr, indices = np.concatenate([[0], np.cumsum(deg2)]), ind2
+        del allc, deg2, ind2
+    # 2. all rows, a block at a time, straight into the CSR data arrays
+    nnz = int(indptr[-1])
+    data = [np.empty(nnz, dtype=dtype) for _ in range(3)]
+    row_sums = np.empty((3, n))
+    ill = np.zeros(n, dtype=bool)
+    degenerate = np.zeros(n, dtype=bool)
+    for r0, r1 in _row_blocks(indptr, auto_chunk(nnz, chunk, 32_768)):
+        s, e = int(indptr[r0]), int(indptr[r1])
+        c, rs, q, degenerate[r0:r1] = _lsq_rows(Xc, indptr[r0:r1 + 1] - s, indices[s:e], (r0, r1), dtype,
+                                                deg_limit)
+        for k in range(3):
+            data[k][s:e] = c[k]
+        row_sums[:, r0:r1] = rs
+        ill[r0:r1] = q < quality_limit
+        del c, rs, q
+    # 3. ill-posed face stencils (rare): widen, recompute those rows, splice
+    ill = np.flatnonzero(ill & ~widened)
+    if ill.size and max_layers > 1:
+        cells, wdeg, wind = _widen(a_ptr, a_ind, Xc, ill, min_neighbours, max_layers, quality_limit, deg_limit)
+        wdeg, wind = with_boundary(cells, wdeg, wind)
+        wp = np.concatenate([[0], np.cumsum(wdeg)])
+        c, rs, _, dg = _lsq_rows(Xc, wp, wind, cells, dtype, deg_limit)
+        indptr, arrays = _splice_rows(indptr, [indices] + data, cells, wdeg, [wind] + c)
+        indices, data = arrays[0], arrays[1:]
+        del arrays, c
+        row_sums[:, cells] = rs
+        degenerate[cells] = dg
+        widened[cells] = True
+    n_ext = int(widened.sum()) if max_layers > 1 else int(few.size + ill.size)
+    ip = indptr.astype(np.int32) if indptr[-1] < 2**31 - 1 else indptr
+    ind = indices if ip.dtype == np.int32 else indices.astype(np.int64)
+    del indptr, a_ptr
+    coeffs = tuple(sp.csr_matrix((data[k], ind, ip), shape=(n, n + nb), copy=False) for k in range(3))
+    del data
+    return GradientOperator(coeffs=coeffs, row_sums=row_sums, n_extended=n_ext, n_degenerate=int(degenerate.sum()),
+                            boundary_index=bidx,
+                            n_boundary_given=0 if boundary_points is None else int(len(boundary_points)))
 
 
 # ---------------------------------------------------------------------------
@@ -483,23 +533,26 @@ def normalised_q(q: np.ndarray, speed: float, length: float) -> np.ndarray:
 
 def velocity_gradient_fields(op: GradientOperator, velocity: np.ndarray, *, speed: float | None = None,
                              length: float | None = None, with_lambda2: bool = True,
-                             chunk: int = 262_144) -> VelocityGradientFields:
+                             chunk: int = 262_144, boundary: np.ndarray | None = None) -> VelocityGradientFields:
     """Vorticity, Q, λ2 and Q* of a cell velocity field (N, 3) in m/s.
 
     The velocity gradient is computed with ``op`` (1/s), a chunk of cells at a
     time for the derived quantities. ``speed`` (m/s) and ``length`` (m) give
-    Q* = Q/(V/L)². The input is not modified.
+    Q* = Q/(V/L)². ``boundary`` (B, 3): the velocity at the operator's
+    boundary points (m/s), needed when it was assembled with them. The
+    inputs are not modified.
     """
     U = np.asarray(velocity)
     if U.ndim != 2 or U.shape[1] != 3:
         raise ValueError(f"expected a velocity array of shape (N, 3), got {U.shape}")
     if U.shape[0] != op.n_cells:
         raise ValueError(f"expected a velocity with {op.n_cells} cell values, got {U.shape[0]}")
-    U64 = U.astype(np.float64, copy=False)
+    U64 = op.extend(U.astype(np.float64, copy=False), boundary)
     n = U.shape[0]
     w = np.empty((n, 3))
     q = np.empty(n)
     l2 = np.empty(n) if with_lambda2 else None
+    chunk = auto_chunk(n, chunk)
     for s in range(0, n, chunk):
         j = op.gradient_rows(U64, s, min(n, s + chunk))
         w[s:s + chunk] = vorticity(j)

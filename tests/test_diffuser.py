@@ -168,3 +168,21 @@ def test_cli_diffuser_errors(vtm, tmp_path):
     assert r.exit_code == 2 and "--force" in r.output
     r = run(main, ["diffuser", str(vtm), "--throat", "0.2", "--exit", "0.9", "-o", str(out), "--force"])
     assert r.exit_code == 0 and json.loads(out.read_text())["cpr"] > 0
+
+
+def test_raked_floor_throat_at_the_ramp_start():
+    # a raked floor (rear up 0.6 deg) whose 14 deg ramp starts at x = 0.85 m:
+    # the clearance above the ground grows all along the floor, so the
+    # clearance minimum sits at the front; the body-frame profile puts the
+    # throat at the ramp start (geometry of the invented demo floor)
+    x = np.linspace(0.0, 1.2, 100)
+    z = np.clip(x - 0.85, 0.0, None) * np.tan(np.radians(14.0))
+    h = 0.02 + x * np.tan(np.radians(0.6)) + z
+    t, e = dif.find_diffuser(x, z, clearance=h)
+    assert t == pytest.approx(0.85, abs=1.2 / 99)
+    assert e == pytest.approx(1.2)
+    t_old, _ = dif.find_diffuser(x, h)  # clearance alone: the throat runs to the front
+    assert t_old < 0.5
+    # a flat raked floor is no diffuser
+    with pytest.raises(UserError, match="rises towards the tail"):
+        dif.find_diffuser(x, np.zeros_like(x), clearance=0.02 + x * np.tan(np.radians(0.6)))

@@ -241,3 +241,21 @@ def test_kernels_do_not_modify_inputs():
     wc.field_flags("p", p, np.zeros((5, 3)), lower=1.0)
     for a, b in ((areas, ac), (p, pc), (u, uc), (segs, sc), (tau, tc)):
         np.testing.assert_array_equal(a, b)
+
+
+def test_wall_shear_cells_are_not_core_cells():
+    # Kinematic vorticity number ‖Ω‖/‖S‖ (Truesdell 1953): simple shear
+    # u = (γ z, 0, 0) has ‖Ω‖ = ‖S‖ (Q = 0; a few per cent of discretisation
+    # error can make it positive), solid-body rotation has S = 0 (analytic).
+    g = 100.0
+    J_shear = np.array([[0, 0, g], [0, 0, 0], [0, 0, 0]], float) * 1.02  # slightly rotation-heavy shear
+    J_shear[2, 0] = -0.02 * g  # small extra rotation: Q > 0 but ‖Ω‖ ≈ 1.02‖S‖
+    om = 50.0
+    J_rot = np.array([[0, 0, 0], [0, 0, -om], [0, om, 0]], float)
+    J = np.stack([J_shear, J_rot, J_shear])
+    q = G.q_criterion(J)
+    w = G.vorticity(J)
+    assert q[0] > 0 and q[1] == pytest.approx(om**2)
+    at_wall = np.array([True, True, False])
+    mask = vx.wall_shear_cells(q, w, at_wall, 1.5)
+    assert mask.tolist() == [True, False, False]  # the wall shear cell only; rotation and off-wall cells stay

@@ -4,8 +4,9 @@ residuals low, or force monitor settled and residuals fallen by orders of
 magnitude; a drifting monitor is never converged.
 
 Synthetic histories are our own invented numbers; the real-run checks use
-a trimmed log and force monitor of one demo smoke case (tests/data/smoke_run,
-flat floor, written by the solver itself). The thresholds are the runner's
+a trimmed log (iteration, residual, continuity and timing lines only) and
+the force monitor of one real 150-iteration smoke run of the demo's flat
+floor at 20 mm ride height (tests/data/smoke_run, written by the solver). The thresholds are the runner's
 documented defaults (common practice, no source)."""
 from __future__ import annotations
 
@@ -133,7 +134,12 @@ def test_real_smoke_run_converged_and_cut_short_flagged(tmp_path):
     assert full["end_reason"] == "end-time"
     assert "not-converged" not in full["flags"], full["convergence"]
     assert full["force_settling"]["verdict"] == "converged"
-    # The same run stopped during its start-up transient is flagged: loads still moving, residuals high.
-    early = runner.summarize_logs(_real_case(tmp_path, 30), ["solve"])
-    assert early["iterations"] == 30 and early["flags"] == ("not-converged",), early["convergence"]
-    assert early["force_settling"]["verdict"] != "converged"
+    # The same run stopped earlier (as with a smaller budget) is flagged while its loads still move:
+    # after 30 iterations residuals are also high (p 5.7e-3), after 80 they are low (≤ 1.2e-3) but
+    # the lift still drifts by ~2 % across the window, which alone makes it not converged.
+    for n in (30, 80):
+        early = runner.summarize_logs(_real_case(tmp_path, n), ["solve"])
+        assert early["iterations"] == n and early["flags"] == ("not-converged",), early["convergence"]
+        assert early["force_settling"]["verdict"] == "diverging" and "drifting" in early["convergence"]
+    # With the smoke preset's budget of 120 iterations it has settled.
+    assert runner.summarize_logs(_real_case(tmp_path, 120), ["solve"])["flags"] == ()

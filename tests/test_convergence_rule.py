@@ -141,5 +141,5 @@ def test_real_smoke_run_converged_and_cut_short_flagged(tmp_path):
         early = runner.summarize_logs(_real_case(tmp_path, n), ["solve"])
         assert early["iterations"] == n and early["flags"] == ("not-converged",), early["convergence"]
         assert early["force_settling"]["verdict"] == "diverging" and "drifting" in early["convergence"]
-    # With the smoke preset's budget of 120 iterations it has settled.
+    # After 120 iterations it has settled.
     assert runner.summarize_logs(_real_case(tmp_path, 120), ["solve"])["flags"] == ()

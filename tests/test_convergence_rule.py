@@ -11,7 +11,6 @@ documented defaults (common practice, no source)."""
 from __future__ import annotations
 
 import math
-import shutil
 from pathlib import Path
 
 import numpy as np

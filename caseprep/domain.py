@@ -65,8 +65,8 @@ class Preset:
 
 
 PRESETS: dict[str, Preset] = {
-    # smoke: meshes and solves in about a minute on two cores (20–35 thousand
-    # cells, 180 iterations). Base cell L/5; body surface at level 3 (L/40),
+    # smoke: meshes and solves in under a minute on two cores (31–36 thousand
+    # cells on the demo body, 180 iterations). Base cell L/5; body surface at level 3 (L/40),
     # so the body's shape and a diffuser ramp are there at all; no prism
     # layers (wall functions). Gap rule with gap_cells = 1: the underbody
     # gets the coarsest level whose cells fit once into the smallest ground

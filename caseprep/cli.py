@@ -75,7 +75,8 @@ def _progress_printer(quiet: bool):
               help="Run only this stage (repeatable); default all three.")
 @click.option("--force", is_flag=True, help="Run stages again even if they are marked done.")
 @click.option("--residual-tol", type=float, default=1e-3, show_default=True,
-              help="Flag a run that used its whole iteration budget with a final residual above this.")
+              help="Residual below which a run that used its whole budget counts as converged; above it the "
+                   "force monitor must have settled (see the README's convergence rule).")
 @click.option("-q", "--quiet", is_flag=True, help="Print only case starts, failures and results.")
 @click.option("--skip-solver-check", is_flag=True, hidden=True)
 def run_cmd(sweep_dir, jobs, ranks, only, stages, force, residual_tol, quiet, skip_solver_check) -> None:

@@ -115,6 +115,44 @@ def assess(series: Mapping[str, Sequence[float]], window: int = 200, floor: floa
     return Assessment(window=n, series=stats, verdict=worst)
 
 
+#: Settling window of a run: its last 30 % of samples, at least 20 (common practice, no source:
+#: long enough to see a drift, short enough to leave the start-up transient out).
+SETTLE_FRACTION = 0.3
+SETTLE_MIN_SAMPLES = 20
+
+
+def settle_window(n_samples: int | None, fraction: float = SETTLE_FRACTION, minimum: int = SETTLE_MIN_SAMPLES) -> int:
+    """Number of samples at the end of a run over which settling is judged:
+    ``ceil(fraction × n_samples)``, at least ``minimum``, at most
+    ``n_samples`` (``minimum`` when ``n_samples`` is unknown). Dimensionless."""
+    if n_samples is None or n_samples <= 0:
+        return minimum
+    return int(min(n_samples, max(minimum, int(np.ceil(fraction * n_samples)))))
+
+
+def assess_force_monitor(case_dir: str | os.PathLike, name: str | None = None, window: int | None = None,
+                         drift_tol: float = 0.01, std_tol: float = 0.01, floor_fraction: float = 0.01) -> Assessment:
+    """Verdict of the total force components (``force.total_x/y/z``, N, the
+    monitor's axes) of a case's runtime monitor over ``window`` samples
+    (default :func:`settle_window` of the run). The floor of each series is
+    ``floor_fraction`` × the magnitude of the last total force (N), so a
+    component near zero (the side force of a symmetric body at zero yaw) is
+    judged against the resultant, not against itself; ``floor_fraction`` = 1
+    judges every component against the resultant. Raises UserError when no
+    monitor is found."""
+    mon = read_monitor(case_dir, name)
+    series = {k: v for k, v in mon.items() if k.startswith("force.total_")}
+    if not series:
+        raise UserError(expected="force.total_x/y/z in the runtime force monitor", got=", ".join(sorted(mon)) or "none",
+                        file=str(case_dir), fix="switch on the forces function object in system/controlDict")
+    n = min(len(v) for v in series.values())
+    w = settle_window(n) if window is None else window
+    scale = max(float(np.linalg.norm([v[-1] for v in series.values()])), 1e-300)
+    if not np.isfinite(scale):
+        scale = 1.0
+    return assess(series, window=w, floor=floor_fraction * scale, drift_tol=drift_tol, std_tol=std_tol)
+
+
 # --------------------------------------------------------------------------- monitor files
 
 def _parse_dat(path: Path) -> tuple[list[str], np.ndarray]:

@@ -17,8 +17,8 @@ robustness
                          height, pitch and yaw)
     ``yaw_retention``    mean −C_L at the largest |yaw| divided by mean −C_L
                          at the smallest |yaw| (1 = no loss in crosswind)
-    ``min_stability_margin``  smallest directional stability margin (m,
-                         side-force centre of pressure behind the CG is
+    ``min_stability_margin``  smallest directional stability margin (fraction
+                         of the wheelbase, side-force centre of pressure behind the CG is
                          positive = stabilising) over the yawed cases
     ``downforce_spread`` (max − min)/mean of −C_L over the envelope
 
@@ -53,7 +53,7 @@ class CaseResult:
     Ride heights in m, angles in degrees, speed in m/s; coefficients in the
     wind axes of caseprep.frames (C_L positive up, C_D along the relative
     wind, C_S along +y_W); ``balance`` front share of downforce (fraction,
-    None when undefined); ``stability_margin`` in m (None when undefined or
+    None when undefined); ``stability_margin`` as a fraction of the wheelbase (None when undefined or
     no CG given); ``flags`` non-empty means the case must not be ranked.
     """
 

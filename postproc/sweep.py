@@ -17,6 +17,11 @@ reference area and the dynamic pressure of the resultant air speed recorded
 in the manifest. A case is **flagged** (never ranked) when the runner
 flagged it, when it did not finish, when its forces could not be computed,
 or when the runtime force monitor is still drifting at the end of the run.
+The monitor is judged as the runner judges it (see
+:class:`caseprep.runner.RunOptions`): over the last 30 % of the iterations
+(at least 20), each total-force component against max(|its mean|, the
+resultant force), drift and std tolerance 1 %; ``diverging`` there gives
+the ``forces-drifting`` flag.
 """
 from __future__ import annotations
 
@@ -36,6 +41,7 @@ from caseprep.safeio import write_json_atomic, write_text_atomic
 
 from . import wallchecks as wc
 from .caseforces import forces_report
+from .convergence import assess_force_monitor, settle_window
 from .forces import face_geometry
 from .readers import latest_export, read_surface
 from .ranking import CaseResult, rank_variants
@@ -151,9 +157,17 @@ def process_case(manifest: Manifest, case: CaseRecord) -> CaseOutcome:
             clf, clr = b.get("c_lift_front"), b.get("c_lift_rear")
             bal, margin = b.get("balance_front"), b.get("stability_margin")
             notes.extend(b.get("notes", []))
-        conv = report.get("convergence")
-        if conv:
-            verdict = conv.get("verdict")
+        opts = runner.RunOptions()
+        try:
+            mon = assess_force_monitor(case_dir, window=None if rec is None or not rec.iterations else
+                                       settle_window(rec.iterations, opts.settle_fraction, opts.settle_min_samples),
+                                       drift_tol=opts.settle_tol, std_tol=opts.settle_tol,
+                                       floor_fraction=opts.settle_floor)
+        except UserError:
+            mon = None
+        if mon is not None:
+            verdict = mon.verdict
+            report["convergence"] = mon.to_dict()
             if verdict == "diverging":
                 flags.append("forces-drifting")
         else:

@@ -252,3 +252,10 @@ def test_runner_on_tiny_real_case(tmp_path):
     assert (root / "cases" / "tiny_ok" / "logs" / "decomposePar.log").exists()  # ran in parallel
     vtk = root / "cases" / "tiny_ok" / "VTK"
     assert any(vtk.glob("*.vtm")) and ok.export_files >= 2
+
+
+def test_relative_sweep_path(sweep, monkeypatch):
+    # `make demo` passes a relative output folder; run.sh starts inside its case folder.
+    monkeypatch.chdir(sweep.parent)
+    recs = runner.run_sweep(Path(sweep.name), only=["good"])
+    assert recs[0].status == "ok" and calls(sweep, "good") == ["mesh", "solve", "export"]

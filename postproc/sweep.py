@@ -156,6 +156,11 @@ def process_case(manifest: Manifest, case: CaseRecord) -> CaseOutcome:
         if b:
             clf, clr = b.get("c_lift_front"), b.get("c_lift_rear")
             bal, margin = b.get("balance_front"), b.get("stability_margin")
+            if abs(base["yaw_deg"]) < 1e-9 and margin is not None:
+                # at zero yaw the side force is numerical noise about zero and its
+                # centre of pressure is meaningless: report no margin
+                margin = None
+                notes.append("zero yaw: no side force to place, stability margin not reported")
             notes.extend(b.get("notes", []))
         opts = runner.RunOptions()
         try:

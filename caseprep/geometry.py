@@ -301,6 +301,17 @@ def hull_points(points: np.ndarray, n_dirs: int = 64) -> np.ndarray:
     return p[~inside]
 
 
+def _projection_basis(direction) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Unit ``direction`` d and two unit vectors u, v spanning the plane
+    normal to it (u, v, d right-handed)."""
+    d = np.asarray(direction, dtype=float)
+    d = d / np.linalg.norm(d)
+    a = np.array([0.0, 0.0, 1.0]) if abs(d[2]) < 0.9 else np.array([1.0, 0.0, 0.0])
+    u = np.cross(a, d)
+    u /= np.linalg.norm(u)
+    return d, u, np.cross(d, u)
+
+
 def projected_area(triangles: np.ndarray, direction, resolution: int = 2048) -> float:
     """Area (m²) of the shadow of a closed surface on a plane normal to ``direction``.
 
@@ -317,12 +328,7 @@ def projected_area(triangles: np.ndarray, direction, resolution: int = 2048) -> 
     need not be unit.
     """
     t = np.asarray(triangles, dtype=float)
-    d = np.asarray(direction, dtype=float)
-    d = d / np.linalg.norm(d)
-    a = np.array([0.0, 0.0, 1.0]) if abs(d[2]) < 0.9 else np.array([1.0, 0.0, 0.0])
-    u = np.cross(a, d)
-    u /= np.linalg.norm(u)
-    v = np.cross(d, u)
+    d, u, v = _projection_basis(direction)
     nrm = np.cross(t[:, 1] - t[:, 0], t[:, 2] - t[:, 0])
     tf = t[nrm @ d < 0]
     if tf.shape[0] == 0:
@@ -384,12 +390,7 @@ def hull_projected_area(points: np.ndarray, direction) -> float:
     from scipy.spatial import ConvexHull, QhullError
 
     p = np.asarray(points, dtype=float)
-    d = np.asarray(direction, dtype=float)
-    d = d / np.linalg.norm(d)
-    a = np.array([0.0, 0.0, 1.0]) if abs(d[2]) < 0.9 else np.array([1.0, 0.0, 0.0])
-    u = np.cross(a, d)
-    u /= np.linalg.norm(u)
-    v = np.cross(d, u)
+    d, u, v = _projection_basis(direction)
     # plain component arithmetic: a threaded BLAS call stalls on a busy machine
     qx = p[:, 0] * u[0] + p[:, 1] * u[1] + p[:, 2] * u[2]
     qy = p[:, 0] * v[0] + p[:, 1] * v[1] + p[:, 2] * v[2]

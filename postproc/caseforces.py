@@ -22,12 +22,10 @@ def forces_report(target: str, patches: tuple[str, ...] = (), rho: float | None 
                shear_field: str = "wallShearStress", no_shear: bool = False, allow_nonfinite: bool = False,
                allow_open: bool = False, area: float | None = None, length: float | None = None,
                speed: float | None = None, wheelbase: float | None = None, front_axle=None, rear_axle=None,
-               cog=None, window: int = 200) -> dict:
+               cog=None, window: int | None = None) -> dict:
     """Read, integrate and reduce one surface or case; returns the JSON-ready
     report (see ``postproc forces --help``). Raises UserError on bad input."""
     from pathlib import Path
-
-    import numpy as np
 
     from caseprep.manifest import find_case_manifest
 
@@ -121,11 +119,9 @@ def forces_report(target: str, patches: tuple[str, ...] = (), rho: float | None 
             out["balance"] = co.balance(res, rv, placement).to_dict()
     if case_dir is not None and (case_dir / "postProcessing").is_dir():
         try:
-            mon = cv.read_monitor(case_dir)
-            series = {k: v for k, v in mon.items() if k.startswith("force.total_")}
-            if series:
-                scale = max(float(np.linalg.norm([v[-1] for v in series.values()])), 1e-300)
-                out["convergence"] = cv.assess(series, window=window, floor=0.01 * scale).to_dict()
+            # the same judgement as the runner and `postproc sweep`: the settling window
+            # (last 30 % of the run, at least 20 samples) unless a window is given
+            out["convergence"] = cv.assess_force_monitor(case_dir, window=window).to_dict()
         except UserError as exc:
             out["notes"].append(f"convergence not assessed: {exc}")
     return out

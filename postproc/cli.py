@@ -92,7 +92,9 @@ def _table(r: dict) -> str:
 @click.option("--front-axle", nargs=3, type=float, help="Front axle X Y Z, m, body frame (wheelbase = distance to the rear axle).")
 @click.option("--rear-axle", nargs=3, type=float, help="Rear axle X Y Z, m, body frame.")
 @click.option("--cog", nargs=3, type=float, help="Centre of gravity X Y Z, m, body frame.")
-@click.option("--window", type=int, default=200, show_default=True, help="Monitor samples for the convergence verdict.")
+@click.option("--window", type=int, default=None,
+              help="Monitor samples for the convergence verdict (default: the last 30 % of the run, at least 20, "
+                   "as the runner judges it).")
 @click.option("--json", "as_json", is_flag=True, help="Print one JSON object instead of the table.")
 def forces_cmd(target, patches, rho, kinematic, normals, shear_on, p_ref, about, pressure_field, shear_field,
                no_shear, allow_nonfinite, allow_open, area, length, speed, front_axle, rear_axle, cog,

@@ -254,17 +254,31 @@ def analyse_diffuser(case: flowio.FlowCase, *, throat: float | None = None, exit
     """
     refs = references(case, rho=rho)
     if throat is None or exit is None:
-        pts = [case.patches[n].points for n in refs.body_patches if n in case.patches]
-        if not pts:
+        surfs = [case.patches[n] for n in refs.body_patches if n in case.patches]
+        if not surfs:
             raise UserError(expected="body surface patches to find the diffuser", got="none",
                             file=str(case.source), key="--throat/--exit", fix="give --throat and --exit (m, body x)")
         band = y_range
-        allp = np.concatenate(pts)
+        # the floor is seen through the centroids of the body faces that face up or
+        # down (|n_z| > 0.5: floor, ramp, top; not the sides), binned in x at about
+        # two face sizes so that every bin holds underside faces of the snapped mesh
+        c = np.concatenate([s.centroids for s in surfs])
+        nz = np.abs(np.concatenate([s.normals for s in surfs])[:, 2])
+        a = np.concatenate([s.areas for s in surfs])
+        flat = nz > 0.5
+        allp = c[flat] if flat.sum() >= 10 else c
+        size = float(np.median(np.sqrt(a[flat]))) if flat.sum() >= 10 else 0.0
+        span = float(allp[:, 0].max() - allp[:, 0].min())
+        n_bins = int(np.clip(span / (2.0 * size), 10, 100)) if size > 0 else 100
         # the profile in the body frame (flat floor level, rake removed) finds
         # the ramp; the clearance above the ground is the rise reference
-        x, z = dif.underside_profile(allp, np.zeros(3), np.array([0.0, 0.0, 1.0]), y_band=band)
-        _, h = dif.underside_profile(allp, refs.ground_point, refs.ground_normal, y_band=band)
+        x, z = dif.underside_profile(allp, np.zeros(3), np.array([0.0, 0.0, 1.0]), y_band=band, n_bins=n_bins)
+        _, h = dif.underside_profile(allp, refs.ground_point, refs.ground_normal, y_band=band, n_bins=n_bins)
         t, e = dif.find_diffuser(x, z, clearance=h)
+        # the exit as close to the trailing edge as the faces allow (a bin centre
+        # lies half a bin ahead of it): the rearmost underside face centroid
+        # less half a face
+        e = max(e, float(allp[:, 0].max()) - 0.5 * size)
         throat = t if throat is None else throat
         exit = e if exit is None else exit
     _check_stations(case, [throat, exit], "--throat/--exit")

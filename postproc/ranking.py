@@ -1,7 +1,9 @@
 """Rank geometry variants on performance *and* robustness over the sweep envelope.
 
 Input is the sweep's results table: one :class:`CaseResult` per case (built by
-the post-processing of each case). Cases that carry a flag (mesh failed,
+the post-processing of each case). When a variant was solved on several mesh
+levels, only its finest level is ranked (the others form the mesh study,
+:mod:`postproc.meshstudy`). Cases that carry a flag (mesh failed,
 layers collapsed, not converged, …) are **never ranked**: they are counted
 and listed, and a variant with flagged cases says so.
 
@@ -71,6 +73,8 @@ class CaseResult:
     balance: float | None = None
     stability_margin: float | None = None
     flags: tuple[str, ...] = ()
+    speed: float = float("nan")
+    mesh_level: int = 0
 
 
 @dataclass(frozen=True)
@@ -158,6 +162,11 @@ def rank_variants(
     by_variant: dict[str, list[CaseResult]] = {}
     for r in results:
         by_variant.setdefault(r.variant, []).append(r)
+    # a mesh-dependence sweep solves the same points on several mesh levels:
+    # rank each variant on its finest level only (coarser levels are the study)
+    for v, rows in by_variant.items():
+        finest = max(r.mesh_level for r in rows)
+        by_variant[v] = [r for r in rows if r.mesh_level == finest]
     metrics: dict[str, dict[str, float | None]] = {}
     notes: dict[str, list[str]] = {}
     for v, rows in by_variant.items():

@@ -169,7 +169,7 @@ def _fmt(x, nd: int = 3) -> str:
 
 
 def build_context(results: list[CaseResult], title: str, study: str = "", notes: list[str] | None = None,
-                  checks: list[dict] | None = None) -> dict:
+                  checks: list[dict] | None = None, mesh_study: list[dict] | None = None) -> dict:
     """Everything the report template needs, as plain strings/lists.
 
     ``checks``: optional per-case run and mesh facts (keys case_id, status,
@@ -248,15 +248,26 @@ def build_context(results: list[CaseResult], title: str, study: str = "", notes:
         "checks": [{k: (_fmt(v, 1) if isinstance(v, float) and "yplus" in k and "share" not in k
                          else _fmt(v, 2) if isinstance(v, float) else ("—" if v is None else v))
                      for k, v in c.items()} for c in (checks or [])],
+        "mesh_study": [{
+            "variant": m["variant"], "coefficient": {"cl": "C_L", "cd": "C_D"}[m["coefficient"]],
+            "point": f"{_fmt(1000 * m['ride_height_front'], 1)}/{_fmt(1000 * m['ride_height_rear'], 1)} mm, "
+                     f"pitch {_fmt(m['pitch_deg'], 2)}°, yaw {_fmt(m['yaw_deg'], 1)}°",
+            "levels": ", ".join(str(x) for x in m["levels"]),
+            "values": ", ".join(_fmt(x, 4) for x in m["phi"]),
+            "order": _fmt(m["order"], 2), "extrapolated": _fmt(m["extrapolated"], 4),
+            "gci": _fmt(100 * m["gci_fine"], 2) if m["gci_fine"] == m["gci_fine"] else "—",
+            "note": m["note"] or ("" if m["converged"] else "not in the asymptotic range"),
+        } for m in (mesh_study or [])],
         "n_cases": len(results),
         "n_ok": len(ok),
     }
 
 
 def write_report(results: list[CaseResult], path: str | os.PathLike, title: str = "Sweep report",
-                 study: str = "", notes: list[str] | None = None, checks: list[dict] | None = None) -> Path:
+                 study: str = "", notes: list[str] | None = None, checks: list[dict] | None = None,
+                 mesh_study: list[dict] | None = None) -> Path:
     """Render the report to ``path`` (atomic write) and return the path."""
-    ctx = build_context(results, title=title, study=study, notes=notes, checks=checks)
+    ctx = build_context(results, title=title, study=study, notes=notes, checks=checks, mesh_study=mesh_study)
     text = environment().get_template("report/sweep_report.html.j2").render(**ctx)
     p = Path(path)
     write_text_atomic(p, text)

@@ -43,6 +43,7 @@ from . import wallchecks as wc
 from .caseforces import forces_report
 from .convergence import assess_force_monitor, settle_window
 from .forces import face_geometry
+from .meshstudy import grid_convergence
 from .readers import latest_export, read_surface
 from .ranking import CaseResult, rank_variants
 from .report import write_report
@@ -127,6 +128,8 @@ def process_case(manifest: Manifest, case: CaseRecord) -> CaseOutcome:
         ride_height_rear=float(p.get("ride_height_rear", math.nan)),
         pitch_deg=float(p.get("pitch_deg", 0.0)),
         yaw_deg=float(p.get("yaw_deg", 0.0)),
+        speed=float(p.get("speed", math.nan)),
+        mesh_level=int(p.get("mesh_level", 0)),
     )
     exported = (case_dir / "logs" / "export.done").is_file()
     report = None
@@ -203,6 +206,39 @@ def outcome_row(o: CaseOutcome) -> dict[str, Any]:
     return r
 
 
+#: representative cell size of mesh level m relative to level 0: each level
+#: divides the base cell by √2 (caseprep.domain), so h_m = 2^(−m/2)
+def level_cell_size(level: int) -> float:
+    return 2.0 ** (-0.5 * level)
+
+
+def mesh_study(results: list[CaseResult]) -> list[dict[str, Any]]:
+    """Grid convergence (Celik et al. 2008, postproc.meshstudy) of C_L and C_D
+    for every operating point solved on three or more mesh levels (unflagged
+    cases only; the three finest levels are used). One dict per point and
+    coefficient: the point's parameters, the values per level, the apparent
+    order, the extrapolated value and the fine-mesh GCI (fraction)."""
+    groups: dict[tuple, dict[int, CaseResult]] = {}
+    for r in results:
+        if r.flags or not math.isfinite(r.cl):
+            continue
+        key = (r.variant, round(r.ride_height_front, 9), round(r.ride_height_rear, 9), round(r.pitch_deg, 9),
+               round(r.yaw_deg, 9), round(r.speed, 9) if math.isfinite(r.speed) else None)
+        groups.setdefault(key, {})[r.mesh_level] = r
+    out = []
+    for key, by_level in groups.items():
+        if len(by_level) < 3:
+            continue
+        lv = sorted(by_level)[-3:][::-1]  # finest first
+        rows = [by_level[m] for m in lv]
+        for name, get in (("cl", lambda r: r.cl), ("cd", lambda r: r.cd)):
+            g = grid_convergence(*(get(r) for r in rows), *(level_cell_size(m) for m in lv))
+            out.append({"variant": key[0], "ride_height_front": key[1], "ride_height_rear": key[2],
+                        "pitch_deg": key[3], "yaw_deg": key[4], "speed": key[5], "coefficient": name,
+                        "levels": lv, "cases": [r.case_id for r in rows], **g.to_dict()})
+    return out
+
+
 def _csv(rows: list[dict[str, Any]]) -> str:
     cols: list[str] = []
     for r in rows:
@@ -266,6 +302,7 @@ def postprocess_sweep(
     }
     write_text_atomic(paths["csv"], _csv(rows))
     ranking = rank_variants([o.result for o in outcomes])
+    study = mesh_study([o.result for o in outcomes])
     write_json_atomic(paths["json"], _json_safe({
         "study": manifest.study,
         "axes": "wind axes of caseprep.frames: C_L positive up (downforce = -C_L), C_D along the relative wind, "
@@ -273,6 +310,7 @@ def postprocess_sweep(
         "flags": {f: _flag_text(f) for f in sorted({f for o in outcomes for f in o.result.flags})},
         "cases": rows,
         "ranking": [asdict(s) for s in ranking],
+        "mesh_study": study,
     }))
     notes = []
     flags = sorted({f for o in outcomes for f in o.result.flags})
@@ -284,7 +322,7 @@ def postprocess_sweep(
     checks = [{k: r.get(k) for k in check_keys} for r in rows]
     write_report([o.result for o in outcomes], paths["report"],
                  title=title or f"Sweep report — {manifest.study or Path(sweep_dir).name}",
-                 study=manifest.study, notes=notes, checks=checks)
+                 study=manifest.study, notes=notes, checks=checks, mesh_study=study)
     return outcomes, paths
 
 

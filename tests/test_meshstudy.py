@@ -45,3 +45,31 @@ def test_oscillatory_and_degenerate_sets_say_so():
     assert same.converged and same.gci_fine == 0.0 and same.extrapolated == 2.0
     with pytest.raises(ValueError, match="h_fine < h_medium"):
         grid_convergence(1, 2, 3, 2.0, 1.0, 3.0)
+
+
+def test_sweep_mesh_study_and_ranking_on_the_finest_level(tmp_path):
+    # three mesh levels of one operating point, values on an exact second-order
+    # law in the level cell size h_m = 2^(-m/2) (Richardson 1911: exact recovery)
+    from postproc.ranking import CaseResult, rank_variants
+    from postproc.report import write_report
+    from postproc.sweep import level_cell_size, mesh_study
+
+    rows = []
+    for m in (0, 1, 2):
+        h = level_cell_size(m)
+        rows.append(CaseResult(f"a-{m}", "a", 0.03, 0.04, -0.5, 0.0, cl=-1.2 + 0.3 * h**2, cd=0.4 + 0.05 * h**2,
+                               balance=0.45, mesh_level=m, speed=40.0))
+        rows.append(CaseResult(f"b-{m}", "b", 0.03, 0.04, -0.5, 0.0, cl=-1.0 - 0.2 * h**2, cd=0.38,
+                               balance=0.45, mesh_level=m, speed=40.0))
+    study = mesh_study(rows)
+    a_cl = next(s for s in study if s["variant"] == "a" and s["coefficient"] == "cl")
+    assert a_cl["levels"] == [2, 1, 0]
+    assert a_cl["order"] == pytest.approx(2.0, rel=1e-9) and a_cl["extrapolated"] == pytest.approx(-1.2, rel=1e-9)
+    b_cd = next(s for s in study if s["variant"] == "b" and s["coefficient"] == "cd")
+    assert b_cd["gci_fine"] == 0.0  # identical on every level
+    # the ranking uses level 2 only: variant a's downforce there is 1.2 - 0.3/4
+    scores = {s.variant: s for s in rank_variants(rows)}
+    assert scores["a"].metrics["downforce"] == pytest.approx(1.2 - 0.3 * 0.25)
+    assert scores["a"].n_cases == 1
+    text = write_report(rows, tmp_path / "r.html", mesh_study=study).read_text()
+    assert "Mesh dependence" in text and "Celik" in text

@@ -68,6 +68,7 @@ class CaseOutcome:
     cells: int | None
     iterations: int | None
     convergence: str | None
+    layers: str | None = None  # e.g. "body 85 %, strake_left 38 %" (share of the target layer thickness)
     notes: tuple[str, ...] = ()
     report: dict[str, Any] | None = field(default=None, repr=False)
     yplus: dict[str, dict] = field(default_factory=dict)
@@ -187,9 +188,13 @@ def process_case(manifest: Manifest, case: CaseRecord) -> CaseOutcome:
             notes.append(why)
     result = CaseResult(**base, cl=cl, cd=cd, cs=cs, cl_front=clf, cl_rear=clr, balance=bal,
                         stability_margin=margin, flags=tuple(dict.fromkeys(flags)))
+    layers = None
+    if rec is not None and rec.layers:
+        layers = ", ".join(f"{d.get('patch')} {d.get('thickness_percent'):.0f} %" for d in rec.layers
+                           if d.get("thickness_percent") is not None) or None
     return CaseOutcome(result=result, status=status, cells=rec.cells if rec else None,
                        iterations=rec.iterations if rec else None, convergence=verdict,
-                       notes=tuple(notes), report=report, yplus=yplus)
+                       notes=tuple(notes), report=report, yplus=yplus, layers=layers)
 
 
 def outcome_row(o: CaseOutcome) -> dict[str, Any]:
@@ -197,7 +202,7 @@ def outcome_row(o: CaseOutcome) -> dict[str, Any]:
     r = asdict(o.result)
     r["flags"] = " ".join(o.result.flags)
     r["downforce_coefficient"] = -o.result.cl if math.isfinite(o.result.cl) else None
-    r.update(status=o.status, cells=o.cells, iterations=o.iterations, convergence=o.convergence)
+    r.update(status=o.status, cells=o.cells, iterations=o.iterations, convergence=o.convergence, layers=o.layers)
     if o.yplus:
         a = o.yplus[ALL_WALLS]  # all body and wheel faces together
         r.update(yplus_median=a["median"], yplus_p95=a["p95"], yplus_max=a["max"],
@@ -317,7 +322,7 @@ def postprocess_sweep(
     for f in flags:
         k = sum(f in o.result.flags for o in outcomes)
         notes.append(f"{k} case(s) flagged '{f}': {_flag_text(f)}")
-    check_keys = ("case_id", "status", "cells", "iterations", "convergence", "yplus_median", "yplus_p95",
+    check_keys = ("case_id", "status", "cells", "layers", "iterations", "convergence", "yplus_median", "yplus_p95",
                   "yplus_share_in_range", "yplus_range")
     checks = [{k: r.get(k) for k in check_keys} for r in rows]
     write_report([o.result for o in outcomes], paths["report"],

@@ -39,7 +39,7 @@ from . import solverlogs as sl
 from .settling import force_settling, judge_convergence, residual_drop
 from .errors import UserError, did_you_mean
 from .manifest import CaseRecord, read_manifest
-from .safeio import write_json_atomic
+from .safeio import json_ready, write_json_atomic
 
 STAGES: tuple[str, ...] = ("mesh", "solve", "export")
 STAGE_TOOLS: dict[str, tuple[str, ...]] = {
@@ -225,7 +225,7 @@ class CaseRunRecord:
         return None
 
     def to_dict(self) -> dict[str, Any]:
-        return sl._jsonable(asdict(self))
+        return json_ready(asdict(self))
 
     @classmethod
     def from_dict(cls, d: dict[str, Any]) -> "CaseRunRecord":

@@ -39,6 +39,28 @@ def write_text_atomic(path: str | os.PathLike, text: str, mode: int | None = Non
     write_bytes_atomic(path, text.encode("utf-8"), mode=mode)
 
 
+def json_ready(obj: object) -> object:
+    """``obj`` with numpy arrays and scalars turned into Python lists and
+    numbers, dict keys into strings, and non-finite floats (NaN, ±inf) into
+    None, so that it serialises as strict JSON. Input not modified."""
+    import math
+
+    import numpy as np
+
+    if isinstance(obj, dict):
+        return {str(k): json_ready(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return [json_ready(v) for v in obj]
+    if isinstance(obj, np.ndarray):
+        return json_ready(obj.tolist())
+    if isinstance(obj, (np.floating, float)):
+        f = float(obj)
+        return f if math.isfinite(f) else None
+    if isinstance(obj, np.integer):
+        return int(obj)
+    return obj
+
+
 def write_json_atomic(path: str | os.PathLike, obj: object) -> None:
     """Write ``obj`` as indented JSON to ``path`` atomically."""
     write_text_atomic(path, json.dumps(obj, indent=2, sort_keys=False) + "\n")

@@ -25,6 +25,8 @@ import re
 from dataclasses import asdict, dataclass, field
 from typing import Any
 
+from .safeio import json_ready
+
 _NUM = r"(?:[-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?|[-+]?nan|[-+]?inf)"
 
 # ---------------------------------------------------------------- common
@@ -82,17 +84,7 @@ def _nprocs(text: str) -> int:
 class _Dict:
     def to_dict(self) -> dict[str, Any]:
         """JSON-ready form (tuples become lists, NaN becomes None)."""
-        return _jsonable(asdict(self))
-
-
-def _jsonable(o: Any) -> Any:
-    if isinstance(o, dict):
-        return {k: _jsonable(v) for k, v in o.items()}
-    if isinstance(o, (list, tuple)):
-        return [_jsonable(v) for v in o]
-    if isinstance(o, float) and not math.isfinite(o):
-        return None
-    return o
+        return json_ready(asdict(self))
 
 
 # ---------------------------------------------------------------- background mesh

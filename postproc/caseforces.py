@@ -22,9 +22,14 @@ def forces_report(target: str, patches: tuple[str, ...] = (), rho: float | None 
                shear_field: str = "wallShearStress", no_shear: bool = False, allow_nonfinite: bool = False,
                allow_open: bool = False, area: float | None = None, length: float | None = None,
                speed: float | None = None, wheelbase: float | None = None, front_axle=None, rear_axle=None,
-               cog=None, window: int | None = None) -> dict:
+               cog=None, window: int | None = None, monitor_options: dict | None = None) -> dict:
     """Read, integrate and reduce one surface or case; returns the JSON-ready
-    report (see ``postproc forces --help``). Raises UserError on bad input."""
+    report (see ``postproc forces --help``). Raises UserError on bad input.
+
+    ``window`` and ``monitor_options`` (keyword arguments of
+    :func:`postproc.convergence.assess_force_monitor`: ``drift_tol``,
+    ``std_tol``, ``floor_fraction``) set how the runtime force monitor is
+    judged; the sweep post-processing passes the runner's settings."""
     from pathlib import Path
 
     from caseprep.manifest import find_case_manifest
@@ -119,9 +124,9 @@ def forces_report(target: str, patches: tuple[str, ...] = (), rho: float | None 
             out["balance"] = co.balance(res, rv, placement).to_dict()
     if case_dir is not None and (case_dir / "postProcessing").is_dir():
         try:
-            # the same judgement as the runner and `postproc sweep`: the settling window
-            # (last 30 % of the run, at least 20 samples) unless a window is given
-            out["convergence"] = cv.assess_force_monitor(case_dir, window=window).to_dict()
+            # over the settling window (last 30 % of the run, at least 20 samples)
+            # unless a window is given
+            out["convergence"] = cv.assess_force_monitor(case_dir, window=window, **(monitor_options or {})).to_dict()
         except UserError as exc:
             out["notes"].append(f"convergence not assessed: {exc}")
     return out

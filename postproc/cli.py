@@ -166,25 +166,6 @@ def _floats(text: str | None, option: str, n: int | None = None) -> list[float] 
     return vals
 
 
-def _jsonable(obj):
-    import math
-
-    import numpy as np
-
-    if isinstance(obj, dict):
-        return {str(k): _jsonable(v) for k, v in obj.items()}
-    if isinstance(obj, (list, tuple)):
-        return [_jsonable(v) for v in obj]
-    if isinstance(obj, np.ndarray):
-        return _jsonable(obj.tolist())
-    if isinstance(obj, (np.floating, float)):
-        f = float(obj)
-        return f if math.isfinite(f) else None
-    if isinstance(obj, np.integer):
-        return int(obj)
-    return obj
-
-
 def _emit(payload: dict, as_json: bool, output: str | None, force: bool, summary) -> None:
     import json
     from pathlib import Path
@@ -192,7 +173,9 @@ def _emit(payload: dict, as_json: bool, output: str | None, force: bool, summary
     from caseprep.errors import UserError
     from caseprep.safeio import write_json_atomic
 
-    data = _jsonable(payload)
+    from caseprep.safeio import json_ready
+
+    data = json_ready(payload)
     if output:
         out = Path(output)
         if out.exists() and not force:

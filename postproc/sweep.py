@@ -37,11 +37,11 @@ from typing import Any, Callable
 from caseprep import runner
 from caseprep.errors import UserError
 from caseprep.manifest import CaseRecord, Manifest, read_manifest
-from caseprep.safeio import write_json_atomic, write_text_atomic
+from caseprep.safeio import json_ready, write_json_atomic, write_text_atomic
 
 from . import wallchecks as wc
 from .caseforces import forces_report
-from .convergence import assess_force_monitor, settle_window
+from .convergence import settle_window
 from .forces import face_geometry
 from .meshstudy import grid_convergence
 from .readers import latest_export, read_surface
@@ -142,7 +142,14 @@ def process_case(manifest: Manifest, case: CaseRecord) -> CaseOutcome:
             flags.append(status)
     else:
         try:
-            report = forces_report(str(case_dir))
+            # the monitor judged as the runner judges settling (caseprep.runner.RunOptions)
+            opts = runner.RunOptions()
+            report = forces_report(
+                str(case_dir),
+                window=None if rec is None or not rec.iterations else
+                settle_window(rec.iterations, opts.settle_fraction, opts.settle_min_samples),
+                monitor_options={"drift_tol": opts.settle_tol, "std_tol": opts.settle_tol,
+                                 "floor_fraction": opts.settle_floor})
         except UserError as exc:
             flags.append("forces-failed")
             notes.append(f"forces: {exc}")
@@ -166,17 +173,9 @@ def process_case(manifest: Manifest, case: CaseRecord) -> CaseOutcome:
                 margin = None
                 notes.append("zero yaw: no side force to place, stability margin not reported")
             notes.extend(b.get("notes", []))
-        opts = runner.RunOptions()
-        try:
-            mon = assess_force_monitor(case_dir, window=None if rec is None or not rec.iterations else
-                                       settle_window(rec.iterations, opts.settle_fraction, opts.settle_min_samples),
-                                       drift_tol=opts.settle_tol, std_tol=opts.settle_tol,
-                                       floor_fraction=opts.settle_floor)
-        except UserError:
-            mon = None
-        if mon is not None:
-            verdict = mon.verdict
-            report["convergence"] = mon.to_dict()
+        conv = report.get("convergence")
+        if conv is not None:
+            verdict = conv["verdict"]
             if verdict == "diverging":
                 flags.append("forces-drifting")
         else:
@@ -257,16 +256,6 @@ def _csv(rows: list[dict[str, Any]]) -> str:
     return buf.getvalue()
 
 
-def _json_safe(v):
-    if isinstance(v, float) and not math.isfinite(v):
-        return None
-    if isinstance(v, dict):
-        return {k: _json_safe(x) for k, x in v.items()}
-    if isinstance(v, (list, tuple)):
-        return [_json_safe(x) for x in v]
-    return v
-
-
 def postprocess_sweep(
     sweep_dir: str | os.PathLike,
     out_dir: str | os.PathLike | None = None,
@@ -295,7 +284,7 @@ def postprocess_sweep(
         outcomes.append(o)
         if o.report is not None:
             write_json_atomic(out / RESULTS_DIR / f"{case.case_id}.json",
-                              _json_safe({**o.report, "yplus": o.yplus, "flags": list(o.result.flags)}))
+                              json_ready({**o.report, "yplus": o.yplus, "flags": list(o.result.flags)}))
         if progress is not None:
             progress(i + 1, n, o)
     rows = [outcome_row(o) for o in outcomes]
@@ -308,7 +297,7 @@ def postprocess_sweep(
     write_text_atomic(paths["csv"], _csv(rows))
     ranking = rank_variants([o.result for o in outcomes])
     study = mesh_study([o.result for o in outcomes])
-    write_json_atomic(paths["json"], _json_safe({
+    write_json_atomic(paths["json"], json_ready({
         "study": manifest.study,
         "axes": "wind axes of caseprep.frames: C_L positive up (downforce = -C_L), C_D along the relative wind, "
                 "C_S along +y_W; balance = front share of downforce; ride heights m; angles deg",

@@ -14,6 +14,7 @@ from pathlib import Path
 import numpy as np
 
 from caseprep import frames as fr
+from caseprep.geometry import write_stl_ascii
 from caseprep.manifest import Reference
 from caseprep.spec import (CaseSpec, Domain, Flow, Layers, MeshSpec, OrientedBox, RefinementRegion,
                            SolverSpec, Wheel)
@@ -60,20 +61,7 @@ def body_polyhedron() -> tuple[np.ndarray, dict[str, list[tuple[int, int, int]]]
 def write_body_stl(path: Path) -> Path:
     """Write the demo body as an ASCII STL with solids ``body`` and ``floor``."""
     V, tris = body_polyhedron()
-    lines = []
-    for solid, ts in tris.items():
-        lines.append(f"solid {solid}")
-        for a, b, d in ts:
-            nrm = np.cross(V[b] - V[a], V[d] - V[a])
-            nrm /= np.linalg.norm(nrm)
-            lines.append("  facet normal {:.9g} {:.9g} {:.9g}".format(*nrm))
-            lines.append("    outer loop")
-            for k in (a, b, d):
-                lines.append("      vertex {:.9g} {:.9g} {:.9g}".format(*V[k]))
-            lines.append("    endloop")
-            lines.append("  endfacet")
-        lines.append(f"endsolid {solid}")
-    path.write_text("\n".join(lines) + "\n")
+    write_stl_ascii(path, [(solid, V[np.asarray(ts)]) for solid, ts in tris.items()])
     return path
 
 

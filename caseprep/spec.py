@@ -165,14 +165,15 @@ class Flow:
 @dataclass(frozen=True)
 class SolverSpec:
     """Solver controls: iteration budget, output interval, parallel ranks,
-    the decomposition split (product = n_procs) and relaxation."""
+    the decomposition split (product = n_procs) and relaxation (the momentum
+    relaxation and the non-orthogonal correctors follow the mesh: see
+    :data:`caseprep.render.MESH_NUMERICS`)."""
 
     n_iterations: int
     write_interval: int
     n_procs: int
     split: tuple[int, int, int]
     relax_p: float = 1.0
-    relax_u: float = 0.9
     relax_turb: float = 0.7
     consistent: bool = True
     monitor_interval: int = 1

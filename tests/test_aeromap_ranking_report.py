@@ -4,9 +4,10 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from postproc.aeromap import fit_response_surface
-from postproc.ranking import CaseResult, rank_variants, variant_metrics
-from postproc.report import write_report
+from postproc.kernels.aeromap import fit_response_surface
+from postproc.kernels.ranking import CaseResult, rank_variants, variant_metrics
+from postproc.pipelines.sweep import analyse_results
+from postproc.report.sweep_report import write_report
 
 
 def _quadratic(hf, hr):
@@ -87,7 +88,7 @@ def test_undefined_balance_is_noted_not_divided():
 
 def test_report_is_self_contained_and_cautions(tmp_path):
     rows = _rows("flat", 1.0, 1.0) + _rows("ramp", 1.3, 2.0, flags_at=2)
-    p = write_report(rows, tmp_path / "report.html", title="Demo <study>", notes=["a <b> note"])
+    p = write_report(analyse_results(rows, title="Demo <study>", notes=["a <b> note"]), tmp_path / "report.html")
     text = p.read_text()
     assert "validate every decision by physical test" in text.lower()
     assert "qualified engineers" in text

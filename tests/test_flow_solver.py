@@ -15,8 +15,9 @@ import subprocess
 import numpy as np
 import pytest
 
-from postproc import flowio, flowreport
-from postproc import gradients as G
+from postproc.io import flow as flowio
+from postproc.pipelines import case_flow as flowreport
+from postproc.kernels import gradients as G
 
 from tiny_case import write_tiny_case
 

@@ -7,9 +7,9 @@ import numpy as np
 import pytest
 import vtk
 
-from postproc import flowio
-from postproc import flowreport
-from postproc import gradients as G
+from postproc.io import flow as flowio
+from postproc.pipelines import case_flow as flowreport
+from postproc.kernels import gradients as G
 
 from flow_meshes import box_grid, box_patch, burgers, lamb_oseen, lamb_oseen_q
 
@@ -48,7 +48,7 @@ def test_adjacency_matches_vtk_face_neighbours(mesh):
 
 
 def test_lsq_exact_for_linear_fields(mesh):
-    # Proof (module docstring of postproc.gradients): for φ = a + g·x the LSQ
+    # Proof (module docstring of postproc.kernels.gradients): for φ = a + g·x the LSQ
     # normal equations give M g = M g, so the operator returns g exactly when
     # M is invertible; only round-off remains (1e-9 relative is ~1e6 × eps).
     kind, g, A, nb, X, op = mesh

@@ -11,12 +11,13 @@ import pytest
 from click.testing import CliRunner
 from scipy.optimize import brentq
 
-from postproc import diffuser as dif
-from postproc import flowio, flowreport
-from postproc import gradients as G
-from postproc import underbody as ub
-from postproc import vortices as vx
-from postproc import wallchecks as wc
+from postproc.kernels import diffuser as dif
+from postproc.io import flow as flowio
+from postproc.pipelines import case_flow as flowreport
+from postproc.kernels import gradients as G
+from postproc.kernels import underbody as ub
+from postproc.kernels import vortices as vx
+from postproc.kernels import wallchecks as wc
 from postproc.cli import main
 
 from flow_meshes import box_grid, lamb_oseen

@@ -33,10 +33,10 @@ warnings.filterwarnings("ignore")
 
 from flow_meshes import box_grid, lamb_oseen  # noqa: E402
 
-from postproc import flowio  # noqa: E402
-from postproc import flowreport  # noqa: E402
-from postproc import gradients as G  # noqa: E402
-from postproc import vortices as vx  # noqa: E402
+from postproc.io import flow as flowio  # noqa: E402
+from postproc.pipelines import case_flow as flowreport  # noqa: E402
+from postproc.kernels import gradients as G  # noqa: E402
+from postproc.kernels import vortices as vx  # noqa: E402
 
 GAM, RC = 1.0, 0.15
 

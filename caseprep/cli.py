@@ -14,7 +14,7 @@ from caseprep.contract import __version__
 from caseprep.contract.cli_common import FriendlyGroup
 from caseprep.contract.convergence import DEFAULT_OPTIONS, ConvergenceOptions
 from caseprep.contract.errors import UserError
-from caseprep.contract.records import FLAG_TEXT
+from caseprep.contract.records import flag_meaning
 
 
 @click.group(cls=FriendlyGroup, context_settings={"help_option_names": ["-h", "--help"]})
@@ -114,7 +114,7 @@ def run_cmd(sweep_dir, jobs, ranks, only, stages, force, residual_tol, quiet, sk
     flagged = [r for r in records if r.flags and not r.failed]
     click.echo("")
     for f in sorted({f for r in records for f in r.flags}):
-        click.echo(f"  {f}: {FLAG_TEXT.get(f, f)}")
+        click.echo(f"  {f}: {flag_meaning(f)}")
     click.echo(f"{len(records)} case(s) in {runner.format_duration(dt)}: {len(records) - len(failed)} ran, "
                f"{len(failed)} failed, {len(flagged)} flagged. Records: {sweep_dir}/run_summary.json")
     if failed:

@@ -4,6 +4,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
+from caseprep.contract.records import Flag
 from postproc.kernels.aeromap import fit_response_surface
 from postproc.kernels.ranking import CaseResult, rank_variants, variant_metrics
 from postproc.pipelines.sweep import analyse_results
@@ -53,7 +54,7 @@ def _rows(variant, k, balance_slope, flags_at=None):
         cl = -k * (1.0 - 0.02 * yaw)
         rows.append(CaseResult(f"{variant}-{i}", variant, hf, hr, -0.3, yaw, cl, 0.4, 0.02 * yaw,
                                balance=0.45 + balance_slope * (hf - 0.02), stability_margin=0.1 if yaw else None,
-                               flags=("not converged",) if flags_at == i else ()))
+                               flags=(Flag.NOT_CONVERGED,) if flags_at == i else ()))
     return rows
 
 
@@ -94,5 +95,5 @@ def test_report_is_self_contained_and_cautions(tmp_path):
     assert "qualified engineers" in text
     assert "<svg" in text and "http://" not in text.replace("http://www.w3.org/2000/svg", "")
     assert "Demo &lt;study&gt;" in text and "a &lt;b&gt; note" in text
-    assert "ramp-2" in text and "not converged" in text
+    assert "ramp-2" in text and "not-converged" in text
     assert not list(tmp_path.glob(".*.tmp"))

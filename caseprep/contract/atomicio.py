@@ -43,6 +43,7 @@ def json_ready(obj: object) -> object:
     """``obj`` with numpy arrays and scalars turned into Python lists and
     numbers, dict keys into strings, and non-finite floats (NaN, ±inf) into
     None, so that it serialises as strict JSON. Input not modified."""
+    import enum
     import math
 
     import numpy as np
@@ -58,6 +59,8 @@ def json_ready(obj: object) -> object:
         return f if math.isfinite(f) else None
     if isinstance(obj, np.integer):
         return int(obj)
+    if isinstance(obj, enum.Enum):
+        return json_ready(obj.value)
     return obj
 
 

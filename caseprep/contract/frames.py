@@ -76,11 +76,10 @@ vector (force, velocity, normal) transforms with ``R`` alone.
 from __future__ import annotations
 
 from dataclasses import dataclass
-from typing import Literal, Sequence
+from typing import Sequence
 
 import numpy as np
 
-YawMode = Literal["crosswind", "yawed-model"]
 YAW_MODES: tuple[str, ...] = ("crosswind", "yawed-model")
 
 

@@ -57,8 +57,6 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-import numpy as np
-
 from caseprep.contract.errors import UserError
 from caseprep.contract.frames import Placement
 from caseprep.contract.atomicio import write_json_atomic
@@ -296,8 +294,3 @@ def find_case_manifest(case_dir: str | os.PathLike) -> tuple[Manifest, CaseRecor
                 if (parent / c.folder).resolve() == cd:
                     return m, c
     return None
-
-
-def as_vec(v: Any) -> np.ndarray:
-    """A 3-vector from a list/tuple (float64 copy)."""
-    return np.asarray(v, dtype=float).reshape(3)

@@ -39,8 +39,8 @@ from caseprep.contract.atomicio import write_json_atomic
 from caseprep.contract.convergence import DEFAULT_OPTIONS, ConvergenceOptions, force_settling, judge_convergence
 from caseprep.contract.errors import UserError, did_you_mean
 from caseprep.contract.manifest import CaseRecord, read_manifest
-from caseprep.contract.records import (FLAG_TEXT, RECORD_NAME, RUN_FLAGS, SUMMARY_NAME, SUMMARY_SCHEMA, CaseRunRecord,
-                                       StageRun, effective_status, read_case_record)
+from caseprep.contract.records import (RECORD_NAME, RUN_FLAGS, SUMMARY_NAME, SUMMARY_SCHEMA, CaseRunRecord, Flag,
+                                       StageRun, Status, effective_status, read_case_record)
 
 STAGES: tuple[str, ...] = ("mesh", "solve", "export")
 STAGE_TOOLS: dict[str, tuple[str, ...]] = {
@@ -48,7 +48,7 @@ STAGE_TOOLS: dict[str, tuple[str, ...]] = {
     "solve": ("decomposePar", "simpleFoam", "reconstructPar"),
     "export": ("foamToVTK",),
 }
-FAILED_STATUS = {"mesh": "mesh-failed", "solve": "solve-failed", "export": "export-failed"}
+FAILED_STATUS = {"mesh": Status.MESH_FAILED, "solve": Status.SOLVE_FAILED, "export": Status.EXPORT_FAILED}
 SOLVER_BINARIES = ("blockMesh", "snappyHexMesh", "checkMesh", "simpleFoam", "foamToVTK", "decomposePar",
                    "reconstructPar")
 INSTALL_HINT = "sudo apt-get install -y --no-install-recommends openfoam"
@@ -150,16 +150,16 @@ def summarize_logs(case_dir: Path, valid_stages: Sequence[str], options: RunOpti
                                    "layers": p.layers, "coverage": p.coverage, "thickness_percent": p.thickness_percent}
                                   for p in s.layers)
             if s.collapsed_patches(options.min_layer_coverage):
-                flags.append("layers-collapsed")
+                flags.append(Flag.LAYERS_COLLAPSED)
             if s.illegal_faces:
-                flags.append("mesh-illegal-faces")
+                flags.append(Flag.MESH_ILLEGAL_FACES)
         if cm is not None:
             c = sl.parse_checkmesh(cm)
             cells = c.cells if c.cells is not None else cells
             out.update(mesh_ok=c.mesh_ok, failed_checks=c.failed_checks,
                        max_non_orthogonality=c.max_non_orthogonality, max_skewness=c.max_skewness)
             if c.mesh_ok is False:
-                flags.append("mesh-checks-failed")
+                flags.append(Flag.MESH_CHECKS_FAILED)
         out["cells"] = cells
     if "solve" in valid_stages:
         so = _read(logs / "simpleFoam.log")
@@ -168,7 +168,7 @@ def summarize_logs(case_dir: Path, valid_stages: Sequence[str], options: RunOpti
             out.update(iterations=r.iterations, end_reason=r.end_reason, final_residuals=dict(r.final_residuals),
                        continuity_cumulative=r.continuity_cumulative)
             if r.end_reason == "crashed":
-                flags.append("solver-crashed")
+                flags.append(Flag.SOLVER_CRASHED)
             elif r.end_reason == "converged":
                 out["convergence"] = "the solver's residual criterion was met"
             else:
@@ -176,14 +176,14 @@ def summarize_logs(case_dir: Path, valid_stages: Sequence[str], options: RunOpti
                 ok, why, drop = judge_convergence(r.residuals, r.final_residuals, settling, options.convergence)
                 out.update(convergence=why, residual_drop=drop, force_settling=settling)
                 if not ok:
-                    flags.append("not-converged")
+                    flags.append(Flag.NOT_CONVERGED)
     if "export" in valid_stages:
         ex = _read(logs / "foamToVTK.log")
         if ex is not None:
             e = sl.parse_export(ex)
             out["export_files"] = len(e.files)
             if not e.files and e.finished:
-                flags.append("export-empty")
+                flags.append(Flag.EXPORT_EMPTY)
     out["flags"] = tuple(flags)
     return out
 
@@ -314,12 +314,12 @@ def run_sweep(
         prev = read_case_record(cdir)
         to_run, plan, why = _plan(cdir, stages, force)
         if why:
-            rec = _finish_record(_Job(i, c, cdir, [], plan, prev), "not-ready", why, ranks, options)
+            rec = _finish_record(_Job(i, c, cdir, [], plan, prev), Status.NOT_READY, why, ranks, options)
             records[c.case_id] = rec
             _write_record(cdir, rec)
             emit(Progress(c.case_id, i, total, "case-done", message=why, record=rec))
         elif not to_run:
-            rec = _finish_record(_Job(i, c, cdir, [], plan, prev), "skipped", "all requested stages done before",
+            rec = _finish_record(_Job(i, c, cdir, [], plan, prev), Status.SKIPPED, "all requested stages done before",
                                  ranks, options)
             records[c.case_id] = rec
             emit(Progress(c.case_id, i, total, "skipped", message="done before; use --force to run again", record=rec))
@@ -356,7 +356,7 @@ def run_sweep(
                     if job.to_run:
                         _start_stage(job, env, emit, total)
                         continue
-                    rec = _finish_record(job, "ok", "", ranks, options)
+                    rec = _finish_record(job, Status.OK, "", ranks, options)
                 else:
                     job.results[stage] = StageRun(stage, "failed", round(dt, 3), rc)
                     tool, log = _failing_tool(job.dir, stage, job.stage_wall0)
@@ -386,7 +386,7 @@ def run_sweep(
             if job.stage is None or job.proc is None:
                 continue
             job.results[job.stage] = StageRun(job.stage, "interrupted", round(now - job.stage_t0, 3), None)
-            rec = _finish_record(job, "interrupted", f"interrupted during {job.stage}", ranks, options)
+            rec = _finish_record(job, Status.INTERRUPTED, f"interrupted during {job.stage}", ranks, options)
             records[job.rec.case_id] = rec
             _write_record(job.dir, rec)
             emit(Progress(job.rec.case_id, job.index, total, "interrupted", job.stage, now - job.t0))
@@ -459,7 +459,7 @@ def _finish_record(job: _Job, status: str, message: str, ranks: int, options: Ru
     if status == "mesh-failed":
         flags.insert(0, "mesh-failed")
     if status == "solve-failed" and "solver-crashed" not in flags:
-        flags.append("solver-crashed")
+        flags.append(Flag.SOLVER_CRASHED)
     if status in ("solve-failed", "interrupted") or "solve" not in [s.stage for s in stages if s.status in ("ok", "done-before")]:
         flags = [f for f in flags if f != "not-converged"]
     wall = sum(s.wall_time or 0.0 for s in stages if s.status in ("ok", "failed", "interrupted"))
@@ -481,14 +481,14 @@ def _write_summary(root: Path, manifest, records: dict[str, CaseRunRecord], rank
     for c in manifest.cases:
         rec = records.get(c.case_id) or read_case_record(manifest.case_dir(c))
         if rec is None:
-            rec = CaseRunRecord(case_id=c.case_id, folder=c.folder, status="not-run")
+            rec = CaseRunRecord(case_id=c.case_id, folder=c.folder, status=Status.NOT_RUN)
         rows.append(rec.to_dict())
     counts: dict[str, int] = {}
     for r in rows:
         counts[r["status"]] = counts.get(r["status"], 0) + 1
     write_json_atomic(root / SUMMARY_NAME, {
         "schema": SUMMARY_SCHEMA, "schema_version": 1, "written_utc": _utc(), "ranks": ranks,
-        "counts": counts, "flag_meanings": {f: FLAG_TEXT[f] for f in RUN_FLAGS}, "cases": rows,
+        "counts": counts, "flag_meanings": {f: f.meaning for f in RUN_FLAGS}, "cases": rows,
     })
 
 

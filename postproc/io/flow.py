@@ -24,7 +24,7 @@ from caseprep.contract.errors import UserError
 from caseprep.contract.manifest import CaseRecord, find_case_manifest
 from postproc.io.exports import latest_export, time_from_name
 
-from postproc.kernels.gradients import VOLUME_CELL_TYPES, VTK_POLYHEDRON, CellTopology
+from postproc.kernels.meshtopo import VOLUME_CELL_TYPES, VTK_POLYHEDRON, CellTopology
 from postproc.kernels.sections import PlaneSection, Surface
 
 
@@ -163,13 +163,6 @@ def read_flow(path: str | Path, *, need_volume: bool = True) -> FlowCase:
         if found is not None:
             record = found[1]
     return FlowCase(grid=grid, patches=patches, source=f, record=record, time=time_from_name(f))
-
-
-def grid_from_arrays(points, celltypes, cells) -> object:
-    """Build an internal mesh from VTK-layout arrays (tests, demos)."""
-    import pyvista as pv
-
-    return pv.UnstructuredGrid(np.asarray(cells), np.asarray(celltypes, dtype=np.uint8), np.asarray(points))
 
 
 def flow_case_from_grid(grid, patches: dict[str, Surface] | None = None, source: str = "<memory>",

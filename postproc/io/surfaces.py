@@ -88,14 +88,6 @@ class Surface:
 
 # --------------------------------------------------------------------------- vtk plumbing
 
-class _ErrorCatcher:
-    def __init__(self) -> None:
-        self.messages: list[str] = []
-
-    def __call__(self, obj, event) -> None:  # vtk observer signature
-        self.messages.append(event)
-
-
 def _run_reader(reader, path: Path, arrays: Sequence[str] | None = None) -> tuple[object, tuple | None]:
     """Run a vtk reader on ``path``; any vtk error becomes a UserError.
 

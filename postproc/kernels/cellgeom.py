@@ -35,7 +35,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from postproc.kernels.gradients import CELL_FACES, VTK_POLYHEDRON, CellTopology, auto_chunk
+from postproc.kernels.meshtopo import CELL_FACES, VTK_POLYHEDRON, CellTopology, auto_chunk
 
 
 def _cross(ax, ay, az, bx, by, bz):

@@ -49,8 +49,6 @@ AxleAxes = tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]
 #: Axle axes of a body level on the ground (the plane z_B = 0).
 LEVEL_AXLE: AxleAxes = (np.eye(3)[0], np.eye(3)[1], np.eye(3)[2], np.zeros(3))
 
-AXES = ("body", "wind", "ground")
-
 
 @dataclass(frozen=True)
 class ReferenceValues:

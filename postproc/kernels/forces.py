@@ -65,7 +65,6 @@ import numpy as np
 from caseprep.contract.errors import UserError
 
 Normals = Literal["into_body", "out_of_body"]
-ShearOn = Literal["fluid", "wall"]
 NORMALS: tuple[str, ...] = ("into_body", "out_of_body")
 SHEAR_ON: tuple[str, ...] = ("fluid", "wall")
 

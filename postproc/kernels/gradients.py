@@ -12,8 +12,8 @@ the field's unit; the velocity-gradient tensor is ``J[i, m, k] = ∂u_m/∂x_k``
 
 Method
 ------
-1. **Face adjacency** by vertex-set keys (:mod:`postproc.kernels.meshtopo`, whose
-   names are re-exported here): any mix of tetrahedra, pyramids, wedges,
+1. **Face adjacency** by vertex-set keys (:mod:`postproc.kernels.meshtopo`):
+   any mix of tetrahedra, pyramids, wedges,
    hexahedra and polyhedra.
 2. **Weighted least squares** (e.g. Blazek, *Computational Fluid Dynamics:
    Principles and Applications*, 3rd ed. 2015, §5.3.4; Mavriplis 2003, AIAA
@@ -47,23 +47,7 @@ from dataclasses import dataclass
 import numpy as np
 import scipy.sparse as sp
 
-from postproc.kernels.meshtopo import (  # noqa: F401  (re-exported: the topology half of the flow kernels)
-    CELL_FACES,
-    VOLUME_CELL_TYPES,
-    VTK_HEXAHEDRON,
-    VTK_POLYHEDRON,
-    VTK_PYRAMID,
-    VTK_TETRA,
-    VTK_VOXEL,
-    VTK_WEDGE,
-    CellTopology,
-    _match_keys,
-    _mix64,
-    adjacency_matrix,
-    auto_chunk,
-    cell_adjacency,
-    face_pairs,
-)
+from postproc.kernels.meshtopo import auto_chunk
 
 
 @dataclass(frozen=True)

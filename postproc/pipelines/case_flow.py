@@ -19,6 +19,7 @@ from caseprep.contract.errors import UserError
 from postproc.kernels import diffuser as dif
 from postproc.io import flow as flowio
 from postproc.kernels import gradients as grad
+from postproc.kernels import meshtopo
 from postproc.kernels import underbody as ub
 from postproc.kernels import vortices as vx
 from postproc.kernels import wallchecks as wc
@@ -132,10 +133,10 @@ def gradient_data(case: flowio.FlowCase, velocity: str = "U", *, with_lambda2: b
     if Ub is not None and Ub.ndim == 2 and Ub.shape[1] == 3 and np.isfinite(Ub).all():
         # the patches' face velocities (wall, inflow, outflow values) join
         # the stencils of the cells that own those faces
-        A, nbf, owners = grad.cell_adjacency(topo, boundary_polygons=(bf.offsets, bf.point_ids))
+        A, nbf, owners = meshtopo.cell_adjacency(topo, boundary_polygons=(bf.offsets, bf.point_ids))
         op = grad.lsq_gradient_operator(X, A, dtype=dtype, boundary_points=bf.centres, boundary_owner=owners)
     else:
-        A, nbf = grad.cell_adjacency(topo)
+        A, nbf = meshtopo.cell_adjacency(topo)
         op = grad.lsq_gradient_operator(X, A, dtype=dtype)
         Ub = None
     f = grad.velocity_gradient_fields(op, U, speed=speed, length=length, with_lambda2=with_lambda2, boundary=Ub)

@@ -42,7 +42,7 @@ import numpy as np
 from caseprep.contract.atomicio import json_ready, write_json_atomic, write_text_atomic
 from caseprep.contract.errors import UserError
 from caseprep.contract.manifest import CaseRecord, Manifest, read_manifest
-from caseprep.contract.records import FLAG_TEXT, effective_status, read_case_record
+from caseprep.contract.records import Flag, Status, as_flag, effective_status, flag_meaning, read_case_record
 from postproc.io.exports import latest_export
 from postproc.io.surfaces import read_surface
 from postproc.kernels import wallchecks as wc
@@ -104,17 +104,13 @@ def wall_yplus(case_dir: Path, case: CaseRecord) -> tuple[dict[str, dict], str |
     return out, None
 
 
-def _flag_text(flag: str) -> str:
-    return FLAG_TEXT.get(flag, flag)
-
-
 def process_case(manifest: Manifest, case: CaseRecord) -> CaseOutcome:
     """Post-process one case of ``manifest``: its run record, its forces
     report (when its export exists) and its :class:`CaseResult` row."""
     case_dir = manifest.case_dir(case)
     rec = read_case_record(case_dir)
     flags: list[str] = list(rec.flags) if rec is not None else []
-    status = effective_status(rec) if rec is not None else "not-run"
+    status = effective_status(rec) if rec is not None else Status.NOT_RUN
     notes: list[str] = []
     p = case.params
     base = dict(
@@ -131,15 +127,15 @@ def process_case(manifest: Manifest, case: CaseRecord) -> CaseOutcome:
     report = None
     verdict = None
     if not exported:
-        if "not-run" not in flags and status in ("ok", "not-run", "skipped"):
-            flags.append("not-run")
-        elif status not in ("ok", "skipped") and status not in flags:
-            flags.append(status)
+        if Flag.NOT_RUN not in flags and status in (Status.OK, Status.NOT_RUN, Status.SKIPPED):
+            flags.append(Flag.NOT_RUN)
+        elif status not in (Status.OK, Status.SKIPPED) and status not in flags:
+            flags.append(as_flag(status))
     else:
         try:
             report = forces_report(str(case_dir))  # the monitor judged by the one convergence rule
         except UserError as exc:
-            flags.append("forces-failed")
+            flags.append(Flag.FORCES_FAILED)
             notes.append(f"forces: {exc}")
     nan = math.nan
     cl = cd = cs = nan
@@ -149,7 +145,7 @@ def process_case(manifest: Manifest, case: CaseRecord) -> CaseOutcome:
         if c:
             cl, cd, cs = float(c["lift"]), float(c["drag"]), float(c["side"])
         else:
-            flags.append("forces-failed")
+            flags.append(Flag.FORCES_FAILED)
             notes.append("no reference values in the manifest: coefficients not computed")
         b = report.get("balance")
         if b:
@@ -165,7 +161,7 @@ def process_case(manifest: Manifest, case: CaseRecord) -> CaseOutcome:
         if conv is not None:
             verdict = conv["verdict"]
             if verdict == "diverging":
-                flags.append("forces-drifting")
+                flags.append(Flag.FORCES_DRIFTING)
         else:
             notes.append("no runtime force monitor found: convergence not assessed")
     yplus: dict[str, dict] = {}
@@ -360,7 +356,7 @@ def postprocess_sweep(
     flags = sorted({f for o in outcomes for f in o.result.flags})
     for f in flags:
         k = sum(f in o.result.flags for o in outcomes)
-        notes.append(f"{k} case(s) flagged '{f}': {_flag_text(f)}")
+        notes.append(f"{k} case(s) flagged '{f}': {flag_meaning(f)}")
     check_keys = ("case_id", "status", "cells", "layers", "iterations", "convergence", "yplus_median", "yplus_p95",
                   "yplus_share_in_range", "yplus_range")
     checks = [{k: r.get(k) for k in check_keys} for r in rows]
@@ -371,7 +367,7 @@ def postprocess_sweep(
         "study": manifest.study,
         "axes": "wind axes of caseprep.contract.frames: C_L positive up (downforce = -C_L), C_D along the relative wind, "
                 "C_S along +y_W; balance = front share of downforce; ride heights m; angles deg",
-        "flags": {f: _flag_text(f) for f in flags},
+        "flags": {f: flag_meaning(f) for f in flags},
         "cases": rows,
         "ranking": [asdict(s) for s in analysis.ranking],
         "mesh_study": list(analysis.mesh_study),

@@ -15,7 +15,7 @@ import numpy as np
 sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
 sys.path.insert(0, str(Path(__file__).resolve().parent.parent.parent))
 
-from caseprep.geometry import body, checks, hull, stl  # noqa: E402
+from caseprep.geometry import body, checks, stl  # noqa: E402
 from caseprep.contract.frames import place_body  # noqa: E402
 from planning_helpers import write_binary_stl  # noqa: E402
 

@@ -48,7 +48,7 @@ from caseprep.contract.errors import UserError
 from caseprep.contract.manifest import MANIFEST_NAME, CaseRecord, Manifest, read_manifest, write_manifest
 from caseprep.casefiles.render import (CASES_DIR, GEOMETRY_DIR, CaseFile, outputs_record, render_case, render_sweep_scripts,
                      surfaces)
-from caseprep.contract.atomicio import write_bytes_atomic, write_text_atomic
+from caseprep.contract.atomicio import open_folder, write_bytes_atomic, write_text_atomic
 from caseprep.planning.spec import CaseSpec
 
 
@@ -289,6 +289,24 @@ def _check_specs(specs: Sequence[CaseSpec]) -> None:
         seen.add(cid)
 
 
+def _old_manifest(root: Path, force: bool) -> Manifest | None:
+    """The sweep's existing manifest (None when there is none). One that
+    cannot be read — malformed, or with a record pointing outside the sweep —
+    is refused (UserError naming the record), or with ``force`` set aside:
+    its records are dropped and the new manifest lists this plan's cases."""
+    p = root / MANIFEST_NAME
+    if not (p.exists() or p.is_symlink()):
+        return None
+    try:
+        return read_manifest(root)
+    except UserError as exc:
+        if force:
+            return None
+        raise UserError(f"the existing manifest cannot be kept: {exc}",
+                        fix="write to a new folder, or re-run with --force to replace the manifest "
+                            "(its unreadable records are dropped)") from None
+
+
 def config_hash(config_path: os.PathLike | str) -> str:
     """``sha256:<hex>`` of the config file's bytes."""
     return "sha256:" + hashlib.sha256(Path(config_path).read_bytes()).hexdigest()
@@ -339,6 +357,12 @@ def write_sweep(
     # 2. compare with what exists
     cases_dir = root / CASES_DIR
     geo_dir = root / GEOMETRY_DIR
+    for sub in (cases_dir, geo_dir):  # never write through a link or into a file
+        if sub.is_symlink() or (sub.exists() and not sub.is_dir()):
+            raise UserError(expected=f"{sub.name}/ in {root} to be a real folder (or absent)",
+                            got="a symbolic link" if sub.is_symlink() else "a file", file=str(sub),
+                            fix="remove or rename it: underfloor writes only inside the output folder, never through links")
+    old = _old_manifest(root, force)
     geo_todo: list[str] = []
     for name, data in geometry.items():
         p = geo_dir / name
@@ -377,9 +401,9 @@ def write_sweep(
                     "or write to a new folder")
 
     # 3. write
-    cases_dir.mkdir(parents=True, exist_ok=True)
+    os.close(open_folder(root, [CASES_DIR]))  # created without following links
     for name in geo_todo:
-        write_bytes_atomic(geo_dir / name, geometry[name], mode=0o644)
+        write_bytes_atomic(geo_dir / name, geometry[name], mode=0o644, root=root)
     umask = _current_umask()
     jobs = [(cid, False) for cid in new] + [(cid, True) for cid in replace]
     # File creation is metadata-bound (system calls release the GIL): a few
@@ -389,17 +413,11 @@ def write_sweep(
     nbytes = sum(sizes)
 
     # 4. manifest (existing records of cases not in this plan are kept while their folder exists)
-    old: Manifest | None = None
-    if (root / MANIFEST_NAME).is_file():
-        try:
-            old = read_manifest(root)
-        except UserError:
-            old = None
     records: list[CaseRecord] = []
     current = {s.case_id for s in specs}
     if old is not None:
         for r in old.cases:
-            if r.case_id not in current and (root / r.folder).is_dir():
+            if r.case_id not in current and old.case_dir(r).is_dir():
                 records.append(r)
     outputs = outputs_record()
     for s in specs:
@@ -416,7 +434,7 @@ def write_sweep(
     kept_ids = [r.case_id for r in records]
     scripts = render_sweep_scripts(kept_ids, max(s.solver.n_procs for s in specs))
     for rel, f in scripts.items():
-        write_text_atomic(root / rel, f.text, mode=f.mode)
+        write_text_atomic(root / rel, f.text, mode=f.mode, root=root)
     mpath = write_manifest(manifest, root)
     return WriteSummary(root=root, written=tuple(new), replaced=tuple(replace), unchanged=tuple(same),
                         geometry_written=tuple(geo_todo), manifest=mpath, case_bytes=nbytes)

@@ -22,9 +22,9 @@ from pydantic import BaseModel, ConfigDict, PrivateAttr, ValidationError, field_
 from pydantic_core import PydanticCustomError
 
 from caseprep.contract.errors import UserError, UserErrors, did_you_mean
+from caseprep.contract.limits import MAX_NAME_LENGTH, NAME_RULE as _RULE, is_name
 
-NAME_RE = re.compile(r"^[A-Za-z][A-Za-z0-9_-]*$")
-NAME_RULE = "a name made of letters, digits, '_' and '-', starting with a letter"
+NAME_RULE = f"{_RULE}, at most {int(MAX_NAME_LENGTH.value)} characters"
 FIDELITIES = ("smoke", "coarse", "production")
 GROUND_MODES = ("moving", "stationary", "none")
 TURBULENCE_MODELS = ("kOmegaSST", "laminar")
@@ -114,7 +114,7 @@ KEYS: dict[str, tuple[str, str, str]] = {
 
 
 def _check_name(v: str) -> str:
-    if not NAME_RE.match(v):
+    if not is_name(v):
         raise PydanticCustomError("uf_name", "name", {"expected": NAME_RULE, "fix": "rename it, e.g. 'diffuser_8deg'"})
     return v
 
@@ -458,7 +458,7 @@ def _semantic(cfg: Config, base: Path, file: str) -> list[UserError]:
         errs.append(UserError(expected="at least one [variants.NAME] table", got="none", file=file, key="variants",
                               fix='add e.g. [variants.baseline] with geometry = "baseline.stl"'))
     for name, v in cfg.variants.items():
-        if not NAME_RE.match(name):
+        if not is_name(name):
             errs.append(UserError(expected=NAME_RULE + " (it becomes a folder, a patch and a shell word)", got=name,
                                   file=file, key=f"variants.{name}", fix="rename the variant, e.g. 'diffuser_8deg'"))
         p = (base / v.geometry)

@@ -35,7 +35,7 @@ from pathlib import Path
 from typing import Any, Callable, Iterable, Sequence
 
 from caseprep.run import solverlogs as sl
-from caseprep.contract.atomicio import write_json_atomic
+from caseprep.contract.atomicio import open_folder, write_json_atomic
 from caseprep.contract.convergence import DEFAULT_OPTIONS, ConvergenceOptions, force_settling, judge_convergence
 from caseprep.contract.errors import UserError, did_you_mean
 from caseprep.contract.manifest import CaseRecord, read_manifest
@@ -398,19 +398,22 @@ def run_sweep(
 
 def _start_stage(job: _Job, env: dict[str, str], emit, total: int) -> None:
     stage = job.to_run.pop(0)
-    logs = job.dir / "logs"
-    logs.mkdir(exist_ok=True)
-    # This stage's results make the later stages' results stale.
-    for later in STAGES[STAGES.index(stage):]:
-        try:
-            (logs / f"{later}.done").unlink()
-        except FileNotFoundError:
-            pass
+    dfd = open_folder(job.dir, ["logs"])  # no link followed below the case folder
+    try:
+        # This stage's results make the later stages' results stale.
+        for later in STAGES[STAGES.index(stage):]:
+            try:
+                os.unlink(f"{later}.done", dir_fd=dfd)
+            except FileNotFoundError:
+                pass
+        fd = os.open(f"underfloor-{stage}.out", os.O_WRONLY | os.O_CREAT | os.O_TRUNC | os.O_NOFOLLOW, 0o644, dir_fd=dfd)
+    finally:
+        os.close(dfd)
     job.stage = stage
     job.stage_t0 = time.monotonic()
     job.stage_wall0 = time.time()
     job.last_beat = job.stage_t0
-    job.out = open(logs / f"underfloor-{stage}.out", "w")
+    job.out = os.fdopen(fd, "w")
     job.proc = subprocess.Popen([str(job.dir / "run.sh"), stage], cwd=job.dir, env=env, stdout=job.out,
                                 stderr=subprocess.STDOUT, stdin=subprocess.DEVNULL, start_new_session=True)
     emit(Progress(job.rec.case_id, job.index, total, "stage-start", stage, job.stage_t0 - job.t0))
@@ -471,7 +474,8 @@ def _finish_record(job: _Job, status: str, message: str, ranks: int, options: Ru
 
 
 def _write_record(case_dir: Path, rec: CaseRunRecord) -> None:
-    write_json_atomic(case_dir / RECORD_NAME, rec.to_dict())
+    # the case folder was checked to lie inside the sweep; nothing below it is followed
+    write_json_atomic(case_dir / RECORD_NAME, rec.to_dict(), root=case_dir)
 
 
 def _write_summary(root: Path, manifest, records: dict[str, CaseRunRecord], ranks: int) -> None:
@@ -486,7 +490,7 @@ def _write_summary(root: Path, manifest, records: dict[str, CaseRunRecord], rank
     counts: dict[str, int] = {}
     for r in rows:
         counts[r["status"]] = counts.get(r["status"], 0) + 1
-    write_json_atomic(root / SUMMARY_NAME, {
+    write_json_atomic(root / SUMMARY_NAME, root=root, obj={
         "schema": SUMMARY_SCHEMA, "schema_version": 1, "written_utc": _utc(), "ranks": ranks,
         "counts": counts, "flag_meanings": {f: f.meaning for f in RUN_FLAGS}, "cases": rows,
     })

@@ -42,7 +42,7 @@ import numpy as np
 from caseprep.contract.atomicio import json_ready, write_json_atomic, write_text_atomic
 from caseprep.contract.errors import UserError
 from caseprep.contract.manifest import CaseRecord, Manifest, read_manifest
-from caseprep.contract.records import Flag, Status, as_flag, effective_status, flag_meaning, read_case_record
+from caseprep.contract.records import Flag, Status, as_flag, effective_status, flag_meaning, load_case_record
 from postproc.io.exports import latest_export
 from postproc.io.surfaces import read_surface
 from postproc.kernels import wallchecks as wc
@@ -108,10 +108,17 @@ def process_case(manifest: Manifest, case: CaseRecord) -> CaseOutcome:
     """Post-process one case of ``manifest``: its run record, its forces
     report (when its export exists) and its :class:`CaseResult` row."""
     case_dir = manifest.case_dir(case)
-    rec = read_case_record(case_dir)
-    flags: list[str] = list(rec.flags) if rec is not None else []
-    status = effective_status(rec) if rec is not None else Status.NOT_RUN
     notes: list[str] = []
+    try:
+        rec = load_case_record(case_dir)
+        unreadable_record = False
+    except UserError as exc:
+        rec, unreadable_record = None, True
+        notes.append(f"run record: {exc}".replace("\n", " "))
+    flags: list[str] = list(rec.flags) if rec is not None else []
+    if unreadable_record:
+        flags.append(Flag.RECORD_UNREADABLE)
+    status = effective_status(rec) if rec is not None else Status.NOT_RUN
     p = case.params
     base = dict(
         case_id=case.case_id,
@@ -340,8 +347,8 @@ def postprocess_sweep(
         o = process_case(manifest, case)
         outcomes.append(o)
         if o.report is not None:
-            write_json_atomic(out / RESULTS_DIR / f"{case.case_id}.json",
-                              json_ready({**o.report, "yplus": o.yplus, "flags": list(o.result.flags)}))
+            write_json_atomic(out / RESULTS_DIR / f"{case.case_id}.json",  # case ids are checked names
+                              json_ready({**o.report, "yplus": o.yplus, "flags": list(o.result.flags)}), root=out)
         if progress is not None:
             progress(i + 1, n, o)
     rows = [outcome_row(o) for o in outcomes]
@@ -351,7 +358,7 @@ def postprocess_sweep(
         "report": out / REPORT_NAME,
         "cases": out / RESULTS_DIR,
     }
-    write_text_atomic(paths["csv"], _csv(rows))
+    write_text_atomic(paths["csv"], _csv(rows), root=out)
     notes = []
     flags = sorted({f for o in outcomes for f in o.result.flags})
     for f in flags:
@@ -363,7 +370,7 @@ def postprocess_sweep(
     analysis = analyse_results([o.result for o in outcomes],
                                title=title or f"Sweep report — {manifest.study or Path(sweep_dir).name}",
                                study=manifest.study, notes=notes, checks=checks)
-    write_json_atomic(paths["json"], json_ready({
+    write_json_atomic(paths["json"], root=out, obj=json_ready({
         "study": manifest.study,
         "axes": "wind axes of caseprep.contract.frames: C_L positive up (downforce = -C_L), C_D along the relative wind, "
                 "C_S along +y_W; balance = front share of downforce; ride heights m; angles deg",

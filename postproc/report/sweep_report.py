@@ -259,5 +259,5 @@ def write_report(analysis, path: str | os.PathLike) -> Path:
     to ``path`` (atomic write) and return the path."""
     text = environment().get_template("report/sweep_report.html.j2").render(**build_context(analysis))
     p = Path(path)
-    write_text_atomic(p, text)
+    write_text_atomic(p, text, root=p.parent)  # never through a link named like the report
     return p

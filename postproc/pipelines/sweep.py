@@ -234,16 +234,33 @@ def mesh_study(results: list[CaseResult]) -> list[dict[str, Any]]:
     return out
 
 
+#: First characters that make a spreadsheet evaluate a cell as a formula (or
+#: a command) when a CSV file is opened: OWASP, "CSV Injection" (common
+#: practice). A text cell starting with one of them gets a leading apostrophe.
+FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
+
+
+def spreadsheet_safe(value: object) -> object:
+    """``value`` for a CSV cell: text that a spreadsheet would evaluate
+    (starting with one of :data:`FORMULA_START`) is prefixed with ``'`` so it
+    stays text; numbers are left alone (they are written by us)."""
+    if isinstance(value, str) and value.startswith(FORMULA_START):
+        return "'" + value
+    return value
+
+
 def _csv(rows: list[dict[str, Any]]) -> str:
+    """The rows as CSV: floats with 6 significant digits, NaN/inf and None
+    empty, text cells neutralised for spreadsheets (:func:`spreadsheet_safe`)."""
     cols: list[str] = []
     for r in rows:
         cols += [k for k in r if k not in cols]
     buf = io.StringIO()
     w = csv.writer(buf, lineterminator="\n")
-    w.writerow(cols)
+    w.writerow([spreadsheet_safe(c) for c in cols])
     for r in rows:
         w.writerow(["" if r.get(k) is None or (isinstance(r.get(k), float) and not math.isfinite(r[k]))
-                    else (f"{r[k]:.6g}" if isinstance(r.get(k), float) else r[k]) for k in cols])
+                    else (f"{r[k]:.6g}" if isinstance(r.get(k), float) else spreadsheet_safe(r[k])) for k in cols])
     return buf.getvalue()
 
 

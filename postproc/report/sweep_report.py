@@ -18,6 +18,7 @@ from dataclasses import asdict
 from pathlib import Path
 
 import numpy as np
+from markupsafe import Markup
 
 from caseprep.contract import __version__
 from caseprep.contract.atomicio import write_text_atomic
@@ -225,6 +226,9 @@ def build_context(analysis) -> dict:
         "pitch_deg": _fmt(r.pitch_deg, 2), "yaw_deg": _fmt(r.yaw_deg, 1),
         "flags": ", ".join(r.flags),
     } for r in results]
+    # the charts are markup made here (their labels escaped by svg_chart/svg_map); everything else is
+    # text that the template escapes (autoescape)
+    charts = [(caption, Markup(svg)) for caption, svg in charts]
     return {
         "title": analysis.title,
         "study": analysis.study,

@@ -30,6 +30,8 @@ its patch name; it must not also be listed in ``geometry_solid_names``
 """
 from __future__ import annotations
 
+import math
+
 import posixpath
 from dataclasses import dataclass
 from functools import lru_cache
@@ -405,10 +407,14 @@ def effective_write_interval(n_iterations: int, write_interval: int) -> int:
         raise ValueError(f"expected positive iteration counts, got n_iterations={n}, write_interval={w}")
     if w >= n:
         return n
-    for d in range(w, 0, -1):
+    # the divisors come in pairs (d, n/d) with d ≤ √n: √n steps, whatever the interval
+    best = 1
+    for d in range(1, math.isqrt(n) + 1):
         if n % d == 0:
-            return d if 2 * d >= w else n
-    return n  # pragma: no cover - d = 1 always divides
+            for q in (d, n // d):
+                if best < q <= w:
+                    best = q
+    return best if 2 * best >= w else n
 
 
 def context(spec: CaseSpec) -> dict[str, Any]:

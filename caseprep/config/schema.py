@@ -120,7 +120,8 @@ def _check_name(v: str) -> str:
 
 
 class _M(BaseModel):
-    model_config = ConfigDict(frozen=True, extra="forbid", strict=True)
+    # every number finite: NaN and ±inf are refused at their key
+    model_config = ConfigDict(frozen=True, extra="forbid", strict=True, allow_inf_nan=False)
 
 
 class StudyCfg(_M):
@@ -357,7 +358,7 @@ def _fixed_len(loc: tuple) -> int | None:
 _TYPE_WORDS = {
     "float_type": "a number", "int_type": "a whole number", "string_type": "a text string (in quotes)",
     "bool_type": "true or false", "tuple_type": "a list", "dict_type": "a table", "model_type": "a table",
-    "list_type": "a list",
+    "list_type": "a list", "finite_number": "a finite number (not nan or inf)",
 }
 
 
@@ -691,13 +692,18 @@ def _resolve_paths(cfg: Config, base: Path) -> Config:
 
 def parse_config(data: dict, file: str = "config.toml", base_dir: str | Path = ".") -> Config:
     """Validate an already-parsed TOML mapping. Raises UserError/UserErrors."""
+    from caseprep.config.bounds import empty_problems, range_problems, raw_problems
+
+    errs = raw_problems(data, file)  # sizes first: nothing large is validated or expanded
+    if errs:
+        raise errs[0] if len(errs) == 1 else UserErrors(errs)
     try:
         cfg = Config.model_validate(_tuplify(data))
     except ValidationError as exc:
         errs = _translate(exc, file)
         raise (errs[0] if len(errs) == 1 else UserErrors(errs)) from None
     base = Path(base_dir)
-    errs = _semantic(cfg, base, file)
+    errs = _semantic(cfg, base, file) + empty_problems(cfg.sweep, file) + range_problems(cfg.model_dump(), file)
     if errs:
         raise errs[0] if len(errs) == 1 else UserErrors(errs)
     out = _resolve_paths(cfg, base)
@@ -712,15 +718,24 @@ def load_config(path: str | Path) -> Config:
     for anything wrong in it: syntax, unknown keys, types, values, missing
     geometry files.
     """
+    from caseprep.contract.limits import MAX_CONFIG_BYTES
+
     p = Path(path)
     if not p.is_file():
         raise UserError(expected="an existing config file (TOML)", got=str(p), fix="check the path")
+    size = p.stat().st_size
+    if size > MAX_CONFIG_BYTES.value:
+        raise UserError(expected=f"a config file of at most {int(MAX_CONFIG_BYTES.value):,} bytes", got=f"{size:,} bytes",
+                        file=str(p), fix="a sweep config is a few kilobytes: check that this is the config")
     try:
         data = tomllib.loads(p.read_text(encoding="utf-8"))
     except UnicodeDecodeError:
         raise UserError(expected="a UTF-8 text file", got="binary data", file=str(p)) from None
     except tomllib.TOMLDecodeError as exc:
         raise UserError(f"{p} is not valid TOML: {exc}", fix="fix the syntax at that line (strings in quotes, arrays in [ ])") from None
+    except RecursionError:
+        raise UserError(expected="a TOML config of tables and flat lists", got="lists or tables nested too deep to read",
+                        file=str(p), fix="fix the brackets") from None
     return parse_config(data, file=str(p), base_dir=p.parent)
 
 

@@ -13,6 +13,7 @@ from pathlib import Path
 import numpy as np
 
 from caseprep.contract.errors import UserError
+from caseprep.contract.limits import MAX_LENGTH, MAX_STL_TRIANGLES
 
 LENGTH_UNITS = {"m": 1.0, "mm": 1.0e-3, "in": 0.0254}
 
@@ -71,6 +72,10 @@ def read_stl(path: str | Path, length_unit: str = "m", default_name: str = "body
         raise UserError(expected="a length unit in " + ", ".join(LENGTH_UNITS), got=length_unit, file=str(p))
     if not p.is_file():
         raise UserError(expected="an existing STL file", got=str(p), fix="check the path (relative paths are relative to the config file)")
+    size = p.stat().st_size
+    if size > 84 + 300 * MAX_STL_TRIANGLES.value:  # 50 bytes per binary triangle, about 250 as ASCII text
+        raise UserError(expected=f"a geometry of at most {int(MAX_STL_TRIANGLES.value):,} triangles",
+                        got=f"a file of {size:,} bytes", file=str(p), fix="decimate the surface")
     data = p.read_bytes()
     scale = LENGTH_UNITS[length_unit]
     tris, solid, names = None, None, None
@@ -112,6 +117,13 @@ def read_stl(path: str | Path, length_unit: str = "m", default_name: str = "body
         raise UserError(expected="at least one triangle", got="an empty STL", file=str(p))
     if not np.all(np.isfinite(tris)):
         raise UserError(expected="finite coordinates", got="NaN or infinite values", file=str(p))
+    if tris.shape[0] > MAX_STL_TRIANGLES.value:
+        raise UserError(expected=f"at most {int(MAX_STL_TRIANGLES.value):,} triangles", got=f"{tris.shape[0]:,}", file=str(p),
+                        fix="decimate the surface (the mesher refines it anyway)")
+    reach = float(np.abs(tris).max()) * scale
+    if not reach <= MAX_LENGTH.value:
+        raise UserError(expected=f"coordinates within ±{MAX_LENGTH.value:g} m", got=f"{reach:.3g} m", file=str(p),
+                        fix=f"check body.length_unit ({length_unit!r}) and the export's units")
     return Surface(tris * scale, solid, names, str(p))
 
 

@@ -38,6 +38,7 @@ from caseprep.run import solverlogs as sl
 from caseprep.contract.atomicio import open_folder, write_json_atomic
 from caseprep.contract.convergence import DEFAULT_OPTIONS, ConvergenceOptions, force_settling, judge_convergence
 from caseprep.contract.errors import UserError, did_you_mean
+from caseprep.contract.limits import MAX_RANKS
 from caseprep.contract.manifest import CaseRecord, read_manifest
 from caseprep.contract.records import (RECORD_NAME, RUN_FLAGS, SUMMARY_NAME, SUMMARY_SCHEMA, CaseRunRecord, Flag,
                                        StageRun, Status, effective_status, read_case_record)
@@ -267,10 +268,12 @@ def run_sweep(
     # absolute: run.sh is started with the case folder as working directory
     root = Path(sweep_dir).resolve()
     manifest = read_manifest(root)
-    if jobs < 1:
-        raise UserError(expected="a number of parallel cases ≥ 1", got=jobs, key="jobs", fix="use -j 1 or more")
-    if ranks < 1:
-        raise UserError(expected="a number of MPI ranks ≥ 1", got=ranks, key="ranks", fix="use --ranks 1 or more")
+    if not 1 <= jobs <= MAX_RANKS.value:
+        raise UserError(expected=f"a number of parallel cases from 1 to {int(MAX_RANKS.value)}", got=jobs, key="--jobs",
+                        fix="use -j 1 or more, at most the number of cores")
+    if not 1 <= ranks <= MAX_RANKS.value:
+        raise UserError(expected=f"a number of MPI ranks from 1 to {int(MAX_RANKS.value)}", got=ranks, key="--ranks",
+                        fix="use --ranks 1 or more, at most the number of cores")
     stages = list(STAGES) if not stages else list(stages)
     for s in stages:
         if s not in STAGES:

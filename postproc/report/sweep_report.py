@@ -40,7 +40,7 @@ def _nice_ticks(lo: float, hi: float, n: int = 5) -> list[float]:
     start = math.floor(lo / step) * step
     ticks = []
     t = start
-    while t <= hi + 1e-9 * step:
+    while t <= hi + 1e-9 * step and len(ticks) <= 4 * n + 4:  # bounded: a step below round-off of t adds nothing
         ticks.append(round(t, 12))
         t += step
     return ticks

@@ -87,9 +87,9 @@ def test_truncated_and_not_vtk_files(tmp_path, ext):
     if ext == ".vtk":
         # the legacy reader accepts a file cut after its cells without a complaint: the loss shows up as a
         # missing face array (or collapsed faces) when the forces are computed — still one UserError
-        from postproc.pipelines.case_forces import forces_report as run_forces
+        from postproc.pipelines.case_forces import ForcesOptions, forces_report
         with pytest.raises(UserError, match="expected a face .cell. data array 'p'|zero-area|rejects"):
-            run_forces(str(t), rho=1.2)
+            forces_report(str(t), ForcesOptions(rho=1.2))
     else:
         with pytest.raises(UserError, match="rejects|truncated"):
             read_surface(t)

@@ -63,7 +63,7 @@ def test_layout_shared_geometry_and_manifest(src, tmp_path):
     assert m.study == "sweep"
     rec = m.case("c-2")
     assert rec.folder == "cases/c-2" and rec.mesh_frame == "body"
-    assert rec.extra["outputs"]["forces"] == OUTPUTS["forces"]
+    assert rec.outputs["forces"] == OUTPUTS["forces"]
     assert rec.patches == {"body": ["body", "floor"], "wheels": [], "ground": "ground"}
     np.testing.assert_allclose(rec.placement.rotation, specs[1].placement.rotation)
     # no temporary folders left behind

@@ -404,7 +404,7 @@ def write_sweep(
     outputs = outputs_record()
     for s in specs:
         r = s.record(f"{CASES_DIR}/{s.case_id}")
-        records.append(dataclasses.replace(r, extra={**r.extra, "outputs": outputs}))
+        records.append(dataclasses.replace(r, outputs=outputs))
     manifest = Manifest(
         cases=tuple(records),
         tool_version=__version__,

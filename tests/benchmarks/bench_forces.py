@@ -25,7 +25,7 @@ import numpy as np
 ROOT = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(ROOT))
 
-from postproc.pipelines.case_forces import forces_report as run_forces  # noqa: E402
+from postproc.pipelines.case_forces import ForcesOptions, forces_report  # noqa: E402
 from postproc.kernels.forces import integrate_forces  # noqa: E402
 from postproc.io.surfaces import read_surface  # noqa: E402
 
@@ -151,7 +151,7 @@ def main() -> None:
               f"VTK filters {np.median(t_vtk):.3f} s (min {t_vtk.min():.3f}), "
               f"speed-up {np.median(t_vtk) / np.median(t_ours):.2f}x (target >= 3); "
               f"max rel. difference of the force {err:.1e}, of the moment {err_m:.1e}")
-        t_read, t_cmd, _, _ = interleaved(lambda: read_surface(f), lambda: run_forces(str(f), rho=1.2))
+        t_read, t_cmd, _, _ = interleaved(lambda: read_surface(f), lambda: forces_report(str(f), ForcesOptions(rho=1.2)))
         print(f"whole command (median of 3, interleaved): {np.median(t_cmd):.3f} s (min {t_cmd.min():.3f}), "
               f"read only {np.median(t_read):.3f} s (min {t_read.min():.3f}), "
               f"ratio {np.median(t_cmd) / np.median(t_read):.2f} (target <= 1.3)")

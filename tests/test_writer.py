@@ -15,7 +15,8 @@ import pytest
 from caseprep.contract.errors import UserError
 from caseprep.contract.manifest import read_manifest
 from caseprep.casefiles.render import OUTPUTS
-from caseprep.casefiles.writer import stl_solid_names, write_sweep
+from caseprep.casefiles.writer import write_sweep
+from caseprep.geometry.stl import stl_solid_names
 from uf_specs import demo_wheel, make_spec, write_body_stl
 
 

@@ -9,7 +9,7 @@ from caseprep.contract import frames as fr
 from caseprep.contract.errors import UserError
 from caseprep.contract.frames import axes_rotations, axle_axes
 from postproc.kernels.coefficients import ReferenceValues, balance, coefficients
-from postproc.kernels.forces import ForceResult, face_geometry, integrate_forces
+from postproc.kernels.forces import ForceResult, integrate_forces
 
 
 def point_load(F, at, about=(0.0, 0.0, 0.0)) -> ForceResult:

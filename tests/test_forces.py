@@ -6,7 +6,8 @@ import pytest
 
 from _surfaces import icosphere, plate
 from caseprep.contract.errors import UserError
-from postproc.kernels.forces import closure, face_geometry, integrate_forces
+from postproc.kernels.forces import integrate_forces
+from postproc.kernels.polygons import closure, face_geometry
 
 MU, U, A_S = 1.8e-5, 0.01, 0.5   # our invented Stokes set-up: μ Pa·s, U m/s, radius m
 

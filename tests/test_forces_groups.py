@@ -9,7 +9,8 @@ import pytest
 from _surfaces import icosphere
 from _vtkfiles import polydata, write, write_solver_like_export
 from postproc.kernels import forces as pf
-from postproc.kernels.forces import face_geometry, integrate_forces
+from postproc.kernels.forces import integrate_forces
+from postproc.kernels.polygons import face_geometry
 from postproc.io.surfaces import read_surface
 
 

@@ -129,7 +129,7 @@ def test_functions_do_not_modify_inputs():
     pts = t.reshape(-1, 3)
     hullmod.hull_points(pts)
     hullmod.hull_projected_area(pts, [1, 0, 0])
-    body.analyse(stl.Surface(t, np.zeros(len(t), dtype=int), ("body",)))
+    body.analyse(stl.TriSurface(t, np.zeros(len(t), dtype=int), ("body",)))
     np.testing.assert_array_equal(t, t0)
 
 

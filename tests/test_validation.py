@@ -29,7 +29,7 @@ from caseprep.planning.planner import plan
 from caseprep.casefiles.writer import write_sweep
 from postproc.pipelines.case_forces import ForcesOptions, forces_report
 from caseprep.run.solverlogs import parse_solver
-from postproc.kernels.forces import face_geometry
+from postproc.kernels.polygons import face_geometry
 from postproc.io.exports import latest_export
 from postproc.io.surfaces import read_surface
 

@@ -26,7 +26,7 @@ _SOLID_LINE_RE = re.compile(rb"^[ \t]*solid[ \t]+([^\r\n]*?)[ \t]*\r?$", re.MULT
 
 
 @dataclass(frozen=True)
-class Surface:
+class TriSurface:
     """A triangulated surface in the body frame.
 
     ``triangles``: (M, 3, 3) float64 vertex coordinates, m.
@@ -43,13 +43,13 @@ class Surface:
     def n_triangles(self) -> int:
         return int(self.triangles.shape[0])
 
-    def select(self, names) -> "Surface":
+    def select(self, names) -> "TriSurface":
         """The sub-surface made of the solids in ``names``."""
         idx = [i for i, n in enumerate(self.solid_names) if n in set(names)]
         keep = np.isin(self.solid, idx)
         remap = -np.ones(len(self.solid_names), dtype=int)
         remap[idx] = np.arange(len(idx))
-        return Surface(self.triangles[keep], remap[self.solid[keep]], tuple(self.solid_names[i] for i in idx), self.source)
+        return TriSurface(self.triangles[keep], remap[self.solid[keep]], tuple(self.solid_names[i] for i in idx), self.source)
 
 
 def _binary_count(data: bytes) -> int:
@@ -101,8 +101,8 @@ def _sanitise_solid_name(raw: str, index: int) -> str:
     return name
 
 
-def read_stl(path: str | Path, length_unit: str = "m", default_name: str = "body") -> Surface:
-    """Read a binary or ASCII STL file into a :class:`Surface` (m, body frame).
+def read_stl(path: str | Path, length_unit: str = "m", default_name: str = "body") -> TriSurface:
+    """Read a binary or ASCII STL file into a :class:`TriSurface` (m, body frame).
 
     Binary files hold one solid named ``default_name``. ASCII files may hold
     several ``solid NAME … endsolid`` blocks; each becomes a patch named NAME
@@ -155,7 +155,7 @@ def read_stl(path: str | Path, length_unit: str = "m", default_name: str = "body
         raise UserError(expected="at least one triangle", got="an empty STL", file=str(p))
     if not np.all(np.isfinite(tris)):
         raise UserError(expected="finite coordinates", got="NaN or infinite values", file=str(p))
-    return Surface(tris * scale, solid, names, str(p))
+    return TriSurface(tris * scale, solid, names, str(p))
 
 
 def stl_ascii_text(solids: list[tuple[str, np.ndarray]]) -> str:

@@ -19,7 +19,7 @@ from caseprep.contract.errors import UserError
 from caseprep.contract.frames import axes_rotations, axle_axes
 from caseprep.contract.manifest import CaseRecord, find_case_manifest
 from postproc.io.exports import latest_export
-from postproc.io.surfaces import Surface, read_surface
+from postproc.io.surfaces import SurfaceMesh, read_surface
 from postproc.kernels import coefficients as co
 from postproc.kernels.forces import ForceResult, integrate_forces
 
@@ -140,7 +140,7 @@ def _locate(target: str, patches: tuple[str, ...]) -> _Source:
     return src
 
 
-def _integrate(surf: Surface, opt: ForcesOptions) -> ForceResult:
+def _integrate(surf: SurfaceMesh, opt: ForcesOptions) -> ForceResult:
     """The loads on ``surf``; refuses an open surface with a non-zero p_ref
     unless ``allow_open`` (its force would depend on p_ref)."""
     p = surf.array(opt.pressure_field)

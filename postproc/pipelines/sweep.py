@@ -47,7 +47,7 @@ from postproc.io.exports import latest_export
 from postproc.io.surfaces import read_surface
 from postproc.kernels import wallchecks as wc
 from postproc.kernels.aeromap import fit_response_surface, map_grid
-from postproc.kernels.forces import face_geometry
+from postproc.kernels.polygons import face_geometry
 from postproc.kernels.meshstudy import grid_convergence
 from postproc.kernels.ranking import CaseResult, VariantScore, rank_variants
 from postproc.pipelines.case_forces import ForcesReport, forces_report

@@ -236,6 +236,38 @@ class _RotationCache:
         return self._d[k]
 
 
+def _wind(cfg: Config, pt: SweepPoint, P: Placement) -> tuple[float, np.ndarray, np.ndarray]:
+    """(resultant air speed m/s, relative-wind direction (unit) and ground
+    velocity (m/s, zero unless the ground moves), both in body axes) of a
+    point placed by ``P``."""
+    beta, mode = float(np.radians(pt.yaw_deg)), cfg.sweep.yaw_mode
+    U = air_speed(pt.speed, beta, mode)
+    w_body = P.vector_to_body(wind_direction_ground(beta, mode))
+    vg_body = P.vector_to_body(ground_velocity_ground(pt.speed, beta, mode)) if cfg.ground.mode == "moving" else np.zeros(3)
+    return U, w_body, vg_body
+
+
+def _flow(cfg: Config, air: Air, U: float, w_body: np.ndarray, vg_body: np.ndarray, lref: float) -> Flow:
+    """The case's flow: inlet velocity U·w (m/s), ground velocity, air, model
+    and inlet turbulence (intensity, length scale ``turbulence_length_scale``
+    or 1e-3 × the reference length ``lref``, m)."""
+    ell = cfg.solver.turbulence_length_scale or 1e-3 * lref
+    k, om, nut = inlet_turbulence(U, cfg.solver.turbulence_intensity, ell)
+    return Flow(inlet_velocity=_vec(U * w_body), ground_velocity=_vec(vg_body), air_speed=float(U), rho=air.rho,
+                nu=air.nu, p_ref=0.0, model=cfg.solver.turbulence_model, intensity=cfg.solver.turbulence_intensity,
+                length_scale=float(ell), k=k, omega=om, nut=nut)
+
+
+def _solver(cfg: Config, domain, preset_iterations: int) -> SolverSpec:
+    """Iterations (the config's, else the preset's), write interval and the
+    rank split of the domain box."""
+    iters = cfg.solver.iterations or preset_iterations
+    corners = domain.box.corners()
+    split = decomposition_split(cfg.solver.ranks, corners.max(axis=0) - corners.min(axis=0))
+    return SolverSpec(n_iterations=int(iters), write_interval=int(cfg.solver.write_interval or iters),
+                      n_procs=int(cfg.solver.ranks), split=split)
+
+
 def plan_case(cfg: Config, pt: SweepPoint, geoms: dict[str, VariantGeometry], air: Air, settings, refgeo,
               cache: _RotationCache | None = None) -> tuple[CaseSpec, list[str]]:
     """Plan one point; raises UserError if the case must be refused."""
@@ -274,10 +306,7 @@ def plan_case(cfg: Config, pt: SweepPoint, geoms: dict[str, VariantGeometry], ai
         c = 0.5 * (np.asarray(g.bounds[0]) + np.asarray(g.bounds[1]))
         P = Placement(rotation=R, translation=-R @ c, pitch=th, beta=beta, yaw_mode=mode)
         clearance, at, pct, where = None, None, None, ""
-    V = pt.speed
-    U = air_speed(V, beta, mode)
-    w_body = P.vector_to_body(wind_direction_ground(beta, mode))
-    vg_body = P.vector_to_body(ground_velocity_ground(V, beta, mode)) if ground == "moving" else np.zeros(3)
+    U, w_body, vg_body = _wind(cfg, pt, P)
     frontal_wind = cache.get("frontal", pt.variant, w_body, lambda: hull_projected_area(vg.extent_hull, w_body))
 
     def extent_range(axes: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -301,11 +330,7 @@ def plan_case(cfg: Config, pt: SweepPoint, geoms: dict[str, VariantGeometry], ai
                 for what, fix in dp.problems]
         raise msgs[0] if len(msgs) == 1 else UserErrors(msgs)
     notes.extend(dp.warnings)
-    ell = cfg.solver.turbulence_length_scale or 1e-3 * lref
-    k, om, nut = inlet_turbulence(U, cfg.solver.turbulence_intensity, ell)
-    flow = Flow(inlet_velocity=_vec(U * w_body), ground_velocity=_vec(vg_body), air_speed=float(U), rho=air.rho, nu=air.nu,
-                p_ref=0.0, model=cfg.solver.turbulence_model, intensity=cfg.solver.turbulence_intensity, length_scale=float(ell),
-                k=k, omega=om, nut=nut)
+    flow = _flow(cfg, air, U, w_body, vg_body, lref)
     wheels = []
     wheel_sources = {}
     for w in cfg.body.wheels:
@@ -322,11 +347,7 @@ def plan_case(cfg: Config, pt: SweepPoint, geoms: dict[str, VariantGeometry], ai
                             omega=float(omega), geometry=f"wheel_{w.name}.stl" if w.geometry else None))
         if w.geometry:
             wheel_sources[w.name] = w.geometry
-    iters = cfg.solver.iterations or settings.preset.iterations
-    corners = dp.domain.box.corners()
-    split = decomposition_split(cfg.solver.ranks, corners.max(axis=0) - corners.min(axis=0))
-    solver = SolverSpec(n_iterations=int(iters), write_interval=int(cfg.solver.write_interval or iters),
-                        n_procs=int(cfg.solver.ranks), split=split)
+    solver = _solver(cfg, dp.domain, settings.preset.iterations)
     area = reference_area(cfg, pt.variant, geoms)
     ref = Reference(area=area, length=lref, wheelbase=wb, front_axle=fa, rear_axle=ra, moment_point=mp, rho=air.rho,
                     nu=air.nu, speed=float(U), p_ref=0.0,
@@ -379,21 +400,10 @@ def plan_empty_case(cfg: Config, pt: SweepPoint, air: Air) -> tuple[CaseSpec, li
     dp = plan_empty_section(placement=P, length=d.length, width=d.width, height=d.height, base_cell=m.base_cell,
                             mesh_level=pt.mesh_level, ground=cfg.ground.mode, first_cell=m.ground_first_cell,
                             lead_in=float(d.lead_in or 0.0))
-    V = pt.speed
-    U = air_speed(V, beta, mode)
-    w_body = P.vector_to_body(wind_direction_ground(beta, mode))
-    vg_body = P.vector_to_body(ground_velocity_ground(V, beta, mode)) if cfg.ground.mode == "moving" else np.zeros(3)
+    U, w_body, vg_body = _wind(cfg, pt, P)
     lref = cfg.body.reference_length if cfg.body.reference_length is not None else float(d.length)
-    ell = cfg.solver.turbulence_length_scale or 1e-3 * lref
-    k, om, nut = inlet_turbulence(U, cfg.solver.turbulence_intensity, ell)
-    flow = Flow(inlet_velocity=_vec(U * w_body), ground_velocity=_vec(vg_body), air_speed=float(U), rho=air.rho, nu=air.nu,
-                p_ref=0.0, model=cfg.solver.turbulence_model, intensity=cfg.solver.turbulence_intensity, length_scale=float(ell),
-                k=k, omega=om, nut=nut)
-    iters = cfg.solver.iterations or mesh_settings(m.fidelity).preset.iterations
-    corners = dp.domain.box.corners()
-    split = decomposition_split(cfg.solver.ranks, corners.max(axis=0) - corners.min(axis=0))
-    solver = SolverSpec(n_iterations=int(iters), write_interval=int(cfg.solver.write_interval or iters),
-                        n_procs=int(cfg.solver.ranks), split=split)
+    flow = _flow(cfg, air, U, w_body, vg_body, lref)
+    solver = _solver(cfg, dp.domain, mesh_settings(m.fidelity).preset.iterations)
     ra = cfg.body.reference_area
     area = float(ra) if not isinstance(ra, str) else float(d.width * d.height)
     origin = _vec(P.ground_point_body)

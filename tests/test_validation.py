@@ -23,7 +23,7 @@ import pytest
 
 from caseprep.casefiles import foamdict as fd
 from caseprep.run import runner
-from caseprep.config.schema import load_config
+from caseprep.config.load import load_config
 from caseprep.contract.manifest import read_manifest
 from caseprep.planning.planner import plan
 from caseprep.casefiles.writer import write_sweep

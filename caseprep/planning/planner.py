@@ -22,7 +22,8 @@ from pathlib import Path
 
 import numpy as np
 
-from caseprep.config.schema import EMPTY_GEOMETRY, Config, load_config
+from caseprep.config.load import load_config
+from caseprep.config.schema import EMPTY_GEOMETRY, Config
 from caseprep.planning.domain import mesh_settings, plan_domain, plan_empty_section, decomposition_split
 from caseprep.contract.errors import UserError, UserErrors
 from caseprep.contract.frames import (Placement, air_speed, body_to_ground_rotation, ground_velocity_ground, place_body,

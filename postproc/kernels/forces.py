@@ -211,79 +211,80 @@ def _sums_by_part(pa, n_parts, Sx, Sy, Sz, cx, cy, cz, mag, pc, T) -> np.ndarray
     return out
 
 
-def integrate_forces(
-    points: np.ndarray | None = None,
-    faces=None,
-    pressure: np.ndarray | None = None,
-    shear: np.ndarray | None = None,
-    *,
-    area_vectors: np.ndarray | None = None,
-    centroids: np.ndarray | None = None,
-    rho: float = 1.0,
-    p_ref: float = 0.0,
-    about: Sequence[float] = (0.0, 0.0, 0.0),
-    normals: str = "into_body",
-    shear_on: str = "fluid",
-    kinematic: bool = True,
-    part_ids: np.ndarray | None = None,
-    part_names: Sequence[str] | None = None,
-    allow_nonfinite: bool = False,
-    allow_degenerate: bool = False,
-) -> ForceResult:
-    """Force and moment on a body from face pressure and wall shear stress.
+@dataclass(frozen=True)
+class ForceSettings:
+    """How the face values are to be read (see the module doc).
 
-    Parameters
-    ----------
-    points : (N, 3) vertex coordinates, m (any float dtype).
-    faces : (M, k) vertex indices or ``(offsets, connectivity)``; the vertex
-        order gives each face's area vector by the right-hand rule. Instead of
-        ``points``/``faces``, give ``area_vectors`` (M, 3, m²) and
-        ``centroids`` (M, 3, m).
-    pressure : (M,) face pressure: kinematic p/ρ (m²/s²) when ``kinematic``,
-        else static (Pa). Face (cell) data, not point data.
-    shear : (M, 3) face wall shear stress, same form as the pressure, or None
-        (inviscid: no viscous force).
-    rho : density ρ, kg/m³ (used only when ``kinematic``).
-    p_ref : reference pressure (Pa, static) subtracted before integration.
-    about : moment reference point r_0, m.
-    normals : ``"into_body"`` (the solver's) or ``"out_of_body"``: where the
-        area vectors point.
-    shear_on : ``"fluid"`` (the solver's ``wallShearStress``) or ``"wall"``.
-    kinematic : whether ``pressure`` and ``shear`` are divided by ρ.
-    part_ids : (M,) non-negative ints; per-part results are returned under
-        the names ``part_names`` (default ``part0``, ``part1`` …).
-    allow_nonfinite : skip faces whose values are NaN/inf instead of refusing.
-    allow_degenerate : accept zero-area faces (they carry no load).
+    ``rho``: density ρ, kg/m³ (used only when ``kinematic``); ``p_ref``:
+    reference pressure (Pa, static) subtracted before integration; ``about``:
+    moment reference point r_0, m; ``normals``: ``"into_body"`` (the
+    solver's) or ``"out_of_body"``, where the area vectors point;
+    ``shear_on``: ``"fluid"`` (the solver's ``wallShearStress``) or
+    ``"wall"``; ``kinematic``: whether pressure and shear are divided by ρ;
+    ``allow_nonfinite``: skip faces whose values are NaN/inf instead of
+    refusing; ``allow_degenerate``: accept zero-area faces (they carry no
+    load)."""
 
-    Returns
-    -------
-    ForceResult, forces in N and moments in N·m about ``about``, in the axes
-    of ``points``. Moments use the face centroids (second-order accurate).
+    rho: float = 1.0
+    p_ref: float = 0.0
+    about: Sequence[float] = (0.0, 0.0, 0.0)
+    normals: str = "into_body"
+    shear_on: str = "fluid"
+    kinematic: bool = True
+    allow_nonfinite: bool = False
+    allow_degenerate: bool = False
 
-    Formula: F = Σ_f [−(p_f − p_ref) n̂_out,f + τ_wall,f] |S_f|,
-    M = Σ_f (c_f − r_0) × dF_f (midpoint rule on the faces). Valid for any
-    polygonal surface; closed or open (see the module notes on p_ref).
-    Faces are processed grouped by vertex count (triangles, quads, then each
-    larger polygon size) in cache-sized chunks; sums are float64.
-    """
-    if normals not in NORMALS:
-        raise UserError(expected=f"normals one of {NORMALS}", got=normals, key="normals")
-    if shear_on not in SHEAR_ON:
-        raise UserError(expected=f"shear_on one of {SHEAR_ON}", got=shear_on, key="shear_on")
-    if pressure is None:
-        raise UserError(expected="a face pressure array", got=None, key="pressure")
-    r0 = np.asarray(about, dtype=np.float64).reshape(3)
+    def __post_init__(self) -> None:
+        if self.normals not in NORMALS:
+            raise UserError(expected=f"normals one of {NORMALS}", got=self.normals, key="normals")
+        if self.shear_on not in SHEAR_ON:
+            raise UserError(expected=f"shear_on one of {SHEAR_ON}", got=self.shear_on, key="shear_on")
+
+
+@dataclass
+class _Source:
+    """The faces to integrate, from points and faces or from area vectors and
+    centroids: their count, their groups, each chunk's geometry relative to
+    the moment point (``geometry(group, lo, hi)`` → Sx, Sy, Sz, cx, cy, cz,
+    |S|²), one face's centroid (``centroid_of(i)``, m) and the bounding box
+    sides (m)."""
+
+    m: int
+    groups: list
+    geometry: object
+    centroid_of: object
+    bb: np.ndarray
+
+
+def _source(points, faces, area_vectors, centroids, r0: np.ndarray) -> _Source:
     if area_vectors is None:
         if points is None or faces is None:
             raise UserError(expected="points and faces, or area_vectors and centroids", got="neither", key="faces")
         fc = _Faces(faces)
-        m = fc.m
-    else:
-        S = np.asarray(area_vectors, dtype=np.float64)
-        if centroids is None:
-            raise UserError(expected="centroids together with area_vectors", got=None, key="centroids")
-        C = np.asarray(centroids, dtype=np.float64)
-        m = S.shape[0]
+        P = np.asarray(points)
+        X, Y, Z = _coords(P, r0)  # coordinates relative to the moment point
+        bb = np.array([v.max() - v.min() for v in (X, Y, Z)]) if P.size and fc.m else np.zeros(3)
+        return _Source(fc.m, fc.groups, lambda g, lo, hi: _polygons(X, Y, Z, fc.rows(g, lo, hi)),
+                       lambda i: np.array(_polygons(X, Y, Z, fc.face_rows(i))[3:6]).ravel() + r0, bb)
+    S = np.asarray(area_vectors, dtype=np.float64)
+    if centroids is None:
+        raise UserError(expected="centroids together with area_vectors", got=None, key="centroids")
+    C = np.asarray(centroids, dtype=np.float64)
+    m = S.shape[0]
+
+    def geometry(g, lo, hi):
+        s, c = S[lo:hi], C[lo:hi]
+        Sx, Sy, Sz = (np.ascontiguousarray(s[:, i]) for i in range(3))
+        return Sx, Sy, Sz, c[:, 0] - r0[0], c[:, 1] - r0[1], c[:, 2] - r0[2], Sx * Sx + Sy * Sy + Sz * Sz
+
+    bb = C.max(axis=0) - C.min(axis=0) if m else np.zeros(3)
+    return _Source(m, [(0, m, None, None, None)], geometry, lambda i: C[i], bb)
+
+
+def _face_values(pressure, shear, m: int) -> tuple[np.ndarray, np.ndarray | None]:
+    """The pressure (M,) and shear (M, 3) arrays, checked against the face count."""
+    if pressure is None:
+        raise UserError(expected="a face pressure array", got=None, key="pressure")
     p = np.asarray(pressure)
     if p.shape != (m,):
         raise UserError(expected=f"one pressure value per face ({m},)", got=f"shape {p.shape}", key="pressure",
@@ -295,66 +296,42 @@ def integrate_forces(
     if m == 0:
         raise UserError(expected="at least one face", got="an empty surface", key="faces",
                         fix="check the patch selection")
+    return p, tau
 
-    if area_vectors is None:
-        P = np.asarray(points)
-        X, Y, Z = _coords(P, r0)  # coordinates relative to the moment point
-        bb = np.array([v.max() - v.min() for v in (X, Y, Z)]) if P.size else np.zeros(3)
-        groups = fc.groups
 
-        def geometry(g, lo, hi):
-            return _polygons(X, Y, Z, fc.rows(g, lo, hi))
+def _parts(part_ids, part_names, m: int) -> tuple[np.ndarray | None, int, list[str]]:
+    """(part id per face or None, number of parts, their names)."""
+    if part_ids is None:
+        return None, 1, []
+    part = np.asarray(part_ids).astype(np.int64, copy=False)
+    if part.shape != (m,) or (part.size and part.min() < 0):
+        raise UserError(expected=f"non-negative part ids, one per face ({m},)", got=f"shape {part.shape}", key="part_ids")
+    n_parts = int(part.max()) + 1 if part.size else 0
+    names = list(part_names) if part_names is not None else [f"part{i}" for i in range(n_parts)]
+    return part, max(n_parts, len(names)), names
 
-        def centroid_of(i):
-            return np.array(_polygons(X, Y, Z, fc.face_rows(i))[3:6]).ravel() + r0
-    else:
-        bb = C.max(axis=0) - C.min(axis=0) if m else np.zeros(3)
-        groups = [(0, m, None, None, None)]
 
-        def geometry(g, lo, hi):
-            s, c = S[lo:hi], C[lo:hi]
-            Sx, Sy, Sz = (np.ascontiguousarray(s[:, i]) for i in range(3))
-            return Sx, Sy, Sz, c[:, 0] - r0[0], c[:, 1] - r0[1], c[:, 2] - r0[2], Sx * Sx + Sy * Sy + Sz * Sz
-
-        def centroid_of(i):
-            return C[i]
-    tiny_area = DEGENERATE_REL_AREA * float(bb @ bb)
-
-    skip = _check_finite("pressure", p, centroid_of, allow_nonfinite)
-    if tau is not None:
-        s2 = _check_finite("shear", tau, centroid_of, allow_nonfinite)
-        skip = s2 if skip is None else (skip | s2 if s2 is not None else skip)
-
-    scale = float(rho) if kinematic else 1.0
-    sgn_n = 1.0 if normals == "into_body" else -1.0   # S·sgn_n points into the body
-    sgn_t = -1.0 if shear_on == "fluid" else 1.0       # τ·sgn_t acts on the wall
-
-    if part_ids is not None:
-        part = np.asarray(part_ids).astype(np.int64, copy=False)
-        if part.shape != (m,) or (part.size and part.min() < 0):
-            raise UserError(expected=f"non-negative part ids, one per face ({m},)", got=f"shape {part.shape}", key="part_ids")
-        n_parts = int(part.max()) + 1 if part.size else 0
-        names = list(part_names) if part_names is not None else [f"part{i}" for i in range(n_parts)]
-        n_parts = max(n_parts, len(names))
-    else:
-        part, n_parts, names = None, 1, []
+def _accumulate(src: _Source, p, tau, skip, part, n_parts: int, scale: float, p_ref: float,
+                tiny_area: float) -> tuple[np.ndarray, int, tuple | None]:
+    """The (n_parts, _NSUM) sums over every face, chunk by chunk (float64),
+    with the count of degenerate faces and the first one (index, centroid
+    relative to the moment point)."""
     split = part is not None and n_parts > 1  # else every face is in part 0
-
     acc = np.zeros((n_parts, _NSUM))
     n_degenerate, first_degenerate = 0, None
-    for g in groups:
+    for g in src.groups:
         n, index = g[1], g[2]
         for lo in range(0, n, CHUNK):
             hi = min(lo + CHUNK, n)
             sel = slice(lo, hi) if index is None else index[lo:hi]
-            Sx, Sy, Sz, cx, cy, cz, W = geometry(g, lo, hi)
+            Sx, Sy, Sz, cx, cy, cz, W = src.geometry(g, lo, hi)
             mag = np.sqrt(W)
             deg = mag <= tiny_area
             if deg.any():
                 i = int(np.flatnonzero(deg)[0])
                 i_in = lo + i if index is None else int(index[lo + i])
                 if first_degenerate is None or i_in < first_degenerate[0]:
-                    first_degenerate = (i_in, np.array([cx[i], cy[i], cz[i]]) + r0)
+                    first_degenerate = (i_in, np.array([cx[i], cy[i], cz[i]]))
                 n_degenerate += int(deg.sum())
             pc = p[sel].astype(np.float64) * scale - p_ref  # gauge pressure, Pa (a new array)
             # τ as a new contiguous (3, n) float64 array
@@ -376,14 +353,73 @@ def integrate_forces(
                     acc[pa[a]] += _sums(*(None if v is None else v[..., a:b] for v in args))
             else:
                 acc += _sums_by_part(pa, n_parts, *args)
-    if n_degenerate and not allow_degenerate:
+    return acc, n_degenerate, first_degenerate
+
+
+def integrate_forces(
+    points: np.ndarray | None = None,
+    faces=None,
+    pressure: np.ndarray | None = None,
+    shear: np.ndarray | None = None,
+    settings: ForceSettings = ForceSettings(),
+    *,
+    area_vectors: np.ndarray | None = None,
+    centroids: np.ndarray | None = None,
+    part_ids: np.ndarray | None = None,
+    part_names: Sequence[str] | None = None,
+) -> ForceResult:
+    """Force and moment on a body from face pressure and wall shear stress.
+
+    Parameters
+    ----------
+    points : (N, 3) vertex coordinates, m (any float dtype).
+    faces : (M, k) vertex indices or ``(offsets, connectivity)``; the vertex
+        order gives each face's area vector by the right-hand rule. Instead of
+        ``points``/``faces``, give ``area_vectors`` (M, 3, m²) and
+        ``centroids`` (M, 3, m).
+    pressure : (M,) face pressure: kinematic p/ρ (m²/s²) when
+        ``settings.kinematic``, else static (Pa). Face (cell) data, not point data.
+    shear : (M, 3) face wall shear stress, same form as the pressure, or None
+        (inviscid: no viscous force).
+    settings : :class:`ForceSettings` (density, reference pressure, moment
+        point, orientation conventions, what to accept).
+    part_ids : (M,) non-negative ints; per-part results are returned under
+        the names ``part_names`` (default ``part0``, ``part1`` …).
+
+    Returns
+    -------
+    ForceResult, forces in N and moments in N·m about ``settings.about``, in
+    the axes of ``points``. Moments use the face centroids (second-order
+    accurate).
+
+    Formula: F = Σ_f [−(p_f − p_ref) n̂_out,f + τ_wall,f] |S_f|,
+    M = Σ_f (c_f − r_0) × dF_f (midpoint rule on the faces). Valid for any
+    polygonal surface; closed or open (see the module notes on p_ref).
+    Faces are processed grouped by vertex count (triangles, quads, then each
+    larger polygon size) in cache-sized chunks; sums are float64.
+    """
+    st = settings
+    r0 = np.asarray(st.about, dtype=np.float64).reshape(3)
+    src = _source(points, faces, area_vectors, centroids, r0)
+    m = src.m
+    p, tau = _face_values(pressure, shear, m)
+    skip = _check_finite("pressure", p, src.centroid_of, st.allow_nonfinite)
+    if tau is not None:
+        s2 = _check_finite("shear", tau, src.centroid_of, st.allow_nonfinite)
+        skip = s2 if skip is None else (skip | s2 if s2 is not None else skip)
+    part, n_parts, names = _parts(part_ids, part_names, m)
+    scale = float(st.rho) if st.kinematic else 1.0
+    acc, n_degenerate, first_degenerate = _accumulate(src, p, tau, skip, part, n_parts, scale, st.p_ref,
+                                                      DEGENERATE_REL_AREA * float(src.bb @ src.bb))
+    if n_degenerate and not st.allow_degenerate:
         i, ci = first_degenerate
+        ci = ci + r0
         raise UserError(
             expected="faces of non-zero area", got=f"{n_degenerate} zero-area (degenerate) face(s) of {m}; "
             f"first at face {i}, centroid ({ci[0]:.6g}, {ci[1]:.6g}, {ci[2]:.6g}) m",
             key="faces", fix="clean the surface (merge duplicate points, drop collapsed faces) before integrating")
-    acc[:, 0:6] *= sgn_n
-    acc[:, 6:12] *= scale * sgn_t
+    acc[:, 0:6] *= 1.0 if st.normals == "into_body" else -1.0   # S·sgn points into the body
+    acc[:, 6:12] *= scale * (-1.0 if st.shear_on == "fluid" else 1.0)  # τ·sgn acts on the wall
     Fp, Mp, Fv, Mv, A = acc[:, 0:3], acc[:, 3:6], acc[:, 6:9], acc[:, 9:12], acc[:, 12]
     total_area = float(np.sum(A))
     opening = float(np.linalg.norm(acc[:, 13:16].sum(axis=0)) / total_area) if total_area > 0 else 1.0

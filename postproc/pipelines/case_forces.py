@@ -21,7 +21,7 @@ from caseprep.contract.manifest import CaseRecord, find_case_manifest
 from postproc.io.exports import latest_export
 from postproc.io.surfaces import SurfaceMesh, read_surface
 from postproc.kernels import coefficients as co
-from postproc.kernels.forces import ForceResult, integrate_forces
+from postproc.kernels.forces import ForceResult, ForceSettings, integrate_forces
 
 Vec3 = tuple[float, float, float]
 
@@ -146,10 +146,10 @@ def _integrate(surf: SurfaceMesh, opt: ForcesOptions) -> ForceResult:
     p = surf.array(opt.pressure_field)
     tau = None if opt.no_shear else surf.array(opt.shear_field)
     try:
-        res = integrate_forces(surf.points, surf.faces, p, tau, rho=opt.rho or 1.0, p_ref=opt.p_ref, about=opt.about,
-                               normals=opt.normals, shear_on=opt.shear_on, kinematic=opt.kinematic,
-                               part_ids=surf.part_ids, part_names=surf.part_names,
-                               allow_nonfinite=opt.allow_nonfinite)
+        settings = ForceSettings(rho=opt.rho or 1.0, p_ref=opt.p_ref, about=opt.about, normals=opt.normals,
+                                 shear_on=opt.shear_on, kinematic=opt.kinematic, allow_nonfinite=opt.allow_nonfinite)
+        res = integrate_forces(surf.points, surf.faces, p, tau, settings, part_ids=surf.part_ids,
+                               part_names=surf.part_names)
         opening = res.open_fraction
         if opt.p_ref != 0.0 and opening > 1e-9 and not opt.allow_open:
             raise UserError(

@@ -24,7 +24,8 @@ import numpy as np
 
 from caseprep.config.load import load_config
 from caseprep.config.schema import EMPTY_GEOMETRY, Config
-from caseprep.planning.domain import mesh_settings, plan_domain, plan_empty_section, decomposition_split
+from caseprep.planning.domain import (BodyExtent, DomainSizing, decomposition_split, mesh_settings, plan_domain,
+                                      plan_empty_section)
 from caseprep.contract.errors import UserError, UserErrors
 from caseprep.contract.frames import (Placement, air_speed, body_to_ground_rotation, ground_velocity_ground, place_body,
                      wind_direction_ground)
@@ -317,13 +318,14 @@ def plan_case(cfg: Config, pt: SweepPoint, geoms: dict[str, VariantGeometry], ai
             return np.array([v.min() for v in q]), np.array([v.max() for v in q])
         return cache.get("extent", pt.variant, axes, compute)
 
-    dp = plan_domain(extent_points=vg.extent_hull, placement=P, ground=ground, body_length=g.length, body_area=g.area,
-                     frontal_area=frontal_wind, min_clearance=clearance,
-                     ride_heights=(pt.ride_height_front, pt.ride_height_rear) if ground != "none" else None,
-                     settings=settings, mesh_level=pt.mesh_level, air_speed=U, nu=air.nu,
-                     upstream=cfg.domain.upstream, downstream=cfg.domain.downstream, width=cfg.domain.width,
-                     height=cfg.domain.height, target_blockage=cfg.domain.target_blockage, max_blockage=cfg.domain.max_blockage,
-                     extent_range=extent_range)
+    body = BodyExtent(points=vg.extent_hull, length=g.length, area=g.area, frontal_area=frontal_wind,
+                      min_clearance=clearance,
+                      ride_heights=(pt.ride_height_front, pt.ride_height_rear) if ground != "none" else None,
+                      extent_range=extent_range)
+    d = cfg.domain
+    sizing = DomainSizing(upstream=d.upstream, downstream=d.downstream, width=d.width, height=d.height,
+                          target_blockage=d.target_blockage, max_blockage=d.max_blockage)
+    dp = plan_domain(body, P, ground, sizing, settings, pt.mesh_level, U, air.nu)
     if dp.problems:
         extra = f" (at {where})" if where else ""
         msgs = [UserError(f"case {cid} ({cfg.file} at {pt.source}): {what}{extra if 'clearance' in what else ''}", fix=fix,

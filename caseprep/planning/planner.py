@@ -270,6 +270,62 @@ def _solver(cfg: Config, domain, preset_iterations: int) -> SolverSpec:
                       n_procs=int(cfg.solver.ranks), split=split)
 
 
+def _place(cfg: Config, pt: SweepPoint, g: BodyGeometry, cache: _RotationCache):
+    """(placement, smallest clearance m, its body point, its % of the length
+    from the nose, a description) of a point; with a ground the body stands
+    on its ride heights (refused when it touches the ground), without one it
+    is centred and pitched about its middle (clearance None)."""
+    mode = cfg.sweep.yaw_mode
+    beta = float(np.radians(pt.yaw_deg))
+    if cfg.ground.mode == "none":
+        th = float(np.radians(pt.pitch_deg))
+        R = body_to_ground_rotation(th, beta, mode)
+        c = 0.5 * (np.asarray(g.bounds[0]) + np.asarray(g.bounds[1]))
+        return Placement(rotation=R, translation=-R @ c, pitch=th, beta=beta, yaw_mode=mode), None, None, None, ""
+    P = place_body(np.asarray(cfg.body.ride_height_point_front, float), np.asarray(cfg.body.ride_height_point_rear, float),
+                   pt.ride_height_front, pt.ride_height_rear, beta, mode)
+    nz = P.rotation[2]
+
+    def lowest():
+        X = cache.columns(pt.variant + "/hull", g.hull)
+        h = X[0] * nz[0] + X[1] * nz[1] + X[2] * nz[2]  # no BLAS: see _RotationCache
+        j = int(np.argmin(h))
+        return j, float(h[j])
+
+    i, h_min = cache.get("lowest", pt.variant, nz, lowest)
+    clearance = h_min + float(P.translation[2])
+    at = g.hull[i]
+    pct = float(100.0 * (at[0] - g.bounds[0][0]) / g.length)
+    where = f"body point ({at[0]:.4f}, {at[1]:.4f}, {at[2]:.4f}) m, {pct:.0f} % of the length from the nose"
+    if clearance <= 0.0:
+        raise UserError(expected="a body clear of the ground",
+                        got=f"clearance {clearance * 1e3:.3f} mm at {where} in case {pt.case_id}", file=cfg.file,
+                        key=pt.source, fix="the body touches or penetrates the ground: raise the ride height or reduce the pitch")
+    return P, clearance, at, pct, where
+
+
+def _wheels(cfg: Config, P: Placement, vg_body: np.ndarray, notes: list[str]) -> tuple[list[Wheel], dict[str, str]]:
+    """The wheels (rotation rate from the ground velocity ``vg_body`` when
+    the ground moves) and their geometry sources; a note for each wheel
+    whose centre is not within 2 % of its radius above the ground."""
+    wheels, sources = [], {}
+    for w in cfg.body.wheels:
+        c = np.asarray(w.centre, float)
+        a = np.asarray(w.axis, float) / np.linalg.norm(w.axis)
+        h = float(P.height_above_ground(c))
+        contact = c - h * P.ground_normal_body
+        omega = wheel_omega(c, a, contact, vg_body) if cfg.ground.mode == "moving" else 0.0
+        off = h - w.radius
+        if abs(off) > 0.02 * w.radius:
+            notes.append(f"wheel {w.name}: centre {h * 1e3:.2f} mm above the ground for a radius of {w.radius * 1e3:.2f} mm "
+                         f"({'gap' if off > 0 else 'overlap'} {abs(off) * 1e3:.2f} mm at the contact patch)")
+        wheels.append(Wheel(name=w.name, patch=w.solid or w.name, centre=_vec(c), axis=_vec(a), radius=float(w.radius),
+                            omega=float(omega), geometry=f"wheel_{w.name}.stl" if w.geometry else None))
+        if w.geometry:
+            sources[w.name] = w.geometry
+    return wheels, sources
+
+
 def plan_case(cfg: Config, pt: SweepPoint, geoms: dict[str, VariantGeometry], air: Air, settings, refgeo,
               cache: _RotationCache | None = None) -> tuple[CaseSpec, list[str]]:
     """Plan one point; raises UserError if the case must be refused."""
@@ -279,35 +335,9 @@ def plan_case(cfg: Config, pt: SweepPoint, geoms: dict[str, VariantGeometry], ai
     g = vg.body
     ground = cfg.ground.mode
     mode = cfg.sweep.yaw_mode
-    beta = float(np.radians(pt.yaw_deg))
     cid = pt.case_id
     notes: list[str] = []
-    if ground != "none":
-        P = place_body(np.asarray(cfg.body.ride_height_point_front, float), np.asarray(cfg.body.ride_height_point_rear, float),
-                       pt.ride_height_front, pt.ride_height_rear, beta, mode)
-        nz = P.rotation[2]
-
-        def lowest():
-            X = cache.columns(pt.variant + "/hull", g.hull)
-            h = X[0] * nz[0] + X[1] * nz[1] + X[2] * nz[2]  # no BLAS: see _RotationCache
-            j = int(np.argmin(h))
-            return j, float(h[j])
-
-        i, h_min = cache.get("lowest", pt.variant, nz, lowest)
-        clearance = h_min + float(P.translation[2])
-        at = g.hull[i]
-        pct = float(100.0 * (at[0] - g.bounds[0][0]) / g.length)
-        where = f"body point ({at[0]:.4f}, {at[1]:.4f}, {at[2]:.4f}) m, {pct:.0f} % of the length from the nose"
-        if clearance <= 0.0:
-            raise UserError(expected="a body clear of the ground", got=f"clearance {clearance * 1e3:.3f} mm at {where} in case {cid}",
-                            file=cfg.file, key=pt.source,
-                            fix="the body touches or penetrates the ground: raise the ride height or reduce the pitch")
-    else:
-        th = float(np.radians(pt.pitch_deg))
-        R = body_to_ground_rotation(th, beta, mode)
-        c = 0.5 * (np.asarray(g.bounds[0]) + np.asarray(g.bounds[1]))
-        P = Placement(rotation=R, translation=-R @ c, pitch=th, beta=beta, yaw_mode=mode)
-        clearance, at, pct, where = None, None, None, ""
+    P, clearance, at, pct, where = _place(cfg, pt, g, cache)
     U, w_body, vg_body = _wind(cfg, pt, P)
     frontal_wind = cache.get("frontal", pt.variant, w_body, lambda: hull_projected_area(vg.extent_hull, w_body))
 
@@ -334,22 +364,7 @@ def plan_case(cfg: Config, pt: SweepPoint, geoms: dict[str, VariantGeometry], ai
         raise msgs[0] if len(msgs) == 1 else UserErrors(msgs)
     notes.extend(dp.warnings)
     flow = _flow(cfg, air, U, w_body, vg_body, lref)
-    wheels = []
-    wheel_sources = {}
-    for w in cfg.body.wheels:
-        c = np.asarray(w.centre, float)
-        a = np.asarray(w.axis, float) / np.linalg.norm(w.axis)
-        h = float(P.height_above_ground(c))
-        contact = c - h * P.ground_normal_body
-        omega = wheel_omega(c, a, contact, vg_body) if ground == "moving" else 0.0
-        off = h - w.radius
-        if abs(off) > 0.02 * w.radius:
-            notes.append(f"wheel {w.name}: centre {h * 1e3:.2f} mm above the ground for a radius of {w.radius * 1e3:.2f} mm "
-                         f"({'gap' if off > 0 else 'overlap'} {abs(off) * 1e3:.2f} mm at the contact patch)")
-        wheels.append(Wheel(name=w.name, patch=w.solid or w.name, centre=_vec(c), axis=_vec(a), radius=float(w.radius),
-                            omega=float(omega), geometry=f"wheel_{w.name}.stl" if w.geometry else None))
-        if w.geometry:
-            wheel_sources[w.name] = w.geometry
+    wheels, wheel_sources = _wheels(cfg, P, vg_body, notes)
     solver = _solver(cfg, dp.domain, settings.preset.iterations)
     area = reference_area(cfg, pt.variant, geoms)
     ref = Reference(area=area, length=lref, wheelbase=wb, front_axle=fa, rear_axle=ra, moment_point=mp, rho=air.rho,

@@ -225,6 +225,77 @@ def config_hash(config_path: os.PathLike | str) -> str:
     return "sha256:" + hashlib.sha256(Path(config_path).read_bytes()).hexdigest()
 
 
+def _geometry_to_write(root: Path, geometry: Mapping[str, bytes], force: bool) -> list[str]:
+    """The shared geometry files that are new or differ (refused unless ``force``)."""
+    geo_dir = root / GEOMETRY_DIR
+    todo: list[str] = []
+    for name, data in geometry.items():
+        p = geo_dir / name
+        if p.is_symlink() or (p.exists() and not p.is_file()):
+            raise UserError(expected=f"{GEOMETRY_DIR}/{name} to be a plain file", got="a link or folder",
+                            file=str(p), fix="remove it; caseprep keeps one real copy there")
+        if p.is_file():
+            if p.stat().st_size == len(data) and p.read_bytes() == data:
+                continue
+            if not force:
+                raise UserError(
+                    f"the shared geometry {GEOMETRY_DIR}/{name} in {root} differs from the source "
+                    "(all existing cases were meshed with the old one)",
+                    fix="write to a new folder, or re-run with --force to replace it (existing meshes then no longer "
+                        "match the geometry: re-run their mesh stage)")
+        todo.append(name)
+    return todo
+
+
+def _cases_to_write(cases_dir: Path, specs: Sequence[CaseSpec], rendered: Mapping[str, Mapping[str, CaseFile]],
+                    force: bool) -> tuple[list[str], list[str], list[str]]:
+    """(new, to replace, unchanged) case ids; a differing case is refused unless ``force``."""
+    new, replace, same = [], [], []
+    for s in specs:
+        folder = cases_dir / s.case_id
+        if not (folder.exists() or folder.is_symlink()):
+            new.append(s.case_id)
+            continue
+        if folder.is_symlink() or not folder.is_dir():
+            raise UserError(expected=f"{CASES_DIR}/{s.case_id} to be a case folder", got="a file or link",
+                            file=str(folder), fix="move it away")
+        diff = _first_difference(folder, rendered[s.case_id])
+        if diff is None:
+            same.append(s.case_id)
+        elif force:
+            replace.append(s.case_id)
+        else:
+            raise UserError(
+                f"case {s.case_id} already exists in {cases_dir} and differs from what would be written: "
+                f"first difference {diff}",
+                fix="re-run with --force to replace the differing cases (their mesh, results and logs are deleted), "
+                    "or write to a new folder")
+    return new, replace, same
+
+
+def _manifest_records(root: Path, specs: Sequence[CaseSpec]) -> tuple[Manifest | None, list[CaseRecord]]:
+    """The existing manifest (None when unreadable) and the records to write:
+    the old records of cases not in this plan whose folder still exists,
+    then one per spec."""
+    old: Manifest | None = None
+    if (root / MANIFEST_NAME).is_file():
+        try:
+            old = read_manifest(root)
+        except UserError:
+            old = None
+    records: list[CaseRecord] = []
+    current = {s.case_id for s in specs}
+    if old is not None:
+        for r in old.cases:
+            if r.case_id not in current and (root / r.folder).is_dir():
+                records.append(r)
+    outputs = outputs_record()
+    for s in specs:
+        r = s.record(f"{CASES_DIR}/{s.case_id}")
+        records.append(dataclasses.replace(r, outputs=outputs))
+    return old, records
+
+
 def write_sweep(
     specs: Sequence[CaseSpec],
     out_dir: os.PathLike | str,
@@ -270,42 +341,8 @@ def write_sweep(
     # 2. compare with what exists
     cases_dir = root / CASES_DIR
     geo_dir = root / GEOMETRY_DIR
-    geo_todo: list[str] = []
-    for name, data in geometry.items():
-        p = geo_dir / name
-        if p.is_symlink() or (p.exists() and not p.is_file()):
-            raise UserError(expected=f"{GEOMETRY_DIR}/{name} to be a plain file", got="a link or folder",
-                            file=str(p), fix="remove it; caseprep keeps one real copy there")
-        if p.is_file():
-            if p.stat().st_size == len(data) and p.read_bytes() == data:
-                continue
-            if not force:
-                raise UserError(
-                    f"the shared geometry {GEOMETRY_DIR}/{name} in {root} differs from the source "
-                    "(all existing cases were meshed with the old one)",
-                    fix="write to a new folder, or re-run with --force to replace it (existing meshes then no longer "
-                        "match the geometry: re-run their mesh stage)")
-        geo_todo.append(name)
-    new, replace, same = [], [], []
-    for s in specs:
-        folder = cases_dir / s.case_id
-        if not (folder.exists() or folder.is_symlink()):
-            new.append(s.case_id)
-            continue
-        if folder.is_symlink() or not folder.is_dir():
-            raise UserError(expected=f"{CASES_DIR}/{s.case_id} to be a case folder", got="a file or link",
-                            file=str(folder), fix="move it away")
-        diff = _first_difference(folder, rendered[s.case_id])
-        if diff is None:
-            same.append(s.case_id)
-        elif force:
-            replace.append(s.case_id)
-        else:
-            raise UserError(
-                f"case {s.case_id} already exists in {cases_dir} and differs from what would be written: "
-                f"first difference {diff}",
-                fix="re-run with --force to replace the differing cases (their mesh, results and logs are deleted), "
-                    "or write to a new folder")
+    geo_todo = _geometry_to_write(root, geometry, force)
+    new, replace, same = _cases_to_write(cases_dir, specs, rendered, force)
 
     # 3. write
     cases_dir.mkdir(parents=True, exist_ok=True)
@@ -320,22 +357,7 @@ def write_sweep(
     nbytes = sum(sizes)
 
     # 4. manifest (existing records of cases not in this plan are kept while their folder exists)
-    old: Manifest | None = None
-    if (root / MANIFEST_NAME).is_file():
-        try:
-            old = read_manifest(root)
-        except UserError:
-            old = None
-    records: list[CaseRecord] = []
-    current = {s.case_id for s in specs}
-    if old is not None:
-        for r in old.cases:
-            if r.case_id not in current and (root / r.folder).is_dir():
-                records.append(r)
-    outputs = outputs_record()
-    for s in specs:
-        r = s.record(f"{CASES_DIR}/{s.case_id}")
-        records.append(dataclasses.replace(r, outputs=outputs))
+    old, records = _manifest_records(root, specs)
     manifest = Manifest(
         cases=tuple(records),
         tool_version=__version__,

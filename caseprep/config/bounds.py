@@ -1,75 +1,24 @@
-"""Upper and lower bounds of the config's values: sizes (before anything is
-expanded) and the physical range of every number.
-
-Two passes, both cheap and both before any sweep point is made:
+"""Sizes of the config, checked before anything is validated or expanded,
+and the ranges of its points.
 
 * :func:`raw_problems` walks the parsed TOML (before type validation): text
   no longer than :data:`~caseprep.contract.limits.MAX_TEXT_LENGTH`, lists no
   longer than :data:`~caseprep.contract.limits.MAX_AXIS_VALUES`, at most
   :data:`~caseprep.contract.limits.MAX_VARIANTS` variants.
-* :func:`range_problems` checks every number of the validated config against
-  its physical range (:data:`RANGES`, plus :data:`~caseprep.contract.limits.MAX_LENGTH`
-  for every point and length) and the counts (ranks, iterations, domain size).
-  Finiteness (no NaN or infinity) is enforced by the schema itself.
+* :func:`point_problems` checks every coordinate of the config's points
+  against the range declared for its key in :mod:`caseprep.config.keys`
+  (the scalar keys are checked by :mod:`caseprep.config.checks`).
+* :func:`empty_problems`: an empty sweep list is refused.
 
-The signs (positive speeds, lengths, …) and the ranges already given in
-:mod:`caseprep.config.schema` (temperature, pressure, altitude, angles, mesh
-levels, layers, blockage, turbulence intensity) are checked there; a value
-that fails its sign check is not reported again here.
+Finiteness (no NaN or infinity) is enforced by the schema itself.
 """
 from __future__ import annotations
 
 from typing import Any, Iterator
 
+from caseprep.config.keys import KEYS
 from caseprep.contract.errors import UserError
-from caseprep.contract.limits import (MAX_AXIS_VALUES, MAX_DOMAIN_LENGTHS, MAX_ITERATIONS, MAX_LENGTH, MAX_RANKS,
-                                      MAX_TEXT_LENGTH, MAX_VARIANTS)
-
-L = float(MAX_LENGTH.value)
-
-#: Physical range (lowest, highest, unit, why) of the numbers whose range the
-#: schema does not already check. Generic keys as in ``schema.KEYS``: ``[]``
-#: for list items, ``<name>`` for variant names.
-RANGES: dict[str, tuple[float, float, str, str]] = {
-    "air.speed": (0.1, 150.0, "m/s", "the solver is incompressible (Mach < 0.45); below 0.1 m/s there is no vehicle flow"),
-    "sweep.speed[]": (0.1, 150.0, "m/s", "as air.speed"),
-    "sweep.points[].speed": (0.1, 150.0, "m/s", "as air.speed"),
-    "air.density": (1e-3, 1e3, "kg/m³", "from thin air to water"),
-    "air.viscosity": (1e-7, 1e-1, "Pa s", "air is 1.8e-5 Pa s"),
-    "air.kinematic_viscosity": (1e-8, 1e-1, "m²/s", "air is 1.5e-5 m²/s"),
-    "body.reference_area": (1e-6, 1e4, "m²", "a vehicle's frontal area"),
-    "variants.<name>.reference_area": (1e-6, 1e4, "m²", "a vehicle's frontal area"),
-    "body.reference_length": (1e-4, L, "m", "a vehicle's length"),
-    "body.wheelbase": (1e-4, L, "m", "a vehicle's wheelbase"),
-    "body.wheels[].radius": (1e-4, L, "m", "a wheel's radius"),
-    "sweep.ride_height[]": (0.0, L, "m", "ride heights above one body length are also refused per case"),
-    "sweep.ride_heights_front_rear[][]": (0.0, L, "m", "as sweep.ride_height"),
-    "sweep.points[].ride_height": (0.0, L, "m", "as sweep.ride_height"),
-    "sweep.points[].ride_height_front": (0.0, L, "m", "as sweep.ride_height"),
-    "sweep.points[].ride_height_rear": (0.0, L, "m", "as sweep.ride_height"),
-    "mesh.base_cell": (1e-5, L, "m", "below 10 µm the cell counts overflow; the cell estimate bounds the rest"),
-    "mesh.ground_first_cell": (1e-7, L, "m", "a first cell below 0.1 µm is below round-off of the mesh points"),
-    "mesh.gap_cells": (0.0, 100.0, "cells", "cells across the smallest ground clearance"),
-    "mesh.target_yplus": (0.01, 1000.0, "—", "wall-resolved (about 1) to wall functions (30–300)"),
-    "domain.upstream": (0.0, float(MAX_DOMAIN_LENGTHS.value), "body lengths", MAX_DOMAIN_LENGTHS.why),
-    "domain.downstream": (0.0, float(MAX_DOMAIN_LENGTHS.value), "body lengths", MAX_DOMAIN_LENGTHS.why),
-    "domain.length": (0.0, L, "m", MAX_LENGTH.why),
-    "domain.width": (0.0, L, "m", MAX_LENGTH.why),
-    "domain.height": (0.0, L, "m", MAX_LENGTH.why),
-    "domain.lead_in": (0.0, L, "m", MAX_LENGTH.why),
-    "solver.turbulence_length_scale": (1e-6, L, "m", "an inlet eddy size from 1 µm to the domain's"),
-}
-
-#: Whole numbers with an upper bound: key → (highest, unit, why).
-COUNTS: dict[str, tuple[int, str, str]] = {
-    "solver.ranks": (int(MAX_RANKS.value), "ranks", MAX_RANKS.why),
-    "solver.iterations": (int(MAX_ITERATIONS.value), "iterations", MAX_ITERATIONS.why),
-    "solver.write_interval": (int(MAX_ITERATIONS.value), "iterations", MAX_ITERATIONS.why),
-}
-
-#: Points (x, y, z in m): every coordinate within ±MAX_LENGTH.
-POINTS = ("body.front_axle", "body.rear_axle", "body.ride_height_point_front", "body.ride_height_point_rear",
-          "body.pitch_pivot", "body.moment_point", "body.centre_of_gravity", "body.wheels[].centre")
+from caseprep.contract.limits import MAX_AXIS_VALUES, MAX_TEXT_LENGTH, MAX_VARIANTS
 
 
 def _walk(obj: Any, key: str = "") -> Iterator[tuple[str, Any]]:
@@ -105,38 +54,24 @@ def raw_problems(data: dict, file: str) -> list[UserError]:
     return errs[:20]
 
 
-def _generic(key: str) -> str:
-    """``sweep.points[3].speed`` → ``sweep.points[].speed``; ``variants.x.y`` → ``variants.<name>.y``."""
+def point_problems(cfg_data: dict, file: str) -> list[UserError]:
+    """Every coordinate of every point (a key declared in
+    :data:`~caseprep.config.keys.KEYS` whose value is a list of 3 numbers)
+    against its key's declared range (``cfg_data``: the config's
+    ``model_dump()``)."""
     import re
 
-    g = re.sub(r"\[\d+\]", "[]", key)
-    parts = g.split(".")
-    if parts[0] == "variants" and len(parts) > 2:
-        parts[1] = "<name>"
-    return ".".join(parts)
-
-
-def range_problems(cfg_data: dict, file: str) -> list[UserError]:
-    """Every number of the validated config (as ``model_dump()``) against its
-    range: :data:`RANGES`, :data:`COUNTS`, and ±MAX_LENGTH for the
-    coordinates of :data:`POINTS`. A value already refused by its sign check
-    (not > 0 where a positive value is required) is not reported again."""
     errs: list[UserError] = []
     for k, v in _walk(cfg_data):
-        g = _generic(k)
-        if g in RANGES and isinstance(v, (int, float)) and not isinstance(v, bool):
-            lo, hi, unit, why = RANGES[g]
-            if v > 0 and not lo <= v <= hi:
-                errs.append(UserError(expected=f"a value from {lo:g} to {hi:g} {unit}", got=v, file=file, key=k,
-                                      fix=f"check the unit and the value ({why})"))
-        elif g in COUNTS and isinstance(v, int) and not isinstance(v, bool):
-            hi, unit, why = COUNTS[g]
-            if v > hi:
-                errs.append(UserError(expected=f"at most {hi:,} {unit}", got=v, file=file, key=k, fix=why))
-        elif _generic(k.rsplit("[", 1)[0]) in POINTS and k.endswith("]") and isinstance(v, (int, float)):
-            if not abs(v) <= L:
-                errs.append(UserError(expected=f"a coordinate within ±{L:g} m (body frame)", got=v, file=file, key=k,
-                                      fix="points are in metres, whatever the geometry's length_unit"))
+        if not (isinstance(v, (list, tuple)) and len(v) == 3 and all(isinstance(x, (int, float)) for x in v)):
+            continue
+        g = re.sub(r"\[\d+\]", "[]", k)
+        key = KEYS.get(g)
+        if key is None or key.range is None or key.unit != "m":
+            continue
+        for i, x in enumerate(v):
+            if not key.range.contains(x):
+                errs.append(UserError(expected=key.range.text(), got=x, file=file, key=f"{k}[{i}]", fix=key.range.fix))
     return errs
 
 

@@ -204,6 +204,9 @@ def check_cmd(config: str) -> None:
         click.echo(f"warning: {w}", err=True)
     if result.problems:
         raise result.problems[0] if len(result.problems) == 1 else UserErrors(result.problems)
+    from caseprep.casefiles.writer import prepare_sweep
+
+    prepare_sweep(result.cases, config)  # every case file and geometry copy made in memory, as `write` makes them
     click.echo(f"{config}: OK, {len(result.cases)} cases, {len(result.warnings)} warnings")
 
 

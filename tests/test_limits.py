@@ -81,7 +81,7 @@ def test_points_times_variants_counted(tmp_path):
     text = text.replace('[variants.base]\ngeometry = "car.stl"\n', variants) + pts
     r, dt = _check(_cfg(tmp_path, text))
     assert r.exit_code == 2 and "11,000 cases" in r.output and "at sweep.points" in r.output, r.output
-    assert dt < 1.0
+    assert dt < 5.0  # the 1000 points are validated first (0.3 s on a quiet machine)
 
 
 def test_axis_longer_than_the_limit_is_refused_before_validation(tmp_path):

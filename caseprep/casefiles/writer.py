@@ -45,7 +45,7 @@ from caseprep.contract.manifest import MANIFEST_NAME, CaseRecord, Manifest, read
 from caseprep.casefiles.render import (CASES_DIR, GEOMETRY_DIR, CaseFile, outputs_record, render_case, render_sweep_scripts,
                      surfaces)
 from caseprep.contract.atomicio import open_folder, write_bytes_atomic, write_text_atomic
-from caseprep.geometry.stl import convert_to_stl, scale_stl_bytes, stl_solid_names
+from caseprep.geometry.stl import convert_to_stl, scale_stl_bytes, stl_solid_names, with_solid_names_as_read
 from caseprep.planning.spec import CaseSpec
 
 
@@ -108,7 +108,7 @@ def _prepare_geometry(specs: Sequence[CaseSpec], sources: Mapping, config_dir: P
         src = _resolve_source(name, spec, sources, config_dir)
         is_stl = src.suffix.lower() == ".stl"
         if is_stl:
-            data = src.read_bytes()
+            data = with_solid_names_as_read(src.read_bytes())  # the solids named as the planner read them
             if scale != 1.0:
                 data = scale_stl_bytes(data, scale)
         else:
@@ -307,6 +307,26 @@ def _manifest_records(old: Manifest | None, specs: Sequence[CaseSpec]) -> list[C
     return records
 
 
+def prepare_sweep(specs: Sequence[CaseSpec], config_path: os.PathLike | str,
+                  geometry_sources: Mapping[str, os.PathLike | str] | None = None
+                  ) -> tuple[dict[str, dict[str, CaseFile]], dict[str, bytes]]:
+    """Everything :func:`write_sweep` writes, made in memory and checked,
+    nothing written: (case files by case id, shared geometry bytes by file
+    name). ``caseprep check`` runs it too, so a config that passes ``check``
+    is one that ``write`` can write. Raises UserError."""
+    specs = list(specs)
+    cfg = Path(config_path)
+    if not specs:
+        raise UserError(expected="at least one case to write", got="an empty plan", file=str(cfg),
+                        fix="check the sweep ranges in the config")
+    _check_specs(specs)
+    if not cfg.is_file():
+        raise UserError(expected="a config file", got=str(cfg), fix="give the path of the sweep's TOML config")
+    rendered = {s.case_id: render_case(s) for s in specs}
+    geometry = _prepare_geometry(specs, geometry_sources or {}, cfg.resolve().parent)
+    return rendered, geometry
+
+
 def write_sweep(
     specs: Sequence[CaseSpec],
     out_dir: os.PathLike | str,
@@ -333,21 +353,14 @@ def write_sweep(
     for bad geometry sources.
     """
     specs = list(specs)
-    if not specs:
-        raise UserError(expected="at least one case to write", got="an empty plan", file=str(config_path),
-                        fix="check the sweep ranges in the config")
-    _check_specs(specs)
     root = Path(out_dir)
     cfg = Path(config_path)
-    if not cfg.is_file():
-        raise UserError(expected="a config file", got=str(cfg), fix="give the path of the sweep's TOML config")
     if root.exists() and not root.is_dir():
         raise UserError(expected="an output folder", got=f"{root} (a file)", key="-o", fix="choose a folder path")
-    chash = config_hash(cfg)
 
     # 1. render everything (pure) and prepare geometry — nothing written yet
-    rendered = {s.case_id: render_case(s) for s in specs}
-    geometry = _prepare_geometry(specs, geometry_sources or {}, cfg.resolve().parent)
+    rendered, geometry = prepare_sweep(specs, cfg, geometry_sources)
+    chash = config_hash(cfg)
 
     # 2. compare with what exists
     cases_dir = root / CASES_DIR

@@ -147,6 +147,12 @@ def write_cmd(config: str, out_dir: str, force: bool, fidelity: str | None) -> N
                f"{len(summary.unchanged)} unchanged case(s); manifest {summary.manifest}")
     if summary.geometry_written:
         click.echo("shared geometry written: " + ", ".join(summary.geometry_written))
+    for what in summary.cleaned:
+        click.echo(f"note: {what}")
+    if summary.unlisted:
+        click.echo(f"warning: {len(summary.unlisted)} folder(s) in cases/ have no record and are not listed in the "
+                   f"manifest (not written by caseprep): {', '.join(summary.unlisted[:10])}"
+                   + (" …" if len(summary.unlisted) > 10 else "") + "; move them out of the sweep folder", err=True)
     click.echo(f"run them: {summary.root}/run_all.sh  (or sbatch slurm_array.sh on a cluster)")
 
 

@@ -27,7 +27,8 @@ from postproc.cli import main as postproc_main  # noqa: E402
 
 
 def _files(root: Path) -> set[str]:
-    return {str(p.relative_to(root)) for p in root.rglob("*")}
+    """Every path below ``root`` but the sweep lock's file (created by whoever takes the lock)."""
+    return {str(p.relative_to(root)) for p in root.rglob("*") if p.name != ".underfloor.lock"}
 
 
 def _invoke(main, args):

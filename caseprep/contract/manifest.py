@@ -375,6 +375,9 @@ def read_manifest(path: str | os.PathLike) -> Manifest:
     if p.is_dir():
         p = p / MANIFEST_NAME
     if not p.is_file():
+        from caseprep.contract.locking import refuse_interrupted
+
+        refuse_interrupted(p.parent, "this command")  # a first write killed before its manifest
         raise UserError(
             expected="a sweep folder holding manifest.json (written by `caseprep write`)",
             got=str(path),

@@ -39,7 +39,8 @@ from caseprep.contract.atomicio import open_folder, write_json_atomic
 from caseprep.contract.convergence import DEFAULT_OPTIONS, ConvergenceOptions, force_settling, judge_convergence
 from caseprep.contract.errors import UserError, did_you_mean
 from caseprep.contract.limits import MAX_RANKS
-from caseprep.contract.manifest import CaseRecord, read_manifest
+from caseprep.contract.locking import refuse_interrupted, sweep_lock
+from caseprep.contract.manifest import MANIFEST_NAME, CaseRecord, read_manifest
 from caseprep.contract.records import (RECORD_NAME, RUN_FLAGS, SUMMARY_NAME, SUMMARY_SCHEMA, CaseRunRecord, Flag,
                                        StageRun, Status, effective_status, read_case_record)
 
@@ -270,7 +271,16 @@ def run_sweep(
     """
     # absolute: run.sh is started with the case folder as working directory
     root = Path(sweep_dir).resolve()
-    manifest = read_manifest(root)
+    if not (root / MANIFEST_NAME).is_file():
+        read_manifest(root)  # not a sweep: refused before anything is created in the folder
+    with sweep_lock(root, "caseprep run"):  # one command at a time in a sweep folder
+        refuse_interrupted(root, "caseprep run")
+        return _run_locked(root, read_manifest(root), jobs, ranks, stages, only, force, progress, options)
+
+
+def _run_locked(root: Path, manifest, jobs: int, ranks: int, stages, only, force: bool, progress,
+                options: RunOptions) -> list[CaseRunRecord]:
+    """:func:`run_sweep` holding the sweep's lock."""
     if not 1 <= jobs <= MAX_RANKS.value:
         raise UserError(expected=f"a number of parallel cases from 1 to {int(MAX_RANKS.value)}", got=jobs, key="--jobs",
                         fix="use -j 1 or more, at most the number of cores")

@@ -29,6 +29,7 @@ max(|its mean|, the resultant force), drift and std tolerance 1 %;
 """
 from __future__ import annotations
 
+import contextlib
 import csv
 import io
 import math
@@ -41,6 +42,7 @@ import numpy as np
 
 from caseprep.contract.atomicio import json_ready, write_json_atomic, write_text_atomic
 from caseprep.contract.errors import UserError
+from caseprep.contract.locking import refuse_interrupted, sweep_lock
 from caseprep.contract.manifest import CaseRecord, Manifest, read_manifest
 from caseprep.contract.records import Flag, Status, as_flag, effective_status, flag_meaning, load_case_record
 from postproc.io.exports import latest_export
@@ -346,10 +348,23 @@ def postprocess_sweep(
     replaced unless ``force`` (UserError naming the file). Returns the
     :class:`SweepAnalysis` with the outcomes and the paths (keys ``csv``,
     ``json``, ``cases`` written; ``report`` where the report belongs).
-    Raises UserError for a folder that is not a sweep.
+    Raises UserError for a folder that is not a sweep, one that another
+    command is writing (after a short wait) or that an interrupted write
+    left between states.
     """
-    manifest = read_manifest(sweep_dir)
-    out = Path(out_dir) if out_dir is not None else Path(manifest.root or sweep_dir)
+    root = Path(read_manifest(sweep_dir).root or sweep_dir)  # not a sweep: refused before anything is created
+    out = Path(out_dir) if out_dir is not None else root
+    with contextlib.ExitStack() as locks:  # one command at a time in the sweep (and the output) folder
+        locks.enter_context(sweep_lock(root, "postproc sweep"))
+        if out.resolve() != root.resolve():
+            locks.enter_context(sweep_lock(out, "postproc sweep"))
+        refuse_interrupted(root, "postproc sweep")
+        return _postprocess_locked(read_manifest(root), out, title, progress, force)
+
+
+def _postprocess_locked(manifest: Manifest, out: Path, title, progress, force: bool) -> SweepAnalysis:
+    """:func:`postprocess_sweep` holding the locks."""
+    sweep_dir = manifest.root
     existing = [p for p in (out / "results.csv", out / "results.json", out / REPORT_NAME) if p.exists()]
     if existing and not force:
         raise UserError(expected="no earlier results in the output folder", got=", ".join(str(p) for p in existing),

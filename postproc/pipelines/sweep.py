@@ -46,6 +46,7 @@ from caseprep.contract.locking import refuse_interrupted, sweep_lock
 from caseprep.contract.manifest import CaseRecord, Manifest, read_manifest
 from caseprep.contract.records import Flag, Status, as_flag, effective_status, flag_meaning, load_case_record
 from postproc.io.exports import latest_export
+from postproc.io.isolation import UnreadableFile
 from postproc.io.surfaces import read_surface
 from postproc.kernels import wallchecks as wc
 from postproc.kernels.aeromap import fit_response_surface, map_grid
@@ -154,9 +155,12 @@ def process_case(manifest: Manifest, case: CaseRecord) -> CaseOutcome:
     else:
         try:
             report = forces_report(str(case_dir))  # the monitor judged by the one convergence rule
+        except UnreadableFile as exc:  # corrupt, absurd sizes or it crashed the reader: this case only
+            flags.append(Flag.UNREADABLE)
+            notes.append(f"unreadable: {exc}".replace("\n", " "))
         except UserError as exc:
             flags.append(Flag.FORCES_FAILED)
-            notes.append(f"forces: {exc}")
+            notes.append(f"forces: {exc}".replace("\n", " "))
     nan = math.nan
     cl = cd = cs = nan
     clf = clr = bal = margin = None

@@ -224,26 +224,33 @@ def _print_vortices(d: dict) -> None:
 @main.command("vortices")
 @click.argument("source", type=click.Path())
 @click.option("--stations", help="Comma-separated x stations (m, body frame, x rearward). Default: every 5 % of the reference length from the nose to half a length behind the tail.")
-@click.option("--threshold", "q_star", type=float, default=100.0, show_default=True,
-              help="Core threshold on Q* = Q/(V/L)^2.")
+@click.option("--threshold", "q_star", type=float,
+              help="Core threshold on Q/(V/l)^2 (default 0.05 with the gap scale, 100 with the reference length).")
+@click.option("--q-scale", type=click.Choice(["auto", "gap", "length"]), default="auto", show_default=True,
+              help="Length l normalising Q: the ride height (gap; 'auto' when the manifest gives it) or the "
+                   "reference length L.")
+@click.option("--gap", type=float, help="Gap scale h (m) when there is no sweep manifest.")
 @click.option("--speed", type=float, help="Reference speed V (m/s) when there is no sweep manifest.")
 @click.option("--length", type=float, help="Reference length L (m) when there is no sweep manifest.")
 @click.option("--max-jump", type=float, help="Largest core displacement (m) between stations when linking tracks (default: two station spacings).")
 @click.option("--velocity", default="U", show_default=True, help="Name of the cell velocity array.")
 @click.option("--no-regions", is_flag=True, help="Skip the connected 3D Q-regions.")
 @_with_common
-def vortices_cmd(source, stations, q_star, speed, length, max_jump, velocity, no_regions, as_json, output, force):
+def vortices_cmd(source, stations, q_star, q_scale, gap, speed, length, max_jump, velocity, no_regions, as_json,
+                 output, force):
     """Vortex cores on cross-stream stations (Q-criterion), tracks and 3D Q-regions.
 
     SOURCE: a case folder, VTK/<case>_<time>.vtm or an internal .vtu. Per core:
     centre [x, y, z] (m), sense (+1/-1 about +x), circulation (m^2/s),
     radius (m), peak_q (1/s^2), axial velocity excess.
     """
-    from .flowreport import analyse_vortices
+    from .flowreport import Q_STAR_DEFAULTS, analyse_vortices, q_normalisation
 
     case = _load(source)
-    res = analyse_vortices(case, stations=_floats(stations, "--stations"), q_star=q_star, speed=speed,
-                           length=length, max_jump=max_jump, regions=not no_regions, velocity=velocity)
+    kind, h = q_normalisation(case, q_scale, gap)
+    res = analyse_vortices(case, stations=_floats(stations, "--stations"),
+                           q_star=q_star if q_star is not None else Q_STAR_DEFAULTS[kind], speed=speed,
+                           length=length, max_jump=max_jump, regions=not no_regions, velocity=velocity, q_length=h)
     payload = {"source": str(case.source), "case_id": case.record.case_id if case.record else None, **res.to_dict()}
     _emit(payload, as_json, output, force, _print_vortices)
 
@@ -353,31 +360,25 @@ def walls_cmd(source, treatment, yplus_range, nu, speed, lines, as_json, output,
 
 @main.command("flow")
 @click.argument("source", type=click.Path())
-@click.option("--threshold", "q_star", type=float, default=100.0, show_default=True, help="Core threshold on Q*.")
+@click.option("--threshold", "q_star", type=float,
+              help="Core threshold on Q/(V/l)^2 (default 0.05 with the gap scale, 100 with the reference length).")
+@click.option("--q-scale", type=click.Choice(["auto", "gap", "length"]), default="auto", show_default=True,
+              help="Length l normalising Q: the ride height (gap; 'auto' when the manifest gives it) or the "
+                   "reference length.")
+@click.option("--gap", type=float, help="Gap scale h (m) when there is no sweep manifest.")
 @click.option("--treatment", type=click.Choice(["wall-functions", "resolved", "resolved-relaxed"]),
               default="wall-functions", show_default=True, help="Intended wall treatment (its y+ range).")
 @_with_common
-def flow_cmd(source, q_star, treatment, as_json, output, force):
+def flow_cmd(source, q_star, q_scale, gap, treatment, as_json, output, force):
     """All flow-structure results of one case in one JSON: vortices, diffuser
-    (stations found from the floor), underbody Cp and wall checks. A part that
-    cannot be computed is reported with its reason instead."""
-    from caseprep.errors import UserError
-
-    from .flowreport import analyse_diffuser, analyse_underbody, analyse_vortices, analyse_walls
+    (stations found from the floor), underbody Cp and wall checks — the same
+    numbers `postproc sweep` puts in its flow columns. A part that cannot be
+    computed is reported with its reason instead."""
+    from .flowreport import flow_payload
 
     case = _load(source)
-    payload = {"source": str(case.source), "case_id": case.record.case_id if case.record else None}
-    parts = {
-        "vortices": lambda: analyse_vortices(case, q_star=q_star).to_dict(),
-        "diffuser": lambda: analyse_diffuser(case).to_dict(),
-        "underbody": lambda: analyse_underbody(case),
-        "walls": lambda: analyse_walls(case, target=_yplus_target(treatment, None)),
-    }
-    for name, fn in parts.items():
-        try:
-            payload[name] = fn()
-        except UserError as exc:
-            payload[name] = {"error": str(exc)}
+    payload, _ = flow_payload(case, q_star=q_star, q_scale=q_scale, gap=gap, target=_yplus_target(treatment, None))
+    parts = ("vortices", "diffuser", "underbody", "walls")
 
     def summary(d):
         for name in parts:

@@ -22,6 +22,18 @@ from . import gradients as grad
 from . import underbody as ub
 from . import vortices as vx
 from . import wallchecks as wc
+from .planview import PlanGrid, rasterise_lowest
+
+#: plan-grid cells per reference length for the underside raster (pictures, integrals)
+PLAN_CELLS_PER_LENGTH = 200
+
+
+def plan_spacing(refs: "Refs", body_length: float) -> float:
+    """Cell size (m) of the underside plan grid: the reference length over
+    :data:`PLAN_CELLS_PER_LENGTH` (the same for every case of a sweep, so
+    that the rasters of two variants share their grid points), or the body
+    length over the same number without a reference length."""
+    return float(refs.length or body_length) / PLAN_CELLS_PER_LENGTH
 
 DOMAIN_PATCH_WORDS = ("ground", "inlet", "outlet", "top", "side", "left", "right", "front", "back", "symmetry",
                       "farfield", "wall_domain", "lowerwall", "upperwall", "empty")
@@ -165,12 +177,15 @@ def body_extent(case: flowio.FlowCase, refs: Refs) -> tuple[float, float] | None
 def analyse_vortices(case: flowio.FlowCase, *, stations=None, q_star: float = 100.0, speed: float | None = None,
                      length: float | None = None, max_jump: float | None = None, regions: bool = True,
                      velocity: str = "U", gd: GradientData | None = None,
-                     wall_rotation_min: float | None = 1.5) -> vx.VortexResult:
+                     wall_rotation_min: float | None = 1.5, q_length: float | None = None) -> vx.VortexResult:
     """Vortex cores per station, tracks and 3D Q-regions of a case.
 
     ``stations``: x positions (m, body frame) or None for every 5 % of the
-    reference length from the nose to half a length behind the tail.
-    ``q_star``: threshold on Q* = Q/(V/L)². ``max_jump``: track linking limit
+    reference length from the nose to half a reference length behind the
+    tail (the body patches' x extent).
+    ``q_star``: threshold on Q* = Q/(V/ℓ)² with ℓ = ``q_length`` (m; default
+    the reference length L; :func:`q_length` gives the gap scale, the ride
+    height, for underbody cores). ``max_jump``: track linking limit
     (m), default 2 station spacings. ``wall_rotation_min``: cells on the
     boundary where ‖Ω‖ < this × ‖S‖ (boundary-layer shear, not a vortex:
     :func:`postproc.vortices.wall_shear_cells`) do not count as core cells;
@@ -181,14 +196,15 @@ def analyse_vortices(case: flowio.FlowCase, *, stations=None, q_star: float = 10
         raise UserError(expected="a reference speed and length for Q* = Q/(V/L)²", got="none",
                         file=str(case.source), key="reference",
                         fix="run on a case of a caseprep sweep (manifest.json), or pass --speed and --length")
-    q_scale = (refs.speed / refs.length) ** 2
+    ql = float(q_length) if q_length else refs.length
+    q_scale = (refs.speed / ql) ** 2
     gd = gd or gradient_data(case, velocity, with_lambda2=False, speed=refs.speed, length=refs.length)
     b = case.grid.bounds
     if stations is None:
         ext = body_extent(case, refs)
         x_front = ext[0] if ext else b[0]
         L = refs.length
-        xs = vx.default_stations(x_front, L, b[0], b[1])
+        xs = vx.default_stations(x_front, L, b[0], b[1], x_tail=ext[1] if ext else None)
         if xs.size == 0:
             xs = np.linspace(b[0], b[1], 22)[1:-1]
     else:
@@ -216,7 +232,7 @@ def analyse_vortices(case: flowio.FlowCase, *, stations=None, q_star: float = 10
             vol = gd.volumes[ids] if gd.volumes is not None else flowio.cell_volumes(case.grid, ids)
             regs = vx.q_regions(gd.adjacency, q, thr, gd.centres, vol, gd.fields.vorticity)
     return vx.VortexResult(stations=xs, cores=cores, tracks=tracks, regions=regs, q_threshold=thr, q_scale=q_scale,
-                           wall_cells_excluded=n_excl, wall_rotation_min=wall_rotation_min)
+                           wall_cells_excluded=n_excl, wall_rotation_min=wall_rotation_min, q_length=ql)
 
 
 def _station_section(case, refs, x, y_range, pressure, velocity, use_floor: bool):
@@ -294,7 +310,8 @@ def analyse_diffuser(case: flowio.FlowCase, *, throat: float | None = None, exit
             raise UserError(expected="finite pressure and velocity on the station", got="NaN/inf",
                             file=str(case.source), key=f"x = {x}", fix="the run diverged; check the solver log")
         results.append(dif.station_average(x, s.areas[m], p, u, refs.rho))
-    return dif.pressure_recovery(results[0], results[1], refs.rho)
+    return dif.pressure_recovery(results[0], results[1], refs.rho, p_ref=refs.p_ref if refs.speed else None,
+                                 speed=refs.speed)
 
 
 def analyse_underbody(case: flowio.FlowCase, *, lines=(0.0,), speed: float | None = None,
@@ -337,6 +354,23 @@ def analyse_underbody(case: flowio.FlowCase, *, lines=(0.0,), speed: float | Non
                                                     ub.pressure_coefficient(pv, refs.speed, p_ref_k), win).to_dict()
             except ValueError:
                 out["ground"] = None
+    # the whole underside seen from below on a plan grid: area integrals of Cp
+    parts = [case.patches[n] for n in refs.body_patches if n in case.patches]
+    if parts and all(s.cell_values(pressure) is not None for s in parts):
+        pts, offs, conn, cps = [], [np.zeros(1, dtype=np.int64)], [], []
+        bp = bc = 0
+        for s in parts:
+            pts.append(np.asarray(s.points, dtype=float))
+            offs.append(np.asarray(s.offsets[1:], dtype=np.int64) + bc)
+            conn.append(np.asarray(s.connectivity, dtype=np.int64) + bp)
+            cps.append(ub.pressure_coefficient(s.cell_values(pressure), refs.speed, p_ref_k))
+            bp += pts[-1].shape[0]
+            bc += int(s.offsets[-1])
+        P = np.concatenate(pts)
+        lo, hi = P.min(axis=0), P.max(axis=0)
+        grid = PlanGrid.covering(lo[0], hi[0], lo[1], hi[1], plan_spacing(refs, hi[0] - lo[0]))
+        r = rasterise_lowest(P, np.concatenate(offs), np.concatenate(conn), grid, {"cp": np.concatenate(cps)})
+        out["underside"] = ub.underside_integrals(r.values["cp"], grid.spacing).to_dict()
     out["notes"] = list(refs.notes)
     return out
 
@@ -406,3 +440,92 @@ def analyse_walls(case: flowio.FlowCase, *, target: tuple[float, float] = (30.0,
             upper = 5.0 * 0.5 * refs.speed**2
         flags.append(wc.field_flags(name, arr, X, lower=lower, upper=upper).to_dict())
     return {"yplus": patches, "shear_reversals": reversals, "field_flags": flags, "notes": notes}
+
+
+#: Default core thresholds on Q/(V/ℓ)² by the length ℓ in the normalisation:
+#: the reference length L ("length", the wheelbase for a car) or the gap
+#: scale h ("gap", the ride height). Our choice, no source: see the README
+#: ("postproc: vortices …") for what they give on the demo floors.
+Q_STAR_DEFAULTS = {"length": 100.0, "gap": 0.05}
+
+
+def gap_scale(record) -> float | None:
+    """The gap scale h (m) of a sweep case: the mean of its front and rear
+    ride heights (manifest record ``params``); None without them."""
+    if record is None:
+        return None
+    vals = [float(record.params[k]) for k in ("ride_height_front", "ride_height_rear")
+            if record.params.get(k) is not None]
+    h = float(np.mean(vals)) if vals else 0.0
+    return h if h > 0 else None
+
+
+def q_normalisation(case: flowio.FlowCase, q_scale: str = "auto", gap: float | None = None) -> tuple[str, float | None]:
+    """Which length normalises Q: ("gap", h) with h = ``gap`` or the case's
+    ride height (:func:`gap_scale`), or ("length", None) for the reference
+    length. ``q_scale`` "auto" takes the gap when one is known."""
+    if q_scale not in ("auto", "gap", "length"):
+        raise UserError(expected="a Q scale 'auto', 'gap' or 'length'", got=q_scale, key="--q-scale",
+                        fix="use --q-scale gap (ride height) or --q-scale length (reference length)")
+    h = gap if gap is not None else gap_scale(case.record)
+    if gap is not None and not gap > 0:
+        raise UserError(expected="a positive gap scale (m)", got=gap, key="--gap", fix="give the ride height in m")
+    if q_scale == "length" or (q_scale == "auto" and h is None):
+        return "length", None
+    if h is None:
+        raise UserError(expected="a ride height for the gap scale (V/h)²", got="none (no sweep manifest)",
+                        file=str(case.source), key="--q-scale gap",
+                        fix="pass --gap H (m), or --q-scale length to normalise by the reference length")
+    return "gap", h
+
+
+def flow_payload(case: flowio.FlowCase, *, q_star: float | None = None, q_scale: str = "auto",
+                 gap: float | None = None, target: tuple[float, float] = (30.0, 300.0),
+                 gd: GradientData | None = None) -> tuple[dict, GradientData | None]:
+    """All flow-structure results of one case (vortices, diffuser,
+    underbody, walls) as one JSON-ready dict, each part replaced by
+    ``{"error": message}`` when it cannot be computed — what ``postproc
+    flow`` prints and what the sweep reduces to its flow columns
+    (:mod:`postproc.caseflow`). Also returns the gradient data it used (None
+    when the velocity is unusable) so that a caller can reuse it.
+
+    ``q_scale``/``gap``: the normalisation of Q (:func:`q_normalisation`);
+    ``q_star``: the core threshold (default :data:`Q_STAR_DEFAULTS`).
+    """
+    payload: dict = {"source": str(case.source), "case_id": case.record.case_id if case.record else None}
+    errors: dict[str, str] = {}
+    r0 = references(case)
+    ext = body_extent(case, r0)
+    payload["frame"] = {"axes": "body frame: x rearward, y right, z up, m",
+                        "body_x": list(ext) if ext is not None else None,
+                        "ground_point": r0.ground_point.tolist(), "ground_normal": r0.ground_normal.tolist()}
+    try:
+        kind, h = q_normalisation(case, q_scale, gap)
+        thr = float(q_star) if q_star is not None else Q_STAR_DEFAULTS[kind]
+        payload["q_normalisation"] = {"scale": kind, "gap": h, "threshold": thr}
+    except UserError as exc:
+        kind, h, thr = None, None, None
+        errors["vortices"] = str(exc)
+    centres = None
+    if gd is None and kind is not None:
+        try:
+            gd = gradient_data(case, with_lambda2=False, speed=r0.speed, length=r0.length)
+        except UserError as exc:
+            errors["vortices"] = str(exc)
+    if gd is not None:
+        centres = gd.centres
+    parts = {
+        "vortices": lambda: analyse_vortices(case, q_star=thr, q_length=h, gd=gd).to_dict(),
+        "diffuser": lambda: analyse_diffuser(case).to_dict(),
+        "underbody": lambda: analyse_underbody(case),
+        "walls": lambda: analyse_walls(case, target=target, centres=centres),
+    }
+    for name, fn in parts.items():
+        if name in errors:
+            payload[name] = {"error": errors[name]}
+            continue
+        try:
+            payload[name] = fn()
+        except UserError as exc:
+            payload[name] = {"error": str(exc)}
+    return payload, gd

@@ -23,8 +23,8 @@ from caseprep import __version__
 from caseprep.safeio import write_text_atomic
 from caseprep.templating import environment
 
-from .aeromap import fit_response_surface
-from .ranking import CaseResult, VariantScore, rank_variants
+from ..aeromap import fit_response_surface
+from ..ranking import CaseResult, VariantScore, rank_variants
 
 # A colour-blind-safe qualitative palette (Okabe & Ito 2008, "Color Universal Design").
 PALETTE = ("#0072B2", "#D55E00", "#009E73", "#CC79A7", "#E69F00", "#56B4E9", "#F0E442", "#000000")

@@ -1,0 +1,180 @@
+"""Build the picture scene of one case (:class:`postproc.scenes.CaseScene`)
+from its loaded result: the body with Cp, the ground footprint, the
+underside on a plan grid, the Q iso-surface with the rotation sense, the
+tracked vortex cores and the wall-shear streak lines. Uses VTK (through
+pyvista) for the iso-surface; everything else is numpy.
+
+Axes: body frame (x rearward, y right, z up, m). Cp as in
+:mod:`postproc.underbody`. Q is normalised by the local gap scale,
+Q/(V/h)², with V the reference speed and h the ride height (mean of the
+front and rear ride heights of the case), because the underbody vortices
+scale with the gap rather than with the car: on the demo floors every cell
+above Q/(V/L)² = 100 (L the wheelbase) was wall shear, not a vortex.
+"""
+from __future__ import annotations
+
+import numpy as np
+
+from caseprep.errors import UserError
+
+from . import flowio
+from . import underbody as ub
+from . import wallchecks as wc
+from .flowreport import plan_spacing
+from .planview import PlanGrid, plan_streaks, rasterise_lowest
+from .scenes import CaseScene, CoreTrack, SurfaceData
+from .sections import Surface
+
+
+def _surface_data(s: Surface, values: np.ndarray | None, name: str = "") -> SurfaceData:
+    return SurfaceData(np.asarray(s.points, dtype=float), np.asarray(s.offsets, dtype=np.int64),
+                       np.asarray(s.connectivity, dtype=np.int64), values, name or s.name)
+
+
+def subset_faces(s: SurfaceData, mask: np.ndarray) -> SurfaceData:
+    """The faces of ``s`` where ``mask`` is True, with only their points."""
+    keep = np.flatnonzero(mask)
+    counts = np.diff(s.offsets)[keep]
+    starts = s.offsets[:-1][keep]
+    idx = np.repeat(starts, counts) + (np.arange(counts.sum()) - np.repeat(np.cumsum(counts) - counts, counts))
+    conn = np.asarray(s.connectivity)[idx]
+    used, inv = np.unique(conn, return_inverse=True)
+    off = np.concatenate([[0], np.cumsum(counts)]).astype(np.int64)
+    vals = None if s.values is None else np.asarray(s.values)[keep]
+    return SurfaceData(np.asarray(s.points)[used], off, inv.astype(np.int64), vals, s.name)
+
+
+def patch_cp(case: flowio.FlowCase, name: str, speed: float, p_ref_kinematic: float,
+             pressure: str = "p") -> SurfaceData:
+    """One patch with Cp per face; UserError naming the array when the
+    patch carries no pressure."""
+    s = case.patches[name]
+    p = s.cell_values(pressure)
+    if p is None:
+        raise UserError(expected=f"a pressure array {pressure!r} on the patch {name!r}",
+                        got=f"arrays: {', '.join(s.array_names()) or 'none'}", file=str(case.source), key=pressure,
+                        fix="export the pressure with the solver's VTK converter (the case's run script does it)")
+    return _surface_data(s, ub.pressure_coefficient(np.asarray(p, dtype=float), speed, p_ref_kinematic), name)
+
+
+def gap_scale(record) -> float | None:
+    """h (m): the mean of the case's front and rear ride heights, from its
+    manifest record; None without one."""
+    if record is None:
+        return None
+    f, r = record.params.get("ride_height_front"), record.params.get("ride_height_rear")
+    vals = [float(v) for v in (f, r) if v is not None]
+    return float(np.mean(vals)) if vals and np.mean(vals) > 0 else None
+
+
+def q_isosurface(case: flowio.FlowCase, q_norm: np.ndarray, vorticity_x: np.ndarray, level: float,
+                 cell_ids: np.ndarray) -> SurfaceData | None:
+    """Iso-surface Q_norm = level through the cells ``cell_ids`` (and their
+    values interpolated to the points), with the sign of ω_x per face."""
+    if cell_ids.size == 0:
+        return None
+    sub = case.grid.extract_cells(cell_ids)
+    sub.clear_data()
+    sub.cell_data["q"] = np.asarray(q_norm, dtype=float)[cell_ids]
+    sub.cell_data["wx"] = np.asarray(vorticity_x, dtype=float)[cell_ids]
+    pts = sub.cell_data_to_point_data()
+    iso = pts.contour([level], scalars="q")
+    if iso.n_cells == 0:
+        return None
+    iso = iso.triangulate()
+    wx = iso.point_data["wx"]
+    faces = iso.faces.reshape(-1, 4)[:, 1:]
+    sense = np.where(wx[faces].mean(axis=1) >= 0, 1.0, -1.0)
+    off = np.arange(0, 3 * faces.shape[0] + 1, 3, dtype=np.int64)
+    return SurfaceData(np.asarray(iso.points, dtype=float), off, faces.ravel().astype(np.int64), sense, "Q")
+
+
+def build_scene(case: flowio.FlowCase, refs, *, label: str, variant: str, case_id: str,
+                gd=None, vortices=None, q_scale: float | None = None, q_level: float | None = None,
+                spacing: float | None = None, pressure: str = "p", shear: str = "wallShearStress") -> CaseScene:
+    """The scene of one case for the pictures.
+
+    ``refs``: :class:`postproc.flowreport.Refs`; ``gd``: the case's
+    :class:`postproc.flowreport.GradientData` (None: no Q surface);
+    ``vortices``: its :class:`postproc.vortices.VortexResult` (tracked
+    cores); ``q_scale`` (1/s²) the Q normalisation and ``q_level`` the
+    iso-value of Q/q_scale; ``spacing`` (m) of the plan grid (default body
+    :func:`postproc.flowreport.plan_spacing`).
+    """
+    notes: list[str] = []
+    if not refs.speed:
+        raise UserError(expected="a reference speed for Cp", got="none", file=str(case.source), key="reference",
+                        fix="run on a case of a caseprep sweep (manifest.json)")
+    pk = refs.p_ref / refs.rho
+    parts = [patch_cp(case, n, refs.speed, pk, pressure) for n in refs.body_patches if n in case.patches]
+    if not parts:
+        raise UserError(expected="body patches in the result", got=", ".join(case.patches) or "none",
+                        file=str(case.source), key="patches", fix="export the boundary patches with the VTK converter")
+    body = SurfaceData.join(parts, "body")
+    bx0, bx1, by0, by1, bz0, bz1 = body.bounds
+    L = bx1 - bx0
+    # ground footprint under the vehicle
+    ground = None
+    if refs.ground_patch and refs.ground_patch in case.patches:
+        g = case.patches[refs.ground_patch]
+        if g.cell_values(pressure) is not None:
+            gs = patch_cp(case, refs.ground_patch, refs.speed, pk, pressure)
+            c = g.centroids
+            win = (c[:, 0] >= bx0 - 0.1 * L) & (c[:, 0] <= bx1 + 0.3 * L) & \
+                  (c[:, 1] >= by0 - 0.1 * L) & (c[:, 1] <= by1 + 0.1 * L)
+            if win.any():
+                ground = subset_faces(gs, win)
+        else:
+            notes.append(f"ground patch {refs.ground_patch!r} carries no {pressure!r}")
+    # the underside on the plan grid: Cp and the wall shear of the lowest face
+    d = spacing or plan_spacing(refs, L)
+    grid = PlanGrid.covering(bx0, bx1, by0, by1, d)
+    shear_parts = [case.patches[n].cell_values(shear) for n in refs.body_patches if n in case.patches]
+    have_shear = all(v is not None and np.ndim(v) == 2 for v in shear_parts)
+    fv = {"cp": body.values}
+    tau = None
+    if have_shear:
+        tau = np.concatenate([np.asarray(v, dtype=float) for v in shear_parts])
+        fv["shear"] = tau
+    else:
+        notes.append(f"no {shear!r} on the body: no streak lines")
+    raster = rasterise_lowest(body.points, body.offsets, body.connectivity, grid, fv)
+    streaks: tuple = ()
+    sign = 1
+    if tau is not None:
+        areas = np.concatenate([case.patches[n].areas for n in refs.body_patches if n in case.patches])
+        faces = raster.face[raster.covered]
+        uniq = np.unique(faces)
+        sign = wc.attached_sign(tau[uniq, 0], areas[uniq])
+        streaks = tuple(plan_streaks(raster, "shear", spacing_cells=max(2, int(round(raster.grid.shape[1] / 22)))))
+    # Q iso-surface in the underbody region and the tracked cores
+    q_surface = None
+    if gd is not None and q_scale and q_level is not None:
+        X = gd.centres
+        gp, gn = refs.ground_point, refs.ground_normal
+        hgt = (X - gp) @ gn
+        zmid = 0.5 * (bz0 + bz1)
+        box = ((X[:, 0] >= bx0 - 0.05 * L) & (X[:, 0] <= bx1 + 0.3 * L) & (X[:, 1] >= by0 - 0.1 * L)
+               & (X[:, 1] <= by1 + 0.1 * L) & (X[:, 2] <= zmid) & (hgt > 0))
+        qn = gd.fields.q / q_scale
+        if vortices is not None and vortices.wall_rotation_min is not None and gd.n_boundary is not None:
+            from .vortices import wall_shear_cells
+
+            sh = wall_shear_cells(gd.fields.q, gd.fields.vorticity, gd.n_boundary > 0, vortices.wall_rotation_min)
+            qn = np.where(sh, -np.abs(qn), qn)
+        cand = np.flatnonzero(box & (qn > 0.5 * q_level))
+        if cand.size:
+            # the candidates and their face neighbours, so that the surface closes
+            nb = gd.adjacency[cand].indices
+            ids = np.union1d(cand, nb[box[nb]])
+            q_surface = q_isosurface(case, qn, gd.fields.vorticity[:, 0], q_level, ids)
+        if q_surface is None:
+            notes.append(f"no Q/(V/h)² above {q_level:g} under the floor")
+    tracks = ()
+    if vortices is not None:
+        tracks = tuple(CoreTrack(np.asarray(t.centres, dtype=float), int(t.sense)) for t in vortices.tracks
+                       if len(t.members) >= 2)
+    h = gap_scale(case.record)
+    return CaseScene(case_id=case_id, variant=variant, label=label, body=body, ground=ground, underside=raster,
+                     q_surface=q_surface, q_level=q_level, tracks=tracks, streaks=streaks, attached_sign=sign,
+                     ride_height=h, notes=tuple(notes))

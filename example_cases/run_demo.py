@@ -36,7 +36,7 @@ if str(ROOT) not in sys.path:  # running from a source tree without installing
 from caseprep import runner  # noqa: E402
 from caseprep.errors import UserError  # noqa: E402
 from caseprep.manifest import read_manifest  # noqa: E402
-from postproc.sweep import postprocess_sweep  # noqa: E402
+from postproc.report import make_sweep_report  # noqa: E402
 
 DEFAULT_CONFIG = HERE / "floor_study" / "sweep.toml"
 SAFETY = ("CFD is an approximation: the numbers depend on the mesh, the turbulence model and the set-up. "
@@ -128,7 +128,7 @@ def main(argv: list[str] | None = None) -> int:
     except UserError as exc:
         return _stop(str(exc), 2)
 
-    say("post-processing every case (forces, coefficients, balance, convergence) …")
+    say("post-processing every case (forces, coefficients, balance, convergence, flow numbers) and the report …")
 
     def post_progress(i, n, o):
         r = o.result
@@ -136,8 +136,11 @@ def main(argv: list[str] | None = None) -> int:
         say(f"  [{i}/{n}] {r.case_id}: {what}" + (f" — flags: {', '.join(r.flags)}" if r.flags else ""))
 
     try:
-        outcomes, paths = postprocess_sweep(sweep_dir, out_dir=out, force=True, progress=post_progress,
-                                            title="underfloor demo — example floor study (DEMO data, smoke meshes)")
+        t_post = time.monotonic()
+        outcomes, paths, info = make_sweep_report(
+            sweep_dir, out_dir=out, force=True, progress=post_progress,
+            title="underfloor demo — example floor study (DEMO data, smoke meshes)")
+        t_post = time.monotonic() - t_post
     except UserError as exc:
         return _stop(str(exc), 2)
     elapsed = time.monotonic() - t0
@@ -145,8 +148,10 @@ def main(argv: list[str] | None = None) -> int:
     say(runner.format_summary_table(recs))
     failed = [r for r in recs if r.failed]
     say("")
-    say(f"report: {paths['report']}; tables: {paths['csv']}, {paths['json']}; run records: "
-        f"{sweep_dir / runner.SUMMARY_NAME}")
+    say(f"report: {paths['report']} ({info.size / 1e6:.2f} MB; post-processing and report "
+        f"{runner.format_duration(t_post)}, pictures {info.seconds.get('pictures', 0.0):.1f} s"
+        f"{'' if info.backend else ', no pictures: see the report'}); tables: {paths['csv']}, {paths['json']}; "
+        f"run records: {sweep_dir / runner.SUMMARY_NAME}")
     say(f"demo took {runner.format_duration(elapsed)}; {len(recs) - len(failed)} of {len(recs)} case(s) ran"
         + (f", {len(failed)} failed (see above)" if failed else ""))
     say("Caution: " + SAFETY)

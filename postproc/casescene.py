@@ -21,7 +21,7 @@ from . import flowio
 from . import underbody as ub
 from . import wallchecks as wc
 from .flowreport import plan_spacing
-from .planview import PlanGrid, plan_streaks, rasterise_lowest
+from .planview import PlanGrid, plan_streaks, point_average, rasterise_lowest
 from .scenes import CaseScene, CoreTrack, SurfaceData
 from .sections import Surface
 
@@ -138,7 +138,10 @@ def build_scene(case: flowio.FlowCase, refs, *, label: str, variant: str, case_i
         fv["shear"] = tau
     else:
         notes.append(f"no {shear!r} on the body: no streak lines")
-    raster = rasterise_lowest(body.points, body.offsets, body.connectivity, grid, fv)
+    # Cp interpolated from the points (the pictures' smooth bands), the shear per face
+    cp_points = point_average(body.points.shape[0], body.offsets, body.connectivity, body.values)
+    raster = rasterise_lowest(body.points, body.offsets, body.connectivity, grid,
+                              {k: v for k, v in fv.items() if k != "cp"}, point_values={"cp": cp_points})
     streaks: tuple = ()
     sign = 1
     if tau is not None:

@@ -119,17 +119,26 @@ def forces_cmd(target, patches, rho, kinematic, normals, shear_on, p_ref, about,
 @click.option("-o", "--out", "out_dir", type=click.Path(file_okay=False),
               help="Where to write results.csv, results.json, report.html and results/ (default: the sweep folder).")
 @click.option("--title", help="Report title (default from the study name).")
+@click.option("--baseline", help="Variant the pressure-difference pictures compare against (default: the first).")
+@click.option("--picture-ride-height", type=float,
+              help="Front ride height (m) of the pictured point (default: the sweep's median).")
+@click.option("--picture-yaw", type=float, help="Yaw (deg) of the pictured point (default: the smallest |yaw|).")
+@click.option("--no-pictures", is_flag=True, help="No flow pictures (very large sweeps; flow numbers still computed).")
 @click.option("--force", is_flag=True, help="Replace earlier results in the output folder.")
 @click.option("-q", "--quiet", is_flag=True, help="No per-case progress lines.")
-def sweep_cmd(sweep_dir: str, out_dir: str | None, title: str | None, force: bool, quiet: bool) -> None:
+def sweep_cmd(sweep_dir: str, out_dir: str | None, title: str | None, baseline: str | None,
+              picture_ride_height: float | None, picture_yaw: float | None, no_pictures: bool, force: bool,
+              quiet: bool) -> None:
     """Post-process every case of SWEEP_DIR (written by `caseprep write`, run
-    by `caseprep run`): forces, coefficients, aero balance, convergence and
-    the runner's flags → results table, variant ranking and an HTML report.
+    by `caseprep run`): forces, coefficients, aero balance, convergence, the
+    runner's flags and each case's flow numbers → results table, variant
+    ranking and a self-contained HTML report with flow pictures and plots.
 
     Flagged cases (mesh failed, layers collapsed, not converged, not run…)
     are listed and never ranked.
     """
-    from .sweep import postprocess_sweep
+    from .report import make_sweep_report
+    from .reportdata import ReportOptions
 
     def progress(i, n, o):
         if quiet:
@@ -138,10 +147,13 @@ def sweep_cmd(sweep_dir: str, out_dir: str | None, title: str | None, force: boo
         what = (f"C_L {r.cl:+.4f}  C_D {r.cd:.4f}" if r.cl == r.cl else "no coefficients")
         click.echo(f"[{i}/{n}] {r.case_id}: {o.status}; {what}" + (f"; flags: {', '.join(r.flags)}" if r.flags else ""))
 
-    outcomes, paths = postprocess_sweep(sweep_dir, out_dir, title=title, progress=progress, force=force)
+    opts = ReportOptions(title=title, baseline=baseline, reference_ride_height=picture_ride_height,
+                         reference_yaw_deg=picture_yaw, pictures=not no_pictures)
+    outcomes, paths, info = make_sweep_report(sweep_dir, out_dir, title=title, progress=progress, force=force,
+                                              options=opts)
     n_flag = sum(bool(o.result.flags) for o in outcomes)
     click.echo(f"{len(outcomes)} case(s), {n_flag} flagged (not ranked).")
-    click.echo(f"results: {paths['csv']}, {paths['json']}; report: {paths['report']}")
+    click.echo(f"results: {paths['csv']}, {paths['json']}; report: {paths['report']} ({info.size / 1e6:.2f} MB)")
     click.echo("Caution: CFD is an approximation — validate by physical test; run vehicles only where permitted "
                "and safe; defer to local rules and qualified engineers.")
 

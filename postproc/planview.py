@@ -140,12 +140,15 @@ def _triangles(offsets: np.ndarray, conn: np.ndarray) -> tuple[np.ndarray, np.nd
 
 
 def rasterise_lowest(points: np.ndarray, offsets: np.ndarray, connectivity: np.ndarray, grid: PlanGrid,
-                     face_values: dict[str, np.ndarray] | None = None, *, chunk: int = 2_000_000) -> PlanRaster:
+                     face_values: dict[str, np.ndarray] | None = None, *,
+                     point_values: dict[str, np.ndarray] | None = None, chunk: int = 2_000_000) -> PlanRaster:
     """The lowest (smallest z) surface above every cell centre of ``grid``.
 
     ``points`` (N, 3) m (body frame); polygons as ``offsets`` (F+1,) and
     ``connectivity``; ``face_values`` name → (F,) or (F, k) per-face values
-    carried over to the raster. Each polygon is split into a fan of
+    carried over to the raster; ``point_values`` name → (N,) per-point
+    values interpolated linearly over the hit triangle (smooth pictures).
+    Each polygon is split into a fan of
     triangles; a cell centre inside a triangle's plan projection (edges
     included) gets the triangle's z there (linear interpolation) and the
     lowest one wins. Triangles seen edge-on from below (vertical walls)
@@ -157,6 +160,8 @@ def rasterise_lowest(points: np.ndarray, offsets: np.ndarray, connectivity: np.n
     nx, ny = grid.shape
     best_z = np.full(nx * ny, np.inf)
     best_f = np.full(nx * ny, -1, dtype=np.int64)
+    best_t = np.full(nx * ny, -1, dtype=np.int64)
+    best_l = np.zeros((nx * ny, 2))
     d = grid.spacing
     if tri.shape[0]:
         A, B, C = P[tri[:, 0]], P[tri[:, 1]], P[tri[:, 2]]
@@ -194,15 +199,18 @@ def rasterise_lowest(points: np.ndarray, offsets: np.ndarray, connectivity: np.n
             inside = (l0 >= eps) & (l1 >= eps) & (l2 >= eps)
             z = l0 * A[tt, 2] + l1 * B[tt, 2] + l2 * C[tt, 2]
             cell = (i - grid.i0) * ny + (j - grid.j0)
-            cell, z, f = cell[inside], z[inside], src[tt[inside]]
+            cell, z, tr = cell[inside], z[inside], tt[inside]
+            lb = np.stack([l1[inside], l2[inside]], axis=1)
             if cell.size:
                 order = np.lexsort((z, cell))
-                cell, z, f = cell[order], z[order], f[order]
+                cell, z, tr, lb = cell[order], z[order], tr[order], lb[order]
                 head = np.concatenate([[True], cell[1:] != cell[:-1]])
-                cell, z, f = cell[head], z[head], f[head]
+                cell, z, tr, lb = cell[head], z[head], tr[head], lb[head]
                 better = z < best_z[cell]
                 best_z[cell[better]] = z[better]
-                best_f[cell[better]] = f[better]
+                best_f[cell[better]] = src[tr[better]]
+                best_t[cell[better]] = tr[better]
+                best_l[cell[better]] = lb[better]
             start = stop
     height = np.where(np.isfinite(best_z), best_z, np.nan).reshape(nx, ny)
     face = best_f.reshape(nx, ny)
@@ -213,7 +221,32 @@ def rasterise_lowest(points: np.ndarray, offsets: np.ndarray, connectivity: np.n
         hit = best_f >= 0
         out[hit] = v[best_f[hit]]
         vals[name] = out.reshape((nx, ny) + v.shape[1:])
+    hit = best_t >= 0
+    for name, v in (point_values or {}).items():
+        v = np.asarray(v, dtype=np.float64)
+        out = np.full(nx * ny, np.nan)
+        t = tri[best_t[hit]]
+        l1, l2 = best_l[hit, 0], best_l[hit, 1]
+        out[hit] = (1.0 - l1 - l2) * v[t[:, 0]] + l1 * v[t[:, 1]] + l2 * v[t[:, 2]]
+        vals[name] = out.reshape(nx, ny)
     return PlanRaster(grid, height, face, vals)
+
+
+def point_average(n_points: int, offsets: np.ndarray, connectivity: np.ndarray, face_values: np.ndarray,
+                  weights: np.ndarray | None = None) -> np.ndarray:
+    """Per-point values from per-face values: the (``weights``-weighted, e.g.
+    area-weighted) mean over the faces sharing each point (NaN for points of
+    no face)."""
+    off = np.asarray(offsets, dtype=np.int64)
+    conn = np.asarray(connectivity, dtype=np.int64)
+    counts = np.diff(off)
+    face = np.repeat(np.arange(counts.size), counts)
+    w = np.ones(counts.size) if weights is None else np.asarray(weights, dtype=np.float64)
+    v = np.asarray(face_values, dtype=np.float64)
+    num = np.bincount(conn, weights=(w * v)[face], minlength=n_points)
+    den = np.bincount(conn, weights=w[face], minlength=n_points)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.where(den > 0, num / den, np.nan)
 
 
 def difference(a: PlanRaster, b: PlanRaster, name: str, grid: PlanGrid | None = None) -> PlanRaster:

@@ -9,7 +9,13 @@ Outputs (in the sweep folder unless told otherwise, atomic writes):
 * ``results/<case_id>.json`` — the full forces report of each case, with
   the body's y+ statistics per patch and the case's flags;
 * ``results.csv`` and ``results.json`` — one row per case;
-* ``report.html`` — the self-contained sweep report (postproc.report).
+* the report's data (:class:`postproc.reportdata.ReportData`), which
+  :func:`postproc.report.write_report` renders to ``report.html``.
+
+Besides the forces, each case with a volume result gets its flow columns
+(:mod:`postproc.caseflow`: diffuser recovery, main vortex pair, ramp
+separation, floor suction — the numbers ``postproc flow`` gives), and one
+case per variant (the same operating point for all) its picture scene.
 
 Coefficients are in the wind axes of caseprep.frames (C_L positive up,
 downforce = −C_L; C_D along the relative wind; C_S along +y_W), on the
@@ -40,13 +46,14 @@ from caseprep.manifest import CaseRecord, Manifest, read_manifest
 from caseprep.safeio import json_ready, write_json_atomic, write_text_atomic
 
 from . import wallchecks as wc
+from .caseflow import FlowOptions
 from .caseforces import forces_report
 from .convergence import settle_window
 from .forces import face_geometry
 from .meshstudy import grid_convergence
 from .readers import latest_export, read_surface
 from .ranking import CaseResult, rank_variants
-from .report import write_report
+from .reportdata import ReportData, ReportOptions, assemble, check_baseline, choose_picture_cases, history_from_monitor
 
 RESULTS_DIR = "results"
 
@@ -72,6 +79,10 @@ class CaseOutcome:
     notes: tuple[str, ...] = ()
     report: dict[str, Any] | None = field(default=None, repr=False)
     yplus: dict[str, dict] = field(default_factory=dict)
+    flow: dict[str, Any] = field(default_factory=dict)
+    scene: Any = field(default=None, repr=False)
+    history: Any = field(default=None, repr=False)
+    seconds: dict[str, float] = field(default_factory=dict)
 
 
 #: Intended y+ ranges of the wall treatments (common practice, no source):
@@ -113,9 +124,14 @@ def _flag_text(flag: str) -> str:
     return POST_FLAG_TEXT.get(flag) or runner.FLAG_TEXT.get(flag, flag)
 
 
-def process_case(manifest: Manifest, case: CaseRecord) -> CaseOutcome:
+def process_case(manifest: Manifest, case: CaseRecord, flow: FlowOptions | None = None) -> CaseOutcome:
     """Post-process one case of ``manifest``: its run record, its forces
-    report (when its export exists) and its :class:`CaseResult` row."""
+    report (when its export exists), its :class:`CaseResult` row and, with
+    ``flow`` (:class:`postproc.caseflow.FlowOptions`), its flow columns
+    (and its picture scene when ``flow.scene``)."""
+    import time
+
+    t_start = time.perf_counter()
     case_dir = manifest.case_dir(case)
     rec = runner.read_case_record(case_dir)
     flags: list[str] = list(rec.flags) if rec is not None else []
@@ -191,9 +207,33 @@ def process_case(manifest: Manifest, case: CaseRecord) -> CaseOutcome:
     if rec is not None and rec.layers:
         layers = ", ".join(f"{d.get('patch')} {d.get('thickness_percent'):.0f} %" for d in rec.layers
                            if d.get("thickness_percent") is not None) or None
+    t_forces = time.perf_counter()
+    flow_cols: dict[str, Any] = {}
+    scene = None
+    if flow is not None and exported:
+        from .caseflow import analyse_case_flow
+
+        try:
+            cf = analyse_case_flow(case_dir, flow, label=case.case_id)
+            flow_cols = cf.metrics.to_dict()
+            scene = cf.scene
+        except UserError as exc:
+            notes.append("flow: " + str(exc).splitlines()[0])
+    history = None
+    if report is not None:
+        try:
+            from .convergence import read_monitor
+
+            mon = read_monitor(case_dir)
+            n = len(mon.get("Time", ()))
+            history = history_from_monitor(case.case_id, mon, settle_window(n), verdict or "", bool(result.flags))
+        except UserError:
+            pass
+    t_end = time.perf_counter()
     return CaseOutcome(result=result, status=status, cells=rec.cells if rec else None,
                        iterations=rec.iterations if rec else None, convergence=verdict,
-                       notes=tuple(notes), report=report, yplus=yplus, layers=layers)
+                       notes=tuple(notes), report=report, yplus=yplus, layers=layers, flow=flow_cols, scene=scene,
+                       history=history, seconds={"forces": t_forces - t_start, "flow": t_end - t_forces})
 
 
 def outcome_row(o: CaseOutcome) -> dict[str, Any]:
@@ -206,6 +246,7 @@ def outcome_row(o: CaseOutcome) -> dict[str, Any]:
         a = o.yplus[ALL_WALLS]  # all body and wheel faces together
         r.update(yplus_median=a["median"], yplus_p95=a["p95"], yplus_max=a["max"],
                  yplus_share_in_range=a["share_in_target"], yplus_range="{:g}-{:g}".format(*a["target"]))
+    r.update(o.flow)
     r["notes"] = "; ".join(o.notes)
     return r
 
@@ -256,35 +297,82 @@ def _csv(rows: list[dict[str, Any]]) -> str:
     return buf.getvalue()
 
 
+def _iterative_spread(outcomes: list[CaseOutcome]) -> dict[str, tuple[float, float]]:
+    """Per variant: the RMS over its unflagged cases of the runtime force
+    monitor's standard deviation over the settling window, as coefficient
+    half-widths (−C_L, C_D) — std of the body-axes force over qA (body and
+    wind axes differ by the pitch and yaw angles, a few degrees: cos 4° =
+    0.998). None-free: variants without monitor statistics are left out."""
+    import numpy as np
+
+    acc: dict[str, list[tuple[float, float]]] = {}
+    for o in outcomes:
+        rep = o.report or {}
+        conv, ref = rep.get("convergence"), rep.get("reference")
+        if o.result.flags or not conv or not ref:
+            continue
+        stats = {s.get("name"): s for s in conv.get("series", [])} if isinstance(conv.get("series"), list) else \
+            conv.get("series", {})
+        fz, fx = stats.get("force.total_z"), stats.get("force.total_x")
+        qa = float(ref["q"]) * float(ref["area"])
+        if fz and fx and qa > 0 and fz.get("std") is not None and fx.get("std") is not None:
+            acc.setdefault(o.result.variant, []).append((float(fz["std"]) / qa, float(fx["std"]) / qa))
+    return {v: (float(np.sqrt(np.mean([a * a for a, _ in xs]))), float(np.sqrt(np.mean([b * b for _, b in xs]))))
+            for v, xs in acc.items()}
+
+
 def postprocess_sweep(
     sweep_dir: str | os.PathLike,
     out_dir: str | os.PathLike | None = None,
     title: str | None = None,
     progress: Callable[[int, int, CaseOutcome], None] | None = None,
     force: bool = False,
-) -> tuple[list[CaseOutcome], dict[str, Path]]:
-    """Post-process every case of a sweep and write the tables and report.
+    options: ReportOptions = ReportOptions(),
+    flow: FlowOptions | None = None,
+) -> tuple[list[CaseOutcome], dict[str, Path], ReportData]:
+    """Post-process every case of a sweep, write the tables and return what
+    the report shows.
 
     ``out_dir`` defaults to the sweep folder. ``progress(i, n, outcome)`` is
     called after each case. Existing results are not replaced unless
-    ``force`` (UserError naming the file). Returns the outcomes and the written paths
-    (keys ``csv``, ``json``, ``report``, ``cases``). Raises UserError for a
-    folder that is not a sweep.
+    ``force`` (UserError naming the file). ``options`` choose the pictured
+    operating point and the baseline (a baseline that is not a variant of
+    the sweep is a UserError naming the available ones); ``flow`` the flow
+    pass (default :class:`postproc.caseflow.FlowOptions`). Returns the
+    outcomes, the written paths (keys ``csv``, ``json``, ``cases``, and
+    ``report`` where the report belongs) and the report data
+    (:func:`postproc.report.write_report` renders it).
     """
+    flow = flow or FlowOptions()
     manifest = read_manifest(sweep_dir)
     out = Path(out_dir) if out_dir is not None else Path(manifest.root or sweep_dir)
     existing = [p for p in (out / "results.csv", out / "results.json", out / "report.html") if p.exists()]
     if existing and not force:
         raise UserError(expected="no earlier results in the output folder", got=", ".join(str(p) for p in existing),
                         fix="pass --force to replace them, or -o to write somewhere else")
+    variants = list(dict.fromkeys(c.variant for c in manifest.cases))
+    baseline = check_baseline(options.baseline, variants)
+    # the pictured cases, chosen from the plan and the runner's flags (forces may add flags: checked below)
+    planned = []
+    for c in manifest.cases:
+        rec = runner.read_case_record(manifest.case_dir(c))
+        p = c.params
+        planned.append(CaseResult(case_id=c.case_id, variant=c.variant,
+                                  ride_height_front=float(p.get("ride_height_front", math.nan)),
+                                  ride_height_rear=float(p.get("ride_height_rear", math.nan)),
+                                  pitch_deg=float(p.get("pitch_deg", 0.0)), yaw_deg=float(p.get("yaw_deg", 0.0)),
+                                  cl=0.0, cd=0.0, mesh_level=int(p.get("mesh_level", 0)),
+                                  flags=tuple(rec.flags) if rec is not None else ("not-run",)))
+    want_scene = {pc.case_id for pc in choose_picture_cases(planned, variants, options)} if options.pictures else set()
     outcomes = []
     n = len(manifest.cases)
     for i, case in enumerate(manifest.cases):
-        o = process_case(manifest, case)
+        fo = FlowOptions(**{**flow.__dict__, "scene": case.case_id in want_scene})
+        o = process_case(manifest, case, fo)
         outcomes.append(o)
         if o.report is not None:
             write_json_atomic(out / RESULTS_DIR / f"{case.case_id}.json",
-                              json_ready({**o.report, "yplus": o.yplus, "flags": list(o.result.flags)}))
+                              json_ready({**o.report, "yplus": o.yplus, "flow": o.flow, "flags": list(o.result.flags)}))
         if progress is not None:
             progress(i + 1, n, o)
     rows = [outcome_row(o) for o in outcomes]
@@ -295,8 +383,9 @@ def postprocess_sweep(
         "cases": out / RESULTS_DIR,
     }
     write_text_atomic(paths["csv"], _csv(rows))
-    ranking = rank_variants([o.result for o in outcomes])
-    study = mesh_study([o.result for o in outcomes])
+    results = [o.result for o in outcomes]
+    ranking = rank_variants(results)
+    study = mesh_study(results)
     write_json_atomic(paths["json"], json_ready({
         "study": manifest.study,
         "axes": "wind axes of caseprep.frames: C_L positive up (downforce = -C_L), C_D along the relative wind, "
@@ -314,10 +403,37 @@ def postprocess_sweep(
     check_keys = ("case_id", "status", "cells", "layers", "iterations", "convergence", "yplus_median", "yplus_p95",
                   "yplus_share_in_range", "yplus_range")
     checks = [{k: r.get(k) for k in check_keys} for r in rows]
-    write_report([o.result for o in outcomes], paths["report"],
-                 title=title or f"Sweep report — {manifest.study or Path(sweep_dir).name}",
-                 study=manifest.study, notes=notes, checks=checks, mesh_study=study)
-    return outcomes, paths
+    # the pictured cases again, now with every flag known; scenes still missing are built now
+    skipped = []
+    pcs = choose_picture_cases(results, variants, options) if options.pictures else []
+    by_id = {o.result.case_id: o for o in outcomes}
+    scenes = []
+    if options.pictures:
+        from .caseflow import analyse_case_flow
+
+        for pc in pcs:
+            o = by_id[pc.case_id]
+            sc = o.scene
+            if sc is None:
+                try:
+                    sc = analyse_case_flow(manifest.case_dir(manifest.case(pc.case_id)),
+                                           FlowOptions(**{**flow.__dict__, "scene": True}), label=pc.case_id).scene
+                except UserError as exc:
+                    skipped.append((pc.case_id, str(exc).splitlines()[0]))
+            if sc is not None:
+                scenes.append(sc)
+        for v in variants:
+            if v not in {pc.variant for pc in pcs}:
+                skipped.append((v, "no usable case with a volume result to picture"))
+    flow_rows = {o.result.case_id: {"variant": o.result.variant, **o.flow} for o in outcomes if o.flow}
+    data = assemble(results, title=title or f"Sweep report — {manifest.study or Path(sweep_dir).name}",
+                    study=manifest.study, notes=notes, checks=checks, mesh_study=study, flow_rows=flow_rows,
+                    scenes=scenes, picture_cases=pcs, pictures_skipped=skipped,
+                    histories=[o.history for o in outcomes if o.history is not None],
+                    spread=_iterative_spread(outcomes), options=ReportOptions(**{**options.__dict__,
+                                                                                 "baseline": baseline}),
+                    ranking=ranking)
+    return outcomes, paths, data
 
 
 def read_results(path: str | os.PathLike) -> dict[str, Any]:

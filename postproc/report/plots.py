@@ -12,11 +12,11 @@ from __future__ import annotations
 
 import io
 import math
-from dataclasses import dataclass, field
 from typing import Sequence
 
 import numpy as np
 
+from ..reportdata import Curve, History, MapData, Panel, ParetoPoint, PlatformCurve
 from .scales import VARIANT_COLOURS
 
 LINESTYLES = ("-", "--", ":", "-.")
@@ -56,30 +56,6 @@ def _save(fig, fmt: str = "svg") -> bytes:
 
 def variant_colour(variants: Sequence[str], v: str) -> str:
     return VARIANT_COLOURS[list(variants).index(v) % len(VARIANT_COLOURS)] if v in variants else INK
-
-
-@dataclass(frozen=True)
-class Curve:
-    """One line: ``x`` and ``y`` (same length; NaN values are skipped),
-    optional symmetric error bars ``yerr``; ``variant`` picks the colour,
-    ``style`` (e.g. "yaw 4°") the line style and marker; ``flagged`` marks
-    points drawn hollow (not ranked)."""
-
-    variant: str
-    style: str
-    x: Sequence[float]
-    y: Sequence[float]
-    yerr: Sequence[float] | None = None
-    flagged: Sequence[bool] | None = None
-
-
-@dataclass(frozen=True)
-class Panel:
-    """One axes of a row of plots."""
-
-    ylabel: str
-    curves: Sequence[Curve]
-    title: str = ""
 
 
 def line_panels(panels: Sequence[Panel], xlabel: str, *, variants: Sequence[str] | None = None,
@@ -122,29 +98,6 @@ def line_panels(panels: Sequence[Panel], xlabel: str, *, variants: Sequence[str]
                    bbox_to_anchor=(0.5, -0.02 - 0.06 * math.ceil(len(handles) / 4)))
     fig.tight_layout()
     return _save(fig, fmt)
-
-
-@dataclass(frozen=True)
-class MapData:
-    """A fitted aero map of one variant, evaluated elsewhere.
-
-    ``front``, ``rear`` (m) the axes of the evaluation grid; ``value``
-    (len(rear), len(front)) the predicted quantity; ``points_front``,
-    ``points_rear`` (m) the measured points, ``points_value`` their measured
-    values and ``points_error`` the prediction error there (prediction −
-    measured; None: not given); ``quantity`` the label.
-    """
-
-    variant: str
-    quantity: str
-    front: Sequence[float]
-    rear: Sequence[float]
-    value: np.ndarray
-    points_front: Sequence[float]
-    points_rear: Sequence[float]
-    points_value: Sequence[float]
-    points_error: Sequence[float] | None = None
-    note: str = ""
 
 
 def map_contours(maps: Sequence[MapData], *, levels: int = 12, width: float = 10.0, fmt: str = "svg") -> bytes:
@@ -190,23 +143,6 @@ def map_contours(maps: Sequence[MapData], *, levels: int = 12, width: float = 10
     return _save(fig, fmt)
 
 
-@dataclass(frozen=True)
-class ParetoPoint:
-    """One variant (or case) in the downforce–drag plane: values and their
-    uncertainty half-widths (None: unknown), whether it is on the Pareto
-    front, and its tie group (variants whose scores are not distinguishable
-    share a group; None: no tie)."""
-
-    label: str
-    variant: str
-    drag: float
-    downforce: float
-    drag_err: float | None = None
-    downforce_err: float | None = None
-    on_front: bool = False
-    tie_group: int | None = None
-
-
 def pareto_plot(points: Sequence[ParetoPoint], *, xlabel: str = "drag coefficient C_D",
                 ylabel: str = "downforce coefficient −C_L", width: float = 6.0, height: float = 4.2,
                 fmt: str = "svg") -> bytes:
@@ -242,20 +178,6 @@ def pareto_plot(points: Sequence[ParetoPoint], *, xlabel: str = "drag coefficien
     ax.legend(loc="best", fontsize=8)
     fig.tight_layout()
     return _save(fig, fmt)
-
-
-@dataclass(frozen=True)
-class History:
-    """A case's force history: ``iterations`` and named series (e.g.
-    C_L, C_D), the first iteration of the settling window (None: unknown)
-    and a verdict word shown in the panel title."""
-
-    label: str
-    iterations: Sequence[float]
-    series: dict[str, Sequence[float]]
-    window_start: float | None = None
-    verdict: str = ""
-    flagged: bool = False
 
 
 def history_multiples(histories: Sequence[History], *, cols: int = 4, width: float = 10.0,
@@ -295,19 +217,6 @@ def history_multiples(histories: Sequence[History], *, cols: int = 4, width: flo
     fig.supxlabel("iteration", fontsize=8, y=0.02)
     fig.tight_layout(rect=(0, 0.04, 1, 1))
     return _save(fig, fmt)
-
-
-@dataclass(frozen=True)
-class PlatformCurve:
-    """Ride height (or any platform quantity) against speed under load,
-    computed elsewhere: ``speed`` (m/s), ``value`` (m or the quantity's
-    unit), a variant and an axle/style name; ``limit`` an optional
-    horizontal line (e.g. the bottoming height) with its label."""
-
-    variant: str
-    style: str
-    speed: Sequence[float]
-    value: Sequence[float]
 
 
 def platform_plot(curves: Sequence[PlatformCurve], *, ylabel: str = "ride height under load (mm)",

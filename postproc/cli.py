@@ -9,10 +9,10 @@ import sys
 
 import click
 
-from caseprep.cli import FriendlyGroup
+from caseprep.contract.cli_common import FriendlyGroup
 
-from . import __version__
-from .caseforces import forces_report
+from caseprep.contract import __version__
+from postproc.pipelines.case_forces import forces_report
 
 
 @click.group(cls=FriendlyGroup, context_settings={"help_option_names": ["-h", "--help"]})
@@ -137,8 +137,9 @@ def sweep_cmd(sweep_dir: str, out_dir: str | None, title: str | None, baseline: 
     Flagged cases (mesh failed, layers collapsed, not converged, not run…)
     are listed and never ranked.
     """
-    from .report import make_sweep_report
-    from .reportdata import ReportOptions
+    from postproc.pipelines.report_data import ReportOptions
+    from postproc.pipelines.sweep import postprocess_sweep
+    from postproc.report import write_report
 
     def progress(i, n, o):
         if quiet:
@@ -149,8 +150,9 @@ def sweep_cmd(sweep_dir: str, out_dir: str | None, title: str | None, baseline: 
 
     opts = ReportOptions(title=title, baseline=baseline, reference_ride_height=picture_ride_height,
                          reference_yaw_deg=picture_yaw, pictures=not no_pictures)
-    outcomes, paths, info = make_sweep_report(sweep_dir, out_dir, title=title, progress=progress, force=force,
-                                              options=opts)
+    analysis = postprocess_sweep(sweep_dir, out_dir, title=title, progress=progress, force=force, options=opts)
+    outcomes, paths = analysis.outcomes, analysis.paths
+    _, info = write_report(analysis, paths["report"])
     n_flag = sum(bool(o.result.flags) for o in outcomes)
     click.echo(f"{len(outcomes)} case(s), {n_flag} flagged (not ranked).")
     click.echo(f"results: {paths['csv']}, {paths['json']}; report: {paths['report']} ({info.size / 1e6:.2f} MB)")
@@ -159,11 +161,11 @@ def sweep_cmd(sweep_dir: str, out_dir: str | None, title: str | None, baseline: 
 
 
 # ---------------------------------------------------------------------------
-# flow structures: vortices, diffuser, underbody, walls (postproc.flowreport)
+# flow structures: vortices, diffuser, underbody, walls (postproc.pipelines.case_flow)
 # ---------------------------------------------------------------------------
 
 def _floats(text: str | None, option: str, n: int | None = None) -> list[float] | None:
-    from caseprep.errors import UserError
+    from caseprep.contract.errors import UserError
 
     if text is None:
         return None
@@ -182,10 +184,10 @@ def _emit(payload: dict, as_json: bool, output: str | None, force: bool, summary
     import json
     from pathlib import Path
 
-    from caseprep.errors import UserError
-    from caseprep.safeio import write_json_atomic
+    from caseprep.contract.errors import UserError
+    from caseprep.contract.atomicio import write_json_atomic
 
-    from caseprep.safeio import json_ready
+    from caseprep.contract.atomicio import json_ready
 
     data = json_ready(payload)
     if output:
@@ -203,7 +205,7 @@ def _emit(payload: dict, as_json: bool, output: str | None, force: bool, summary
 
 
 def _load(path: str):
-    from .flowio import read_flow
+    from postproc.io.flow import read_flow
 
     return read_flow(path)
 
@@ -256,7 +258,7 @@ def vortices_cmd(source, stations, q_star, q_scale, gap, speed, length, max_jump
     centre [x, y, z] (m), sense (+1/-1 about +x), circulation (m^2/s),
     radius (m), peak_q (1/s^2), axial velocity excess.
     """
-    from .flowreport import Q_STAR_DEFAULTS, analyse_vortices, q_normalisation
+    from postproc.pipelines.case_flow import Q_STAR_DEFAULTS, analyse_vortices, q_normalisation
 
     case = _load(source)
     kind, h = q_normalisation(case, q_scale, gap)
@@ -290,7 +292,7 @@ def diffuser_cmd(source, throat, exit_, y_range, rho, whole_section, pressure, v
     Cross-sections between the ground and the floor (and --y-range) at the
     throat and exit stations (planes normal to body x).
     """
-    from .flowreport import analyse_diffuser
+    from postproc.pipelines.case_flow import analyse_diffuser
 
     case = _load(source)
     yr = _floats(y_range, "--y-range", 2)
@@ -320,7 +322,7 @@ def _print_underbody(d: dict) -> None:
 @_with_common
 def underbody_cmd(source, lines, speed, pressure, as_json, output, force):
     """Cp along the floor (centreline and chosen lines), minimum and suction integral; ground Cp footprint."""
-    from .flowreport import analyse_underbody
+    from postproc.pipelines.case_flow import analyse_underbody
 
     case = _load(source)
     res = analyse_underbody(case, lines=_floats(lines, "--lines"), speed=speed, pressure=pressure)
@@ -329,7 +331,7 @@ def underbody_cmd(source, lines, speed, pressure, as_json, output, force):
 
 
 def _yplus_target(treatment: str, yplus_range: str | None) -> tuple[float, float]:
-    from .wallchecks import YPLUS_RANGES
+    from postproc.kernels.wallchecks import YPLUS_RANGES
 
     if yplus_range:
         lo, hi = _floats(yplus_range, "--yplus-range", 2)
@@ -361,7 +363,7 @@ def _print_walls(d: dict) -> None:
 @_with_common
 def walls_cmd(source, treatment, yplus_range, nu, speed, lines, as_json, output, force):
     """Wall checks: y+ per patch, floor wall-shear reversals (separation lines), suspicious cell values."""
-    from .flowreport import analyse_walls
+    from postproc.pipelines.case_flow import analyse_walls
 
     case = _load(source)
     res = analyse_walls(case, target=_yplus_target(treatment, yplus_range), nu=nu, speed=speed,
@@ -386,7 +388,7 @@ def flow_cmd(source, q_star, q_scale, gap, treatment, as_json, output, force):
     (stations found from the floor), underbody Cp and wall checks — the same
     numbers `postproc sweep` puts in its flow columns. A part that cannot be
     computed is reported with its reason instead."""
-    from .flowreport import flow_payload
+    from postproc.pipelines.case_flow import flow_payload
 
     case = _load(source)
     payload, _ = flow_payload(case, q_star=q_star, q_scale=q_scale, gap=gap, target=_yplus_target(treatment, None))

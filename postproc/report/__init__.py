@@ -1,7 +1,7 @@
-"""Presentation: the sweep report (HTML), its flow pictures and its plots.
-
-Rendering only — every number shown here was computed before (pipelines and
-kernels) and arrives as plain data (:class:`postproc.reportdata.ReportData`):
+"""Presentation: renders the sweep's data as a self-contained HTML report,
+with flow pictures and plots. Computes nothing: every number arrives from
+the pipelines (``SweepAnalysis.report_data``, see
+:mod:`postproc.pipelines.report_data`), read by attribute.
 
 * :mod:`postproc.report.scales` — the colour scales (one fixed diverging
   scale for pressure coefficients, categorical colours);
@@ -13,17 +13,3 @@ kernels) and arrives as plain data (:class:`postproc.reportdata.ReportData`):
 from __future__ import annotations
 
 from .document import RenderInfo, render_report, write_report  # noqa: F401
-
-
-def make_sweep_report(sweep_dir, out_dir=None, *, title=None, force=False, progress=None, options=None,
-                      flow=None, picture_options=None):
-    """Post-process a sweep (:func:`postproc.sweep.postprocess_sweep`) and
-    write its ``report.html``. Returns (outcomes, paths, render info)."""
-    from ..reportdata import ReportOptions
-    from ..sweep import postprocess_sweep
-    from .pictures import PictureOptions
-
-    outcomes, paths, data = postprocess_sweep(sweep_dir, out_dir, title=title, progress=progress, force=force,
-                                              options=options or ReportOptions(), flow=flow)
-    _, info = write_report(data, paths["report"], picture_options or PictureOptions())
-    return outcomes, paths, info

@@ -1,7 +1,8 @@
 """The sweep report as one self-contained HTML file: rendering only.
 
-Takes :class:`postproc.reportdata.ReportData` (computed by the sweep
-pipeline), draws the pictures (:mod:`.pictures`) and plots (:mod:`.plots`),
+Takes the report data (:class:`postproc.pipelines.report_data.ReportData`,
+computed by the sweep pipeline and read by attribute; or a ``SweepAnalysis``
+carrying it as ``report_data``), draws the pictures (:mod:`.pictures`) and plots (:mod:`.plots`),
 phrases the summary and the cautions, and fills
 ``templates/report/sweep_report.html.j2`` with autoescaping on: every
 string from the user (title, study, variant names, notes) is shown as
@@ -20,10 +21,9 @@ from pathlib import Path
 
 import jinja2
 
-from caseprep.safeio import write_text_atomic
-from caseprep.templating import template_dir
+from caseprep.contract.atomicio import write_text_atomic
+from caseprep.contract.templating import template_dir
 
-from ..reportdata import Caution, ReportData
 from . import plots as pl
 from .pictures import VIEW_TITLES, PictureOptions, RenderingUnavailable, render_pictures
 from .scales import CP_SCALE, DCP_SCALE, SENSE_COLOURS, SENSE_NAMES, hex_colour
@@ -65,7 +65,7 @@ def fmt(x, nd: int = 3) -> str:
 
 # --------------------------------------------------------------------------- words
 
-def summary(data: ReportData) -> dict:
+def summary(data) -> dict:
     """The verdict in plain words: the recommended variant, why, and the
     standing of the others."""
     ranked = [f for f in data.variants if f.rank is not None]
@@ -103,7 +103,7 @@ def summary(data: ReportData) -> dict:
     return {"headline": head, "reasons": reasons, "variant": best.variant}
 
 
-def caution_text(c: Caution) -> tuple[str, str]:
+def caution_text(c) -> tuple[str, str]:
     """(severity, sentence) of a caution; severity 'high' or 'note'."""
     v = c.variant or "the sweep"
     n = len(c.cases)
@@ -149,7 +149,7 @@ def _legend(scale) -> list[dict]:
     return [{"colour": c, "label": lab} for c, lab in scale.legend()]
 
 
-def picture_groups(data: ReportData, options: PictureOptions, info: RenderInfo) -> tuple[list[dict], list[str]]:
+def picture_groups(data, options: PictureOptions, info: RenderInfo) -> tuple[list[dict], list[str]]:
     """Pictures grouped by view (one camera per view), or reasons why not."""
     notes = []
     if not data.options.pictures:
@@ -200,7 +200,7 @@ def picture_groups(data: ReportData, options: PictureOptions, info: RenderInfo) 
     return groups, notes
 
 
-def plot_figures(data: ReportData) -> dict[str, list[dict]]:
+def plot_figures(data) -> dict[str, list[dict]]:
     """The plots as data URIs, by section."""
     out: dict[str, list[dict]] = {"envelope": [], "maps": [], "pareto": [], "platform": [], "histories": []}
     variants = [f.variant for f in data.variants]
@@ -234,7 +234,7 @@ def _rows(rows, nd=4):
     return [{k: fmt(v, nd) if not isinstance(v, str) else v for k, v in r.items()} for r in rows]
 
 
-def build_context(data: ReportData, options: PictureOptions = PictureOptions(), info: RenderInfo | None = None) -> dict:
+def build_context(data, options: PictureOptions = PictureOptions(), info: RenderInfo | None = None) -> dict:
     info = info or RenderInfo()
     t0 = time.perf_counter()
     groups, pnotes = picture_groups(data, options, info)
@@ -283,8 +283,10 @@ def build_context(data: ReportData, options: PictureOptions = PictureOptions(), 
     }
 
 
-def render_report(data: ReportData, options: PictureOptions = PictureOptions()) -> tuple[str, RenderInfo]:
-    """The HTML text of the report and what rendering took."""
+def render_report(data, options: PictureOptions = PictureOptions()) -> tuple[str, RenderInfo]:
+    """The HTML text of the report and what rendering took. ``data``: the
+    report data, or a sweep analysis carrying it as ``report_data``."""
+    data = getattr(data, "report_data", None) or data
     info = RenderInfo()
     ctx = build_context(data, options, info)
     t0 = time.perf_counter()
@@ -301,7 +303,7 @@ def render_report(data: ReportData, options: PictureOptions = PictureOptions()) 
     return text, info
 
 
-def write_report(data: ReportData, path: str | os.PathLike, options: PictureOptions = PictureOptions()) -> tuple[Path, RenderInfo]:
+def write_report(data, path: str | os.PathLike, options: PictureOptions = PictureOptions()) -> tuple[Path, RenderInfo]:
     """Render and write the report atomically; returns the path and timings."""
     text, info = render_report(data, options)
     p = Path(path)

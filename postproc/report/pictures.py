@@ -1,5 +1,5 @@
 """Flow pictures, rendered off-screen with VTK (through pyvista): no GPU, no
-display. Rendering only — the scenes (:class:`postproc.scenes.CaseScene`)
+display. Rendering only — the scenes (:class:`postproc.pipelines.case_scene.CaseScene`, read by attribute)
 arrive computed.
 
 Headless rendering. The ``vtk`` wheel carries an EGL render window; with
@@ -44,10 +44,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from caseprep.errors import UserError
+from caseprep.contract.errors import UserError
 
-from ..planview import difference as raster_difference
-from ..scenes import CaseScene, SurfaceData
 from .scales import CP_SCALE, DCP_SCALE, NEUTRAL, SENSE_COLOURS, BandedScale
 
 VIEWS = ("floor", "ground", "difference", "vortices", "shear")
@@ -200,7 +198,7 @@ def _frame(corners: np.ndarray, direction, up, aspect: float, margin: float) -> 
                   float(max(half, 1e-9)))
 
 
-def view_cameras(scenes: list[CaseScene], options: PictureOptions = PictureOptions()) -> dict[str, Camera]:
+def view_cameras(scenes, options: PictureOptions = PictureOptions()) -> dict[str, Camera]:
     """One camera per view for all ``scenes``: framed on the union of the
     bodies' bounding boxes (plan views: their x–y extent)."""
     b = np.array([s.body.bounds for s in scenes if s.body.n_faces], dtype=float)
@@ -218,14 +216,15 @@ def view_cameras(scenes: list[CaseScene], options: PictureOptions = PictureOptio
 
 # --------------------------------------------------------------------------- drawing
 
-def _polydata(s: SurfaceData):
+def _polydata(s, with_values: bool = True):
+    """Polygons (attributes points, offsets, connectivity, values) as PolyData."""
     import pyvista as pv
 
     counts = np.diff(s.offsets)
     faces = np.insert(np.asarray(s.connectivity, dtype=np.int64), np.asarray(s.offsets[:-1], dtype=np.int64),
                       counts) if counts.size else np.zeros(0, dtype=np.int64)
     pd = pv.PolyData(np.asarray(s.points, dtype=float), faces=faces)
-    if s.values is not None:
+    if with_values and s.values is not None:
         pd.cell_data["v"] = np.asarray(s.values, dtype=float)
     return pd
 
@@ -251,17 +250,24 @@ def _shear_lut():
     return pv.LookupTable(values=cols, scalar_range=(-0.5, 1.5), nan_color=_rgb(NEUTRAL["background"]))
 
 
-def _raster_image(raster, values: np.ndarray, z: float):
-    """A raster as an ImageData whose points are the raster's cell centres
-    (so scalars interpolate between centres and contour lines follow them)."""
+def _grid_image(spacing: float, i0: int, j0: int, values: np.ndarray, z: float):
+    """Values on a plan grid (cells [i·d, (i+1)·d) × [j·d, (j+1)·d) from
+    (i0, j0)) as an ImageData whose points are the cell centres, so that
+    scalars interpolate between centres and contour lines follow them."""
     import pyvista as pv
 
-    g = raster.grid
-    nx, ny = g.shape
-    img = pv.ImageData(dimensions=(nx, ny, 1), spacing=(g.spacing, g.spacing, 1.0),
-                       origin=((g.i0 + 0.5) * g.spacing, (g.j0 + 0.5) * g.spacing, z))
-    img.point_data["v"] = np.asarray(values, dtype=float).ravel(order="F")
+    v = np.asarray(values, dtype=float)
+    nx, ny = v.shape
+    img = pv.ImageData(dimensions=(nx, ny, 1), spacing=(spacing, spacing, 1.0),
+                       origin=((i0 + 0.5) * spacing, (j0 + 0.5) * spacing, z))
+    img.point_data["v"] = v.ravel(order="F")
     return img
+
+
+def _raster_image(raster, values: np.ndarray, z: float):
+    """A plan raster (attributes ``grid.spacing``, ``grid.i0``, ``grid.j0``)
+    with ``values`` on its cells as an ImageData (:func:`_grid_image`)."""
+    return _grid_image(raster.grid.spacing, raster.grid.i0, raster.grid.j0, values, z)
 
 
 def _polylines(lines, z: float | None = None):
@@ -339,8 +345,8 @@ class PictureRenderer:
         im.save(buf, "PNG", optimize=True)
         return buf.getvalue(), "image/png"
 
-    def render_array(self, view: str, scene: CaseScene, camera: Camera,
-                     baseline: CaseScene | None = None) -> tuple[np.ndarray, list[str]]:
+    def render_array(self, view: str, scene, camera: Camera,
+                     baseline=None) -> tuple[np.ndarray, list[str]]:
         """The picture of ``view`` as an RGB array (H, W, 3) and notes."""
         pl = self.plotter
         pl.clear_actors()
@@ -357,11 +363,11 @@ class PictureRenderer:
             else:
                 self._add_scalar_surface(scene.ground, o.cp_scale)
         elif view == "difference":
-            if baseline is None or scene.underside is None or baseline.underside is None:
-                notes.append("no baseline or no underside raster")
+            d = getattr(scene, "cp_difference", None)
+            if d is None:
+                notes.append("no difference to the baseline (no baseline, or no underside raster)")
             else:
-                d = raster_difference(scene.underside, baseline.underside, "cp")
-                z = min(scene.body.bounds[4], baseline.body.bounds[4]) - 1e-3
+                z = scene.body.bounds[4] - 1e-3
                 img = _raster_image(d, d.values["cp"], z)
                 self._add_scalar_image(img, o.dcp_scale)
         elif view == "shear":
@@ -372,7 +378,7 @@ class PictureRenderer:
             raise ValueError(f"unknown view {view!r}")
         return self._finish(camera), notes
 
-    def render(self, view: str, scene: CaseScene, camera: Camera, baseline: CaseScene | None = None) -> Picture:
+    def render(self, view: str, scene, camera: Camera, baseline=None) -> Picture:
         t0 = time.perf_counter()
         img, notes = self.render_array(view, scene, camera, baseline)
         data, mime = self._encode(img)
@@ -381,7 +387,7 @@ class PictureRenderer:
                        camera=camera, seconds=time.perf_counter() - t0, notes=tuple(notes))
 
     # ---- drawing helpers
-    def _add_scalar_surface(self, s: SurfaceData, scale: BandedScale) -> None:
+    def _add_scalar_surface(self, s, scale: BandedScale) -> None:
         pd = _polydata(s).cell_data_to_point_data()
         self._add_scalar_mesh(pd, scale)
 
@@ -395,25 +401,20 @@ class PictureRenderer:
                               interpolate_before_map=True, lighting=False, show_scalar_bar=False,
                               nan_color=_rgb(NEUTRAL["background"]))
 
-    def _add_outline(self, scene: CaseScene) -> None:
+    def _add_outline(self, scene) -> None:
         """The body's plan outline (its underside raster's edge) over a picture."""
         r = scene.underside
         if r is None:
             return
         z = scene.body.bounds[4] - 0.5 * max(scene.body.bounds[5] - scene.body.bounds[4], 1e-3)
         # one empty ring around the raster so that the outline closes at its edges
-        from ..planview import PlanGrid, PlanRaster
-
-        g = r.grid
-        big = PlanGrid(g.spacing, g.i0 - 1, g.i1 + 1, g.j0 - 1, g.j1 + 1)
-        mask = np.zeros(big.shape)
-        mask[1:-1, 1:-1] = r.covered
-        img = _raster_image(PlanRaster(big, mask, mask.astype(np.int64) - 1), mask, z)
+        mask = np.pad(np.asarray(r.face) >= 0, 1).astype(float)
+        img = _grid_image(r.grid.spacing, r.grid.i0 - 1, r.grid.j0 - 1, mask, z)
         line = img.contour([0.5], scalars="v")
         if line.n_points:
             self.plotter.add_mesh(line, color=_rgb(NEUTRAL["streak"]), line_width=1.2, lighting=False)
 
-    def _add_shear(self, scene: CaseScene, notes: list[str]) -> None:
+    def _add_shear(self, scene, notes: list[str]) -> None:
         r = scene.underside
         if r is None or "shear" not in r.values:
             notes.append("no wall shear on the underside")
@@ -441,10 +442,10 @@ class PictureRenderer:
         if not scene.streaks:
             notes.append("no streak lines (no wall shear on the underside)")
 
-    def _add_vortices(self, scene: CaseScene, notes: list[str]) -> None:
+    def _add_vortices(self, scene, notes: list[str]) -> None:
         pv = self._pv
         pl = self.plotter
-        pl.add_mesh(_polydata(SurfaceData(scene.body.points, scene.body.offsets, scene.body.connectivity)),
+        pl.add_mesh(_polydata(scene.body, with_values=False),
                     color=_rgb(NEUTRAL["body"]), smooth_shading=False, ambient=0.35, diffuse=0.65)
         size = max(scene.body.bounds[1] - scene.body.bounds[0], 1e-3)
         if scene.q_surface is not None and scene.q_surface.n_faces:
@@ -486,7 +487,7 @@ class PictureSet:
     backend: str | None = None
 
 
-def render_pictures(scenes: list[CaseScene], *, baseline: str | None = None,
+def render_pictures(scenes, *, baseline: str | None = None,
                     options: PictureOptions = PictureOptions()) -> PictureSet:
     """All views of every scene (one scene per variant) with one camera per
     view. ``baseline``: the variant the differences are taken against

@@ -4,6 +4,10 @@ below, arrays, dicts) computed elsewhere — fits, predictions, Pareto fronts
 and ties arrive ready — and returns the encoded figure (SVG bytes by
 default, text kept as text so that it prints sharply and stays small).
 
+The data arrive as the dataclasses of
+:mod:`postproc.pipelines.report_data` (``Curve``, ``Panel``, ``MapData``,
+``ParetoPoint``, ``History``, ``PlatformCurve``), read by attribute.
+
 Colours: variants in the Okabe & Ito (2008) palette
 (:data:`postproc.report.scales.VARIANT_COLOURS`), yaw angles by line style
 and marker, so that nothing depends on colour alone.
@@ -16,7 +20,6 @@ from typing import Sequence
 
 import numpy as np
 
-from ..reportdata import Curve, History, MapData, Panel, ParetoPoint, PlatformCurve
 from .scales import VARIANT_COLOURS
 
 LINESTYLES = ("-", "--", ":", "-.")
@@ -58,7 +61,7 @@ def variant_colour(variants: Sequence[str], v: str) -> str:
     return VARIANT_COLOURS[list(variants).index(v) % len(VARIANT_COLOURS)] if v in variants else INK
 
 
-def line_panels(panels: Sequence[Panel], xlabel: str, *, variants: Sequence[str] | None = None,
+def line_panels(panels: Sequence, xlabel: str, *, variants: Sequence[str] | None = None,
                 width: float = 10.0, height: float = 3.2, fmt: str = "svg") -> bytes:
     """A row of line plots sharing ``xlabel`` (e.g. downforce, drag and
     balance against ride height), one legend for all."""
@@ -100,7 +103,7 @@ def line_panels(panels: Sequence[Panel], xlabel: str, *, variants: Sequence[str]
     return _save(fig, fmt)
 
 
-def map_contours(maps: Sequence[MapData], *, levels: int = 12, width: float = 10.0, fmt: str = "svg") -> bytes:
+def map_contours(maps: Sequence, *, levels: int = 12, width: float = 10.0, fmt: str = "svg") -> bytes:
     """Filled contours of each variant's map over front × rear ride height
     (mm), the measured points on top labelled with the prediction error.
     One colour range for all panels, so the variants compare."""
@@ -143,7 +146,7 @@ def map_contours(maps: Sequence[MapData], *, levels: int = 12, width: float = 10
     return _save(fig, fmt)
 
 
-def pareto_plot(points: Sequence[ParetoPoint], *, xlabel: str = "drag coefficient C_D",
+def pareto_plot(points: Sequence, *, xlabel: str = "drag coefficient C_D",
                 ylabel: str = "downforce coefficient −C_L", width: float = 6.0, height: float = 4.2,
                 fmt: str = "svg") -> bytes:
     """Downforce against drag with uncertainty bars; the front joined by a
@@ -180,7 +183,7 @@ def pareto_plot(points: Sequence[ParetoPoint], *, xlabel: str = "drag coefficien
     return _save(fig, fmt)
 
 
-def history_multiples(histories: Sequence[History], *, cols: int = 4, width: float = 10.0,
+def history_multiples(histories: Sequence, *, cols: int = 4, width: float = 10.0,
                       panel_height: float = 1.55, settled_only: bool = True, fmt: str = "svg") -> bytes:
     """Small multiples of force histories, one panel per case, over the
     settling window (``settled_only``; the whole run otherwise), each series
@@ -219,7 +222,7 @@ def history_multiples(histories: Sequence[History], *, cols: int = 4, width: flo
     return _save(fig, fmt)
 
 
-def platform_plot(curves: Sequence[PlatformCurve], *, ylabel: str = "ride height under load (mm)",
+def platform_plot(curves: Sequence, *, ylabel: str = "ride height under load (mm)",
                   scale: float = 1000.0, limits: Sequence[tuple[float, str]] = (), width: float = 6.0,
                   height: float = 3.6, fmt: str = "svg") -> bytes:
     """Platform curves (e.g. front and rear ride height against speed)."""

@@ -1,0 +1,2 @@
+"""Reading results from disk: surface and flow (volume) readers, the newest VTK export of a case.
+"""

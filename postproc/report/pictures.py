@@ -446,7 +446,7 @@ class PictureRenderer:
         pv = self._pv
         pl = self.plotter
         pl.add_mesh(_polydata(scene.body, with_values=False),
-                    color=_rgb(NEUTRAL["body"]), smooth_shading=False, ambient=0.35, diffuse=0.65)
+                    color=_rgb(NEUTRAL["body"]), smooth_shading=False, ambient=0.5, diffuse=0.5)
         size = max(scene.body.bounds[1] - scene.body.bounds[0], 1e-3)
         if scene.q_surface is not None and scene.q_surface.n_faces:
             qs = _polydata(scene.q_surface)
@@ -454,8 +454,9 @@ class PictureRenderer:
             for s in (+1, -1):
                 part = qs.extract_cells(np.flatnonzero(sense == s)) if (sense == s).any() else None
                 if part is not None and part.n_cells:
+                    # translucent, so that the tracked core centres inside show
                     pl.add_mesh(part.extract_surface(algorithm=None), color=_rgb(SENSE_COLOURS[s]), smooth_shading=True,
-                                ambient=0.3, diffuse=0.7, specular=0.1)
+                                ambient=0.3, diffuse=0.7, specular=0.1, opacity=0.55)
         else:
             notes.append("no Q iso-surface at this level")
         for s in (+1, -1):

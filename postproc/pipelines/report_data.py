@@ -396,8 +396,8 @@ def cautions_and_facts(results, ranking, *, mesh_study=(), flow_rows: dict | Non
             cautions.append(Caution("flagged-points", s.variant, tuple(flagged), float(len(flagged)),
                                     "; ".join(sorted({f for r in rows for f in r.flags if r.case_id in flagged}))))
         ranked = s.metrics.get("downforce") is not None
-        complete = usable_keys.get(s.variant, set()) >= {k for k in all_keys if k in points[s.variant]} and \
-            len(points.get(s.variant, {})) == len(all_keys)
+        # complete: a usable result at every point of the sweep's envelope
+        complete = usable_keys.get(s.variant, set()) >= all_keys
         facts.append(VariantFacts(variant=s.variant, rank=s.rank if ranked else None,
                                   score=s.score if ranked else None, pareto=s.pareto, n_cases=s.n_cases,
                                   n_flagged=s.n_flagged, metrics=dict(s.metrics), complete=complete,
@@ -405,8 +405,10 @@ def cautions_and_facts(results, ranking, *, mesh_study=(), flow_rows: dict | Non
     ranked = [f for f in facts if f.rank is not None]
     rec = ranked[0].variant if ranked else None
     if ranked and not ranked[0].complete:
-        cautions.append(Caution("incomplete-winner", rec, detail="it lacks usable results at points where other "
-                                "variants have them: its score rests on fewer operating points"))
+        n_bad = sum(1 for r in results if r.variant == rec and r.flags)
+        cautions.append(Caution("incomplete-winner", rec, value=float(n_bad),
+                                detail=f"{n_bad} of its points have no usable result, so its score rests on fewer "
+                                       f"operating points than planned"))
     if ranked and ranked[0].tie_with:
         cautions.append(Caution("tie", rec, detail=", ".join(ranked[0].tie_with)))
     # grid uncertainty against the difference between the two best variants

@@ -251,28 +251,33 @@ def build_context(data, options: PictureOptions = PictureOptions(), info: Render
         "tie": ", ".join(f.tie_with), "n": f.n_cases, "flagged": f.n_flagged,
         **{k: fmt(v, 3) for k, v in f.metrics.items()}, "notes": "; ".join(f.notes),
     } for f in data.variants]
-    flow_cols = [
-        ("variant", "variant", None), ("case_id", "case", None),
+    base_cols = [("variant", "variant", None), ("case_id", "case", None)]
+    diff_cols = base_cols + [
         ("diffuser_cpr", "C_pr", 3), ("diffuser_cpr_ideal", "ideal (area)", 3),
         ("diffuser_cpr_ideal_bulk", "ideal (bulk ū)", 3), ("diffuser_effectiveness", "effectiveness", 2),
         ("diffuser_side_inflow", "side inflow", 2), ("diffuser_cp_throat", "C_p throat", 3),
-        ("separation_fraction", "separation (ramp fraction)", 2), ("floor_suction_area", "suction ∫ dA (m²)", 4),
+        ("separation_fraction", "separation on ramp", 2), ("floor_suction_area", "suction ∫dA (m²)", 4),
         ("floor_cp_mean", "mean C_p under floor", 3),
     ]
     pair_keys = sorted({k.split("_")[1] for r in data.flow_rows for k in r if k.startswith("vortex_")},
                        key=lambda s: int(s) if s.isdigit() else 0)
-    for s in pair_keys:
-        flow_cols += [(f"vortex_{s}_circulation", f"pair Γ at {s} % (m²/s)", 4), (f"vortex_{s}_y", f"pair ±y at {s} % (m)", 3),
-                      (f"vortex_{s}_height", f"pair height at {s} % (m)", 4)]
-    flow_table = {"columns": [lab for _, lab, _ in flow_cols],
-                  "rows": [[fmt(r.get(k), nd) if nd is not None else str(r.get(k, "")) for k, _, nd in flow_cols]
-                           for r in data.flow_rows]}
+    pair_cols = base_cols[:]
+    for st in pair_keys:
+        pair_cols += [(f"vortex_{st}_circulation", f"Γ at {st} % (m²/s)", 4), (f"vortex_{st}_y", f"±y at {st} % (m)", 3),
+                      (f"vortex_{st}_height", f"height at {st} % (m)", 4)]
+
+    def table(cols):
+        return {"columns": [lab for _, lab, _ in cols],
+                "rows": [[fmt(r.get(k), nd) if nd is not None else str(r.get(k, "")) for k, _, nd in cols]
+                         for r in data.flow_rows]}
+
+    flow_tables = [table(diff_cols)] + ([table(pair_cols)] if pair_keys else [])
     return {
         "title": data.title, "study": data.study, "created": data.created, "version": data.version,
         "n_cases": data.n_cases, "n_usable": data.n_usable,
         "summary": summary(data), "cautions": cautions,
         "picture_groups": groups, "figures": figures, "map_note": data.map_note,
-        "standings": standings, "flow_table": flow_table,
+        "standings": standings, "flow_tables": flow_tables,
         "mesh_study": data.mesh_study, "checks": _rows(data.checks, 2), "cases": data.cases,
         "flagged": [c for c in data.cases if c.get("flags")],
         "notes": list(data.notes), "baseline": data.baseline, "analysis": data.analysis,

@@ -142,3 +142,13 @@ def test_too_many_values(tmp_path):
     assert "a list of 3 values" in msg and "body.front_axle" in msg
     msg = _err(tmp_path, BASE_TOML.replace("ride_height = [0.05]\npitch_deg = [0.0]", "ride_heights_front_rear = [[0.03]]"))
     assert "a list of 2 values" in msg and "sweep.ride_heights_front_rear[0]" in msg
+
+
+def test_report_section_baseline_and_picture_point(tmp_path):
+    c = load_config(write_config(tmp_path, BASE_TOML + '\n[report]\nbaseline = "base"\npicture_ride_height = 0.05\n'))
+    assert c.report.baseline == "base" and c.report.picture_ride_height == 0.05 and c.report.picture_yaw_deg is None
+    msg = _err(tmp_path, BASE_TOML + '\n[report]\nbaseline = "bsae"\npicture_ride_height = -0.02\n')
+    assert "report.baseline" in msg and "Did you mean 'base'" in msg and "name one of: base" in msg
+    assert "report.picture_ride_height" in msg
+    msg = _err(tmp_path, BASE_TOML + '\n[report]\nbaselin = "base"\n')
+    assert "report.baselin" in msg and "Did you mean 'baseline'" in msg

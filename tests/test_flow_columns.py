@@ -168,3 +168,23 @@ def test_missing_pressure_names_the_array(tmp_path):
     cf = analyse_case_flow(case, FlowOptions())
     assert "'p'" in (cf.payload["diffuser"].get("error") or "")
     assert math.isfinite(cf.metrics.columns["floor_suction_area"])  # the floor patch still has p
+
+
+def test_missing_baseline_names_the_variants_and_config_sets_it(tmp_path):
+    from caseprep.contract.errors import UserError
+    from caseprep.contract.manifest import read_manifest, write_manifest
+    from dataclasses import replace as dc_replace
+    from postproc.pipelines.report_data import ReportOptions
+
+    root = tmp_path / "sw"
+    write_case(root)
+    with pytest.raises(UserError, match="choose one of: chan"):
+        postprocess_sweep(root, options=ReportOptions(baseline="wedge"))
+    # the config's [report] section travels in the manifest records
+    m = read_manifest(root)
+    rec = dc_replace(m.cases[0], extra={**m.cases[0].extra, "report": {"baseline": "nope"}})
+    write_manifest(dc_replace(m, cases=(rec,)), root)
+    with pytest.raises(UserError, match="report.baseline"):
+        postprocess_sweep(root, force=True)
+    a = postprocess_sweep(root, force=True, options=ReportOptions(baseline="chan", pictures=False))
+    assert a.report_data.baseline == "chan"

@@ -110,6 +110,10 @@ KEYS: dict[str, tuple[str, str, str]] = {
     "solver.ranks": ("—", "parallel ranks (MPI processes)", "1"),
     "solver.turbulence_intensity": ("—", "inlet turbulence intensity (fraction)", "0.005"),
     "solver.turbulence_length_scale": ("m", "inlet turbulence length scale", "0.001 × reference length"),
+    "report.baseline": ("—", "variant the report's pressure-difference pictures compare against", "the first variant"),
+    "report.picture_ride_height": ("m", "front ride height of the operating point pictured for every variant",
+                                   "median of the sweep"),
+    "report.picture_yaw_deg": ("deg", "yaw of the operating point pictured for every variant", "smallest |yaw|"),
 }
 
 
@@ -239,6 +243,14 @@ class SolverCfg(_M):
     turbulence_length_scale: float | None = None
 
 
+class ReportCfg(_M):
+    """What the sweep report pictures (read by ``postproc sweep`` through the manifest)."""
+
+    baseline: str | None = None
+    picture_ride_height: float | None = None
+    picture_yaw_deg: float | None = None
+
+
 class Config(_M):
     """The whole validated config. Geometry paths are absolute after loading;
     :attr:`file` is the config file's path (for messages)."""
@@ -252,6 +264,7 @@ class Config(_M):
     mesh: MeshCfg = MeshCfg()
     domain: DomainCfg = DomainCfg()
     solver: SolverCfg = SolverCfg()
+    report: ReportCfg = ReportCfg()
     _file: str = PrivateAttr(default="config.toml")
 
     @property
@@ -280,7 +293,7 @@ class Config(_M):
 _MODELS: dict[str, type[BaseModel]] = {
     "": Config, "study": StudyCfg, "air": AirCfg, "ground": GroundCfg, "body": BodyCfg, "wheels": WheelCfg,
     "variants": VariantCfg, "sweep": SweepCfg, "points": PointCfg, "mesh": MeshCfg, "domain": DomainCfg,
-    "solver": SolverCfg,
+    "solver": SolverCfg, "report": ReportCfg,
 }
 
 
@@ -518,6 +531,16 @@ def _semantic(cfg: Config, base: Path, file: str) -> list[UserError]:
 
     s = cfg.sweep
     known = list(cfg.variants)
+    rp = cfg.report
+    if rp.baseline is not None and rp.baseline not in cfg.variants:
+        errs.append(UserError(expected="a variant defined under [variants]", got=rp.baseline, file=file, key="report.baseline",
+                              fix="name one of: " + ", ".join(known) + "." + did_you_mean(rp.baseline, known)))
+    if rp.picture_ride_height is not None:
+        _positive(errs, file, "report.picture_ride_height", rp.picture_ride_height, "m",
+                  "ride heights are measured upwards from the ground; use a value > 0")
+    if rp.picture_yaw_deg is not None and not abs(rp.picture_yaw_deg) < 45.0:
+        errs.append(UserError(expected="a yaw angle with |β| < 45 deg", got=rp.picture_yaw_deg, file=file,
+                              key="report.picture_yaw_deg"))
     for i, v in enumerate(s.variants or ()):
         if v not in cfg.variants:
             errs.append(UserError(expected="a variant defined under [variants]", got=v, file=file, key=f"sweep.variants[{i}]",

@@ -432,7 +432,17 @@ def postprocess_sweep(
         raise UserError(expected="no earlier results in the output folder", got=", ".join(str(p) for p in existing),
                         fix="pass --force to replace them, or -o to write somewhere else")
     variants = list(dict.fromkeys(c.variant for c in manifest.cases))
-    baseline = check_baseline(options.baseline, variants)
+    # the config's [report] settings (carried by the manifest records) unless given here
+    cfg = next((dict(c.extra.get("report") or {}) for c in manifest.cases if isinstance(c.extra.get("report"), dict)), {})
+    options = replace(
+        options,
+        baseline=options.baseline if options.baseline is not None else cfg.get("baseline"),
+        reference_ride_height=(options.reference_ride_height if options.reference_ride_height is not None
+                               else cfg.get("picture_ride_height")),
+        reference_yaw_deg=options.reference_yaw_deg if options.reference_yaw_deg is not None else cfg.get("picture_yaw_deg"))
+    baseline = check_baseline(options.baseline, variants,
+                              "--baseline" if options.baseline is None or "baseline" not in cfg
+                              else "report.baseline (config, in the manifest)")
     # the pictured cases, from the plan and the runner's flags (forces may add flags: checked below)
     want_scene = ({pc.case_id for pc in choose_picture_cases(_planned_rows(manifest), variants, options)}
                   if options.pictures else set())

@@ -35,6 +35,7 @@ from __future__ import annotations
 
 import csv
 import io
+import json
 import math
 import os
 from dataclasses import asdict, dataclass, field, replace
@@ -509,10 +510,22 @@ def postprocess_sweep(
     base = next((sc for sc in scenes if sc.variant == baseline), None)
     scenes = [scene_difference(sc, base) for sc in scenes]
     flow_rows = {o.result.case_id: {"variant": o.result.variant, **o.flow} for o in outcomes if o.flow}
-    data = assemble(results, title=title, study=manifest.study, notes=notes, checks=checks,
+    # analysis results beside the tables (ties, peak/stall, platform), when present: optional report sections
+    extra_notes = []
+    analysis_doc = None
+    apath = out / "analysis.json"
+    if apath.is_file():
+        try:
+            analysis_doc = json.loads(apath.read_text(encoding="utf-8"))
+            if not isinstance(analysis_doc, dict):
+                raise ValueError("not a JSON object")
+        except (ValueError, UnicodeDecodeError) as exc:
+            analysis_doc = None
+            extra_notes.append(f"{apath} not used: {exc}")
+    data = assemble(results, title=title, study=manifest.study, notes=notes + extra_notes, checks=checks,
                     mesh_study=list(analysis.mesh_study), aero_maps=list(analysis.aero_maps), flow_rows=flow_rows,
                     scenes=scenes, picture_cases=pcs, pictures_skipped=skipped,
                     histories=[o.history for o in outcomes if o.history is not None],
                     spread=_iterative_spread(outcomes), options=replace(options, baseline=baseline),
-                    ranking=list(analysis.ranking))
+                    ranking=list(analysis.ranking), analysis=analysis_doc)
     return replace(analysis, outcomes=tuple(outcomes), paths=paths, report_data=data)

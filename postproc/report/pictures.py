@@ -331,8 +331,23 @@ class PictureRenderer:
         # pyvista re-frames the view on the first render unless told the camera is set
         pl.renderer.camera_set = True
         pl.renderer.ResetCameraClippingRange()
-        pl.render()
-        return pl.screenshot(return_img=True)
+        pl.ren_win.Render()
+        return self._read_pixels()
+
+    def _read_pixels(self) -> np.ndarray:
+        """The rendered window as an RGB array (H, W, 3), top row first."""
+        import vtk
+        from vtkmodules.util.numpy_support import vtk_to_numpy
+
+        f = vtk.vtkWindowToImageFilter()
+        f.SetInput(self.plotter.ren_win)
+        f.SetInputBufferTypeToRGB()
+        f.ReadFrontBufferOff()
+        f.Update()
+        img = f.GetOutput()
+        w, h, _ = img.GetDimensions()
+        a = vtk_to_numpy(img.GetPointData().GetScalars()).reshape(h, w, -1)
+        return np.ascontiguousarray(a[::-1, :, :3])
 
     def _encode(self, img: np.ndarray) -> tuple[bytes, str]:
         from PIL import Image

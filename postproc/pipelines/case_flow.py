@@ -679,6 +679,7 @@ class CaseFlow:
     payload: dict
     scene: object | None = None
     seconds: dict = field(default_factory=dict)
+    scene_error: str | None = None
 
 
 def analyse_case_flow(source, options: FlowOptions = FlowOptions(), *, label: str | None = None) -> CaseFlow:
@@ -693,6 +694,7 @@ def analyse_case_flow(source, options: FlowOptions = FlowOptions(), *, label: st
     t2 = time.perf_counter()
     metrics = flow_metrics(payload, options)
     scene = None
+    scene_error = None
     if options.scene:
         refs = references(case)
         qn = payload.get("q_normalisation") or {}
@@ -702,12 +704,15 @@ def analyse_case_flow(source, options: FlowOptions = FlowOptions(), *, label: st
             vres = _tracks_only(v)
         rec = case.record
         q_scale = v.get("q_scale") if "error" not in v else None
-        scene = build_scene(case, refs, label=label or (rec.case_id if rec else str(case.source)),
-                            variant=rec.variant if rec else "", case_id=rec.case_id if rec else str(case.source),
-                            gd=gd, vortices=vres, q_scale=q_scale, q_level=qn.get("threshold"),
-                            spacing=None)
+        try:
+            scene = build_scene(case, refs, label=label or (rec.case_id if rec else str(case.source)),
+                                variant=rec.variant if rec else "", case_id=rec.case_id if rec else str(case.source),
+                                gd=gd, vortices=vres, q_scale=q_scale, q_level=qn.get("threshold"),
+                                spacing=None)
+        except UserError as exc:
+            scene_error = str(exc).splitlines()[0]
     t3 = time.perf_counter()
-    return CaseFlow(metrics, payload, scene, {"read": t1 - t0, "flow": t2 - t1, "scene": t3 - t2})
+    return CaseFlow(metrics, payload, scene, {"read": t1 - t0, "flow": t2 - t1, "scene": t3 - t2}, scene_error)
 
 
 @dataclass(frozen=True)

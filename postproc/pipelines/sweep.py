@@ -497,8 +497,11 @@ def postprocess_sweep(
         sc = by_id[pc.case_id].scene
         if sc is None:
             try:
-                sc = analyse_case_flow(manifest.case_dir(manifest.case(pc.case_id)), replace(flow, scene=True),
-                                       label=pc.case_id).scene
+                cf = analyse_case_flow(manifest.case_dir(manifest.case(pc.case_id)), replace(flow, scene=True),
+                                       label=pc.case_id)
+                sc = cf.scene
+                if sc is None:
+                    skipped.append((pc.case_id, cf.scene_error or "no picture scene"))
             except UserError as exc:
                 skipped.append((pc.case_id, str(exc).splitlines()[0]))
         if sc is not None:

@@ -203,6 +203,8 @@ def process_case(manifest: Manifest, case: CaseRecord, flow: FlowOptions | None 
             cf = analyse_case_flow(case_dir, flow, label=case.case_id)
             flow_cols = cf.metrics.to_dict()
             scene = cf.scene
+            if cf.scene_error:
+                notes.append("picture: " + cf.scene_error)
         except UserError as exc:
             notes.append("flow: " + str(exc).splitlines()[0])
     history = None
@@ -495,7 +497,10 @@ def postprocess_sweep(
     scenes = []
     for pc in pcs:
         sc = by_id[pc.case_id].scene
-        if sc is None:
+        tried = next((n for n in by_id[pc.case_id].notes if n.startswith(("picture: ", "flow: "))), None)
+        if sc is None and pc.case_id in want_scene and tried:
+            skipped.append((pc.case_id, tried.split(": ", 1)[1]))
+        elif sc is None:
             try:
                 cf = analyse_case_flow(manifest.case_dir(manifest.case(pc.case_id)), replace(flow, scene=True),
                                        label=pc.case_id)

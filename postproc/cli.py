@@ -239,7 +239,7 @@ def _print_vortices(d: dict) -> None:
 @click.argument("source", type=click.Path())
 @click.option("--stations", help="Comma-separated x stations (m, body frame, x rearward). Default: every 5 % of the reference length from the nose to half a length behind the tail.")
 @click.option("--threshold", "q_star", type=float,
-              help="Core threshold on Q/(V/l)^2 (default 0.05 with the gap scale, 100 with the reference length).")
+              help="Core threshold on Q/(V/l)^2 (default 0.01 with the gap scale, 100 with the reference length).")
 @click.option("--q-scale", type=click.Choice(["auto", "gap", "length"]), default="auto", show_default=True,
               help="Length l normalising Q: the ride height (gap; 'auto' when the manifest gives it) or the "
                    "reference length L.")
@@ -375,7 +375,7 @@ def walls_cmd(source, treatment, yplus_range, nu, speed, lines, as_json, output,
 @main.command("flow")
 @click.argument("source", type=click.Path())
 @click.option("--threshold", "q_star", type=float,
-              help="Core threshold on Q/(V/l)^2 (default 0.05 with the gap scale, 100 with the reference length).")
+              help="Core threshold on Q/(V/l)^2 (default 0.01 with the gap scale, 100 with the reference length).")
 @click.option("--q-scale", type=click.Choice(["auto", "gap", "length"]), default="auto", show_default=True,
               help="Length l normalising Q: the ride height (gap; 'auto' when the manifest gives it) or the "
                    "reference length.")

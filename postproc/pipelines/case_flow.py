@@ -441,7 +441,7 @@ def analyse_walls(case: flowio.FlowCase, *, target: tuple[float, float] = (30.0,
 #: the reference length L ("length", the wheelbase for a car) or the gap
 #: scale h ("gap", the ride height). Our choice, no source: see the README
 #: ("postproc: vortices …") for what they give on the demo floors.
-Q_STAR_DEFAULTS = {"length": 100.0, "gap": 0.05}
+Q_STAR_DEFAULTS = {"length": 100.0, "gap": 0.01}
 
 
 def q_normalisation(case: flowio.FlowCase, q_scale: str = "auto", gap: float | None = None) -> tuple[str, float | None]:
@@ -552,6 +552,8 @@ def flow_payload(case: flowio.FlowCase, *, q_star: float | None = None, q_scale:
 
 #: main-pair stations, as fractions of the floor length from its leading edge
 PAIR_STATIONS = (0.70, 0.85, 1.00)
+#: a pair is taken from the station nearest each of them that holds one, within this fraction of the floor length
+PAIR_WINDOW = 0.05
 
 
 @dataclass(frozen=True)
@@ -621,19 +623,24 @@ def flow_metrics(payload: dict, options: FlowOptions = FlowOptions()) -> FlowMet
         lab = station_label(frac)
         out = {"x": None, "circulation": None, "y": None, "height": None}
         if stations and floor_x is not None:
-            xt = floor_x[0] + frac * (floor_x[1] - floor_x[0])
-            st = min(stations, key=lambda s: abs(s["x"] - xt))
-            out["x"] = float(st["x"])
-            best = {}
-            for c in st["cores"]:
-                s = int(c["sense"])
-                if s not in best or abs(c["circulation"]) > abs(best[s]["circulation"]):
-                    best[s] = c
-            if +1 in best and -1 in best:
-                a, b = best[+1], best[-1]
-                out["circulation"] = 0.5 * (abs(a["circulation"]) + abs(b["circulation"]))
-                out["y"] = 0.5 * abs(a["centre"][1] - b["centre"][1])
-                out["height"] = float(np.mean([(np.asarray(c["centre"]) - gp) @ gn for c in (a, b)]))
+            span = floor_x[1] - floor_x[0]
+            xt = floor_x[0] + frac * span
+            # the station nearest the fixed position that holds a pair, within ±PAIR_WINDOW of the floor length
+            near = sorted((st for st in stations if abs(st["x"] - xt) <= PAIR_WINDOW * span),
+                          key=lambda st: abs(st["x"] - xt))
+            for st in near:
+                best = {}
+                for c in st["cores"]:
+                    sn = int(c["sense"])
+                    if sn not in best or abs(c["circulation"]) > abs(best[sn]["circulation"]):
+                        best[sn] = c
+                if +1 in best and -1 in best:
+                    a, b = best[+1], best[-1]
+                    out["x"] = float(st["x"])
+                    out["circulation"] = 0.5 * (abs(a["circulation"]) + abs(b["circulation"]))
+                    out["y"] = 0.5 * abs(a["centre"][1] - b["centre"][1])
+                    out["height"] = float(np.mean([(np.asarray(c["centre"]) - gp) @ gn for c in (a, b)]))
+                    break
         for k, val in out.items():
             cols[f"vortex_{lab}_{k}"] = _num(val)
     # separation on the ramp (centreline)

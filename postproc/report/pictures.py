@@ -463,6 +463,9 @@ class PictureRenderer:
         pl.add_mesh(_polydata(scene.body, with_values=False),
                     color=_rgb(NEUTRAL["body"]), smooth_shading=False, ambient=0.5, diffuse=0.5)
         size = max(scene.body.bounds[1] - scene.body.bounds[0], 1e-3)
+        if scene.q_level is not None:
+            notes.append(f"iso-surface Q/(V/h)² = {scene.q_level:g}"
+                         + (f", h = {1000 * scene.ride_height:.1f} mm" if scene.ride_height else ""))
         if scene.q_surface is not None and scene.q_surface.n_faces:
             qs = _polydata(scene.q_surface)
             sense = np.asarray(scene.q_surface.values)

@@ -54,12 +54,12 @@ from postproc.io.exports import latest_export
 from postproc.io.surfaces import read_surface
 from postproc.kernels import wallchecks as wc
 from postproc.kernels.aeromap import fit_response_surface, map_grid
-from postproc.kernels.forces import face_geometry
+from postproc.kernels.polygons import face_geometry
 from postproc.kernels.meshstudy import grid_convergence
 from postproc.kernels.ranking import CaseResult, VariantScore, rank_variants
 from postproc.pipelines.case_flow import FlowOptions, analyse_case_flow
+from postproc.pipelines.case_forces import ForcesReport, forces_report
 from postproc.pipelines.case_scene import scene_difference
-from postproc.pipelines.case_forces import forces_report
 from postproc.pipelines.report_data import (ReportOptions, assemble, check_baseline, choose_picture_cases,
                                             history_from_monitor)
 
@@ -67,8 +67,10 @@ RESULTS_DIR = "results"
 
 @dataclass(frozen=True)
 class CaseOutcome:
-    """One case of the sweep after post-processing: the ranking row, the run
-    status, the flags' explanations and any note."""
+    """One row of the sweep's results: the case's ranking row (``result``),
+    its run status, cell and iteration counts, the monitor's verdict, the
+    prism-layer coverage, notes, the full forces report and the y+
+    statistics per patch. :meth:`row` is its flat form in the tables."""
 
     result: CaseResult
     status: str
@@ -77,18 +79,29 @@ class CaseOutcome:
     convergence: str | None
     layers: str | None = None  # e.g. "body 85 %, strake_left 38 %" (share of the target layer thickness)
     notes: tuple[str, ...] = ()
-    report: dict[str, Any] | None = field(default=None, repr=False)
+    report: ForcesReport | None = field(default=None, repr=False)
     yplus: dict[str, dict] = field(default_factory=dict)
     flow: dict[str, Any] = field(default_factory=dict)
     scene: Any = field(default=None, repr=False)
     history: Any = field(default=None, repr=False)
     seconds: dict[str, float] = field(default_factory=dict)
 
+    def row(self) -> dict[str, Any]:
+        """The case as one flat row of the results tables (CSV and JSON)."""
+        r = asdict(self.result)
+        r["flags"] = " ".join(self.result.flags)
+        r["downforce_coefficient"] = -self.result.cl if math.isfinite(self.result.cl) else None
+        r.update(status=self.status, cells=self.cells, iterations=self.iterations, convergence=self.convergence,
+                 layers=self.layers)
+        if self.yplus:
+            a = self.yplus[ALL_WALLS]  # all body and wheel faces together
+            r.update(yplus_median=a["median"], yplus_p95=a["p95"], yplus_max=a["max"],
+                     yplus_share_in_range=a["share_in_target"], yplus_range="{:g}-{:g}".format(*a["target"]))
+        r.update(self.flow)
+        r["notes"] = "; ".join(self.notes)
+        return r
 
-#: Intended y+ ranges of the wall treatments (common practice, no source):
-#: wall functions want the first cell in the log layer, a resolved laminar or
-#: low-Re wall wants it inside the viscous sublayer.
-YPLUS_RANGES = {"kOmegaSST": (30.0, 300.0), "laminar": (0.0, 5.0)}
+
 ALL_WALLS = "all body and wheel patches"
 
 
@@ -96,7 +109,7 @@ def wall_yplus(case_dir: Path, case: CaseRecord) -> tuple[dict[str, dict], str |
     """y+ statistics of the body and wheel patches from the case's VTK export
     (the solver's ``yPlus`` face field): per patch min/median/p95/max and the
     area share inside the wall treatment's intended range
-    (:data:`YPLUS_RANGES`, chosen from the manifest's turbulence model).
+    (:func:`postproc.kernels.wallchecks.yplus_range` of the manifest's turbulence model).
     Returns (stats by patch, None) or ({}, why not)."""
     names = list(case.patches.get("body") or []) + list(case.patches.get("wheels") or [])
     if not names:
@@ -106,8 +119,7 @@ def wall_yplus(case_dir: Path, case: CaseRecord) -> tuple[dict[str, dict], str |
         yp = surf.array("yPlus")
     except UserError as exc:
         return {}, f"y+ not assessed: {exc}".splitlines()[0]
-    model = str(case.extra.get("turbulence_model", "kOmegaSST"))
-    target = YPLUS_RANGES.get(model, YPLUS_RANGES["kOmegaSST"])
+    target = wc.yplus_range(case.turbulence_model)
     S, _ = face_geometry(surf.points, (surf.offsets, surf.connectivity))
 
     areas = np.linalg.norm(S, axis=1)
@@ -161,25 +173,24 @@ def process_case(manifest: Manifest, case: CaseRecord, flow: FlowOptions | None 
     cl = cd = cs = nan
     clf = clr = bal = margin = None
     if report is not None:
-        c = report.get("coefficients")
-        if c:
-            cl, cd, cs = float(c["lift"]), float(c["drag"]), float(c["side"])
+        c = report.coefficients
+        if c is not None:
+            cl, cd, cs = float(c.lift), float(c.drag), float(c.side)
         else:
             flags.append(Flag.FORCES_FAILED)
             notes.append("no reference values in the manifest: coefficients not computed")
-        b = report.get("balance")
-        if b:
-            clf, clr = b.get("c_lift_front"), b.get("c_lift_rear")
-            bal, margin = b.get("balance_front"), b.get("stability_margin")
+        b = report.balance
+        if b is not None:
+            clf, clr = b.c_lift_front, b.c_lift_rear
+            bal, margin = b.balance_front, b.stability_margin
             if abs(base["yaw_deg"]) < 1e-9 and margin is not None:
                 # at zero yaw the side force is numerical noise about zero and its
                 # centre of pressure is meaningless: report no margin
                 margin = None
                 notes.append("zero yaw: no side force to place, stability margin not reported")
-            notes.extend(b.get("notes", []))
-        conv = report.get("convergence")
-        if conv is not None:
-            verdict = conv["verdict"]
+            notes.extend(b.notes)
+        if report.convergence is not None:
+            verdict = report.convergence.verdict
             if verdict == "diverging":
                 flags.append(Flag.FORCES_DRIFTING)
         else:
@@ -220,21 +231,6 @@ def process_case(manifest: Manifest, case: CaseRecord, flow: FlowOptions | None 
                        notes=tuple(notes), report=report, yplus=yplus, layers=layers, flow=flow_cols, scene=scene,
                        history=history, seconds={"forces": t_forces - t_start,
                                                  "flow": time.perf_counter() - t_forces})
-
-
-def outcome_row(o: CaseOutcome) -> dict[str, Any]:
-    """A flat dict of one case for the CSV/JSON tables."""
-    r = asdict(o.result)
-    r["flags"] = " ".join(o.result.flags)
-    r["downforce_coefficient"] = -o.result.cl if math.isfinite(o.result.cl) else None
-    r.update(status=o.status, cells=o.cells, iterations=o.iterations, convergence=o.convergence, layers=o.layers)
-    if o.yplus:
-        a = o.yplus[ALL_WALLS]  # all body and wheel faces together
-        r.update(yplus_median=a["median"], yplus_p95=a["p95"], yplus_max=a["max"],
-                 yplus_share_in_range=a["share_in_target"], yplus_range="{:g}-{:g}".format(*a["target"]))
-    r.update(o.flow)
-    r["notes"] = "; ".join(o.notes)
-    return r
 
 
 #: representative cell size of mesh level m relative to level 0: each level
@@ -374,15 +370,14 @@ def _iterative_spread(outcomes: list[CaseOutcome]) -> dict[str, tuple[float, flo
     = 0.998). Variants without monitor statistics are left out."""
     acc: dict[str, list[tuple[float, float]]] = {}
     for o in outcomes:
-        rep = o.report or {}
-        conv, ref = rep.get("convergence"), rep.get("reference")
-        if o.result.flags or not conv or not ref:
+        rep = o.report
+        if o.result.flags or rep is None or rep.convergence is None or rep.reference is None:
             continue
-        stats = conv.get("series", {})
+        stats = rep.convergence.series
         fz, fx = stats.get("force.total_z"), stats.get("force.total_x")
-        qa = float(ref["q"]) * float(ref["area"])
-        if fz and fx and qa > 0 and fz.get("std") is not None and fx.get("std") is not None:
-            acc.setdefault(o.result.variant, []).append((float(fz["std"]) / qa, float(fx["std"]) / qa))
+        qa = float(rep.reference.q) * float(rep.reference.area)
+        if fz is not None and fx is not None and qa > 0 and math.isfinite(fz.std) and math.isfinite(fx.std):
+            acc.setdefault(o.result.variant, []).append((float(fz.std) / qa, float(fx.std) / qa))
     return {v: (float(np.sqrt(np.mean([a * a for a, _ in xs]))), float(np.sqrt(np.mean([b * b for _, b in xs]))))
             for v, xs in acc.items()}
 
@@ -456,11 +451,11 @@ def postprocess_sweep(
         outcomes.append(o)
         if o.report is not None:
             write_json_atomic(out / RESULTS_DIR / f"{case.case_id}.json",
-                              json_ready({**o.report, "yplus": o.yplus, "flow": o.flow,
+                              json_ready({**o.report.to_dict(), "yplus": o.yplus, "flow": o.flow,
                                           "flags": list(o.result.flags)}))
         if progress is not None:
             progress(i + 1, n, o)
-    rows = [outcome_row(o) for o in outcomes]
+    rows = [o.row() for o in outcomes]
     paths = {
         "csv": out / "results.csv",
         "json": out / "results.json",

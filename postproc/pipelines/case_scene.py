@@ -22,7 +22,7 @@ from postproc.io import flow as flowio
 from postproc.kernels import underbody as ub
 from postproc.kernels import wallchecks as wc
 from postproc.kernels.planview import PlanGrid, PlanRaster, plan_streaks, point_average, rasterise_lowest
-from postproc.kernels.sections import Surface
+from postproc.kernels.sections import SurfacePatch
 
 
 @dataclass(frozen=True, eq=False)
@@ -144,7 +144,7 @@ def gap_scale(record) -> float | None:
     return h if h > 0 else None
 
 
-def _surface_data(s: Surface, values: np.ndarray | None, name: str = "") -> SurfaceData:
+def _surface_data(s: SurfacePatch, values: np.ndarray | None, name: str = "") -> SurfaceData:
     return SurfaceData(np.asarray(s.points, dtype=float), np.asarray(s.offsets, dtype=np.int64),
                        np.asarray(s.connectivity, dtype=np.int64), values, name or s.name)
 

@@ -182,7 +182,7 @@ def test_missing_baseline_names_the_variants_and_config_sets_it(tmp_path):
         postprocess_sweep(root, options=ReportOptions(baseline="wedge"))
     # the config's [report] section travels in the manifest records
     m = read_manifest(root)
-    rec = dc_replace(m.cases[0], extra={**m.cases[0].extra, "report": {"baseline": "nope"}})
+    rec = dc_replace(m.cases[0], info={**m.cases[0].info, "report": {"baseline": "nope"}})
     write_manifest(dc_replace(m, cases=(rec,)), root)
     with pytest.raises(UserError, match="report.baseline"):
         postprocess_sweep(root, force=True)

@@ -431,7 +431,7 @@ def postprocess_sweep(
                         fix="pass --force to replace them, or -o to write somewhere else")
     variants = list(dict.fromkeys(c.variant for c in manifest.cases))
     # the config's [report] settings (carried by the manifest records) unless given here
-    cfg = next((dict(c.extra.get("report") or {}) for c in manifest.cases if isinstance(c.extra.get("report"), dict)), {})
+    cfg = next((dict(c.info["report"]) for c in manifest.cases if isinstance(c.info.get("report"), dict)), {})
     options = replace(
         options,
         baseline=options.baseline if options.baseline is not None else cfg.get("baseline"),

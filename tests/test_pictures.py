@@ -161,9 +161,19 @@ def test_missing_baseline_names_the_available_ones():
         pics.render_pictures([scene("flat"), scene("ramp")], baseline="wedge")
 
 
+def test_missing_egl_library_is_found_before_trying(monkeypatch):
+    import ctypes.util
+
+    monkeypatch.setenv("VTK_DEFAULT_OPENGL_WINDOW", "vtkEGLRenderWindow")
+    monkeypatch.setattr(ctypes.util, "find_library", lambda name: None)
+    assert "libEGL" in pics._libraries_problem()
+    monkeypatch.setenv("VTK_DEFAULT_OPENGL_WINDOW", "vtkOSOpenGLRenderWindow")
+    assert "OSMesa" in pics._libraries_problem()
+
+
 def test_rendering_unavailable_gives_the_install_command(monkeypatch):
     monkeypatch.setattr(pics, "_STATUS", {})
-    monkeypatch.setattr(pics, "_PROBE", "raise SystemExit('no EGL display')")
+    monkeypatch.setattr(pics, "_probe", lambda: (None, "no display and no EGL library (libEGL) installed"))
     problem = pics.rendering_problem()
     assert problem is not None and "libegl1" in problem and "apt-get install" in problem
     with pytest.raises(pics.RenderingUnavailable, match="libegl-mesa0"):

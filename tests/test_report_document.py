@@ -76,7 +76,7 @@ def test_size_limit_is_stated_when_exceeded(tmp_path):
 
 def test_rendering_unavailable_still_writes_the_report(tmp_path, monkeypatch):
     monkeypatch.setattr(pics, "_STATUS", {})
-    monkeypatch.setattr(pics, "_PROBE", "raise SystemExit('no EGL display')")
+    monkeypatch.setattr(pics, "_probe", lambda: (None, "no display and no EGL library (libEGL) installed"))
     data = demo_report_data()
     p, info = write_report(data, tmp_path / "report.html")
     text = p.read_text(encoding="utf-8")

@@ -9,8 +9,8 @@ VTK for that window (``VTK_DEFAULT_OPENGL_WINDOW=vtkEGLRenderWindow``) so
 that VTK does not first try X. OSMesa works as well where EGL does not:
 install ``libosmesa6`` and set ``VTK_DEFAULT_OPENGL_WINDOW=
 vtkOSOpenGLRenderWindow`` before running. Whether rendering works is
-probed once per process in a child process (a missing or broken OpenGL
-library can abort the process that tries it); when it does not, the
+probed once per process: the libraries are looked up first (nothing is
+tried without them), then a tiny picture is rendered; when that fails, the
 report is written without pictures and says why, with the install command.
 
 Views (one fixed camera per view for every variant of a report, framed on
@@ -37,8 +37,6 @@ from __future__ import annotations
 
 import io
 import os
-import subprocess
-import sys
 import time
 from dataclasses import dataclass, field
 
@@ -121,16 +119,6 @@ class Picture:
 # --------------------------------------------------------------------------- availability
 
 _STATUS: dict[str, str | None] = {}
-_PROBE = r"""
-import os, sys
-import pyvista as pv
-pl = pv.Plotter(off_screen=True, window_size=(16, 16))
-pl.add_mesh(pv.Sphere(), color="white")
-img = pl.screenshot(return_img=True)
-assert img.shape[0] == 16 and img.std() > 0, "blank probe image"
-print(pl.ren_win.GetClassName())
-pl.close()
-"""
 
 
 def _select_backend() -> None:
@@ -138,32 +126,55 @@ def _select_backend() -> None:
         os.environ["VTK_DEFAULT_OPENGL_WINDOW"] = "vtkEGLRenderWindow"
 
 
-def rendering_problem(timeout: float = 120.0) -> str | None:
-    """None when off-screen rendering works here, else why not (one line
-    and the install command). Probed once per process, in a child process."""
+def _libraries_problem() -> str | None:
+    """Why off-screen rendering cannot even be tried here (no display, no
+    EGL library, or OSMesa asked for and missing), else None."""
+    import ctypes.util
+
+    window = os.environ.get("VTK_DEFAULT_OPENGL_WINDOW", "")
+    if window == "vtkOSOpenGLRenderWindow":
+        return None if ctypes.util.find_library("OSMesa") else "the OSMesa library (libOSMesa) is not installed"
+    if window == "vtkEGLRenderWindow" or not os.environ.get("DISPLAY"):
+        return None if ctypes.util.find_library("EGL") else "no display and no EGL library (libEGL) installed"
+    return None
+
+
+def _probe() -> tuple[str | None, str | None]:
+    """Render a tiny picture in this process: (render window class, None)
+    or (None, why it failed)."""
+    try:
+        import pyvista as pv
+    except ImportError as exc:
+        return None, f"pyvista/vtk cannot be imported ({exc}); install the package's dependencies (pip install -e .)"
+    problem = _libraries_problem()
+    if problem is not None:
+        return None, problem
+    try:
+        pl = pv.Plotter(off_screen=True, window_size=(16, 16))
+        try:
+            pl.add_mesh(pv.Sphere(), color="white")
+            img = pl.screenshot(return_img=True)
+            backend = pl.ren_win.GetClassName()
+        finally:
+            pl.close()
+    except Exception as exc:  # any failure of the OpenGL set-up means: no pictures
+        return None, f"off-screen rendering failed ({type(exc).__name__}: {exc})"
+    if img is None or img.shape[0] != 16 or not img.std() > 0:
+        return None, "off-screen rendering gave a blank picture"
+    return backend, None
+
+
+def rendering_problem() -> str | None:
+    """None when off-screen rendering works here, else why not, with the
+    install command. Probed once per process: the libraries are looked up
+    first (nothing is tried without them), then a tiny picture is rendered."""
     if "problem" in _STATUS:
         return _STATUS["problem"]
     _select_backend()
-    problem = None
-    try:
-        import pyvista  # noqa: F401
-        import vtk  # noqa: F401
-    except ImportError as exc:
-        problem = f"pyvista/vtk cannot be imported ({exc}); install the package's dependencies (pip install -e .)"
-    if problem is None:
-        try:
-            r = subprocess.run([sys.executable, "-c", _PROBE], capture_output=True, text=True, timeout=timeout,
-                               env=dict(os.environ))
-            if r.returncode != 0:
-                err = [ln for ln in (r.stderr or "").splitlines() if ln.strip()]
-                problem = (f"off-screen rendering failed (exit code {r.returncode}: "
-                           f"{err[-1] if err else 'no message'})")
-            else:
-                _STATUS["backend"] = r.stdout.strip().splitlines()[-1] if r.stdout.strip() else "?"
-        except subprocess.TimeoutExpired:
-            problem = f"off-screen rendering did not answer within {timeout:.0f} s"
-        if problem is not None:
-            problem += f". Fix: {INSTALL_HINT}"
+    backend, problem = _probe()
+    if problem is not None:
+        problem += f". Fix: {INSTALL_HINT}"
+    _STATUS["backend"] = backend
     _STATUS["problem"] = problem
     return problem
 

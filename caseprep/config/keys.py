@@ -236,6 +236,13 @@ KEYS: dict[str, Key] = {
                                                    expected="a turbulence intensity fraction in ({lo}, {hi}] (0.01 = 1 %)")),
     "solver.turbulence_length_scale": Key("m", "inlet turbulence length scale", default="0.001 × reference length",
                                           range=_within(1e-6, _L, "m")),
+    "report.baseline": Key("—", "variant the report's pressure-difference pictures compare against "
+                                "(`postproc sweep --baseline` overrides)", default="the first variant"),
+    "report.picture_ride_height": Key("m", "front ride height of the operating point pictured for every variant "
+                                           "(`--picture-ride-height`)", default="median of the sweep",
+                                      range=_RIDE_HEIGHT),
+    "report.picture_yaw_deg": Key("deg", "yaw of the pictured operating point (`--picture-yaw`)",
+                                  default="smallest yaw", range=_YAW),
 }
 
 

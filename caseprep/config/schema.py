@@ -162,6 +162,14 @@ class SolverCfg(_M):
     turbulence_length_scale: float | None = None
 
 
+class ReportCfg(_M):
+    """What the sweep report pictures (``postproc sweep`` reads it from the manifest)."""
+
+    baseline: str | None = None
+    picture_ride_height: float | None = None
+    picture_yaw_deg: float | None = None
+
+
 class Config(_M):
     """The whole validated config. Geometry paths are absolute after loading;
     :attr:`file` is the config file's path (for messages)."""
@@ -175,6 +183,7 @@ class Config(_M):
     mesh: MeshCfg = MeshCfg()
     domain: DomainCfg = DomainCfg()
     solver: SolverCfg = SolverCfg()
+    report: ReportCfg = ReportCfg()
     _file: str = PrivateAttr(default="config.toml")
 
     @property
@@ -203,7 +212,7 @@ class Config(_M):
 _MODELS: dict[str, type[BaseModel]] = {
     "": Config, "study": StudyCfg, "air": AirCfg, "ground": GroundCfg, "body": BodyCfg, "wheels": WheelCfg,
     "variants": VariantCfg, "sweep": SweepCfg, "points": PointCfg, "mesh": MeshCfg, "domain": DomainCfg,
-    "solver": SolverCfg,
+    "solver": SolverCfg, "report": ReportCfg,
 }
 
 

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import json
 import os
+import re
 import subprocess
 import sys
 import time
@@ -123,3 +124,17 @@ def test_malformed_run_record_flags_the_case_and_names_the_key(tmp_path, over, k
     assert rows["b"]["flags"] == ""
     ranking = json.loads((root / "results.json").read_text())["ranking"]
     assert all(s["n_cases"] - s["n_flagged"] <= 1 for s in ranking)  # the flagged case is never ranked
+
+
+def test_a_volume_that_crashes_the_reader_flags_its_case_only(tmp_path):
+    """The flow columns read each case's volume (internal.vtu): also in a child process."""
+    from builders import volume_vtu
+
+    root = finished_sweep(tmp_path / "sw", ["a", "b"])
+    vtu = root / "cases" / "a" / "VTK" / "a_100" / "internal.vtu"
+    good = volume_vtu(vtu).read_bytes()
+    vtu.write_bytes(re.sub(rb'NumberOfPoints="\s*64', b'NumberOfPoints="1000000000', good) + os.urandom(400_000))
+    r, rows = _sweep_cli(root)
+    assert r.exit_code == 0, r.output
+    assert "unreadable" in rows["a"]["flags"] and "SIGABRT" in rows["a"]["notes"], rows["a"]
+    assert "unreadable" not in rows["b"]["flags"]

@@ -43,6 +43,14 @@ _ctx = None
 ENABLED = os.environ.get("UNDERFLOOR_READ_IN_PROCESS") != "1"
 
 
+def preload(*modules: str) -> None:
+    """Modules the child processes should find already imported (call before
+    the first read: the server process starts once, with what is listed)."""
+    with _ctx_lock:
+        if _ctx is None:
+            _PRELOAD.extend(m for m in modules if m not in _PRELOAD)
+
+
 def _context():
     global _ctx
     with _ctx_lock:

@@ -229,6 +229,9 @@ def _dataset_to_parts(ds, path: Path):
 
 def _validate(name: str, piece: tuple, source: str) -> None:
     P, off, conn, cells = piece[:4]
+    if P.size and not np.isfinite(P).all():
+        raise UnreadableFile(expected="finite point coordinates", got="NaN or infinite coordinates", file=source,
+                             key=name, fix="the export is corrupt; re-export it with the solver's converter")
     m = off.size - 1
     bad = [k for k, v in cells.items() if v.shape[0] != m]
     if (conn.size and (conn.min() < 0 or conn.max() >= P.shape[0])) or off[-1] != conn.size or bad:
@@ -406,11 +409,15 @@ def vtm_blocks(path: Path) -> tuple[list[tuple[str, Path]], float | None]:
             stack.append((iter(child), name if prefix == "" else f"{prefix}/{name}"))
         elif child.tag == "DataSet" and child.get("file"):
             full = name if prefix in ("", "boundary") else f"{prefix}/{name}"
-            out.append((full, confined(path.parent, child.get("file"), file=str(path), key=f"block {full[:80]!r} file",
-                                       what="a block file")))
+            out.append((full, child.get("file")))
             if len(out) > MAX_VTM_BLOCKS.value:
                 raise UserError(expected=f"at most {int(MAX_VTM_BLOCKS.value):,} blocks", got="more",
                                 file=str(path), fix="re-export with foamToVTK")
+    inside: dict[str, Path] = {}  # each distinct file checked once
+    for full, f in out:
+        if f not in inside:
+            inside[f] = confined(path.parent, f, file=str(path), key=f"block {full[:80]!r} file", what="a block file")
+    out = [(full, inside[f]) for full, f in out]
     time = None
     with open(path, "rb") as fh:
         head = fh.read(400).decode("utf-8", errors="replace")

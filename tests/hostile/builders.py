@@ -61,10 +61,12 @@ def finished_case(case_dir: Path, case_id: str, record: dict | None = None) -> P
     return case_dir
 
 
-def finished_sweep(root: Path, case_ids=("a", "b")) -> Path:
+def finished_sweep(root: Path, case_ids=("a", "b"), exports: bool = True) -> Path:
+    """The sweep; ``exports=False``: the manifest and empty case folders only."""
     root = write_manifest_only(root, list(case_ids))
-    for cid in case_ids:
-        finished_case(root / "cases" / cid, cid)
+    if exports:
+        for cid in case_ids:
+            finished_case(root / "cases" / cid, cid)
     return root
 
 

@@ -303,3 +303,317 @@ def name_inputs() -> list[Hostile]:
                            _config(BASE_TOML.replace('name = "t1"', f"name = {key_line}")), 2, "study.name",
                            also_write=True))
     return out
+
+
+# ------------------------------------------------------------------ VTK exports
+
+def _spoil_sweep(spoil: Callable[[Path], None], command: str, cases=("a", "b")):
+    """A finished sweep (tests/hostile/builders.py) with case ``a`` spoiled
+    by ``spoil(case_dir)``; the command runs on the sweep (``sweep``, without
+    pictures: the inputs aim at the readers) or on case a's surface file
+    (``forces``)."""
+    def build(tmp: Path) -> list[str]:
+        from builders import finished_sweep
+
+        root = finished_sweep(tmp / "sw", list(cases))
+        spoil(root / "cases" / "a")
+        if command == "sweep":
+            return ["sweep", str(root), "--no-pictures"]
+        return ["forces", str(root / "cases" / "a" / "VTK" / "a_100.vtm"), "--patches", "body", "--rho", "1"]
+    return build
+
+
+BODY = "VTK/a_100/boundary/body.vtp"
+VTM = "VTK/a_100.vtm"
+
+
+def _edit_bytes(rel: str, fn: Callable[[bytes], bytes]) -> Callable[[Path], None]:
+    def spoil(case: Path) -> None:
+        p = case / rel
+        p.write_bytes(fn(p.read_bytes()))
+    return spoil
+
+
+def _replace_file(rel: str, fn: Callable[[Path], None]) -> Callable[[Path], None]:
+    def spoil(case: Path) -> None:
+        p = case / rel
+        p.unlink()
+        fn(p)
+    return spoil
+
+
+def _surface_with(**arrays) -> Callable[[Path], None]:
+    """body.vtp rewritten with other face arrays, points or faces (our sphere, DEMO data)."""
+    def write(p: Path) -> None:
+        from _surfaces import icosphere
+        from _vtkfiles import polydata, write as write_vtk
+
+        X, F = icosphere(0.05, 1, center=(0.4, 0.0, 0.1))
+        X = arrays.get("points", X)
+        F = arrays.get("faces", F)
+        m = len(F)
+        cells = {"p": np.ones(m), "wallShearStress": np.zeros((m, 3)), "yPlus": np.full(m, 40.0)}
+        for k, v in arrays.items():
+            if k in ("points", "faces"):
+                continue
+            if v is None:
+                cells.pop(k)
+            else:
+                cells[k] = v
+        write_vtk(polydata(X, F, cells), p)
+    return _replace_file(BODY, write)
+
+
+def _numbers(b: bytes, points: int | None = None, polys: int | None = None, noise: int = 0) -> bytes:
+    """``b`` with its header's point or face count replaced, and ``noise`` random bytes appended."""
+    import re
+
+    if points is not None:
+        b = re.sub(rb'NumberOfPoints="\s*\d+', f'NumberOfPoints="{points}'.encode(), b)
+    if polys is not None:
+        b = re.sub(rb'NumberOfPolys="\s*\d+', f'NumberOfPolys="{polys}'.encode(), b)
+    return b + np.random.default_rng(7).bytes(noise)
+
+
+BOMB = b"""<?xml version="1.0"?>
+<!DOCTYPE v [<!ENTITY a "aaaaaaaaaa"><!ENTITY b "&a;&a;&a;&a;&a;&a;&a;&a;&a;&a;"><!ENTITY c "&b;&b;&b;&b;&b;&b;&b;&b;&b;&b;">
+<!ENTITY d "&c;&c;&c;&c;&c;&c;&c;&c;&c;&c;"><!ENTITY e "&d;&d;&d;&d;&d;&d;&d;&d;&d;&d;"><!ENTITY f "&e;&e;&e;&e;&e;&e;&e;&e;&e;&e;">
+<!ENTITY g "&f;&f;&f;&f;&f;&f;&f;&f;&f;&f;"><!ENTITY h "&g;&g;&g;&g;&g;&g;&g;&g;&g;&g;">]>
+<VTKFile type="vtkMultiBlockDataSet"><vtkMultiBlockDataSet><DataSet name="&h;" file="x.vtp"/></vtkMultiBlockDataSet></VTKFile>
+"""
+
+
+def vtk_inputs() -> list[Hostile]:
+    """Bad surface files and exports: each through ``postproc sweep`` (the
+    batch goes on; case a flagged) and ``postproc forces`` (exit 2, message)."""
+    import os
+
+    def vtm_text(fn):
+        return _edit_bytes(VTM, lambda b: fn(b.decode()).encode())
+
+    def link_out(case: Path) -> None:
+        (case / BODY).unlink()
+        os.symlink("/dev/zero", case / BODY)
+
+    def vtk_dir_out(case: Path) -> None:
+        import shutil
+
+        shutil.rmtree(case / "VTK")
+        os.symlink("/tmp", case / "VTK")
+
+    def deep_blocks(b: str) -> str:
+        return b.replace("<Block name='boundary'>", "<Block name='boundary'>" + "<Block name='x'>" * 1_000 +
+                         "</Block>" * 1_000)
+
+    def many_blocks(b: str) -> str:
+        return b.replace("</Block>", "".join(f"<DataSet name='p{i}' file='a_100/boundary/body.vtp'/>"
+                                             for i in range(100_001)) + "</Block>", 1)
+
+    # (name, spoiler, sweep flag fragment, forces exit code, forces fragment)
+    spoilers = [
+        ("declares-4e9-points", _edit_bytes(BODY, lambda b: _numbers(b, points=4_000_000_000)[:497]), "unreadable", 2,
+         "header declaring"),
+        ("crashes-reader-points", _edit_bytes(BODY, lambda b: _numbers(b, points=1_000_000_000, noise=400_000)),
+         "unreadable", 2, "crashed the reader"),
+        ("crashes-reader-polys", _edit_bytes(BODY, lambda b: _numbers(b, polys=800_000_000, noise=300_000)),
+         "unreadable", 2, "crashed the reader"),
+        ("truncated", _edit_bytes(BODY, lambda b: b[: len(b) // 2]), "unreadable", 2, "body.vtp"),
+        ("empty", _edit_bytes(BODY, lambda b: b""), "unreadable", 2, "an empty file"),
+        ("garbage", _edit_bytes(BODY, lambda b: np.random.default_rng(1).bytes(5000)), "unreadable", 2, "body.vtp"),
+        ("header-only", _edit_bytes(BODY, lambda b: b[: b.index(b"<AppendedData")]), "unreadable", 2, "body.vtp"),
+        ("xml-entity-bomb", _edit_bytes(BODY, lambda b: BOMB), "unreadable", 2, "body.vtp"),
+        ("nan-pressure", _surface_with(p=np.full(80, np.nan)), "forces-failed", 2, "finite"),
+        ("inf-points", _surface_with(points=np.full((42, 3), np.inf)), "unreadable", 2, "finite point coordinates"),
+        ("face-to-missing-point", _surface_with(faces=np.array([[0, 1, 500]] * 80)), "unreadable", 2, "body.vtp"),
+        ("no-pressure-array", _surface_with(p=None), "forces-failed", 2, "'p'"),
+        ("body-is-a-folder", _replace_file(BODY, lambda p: p.mkdir()), "forces-failed", 2, "body.vtp"),
+        ("body-links-out", link_out, "forces-failed", 2, "inside"),
+        ("vtm-absolute-block", vtm_text(lambda t: t.replace("a_100/boundary/body.vtp", "/etc/passwd")),
+         "forces-failed", 2, "absolute path"),
+        ("vtm-dotdot-block", vtm_text(lambda t: t.replace("a_100/boundary/body.vtp", "../../../b/VTK/a_100/boundary/body.vtp")),
+         "forces-failed", 2, "no '..'"),
+        ("vtm-missing-block", vtm_text(lambda t: t.replace("a_100/boundary/body.vtp", "a_100/boundary/nope.vtp")),
+         "forces-failed", 2, "missing"),
+        ("vtm-nested-vtm", vtm_text(lambda t: t.replace("a_100/boundary/body.vtp", "../a_100.vtm")), "forces-failed", 2,
+         "no '..'"),
+        ("vtm-not-xml", vtm_text(lambda t: "this is not xml <<<"), "forces-failed", 2, "XML"),
+        ("vtm-wrong-root", vtm_text(lambda t: "<?xml version='1.0'?><Other/>"), "forces-failed", 2, "vtkMultiBlockDataSet"),
+        ("vtm-entity-bomb", _edit_bytes(VTM, lambda b: BOMB), "forces-failed", 2, "a_100.vtm"),
+        ("vtm-deep-blocks", vtm_text(deep_blocks), "", 0, "force"),
+        ("vtm-too-many-blocks", vtm_text(many_blocks), "forces-failed", 2, "100,000 blocks"),
+        ("vtm-no-blocks", vtm_text(lambda t: "<VTKFile type='vtkMultiBlockDataSet'><vtkMultiBlockDataSet/></VTKFile>"),
+         "forces-failed", 2, "boundary patches"),
+        ("vtk-folder-links-out", vtk_dir_out, "forces-failed", 2, "VTK"),
+        ("series-file-bomb", lambda c: (c / "VTK" / "a.vtm.series").write_text("[" * 100_000 + "]" * 100_000), "", 0,
+         "force"),
+        ("time-header-nan", vtm_text(lambda t: t.replace("time='100'", "time='nan'")), "", 0, "force"),
+    ]
+    out = []
+    for name, spoil, flag, code, frag in spoilers:
+        sweep_frag = f"a: ok; no coefficients; flags: {flag}" if flag in ("unreadable", "forces-failed") else \
+            f"flags: {flag}" if flag else "2 case(s), 0 flagged"
+        out.append(Hostile(f"vtk-sweep-{name}", "vtk", "postproc", _spoil_sweep(spoil, "sweep"), 0, sweep_frag))
+        out.append(Hostile(f"vtk-forces-{name}", "vtk", "postproc", _spoil_sweep(spoil, "forces"), code, frag))
+    for name, data, frag in [
+        ("legacy-4e9-points", b"# vtk DataFile Version 3.0\nx\nBINARY\nDATASET POLYDATA\nPOINTS 4000000000 float\n" +
+         b"\0" * 200, "header declaring"),
+        ("legacy-garbage", b"# vtk DataFile Version 3.0\nx\nASCII\nDATASET POLYDATA\nPOINTS 3 float\n1 2\n", "x.vtk"),
+        ("legacy-not-vtk", b"hello", "x.vtk"),
+    ]:
+        def build(tmp: Path, data=data) -> list[str]:
+            (tmp / "x.vtk").write_bytes(data)
+            return ["forces", str(tmp / "x.vtk"), "--rho", "1"]
+        out.append(Hostile(f"vtk-forces-{name}", "vtk", "postproc", build, 2, frag))
+    return out
+
+
+# ------------------------------------------------------------------ manifests
+
+def _manifest(edit: Callable[[dict], object], command: str = "sweep", raw: bytes | None = None):
+    def build(tmp: Path) -> list[str]:
+        from builders import edit_manifest, finished_sweep
+
+        root = finished_sweep(tmp / "sw", ["a", "b"], exports=False)
+        if raw is not None:
+            (root / "manifest.json").write_bytes(raw)
+        else:
+            edit_manifest(root, edit)
+        return ["sweep", str(root)] if command == "sweep" else ["run", str(root), "--skip-solver-check"]
+    return build
+
+
+def _case(i: int, **kw):
+    def edit(d):
+        d["cases"][i].update(kw)
+    return edit
+
+
+def _sub(path: str, value):
+    """Set ``cases[0].<path>`` (dotted) to ``value``."""
+    def edit(d):
+        obj = d["cases"][0]
+        *head, last = path.split(".")
+        for k in head:
+            obj = obj[k]
+        obj[last] = value
+    return edit
+
+
+def manifest_inputs() -> list[Hostile]:
+    def drop(path):
+        def edit(d):
+            obj = d["cases"][0]
+            *head, last = path.split(".")
+            for k in head:
+                obj = obj[k]
+            del obj[last]
+        return edit
+
+    m: list[tuple[str, Callable | None, bytes | None, str]] = [
+        ("top-level-list", lambda d: [d], None, "schema"),
+        ("schema-wrong", lambda d: d.update(schema="other"), None, "schema"),
+        ("schema-version-2", lambda d: d.update(schema_version=2), None, "schema_version"),
+        ("cases-string", lambda d: d.update(cases="all"), None, "at cases"),
+        ("cases-dict", lambda d: d.update(cases={"a": {}}), None, "at cases"),
+        ("cases-number", lambda d: d.update(cases=3), None, "at cases"),
+        ("record-string", lambda d: d["cases"].__setitem__(0, "a"), None, "cases[0]"),
+        ("record-list", lambda d: d["cases"].__setitem__(0, [1, 2]), None, "cases[0]"),
+        ("case-id-missing", drop("case_id"), None, "cases[0].case_id"),
+        ("case-id-number", _case(0, case_id=7), None, "cases[0].case_id"),
+        ("case-id-dotdot", _case(0, case_id="../../x"), None, "cases[0].case_id"),
+        ("case-id-absolute", _case(0, case_id="/tmp/x"), None, "cases[0].case_id"),
+        ("case-id-space", _case(0, case_id="a b"), None, "cases[0].case_id"),
+        ("case-id-long", _case(0, case_id="a" * 80), None, "cases[0].case_id"),
+        ("case-id-newline", _case(0, case_id="a\nb"), None, "cases[0].case_id"),
+        ("folder-absolute", _case(0, folder="/etc"), None, "folder"),
+        ("folder-dotdot", _case(0, folder="../../../../etc"), None, "folder"),
+        ("folder-empty", _case(0, folder=""), None, "folder"),
+        ("folder-number", _case(0, folder=3), None, "folder"),
+        ("params-list", _case(0, params=[1]), None, "params"),
+        ("params-yaw-text", _sub("params.yaw_deg", "four"), None, "params.yaw_deg"),
+        ("params-mesh-level-fraction", _sub("params.mesh_level", 1.5), None, "params.mesh_level"),
+        ("params-mesh-level-bool", _sub("params.mesh_level", True), None, "params.mesh_level"),
+        ("reference-missing", drop("reference"), None, "reference"),
+        ("reference-area-zero", _sub("reference.area", 0.0), None, "reference.area"),
+        ("reference-rho-text", _sub("reference.rho", "air"), None, "reference.rho"),
+        ("reference-axle-short", _sub("reference.front_axle", [0.0, 0.0]), None, "reference.front_axle"),
+        ("frames-missing", drop("frames"), None, "frames"),
+        ("rotation-2x2", _sub("frames.rotation_body_to_ground", [[1, 0], [0, 1]]), None, "rotation_body_to_ground"),
+        ("wind-text", _case(0, wind_direction_body="x"), None, "wind_direction_body"),
+        ("patches-list", _case(0, patches=["body"]), None, "patches"),
+        ("patches-body-string", _sub("patches.body", "body"), None, "patches.body"),
+        ("estimated-cells-text", _case(0, estimated_cells="many"), None, "estimated_cells"),
+        ("outputs-escape", _case(0, outputs={"forces": "../../../etc/passwd"}), None, "outputs.forces"),
+        ("duplicate-ids", lambda d: d["cases"].append(dict(d["cases"][0])), None, "cases[2].case_id"),
+        ("duplicate-folders", lambda d: d["cases"][1].update(folder=d["cases"][0]["folder"]), None, "cases[1].folder"),
+        ("nan-literal", None, b'{"schema": "underfloor-manifest", "schema_version": 1, "cases": [NaN]}', "NaN"),
+        ("deep-nesting", None, b"[" * 100_000 + b"]" * 100_000, "nested"),
+        ("huge-integer", None, b'{"schema": "underfloor-manifest", "x": ' + b"9" * 5000 + b"}", "valid JSON"),
+        ("binary", None, b"\xff\xfe\x00" * 50, "UTF-8"),
+        ("empty", None, b"", "valid JSON"),
+    ]
+    out = [Hostile(f"manifest-{n}", "manifest", "postproc", _manifest(e, raw=raw), 2, frag) for n, e, raw, frag in m]
+    for n, e, raw, frag in m[::4]:  # the runner reads the same manifests
+        out.append(Hostile(f"manifest-run-{n}", "manifest", "caseprep", _manifest(e, "run", raw), 2, frag))
+
+    def folder_manifest(tmp: Path) -> list[str]:
+        from builders import finished_sweep
+
+        root = finished_sweep(tmp / "sw", ["a"])
+        (root / "manifest.json").unlink()
+        (root / "manifest.json").mkdir()
+        return ["sweep", str(root)]
+
+    def linked_manifest(tmp: Path) -> list[str]:
+        import os
+
+        from builders import finished_sweep
+
+        root = finished_sweep(tmp / "sw", ["a"])
+        (root / "manifest.json").unlink()
+        os.symlink("/etc/passwd", root / "manifest.json")
+        return ["sweep", str(root)]
+
+    out.append(Hostile("manifest-is-a-folder", "manifest", "postproc", folder_manifest, 2, "manifest.json"))
+    out.append(Hostile("manifest-links-to-passwd", "manifest", "postproc", linked_manifest, 2, "manifest"))
+    return out
+
+
+# ------------------------------------------------------------------ run records
+
+def record_inputs() -> list[Hostile]:
+    def rec(over: dict | None = None, raw: bytes | None = None, folder: bool = False):
+        def spoil(case: Path) -> None:
+            from builders import run_record
+
+            p = case / "underfloor-run.json"
+            if folder:
+                p.unlink()
+                p.mkdir()
+            elif raw is not None:
+                p.write_bytes(raw)
+            else:
+                p.write_text(json.dumps(run_record("a", **(over or {}))))
+        return spoil
+
+    r = [
+        ("iterations-many", rec({"iterations": "many"})), ("cells-negative", rec({"cells": -3})),
+        ("cells-fraction", rec({"cells": 1.5})), ("cells-bool", rec({"cells": True})),
+        ("cells-huge", rec({"cells": 10**30})), ("status-number", rec({"status": 3})),
+        ("stages-string", rec({"stages": "all"})), ("stages-numbers", rec({"stages": [1, 2]})),
+        ("stage-missing-status", rec({"stages": [{"stage": "mesh"}]})),
+        ("stage-extra-key", rec({"stages": [{"stage": "mesh", "status": "ok", "evil": 1}]})),
+        ("layers-string", rec({"layers": "x"})), ("layers-numbers", rec({"layers": [1]})),
+        ("flags-string", rec({"flags": "not-converged"})), ("flags-numbers", rec({"flags": [1]})),
+        ("residuals-list", rec({"final_residuals": [1e-5]})), ("residuals-text", rec({"final_residuals": {"p": "low"}})),
+        ("message-number", rec({"message": 1})), ("mesh-ok-text", rec({"mesh_ok": "yes"})),
+        ("nan-literal", rec(raw=b'{"case_id": "a", "wall_time": NaN}')),
+        ("deep-nesting", rec(raw=b"[" * 100_000 + b"]" * 100_000)), ("binary", rec(raw=b"\xff\xfe" * 40)),
+        ("empty", rec(raw=b"")), ("top-level-list", rec(raw=b"[1, 2]")), ("is-a-folder", rec(folder=True)),
+    ]
+    return [Hostile(f"record-{n}", "record", "postproc", _spoil_sweep(s, "sweep", cases=("a",)), 0,
+                    "flags: record-unreadable") for n, s in r]
+
+
+def all_inputs() -> list[Hostile]:
+    return config_inputs() + geometry_inputs() + name_inputs() + vtk_inputs() + manifest_inputs() + record_inputs()

@@ -26,12 +26,14 @@ sys.path.insert(0, str(Path(__file__).parent))
 
 import corpus  # noqa: E402
 from caseprep.cli import main as caseprep_main  # noqa: E402
+from postproc.cli import main as postproc_main  # noqa: E402
 
 #: seconds one command may take before it counts as a hang (generous: the
 #: machine is shared; the slowest input takes about 3 s on a busy machine)
 TIMEOUT = 60
 
 CAD_INPUTS = corpus.config_inputs() + corpus.geometry_inputs() + corpus.name_inputs()
+RESULT_INPUTS = corpus.vtk_inputs() + corpus.manifest_inputs() + corpus.record_inputs()
 
 
 def test_corpus_is_large_and_names_are_unique():
@@ -41,7 +43,7 @@ def test_corpus_is_large_and_names_are_unique():
 
 
 def all_inputs():
-    return CAD_INPUTS
+    return CAD_INPUTS + RESULT_INPUTS
 
 
 @contextlib.contextmanager
@@ -106,3 +108,33 @@ def test_config_geometry_and_name_inputs(h, sandbox):
     after = _snapshot(sandbox)
     changed = {k for k in set(after) | set(before) if after.get(k) != before.get(k)}
     assert all(k == "out" or k.startswith("out/") for k in changed), sorted(changed)[:5]
+
+
+@pytest.mark.parametrize("h", RESULT_INPUTS, ids=lambda h: h.name)
+def test_result_file_inputs(h, sandbox):
+    """Bad VTK files, manifests and run records through postproc sweep / postproc forces (and caseprep run)."""
+    args = h.build(sandbox / "in")
+    before = _snapshot(sandbox)
+    prog = caseprep_main if h.prog == "caseprep" else postproc_main
+    r = run(prog, args, f"{h.prog} {args[0]} ({h.name})")
+    assert r.exit_code == h.exit_code, r.output
+    assert h.fragment in r.output, r.output
+    after = _snapshot(sandbox)
+    changed = {k for k in set(after) | set(before) if after.get(k) != before.get(k)}
+    # postproc sweep writes its results into the sweep folder (its output folder); nothing else changes
+    allowed = ("in/sw/results", "in/sw/report.html", "in/sw/.underfloor.lock", "in/sw/run_summary.json",
+               "in/sw/cases/a/underfloor-run.json", "in/sw/cases/b/underfloor-run.json")
+    assert all(k == "in/sw" or k.startswith(allowed) for k in changed), sorted(changed)[:8]
+
+
+@pytest.mark.parametrize("name", ["vtk-sweep-crashes-reader-points", "vtk-forces-crashes-reader-polys"])
+def test_native_crashes_as_processes(name, sandbox):
+    """As real processes (a native abort would show as exit code 134 and no message)."""
+    import subprocess
+
+    h = next(x for x in RESULT_INPUTS if x.name == name)
+    args = h.build(sandbox / "in")
+    p = subprocess.run([sys.executable, "-m", f"{h.prog}.cli", *args], capture_output=True, text=True,
+                       timeout=TIMEOUT * 5)
+    out = p.stdout + p.stderr
+    assert p.returncode == h.exit_code and h.fragment in out and "Traceback" not in out, (p.returncode, out[-800:])

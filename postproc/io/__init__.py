@@ -1,0 +1,1 @@
+"""Readers of postproc's inputs (results tables, configs)."""

@@ -1,0 +1,1 @@
+"""Pure numeric kernels (numpy/scipy only)."""

@@ -1,0 +1,1 @@
+"""Orchestration: one case or one sweep from inputs to result data."""

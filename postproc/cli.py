@@ -146,6 +146,62 @@ def sweep_cmd(sweep_dir: str, out_dir: str | None, title: str | None, force: boo
                "and safe; defer to local rules and qualified engineers.")
 
 
+# --------------------------------------------------------------------------- analyse
+
+def _print_analysis(d: dict, path) -> None:
+    def f(x, nd=4):
+        return "—" if x is None else f"{x:.{nd}g}"
+    r = d["ranking"]
+    dec = r["decision"]
+    click.echo(f"source: {d['source']['path']} ({d['source']['rows']} rows, {d['source']['usable_rows']} usable); "
+               f"basis: {r['basis']}; {len(r['common_points'])} of {len(r['envelope'])} points common to all variants")
+    click.echo(f"decision: {dec['status']}: {dec['message']}")
+    for v in r["variants"]:
+        click.echo(f"  {v['rank'] or '-'}. {v['variant']}: score {f(v['score'], 3)} ± {f(v['score_uncertainty'], 2)}"
+                   f"{'' if v['complete'] else '  INCOMPLETE'}{'' if v['eligible'] else '  violates a constraint'}"
+                   + (f"  tie with {', '.join(v['tie_with'])}" if v["tie_with"] else ""))
+    for m in d["maps"]:
+        c = m["coefficients"]["cl"]
+        click.echo(f"map {m['variant']} yaw {m['yaw_deg']:g} {m['speed']:g} m/s level {m['mesh_level']}: "
+                   + (f"{c['model']}, LOO RMS {f(c['loo_rms'], 2)}" if c["status"] == "ok" else f"refused: {c['reason']}"))
+    for p in d["peaks"]:
+        if p["design_line"] or p["stall"]:
+            click.echo(f"peak {p['variant']} rake {1000 * p['rake']:.1f} mm: stall {p['stall']}, bracketed "
+                       f"{p['peak_bracketed']}, peak at {f(None if p['peak_h'] is None else 1000 * p['peak_h'], 3)} mm"
+                       + (f", design margin {1000 * p['margin']:+.1f} mm ({p['margin_bound']})" if p["margin"] is not None else ""))
+    for p in d["platform"]:
+        click.echo(f"platform {p['variant']}: " + (f"bottoming {f(p['bottoming_speed'], 3)} m/s ({p['bottoming_mode']}), "
+                   f"stall crossing {p['stall_crossing']}" if p["status"] == "ok" else f"refused: {p['reason']}"))
+    for n in d["notes"]:
+        click.echo(f"note: {n}")
+    click.echo(f"written: {path}")
+    click.echo("Caution: " + d["caution"])
+
+
+@main.command("analyse")
+@click.argument("source", type=click.Path())
+@click.option("-c", "--config", "config", type=click.Path(dir_okay=False),
+              help="Analysis settings (ANALYSIS.toml, or a sweep config with an [analysis] table). "
+                   "Default: ANALYSIS.toml beside SOURCE, else built-in defaults.")
+@click.option("-o", "--out", "out_dir", type=click.Path(file_okay=False),
+              help="Folder for analysis.json (default: the sweep folder, or the CSV's folder).")
+@click.option("--json", "as_json", is_flag=True, help="Print analysis.json to stdout instead of the summary.")
+@click.option("--force", is_flag=True, help="Replace an existing analysis.json.")
+def analyse_cmd(source, config, out_dir, as_json, force) -> None:
+    """Aero maps with error bars, peak and stall, the platform under load and
+    an honest ranking from SOURCE: a sweep folder (after `postproc sweep`)
+    or a results CSV (columns in the README). Writes analysis.json."""
+    import json
+
+    from .pipelines.analysis import run_analysis
+
+    data, path = run_analysis(source, config, out_dir, force)
+    if as_json:
+        click.echo(json.dumps(data, indent=2))
+    else:
+        _print_analysis(data, path)
+
+
 # ---------------------------------------------------------------------------
 # flow structures: vortices, diffuser, underbody, walls (postproc.flowreport)
 # ---------------------------------------------------------------------------

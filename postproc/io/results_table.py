@@ -102,6 +102,8 @@ def _cell(raw: Any, name: str, spec: Column, flagged: bool, where: Callable[[str
     """One parsed cell; raises UserError naming ``where(name)``."""
     text = "" if raw is None else (raw.strip() if isinstance(raw, str) else raw)
     if spec.kind == "text":
+        if not spec.required and text == "":
+            return None
         if not isinstance(text, str) or not text:
             raise UserError(expected=f"a non-empty {spec.meaning}", got=raw, file=where(name), key=name,
                             fix="fill the cell")

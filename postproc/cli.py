@@ -166,7 +166,7 @@ def _print_analysis(d: dict, path) -> None:
                    + (f"{c['model']}, LOO RMS {f(c['loo_rms'], 2)}" if c["status"] == "ok" else f"refused: {c['reason']}"))
     for p in d["peaks"]:
         if p["design_line"] or p["stall"]:
-            click.echo(f"peak {p['variant']} rake {1000 * p['rake']:.1f} mm: stall {p['stall']}, bracketed "
+            click.echo(f"peak {p['variant']} yaw {p['yaw_deg']:g} rake {1000 * p['rake']:.1f} mm: stall {p['stall']}, bracketed "
                        f"{p['peak_bracketed']}, peak at {f(None if p['peak_h'] is None else 1000 * p['peak_h'], 3)} mm"
                        + (f", design margin {1000 * p['margin']:+.1f} mm ({p['margin_bound']})" if p["margin"] is not None else ""))
     for p in d["platform"]:

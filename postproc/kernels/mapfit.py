@@ -370,8 +370,8 @@ def fit_map(hf, hr, values, options: MapOptions = MapOptions()) -> MapFit:
     cands.append(_fit_tps(u, y, options))
     chosen = _choose(cands, float(np.max(np.abs(y))) or 1.0)
     if chosen is None:
-        reasons = "; ".join(f"{c.model}: {c.reason}" for c in cands if c.model != "tps" or options.smooth)
-        return MapFit(FitStatus.REFUSED, f"no model the data can carry ({reasons})", design, tuple(cands), None,
+        return MapFit(FitStatus.REFUSED, f"no model the data can carry: {cands[0].model}: {cands[0].reason}",
+                      design, tuple(cands), None,
                       confidence=options.confidence)
     hull = None
     if design.dim == 2:

@@ -176,7 +176,8 @@ def _design_rake(opts: AnalysisOptions) -> float | None:
 
 def find_peaks(points: list[OpPoint], levels: dict[str, int], opts: AnalysisOptions) -> list[dict]:
     """Peak and stall per (variant, yaw, speed, level) and line of constant
-    rake h_r − h_f (0.1 mm bins); the line nearest the design rake carries
+    rake h_r − h_f (0.1 mm bins), with a significant drop larger than √2 × the
+    largest iterative uncertainty on the line; the line nearest the design rake carries
     the design margin. Flagged points below the lowest usable ride height
     are listed: a floor often fails exactly where it stalls."""
     lines: dict[tuple, list[OpPoint]] = {}
@@ -195,7 +196,9 @@ def find_peaks(points: list[OpPoint], levels: dict[str, int], opts: AnalysisOpti
         for k in sorted(keys):
             pts = sorted(lines[k], key=lambda p: p.h_f)
             ok = [p for p in pts if p.usable]
-            noise = math.sqrt(2) * max((p.u("cl") for p in ok), default=0.0)
+            # a drop between neighbours is significant beyond the points' random scatter (iterative spread,
+            # repeats); mesh error is systematic along a line and the map-fit error is not the data's
+            noise = math.sqrt(2) * max((p.u_iter.get("cl", 0.0) for p in ok), default=0.0)
             design = opts.design_front if k == nearest else None
             r = find_peak([p.h_f for p in ok], [-p.values["cl"] for p in ok], noise, design)
             low = min((p.h_f for p in ok), default=math.inf)

@@ -48,7 +48,7 @@ COLUMNS: Mapping[str, Column] = MappingProxyType({
     "ride_height_rear": Column("m", True, "float", "rear ride height at the rear reference point"),
     "yaw_deg": Column("deg", True, "float", "yaw angle β"),
     "speed": Column("m/s", True, "float", "air (road) speed of the coefficients' dynamic pressure"),
-    "mesh_level": Column("—", True, "int", "mesh level (0 = base; CSV from tests: 0)"),
+    "mesh_level": Column("—", True, "int", "mesh level m (cell size ∝ √2^(−m); 0 for tunnel or track data)"),
     "cl": Column("—", True, "float", "lift coefficient (downforce = −C_L)"),
     "cd": Column("—", True, "float", "drag coefficient"),
     "cs": Column("—", True, "float", "side-force coefficient", may_be_empty=True),

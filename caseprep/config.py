@@ -252,6 +252,8 @@ class Config(_M):
     mesh: MeshCfg = MeshCfg()
     domain: DomainCfg = DomainCfg()
     solver: SolverCfg = SolverCfg()
+    # settings of `postproc analyse` (read by postproc.io.analysis_config; caseprep only carries them)
+    analysis: dict[str, Any] | None = None
     _file: str = PrivateAttr(default="config.toml")
 
     @property

@@ -162,3 +162,33 @@ def test_output_folder_gets_nothing_but_analysis_json(tmp_path):
     r = _run([src / "results.csv"])
     assert r.exit_code == 0, r.output
     assert _files(src) == {"results.csv", "analysis.json"}    # no temp files left behind
+
+
+def test_analysis_table_inside_a_sweep_config(tmp_path):
+    # caseprep accepts (and ignores) an [analysis] table; postproc reads it
+    from caseprep.config import load_config
+    from postproc.io.analysis_config import read_analysis_config
+
+    src = REPO / "example_cases" / "floor_study"
+    shutil.copytree(src, tmp_path / "fs")
+    cfg = tmp_path / "fs" / "sweep.toml"
+    cfg.write_text(cfg.read_text() + "\n[analysis.ranking.weights]\ndownforce = 1.0\n"
+                   "[analysis.design]\nride_height_front = 0.025\n")
+    load_config(cfg)
+    a = read_analysis_config(cfg)
+    assert dict(a.weights) == {"downforce": 1.0} and a.design_front == 0.025
+
+
+def test_settings_errors_name_the_key(tmp_path):
+    from caseprep.errors import UserError
+    from postproc.io.analysis_config import read_analysis_config
+
+    cases = {"[platfrom]\nspeeds = [1.0]\n": "Did you mean 'platform'",
+             "[design]\nride_height_front = 25\n": "design.ride_height_front",
+             "[maps]\nconfidence = 1.5\n": "maps.confidence",
+             "[maps]\nmesh_level = 'each'\n": "Did you mean 'mesh_levels'"}
+    for text, expected in cases.items():
+        p = tmp_path / "ANALYSIS.toml"
+        p.write_text(text)
+        with pytest.raises(UserError, match=expected.replace("(", r"\(")):
+            read_analysis_config(p)

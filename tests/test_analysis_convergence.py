@@ -1,0 +1,59 @@
+"""The convergence rule in coefficient counts (every coefficient against
+its own tolerance over the settled window)."""
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from postproc.convergence import assess
+from postproc.kernels.settled import judge_coefficients, window_stats
+
+N = 300
+T = np.arange(N)
+# a diffuser-floor case: −C_L 1.6, C_D 0.26, C_S 0.05 (the numbers of the rule's docstring; invented)
+BASE = {"cl": -1.6, "cd": 0.26, "cs": 0.05, "cl_front": -0.7, "cl_rear": -0.9, "cn": -0.02}
+
+
+def _steady(osc=0.001):
+    """Each coefficient with a 0.1 % oscillation (5 whole periods over the window)."""
+    return {k: v * (1 + osc * np.sin(2 * np.pi * 5 * T / N)) for k, v in BASE.items()}
+
+
+def test_side_force_wandering_3_percent_is_not_converged():
+    s = _steady()
+    s["cs"] = BASE["cs"] * (1 + 0.03 * np.linspace(-1, 1, N))    # ±3 % drift across the window
+    r = judge_coefficients(s)
+    assert r["series"]["cs"]["verdict"] == "diverging" and r["verdict"] == "diverging"
+    assert r["series"]["cs"]["drift"] == pytest.approx(0.06 * BASE["cs"], rel=1e-9)
+    # the loose rule (each force component within 1 % of the resultant) calls the same monitor
+    # converged: the side force is 3 % of a resultant ≈ 1.62 — why a rule in counts is needed
+    loose = assess(s, window=N, floor=float(np.hypot(BASE["cl"], BASE["cd"])), drift_tol=0.01, std_tol=0.01)
+    assert loose.series["cs"].verdict == "converged"
+
+
+def test_a_0p1_percent_oscillation_is_converged_and_reports_the_window_mean():
+    r = judge_coefficients(_steady())
+    assert r["verdict"] == "converged"
+    for k, v in BASE.items():
+        # a whole number of sine periods: the window mean is the offset exactly
+        assert r["means"][k] == pytest.approx(v, abs=1e-12)
+        assert r["stds"][k] == pytest.approx(abs(v) * 0.001 / np.sqrt(2), rel=1e-9)   # std of a sine: A/√2
+    assert r["means"]["balance"] == pytest.approx(0.7 / 1.6, abs=1e-12)
+
+
+def test_balance_is_judged_per_sample():
+    s = _steady(0.0)
+    s["cl_front"] = BASE["cl_front"] + 0.004 * np.linspace(-1, 1, N)   # each axle within 0.005 …
+    s["cl_rear"] = BASE["cl_rear"] - 0.004 * np.linspace(-1, 1, N)
+    r = judge_coefficients(s)
+    assert r["series"]["cl_front"]["verdict"] == "diverging"            # … drift 0.008 > 0.005
+    assert abs(r["series"]["balance"]["drift"]) == pytest.approx(0.008 / 1.6, rel=1e-6)
+    assert r["series"]["balance"]["verdict"] == "diverging"             # 0.005 > 0.003
+
+
+def test_bad_windows_are_refused():
+    with pytest.raises(ValueError, match="at least 3"):
+        window_stats("cl", [1.0, 1.0], 0.005)
+    with pytest.raises(KeyError, match="cx"):
+        judge_coefficients({"cx": np.ones(10)})
+    assert window_stats("cl", [1.0, np.nan, 1.0], 0.005).verdict == "diverging"

@@ -57,3 +57,26 @@ def test_bad_windows_are_refused():
     with pytest.raises(KeyError, match="cx"):
         judge_coefficients({"cx": np.ones(10)})
     assert window_stats("cl", [1.0, np.nan, 1.0], 0.005).verdict == "diverging"
+
+
+def test_monitor_series_reduce_like_the_export():
+    # a monitor holding the same loads every sample gives, per sample, exactly the
+    # coefficients of the export's reduction (postproc.coefficients) — one definition
+    from postproc import coefficients as co
+    from postproc.pipelines.monitor_coefficients import _result, coefficient_series, judge_monitor
+
+    ref = co.ReferenceValues(area=1.2, length=2.0, rho=1.2, speed=40.0, moment_point=(1.0, 0.0, 0.0),
+                             front_axle=(0.3, 0.0, 0.1), rear_axle=(2.8, 0.0, 0.1))
+    F, M = np.array([120.0, 15.0, -1800.0]), np.array([30.0, -250.0, 12.0])
+    n = 40
+    mon = {f"force.total_{c}": np.full(n, F[i]) for i, c in enumerate("xyz")}
+    mon.update({f"moment.total_{c}": np.full(n, M[i]) for i, c in enumerate("xyz")})
+    s = coefficient_series(mon, ref, window=20)
+    r = _result(F, M, np.array(ref.moment_point))
+    c, b = co.coefficients(r, ref), co.balance(r, ref)
+    assert len(s["cl"]) == 20
+    assert s["cl"][0] == pytest.approx(c.lift) and s["cd"][0] == pytest.approx(c.drag)
+    assert s["cn"][0] == pytest.approx(c.yawing)
+    assert s["cl_front"][0] == pytest.approx(b.c_lift_front) and s["cl_rear"][0] == pytest.approx(b.c_lift_rear)
+    v = judge_monitor(mon, ref, window=20)
+    assert v["verdict"] == "converged" and v["means"]["cl"] == pytest.approx(c.lift)

@@ -1,0 +1,62 @@
+"""The runtime force monitor as coefficient series, judged by the
+coefficient-count convergence rule (``postproc.kernels.settled``).
+
+The monitor (``read_monitor``) gives the total force (N) and the moment
+(N·m) about the manifest's moment point in the body (mesh) frame per
+iteration. Each sample of the settling window is reduced exactly like the
+VTK export (``postproc.coefficients``: wind-axes coefficients and the axle
+lift coefficients from statics about the wheelbase midpoint at ground
+level), so the window means are directly comparable with — and replace —
+the last-iteration values.
+"""
+from __future__ import annotations
+
+from typing import Mapping
+
+import numpy as np
+
+from .. import coefficients as co
+from ..forces import ForceResult
+from ..kernels.settled import DEFAULT_TOLERANCES, judge_coefficients
+
+
+def _result(force: np.ndarray, moment: np.ndarray, about: np.ndarray) -> ForceResult:
+    z = np.zeros(3)
+    return ForceResult(force=force, force_pressure=z, force_viscous=z, moment=moment, moment_pressure=z,
+                       moment_viscous=z, area=0.0, about=about, n_faces=0)
+
+
+def coefficient_series(monitor: Mapping[str, np.ndarray], ref: co.ReferenceValues, placement=None,
+                       wind_direction_body=None, window: int | None = None) -> dict[str, np.ndarray]:
+    """Coefficient series (``cl``, ``cd``, ``cs``, ``cn`` and, with axles,
+    ``cl_front``, ``cl_rear``) of the last ``window`` monitor samples (all
+    when None). Needs ``force.total_x/y/z``; without ``moment.total_*`` the
+    moment-based series are left out. Raises KeyError when the forces are missing."""
+    F = np.stack([np.asarray(monitor[f"force.total_{c}"], dtype=float) for c in "xyz"], axis=1)
+    has_m = all(f"moment.total_{c}" in monitor for c in "xyz")
+    M = np.stack([np.asarray(monitor[f"moment.total_{c}"], dtype=float) for c in "xyz"], axis=1) if has_m else None
+    if window is not None:
+        F = F[-window:]
+        M = None if M is None else M[-window:]
+    about = np.asarray(ref.moment_point, dtype=float)
+    names = ["cl", "cd", "cs"] + (["cn"] if has_m else []) + \
+        (["cl_front", "cl_rear"] if has_m and ref.front_axle is not None and ref.rear_axle is not None else [])
+    out = {k: np.empty(len(F)) for k in names}
+    for i in range(len(F)):
+        r = _result(F[i], M[i] if M is not None else np.zeros(3), about)
+        c = co.coefficients(r, ref, placement, wind_direction_body)
+        out["cl"][i], out["cd"][i], out["cs"][i] = c.lift, c.drag, c.side
+        if "cn" in out:
+            out["cn"][i] = c.yawing
+        if "cl_front" in out:
+            b = co.balance(r, ref, placement)
+            out["cl_front"][i], out["cl_rear"][i] = b.c_lift_front, b.c_lift_rear
+    return out
+
+
+def judge_monitor(monitor: Mapping[str, np.ndarray], ref: co.ReferenceValues, placement=None,
+                  wind_direction_body=None, window: int | None = None,
+                  tolerances: Mapping[str, float] = DEFAULT_TOLERANCES) -> dict:
+    """The coefficient-count verdict of a monitor over ``window`` samples,
+    with window means and spreads (``postproc.kernels.settled``)."""
+    return judge_coefficients(coefficient_series(monitor, ref, placement, wind_direction_body, window), tolerances)

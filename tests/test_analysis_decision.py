@@ -148,3 +148,11 @@ def test_pair_within_the_gci_is_a_tie(tmp_path):
     q = tmp_path / "fine.csv"
     q.write_text("\n".join([head, *_mesh_rows("A", 0.0, (2,)), *_mesh_rows("B", 0.005, (2,))]) + "\n")
     assert analyse_table(read_results_csv(q), cfg)["ranking"]["decision"]["winner"] == "B"
+
+
+def test_yaw_retention_on_matched_ride_heights():
+    # yawed runs only at the highest ride height: retention compares them with the
+    # unyawed run at that same height, not with the mean over every height
+    pts = _pts([1.30, 1.20, 1.00]) + [PointData(point_key(0.04, 0.05, 4.0, 40.0), (), -0.90, 0.40, -0.405, -0.495)]
+    res = decide({"A": pts}, DecisionOptions(weights={"yaw_retention": 1.0}))
+    assert res["variants"][0]["metrics"]["yaw_retention"]["value"] == pytest.approx(0.90 / 1.00)

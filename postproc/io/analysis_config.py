@@ -30,6 +30,7 @@ KEYS: Mapping[str, tuple[str, str]] = MappingProxyType({
     "maps.margin": ("—", "points required beyond the number of model terms"),
     "maps.smooth": ("—", "also try a thin-plate spline (chosen only if its leave-one-out error is lower)"),
     "maps.smooth_min_points": ("—", "fewest distinct points for the spline (2-D designs)"),
+    "maps.smooth_max_points": ("—", "most points for the spline (its leave-one-out search grows as n⁴)"),
     "maps.confidence": ("—", "confidence of the prediction intervals (0 < c < 1)"),
     "maps.queries": ("m", "list of [h_f, h_r] points at which to report the maps with prediction intervals"),
     "maps.grid": ("—", "points per axis of the map grid written for plotting"),
@@ -132,12 +133,12 @@ def _maps(d: dict, file: str) -> tuple[dict, tuple, int]:
     out: dict[str, Any] = {}
     if "mesh_levels" in d and d["mesh_levels"] not in ("finest", "each"):
         raise UserError(expected='"finest" or "each"', got=d["mesh_levels"], file=file, key="maps.mesh_levels")
-    for k in ("max_degree", "margin", "smooth_min_points"):
+    for k, lo, hi in (("max_degree", 1, 6), ("margin", 0, 100), ("smooth_min_points", 3, 1000),
+                      ("smooth_max_points", 3, 2000)):
         if k in d:
             v = d[k]
-            if isinstance(v, bool) or not isinstance(v, int) or v < (1 if k == "max_degree" else 0) or v > 100:
-                raise UserError(expected="a whole number (1–100)" if k == "max_degree" else "a whole number (0–100)",
-                                got=v, file=file, key=f"maps.{k}")
+            if isinstance(v, bool) or not isinstance(v, int) or not lo <= v <= hi:
+                raise UserError(expected=f"a whole number ({lo}–{hi})", got=v, file=file, key=f"maps.{k}")
             out[k] = v
     if "smooth" in d:
         if not isinstance(d["smooth"], bool):

@@ -17,7 +17,8 @@ source):
 * **Metrics** (:data:`METRICS`): mean downforce, mean drag, efficiency
   (−ΣC_L/ΣC_D), balance range (max − min of the front share of downforce
   C_LF/(C_LF + C_LR) over the common points), yaw retention (mean downforce
-  at the largest |yaw| over that at the smallest) and downforce spread
+  at the largest |yaw| over that at the smallest, on the ride heights run at
+  both) and downforce spread
   ((max − min)/mean). Each carries a standard uncertainty propagated to
   first order (GUM, JCGM 100:2008, §5.1) from the per-point uncertainties,
   taking the errors of one variant's points as fully correlated (the mesh
@@ -61,7 +62,7 @@ METRICS: Mapping[str, Metric] = MappingProxyType({
     "drag": Metric(-1, True, "coef", "mean drag C_D (C_D·A in m² when the areas differ)"),
     "efficiency": Metric(+1, True, "—", "lift-to-drag ratio −ΣC_L/ΣC_D"),
     "balance_range": Metric(-1, False, "—", "max − min of the aero balance (front share of downforce)"),
-    "yaw_retention": Metric(+1, False, "—", "mean downforce at the largest |yaw| / at the smallest"),
+    "yaw_retention": Metric(+1, False, "—", "downforce at the largest |yaw| / at the smallest (same ride heights)"),
     "downforce_spread": Metric(-1, False, "—", "(max − min)/mean of downforce over the common points"),
 })
 DEFAULT_WEIGHTS: Mapping[str, float] = MappingProxyType({
@@ -133,6 +134,22 @@ def _ratio(a: float, ua: float, b: float, ub: float) -> tuple[float | None, floa
     return r, abs(r) * math.hypot(ua / a, ub / b)
 
 
+def _yaw_retention(pts: list[PointData], L: np.ndarray, uL: np.ndarray) -> tuple[float | None, float | None]:
+    """Downforce at the largest |yaw| over that at the smallest, on the ride
+    heights and speeds tested at both (matched pairs, so the ride-height mix
+    cannot masquerade as a yaw effect)."""
+    yaw = np.abs(np.array([p.point[2] for p in pts]))
+    if not yaw.max() > yaw.min():
+        return None, None
+    base = {(p.point[0], p.point[1], p.point[3]): i for i, p in enumerate(pts) if np.isclose(yaw[i], yaw.min())}
+    pairs = [(i, base[(p.point[0], p.point[1], p.point[3])]) for i, p in enumerate(pts)
+             if np.isclose(yaw[i], yaw.max()) and (p.point[0], p.point[1], p.point[3]) in base]
+    if not pairs:
+        return None, None
+    hi, lo = np.array([a for a, _ in pairs]), np.array([b for _, b in pairs])
+    return _ratio(float(L[hi].mean()), float(uL[hi].mean()), float(L[lo].mean()), float(uL[lo].mean()))
+
+
 def variant_metrics(pts: list[PointData], factor: float) -> dict[str, tuple[float | None, float | None]]:
     """Metric → (value, standard uncertainty) of one variant on its common
     points; ``factor`` multiplies C_L and C_D (the reference area on the area
@@ -151,11 +168,7 @@ def variant_metrics(pts: list[PointData], factor: float) -> dict[str, tuple[floa
     if np.all(np.isfinite(b)):
         i, j = int(np.argmax(b)), int(np.argmin(b))
         out["balance_range"] = (float(b[i] - b[j]), float(math.hypot(ub[i], ub[j])) if i != j else 0.0)
-    yaw = np.abs(np.array([p.point[2] for p in pts]))
-    if yaw.max() > yaw.min():
-        hi, lo = np.isclose(yaw, yaw.max()), np.isclose(yaw, yaw.min())
-        out["yaw_retention"] = _ratio(float(L[hi].mean()), float(uL[hi].mean()), float(L[lo].mean()),
-                                      float(uL[lo].mean()))
+    out["yaw_retention"] = _yaw_retention(pts, L, uL)
     m = float(L.mean())
     if abs(m) > 1e-12:
         i, j = int(np.argmax(L)), int(np.argmin(L))

@@ -59,13 +59,15 @@ class MapOptions:
     """How maps are fitted. ``margin``: points ≥ terms + margin;
     ``max_degree``: highest polynomial degree tried; ``smooth``: also try a
     thin-plate spline when there are ≥ ``smooth_min_points`` distinct points
-    (2-D designs; half of it, at least 6, on a line); ``confidence`` of the
+    (2-D designs; half of it, at least 6, on a line) and no more than
+    ``smooth_max_points``; ``confidence`` of the
     prediction intervals (fraction)."""
 
     margin: int = 3
     max_degree: int = 3
     smooth: bool = True
     smooth_min_points: int = 12
+    smooth_max_points: int = 200   # the leave-one-out smoothing search costs O(n⁴)
     confidence: float = 0.95
     rank_tol: float = 1e-9
 
@@ -205,6 +207,9 @@ def _fit_tps(u: np.ndarray, y: np.ndarray, opts: MapOptions) -> Candidate:
         return Candidate("tps", n, FitStatus.REFUSED, "smooth models switched off")
     if n < need:
         return Candidate("tps", n, FitStatus.REFUSED, f"{n} points: a spline needs at least {need}")
+    if n > opts.smooth_max_points:
+        return Candidate("tps", n, FitStatus.REFUSED, f"{n} points: above {opts.smooth_max_points}, the spline's "
+                         "leave-one-out search is too slow (raise maps.smooth_max_points)")
     best = None
     for lam in SMOOTHING_GRID:
         err = np.empty(n)

@@ -384,5 +384,9 @@ def run_analysis(source: str | Path, config: str | Path | None = None, out_dir: 
         raise UserError(expected="an output folder", got=f"{out} (a file)", key="-o/--out")
     data = analyse_table(table, cfg)
     json.dumps(data, allow_nan=False)   # strict JSON before anything is written
-    write_json_atomic(target, data)
+    try:
+        write_json_atomic(target, data)
+    except OSError as exc:
+        raise UserError(expected="a writable output folder", got=f"{out} ({exc.strerror})", key="-o/--out",
+                        fix="choose a folder you can write to") from None
     return data, target

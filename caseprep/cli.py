@@ -10,19 +10,11 @@ import sys
 
 import click
 
-from . import __version__
-from .errors import UserError
-
-
-class FriendlyGroup(click.Group):
-    """A click group that turns :class:`UserError` into a message and exit code 2."""
-
-    def invoke(self, ctx: click.Context):
-        try:
-            return super().invoke(ctx)
-        except UserError as exc:
-            click.echo(f"error: {exc}", err=True)
-            ctx.exit(2)
+from caseprep.contract import __version__
+from caseprep.contract.cli_common import FriendlyGroup
+from caseprep.contract.convergence import DEFAULT_OPTIONS, ConvergenceOptions
+from caseprep.contract.errors import UserError
+from caseprep.contract.records import flag_meaning
 
 
 @click.group(cls=FriendlyGroup, context_settings={"help_option_names": ["-h", "--help"]})
@@ -38,7 +30,7 @@ def main() -> None:
 
 def _progress_printer(quiet: bool):
     """A progress callback printing one line per event (stderr-free, stdout)."""
-    from .runner import format_duration
+    from caseprep.run.runner import format_duration
 
     def show(ev) -> None:
         head = f"[{ev.index}/{ev.total}] {ev.case_id}"
@@ -74,7 +66,7 @@ def _progress_printer(quiet: bool):
 @click.option("--stage", "stages", multiple=True, type=click.Choice(["mesh", "solve", "export"]),
               help="Run only this stage (repeatable); default all three.")
 @click.option("--force", is_flag=True, help="Run stages again even if they are marked done.")
-@click.option("--residual-tol", type=float, default=1e-3, show_default=True,
+@click.option("--residual-tol", type=float, default=DEFAULT_OPTIONS.residual_tol, show_default=True,
               help="Residual below which a run that used its whole budget counts as converged; above it the "
                    "force monitor must have settled (see the README's convergence rule).")
 @click.option("-q", "--quiet", is_flag=True, help="Print only case starts, failures and results.")
@@ -90,7 +82,7 @@ def run_cmd(sweep_dir, jobs, ranks, only, stages, force, residual_tol, quiet, sk
     import os
     import time
 
-    from . import runner
+    from caseprep.run import runner
 
     if not skip_solver_check:
         missing = runner.missing_solver_binaries()
@@ -102,7 +94,7 @@ def run_cmd(sweep_dir, jobs, ranks, only, stages, force, residual_tol, quiet, sk
         click.echo(f"note: {jobs} jobs × {ranks} ranks = {jobs * ranks} processes on {cores} cores; "
                    "cases will compete for the processors", err=True)
     t0 = time.monotonic()
-    opts = runner.RunOptions(residual_tol=residual_tol)
+    opts = runner.RunOptions(convergence=ConvergenceOptions(residual_tol=residual_tol))
     try:
         records = runner.run_sweep(sweep_dir, jobs=jobs, ranks=ranks, stages=list(stages) or None,
                                    only=list(only) or None, force=force, progress=_progress_printer(quiet),
@@ -122,7 +114,7 @@ def run_cmd(sweep_dir, jobs, ranks, only, stages, force, residual_tol, quiet, sk
     flagged = [r for r in records if r.flags and not r.failed]
     click.echo("")
     for f in sorted({f for r in records for f in r.flags}):
-        click.echo(f"  {f}: {runner.FLAG_TEXT.get(f, f)}")
+        click.echo(f"  {f}: {flag_meaning(f)}")
     click.echo(f"{len(records)} case(s) in {runner.format_duration(dt)}: {len(records) - len(failed)} ran, "
                f"{len(failed)} failed, {len(flagged)} flagged. Records: {sweep_dir}/run_summary.json")
     if failed:
@@ -144,9 +136,9 @@ def write_cmd(config: str, out_dir: str, force: bool, fidelity: str | None) -> N
     Existing identical cases are left alone and new ones added; a case that
     exists with different content is refused unless --force is given.
     """
-    from .config import load_config, with_fidelity  # planning half: loaded only when needed
-    from .planner import plan
-    from .writer import write_sweep
+    from caseprep.config.schema import load_config, with_fidelity  # planning half: loaded only when needed
+    from caseprep.planning.planner import plan
+    from caseprep.casefiles.writer import write_sweep
 
     cfg = with_fidelity(load_config(config), fidelity)
     specs = plan(cfg)
@@ -181,9 +173,9 @@ def plan_cmd(config: str) -> None:
     ride heights mm, pitch and yaw deg, speed m/s, mesh level, minimum ground
     clearance mm and where along the body (% of length from the nose),
     blockage %, estimated cells). Writes nothing."""
-    from .config import load_config
-    from .planner import TABLE_COLUMNS, plan_all, table_rows
-    from .errors import UserErrors
+    from caseprep.config.schema import load_config
+    from caseprep.planning.planner import TABLE_COLUMNS, plan_all, table_rows
+    from caseprep.contract.errors import UserErrors
 
     cfg = load_config(config)
     result = plan_all(cfg)
@@ -204,8 +196,8 @@ def plan_cmd(config: str) -> None:
 def check_cmd(config: str) -> None:
     """Validate CONFIG, every geometry file and every case of the sweep, and
     report all problems at once (exit code 2 when there are any)."""
-    from .planner import check
-    from .errors import UserErrors
+    from caseprep.planning.planner import check
+    from caseprep.contract.errors import UserErrors
 
     result = check(config)
     for w in result.warnings:

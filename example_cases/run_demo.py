@@ -11,7 +11,7 @@ Steps
 2. Run every case with the case runner (1 case at a time, 2 MPI ranks by
    default), printing progress. A case that fails is reported with the tail
    of its log; the others go on.
-3. Post-process every case (postproc.sweep: forces, coefficients, aero
+3. Post-process every case (postproc.pipelines.sweep: forces, coefficients, aero
    balance, convergence, the runner's flags) and write OUT/results.csv,
    OUT/results.json, OUT/results/<case>.json and OUT/report.html (the
    self-contained sweep report with the ranking and the safety caution);
@@ -33,10 +33,12 @@ ROOT = HERE.parent
 if str(ROOT) not in sys.path:  # running from a source tree without installing
     sys.path.insert(0, str(ROOT))
 
-from caseprep import runner  # noqa: E402
-from caseprep.errors import UserError  # noqa: E402
-from caseprep.manifest import read_manifest  # noqa: E402
-from postproc.sweep import postprocess_sweep  # noqa: E402
+from caseprep.run import runner  # noqa: E402
+from caseprep.contract.errors import UserError  # noqa: E402
+from caseprep.contract.manifest import read_manifest  # noqa: E402
+from caseprep.contract.records import SUMMARY_NAME  # noqa: E402
+from postproc.pipelines.sweep import postprocess_sweep  # noqa: E402
+from postproc.report.sweep_report import write_report  # noqa: E402
 
 DEFAULT_CONFIG = HERE / "floor_study" / "sweep.toml"
 SAFETY = ("CFD is an approximation: the numbers depend on the mesh, the turbulence model and the set-up. "
@@ -51,9 +53,9 @@ def say(msg: str = "") -> None:
 def write_sweep(config_path: Path, sweep_dir: Path, fidelity: str, force: bool) -> None:
     """Plan and write the sweep with the caseprep Python API."""
     try:
-        from caseprep.config import load_config, with_fidelity
-        from caseprep.planner import plan
-        from caseprep.writer import write_sweep as _write
+        from caseprep.config.schema import load_config, with_fidelity
+        from caseprep.planning.planner import plan
+        from caseprep.casefiles.writer import write_sweep as _write
     except ImportError as exc:
         raise SystemExit(_stop(f"this checkout lacks part of caseprep ({exc}); the sweep cannot be written", 2))
     config = load_config(config_path)
@@ -136,8 +138,10 @@ def main(argv: list[str] | None = None) -> int:
         say(f"  [{i}/{n}] {r.case_id}: {what}" + (f" — flags: {', '.join(r.flags)}" if r.flags else ""))
 
     try:
-        outcomes, paths = postprocess_sweep(sweep_dir, out_dir=out, force=True, progress=post_progress,
-                                            title="underfloor demo — example floor study (DEMO data, smoke meshes)")
+        analysis = postprocess_sweep(sweep_dir, out_dir=out, force=True, progress=post_progress,
+                                     title="underfloor demo — example floor study (DEMO data, smoke meshes)")
+        paths = analysis.paths
+        write_report(analysis, paths["report"])
     except UserError as exc:
         return _stop(str(exc), 2)
     elapsed = time.monotonic() - t0
@@ -146,7 +150,7 @@ def main(argv: list[str] | None = None) -> int:
     failed = [r for r in recs if r.failed]
     say("")
     say(f"report: {paths['report']}; tables: {paths['csv']}, {paths['json']}; run records: "
-        f"{sweep_dir / runner.SUMMARY_NAME}")
+        f"{sweep_dir / SUMMARY_NAME}")
     say(f"demo took {runner.format_duration(elapsed)}; {len(recs) - len(failed)} of {len(recs)} case(s) ran"
         + (f", {len(failed)} failed (see above)" if failed else ""))
     say("Caution: " + SAFETY)

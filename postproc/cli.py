@@ -9,10 +9,10 @@ import sys
 
 import click
 
-from caseprep.cli import FriendlyGroup
+from caseprep.contract.cli_common import FriendlyGroup
 
-from . import __version__
-from .caseforces import forces_report
+from caseprep.contract import __version__
+from postproc.pipelines.case_forces import forces_report
 
 
 @click.group(cls=FriendlyGroup, context_settings={"help_option_names": ["-h", "--help"]})
@@ -129,7 +129,8 @@ def sweep_cmd(sweep_dir: str, out_dir: str | None, title: str | None, force: boo
     Flagged cases (mesh failed, layers collapsed, not converged, not run…)
     are listed and never ranked.
     """
-    from .sweep import postprocess_sweep
+    from postproc.pipelines.sweep import postprocess_sweep
+    from postproc.report.sweep_report import write_report
 
     def progress(i, n, o):
         if quiet:
@@ -138,7 +139,9 @@ def sweep_cmd(sweep_dir: str, out_dir: str | None, title: str | None, force: boo
         what = (f"C_L {r.cl:+.4f}  C_D {r.cd:.4f}" if r.cl == r.cl else "no coefficients")
         click.echo(f"[{i}/{n}] {r.case_id}: {o.status}; {what}" + (f"; flags: {', '.join(r.flags)}" if r.flags else ""))
 
-    outcomes, paths = postprocess_sweep(sweep_dir, out_dir, title=title, progress=progress, force=force)
+    analysis = postprocess_sweep(sweep_dir, out_dir, title=title, progress=progress, force=force)
+    outcomes, paths = analysis.outcomes, analysis.paths
+    write_report(analysis, paths["report"])
     n_flag = sum(bool(o.result.flags) for o in outcomes)
     click.echo(f"{len(outcomes)} case(s), {n_flag} flagged (not ranked).")
     click.echo(f"results: {paths['csv']}, {paths['json']}; report: {paths['report']}")
@@ -203,11 +206,11 @@ def analyse_cmd(source, config, out_dir, as_json, force) -> None:
 
 
 # ---------------------------------------------------------------------------
-# flow structures: vortices, diffuser, underbody, walls (postproc.flowreport)
+# flow structures: vortices, diffuser, underbody, walls (postproc.pipelines.case_flow)
 # ---------------------------------------------------------------------------
 
 def _floats(text: str | None, option: str, n: int | None = None) -> list[float] | None:
-    from caseprep.errors import UserError
+    from caseprep.contract.errors import UserError
 
     if text is None:
         return None
@@ -226,10 +229,10 @@ def _emit(payload: dict, as_json: bool, output: str | None, force: bool, summary
     import json
     from pathlib import Path
 
-    from caseprep.errors import UserError
-    from caseprep.safeio import write_json_atomic
+    from caseprep.contract.errors import UserError
+    from caseprep.contract.atomicio import write_json_atomic
 
-    from caseprep.safeio import json_ready
+    from caseprep.contract.atomicio import json_ready
 
     data = json_ready(payload)
     if output:
@@ -247,7 +250,7 @@ def _emit(payload: dict, as_json: bool, output: str | None, force: bool, summary
 
 
 def _load(path: str):
-    from .flowio import read_flow
+    from postproc.io.flow import read_flow
 
     return read_flow(path)
 
@@ -295,7 +298,7 @@ def vortices_cmd(source, stations, q_star, speed, length, max_jump, velocity, no
     centre [x, y, z] (m), sense (+1/-1 about +x), circulation (m^2/s),
     radius (m), peak_q (1/s^2), axial velocity excess.
     """
-    from .flowreport import analyse_vortices
+    from postproc.pipelines.case_flow import analyse_vortices
 
     case = _load(source)
     res = analyse_vortices(case, stations=_floats(stations, "--stations"), q_star=q_star, speed=speed,
@@ -327,7 +330,7 @@ def diffuser_cmd(source, throat, exit_, y_range, rho, whole_section, pressure, v
     Cross-sections between the ground and the floor (and --y-range) at the
     throat and exit stations (planes normal to body x).
     """
-    from .flowreport import analyse_diffuser
+    from postproc.pipelines.case_flow import analyse_diffuser
 
     case = _load(source)
     yr = _floats(y_range, "--y-range", 2)
@@ -357,7 +360,7 @@ def _print_underbody(d: dict) -> None:
 @_with_common
 def underbody_cmd(source, lines, speed, pressure, as_json, output, force):
     """Cp along the floor (centreline and chosen lines), minimum and suction integral; ground Cp footprint."""
-    from .flowreport import analyse_underbody
+    from postproc.pipelines.case_flow import analyse_underbody
 
     case = _load(source)
     res = analyse_underbody(case, lines=_floats(lines, "--lines"), speed=speed, pressure=pressure)
@@ -366,7 +369,7 @@ def underbody_cmd(source, lines, speed, pressure, as_json, output, force):
 
 
 def _yplus_target(treatment: str, yplus_range: str | None) -> tuple[float, float]:
-    from .wallchecks import YPLUS_RANGES
+    from postproc.kernels.wallchecks import YPLUS_RANGES
 
     if yplus_range:
         lo, hi = _floats(yplus_range, "--yplus-range", 2)
@@ -398,7 +401,7 @@ def _print_walls(d: dict) -> None:
 @_with_common
 def walls_cmd(source, treatment, yplus_range, nu, speed, lines, as_json, output, force):
     """Wall checks: y+ per patch, floor wall-shear reversals (separation lines), suspicious cell values."""
-    from .flowreport import analyse_walls
+    from postproc.pipelines.case_flow import analyse_walls
 
     case = _load(source)
     res = analyse_walls(case, target=_yplus_target(treatment, yplus_range), nu=nu, speed=speed,
@@ -417,9 +420,9 @@ def flow_cmd(source, q_star, treatment, as_json, output, force):
     """All flow-structure results of one case in one JSON: vortices, diffuser
     (stations found from the floor), underbody Cp and wall checks. A part that
     cannot be computed is reported with its reason instead."""
-    from caseprep.errors import UserError
+    from caseprep.contract.errors import UserError
 
-    from .flowreport import analyse_diffuser, analyse_underbody, analyse_vortices, analyse_walls
+    from postproc.pipelines.case_flow import analyse_diffuser, analyse_underbody, analyse_vortices, analyse_walls
 
     case = _load(source)
     payload = {"source": str(case.source), "case_id": case.record.case_id if case.record else None}

@@ -4,9 +4,11 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from postproc.aeromap import fit_response_surface
-from postproc.ranking import CaseResult, rank_variants, variant_metrics
-from postproc.report import write_report
+from caseprep.contract.records import Flag
+from postproc.kernels.aeromap import fit_response_surface
+from postproc.kernels.ranking import CaseResult, rank_variants, variant_metrics
+from postproc.pipelines.sweep import analyse_results
+from postproc.report.sweep_report import write_report
 
 
 def _quadratic(hf, hr):
@@ -52,7 +54,7 @@ def _rows(variant, k, balance_slope, flags_at=None):
         cl = -k * (1.0 - 0.02 * yaw)
         rows.append(CaseResult(f"{variant}-{i}", variant, hf, hr, -0.3, yaw, cl, 0.4, 0.02 * yaw,
                                balance=0.45 + balance_slope * (hf - 0.02), stability_margin=0.1 if yaw else None,
-                               flags=("not converged",) if flags_at == i else ()))
+                               flags=(Flag.NOT_CONVERGED,) if flags_at == i else ()))
     return rows
 
 
@@ -87,11 +89,11 @@ def test_undefined_balance_is_noted_not_divided():
 
 def test_report_is_self_contained_and_cautions(tmp_path):
     rows = _rows("flat", 1.0, 1.0) + _rows("ramp", 1.3, 2.0, flags_at=2)
-    p = write_report(rows, tmp_path / "report.html", title="Demo <study>", notes=["a <b> note"])
+    p = write_report(analyse_results(rows, title="Demo <study>", notes=["a <b> note"]), tmp_path / "report.html")
     text = p.read_text()
     assert "validate every decision by physical test" in text.lower()
     assert "qualified engineers" in text
     assert "<svg" in text and "http://" not in text.replace("http://www.w3.org/2000/svg", "")
     assert "Demo &lt;study&gt;" in text and "a &lt;b&gt; note" in text
-    assert "ramp-2" in text and "not converged" in text
+    assert "ramp-2" in text and "not-converged" in text
     assert not list(tmp_path.glob(".*.tmp"))

@@ -1,12 +1,12 @@
-"""The convergence rule in coefficient counts (every coefficient against
-its own tolerance over the settled window)."""
+"""The convergence rule in coefficient counts (caseprep.contract.convergence:
+every coefficient against its own tolerance over the settled window)."""
 from __future__ import annotations
 
 import numpy as np
 import pytest
 
-from postproc.convergence import assess
-from postproc.kernels.settled import judge_coefficients, window_stats
+from caseprep.contract.convergence import ConvergenceOptions, assess, count_stats, judge_coefficients
+from caseprep.contract.errors import UserError
 
 N = 300
 T = np.arange(N)
@@ -27,7 +27,7 @@ def test_side_force_wandering_3_percent_is_not_converged():
     assert r["series"]["cs"]["drift"] == pytest.approx(0.06 * BASE["cs"], rel=1e-9)
     # the loose rule (each force component within 1 % of the resultant) calls the same monitor
     # converged: the side force is 3 % of a resultant ≈ 1.62 — why a rule in counts is needed
-    loose = assess(s, window=N, floor=float(np.hypot(BASE["cl"], BASE["cd"])), drift_tol=0.01, std_tol=0.01)
+    loose = assess(s, window=N, floor=float(np.hypot(BASE["cl"], BASE["cd"])), options=ConvergenceOptions())
     assert loose.series["cs"].verdict == "converged"
 
 
@@ -52,17 +52,21 @@ def test_balance_is_judged_per_sample():
 
 
 def test_bad_windows_are_refused():
-    with pytest.raises(ValueError, match="at least 3"):
-        window_stats("cl", [1.0, 1.0], 0.005)
-    with pytest.raises(KeyError, match="cx"):
+    with pytest.raises(UserError, match="at least 3"):
+        count_stats("cl", [1.0, 1.0], 0.005)
+    with pytest.raises(UserError, match="cx"):
         judge_coefficients({"cx": np.ones(10)})
-    assert window_stats("cl", [1.0, np.nan, 1.0], 0.005).verdict == "diverging"
+    assert count_stats("cl", [1.0, np.nan, 1.0], 0.005).verdict == "diverging"
+    # the tolerances are options of the one rule: a looser lift tolerance passes the same series
+    wander = {"cl": -1.6 + 0.004 * np.linspace(-1, 1, N)}
+    assert judge_coefficients(wander)["verdict"] == "diverging"
+    assert judge_coefficients(wander, ConvergenceOptions(count_tol_lift=0.01))["verdict"] == "converged"
 
 
 def test_monitor_series_reduce_like_the_export():
     # a monitor holding the same loads every sample gives, per sample, exactly the
     # coefficients of the export's reduction (postproc.coefficients) — one definition
-    from postproc import coefficients as co
+    from postproc.kernels import coefficients as co
     from postproc.pipelines.monitor_coefficients import _result, coefficient_series, judge_monitor
 
     ref = co.ReferenceValues(area=1.2, length=2.0, rho=1.2, speed=40.0, moment_point=(1.0, 0.0, 0.0),
@@ -73,7 +77,7 @@ def test_monitor_series_reduce_like_the_export():
     mon.update({f"moment.total_{c}": np.full(n, M[i]) for i, c in enumerate("xyz")})
     s = coefficient_series(mon, ref, window=20)
     r = _result(F, M, np.array(ref.moment_point))
-    c, b = co.coefficients(r, ref), co.balance(r, ref)
+    c, b = co.coefficients(r, ref), co.balance(r, ref)     # level body, zero yaw
     assert len(s["cl"]) == 20
     assert s["cl"][0] == pytest.approx(c.lift) and s["cd"][0] == pytest.approx(c.drag)
     assert s["cn"][0] == pytest.approx(c.yawing)

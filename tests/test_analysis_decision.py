@@ -7,10 +7,10 @@ import math
 
 import pytest
 
-from caseprep.errors import UserError
+from caseprep.contract.errors import UserError
 from postproc.io.analysis_config import AnalysisConfig
 from postproc.kernels.decision import DecisionOptions, PointData, decide, point_key
-from postproc.meshstudy import grid_convergence
+from postproc.kernels.meshstudy import grid_convergence
 
 HEIGHTS = (0.02, 0.03, 0.04)
 

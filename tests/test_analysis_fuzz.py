@@ -6,7 +6,7 @@ import numpy as np
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from caseprep.errors import UserError
+from caseprep.contract.errors import UserError
 from postproc.io.results_table import read_results_csv
 from postproc.kernels.mapfit import MapOptions, fit_map
 

@@ -4,7 +4,8 @@ from __future__ import annotations
 import numpy as np
 import pyvista as pv
 
-from postproc import cellgeom, flowio
+from postproc.kernels import cellgeom
+from postproc.io import flow as flowio
 
 from flow_meshes import box_grid
 

@@ -5,10 +5,11 @@ import numpy as np
 import pytest
 
 from _surfaces import plate
-from caseprep import frames as fr
-from caseprep.errors import UserError
-from postproc.coefficients import ReferenceValues, axes_rotations, balance, coefficients
-from postproc.forces import ForceResult, face_geometry, integrate_forces
+from caseprep.contract import frames as fr
+from caseprep.contract.errors import UserError
+from caseprep.contract.frames import axes_rotations, axle_axes
+from postproc.kernels.coefficients import ReferenceValues, balance, coefficients
+from postproc.kernels.forces import ForceResult, face_geometry, integrate_forces
 
 
 def point_load(F, at, about=(0.0, 0.0, 0.0)) -> ForceResult:
@@ -40,7 +41,7 @@ def test_coefficients_match_hand_rotation(seed):
     F = rng.normal(size=3) * 100
     ref = car_ref()
     r = point_load(F, rng.normal(size=3), about=ref.moment_point)
-    c = coefficients(r, ref, P, w_body)
+    c = coefficients(r, ref, axes_rotations(P, w_body))
     qA = ref.q * ref.area
     # hand rotation: R = R_z(ψ) R_y(θ) with ψ = −β (yawed model) or 0 (crosswind), written out
     psi = -beta if mode == "yawed-model" else 0.0
@@ -138,7 +139,7 @@ def test_balance_with_pitched_placement_uses_ground_axes():
     front_g = P.to_body(P.to_ground(np.array([[0, 0, 0.3]]))[0] * [1, 1, 0])
     rear_g = P.to_body(P.to_ground(np.array([[2.5, 0, 0.3]]))[0] * [1, 1, 0])
     at = front_g + 0.25 * (rear_g - front_g) + 0.5 * zg  # a quarter of the way back, 0.5 m up
-    b = balance(point_load(-W * zg, at), ref, P)
+    b = balance(point_load(-W * zg, at), ref, axle_axes(P))
     assert -b.lift_front == pytest.approx(0.75 * W, rel=1e-9)
     assert b.balance_front == pytest.approx(0.75, rel=1e-9)
 
@@ -191,8 +192,8 @@ def test_coefficient_functions_do_not_modify_inputs():
     P = fr.place_body([0, 0, 0.3], [2.5, 0, 0.3], 0.05, 0.03, np.radians(3), "yawed-model")
     w = np.array([np.cos(0.05), np.sin(0.05), 0.0])
     w0, R0 = w.copy(), P.rotation.copy()
-    coefficients(r, car_ref(), P, w)
-    balance(r, car_ref(), P)
+    coefficients(r, car_ref(), axes_rotations(P, w))
+    balance(r, car_ref(), axle_axes(P))
     for k, v in snap.items():
         np.testing.assert_array_equal(getattr(r, k), v)
     np.testing.assert_array_equal(w, w0)

@@ -1,12 +1,12 @@
-"""Config loading and validation messages (caseprep.config)."""
+"""Config loading and validation messages (caseprep.config.schema)."""
 from __future__ import annotations
 
 from pathlib import Path
 
 import pytest
 
-from caseprep.config import load_config
-from caseprep.errors import UserError, UserErrors
+from caseprep.config.schema import load_config
+from caseprep.contract.errors import UserError, UserErrors
 from planning_helpers import BASE_TOML, write_config
 
 EXAMPLES = Path(__file__).resolve().parent.parent / "example_cases"

@@ -1,11 +1,12 @@
-"""Convergence verdicts on synthetic monitor histories and parsing of monitor files and logs."""
+"""Convergence verdicts on synthetic monitor histories and parsing of monitor files."""
 from __future__ import annotations
 
 import numpy as np
 import pytest
 
-from caseprep.errors import UserError
-from postproc.convergence import assess, assess_series, read_monitor, read_residuals
+from caseprep.contract.errors import UserError
+from caseprep.contract.convergence import assess, assess_series
+from caseprep.contract.monitor import read_monitor
 
 N = np.arange(400)
 
@@ -13,28 +14,28 @@ N = np.arange(400)
 def test_verdicts():
     rng = np.random.default_rng(0)
     settled = 0.85 + 0.4 * np.exp(-N / 30) + 1e-4 * rng.normal(size=N.size)
-    s = assess_series("Cd", settled, window=200)
+    s = assess_series("Cd", settled, window=200, floor=1e-3)
     assert s.verdict == "converged" and s.mean == pytest.approx(0.85, abs=1e-3)
     osc = 0.85 + 0.05 * np.sin(N / 5.0)
-    assert assess_series("Cd", osc, window=200).verdict == "oscillating"
+    assert assess_series("Cd", osc, window=200, floor=1e-3).verdict == "oscillating"
     runaway = 0.85 + 0.002 * N
-    s = assess_series("Cd", runaway, window=200)
+    s = assess_series("Cd", runaway, window=200, floor=1e-3)
     assert s.verdict == "diverging" and s.drift == pytest.approx(0.002 * 199 / s.mean, rel=1e-9)
     bad = settled.copy()
     bad[-3] = np.nan
-    assert assess_series("Cd", bad).verdict == "diverging"
+    assert assess_series("Cd", bad, floor=1e-3).verdict == "diverging"
     # near-zero series (side force of a symmetric body) judged against the floor, not its tiny mean
     assert assess_series("Cs", 1e-6 * rng.normal(size=300), floor=1e-3).verdict == "converged"
-    a = assess({"Cd": settled, "Cl": osc})
+    a = assess({"Cd": settled, "Cl": osc}, window=200, floor=1e-3)
     assert a.verdict == "oscillating" and a.window == 200
     with pytest.raises(UserError):
-        assess_series("Cd", [1.0, 2.0])
+        assess_series("Cd", [1.0, 2.0], floor=1e-3)
 
 
 def test_inputs_not_modified():
     v = np.linspace(0, 1, 50)
     v0 = v.copy()
-    assess_series("x", v, window=20)
+    assess_series("x", v, window=20, floor=1e-3)
     np.testing.assert_array_equal(v, v0)
 
 
@@ -53,14 +54,3 @@ def test_read_monitor_restart_and_formats(tmp_path):
     assert m["force.viscous_x"][-1] == 35.0
     with pytest.raises(UserError, match="postProcessing"):
         read_monitor(tmp_path / "nowhere")
-
-
-def test_read_residuals(tmp_path):
-    log = tmp_path / "log.solver"
-    log.write_text("Time = 1\n\nsmoothSolver:  Solving for Ux, Initial residual = 1, Final residual = 0.01, No Iterations 2\n"
-                   "GAMG:  Solving for p, Initial residual = 1, Final residual = 0.01, No Iterations 3\n"
-                   "GAMG:  Solving for p, Initial residual = 0.5, Final residual = 0.01, No Iterations 3\n"
-                   "Time = 2\n\nsmoothSolver:  Solving for Ux, Initial residual = 0.1, Final residual = 0.01, No Iterations 2\n")
-    r = read_residuals(log)
-    assert r["Time"].tolist() == [1, 2] and r["Ux"].tolist() == [1.0, 0.1]
-    assert r["p"][0] == 1.0 and np.isnan(r["p"][1])

@@ -1,5 +1,5 @@
 """The runner's convergence rule for runs that used their whole iteration
-budget (caseprep.runner.judge_convergence / force_settling / summarize_logs):
+budget (caseprep.run.cv.judge_convergence / force_settling / summarize_logs):
 residuals low, or force monitor settled and residuals fallen by orders of
 magnitude; a drifting monitor is never converged.
 
@@ -16,8 +16,9 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from caseprep import runner
-from caseprep.render import FORCES_NAME
+from caseprep.run import runner
+from caseprep.contract import convergence as cv
+from caseprep.contract.monitor import FORCES_NAME
 
 REAL = Path(__file__).parent / "data" / "smoke_run"
 
@@ -32,7 +33,7 @@ SETTLED = {"window": 30, "verdict": "converged", "max_drift": 0.002, "max_rel_st
 
 def test_low_residuals_converge_without_monitor():
     res = {"Ux": _hist(1.0, 2e-4), "p": _hist(1.0, 5e-4)}
-    ok, why, drop = runner.judge_convergence(res, {"Ux": 2e-4, "p": 5e-4}, None)
+    ok, why, drop = cv.judge_convergence(res, {"Ux": 2e-4, "p": 5e-4}, None)
     assert ok and "≤ 0.001" in why
     assert drop == pytest.approx(math.log10(1.0 / 5e-4))  # smallest drop: p
 
@@ -41,7 +42,7 @@ def test_plateau_residual_with_settled_forces_converges():
     # Uy of a symmetric body stuck at 1.6e-3 after falling 2.8 orders, loads settled: converged.
     res = {"Ux": _hist(1.0, 3e-4), "Uy": _hist(1.0, 1.6e-3), "p": _hist(1.0, 5e-4)}
     fin = {k: v[-1] for k, v in res.items()}
-    ok, why, drop = runner.judge_convergence(res, fin, SETTLED)
+    ok, why, drop = cv.judge_convergence(res, fin, SETTLED)
     assert ok and "settled" in why and "Uy" in why
     assert drop == pytest.approx(math.log10(1 / 1.6e-3), rel=1e-9)
 
@@ -56,20 +57,20 @@ def test_plateau_residual_with_settled_forces_converges():
 ])
 def test_not_converged_cases(settling, res, text):
     fin = {k: v[-1] for k, v in res.items()}
-    ok, why, _ = runner.judge_convergence(res, fin, settling)
+    ok, why, _ = cv.judge_convergence(res, fin, settling)
     assert not ok and text in why
 
 
 def test_drifting_loads_are_not_converged_even_with_low_residuals():
     drifting = {"window": 30, "verdict": "diverging", "max_drift": 0.05, "max_rel_std": 0.01}
     res = {"p": _hist(1.0, 1e-4)}
-    ok, why, _ = runner.judge_convergence(res, {"p": 1e-4}, drifting)
+    ok, why, _ = cv.judge_convergence(res, {"p": 1e-4}, drifting)
     assert not ok and "drifting" in why
 
 
 def test_residual_drop_uses_the_largest_early_value():
     seq = (0.5, 1.0, 0.8, 0.2, 0.1) + _hist(0.1, 1e-3, 20)
-    d = runner.residual_drop({"k": seq, "none": (math.nan, math.nan), "zero": (1.0, 0.0)})
+    d = cv.residual_drop({"k": seq, "none": (math.nan, math.nan), "zero": (1.0, 0.0)})
     assert d["k"] == pytest.approx(3.0)  # log10(1.0 / 1e-3)
     assert math.isnan(d["none"]) and d["zero"] == math.inf
 
@@ -79,7 +80,7 @@ def test_judge_does_not_modify_its_inputs():
     fin = {"Uy": 1.6e-3}
     settled = dict(SETTLED)
     before = (dict(res), dict(fin), dict(settled))
-    runner.judge_convergence(res, fin, settled)
+    cv.judge_convergence(res, fin, settled)
     assert (res, fin, settled) == before
 
 
@@ -100,15 +101,15 @@ def test_force_settling_window_and_verdicts(tmp_path):
     side = 0.2 * np.sin(it)                        # symmetric body: side force wanders around 0 by 0.2 N
     a = tmp_path / "settled"
     _write_monitor(a, settle, side, -settle)
-    s = runner.force_settling(a)
+    s = cv.force_settling(a)
     assert s["window"] == 30 and s["verdict"] == "converged"  # 30 % of 100 iterations
     # the side force is judged against the resultant (42 N), not against its own ~0 mean
     assert s["max_rel_std"] < 0.01
 
     b = tmp_path / "drifting"
     _write_monitor(b, settle, side, -(30.0 + 0.05 * it))  # lift still growing 5 % of itself per 30 iterations
-    assert runner.force_settling(b)["verdict"] == "diverging"
-    assert runner.force_settling(tmp_path / "nothing") is None
+    assert cv.force_settling(b)["verdict"] == "diverging"
+    assert cv.force_settling(tmp_path / "nothing") is None
 
 
 def _real_case(tmp_path: Path, iterations: int | None) -> Path:
@@ -142,3 +143,65 @@ def test_real_smoke_run_converged_and_cut_short_flagged(tmp_path):
         assert early["force_settling"]["verdict"] == "diverging" and "drifting" in early["convergence"]
     # After 120 iterations it has settled.
     assert runner.summarize_logs(_real_case(tmp_path, 120), ["solve"])["flags"] == ()
+
+
+def _monitor_case(root: Path) -> Path:
+    """A written and 'run' sweep of one case whose force monitor has settled
+    except for the side force: 5 N of a 128 N resultant, wandering ±3 % of
+    itself (±0.15 N) — our own invented numbers. Residuals fell 2.7 orders
+    to 2e-3 (above 1e-3), so the monitor decides."""
+    import json
+
+    from _surfaces import icosphere
+    from _vtkfiles import polydata, write_solver_like_export
+    from caseprep.contract.records import RECORD_NAME, CaseRunRecord, StageRun
+    from tiny_case import write_manifest_only
+
+    write_manifest_only(root, ["c1"])
+    case = root / "cases" / "c1"
+    n = 200
+    it = np.arange(1, n + 1, dtype=float)
+    _write_monitor(case, np.full(n, 120.0), 5.0 + 0.15 * np.sin(it / 3.0), np.full(n, -45.0))
+    res = np.geomspace(1.0, 2e-3, n)
+    log = "".join(f"Time = {i}\n\nsmoothSolver:  Solving for Ux, Initial residual = {r:.6g}, Final residual = 1e-05, "
+                  f"No Iterations 2\nGAMG:  Solving for p, Initial residual = {r:.6g}, Final residual = 1e-05, "
+                  f"No Iterations 3\n" for i, r in zip(range(1, n + 1), res)) + "\nEnd\n"
+    (case / "logs").mkdir()
+    (case / "logs" / "simpleFoam.log").write_text(log)
+    for stage in ("mesh", "solve", "export"):
+        (case / "logs" / f"{stage}.done").write_text("")
+    X, F = icosphere(0.05, 2, (0.4, 0.0, 0.1))
+    write_solver_like_export(case, {"body": polydata(X, F[:, ::-1], {"p": np.zeros(len(F)),
+                                                                     "wallShearStress": np.zeros((len(F), 3))})},
+                             time=n, name="c1")
+    info = runner.summarize_logs(case, ["solve"])
+    rec = CaseRunRecord(case_id="c1", folder="cases/c1", status="ok",
+                        stages=tuple(StageRun(s, "ok", 1.0, 0) for s in ("mesh", "solve", "export")), **info)
+    (case / RECORD_NAME).write_text(json.dumps(rec.to_dict()))
+    return case
+
+
+def test_one_verdict_from_runner_forces_and_sweep(tmp_path):
+    import json
+
+    from click.testing import CliRunner
+
+    from postproc.cli import main as postproc_main
+
+    case = _monitor_case(tmp_path / "sw")
+    # the runner: the side force wanders by 0.15 N = 0.1 % of the 128 N resultant, within 1 % of the load
+    info = runner.summarize_logs(case, ["solve"])
+    assert info["force_settling"]["verdict"] == "converged" and "not-converged" not in info["flags"]
+    # postproc forces on the case folder
+    r = CliRunner().invoke(postproc_main, ["forces", str(case), "--json"])
+    assert r.exit_code == 0, r.output
+    assert json.loads(r.output)["convergence"]["verdict"] == "converged"
+    # postproc sweep
+    r = CliRunner().invoke(postproc_main, ["sweep", str(tmp_path / "sw"), "-q"])
+    assert r.exit_code == 0, r.output
+    (row,) = json.loads((tmp_path / "sw" / "results.json").read_text())["cases"]
+    assert row["convergence"] == "converged" and "forces-drifting" not in row["flags"]
+    # judged against its own 5 N instead of the resultant, the same monitor reads as oscillating:
+    # the floor is the one setting that decides it, and it is set in one place
+    own = cv.assess_force_monitor(case, options=cv.ConvergenceOptions(settle_floor=0.01))
+    assert own.verdict == "oscillating" and own.series["force.total_y"].rel_std > 0.01

@@ -9,9 +9,10 @@ import numpy as np
 import pytest
 from click.testing import CliRunner
 
-from caseprep.errors import UserError
-from postproc import diffuser as dif
-from postproc import flowio, flowreport
+from caseprep.contract.errors import UserError
+from postproc.kernels import diffuser as dif
+from postproc.io import flow as flowio
+from postproc.pipelines import case_flow as flowreport
 from postproc.cli import main
 
 from flow_meshes import box_grid, box_patch

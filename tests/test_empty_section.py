@@ -7,12 +7,12 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from caseprep import foamdict as fd
-from caseprep.config import load_config
-from caseprep.domain import ground_grading
-from caseprep.errors import UserError, UserErrors
-from caseprep.planner import plan
-from caseprep.render import render_case
+from caseprep.casefiles import foamdict as fd
+from caseprep.config.schema import load_config
+from caseprep.planning.domain import ground_grading
+from caseprep.contract.errors import UserError, UserErrors
+from caseprep.planning.planner import plan
+from caseprep.casefiles.render import render_case
 from planning_helpers import car_box
 
 EXAMPLES = Path(__file__).resolve().parent.parent / "example_cases"

@@ -15,8 +15,9 @@ import subprocess
 import numpy as np
 import pytest
 
-from postproc import flowio, flowreport
-from postproc import gradients as G
+from postproc.io import flow as flowio
+from postproc.pipelines import case_flow as flowreport
+from postproc.kernels import meshtopo
 
 from tiny_case import write_tiny_case
 
@@ -59,7 +60,7 @@ def test_q_from_cell_data_agrees_with_the_solvers_q(solved):
     g = solved.grid
     q_solver = np.asarray(g.cell_data["Q"], dtype=float)
     q = flowreport.gradient_data(solved, with_lambda2=False).fields.q
-    _, n_boundary = G.cell_adjacency(flowio.topology(g))
+    _, n_boundary = meshtopo.cell_adjacency(flowio.topology(g))
     interior = n_boundary == 0
     assert interior.sum() > 500
 

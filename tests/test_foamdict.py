@@ -1,4 +1,4 @@
-"""The solver-dictionary formatter and reader (caseprep.foamdict)."""
+"""The solver-dictionary formatter and reader (caseprep.casefiles.foamdict)."""
 from __future__ import annotations
 
 import math
@@ -7,7 +7,7 @@ import numpy as np
 import pytest
 from hypothesis import given, settings, strategies as st
 
-from caseprep import foamdict as fd
+from caseprep.casefiles import foamdict as fd
 
 
 def test_parse_nested_dict_lists_dimensions_comments():

@@ -5,8 +5,8 @@ import numpy as np
 import pytest
 
 from _surfaces import icosphere, plate
-from caseprep.errors import UserError
-from postproc.forces import closure, face_geometry, integrate_forces
+from caseprep.contract.errors import UserError
+from postproc.kernels.forces import closure, face_geometry, integrate_forces
 
 MU, U, A_S = 1.8e-5, 0.01, 0.5   # our invented Stokes set-up: μ Pa·s, U m/s, radius m
 

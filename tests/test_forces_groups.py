@@ -8,9 +8,9 @@ import pytest
 
 from _surfaces import icosphere
 from _vtkfiles import polydata, write, write_solver_like_export
-from postproc import forces as pf
-from postproc.forces import face_geometry, integrate_forces
-from postproc.readers import read_surface
+from postproc.kernels import forces as pf
+from postproc.kernels.forces import face_geometry, integrate_forces
+from postproc.io.surfaces import read_surface
 
 
 def mixed_surface(seed=0, n=400):

@@ -1,10 +1,10 @@
-"""Frames and placement: the conventions of caseprep.frames."""
+"""Frames and placement: the conventions of caseprep.contract.frames."""
 from __future__ import annotations
 
 import numpy as np
 import pytest
 
-from caseprep import frames as fr
+from caseprep.contract import frames as fr
 
 
 def test_positive_pitch_is_nose_up():

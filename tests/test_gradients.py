@@ -7,9 +7,10 @@ import numpy as np
 import pytest
 import vtk
 
-from postproc import flowio
-from postproc import flowreport
-from postproc import gradients as G
+from postproc.io import flow as flowio
+from postproc.pipelines import case_flow as flowreport
+from postproc.kernels import gradients as G
+from postproc.kernels import meshtopo
 
 from flow_meshes import box_grid, box_patch, burgers, lamb_oseen, lamb_oseen_q
 
@@ -18,7 +19,7 @@ KINDS = ["hex", "tet", "poly", "mixed"]
 
 
 def _prep(grid):
-    A, nb = G.cell_adjacency(flowio.topology(grid))
+    A, nb = meshtopo.cell_adjacency(flowio.topology(grid))
     X = flowio.cell_centres(grid)
     return A, nb, X, G.lsq_gradient_operator(X, A)
 
@@ -48,7 +49,7 @@ def test_adjacency_matches_vtk_face_neighbours(mesh):
 
 
 def test_lsq_exact_for_linear_fields(mesh):
-    # Proof (module docstring of postproc.gradients): for φ = a + g·x the LSQ
+    # Proof (module docstring of postproc.kernels.gradients): for φ = a + g·x the LSQ
     # normal equations give M g = M g, so the operator returns g exactly when
     # M is invertible; only round-off remains (1e-9 relative is ~1e6 × eps).
     kind, g, A, nb, X, op = mesh
@@ -181,11 +182,11 @@ def test_face_matching_survives_key_collisions():
     k1 = np.array([5, 5, 5, 5, 7, 7, 3, 3, 3, 9, 12], dtype=np.uint64)
     k2 = np.array([1, 2, 1, 2, 3, 3, 4, 4, 4, 5, 6], dtype=np.uint64)
     own = np.array([0, 1, 2, 3, 4, 5, 6, 7, 8, 9, 10], dtype=np.int32)
-    a, b = G._match_keys(k1.copy(), k2, own)
+    a, b = meshtopo._match_keys(k1.copy(), k2, own)
     pairs = {tuple(sorted(p)) for p in zip(a.tolist(), b.tolist())}
     assert pairs == {(0, 2), (1, 3), (4, 5), (6, 7)}
     # a run of exactly two with different second keys is not a face pair
-    a, b = G._match_keys(np.array([1, 2], dtype=np.uint64), np.array([1, 2], dtype=np.uint64),
+    a, b = meshtopo._match_keys(np.array([1, 2], dtype=np.uint64), np.array([1, 2], dtype=np.uint64),
                          np.array([0, 1], dtype=np.int32))
     assert a.size == 0
 

@@ -6,7 +6,7 @@ from __future__ import annotations
 import numpy as np
 from scipy.spatial import ConvexHull
 
-from caseprep.geometry import _drop_interior, hull_projected_area
+from caseprep.geometry.hull import _drop_interior, hull_projected_area
 
 
 def test_filter_keeps_the_hull_exactly():

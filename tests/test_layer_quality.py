@@ -4,8 +4,8 @@ from __future__ import annotations
 
 import pytest
 
-from caseprep import foamdict as fd
-from caseprep import render
+from caseprep.casefiles import foamdict as fd
+from caseprep.casefiles import render
 from uf_specs import make_spec
 
 

@@ -5,7 +5,7 @@ import math
 
 import pytest
 
-from postproc.meshstudy import grid_convergence
+from postproc.kernels.meshstudy import grid_convergence
 
 
 def test_celik_2008_worked_example():
@@ -50,9 +50,9 @@ def test_oscillatory_and_degenerate_sets_say_so():
 def test_sweep_mesh_study_and_ranking_on_the_finest_level(tmp_path):
     # three mesh levels of one operating point, values on an exact second-order
     # law in the level cell size h_m = 2^(-m/2) (Richardson 1911: exact recovery)
-    from postproc.ranking import CaseResult, rank_variants
-    from postproc.report import write_report
-    from postproc.sweep import level_cell_size, mesh_study
+    from postproc.kernels.ranking import CaseResult, rank_variants
+    from postproc.report.sweep_report import write_report
+    from postproc.pipelines.sweep import analyse_results, level_cell_size, mesh_study
 
     rows = []
     for m in (0, 1, 2):
@@ -71,5 +71,5 @@ def test_sweep_mesh_study_and_ranking_on_the_finest_level(tmp_path):
     scores = {s.variant: s for s in rank_variants(rows)}
     assert scores["a"].metrics["downforce"] == pytest.approx(1.2 - 0.3 * 0.25)
     assert scores["a"].n_cases == 1
-    text = write_report(rows, tmp_path / "r.html", mesh_study=study).read_text()
+    text = write_report(analyse_results(rows, mesh=study), tmp_path / "r.html").read_text()
     assert "Mesh dependence" in text and "Celik" in text

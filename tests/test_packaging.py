@@ -28,7 +28,7 @@ def test_wheel_ships_templates_and_writes_a_sweep(tmp_path):
     env = dict(os.environ, PYTHONPATH=str(target))
     out = tmp_path / "sweep"
     r = subprocess.run([sys.executable, "-c",
-                        "import caseprep.templating as t, sys; print(t.template_dir()); "
+                        "import caseprep.contract.templating as t, sys; print(t.template_dir()); "
                         "from caseprep.cli import main; sys.argv=['caseprep','write',sys.argv[1],'-o',sys.argv[2]]; main()",
                         str(ROOT / "example_cases" / "floor_study" / "sweep.toml"), str(out)],
                        capture_output=True, text=True, cwd=tmp_path, env=env, timeout=300)

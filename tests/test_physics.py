@@ -1,4 +1,4 @@
-"""Air properties, first-cell height and inlet turbulence (caseprep.physics)."""
+"""Air properties, first-cell height and inlet turbulence (caseprep.planning.physics)."""
 from __future__ import annotations
 
 import math
@@ -6,7 +6,7 @@ import math
 import numpy as np
 import pytest
 
-from caseprep import physics as ph
+from caseprep.planning import physics as ph
 
 fluids_atm = pytest.importorskip("fluids.atmosphere")
 

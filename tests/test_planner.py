@@ -1,4 +1,4 @@
-"""Planner: placement, clearance, domain, wheels, yaw modes, CLI (caseprep.planner, caseprep.cli)."""
+"""Planner: placement, clearance, domain, wheels, yaw modes, CLI (caseprep.planning.planner, caseprep.cli)."""
 from __future__ import annotations
 
 import importlib.util
@@ -9,13 +9,13 @@ import numpy as np
 import pytest
 from click.testing import CliRunner
 
-from caseprep import frames as fr
+from caseprep.contract import frames as fr
 from caseprep.cli import main
-from caseprep.config import load_config
-from caseprep.domain import decomposition_split
-from caseprep.errors import UserError
-from caseprep.geometry import read_stl
-from caseprep.planner import check, plan, plan_all, table_rows, wheel_omega
+from caseprep.config.schema import load_config
+from caseprep.planning.domain import decomposition_split
+from caseprep.contract.errors import UserError
+from caseprep.geometry.stl import read_stl
+from caseprep.planning.planner import check, plan, plan_all, table_rows, wheel_omega
 from planning_helpers import BASE_TOML, box_triangles, convex_body, write_binary_stl, write_config
 
 EXAMPLES = Path(__file__).resolve().parent.parent / "example_cases"
@@ -211,7 +211,7 @@ def test_wheels_contact_patch_moves_with_ground(tmp_path, mode):
 
 
 def test_reference_area_auto_is_first_variant(floor_cases):
-    from caseprep.geometry import analyse
+    from caseprep.geometry.body import analyse
 
     flat = analyse(read_stl(EXAMPLES / "floor_study" / "geometry" / "flat.stl"))
     assert {c.reference.area for c in floor_cases} == {flat.frontal_area}
@@ -295,7 +295,7 @@ def test_cli_missing_config():
 
 
 def test_kernels_do_not_modify_inputs():
-    from caseprep.sweep import heights_from_pitch
+    from caseprep.planning.points import heights_from_pitch
 
     c, a, p, v = (np.array([1.0, 0, 0.3]), np.array([0.0, 1, 0]), np.array([1.0, 0, 0]), np.array([30.0, 0, 0]))
     arrays = [c, a, p, v]

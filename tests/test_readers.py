@@ -7,9 +7,10 @@ import pytest
 
 from _surfaces import icosphere
 from _vtkfiles import polydata, write, write_solver_like_export
-from caseprep.errors import UserError
-from postproc.forces import integrate_forces
-from postproc.readers import known_extensions, latest_export, read_surface, select_patches
+from caseprep.contract.errors import UserError
+from postproc.kernels.forces import integrate_forces
+from postproc.io.exports import latest_export
+from postproc.io.surfaces import known_extensions, read_surface, select_patches
 
 
 def sphere_pd(seed=0, radius=0.5, nsub=2, center=(0, 0, 0)):
@@ -86,7 +87,7 @@ def test_truncated_and_not_vtk_files(tmp_path, ext):
     if ext == ".vtk":
         # the legacy reader accepts a file cut after its cells without a complaint: the loss shows up as a
         # missing face array (or collapsed faces) when the forces are computed — still one UserError
-        from postproc.caseforces import forces_report as run_forces
+        from postproc.pipelines.case_forces import forces_report as run_forces
         with pytest.raises(UserError, match="expected a face .cell. data array 'p'|zero-area|rejects"):
             run_forces(str(t), rho=1.2)
     else:

@@ -1,4 +1,4 @@
-"""Rendering a CaseSpec into solver dictionaries (caseprep.render + templates):
+"""Rendering a CaseSpec into solver dictionaries (caseprep.casefiles.render + templates):
 the generated files parse back and agree with the spec and with each other."""
 from __future__ import annotations
 
@@ -9,10 +9,10 @@ import jinja2
 import numpy as np
 import pytest
 
-from caseprep import foamdict as fd
-from caseprep import frames as fr
-from caseprep import render
-from caseprep.templating import environment
+from caseprep.casefiles import foamdict as fd
+from caseprep.contract import frames as fr
+from caseprep.casefiles import render
+from caseprep.contract.templating import environment
 from uf_specs import demo_wheel, make_spec
 
 BETA = 5.0  # deg
@@ -107,7 +107,7 @@ def test_manifest_patches_are_mesh_patches(case):
 
 @pytest.mark.parametrize("mode", ["crosswind", "yawed-model"])
 def test_velocities_match_yaw_mode(mode):
-    # Expected vectors from caseprep.frames (the project's convention module).
+    # Expected vectors from caseprep.contract.frames (the project's convention module).
     V = 20.0
     beta = math.radians(BETA)
     spec = make_spec("v", beta_deg=BETA, yaw_mode=mode, speed=V, wheels=(demo_wheel(),))

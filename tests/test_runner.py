@@ -18,9 +18,10 @@ from pathlib import Path
 import pytest
 from click.testing import CliRunner
 
-from caseprep import runner
+from caseprep.contract import records
+from caseprep.run import runner
 from caseprep.cli import main
-from caseprep.errors import UserError
+from caseprep.contract.errors import UserError
 
 sys.path.insert(0, str(Path(__file__).parent))
 from tiny_case import write_manifest_only, write_tiny_sweep  # noqa: E402
@@ -128,9 +129,9 @@ def test_statuses_flags_and_records(sweep):
     assert "Thickness should be factor" in b.message and "FOAM exiting" in b.log_tail
 
     for cid in by:
-        d = json.loads((sweep / "cases" / cid / runner.RECORD_NAME).read_text())
+        d = json.loads((sweep / "cases" / cid / records.RECORD_NAME).read_text())
         assert d["status"] == by[cid].status
-    summ = json.loads((sweep / runner.SUMMARY_NAME).read_text())
+    summ = json.loads((sweep / records.SUMMARY_NAME).read_text())
     assert summ["counts"] == {"ok": 2, "solve-failed": 1, "mesh-failed": 1}
     assert [r["case_id"] for r in summ["cases"]] == ["good", "crash", "collapsed", "badmesh"]
     assert {e.event for e in events} >= {"case-start", "stage-start", "stage-done", "stage-failed", "case-done"}
@@ -141,14 +142,14 @@ def test_resume_and_force(sweep):
     runner.run_sweep(sweep, jobs=2)
     recs = {r.case_id: r for r in runner.run_sweep(sweep, jobs=2)}
     # Done cases are skipped; a failed solve resumes from the solve stage.
-    assert recs["good"].status == "skipped" and runner.effective_status(recs["good"]) == "ok"
+    assert recs["good"].status == "skipped" and records.effective_status(recs["good"]) == "ok"
     assert recs["good"].cells == 1904  # a skipped case still reports its results
     assert calls(sweep, "good") == ["mesh", "solve", "export"]
     assert calls(sweep, "crash") == ["mesh", "solve", "solve"]
     assert [s.status for s in recs["crash"].stages] == ["done-before", "failed", "not-run"]
     assert calls(sweep, "badmesh") == ["mesh", "mesh"]
     # The skipped case's own record still says ok.
-    assert runner.read_case_record(sweep / "cases" / "good").status == "ok"
+    assert records.read_case_record(sweep / "cases" / "good").status == "ok"
     runner.run_sweep(sweep, only=["good"], force=True)
     assert calls(sweep, "good") == ["mesh", "solve", "export"] * 2
 
@@ -218,7 +219,7 @@ def test_interrupt_stops_cases_cleanly(tmp_path):
     with pytest.raises(ProcessLookupError):
         os.kill(pid, 0)  # the case's process is gone
     assert calls(root, "later") == []  # not started
-    assert json.loads((root / "cases" / "slow" / runner.RECORD_NAME).read_text())["status"] == "interrupted"
+    assert json.loads((root / "cases" / "slow" / records.RECORD_NAME).read_text())["status"] == "interrupted"
     # Resuming runs the interrupted stage again (60 s sleep removed first).
     make_case(root, "slow")
     recs = runner.run_sweep(root)

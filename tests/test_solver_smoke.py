@@ -9,10 +9,10 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from caseprep import foamdict as fd
-from caseprep.manifest import read_manifest
-from caseprep.render import all_patches
-from caseprep.writer import write_sweep
+from caseprep.casefiles import foamdict as fd
+from caseprep.contract.manifest import read_manifest
+from caseprep.casefiles.render import all_patches
+from caseprep.casefiles.writer import write_sweep
 from uf_specs import make_spec, write_body_stl
 
 pytestmark = pytest.mark.solver

@@ -14,7 +14,7 @@ from pathlib import Path
 
 import pytest
 
-from caseprep import solverlogs as sl
+from caseprep.run import solverlogs as sl
 
 D = Path(__file__).parent / "data" / "logs"
 
@@ -196,3 +196,15 @@ def test_solver_turbulent_fields():
     assert list(r.residuals) == ["Ux", "Uy", "Uz", "p", "omega", "k"]
     assert r.residuals["k"][0] == 1.0 and r.times[-1] == 30.0 and r.end_reason == "end-time"
     assert r.final_residuals["omega"] == 0.0016972368 and r.final_residuals["k"] == 0.014078294
+
+
+def test_solver_residuals_first_solve_per_iteration():
+    # the first solve of each field in an iteration is its initial residual; NaN where not solved
+    text = ("Time = 1\n\nsmoothSolver:  Solving for Ux, Initial residual = 1, Final residual = 0.01, No Iterations 2\n"
+            "GAMG:  Solving for p, Initial residual = 1, Final residual = 0.01, No Iterations 3\n"
+            "GAMG:  Solving for p, Initial residual = 0.5, Final residual = 0.01, No Iterations 3\n"
+            "Time = 2\n\nsmoothSolver:  Solving for Ux, Initial residual = 0.1, Final residual = 0.01, No Iterations 2\n")
+    r = sl.parse_solver(text)
+    assert r.times == (1.0, 2.0) and r.residuals["Ux"] == (1.0, 0.1)
+    assert r.residuals["p"][0] == 1.0 and math.isnan(r.residuals["p"][1])
+    assert r.final_residuals == {"Ux": 0.1, "p": 1.0}

@@ -1,4 +1,4 @@
-"""Sweep expansion, ride-height definition and stable case ids (caseprep.sweep)."""
+"""Sweep expansion, ride-height definition and stable case ids (caseprep.planning.points)."""
 from __future__ import annotations
 
 import re
@@ -6,10 +6,10 @@ import re
 import numpy as np
 import pytest
 
-from caseprep import frames as fr
-from caseprep.config import load_config
-from caseprep.errors import UserError
-from caseprep.sweep import expand, heights_from_pitch, pitch_from_heights
+from caseprep.contract import frames as fr
+from caseprep.config.schema import load_config
+from caseprep.contract.errors import UserError
+from caseprep.planning.points import expand, heights_from_pitch, pitch_from_heights
 from planning_helpers import BASE_TOML, write_config
 
 

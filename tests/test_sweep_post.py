@@ -7,10 +7,11 @@ import math
 import pytest
 from click.testing import CliRunner
 
-from caseprep import runner
-from postproc.caseforces import forces_report
+from caseprep.run import runner
+from postproc.pipelines.case_forces import forces_report
 from postproc.cli import main as postproc_main
-from postproc.sweep import postprocess_sweep
+from postproc.pipelines.sweep import postprocess_sweep
+from postproc.report.sweep_report import write_report
 
 import numpy as np
 
@@ -19,7 +20,9 @@ from tiny_case import write_manifest_only
 
 def test_unrun_sweep_is_all_flagged_and_still_reports(tmp_path):
     root = write_manifest_only(tmp_path / "sw", ["a", "b"])
-    outcomes, paths = postprocess_sweep(root)
+    analysis = postprocess_sweep(root)
+    outcomes, paths = analysis.outcomes, analysis.paths
+    write_report(analysis, paths["report"])
     assert [o.result.flags for o in outcomes] == [("not-run",), ("not-run",)]
     data = json.loads(paths["json"].read_text())
     assert data["flags"]["not-run"].startswith("the case has not been run")
@@ -38,8 +41,8 @@ def test_not_a_sweep_is_a_user_error(tmp_path):
 
 @pytest.mark.solver
 def test_real_smoke_sweep(tmp_path):
-    from caseprep.writer import write_sweep
-    from postproc.convergence import read_monitor
+    from caseprep.casefiles.writer import write_sweep
+    from caseprep.contract.monitor import read_monitor
     from uf_specs import make_spec, write_body_stl
 
     src = tmp_path / "src"
@@ -49,8 +52,8 @@ def test_real_smoke_sweep(tmp_path):
     root = tmp_path / "sw"
     write_sweep([make_spec("smoke-a", beta_deg=3.0, yaw_mode="crosswind", n_iterations=30)], root, src / "sweep.toml")
     runner.run_sweep(root, jobs=1, ranks=1)
-    outcomes, paths = postprocess_sweep(root)
-    (o,) = outcomes
+    analysis = postprocess_sweep(root)
+    (o,), paths = analysis.outcomes, analysis.paths
     assert o.status == "ok", o
     assert math.isfinite(o.result.cl) and math.isfinite(o.result.cd)
     # the table carries exactly the per-case forces report's wind-axes coefficients

@@ -9,8 +9,8 @@ import numpy as np
 import pytest
 from click.testing import CliRunner
 
-from postproc import flowreport
-from postproc import underbody as ub
+from postproc.pipelines import case_flow as flowreport
+from postproc.kernels import underbody as ub
 from postproc.cli import main
 
 from test_diffuser import QV, W, XT, channel, h_of_x, vtm  # noqa: F401  (fixture re-used)

@@ -21,16 +21,17 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from caseprep import foamdict as fd
-from caseprep import runner
-from caseprep.config import load_config
-from caseprep.manifest import read_manifest
-from caseprep.planner import plan
-from caseprep.writer import write_sweep
-from postproc.caseforces import forces_report
-from postproc.convergence import read_residuals
-from postproc.forces import face_geometry
-from postproc.readers import latest_export, read_surface
+from caseprep.casefiles import foamdict as fd
+from caseprep.run import runner
+from caseprep.config.schema import load_config
+from caseprep.contract.manifest import read_manifest
+from caseprep.planning.planner import plan
+from caseprep.casefiles.writer import write_sweep
+from postproc.pipelines.case_forces import forces_report
+from caseprep.run.solverlogs import parse_solver
+from postproc.kernels.forces import face_geometry
+from postproc.io.exports import latest_export
+from postproc.io.surfaces import read_surface
 
 pytestmark = pytest.mark.solver
 
@@ -105,7 +106,7 @@ def test_ground_boundary_layer_skin_friction_matches_blasius(tmp_path):
     # (the solver's targets are U 1e-5, p 1e-4). The spanwise component is zero to round-off between the
     # slip sides, so its *normalised* residual is noise (O(1e-2)) and keeps the solver from stopping on its
     # targets; the runner therefore flags the run not-converged (a false alarm for a two-dimensional flow).
-    res = read_residuals(case / "logs" / "simpleFoam.log")
+    res = parse_solver((case / "logs" / "simpleFoam.log").read_text()).residuals
     for k in ("Ux", "Uz", "p"):
         assert float(res[k][-1]) < 1e-6, (k, res[k][-1])
     import pyvista as pv
@@ -188,7 +189,7 @@ def test_yaw_signs_and_ground_motion(tmp_path, mode):
     beta = np.radians(5.0)
     V = 40.0
 
-    # the relative wind in body axes is (cos β, sin β, 0) in both modes (caseprep/frames.py)
+    # the relative wind in body axes is (cos β, sin β, 0) in both modes (caseprep/contract/frames.py)
     assert np.allclose(rec.wind_direction_body, [np.cos(beta), np.sin(beta), 0.0], atol=1e-12)
     # the ground's velocity as written into the case (0/U, mesh frame = body frame) against the placement
     ug = _ground_u(case)
@@ -209,7 +210,7 @@ def test_yaw_signs_and_ground_motion(tmp_path, mode):
     rep = forces_report(str(case), window=50)
     c = rep["coefficients"]
     # Positive β: the air moves towards body +y, so a body symmetric about y = 0 is pushed towards +y
-    # (README axes table, caseprep/frames.py): positive side force.
+    # (README axes table, caseprep/contract/frames.py): positive side force.
     assert c["side"] > 0.0
     # Yawing moment about mid-length (x = 0.6 m of the 1.2 m body), positive nose-left: the flat floor is
     # a slender bluff body whose side load is carried mostly by its front (the flow arrives at the nose's
@@ -224,7 +225,7 @@ def test_yaw_signs_and_ground_motion(tmp_path, mode):
     assert mb[2] / fb[1] < 0.0
     # the signs hold over the whole monitored window, not just at the last iteration
     # (smoke mesh, 150 iterations: not converged to 1 %, but far from a sign change)
-    from postproc.convergence import read_monitor
+    from caseprep.contract.monitor import read_monitor
 
     mon = read_monitor(case)  # body axes, about the moment point (no pitch here: body z = wind z)
     fy_wind = -np.sin(beta) * mon["force.total_x"] + np.cos(beta) * mon["force.total_y"]  # y_W = (−sin β, cos β, 0)

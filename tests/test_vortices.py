@@ -11,12 +11,14 @@ import pytest
 from click.testing import CliRunner
 from scipy.optimize import brentq
 
-from postproc import diffuser as dif
-from postproc import flowio, flowreport
-from postproc import gradients as G
-from postproc import underbody as ub
-from postproc import vortices as vx
-from postproc import wallchecks as wc
+from postproc.kernels import diffuser as dif
+from postproc.io import flow as flowio
+from postproc.pipelines import case_flow as flowreport
+from postproc.kernels import gradients as G
+from postproc.kernels import meshtopo
+from postproc.kernels import underbody as ub
+from postproc.kernels import vortices as vx
+from postproc.kernels import wallchecks as wc
 from postproc.cli import main
 
 from flow_meshes import box_grid, lamb_oseen
@@ -196,7 +198,7 @@ def test_kernels_do_not_modify_inputs():
     g = box_grid(4, 4, 4, kind="mixed", perturb=0.2, seed=1)
     topo = flowio.topology(g)
     before_topo = [a.copy() for a in (topo.celltypes, topo.offsets, topo.connectivity)]
-    A, nb = G.cell_adjacency(topo)
+    A, nb = meshtopo.cell_adjacency(topo)
     X = flowio.cell_centres(g)
     Xc, Ac = X.copy(), A.copy()
     op = G.lsq_gradient_operator(X, A)

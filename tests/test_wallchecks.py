@@ -9,8 +9,9 @@ import pytest
 import pyvista as pv
 from click.testing import CliRunner
 
-from postproc import flowio, flowreport
-from postproc import wallchecks as wc
+from postproc.io import flow as flowio
+from postproc.pipelines import case_flow as flowreport
+from postproc.kernels import wallchecks as wc
 from postproc.cli import main
 
 from flow_meshes import box_grid, box_patch

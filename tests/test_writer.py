@@ -1,4 +1,4 @@
-"""Writing a sweep folder (caseprep.writer): layout, shared geometry, the
+"""Writing a sweep folder (caseprep.casefiles.writer): layout, shared geometry, the
 only-new / --force rules, the manifest and the run scripts' contract."""
 from __future__ import annotations
 
@@ -12,10 +12,10 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from caseprep.errors import UserError
-from caseprep.manifest import read_manifest
-from caseprep.render import OUTPUTS
-from caseprep.writer import stl_solid_names, write_sweep
+from caseprep.contract.errors import UserError
+from caseprep.contract.manifest import read_manifest
+from caseprep.casefiles.render import OUTPUTS
+from caseprep.casefiles.writer import stl_solid_names, write_sweep
 from uf_specs import demo_wheel, make_spec, write_body_stl
 
 

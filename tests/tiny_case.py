@@ -32,8 +32,8 @@ _HERE = Path(__file__).resolve().parent
 if str(_HERE.parent) not in sys.path:  # running as a script from a source tree
     sys.path.insert(0, str(_HERE.parent))
 
-from caseprep.frames import place_body  # noqa: E402
-from caseprep.manifest import CaseRecord, Manifest, Reference, write_manifest  # noqa: E402
+from caseprep.contract.frames import place_body  # noqa: E402
+from caseprep.contract.manifest import CaseRecord, Manifest, Reference, write_manifest  # noqa: E402
 
 HEADER = """FoamFile
 {{

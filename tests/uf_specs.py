@@ -13,10 +13,10 @@ from pathlib import Path
 
 import numpy as np
 
-from caseprep import frames as fr
-from caseprep.geometry import write_stl_ascii
-from caseprep.manifest import Reference
-from caseprep.spec import (CaseSpec, Domain, Flow, Layers, MeshSpec, OrientedBox, RefinementRegion,
+from caseprep.contract import frames as fr
+from caseprep.geometry.stl import write_stl_ascii
+from caseprep.contract.manifest import Reference
+from caseprep.planning.spec import (CaseSpec, Domain, Flow, Layers, MeshSpec, OrientedBox, RefinementRegion,
                            SolverSpec, Wheel)
 
 LENGTH, WIDTH, HEIGHT = 1.0, 0.4, 0.2  # m, demo body

@@ -25,7 +25,8 @@ import numpy as np
 HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE.parent.parent))  # run from a source checkout without installing
 
-from caseprep.geometry import inspect_surface, write_stl_ascii  # noqa: E402
+from caseprep.geometry.checks import inspect_surface
+from caseprep.geometry.stl import write_stl_ascii  # noqa: E402
 
 LENGTH = 1.2          # m
 HALF_WIDTH = 0.25     # m

@@ -14,7 +14,7 @@ import numpy as np
 HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE.parent.parent))
 
-from caseprep.geometry import write_stl_ascii  # noqa: E402
+from caseprep.geometry.stl import write_stl_ascii  # noqa: E402
 
 DIAMETER = 0.1  # m
 

@@ -1,1 +1,2 @@
-"""Readers of postproc's inputs (results tables, configs)."""
+"""Reading results from disk: surface and flow (volume) readers, the newest VTK export of a case.
+"""

@@ -15,7 +15,7 @@ from pathlib import Path
 from types import MappingProxyType
 from typing import Any, Mapping
 
-from caseprep.errors import UserError, did_you_mean
+from caseprep.contract.errors import UserError, did_you_mean
 
 #: section.key → (unit, meaning)
 KEYS: Mapping[str, tuple[str, str]] = MappingProxyType({
@@ -42,11 +42,15 @@ KEYS: Mapping[str, tuple[str, str]] = MappingProxyType({
     "platform.rate_rear": ("N/m", "rear rate referred to the rear ride-height point"),
     "platform.speeds": ("m/s", "speeds at which to report the equilibrium"),
     "platform.speed_max": ("m/s", "highest speed searched for bottoming (default 1.5 × the largest speed)"),
-    "platform.air_density": ("kg/m³", "air density of the dynamic pressure (default ISO 2533 sea level, 1.225)"),
+    "platform.air_density": ("kg/m³", "air density of the dynamic pressure (default: the table's air_density, "
+                                      "else ISO 2533 sea level, 1.225)"),
     "platform.reference_area": ("m²", "reference area of the coefficients (default: the table's reference_area)"),
     "platform.yaw_deg": ("deg", "yaw of the map used (default: the smallest |yaw| tested)"),
 })
 SECTIONS = ("ranking", "constraints", "maps", "design", "platform")
+#: kg/m³, ISO 2533:1975 standard atmosphere at sea level (288.15 K, 101 325 Pa): the platform's
+#: density when neither the settings nor the results table give one
+STANDARD_AIR_DENSITY = 1.225
 
 
 @dataclass(frozen=True)

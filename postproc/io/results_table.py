@@ -28,7 +28,7 @@ from typing import Any, Callable, Mapping
 
 import numpy as np
 
-from caseprep.errors import UserError, UserErrors
+from caseprep.contract.errors import UserError, UserErrors
 
 
 @dataclass(frozen=True)
@@ -56,6 +56,7 @@ COLUMNS: Mapping[str, Column] = MappingProxyType({
     "cl_rear": Column("—", True, "float", "rear axle lift coefficient C_LR", may_be_empty=True),
     "case_id": Column("—", False, "text", "row label (default: variant and line number)"),
     "reference_area": Column("m²", False, "float", "reference area of the coefficients", may_be_empty=True),
+    "air_density": Column("kg/m³", False, "float", "air density of the run", may_be_empty=True),
     "flags": Column("—", False, "flags", "';'-separated problems; empty = usable"),
     "u_cl": Column("—", False, "float", "standard uncertainty of C_L (e.g. iterative std)", may_be_empty=True),
     "u_cd": Column("—", False, "float", "standard uncertainty of C_D", may_be_empty=True),
@@ -183,10 +184,10 @@ def _check_units(rows: list[dict], source: str) -> None:
         if abs(r["yaw_deg"]) > 90:
             raise UserError(expected="a yaw angle within ±90 deg", got=r["yaw_deg"], file=source,
                             key=f"yaw_deg of {r['case_id']}", fix="yaw is in degrees")
-        a = r.get("reference_area", math.nan)
-        if math.isfinite(a) and not a > 0:
-            raise UserError(expected="a positive reference area (m²)", got=a, file=source,
-                            key=f"reference_area of {r['case_id']}")
+        for k, what in (("reference_area", "reference area (m²)"), ("air_density", "air density (kg/m³)")):
+            a = r.get(k, math.nan)
+            if math.isfinite(a) and not a > 0:
+                raise UserError(expected=f"a positive {what}", got=a, file=source, key=f"{k} of {r['case_id']}")
 
 
 def _table(rows: list[dict], source: str, kind: str, notes: list[str]) -> ResultsTable:
@@ -258,7 +259,7 @@ def read_results_csv(path: str | Path) -> ResultsTable:
 
 
 def _case_extras(case_file: Path) -> dict[str, float]:
-    """Reference area and iterative uncertainties of one case from its
+    """Reference area, air density and iterative uncertainties of one case from its
     ``results/<case>.json`` (written by ``postproc sweep``); {} when absent.
 
     Iterative uncertainty: the force monitor's standard deviation over the
@@ -276,9 +277,11 @@ def _case_extras(case_file: Path) -> dict[str, float]:
         return {}
     out: dict[str, float] = {}
     ref = d.get("reference") if isinstance(d.get("reference"), dict) else {}
-    area, q = ref.get("area"), ref.get("q")
+    area, q, rho = ref.get("area"), ref.get("q"), ref.get("rho")
     if isinstance(area, (int, float)) and area > 0:
         out["reference_area"] = float(area)
+    if isinstance(rho, (int, float)) and rho > 0:
+        out["air_density"] = float(rho)
     series = ((d.get("convergence") or {}).get("series") or {}) if isinstance(d.get("convergence"), dict) else {}
     std = {k: v.get("std") for k, v in series.items() if isinstance(v, dict) and isinstance(v.get("std"), (int, float))}
     if isinstance(q, (int, float)) and q > 0 and "reference_area" in out and std:

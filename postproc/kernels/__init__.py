@@ -1,1 +1,2 @@
-"""Pure numeric kernels (numpy/scipy only)."""
+"""Pure numeric kernels (numpy/scipy in, numbers and frozen dataclasses out; no I/O).
+"""

@@ -1,1 +1,2 @@
-"""Orchestration: one case or one sweep from inputs to result data."""
+"""Orchestration: one case (forces, flow) and one sweep, from readers through kernels to data.
+"""

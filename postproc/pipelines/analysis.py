@@ -19,12 +19,11 @@ from typing import Any
 
 import numpy as np
 
-from caseprep import __version__
-from caseprep.errors import UserError, did_you_mean
-from caseprep.physics import air_density, isa_troposphere
-from caseprep.safeio import json_ready, write_json_atomic
+from caseprep.contract import __version__
+from caseprep.contract.errors import UserError, did_you_mean
+from caseprep.contract.atomicio import json_ready, write_json_atomic
 
-from ..io.analysis_config import AnalysisConfig, read_analysis_config
+from ..io.analysis_config import STANDARD_AIR_DENSITY, AnalysisConfig, read_analysis_config
 from ..io.results_table import ResultsTable, read_results
 from ..kernels.decision import CONSTRAINTS, DEFAULT_WEIGHTS, METRICS, DecisionOptions, PointData, decide, point_key
 from ..kernels.mapfit import MapFit, MapOptions, fit_map
@@ -248,7 +247,8 @@ def _platform_one(v: str, fits_by: dict, points: list[OpPoint], levels: dict[str
     if area is None:
         return {**base, "status": str(FitStatus.REFUSED),
                 "reason": "no reference area: give a reference_area column or platform.reference_area"}
-    rho = ps.air_density if ps.air_density is not None else air_density(*isa_troposphere(0.0)[::-1])
+    rhos = [p.rho for p in points if p.variant == v and math.isfinite(p.rho)]
+    rho = ps.air_density if ps.air_density is not None else (float(np.mean(rhos)) if rhos else STANDARD_AIR_DENSITY)
     plat = Platform(ps.static_front, ps.static_rear, ps.rate_front, ps.rate_rear)
     loads = AxleLoads(lambda a, b: float(f(a, b)), lambda a, b: float(r(a, b)), area, rho,
                       lambda a, b: bool(f.extrapolated(a, b)))

@@ -18,9 +18,9 @@ in quadrature, GUM JCGM 100:2008 §5.1, treating the sources as independent):
 * u_fit: the leave-one-out RMS error of the variant's aero map of that
   coefficient (added by the pipeline after the maps are fitted).
 
-Mesh level m has the representative cell size h_m ∝ √2^(−m)
-(caseprep.domain.LEVEL_FACTOR): a table from elsewhere must follow that rule
-for the GCI to hold, or use one mesh level.
+Mesh level m has the representative cell size h_m ∝ √2^(−m) (the sweep's
+mesh levels divide the base cell by √2): a table from elsewhere must follow
+that rule for the GCI to hold, or use one mesh level.
 """
 from __future__ import annotations
 
@@ -29,10 +29,8 @@ from dataclasses import dataclass, field, replace
 
 import numpy as np
 
-from caseprep.domain import LEVEL_FACTOR
-
 from ..io.results_table import ResultsTable
-from ..meshstudy import grid_convergence
+from ..kernels.meshstudy import grid_convergence
 
 COEFS = ("cl", "cd", "cs", "cl_front", "cl_rear")
 
@@ -55,6 +53,7 @@ class OpPoint:
     u_mesh: dict[str, float] = field(default_factory=dict)
     u_fit: dict[str, float] = field(default_factory=dict)
     case_ids: tuple[str, ...] = ()
+    rho: float = math.nan
 
     @property
     def usable(self) -> bool:
@@ -92,12 +91,16 @@ def _combine(rows: list[int], t: ResultsTable, notes: list[str]) -> OpPoint:
     if usable and len(usable) < len(rows):
         notes.append(f"{t.variant[i0]}: flagged repeat(s) {', '.join(t.case_id[i] for i in rows if i not in usable)} "
                      "ignored: a usable repeat of the same point exists")
-    areas = np.array([t.col("reference_area")[i] for i in use])
-    area = float(np.mean(areas[np.isfinite(areas)])) if np.any(np.isfinite(areas)) else math.nan
+    area, rho = (_finite_mean([t.col(k)[i] for i in use]) for k in ("reference_area", "air_density"))
     c = t.col
     return OpPoint(t.variant[i0], float(c("ride_height_front")[i0]), float(c("ride_height_rear")[i0]),
                    float(c("yaw_deg")[i0]), float(c("speed")[i0]), int(c("mesh_level")[i0]), flags, vals, area,
-                   u_it, {}, {}, tuple(t.case_id[i] for i in rows))
+                   u_it, {}, {}, tuple(t.case_id[i] for i in rows), rho)
+
+
+def _finite_mean(values) -> float:
+    a = np.asarray(values, dtype=float)
+    return float(np.mean(a[np.isfinite(a)])) if np.any(np.isfinite(a)) else math.nan
 
 
 def operating_points(t: ResultsTable) -> tuple[list[OpPoint], list[str]]:
@@ -113,8 +116,10 @@ def operating_points(t: ResultsTable) -> tuple[list[OpPoint], list[str]]:
 
 
 def level_cell_size(level: int) -> float:
-    """Relative representative cell size of mesh level m: √2^(−m) (caseprep.domain)."""
-    return LEVEL_FACTOR ** (-level)
+    """Representative cell size of mesh level m relative to level 0: each
+    level divides the base cell by √2 (caseprep's mesh levels), so
+    h_m = 2^(−m/2). Dimensionless."""
+    return 2.0 ** (-0.5 * level)
 
 
 def mesh_study(points: list[OpPoint]) -> tuple[list[dict], list[str]]:

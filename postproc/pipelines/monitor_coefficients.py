@@ -1,10 +1,10 @@
 """The runtime force monitor as coefficient series, judged by the
-coefficient-count convergence rule (``postproc.kernels.settled``).
+convergence rule in coefficient counts (``caseprep.contract.convergence``).
 
 The monitor (``read_monitor``) gives the total force (N) and the moment
 (N·m) about the manifest's moment point in the body (mesh) frame per
 iteration. Each sample of the settling window is reduced exactly like the
-VTK export (``postproc.coefficients``: wind-axes coefficients and the axle
+VTK export (``postproc.kernels.coefficients``: wind-axes coefficients and the axle
 lift coefficients from statics about the wheelbase midpoint at ground
 level), so the window means are directly comparable with — and replace —
 the last-iteration values.
@@ -15,9 +15,11 @@ from typing import Mapping
 
 import numpy as np
 
-from .. import coefficients as co
-from ..forces import ForceResult
-from ..kernels.settled import DEFAULT_TOLERANCES, judge_coefficients
+from caseprep.contract.convergence import DEFAULT_OPTIONS, ConvergenceOptions, judge_coefficients
+from caseprep.contract.frames import axes_rotations, axle_axes
+
+from ..kernels import coefficients as co
+from ..kernels.forces import ForceResult
 
 
 def _result(force: np.ndarray, moment: np.ndarray, about: np.ndarray) -> ForceResult:
@@ -42,21 +44,22 @@ def coefficient_series(monitor: Mapping[str, np.ndarray], ref: co.ReferenceValue
     names = ["cl", "cd", "cs"] + (["cn"] if has_m else []) + \
         (["cl_front", "cl_rear"] if has_m and ref.front_axle is not None and ref.rear_axle is not None else [])
     out = {k: np.empty(len(F)) for k in names}
+    rot, axle = axes_rotations(placement, wind_direction_body), axle_axes(placement)
     for i in range(len(F)):
         r = _result(F[i], M[i] if M is not None else np.zeros(3), about)
-        c = co.coefficients(r, ref, placement, wind_direction_body)
+        c = co.coefficients(r, ref, rot)
         out["cl"][i], out["cd"][i], out["cs"][i] = c.lift, c.drag, c.side
         if "cn" in out:
             out["cn"][i] = c.yawing
         if "cl_front" in out:
-            b = co.balance(r, ref, placement)
+            b = co.balance(r, ref, axle)
             out["cl_front"][i], out["cl_rear"][i] = b.c_lift_front, b.c_lift_rear
     return out
 
 
 def judge_monitor(monitor: Mapping[str, np.ndarray], ref: co.ReferenceValues, placement=None,
                   wind_direction_body=None, window: int | None = None,
-                  tolerances: Mapping[str, float] = DEFAULT_TOLERANCES) -> dict:
+                  options: ConvergenceOptions = DEFAULT_OPTIONS) -> dict:
     """The coefficient-count verdict of a monitor over ``window`` samples,
-    with window means and spreads (``postproc.kernels.settled``)."""
-    return judge_coefficients(coefficient_series(monitor, ref, placement, wind_direction_body, window), tolerances)
+    with window means and spreads (``caseprep.contract.convergence``)."""
+    return judge_coefficients(coefficient_series(monitor, ref, placement, wind_direction_body, window), options)

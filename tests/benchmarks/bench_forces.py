@@ -25,9 +25,9 @@ import numpy as np
 ROOT = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(ROOT))
 
-from postproc.caseforces import forces_report as run_forces  # noqa: E402
-from postproc.forces import integrate_forces  # noqa: E402
-from postproc.readers import read_surface  # noqa: E402
+from postproc.pipelines.case_forces import forces_report as run_forces  # noqa: E402
+from postproc.kernels.forces import integrate_forces  # noqa: E402
+from postproc.io.surfaces import read_surface  # noqa: E402
 
 
 def quad_torus(n_faces: int):

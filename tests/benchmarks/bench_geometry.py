@@ -15,8 +15,8 @@ import numpy as np
 sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
 sys.path.insert(0, str(Path(__file__).resolve().parent.parent.parent))
 
-from caseprep import geometry as geo  # noqa: E402
-from caseprep.frames import place_body  # noqa: E402
+from caseprep.geometry import body, checks, stl  # noqa: E402
+from caseprep.contract.frames import place_body  # noqa: E402
 from planning_helpers import write_binary_stl  # noqa: E402
 
 
@@ -37,7 +37,7 @@ def bumpy_body(n_theta: int, n_x: int) -> np.ndarray:
             kk = (jj + 1) % n_theta
             caps.append([cen, R[s, jj], R[s, kk]] if sgn < 0 else [cen, R[s, kk], R[s, jj]])
     T = np.concatenate([quads, np.array(caps)])
-    if geo.inspect_surface(T).volume < 0:
+    if checks.inspect_surface(T).volume < 0:
         T = T[:, ::-1]
     return T
 
@@ -48,13 +48,13 @@ def main() -> None:
     with tempfile.TemporaryDirectory() as tmp:
         p = write_binary_stl(Path(tmp) / "big.stl", T)
         t0 = time.perf_counter()
-        s = geo.read_stl(p)
+        s = stl.read_stl(p)
         t_read = time.perf_counter() - t0
     t0 = time.perf_counter()
-    rep = geo.inspect_surface(s.triangles)
+    rep = checks.inspect_surface(s.triangles)
     t_inspect = time.perf_counter() - t0
     t0 = time.perf_counter()
-    g = geo.analyse(s)
+    g = body.analyse(s)
     t_analyse = time.perf_counter() - t0
     print(f"read binary STL   {t_read:6.3f} s  ({t_read / len(T) * 1e6:.3f} µs/triangle)")
     print(f"topology checks   {t_inspect:6.3f} s  closed={rep.closed} misoriented={rep.misoriented_edges}")

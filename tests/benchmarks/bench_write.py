@@ -23,7 +23,7 @@ HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE.parent))          # tests/ (uf_specs)
 sys.path.insert(0, str(HERE.parent.parent))   # repository root (caseprep)
 
-from caseprep.writer import write_sweep  # noqa: E402
+from caseprep.casefiles.writer import write_sweep  # noqa: E402
 from uf_specs import make_spec  # noqa: E402
 
 TARGET_S = 10.0

@@ -1,0 +1,422 @@
+"""Write a sweep folder from rendered CaseSpecs (the I/O half of case writing).
+
+Layout written under ``out_dir``::
+
+    manifest.json           sweep manifest (caseprep.contract.manifest), one record per case
+    cases.txt               one case id per line (run_all.sh, slurm_array.sh read it)
+    run_all.sh              workstation runner (N cases at a time)
+    slurm_array.sh          SLURM array job (one task per case)
+    geometry/<file>         the ONE copy of each surface file (body, wheels)
+    cases/<case_id>/        one solver case; constant/triSurface/<file> is a
+                            relative symlink to ../../../../geometry/<file>
+
+Safety rules:
+
+* Only new cases are added by default. A case folder that exists and holds
+  exactly what would be written is left alone (files the run added — mesh,
+  results, logs — are ignored in that comparison). A case that exists and
+  differs is refused (:class:`UserError` naming the case and the first
+  differing file) unless ``force=True``; then that case folder is replaced
+  as a whole (its mesh, results and logs go with it).
+* Nothing is written before every case and geometry file has been rendered
+  and checked, so a refused run changes nothing.
+* Each case folder is assembled in a hidden temporary folder beside its
+  final place and renamed into place, so a case appears complete or not at
+  all; the sweep-level files and the geometry copies are written atomically
+  (:mod:`caseprep.contract.atomicio`). Files outside the cases being replaced are never
+  deleted.
+"""
+from __future__ import annotations
+
+import dataclasses
+import datetime as _dt
+import hashlib
+import os
+import re
+import shutil
+import struct
+import tempfile
+from concurrent.futures import ThreadPoolExecutor
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Mapping, Sequence
+
+import numpy as np
+
+from caseprep.contract import __version__
+from caseprep.contract.errors import UserError
+from caseprep.contract.manifest import MANIFEST_NAME, CaseRecord, Manifest, read_manifest, write_manifest
+from caseprep.casefiles.render import (CASES_DIR, GEOMETRY_DIR, CaseFile, outputs_record, render_case, render_sweep_scripts,
+                     surfaces)
+from caseprep.contract.atomicio import write_bytes_atomic, write_text_atomic
+from caseprep.planning.spec import CaseSpec
+
+
+@dataclass(frozen=True)
+class WriteSummary:
+    """What :func:`write_sweep` did. ``case_bytes``: bytes of the files written
+    into case folders (symlinks and the shared geometry not counted)."""
+
+    root: Path
+    written: tuple[str, ...]
+    replaced: tuple[str, ...]
+    unchanged: tuple[str, ...]
+    geometry_written: tuple[str, ...]
+    manifest: Path
+    case_bytes: int
+
+    @property
+    def n_cases(self) -> int:
+        return len(self.written) + len(self.replaced) + len(self.unchanged)
+
+
+# --------------------------------------------------------------------------- geometry
+_SOLID_RE = re.compile(rb"^[ \t]*solid[ \t]+([^\r\n]*?)[ \t]*\r?$", re.MULTILINE)
+
+
+def _is_binary_stl(data: bytes) -> bool:
+    if len(data) < 84:
+        return False
+    (n,) = struct.unpack_from("<I", data, 80)
+    if len(data) == 84 + 50 * n:
+        return True
+    return not data.lstrip()[:5].lower() == b"solid"
+
+
+def stl_solid_names(data: bytes) -> list[str] | None:
+    """Solid names of an ASCII STL (in file order), or None for a binary STL
+    (which has no named solids)."""
+    if _is_binary_stl(data):
+        return None
+    return [m.group(1).decode("utf-8", "replace").split()[0] if m.group(1).strip() else "" for m in _SOLID_RE.finditer(data)]
+
+
+def _scale_stl(data: bytes, scale: float) -> bytes:
+    """The STL ``data`` with every coordinate multiplied by ``scale`` (solids kept)."""
+    if _is_binary_stl(data):
+        (n,) = struct.unpack_from("<I", data, 80)
+        rec = np.dtype([("n", "<f4", 3), ("v", "<f4", (3, 3)), ("a", "<u2")])
+        tri = np.frombuffer(data, dtype=rec, count=n, offset=84).copy()
+        tri["v"] *= np.float32(scale)
+        return data[:84] + tri.tobytes()
+
+    def sub(m: re.Match) -> bytes:
+        xyz = [float(v) * scale for v in m.group(2).split()]
+        return m.group(1) + (" ".join(f"{v:.9g}" for v in xyz)).encode()
+
+    return re.sub(rb"(^[ \t]*vertex[ \t]+)([^\r\n]+)", sub, data, flags=re.MULTILINE)
+
+
+def _convert_to_stl(src: Path, solid: str, scale: float) -> bytes:
+    """Read a non-STL surface (OBJ, PLY, VTK, … via meshio) and return an ASCII
+    STL with one solid ``solid``; coordinates × ``scale``."""
+    import meshio
+
+    try:
+        m = meshio.read(src)
+    except Exception as exc:  # meshio raises many types for unreadable files
+        raise UserError(expected="a surface file meshio can read (STL, OBJ, PLY, VTK …)", got=f"{src.name}: {exc}",
+                        file=str(src), fix="export the surface as STL") from None
+    pts = np.asarray(m.points, dtype=float)[:, :3] * scale
+    tris = [c.data for c in m.cells if c.type == "triangle"]
+    if not tris:
+        raise UserError(expected="a triangulated surface", got="no triangles", file=str(src),
+                        fix="triangulate the surface before export")
+    t = np.concatenate(tris)
+    lines = [f"solid {solid}"]
+    for a, b, c in t:
+        n = np.cross(pts[b] - pts[a], pts[c] - pts[a])
+        ln = float(np.linalg.norm(n))
+        n = n / ln if ln > 0 else n
+        lines.append("facet normal {:.9g} {:.9g} {:.9g}".format(*n))
+        lines.append("outer loop")
+        for k in (a, b, c):
+            lines.append("vertex {:.9g} {:.9g} {:.9g}".format(*pts[k]))
+        lines.append("endloop")
+        lines.append("endfacet")
+    lines.append(f"endsolid {solid}")
+    return ("\n".join(lines) + "\n").encode()
+
+
+def _resolve_source(name: str, spec: CaseSpec, sources: Mapping[str, os.PathLike | str], config_dir: Path) -> Path:
+    """Where the shared geometry file ``name`` comes from: ``sources[name]``,
+    else ``spec.extra["geometry_sources"][name]``, else ``<config dir>/<name>``
+    (relative paths are taken relative to the config file's folder)."""
+    src = sources.get(name)
+    if src is None:
+        src = (spec.extra.get("geometry_sources") or {}).get(name)
+    p = Path(src) if src is not None else Path(name)
+    if not p.is_absolute():
+        p = config_dir / p
+    if not p.is_file():
+        raise UserError(expected=f"the geometry file for {name!r}", got=str(p), key="geometry",
+                        fix="check the geometry path in the config (relative paths are relative to the config file)")
+    return p
+
+
+def _expected_solids(spec: CaseSpec) -> dict[str, list[str]]:
+    """Per shared file: solid names the mesher must find in it."""
+    return {s.file: [solid for solid, _ in s.regions] for s in surfaces(spec)}
+
+
+def _prepare_geometry(specs: Sequence[CaseSpec], sources: Mapping, config_dir: Path) -> dict[str, bytes]:
+    """Bytes of each shared geometry file (copied, scaled or converted once)."""
+    out: dict[str, bytes] = {}
+    want: dict[str, tuple[list[str], CaseSpec, float]] = {}
+    for spec in specs:
+        scales = spec.extra.get("geometry_scales") or {}
+        for name, solids in _expected_solids(spec).items():
+            scale = float(scales.get(name, spec.extra.get("geometry_scale", 1.0)))
+            prev = want.get(name)
+            if prev is not None and (sorted(prev[0]) != sorted(solids) or prev[2] != scale):
+                raise UserError(expected=f"every case to use {name!r} with the same solids and scale",
+                                got=f"{prev[0]} ×{prev[2]} and {solids} ×{scale}", key="geometry",
+                                fix="give differing surfaces different file names")
+            want[name] = (solids, spec, scale)
+    for name, (solids, spec, scale) in want.items():
+        src = _resolve_source(name, spec, sources, config_dir)
+        is_stl = src.suffix.lower() == ".stl"
+        if is_stl:
+            data = src.read_bytes()
+            if scale != 1.0:
+                data = _scale_stl(data, scale)
+        else:
+            if len(solids) != 1:
+                raise UserError(expected=f"an STL with named solids {solids}", got=src.name, file=str(src),
+                                key="geometry", fix="export a multi-solid surface as ASCII STL")
+            data = _convert_to_stl(src, solids[0], scale)
+        found = stl_solid_names(data)
+        if found is None or len(found) == 1:
+            if len(solids) != 1:
+                what = "a binary STL (no solid names)" if found is None else f"one solid {found}"
+                raise UserError(expected=f"{len(solids)} named solids {solids}", got=what, file=str(src), key="geometry",
+                                fix="export the surface as ASCII STL with one solid per part")
+        elif sorted(found) != sorted(solids):
+            raise UserError(expected=f"solids {sorted(solids)}", got=sorted(found), file=str(src), key="geometry solids",
+                            fix="list every solid of the file in the config (body parts and wheels)")
+        out[name] = data
+    return out
+
+
+# --------------------------------------------------------------------------- cases
+def _first_difference(folder: Path, files: Mapping[str, CaseFile]) -> str | None:
+    """First file (sorted) of ``files`` that ``folder`` lacks or holds differently,
+    with the reason; None if all match. Other files in the folder are ignored."""
+    for rel in sorted(files):
+        f = files[rel]
+        p = folder / rel
+        if f.symlink:
+            if not p.is_symlink():
+                return f"{rel} (not a link to the shared geometry)"
+            if os.readlink(p) != f.text:
+                return f"{rel} (links to {os.readlink(p)!r}, expected {f.text!r})"
+            continue
+        if p.is_symlink() or not p.is_file():
+            return f"{rel} (missing)"
+        try:
+            data = p.read_bytes()
+        except OSError as exc:
+            return f"{rel} (unreadable: {exc})"
+        if data != f.text.encode("utf-8"):
+            return f"{rel} (content differs)"
+        if bool(p.stat().st_mode & 0o100) != bool(f.mode & 0o100):
+            return f"{rel} (executable bit differs)"
+    return None
+
+
+def _current_umask() -> int:
+    mask = os.umask(0o022)
+    os.umask(mask)
+    return mask
+
+
+def _assemble(tmp: Path, files: Mapping[str, CaseFile], umask: int = 0o022) -> int:
+    """Write ``files`` into the fresh folder ``tmp``; returns bytes written.
+
+    Plain writes (no per-file sync): the folder is renamed into place only
+    when complete, which is what makes the case appear atomically.
+    """
+    nbytes = 0
+    made: set[Path] = {tmp}
+    for rel in sorted(files):
+        f = files[rel]
+        p = tmp / rel
+        if p.parent not in made:
+            p.parent.mkdir(parents=True, exist_ok=True)
+            made.add(p.parent)
+        if f.symlink:
+            os.symlink(f.text, p)
+            continue
+        data = f.text.encode("utf-8")
+        fd = os.open(p, os.O_WRONLY | os.O_CREAT | os.O_EXCL, f.mode & 0o777)
+        try:
+            os.write(fd, data)
+        finally:
+            os.close(fd)
+        if f.mode & umask:
+            os.chmod(p, f.mode & 0o777)  # the umask took bits away: set the intended mode
+        nbytes += len(data)
+    return nbytes
+
+
+def _place_case(cases_dir: Path, case_id: str, files: Mapping[str, CaseFile], replace: bool, umask: int) -> int:
+    tmp = Path(tempfile.mkdtemp(prefix=f".uf-new-{case_id}-", dir=cases_dir))
+    try:
+        os.chmod(tmp, 0o755)  # mkdtemp makes it private
+        n = _assemble(tmp, files, umask)
+        final = cases_dir / case_id
+        if replace:
+            old = Path(tempfile.mkdtemp(prefix=f".uf-old-{case_id}-", dir=cases_dir))
+            os.rename(final, old / "case")
+            os.rename(tmp, final)
+            shutil.rmtree(old, ignore_errors=True)
+        else:
+            os.rename(tmp, final)  # fails if something appeared meanwhile: never overwrites
+        return n
+    except BaseException:
+        shutil.rmtree(tmp, ignore_errors=True)
+        raise
+
+
+def _check_specs(specs: Sequence[CaseSpec]) -> None:
+    seen: set[str] = set()
+    for s in specs:
+        cid = s.case_id
+        if not cid or "/" in cid or "\\" in cid or cid.startswith(".") or cid != os.path.basename(cid) or "\0" in cid:
+            raise ValueError(f"unsafe case id {cid!r}: expected a single path component (validated upstream)")
+        if cid in seen:
+            raise ValueError(f"duplicate case id {cid!r} in the plan")
+        seen.add(cid)
+
+
+def config_hash(config_path: os.PathLike | str) -> str:
+    """``sha256:<hex>`` of the config file's bytes."""
+    return "sha256:" + hashlib.sha256(Path(config_path).read_bytes()).hexdigest()
+
+
+def write_sweep(
+    specs: Sequence[CaseSpec],
+    out_dir: os.PathLike | str,
+    config_path: os.PathLike | str,
+    force: bool = False,
+    *,
+    geometry_sources: Mapping[str, os.PathLike | str] | None = None,
+    study: str | None = None,
+) -> WriteSummary:
+    """Write the sweep folder ``out_dir`` for ``specs`` (see module docstring).
+
+    ``config_path``: the config the specs came from (hashed into the manifest;
+    its folder is where relative geometry paths start). ``geometry_sources``
+    maps shared geometry file names (``spec.geometry``, ``Wheel.geometry``) to
+    source files; else ``spec.extra["geometry_sources"]``, else the name next
+    to the config. ``spec.extra["geometry_scales"][name]`` (else ``spec.extra["geometry_scale"]``,
+    default 1) multiplies the
+    source coordinates (e.g. 0.001 for a file drawn in mm) when the shared
+    copy is made. ``study``: manifest study name (default: the existing
+    manifest's, else the config file's stem).
+
+    Returns a :class:`WriteSummary`. Raises :class:`UserError` for a case or
+    geometry file that exists with different content (unless ``force``) and
+    for bad geometry sources.
+    """
+    specs = list(specs)
+    if not specs:
+        raise UserError(expected="at least one case to write", got="an empty plan", file=str(config_path),
+                        fix="check the sweep ranges in the config")
+    _check_specs(specs)
+    root = Path(out_dir)
+    cfg = Path(config_path)
+    if not cfg.is_file():
+        raise UserError(expected="a config file", got=str(cfg), fix="give the path of the sweep's TOML config")
+    if root.exists() and not root.is_dir():
+        raise UserError(expected="an output folder", got=f"{root} (a file)", key="-o", fix="choose a folder path")
+    chash = config_hash(cfg)
+
+    # 1. render everything (pure) and prepare geometry — nothing written yet
+    rendered = {s.case_id: render_case(s) for s in specs}
+    geometry = _prepare_geometry(specs, geometry_sources or {}, cfg.resolve().parent)
+
+    # 2. compare with what exists
+    cases_dir = root / CASES_DIR
+    geo_dir = root / GEOMETRY_DIR
+    geo_todo: list[str] = []
+    for name, data in geometry.items():
+        p = geo_dir / name
+        if p.is_symlink() or (p.exists() and not p.is_file()):
+            raise UserError(expected=f"{GEOMETRY_DIR}/{name} to be a plain file", got="a link or folder",
+                            file=str(p), fix="remove it; caseprep keeps one real copy there")
+        if p.is_file():
+            if p.stat().st_size == len(data) and p.read_bytes() == data:
+                continue
+            if not force:
+                raise UserError(
+                    f"the shared geometry {GEOMETRY_DIR}/{name} in {root} differs from the source "
+                    "(all existing cases were meshed with the old one)",
+                    fix="write to a new folder, or re-run with --force to replace it (existing meshes then no longer "
+                        "match the geometry: re-run their mesh stage)")
+        geo_todo.append(name)
+    new, replace, same = [], [], []
+    for s in specs:
+        folder = cases_dir / s.case_id
+        if not (folder.exists() or folder.is_symlink()):
+            new.append(s.case_id)
+            continue
+        if folder.is_symlink() or not folder.is_dir():
+            raise UserError(expected=f"{CASES_DIR}/{s.case_id} to be a case folder", got="a file or link",
+                            file=str(folder), fix="move it away")
+        diff = _first_difference(folder, rendered[s.case_id])
+        if diff is None:
+            same.append(s.case_id)
+        elif force:
+            replace.append(s.case_id)
+        else:
+            raise UserError(
+                f"case {s.case_id} already exists in {cases_dir} and differs from what would be written: "
+                f"first difference {diff}",
+                fix="re-run with --force to replace the differing cases (their mesh, results and logs are deleted), "
+                    "or write to a new folder")
+
+    # 3. write
+    cases_dir.mkdir(parents=True, exist_ok=True)
+    for name in geo_todo:
+        write_bytes_atomic(geo_dir / name, geometry[name], mode=0o644)
+    umask = _current_umask()
+    jobs = [(cid, False) for cid in new] + [(cid, True) for cid in replace]
+    # File creation is metadata-bound (system calls release the GIL): a few
+    # threads, each assembling whole case folders, overlap that waiting.
+    with ThreadPoolExecutor(max_workers=min(8, max(1, len(jobs)))) as pool:
+        sizes = list(pool.map(lambda j: _place_case(cases_dir, j[0], rendered[j[0]], replace=j[1], umask=umask), jobs))
+    nbytes = sum(sizes)
+
+    # 4. manifest (existing records of cases not in this plan are kept while their folder exists)
+    old: Manifest | None = None
+    if (root / MANIFEST_NAME).is_file():
+        try:
+            old = read_manifest(root)
+        except UserError:
+            old = None
+    records: list[CaseRecord] = []
+    current = {s.case_id for s in specs}
+    if old is not None:
+        for r in old.cases:
+            if r.case_id not in current and (root / r.folder).is_dir():
+                records.append(r)
+    outputs = outputs_record()
+    for s in specs:
+        r = s.record(f"{CASES_DIR}/{s.case_id}")
+        records.append(dataclasses.replace(r, extra={**r.extra, "outputs": outputs}))
+    manifest = Manifest(
+        cases=tuple(records),
+        tool_version=__version__,
+        config_file=str(config_path),
+        config_hash=chash,
+        created_utc=_dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ"),
+        study=study or (old.study if old is not None and old.study else cfg.stem),
+    )
+    kept_ids = [r.case_id for r in records]
+    scripts = render_sweep_scripts(kept_ids, max(s.solver.n_procs for s in specs))
+    for rel, f in scripts.items():
+        write_text_atomic(root / rel, f.text, mode=f.mode)
+    mpath = write_manifest(manifest, root)
+    return WriteSummary(root=root, written=tuple(new), replaced=tuple(replace), unchanged=tuple(same),
+                        geometry_written=tuple(geo_todo), manifest=mpath, case_bytes=nbytes)

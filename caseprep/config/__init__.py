@@ -1,0 +1,2 @@
+"""TOML config → frozen, validated ``Config``.
+"""

@@ -1,0 +1,296 @@
+"""The sweep manifest: ``manifest.json`` at the sweep root.
+
+caseprep writes it; postproc reads it and takes every fact it needs from it
+(folders, parameters, frames, reference values), never from folder names.
+
+Schema (version 1)
+------------------
+::
+
+    {
+      "schema": "underfloor-manifest",
+      "schema_version": 1,
+      "tool_version": "0.1.0",
+      "config_file": "sweep.toml",            # as given, for the record
+      "config_hash": "sha256:…",              # of the config file's bytes
+      "created_utc": "2026-12-01T21:00:00Z",
+      "study": "demo-floor-study",
+      "cases": [ CaseRecord, … ]
+    }
+
+CaseRecord::
+
+    {
+      "case_id": "flat-ab12cd34",             # stable, see caseprep.planning.points
+      "folder": "cases/flat-ab12cd34",        # relative to the sweep root
+      "variant": "flat",
+      "params": {"ride_height_front": 0.03, "ride_height_rear": 0.05,
+                 "pitch_deg": -0.6, "yaw_deg": 0.0, "speed": 40.0,
+                 "mesh_level": 0},
+      "yaw_mode": "crosswind",                # or "yawed-model"
+      "ground": "moving",                     # or "stationary", "none"
+      "mesh_frame": "body",
+      "frames": Placement.to_dict(),          # body → ground transform
+      "wind_direction_body": [ux, uy, uz],    # unit, relative wind, body axes
+      "reference": {
+          "area": 0.35, "length": 0.75, "wheelbase": 0.75,
+          "front_axle": [x, y, z], "rear_axle": [x, y, z],   # body frame, m
+          "moment_point": [x, y, z],                        # body frame, m
+          "cog": [x, y, z] | null,                           # body frame, m
+          "rho": 1.225, "nu": 1.46e-5, "speed": 40.0,        # air speed for q
+          "p_ref": 0.0                                       # gauge reference, Pa
+      },
+      "patches": {"body": ["body"], "wheels": ["wheel_fl", …], "ground": "ground"},
+      "fidelity": "smoke",
+      "min_clearance": 0.021, "min_clearance_at": [x, y, z], # body frame
+      "estimated_cells": 180000
+    }
+
+All lengths in m, speeds in m/s, density kg/m³, kinematic viscosity m²/s,
+angles in degrees (keys ending ``_deg``).
+"""
+from __future__ import annotations
+
+import json
+import os
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+from caseprep.contract.errors import UserError
+from caseprep.contract.frames import Placement
+from caseprep.contract.atomicio import write_json_atomic
+
+SCHEMA = "underfloor-manifest"
+SCHEMA_VERSION = 1
+MANIFEST_NAME = "manifest.json"
+
+
+@dataclass(frozen=True)
+class Reference:
+    """Reference values for coefficients. SI units; points in the body frame."""
+
+    area: float
+    length: float
+    wheelbase: float
+    front_axle: tuple[float, float, float]
+    rear_axle: tuple[float, float, float]
+    moment_point: tuple[float, float, float]
+    rho: float
+    nu: float
+    speed: float
+    p_ref: float = 0.0
+    cog: tuple[float, float, float] | None = None
+
+    @property
+    def q(self) -> float:
+        """Dynamic pressure ½ρV², Pa."""
+        return 0.5 * self.rho * self.speed**2
+
+
+@dataclass(frozen=True)
+class CaseRecord:
+    """One case of the sweep as the manifest describes it."""
+
+    case_id: str
+    folder: str
+    variant: str
+    params: dict[str, Any]
+    yaw_mode: str
+    ground: str
+    mesh_frame: str
+    placement: Placement
+    wind_direction_body: tuple[float, float, float]
+    reference: Reference
+    patches: dict[str, Any]
+    fidelity: str
+    min_clearance: float | None = None
+    min_clearance_at: tuple[float, float, float] | None = None
+    estimated_cells: int | None = None
+    extra: dict[str, Any] = field(default_factory=dict)
+
+    def to_dict(self) -> dict[str, Any]:
+        r = self.reference
+        d = {
+            "case_id": self.case_id,
+            "folder": self.folder,
+            "variant": self.variant,
+            "params": dict(self.params),
+            "yaw_mode": self.yaw_mode,
+            "ground": self.ground,
+            "mesh_frame": self.mesh_frame,
+            "frames": self.placement.to_dict(),
+            "wind_direction_body": [float(v) for v in self.wind_direction_body],
+            "reference": {
+                "area": r.area,
+                "length": r.length,
+                "wheelbase": r.wheelbase,
+                "front_axle": list(r.front_axle),
+                "rear_axle": list(r.rear_axle),
+                "moment_point": list(r.moment_point),
+                "cog": list(r.cog) if r.cog is not None else None,
+                "rho": r.rho,
+                "nu": r.nu,
+                "speed": r.speed,
+                "p_ref": r.p_ref,
+            },
+            "patches": self.patches,
+            "fidelity": self.fidelity,
+            "min_clearance": self.min_clearance,
+            "min_clearance_at": list(self.min_clearance_at) if self.min_clearance_at is not None else None,
+            "estimated_cells": self.estimated_cells,
+        }
+        d.update(self.extra)
+        return d
+
+    @classmethod
+    def from_dict(cls, d: dict[str, Any], source: str = MANIFEST_NAME) -> "CaseRecord":
+        known = {
+            "case_id", "folder", "variant", "params", "yaw_mode", "ground", "mesh_frame", "frames",
+            "wind_direction_body", "reference", "patches", "fidelity", "min_clearance",
+            "min_clearance_at", "estimated_cells",
+        }
+        cid = d.get("case_id", "?")
+        try:
+            r = d["reference"]
+            ref = Reference(
+                area=float(r["area"]),
+                length=float(r["length"]),
+                wheelbase=float(r["wheelbase"]),
+                front_axle=tuple(float(v) for v in r["front_axle"]),
+                rear_axle=tuple(float(v) for v in r["rear_axle"]),
+                moment_point=tuple(float(v) for v in r["moment_point"]),
+                rho=float(r["rho"]),
+                nu=float(r["nu"]),
+                speed=float(r["speed"]),
+                p_ref=float(r.get("p_ref", 0.0)),
+                cog=tuple(float(v) for v in r["cog"]) if r.get("cog") is not None else None,
+            )
+            return cls(
+                case_id=str(d["case_id"]),
+                folder=str(d["folder"]),
+                variant=str(d["variant"]),
+                params=dict(d["params"]),
+                yaw_mode=str(d["yaw_mode"]),
+                ground=str(d["ground"]),
+                mesh_frame=str(d["mesh_frame"]),
+                placement=Placement.from_dict(d["frames"]),
+                wind_direction_body=tuple(float(v) for v in d["wind_direction_body"]),
+                reference=ref,
+                patches=dict(d["patches"]),
+                fidelity=str(d["fidelity"]),
+                min_clearance=d.get("min_clearance"),
+                min_clearance_at=tuple(d["min_clearance_at"]) if d.get("min_clearance_at") is not None else None,
+                estimated_cells=d.get("estimated_cells"),
+                extra={k: v for k, v in d.items() if k not in known},
+            )
+        except KeyError as exc:
+            raise UserError(
+                expected=f"a case record with the key {exc.args[0]!r}",
+                got="a record without it",
+                file=source,
+                key=f"cases[{cid}]",
+                fix="regenerate the sweep with `caseprep write` (the manifest is written by caseprep, not by hand)",
+            ) from None
+        except (TypeError, ValueError) as exc:
+            raise UserError(
+                f"malformed case record {cid!r} in {source}: {exc}",
+                fix="regenerate the sweep with `caseprep write`",
+            ) from None
+
+
+@dataclass(frozen=True)
+class Manifest:
+    """The whole sweep: header facts and the case records."""
+
+    cases: tuple[CaseRecord, ...]
+    tool_version: str
+    config_file: str
+    config_hash: str
+    created_utc: str
+    study: str
+    root: Path | None = None  # folder the manifest was read from (not serialised)
+
+    def to_dict(self) -> dict[str, Any]:
+        return {
+            "schema": SCHEMA,
+            "schema_version": SCHEMA_VERSION,
+            "tool_version": self.tool_version,
+            "config_file": self.config_file,
+            "config_hash": self.config_hash,
+            "created_utc": self.created_utc,
+            "study": self.study,
+            "cases": [c.to_dict() for c in self.cases],
+        }
+
+    def case(self, case_id: str) -> CaseRecord:
+        for c in self.cases:
+            if c.case_id == case_id:
+                return c
+        raise UserError(
+            expected="a case id listed in the manifest",
+            got=case_id,
+            file=str((self.root or Path(".")) / MANIFEST_NAME),
+            key="cases",
+            fix="known ids: " + ", ".join(c.case_id for c in self.cases[:20]) + (" …" if len(self.cases) > 20 else ""),
+        )
+
+    def case_dir(self, case: CaseRecord) -> Path:
+        return (self.root or Path(".")) / case.folder
+
+
+def write_manifest(manifest: Manifest, root: str | os.PathLike) -> Path:
+    """Write ``manifest.json`` into ``root`` atomically; returns its path."""
+    path = Path(root) / MANIFEST_NAME
+    write_json_atomic(path, manifest.to_dict())
+    return path
+
+
+def read_manifest(path: str | os.PathLike) -> Manifest:
+    """Read a manifest from a sweep folder or a ``manifest.json`` path."""
+    p = Path(path)
+    if p.is_dir():
+        p = p / MANIFEST_NAME
+    if not p.is_file():
+        raise UserError(
+            expected="a sweep folder holding manifest.json (written by `caseprep write`)",
+            got=str(path),
+            fix="point at the folder given to `caseprep write -o`",
+        )
+    try:
+        d = json.loads(p.read_text(encoding="utf-8"))
+    except (json.JSONDecodeError, UnicodeDecodeError) as exc:
+        raise UserError(f"{p} is not valid JSON ({exc})", fix="regenerate it with `caseprep write --force`") from None
+    if not isinstance(d, dict) or d.get("schema") != SCHEMA:
+        raise UserError(expected=f"schema {SCHEMA!r}", got=d.get("schema") if isinstance(d, dict) else type(d).__name__, file=str(p), key="schema")
+    if d.get("schema_version") != SCHEMA_VERSION:
+        raise UserError(expected=f"schema_version {SCHEMA_VERSION}", got=d.get("schema_version"), file=str(p), key="schema_version",
+                        fix="regenerate the sweep with this version of caseprep")
+    cases = tuple(CaseRecord.from_dict(c, source=str(p)) for c in d.get("cases", []))
+    return Manifest(
+        cases=cases,
+        tool_version=str(d.get("tool_version", "")),
+        config_file=str(d.get("config_file", "")),
+        config_hash=str(d.get("config_hash", "")),
+        created_utc=str(d.get("created_utc", "")),
+        study=str(d.get("study", "")),
+        root=p.parent,
+    )
+
+
+def find_case_manifest(case_dir: str | os.PathLike) -> tuple[Manifest, CaseRecord] | None:
+    """For a case folder, find the sweep manifest above it and the case's record.
+
+    Looks in the folder's parents (up to three levels) for ``manifest.json``
+    and matches the record whose ``folder`` resolves to ``case_dir``.
+    Returns None when the folder is not part of a sweep.
+    """
+    cd = Path(case_dir).resolve()
+    for parent in [cd, *list(cd.parents)[:3]]:
+        mp = parent / MANIFEST_NAME
+        if mp.is_file():
+            m = read_manifest(mp)
+            for c in m.cases:
+                if (parent / c.folder).resolve() == cd:
+                    return m, c
+    return None

@@ -1,0 +1,209 @@
+"""The run record of a case (``<case>/underfloor-run.json``), the sweep's
+run summary (``run_summary.json``), and the one vocabulary of statuses and
+flags that the runner writes and the post-processing reads and adds to.
+
+Files read from disk are untrusted: unknown keys are dropped, a missing or
+unreadable record reads as None. Units: wall times in seconds; residuals the
+solver's dimensionless normalised residuals.
+"""
+from __future__ import annotations
+
+import json
+import os
+from dataclasses import asdict, dataclass, field
+from enum import StrEnum
+from pathlib import Path
+from typing import Any
+
+from caseprep.contract.atomicio import json_ready
+
+RECORD_NAME = "underfloor-run.json"
+SUMMARY_NAME = "run_summary.json"
+SUMMARY_SCHEMA = "underfloor-run-summary"
+
+
+class Status(StrEnum):
+    """What became of a case in a run (the record's ``status``)."""
+
+    OK = "ok"
+    MESH_FAILED = "mesh-failed"
+    SOLVE_FAILED = "solve-failed"
+    EXPORT_FAILED = "export-failed"
+    SKIPPED = "skipped"          # all requested stages were done before
+    INTERRUPTED = "interrupted"
+    NOT_READY = "not-ready"      # a requested stage needs an earlier one first
+    NOT_RUN = "not-run"          # in the run summary: the case never ran
+
+
+STATUSES: tuple[Status, ...] = tuple(s for s in Status if s is not Status.NOT_RUN)
+FAILURE_STATUSES: tuple[Status, ...] = (Status.MESH_FAILED, Status.SOLVE_FAILED, Status.EXPORT_FAILED, Status.NOT_READY)
+
+
+class Flag(StrEnum):
+    """Every flag a case can carry (the runner's and the post-processing's);
+    a flagged case is listed and never ranked. :attr:`meaning` says what it
+    means in words."""
+
+    MESH_FAILED = "mesh-failed"
+    MESH_CHECKS_FAILED = "mesh-checks-failed"
+    MESH_ILLEGAL_FACES = "mesh-illegal-faces"
+    LAYERS_COLLAPSED = "layers-collapsed"
+    SOLVER_CRASHED = "solver-crashed"
+    NOT_CONVERGED = "not-converged"
+    EXPORT_EMPTY = "export-empty"
+    # set by the post-processing
+    NOT_RUN = "not-run"
+    FORCES_FAILED = "forces-failed"
+    FORCES_DRIFTING = "forces-drifting"
+    # a run that stopped early carries its status as a flag in the results
+    SOLVE_FAILED = "solve-failed"
+    EXPORT_FAILED = "export-failed"
+    NOT_READY = "not-ready"
+    INTERRUPTED = "interrupted"
+
+    @property
+    def meaning(self) -> str:
+        return _MEANING[self]
+
+
+_MEANING = {
+    Flag.MESH_FAILED: "a meshing tool failed",
+    Flag.MESH_CHECKS_FAILED: "the mesh checker reported failed checks",
+    Flag.MESH_ILLEGAL_FACES: "the mesher finished with faces failing its quality checks",
+    Flag.LAYERS_COLLAPSED: "prism layers collapsed (fewer than the minimum fraction of the target layers)",
+    Flag.SOLVER_CRASHED: "the solver crashed (diverged or fatal error)",
+    Flag.NOT_CONVERGED: ("the iteration budget ran out before convergence: residuals above the tolerance and "
+                         "the force monitor not settled (or residuals not dropped by the required orders of magnitude)"),
+    Flag.EXPORT_EMPTY: "the VTK export wrote no files",
+    Flag.NOT_RUN: "the case has not been run (or not to the end): no results",
+    Flag.FORCES_FAILED: "the forces could not be computed from the case's export",
+    Flag.FORCES_DRIFTING: "the runtime force monitor was still drifting at the end of the run (not settled)",
+    Flag.SOLVE_FAILED: "the solve stage failed",
+    Flag.EXPORT_FAILED: "the export stage failed",
+    Flag.NOT_READY: "a requested stage needed an earlier stage that was not done",
+    Flag.INTERRUPTED: "the run was interrupted",
+}
+
+#: The flags the runner sets (the rest are set by the post-processing).
+RUN_FLAGS: tuple[Flag, ...] = (Flag.MESH_FAILED, Flag.MESH_CHECKS_FAILED, Flag.MESH_ILLEGAL_FACES,
+                               Flag.LAYERS_COLLAPSED, Flag.SOLVER_CRASHED, Flag.NOT_CONVERGED, Flag.EXPORT_EMPTY)
+
+
+def flag_meaning(flag: str) -> str:
+    """What ``flag`` means in words (the flag itself when it is not one of :class:`Flag`)."""
+    try:
+        return Flag(flag).meaning
+    except ValueError:
+        return str(flag)
+
+
+def as_flag(value: str) -> Flag | str:
+    """``value`` as a :class:`Flag` (a value read from disk that is not one stays a string)."""
+    try:
+        return Flag(value)
+    except ValueError:
+        return str(value)
+
+
+@dataclass(frozen=True)
+class StageRun:
+    """One stage of one case: ``status`` ``ok``, ``failed``, ``done-before``
+    (marker present, not run again), ``interrupted`` or ``not-run``;
+    ``wall_time`` s (for ``done-before``, the time recorded then, if any)."""
+
+    stage: str
+    status: str
+    wall_time: float | None = None
+    returncode: int | None = None
+
+
+@dataclass(frozen=True)
+class CaseRunRecord:
+    """What happened to one case (written to ``<case>/underfloor-run.json``).
+
+    ``status``: one of :class:`Status`. ``flags``: the :class:`Flag` values
+    that apply. ``cells``: final cell count (checker, else
+    mesher). ``iterations``: solver iterations run; ``end_reason`` as in
+    :class:`caseprep.run.solverlogs.SolverLog`; ``final_residuals`` per field.
+    ``mesh_ok``: the checker's verdict (None if it did not run).
+    ``layers``: per patch ``{patch, target_layers, layers, coverage,
+    thickness_percent}``; ``layer_coverage`` the face-weighted mean coverage.
+    ``failed_tool`` and ``log_tail`` describe a failure. Times in s.
+    ``convergence``: why the run counts as converged or not (see
+    :mod:`caseprep.contract.convergence`); ``residual_drop``: the smallest drop of a field's
+    initial residual over the run, in orders of magnitude (log10 of the
+    largest of the first five iterations over the final); ``force_settling``:
+    the force monitor over the settling window (``window`` samples,
+    ``verdict``, largest |drift| and relative std, fractions).
+    """
+
+    case_id: str
+    folder: str
+    status: Status | str
+    message: str = ""
+    ranks: int = 1
+    stages: tuple[StageRun, ...] = ()
+    wall_time: float = 0.0
+    started_utc: str = ""
+    finished_utc: str = ""
+    cells: int | None = None
+    background_cells: int | None = None
+    mesh_ok: bool | None = None
+    failed_checks: int | None = None
+    max_non_orthogonality: float | None = None
+    max_skewness: float | None = None
+    layer_coverage: float | None = None
+    layers: tuple[dict[str, Any], ...] = ()
+    iterations: int | None = None
+    end_reason: str | None = None
+    final_residuals: dict[str, float] = field(default_factory=dict)
+    continuity_cumulative: float | None = None
+    export_files: int | None = None
+    convergence: str | None = None
+    residual_drop: float | None = None
+    force_settling: dict[str, Any] | None = None
+    flags: tuple[Flag | str, ...] = ()
+    failed_tool: str | None = None
+    log_tail: str = ""
+
+    @property
+    def failed(self) -> bool:
+        return self.status in FAILURE_STATUSES
+
+    def stage_time(self, stage: str) -> float | None:
+        for s in self.stages:
+            if s.stage == stage:
+                return s.wall_time
+        return None
+
+    def to_dict(self) -> dict[str, Any]:
+        return json_ready(asdict(self))
+
+    @classmethod
+    def from_dict(cls, d: dict[str, Any]) -> "CaseRunRecord":
+        known = {f for f in cls.__dataclass_fields__}
+        d = {k: v for k, v in d.items() if k in known}
+        d["stages"] = tuple(StageRun(**s) for s in d.get("stages", ()))
+        d["layers"] = tuple(d.get("layers", ()))
+        d["flags"] = tuple(as_flag(f) for f in d.get("flags", ()))
+        if d.get("status") in set(Status):
+            d["status"] = Status(d["status"])
+        d["final_residuals"] = {k: (float("nan") if v is None else v) for k, v in (d.get("final_residuals") or {}).items()}
+        return cls(**d)
+
+
+def read_case_record(case_dir: str | os.PathLike) -> CaseRunRecord | None:
+    """The last record of a case folder, or None."""
+    p = Path(case_dir) / RECORD_NAME
+    try:
+        return CaseRunRecord.from_dict(json.loads(p.read_text()))
+    except (OSError, ValueError, TypeError):
+        return None
+
+
+def effective_status(rec: CaseRunRecord) -> Status | str:
+    """``skipped`` records report the stages' state instead: ``ok`` when all
+    three stages were done, else the record's own status."""
+    if rec.status == Status.SKIPPED and all(s.status in ("ok", "done-before") for s in rec.stages):
+        return Status.OK
+    return rec.status

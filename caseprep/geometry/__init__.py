@@ -1,0 +1,2 @@
+"""STL geometry: reading and writing, surface checks, hull and frontal area.
+"""

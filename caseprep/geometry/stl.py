@@ -1,0 +1,141 @@
+"""STL files: reading (binary and ASCII, several solids) and writing.
+
+Coordinates are in the **body frame** (x rearward, y right, z up, see
+:mod:`caseprep.contract.frames`) in metres, after scaling by the config's
+``length_unit``. The only geometry module that touches files.
+"""
+from __future__ import annotations
+
+import re
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from caseprep.contract.errors import UserError
+
+LENGTH_UNITS = {"m": 1.0, "mm": 1.0e-3, "in": 0.0254}
+
+_BIN_DTYPE = np.dtype([("n", "<f4", (3,)), ("v", "<f4", (3, 3)), ("attr", "<u2")])
+_VERTEX_RE = re.compile(rb"vertex\s+(\S+)\s+(\S+)\s+(\S+)")
+_SOLID_RE = re.compile(rb"^\s*solid[ \t]*([^\r\n]*)$(.*?)^\s*endsolid[^\r\n]*$", re.S | re.M)
+
+
+
+@dataclass(frozen=True)
+class Surface:
+    """A triangulated surface in the body frame.
+
+    ``triangles``: (M, 3, 3) float64 vertex coordinates, m.
+    ``solid``: (M,) int index into ``solid_names`` for each triangle.
+    ``solid_names``: names of the solids (patch names), in file order.
+    """
+
+    triangles: np.ndarray
+    solid: np.ndarray
+    solid_names: tuple[str, ...]
+    source: str = ""
+
+    @property
+    def n_triangles(self) -> int:
+        return int(self.triangles.shape[0])
+
+    def select(self, names) -> "Surface":
+        """The sub-surface made of the solids in ``names``."""
+        idx = [i for i, n in enumerate(self.solid_names) if n in set(names)]
+        keep = np.isin(self.solid, idx)
+        remap = -np.ones(len(self.solid_names), dtype=int)
+        remap[idx] = np.arange(len(idx))
+        return Surface(self.triangles[keep], remap[self.solid[keep]], tuple(self.solid_names[i] for i in idx), self.source)
+
+
+def _sanitise_solid_name(raw: str, index: int) -> str:
+    name = raw.strip().split()[0] if raw.strip() else ""
+    name = re.sub(r"[^A-Za-z0-9_]", "_", name)
+    if not name or not name[0].isalpha():
+        name = f"solid{index}" if not name else f"s_{name}"
+    return name
+
+
+def read_stl(path: str | Path, length_unit: str = "m", default_name: str = "body") -> Surface:
+    """Read a binary or ASCII STL file into a :class:`Surface` (m, body frame).
+
+    Binary files hold one solid named ``default_name``. ASCII files may hold
+    several ``solid NAME … endsolid`` blocks; each becomes a patch named NAME
+    (characters other than letters, digits and ``_`` become ``_``).
+    Coordinates are multiplied by the ``length_unit`` scale (m, mm or in).
+    Raises :class:`UserError` for a missing or unreadable file.
+    """
+    p = Path(path)
+    if length_unit not in LENGTH_UNITS:
+        raise UserError(expected="a length unit in " + ", ".join(LENGTH_UNITS), got=length_unit, file=str(p))
+    if not p.is_file():
+        raise UserError(expected="an existing STL file", got=str(p), fix="check the path (relative paths are relative to the config file)")
+    data = p.read_bytes()
+    scale = LENGTH_UNITS[length_unit]
+    tris, solid, names = None, None, None
+    if len(data) >= 84:
+        n = int(np.frombuffer(data, dtype="<u4", count=1, offset=80)[0])
+        if len(data) == 84 + 50 * n and n > 0:
+            rec = np.frombuffer(data, dtype=_BIN_DTYPE, count=n, offset=84)
+            tris = rec["v"].astype(np.float64)
+            solid = np.zeros(n, dtype=int)
+            names = (default_name,)
+    if tris is None:
+        if not data.lstrip().startswith(b"solid"):
+            raise UserError(expected="a binary or ASCII STL file", got="a file of another format", file=str(p),
+                            fix="export the geometry as STL")
+        blocks = list(_SOLID_RE.finditer(data))
+        if not blocks:
+            raise UserError(expected="an ASCII STL with 'solid … endsolid' blocks", got="none", file=str(p))
+        parts, ids, nm = [], [], []
+        for i, b in enumerate(blocks):
+            v = _VERTEX_RE.findall(b.group(2))
+            try:
+                arr = np.array(v, dtype=np.float64).reshape(-1, 3)
+            except ValueError:
+                raise UserError(expected="numbers after 'vertex'", got="unreadable text", file=str(p),
+                                key=f"solid {i + 1}") from None
+            if arr.shape[0] % 3:
+                raise UserError(expected="three vertices per facet", got=f"{arr.shape[0]} vertices", file=str(p),
+                                key=f"solid {i + 1}")
+            name = _sanitise_solid_name(b.group(1).decode("ascii", "replace"), i)
+            if name in nm:
+                name = f"{name}_{i}"
+            parts.append(arr.reshape(-1, 3, 3))
+            ids.append(np.full(arr.shape[0] // 3, i, dtype=int))
+            nm.append(name)
+        tris = np.concatenate(parts) if parts else np.zeros((0, 3, 3))
+        solid = np.concatenate(ids) if ids else np.zeros(0, dtype=int)
+        names = tuple(nm)
+    if tris.shape[0] == 0:
+        raise UserError(expected="at least one triangle", got="an empty STL", file=str(p))
+    if not np.all(np.isfinite(tris)):
+        raise UserError(expected="finite coordinates", got="NaN or infinite values", file=str(p))
+    return Surface(tris * scale, solid, names, str(p))
+
+
+def write_stl_ascii(path: str | Path, solids: list[tuple[str, np.ndarray]]) -> str:
+    """ASCII STL text for ``solids`` = [(name, (M,3,3) triangles in m)], and
+    write it atomically to ``path``. Normals are computed from the vertex
+    order (right-hand rule). Returns the text."""
+    from caseprep.contract.atomicio import write_text_atomic
+
+    lines = []
+    for name, tris in solids:
+        t = np.asarray(tris, dtype=float)
+        n = np.cross(t[:, 1] - t[:, 0], t[:, 2] - t[:, 0])
+        ln = np.linalg.norm(n, axis=1, keepdims=True)
+        n = n / np.where(ln > 0, ln, 1.0)
+        lines.append(f"solid {name}")
+        for k in range(t.shape[0]):
+            lines.append(f"  facet normal {n[k, 0]:.6g} {n[k, 1]:.6g} {n[k, 2]:.6g}")
+            lines.append("    outer loop")
+            for j in range(3):
+                lines.append(f"      vertex {t[k, j, 0]:.10g} {t[k, j, 1]:.10g} {t[k, j, 2]:.10g}")
+            lines.append("    endloop")
+            lines.append("  endfacet")
+        lines.append(f"endsolid {name}")
+    text = "\n".join(lines) + "\n"
+    write_text_atomic(path, text)
+    return text

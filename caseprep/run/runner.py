@@ -1,0 +1,543 @@
+"""Run the solver over a written sweep and record what happened.
+
+Each case folder of a sweep (see the case folder contract in the README) has
+an executable ``run.sh`` with three stages: ``mesh``, ``solve`` and
+``export``. :func:`run_sweep` calls ``run.sh <stage>`` for each stage of each
+case, ``jobs`` cases at a time, with ``UF_RANKS`` MPI ranks per case, and
+after each case reads the solver's logs (:mod:`caseprep.run.solverlogs`) into a
+:class:`CaseRunRecord` written to ``<case>/underfloor-run.json``; the sweep's
+``run_summary.json`` collects them.
+
+Resuming: a stage whose ``logs/<stage>.done`` marker exists is not run again
+(unless ``force``); running a stage removes the markers of the later stages,
+whose results it makes stale. A case with all requested stages done is
+``skipped``.
+
+Failure handling: a stage fails when ``run.sh`` exits non-zero or does not
+leave its marker; the case stops there, its record carries the failing
+tool's log tail, and the other cases go on. Ctrl-C terminates the running
+cases' process groups, records them as ``interrupted`` and raises
+:class:`SweepInterrupted`.
+
+Units: wall times in seconds; cell counts; residuals are the solver's
+dimensionless normalised residuals. No axes are involved.
+"""
+from __future__ import annotations
+
+import datetime as _dt
+import os
+import shutil
+import signal
+import subprocess
+import time
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any, Callable, Iterable, Sequence
+
+from caseprep.run import solverlogs as sl
+from caseprep.contract.atomicio import write_json_atomic
+from caseprep.contract.convergence import DEFAULT_OPTIONS, ConvergenceOptions, force_settling, judge_convergence
+from caseprep.contract.errors import UserError, did_you_mean
+from caseprep.contract.manifest import CaseRecord, read_manifest
+from caseprep.contract.records import (RECORD_NAME, RUN_FLAGS, SUMMARY_NAME, SUMMARY_SCHEMA, CaseRunRecord, Flag,
+                                       StageRun, Status, effective_status, read_case_record)
+
+STAGES: tuple[str, ...] = ("mesh", "solve", "export")
+STAGE_TOOLS: dict[str, tuple[str, ...]] = {
+    "mesh": ("blockMesh", "surfaceFeatureExtract", "snappyHexMesh", "checkMesh"),
+    "solve": ("decomposePar", "simpleFoam", "reconstructPar"),
+    "export": ("foamToVTK",),
+}
+FAILED_STATUS = {"mesh": Status.MESH_FAILED, "solve": Status.SOLVE_FAILED, "export": Status.EXPORT_FAILED}
+SOLVER_BINARIES = ("blockMesh", "snappyHexMesh", "checkMesh", "simpleFoam", "foamToVTK", "decomposePar",
+                   "reconstructPar")
+INSTALL_HINT = "sudo apt-get install -y --no-install-recommends openfoam"
+
+
+def missing_solver_binaries(names: Iterable[str] = SOLVER_BINARIES) -> list[str]:
+    """Names of the solver's programs not found on PATH."""
+    return [n for n in names if shutil.which(n) is None]
+
+
+@dataclass(frozen=True)
+class RunOptions:
+    """Thresholds of the flags and the runner's timing.
+
+    ``convergence``: the thresholds of the ``not-converged`` flag (the one
+    convergence rule, :mod:`caseprep.contract.convergence`).
+    ``min_layer_coverage``: achieved/target prism layers below which a patch
+    counts as collapsed (fraction; 0.5 — common practice, no source).
+    ``tail_lines``: lines of the failing log kept in the record.
+    ``heartbeat``: seconds between ``running`` progress events.
+    ``poll``: seconds between checks of the running processes.
+    ``kill_grace``: seconds between SIGTERM and SIGKILL on interrupt.
+    """
+
+    convergence: ConvergenceOptions = DEFAULT_OPTIONS
+    min_layer_coverage: float = 0.5
+    tail_lines: int = 25
+    heartbeat: float = 30.0
+    poll: float = 0.2
+    kill_grace: float = 10.0
+
+
+@dataclass(frozen=True)
+class Progress:
+    """One progress event: ``event`` is ``case-start``, ``stage-start``,
+    ``stage-done``, ``stage-failed``, ``running`` (heartbeat), ``case-done``,
+    ``skipped`` or ``interrupted``; ``elapsed`` s since the case started,
+    ``stage_elapsed`` s since the stage started; ``index`` 1-based among
+    ``total`` selected cases; ``record`` set on ``case-done``/``skipped``."""
+
+    case_id: str
+    index: int
+    total: int
+    event: str
+    stage: str | None = None
+    elapsed: float = 0.0
+    stage_elapsed: float = 0.0
+    message: str = ""
+    record: "CaseRunRecord | None" = None
+
+
+class SweepInterrupted(Exception):
+    """Ctrl-C during :func:`run_sweep`; ``records`` holds what was recorded."""
+
+    def __init__(self, records: list[CaseRunRecord]):
+        super().__init__("interrupted")
+        self.records = records
+
+
+def _utc() -> str:
+    return _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ")
+
+
+def _tail(path: Path, n: int) -> str:
+    try:
+        lines = path.read_text(errors="replace").splitlines()
+    except OSError:
+        return ""
+    return "\n".join(lines[-n:])
+
+
+def _read(path: Path) -> str | None:
+    try:
+        return path.read_text(errors="replace")
+    except OSError:
+        return None
+
+
+def summarize_logs(case_dir: Path, valid_stages: Sequence[str], options: RunOptions = RunOptions()) -> dict[str, Any]:
+    """Read the logs of ``valid_stages`` in ``case_dir/logs`` into record
+    fields (cells, checker verdict, layers, solver outcome, export) and flags."""
+    logs = case_dir / "logs"
+    out: dict[str, Any] = {}
+    flags: list[str] = []
+    if "mesh" in valid_stages:
+        bm = _read(logs / "blockMesh.log")
+        sn = _read(logs / "snappyHexMesh.log")
+        cm = _read(logs / "checkMesh.log")
+        cells = None
+        if bm is not None:
+            b = sl.parse_blockmesh(bm)
+            out["background_cells"] = b.cells
+            cells = b.cells
+        if sn is not None:
+            s = sl.parse_snappy(sn)
+            cells = s.cells if s.cells is not None else cells
+            out["layer_coverage"] = s.layer_coverage
+            out["layers"] = tuple({"patch": p.patch, "faces": p.faces, "target_layers": p.target_layers,
+                                   "layers": p.layers, "coverage": p.coverage, "thickness_percent": p.thickness_percent}
+                                  for p in s.layers)
+            if s.collapsed_patches(options.min_layer_coverage):
+                flags.append(Flag.LAYERS_COLLAPSED)
+            if s.illegal_faces:
+                flags.append(Flag.MESH_ILLEGAL_FACES)
+        if cm is not None:
+            c = sl.parse_checkmesh(cm)
+            cells = c.cells if c.cells is not None else cells
+            out.update(mesh_ok=c.mesh_ok, failed_checks=c.failed_checks,
+                       max_non_orthogonality=c.max_non_orthogonality, max_skewness=c.max_skewness)
+            if c.mesh_ok is False:
+                flags.append(Flag.MESH_CHECKS_FAILED)
+        out["cells"] = cells
+    if "solve" in valid_stages:
+        so = _read(logs / "simpleFoam.log")
+        if so is not None:
+            r = sl.parse_solver(so)
+            out.update(iterations=r.iterations, end_reason=r.end_reason, final_residuals=dict(r.final_residuals),
+                       continuity_cumulative=r.continuity_cumulative)
+            if r.end_reason == "crashed":
+                flags.append(Flag.SOLVER_CRASHED)
+            elif r.end_reason == "converged":
+                out["convergence"] = "the solver's residual criterion was met"
+            else:
+                settling = force_settling(case_dir, options.convergence)
+                ok, why, drop = judge_convergence(r.residuals, r.final_residuals, settling, options.convergence)
+                out.update(convergence=why, residual_drop=drop, force_settling=settling)
+                if not ok:
+                    flags.append(Flag.NOT_CONVERGED)
+    if "export" in valid_stages:
+        ex = _read(logs / "foamToVTK.log")
+        if ex is not None:
+            e = sl.parse_export(ex)
+            out["export_files"] = len(e.files)
+            if not e.files and e.finished:
+                flags.append(Flag.EXPORT_EMPTY)
+    out["flags"] = tuple(flags)
+    return out
+
+
+def _failing_tool(case_dir: Path, stage: str, since: float) -> tuple[str | None, Path | None]:
+    """The stage's tool log written last since ``since`` (epoch s): the tool that failed."""
+    best: tuple[float, str, Path] | None = None
+    logs = case_dir / "logs"
+    names = list(STAGE_TOOLS[stage])
+    if logs.is_dir():  # tools outside our list still follow logs/<tool>.log
+        names += [p.stem for p in logs.glob("*.log") if p.stem not in names]
+    for name in names:
+        p = logs / f"{name}.log"
+        try:
+            m = p.stat().st_mtime
+        except OSError:
+            continue
+        if m >= since - 1.0 and (best is None or m > best[0]):
+            best = (m, name, p)
+    return (best[1], best[2]) if best else (None, None)
+
+
+class _Job:
+    """A case being run: its remaining stages and its current process."""
+
+    def __init__(self, index: int, rec: CaseRecord, case_dir: Path, to_run: list[str], plan: dict[str, str],
+                 previous: CaseRunRecord | None):
+        self.index = index
+        self.rec = rec
+        self.dir = case_dir
+        self.to_run = to_run
+        self.plan = plan  # stage -> "run" | "done-before" | "not-run"
+        self.previous = previous
+        self.results: dict[str, StageRun] = {}
+        self.proc: subprocess.Popen | None = None
+        self.out = None
+        self.stage: str | None = None
+        self.t0 = 0.0
+        self.stage_t0 = 0.0
+        self.stage_wall0 = 0.0
+        self.last_beat = 0.0
+        self.started_utc = ""
+
+
+def _plan(case_dir: Path, stages: Sequence[str], force: bool) -> tuple[list[str], dict[str, str], str | None]:
+    """Which requested stages to run; a reason when the case cannot start."""
+    logs = case_dir / "logs"
+    done = {s for s in STAGES if (logs / f"{s}.done").exists()}
+    to_run = [s for s in stages if force or s not in done]
+    plan = {s: ("run" if s in to_run else ("done-before" if s in done else "not-run")) for s in STAGES}
+    if to_run:
+        first = STAGES.index(to_run[0])
+        missing = [s for s in STAGES[:first] if s not in done]
+        if missing:
+            return [], plan, (f"stage {to_run[0]!r} needs the {'/'.join(missing)} stage done first; "
+                              f"run with --stage {missing[0]} (or without --stage)")
+    return to_run, plan, None
+
+
+def run_sweep(
+    sweep_dir: str | os.PathLike,
+    jobs: int = 1,
+    ranks: int = 1,
+    stages: Sequence[str] | None = None,
+    only: Sequence[str] | None = None,
+    force: bool = False,
+    progress: Callable[[Progress], None] | None = None,
+    options: RunOptions = RunOptions(),
+) -> list[CaseRunRecord]:
+    """Run the cases of the sweep in ``sweep_dir``; returns one record per selected case.
+
+    ``jobs`` cases at a time, each with ``ranks`` MPI ranks (``UF_RANKS``);
+    ``stages`` a subset of :data:`STAGES` (default all); ``only`` case ids
+    to run (default all in the manifest); ``force`` re-runs stages already
+    marked done. ``progress`` is called with :class:`Progress` events from
+    the calling thread. Raises :class:`UserError` for a folder that is not a
+    sweep, unknown ids or stages, or a case folder without an executable
+    ``run.sh``; raises :class:`SweepInterrupted` on Ctrl-C after stopping
+    the running cases.
+    """
+    # absolute: run.sh is started with the case folder as working directory
+    root = Path(sweep_dir).resolve()
+    manifest = read_manifest(root)
+    if jobs < 1:
+        raise UserError(expected="a number of parallel cases ≥ 1", got=jobs, key="jobs", fix="use -j 1 or more")
+    if ranks < 1:
+        raise UserError(expected="a number of MPI ranks ≥ 1", got=ranks, key="ranks", fix="use --ranks 1 or more")
+    stages = list(STAGES) if not stages else list(stages)
+    for s in stages:
+        if s not in STAGES:
+            raise UserError(expected=f"a stage among {', '.join(STAGES)}", got=s, key="stage",
+                            fix="pick one of those." + did_you_mean(s, STAGES))
+    stages = [s for s in STAGES if s in stages]
+    ids = [c.case_id for c in manifest.cases]
+    if only:
+        unknown = [i for i in only if i not in ids]
+        if unknown:
+            raise UserError(expected="case ids listed in the sweep's manifest", got=unknown[0],
+                            file=str(root / "manifest.json"), key="cases",
+                            fix=("known ids: " + ", ".join(ids[:12]) + (" …" if len(ids) > 12 else "")
+                                 + "." + did_you_mean(unknown[0], ids)))
+        selected = [c for c in manifest.cases if c.case_id in set(only)]
+    else:
+        selected = list(manifest.cases)
+    if not selected:
+        raise UserError(expected="a sweep with at least one case", got="none", file=str(root / "manifest.json"),
+                        key="cases", fix="regenerate the sweep with `caseprep write`")
+    bad = [c for c in selected if not os.access(manifest.case_dir(c) / "run.sh", os.X_OK)]
+    if bad:
+        raise UserError(expected="an executable run.sh in every case folder", got=str(manifest.case_dir(bad[0]) / "run.sh"),
+                        key=f"cases[{bad[0].case_id}]",
+                        fix=f"{len(bad)} case folder(s) lack it; rewrite the sweep with `caseprep write --force`")
+
+    env = dict(os.environ)
+    env["UF_RANKS"] = str(ranks)
+    if "WM_PROJECT_DIR" not in env and Path("/usr/share/openfoam/etc").is_dir():
+        env["WM_PROJECT_DIR"] = "/usr/share/openfoam"
+    if hasattr(os, "geteuid") and os.geteuid() == 0:  # the MPI launcher refuses root without these
+        env.setdefault("OMPI_ALLOW_RUN_AS_ROOT", "1")
+        env.setdefault("OMPI_ALLOW_RUN_AS_ROOT_CONFIRM", "1")
+
+    emit = progress or (lambda ev: None)
+    total = len(selected)
+    records: dict[str, CaseRunRecord] = {}
+    pending: list[_Job] = []
+    for i, c in enumerate(selected, 1):
+        cdir = manifest.case_dir(c)
+        prev = read_case_record(cdir)
+        to_run, plan, why = _plan(cdir, stages, force)
+        if why:
+            rec = _finish_record(_Job(i, c, cdir, [], plan, prev), Status.NOT_READY, why, ranks, options)
+            records[c.case_id] = rec
+            _write_record(cdir, rec)
+            emit(Progress(c.case_id, i, total, "case-done", message=why, record=rec))
+        elif not to_run:
+            rec = _finish_record(_Job(i, c, cdir, [], plan, prev), Status.SKIPPED, "all requested stages done before",
+                                 ranks, options)
+            records[c.case_id] = rec
+            emit(Progress(c.case_id, i, total, "skipped", message="done before; use --force to run again", record=rec))
+        else:
+            pending.append(_Job(i, c, cdir, to_run, plan, prev))
+
+    running: list[_Job] = []
+    try:
+        while pending or running:
+            while pending and len(running) < jobs:
+                job = pending.pop(0)
+                job.t0 = time.monotonic()
+                job.started_utc = _utc()
+                running.append(job)  # before starting: an interrupt must find its process
+                emit(Progress(job.rec.case_id, job.index, total, "case-start", message=" ".join(job.to_run)))
+                _start_stage(job, env, emit, total)
+            time.sleep(options.poll)
+            now = time.monotonic()
+            for job in list(running):
+                rc = job.proc.poll()
+                if rc is None:
+                    if now - job.last_beat >= options.heartbeat:
+                        job.last_beat = now
+                        emit(Progress(job.rec.case_id, job.index, total, "running", job.stage, now - job.t0,
+                                      now - job.stage_t0))
+                    continue
+                job.out.close()
+                stage = job.stage
+                dt = now - job.stage_t0
+                marker = job.dir / "logs" / f"{stage}.done"
+                if rc == 0 and marker.exists():
+                    job.results[stage] = StageRun(stage, "ok", round(dt, 3), rc)
+                    emit(Progress(job.rec.case_id, job.index, total, "stage-done", stage, now - job.t0, dt))
+                    if job.to_run:
+                        _start_stage(job, env, emit, total)
+                        continue
+                    rec = _finish_record(job, Status.OK, "", ranks, options)
+                else:
+                    job.results[stage] = StageRun(stage, "failed", round(dt, 3), rc)
+                    tool, log = _failing_tool(job.dir, stage, job.stage_wall0)
+                    out_log = job.dir / "logs" / f"underfloor-{stage}.out"
+                    if rc == 0:
+                        why = f"run.sh {stage} exited 0 but did not leave logs/{stage}.done"
+                    else:
+                        err = sl.fatal_error(_read(log) or "") if log else None
+                        why = f"{tool or 'run.sh'} failed (exit {rc})" + (f": {err}" if err else "")
+                    tail = _tail(log, options.tail_lines) if log else ""
+                    out_tail = _tail(out_log, 8)
+                    if out_tail:
+                        tail = (tail + "\n--- run.sh output ---\n" if tail else "") + out_tail
+                    emit(Progress(job.rec.case_id, job.index, total, "stage-failed", stage, now - job.t0, dt, why))
+                    rec = _finish_record(job, FAILED_STATUS[stage], why, ranks, options, failed_tool=tool,
+                                         log_tail=tail)
+                running.remove(job)
+                records[job.rec.case_id] = rec
+                _write_record(job.dir, rec)
+                _write_summary(root, manifest, records, ranks)
+                emit(Progress(job.rec.case_id, job.index, total, "case-done", None, rec.wall_time, 0.0,
+                              rec.message, rec))
+    except KeyboardInterrupt:
+        _stop(running, options.kill_grace)
+        now = time.monotonic()
+        for job in running:
+            if job.stage is None or job.proc is None:
+                continue
+            job.results[job.stage] = StageRun(job.stage, "interrupted", round(now - job.stage_t0, 3), None)
+            rec = _finish_record(job, Status.INTERRUPTED, f"interrupted during {job.stage}", ranks, options)
+            records[job.rec.case_id] = rec
+            _write_record(job.dir, rec)
+            emit(Progress(job.rec.case_id, job.index, total, "interrupted", job.stage, now - job.t0))
+        _write_summary(root, manifest, records, ranks)
+        raise SweepInterrupted([records[c.case_id] for c in selected if c.case_id in records]) from None
+    _write_summary(root, manifest, records, ranks)
+    return [records[c.case_id] for c in selected]
+
+
+def _start_stage(job: _Job, env: dict[str, str], emit, total: int) -> None:
+    stage = job.to_run.pop(0)
+    logs = job.dir / "logs"
+    logs.mkdir(exist_ok=True)
+    # This stage's results make the later stages' results stale.
+    for later in STAGES[STAGES.index(stage):]:
+        try:
+            (logs / f"{later}.done").unlink()
+        except FileNotFoundError:
+            pass
+    job.stage = stage
+    job.stage_t0 = time.monotonic()
+    job.stage_wall0 = time.time()
+    job.last_beat = job.stage_t0
+    job.out = open(logs / f"underfloor-{stage}.out", "w")
+    job.proc = subprocess.Popen([str(job.dir / "run.sh"), stage], cwd=job.dir, env=env, stdout=job.out,
+                                stderr=subprocess.STDOUT, stdin=subprocess.DEVNULL, start_new_session=True)
+    emit(Progress(job.rec.case_id, job.index, total, "stage-start", stage, job.stage_t0 - job.t0))
+
+
+def _stop(running: list[_Job], grace: float) -> None:
+    """SIGTERM the running cases' process groups, then SIGKILL after ``grace`` s."""
+    for job in running:
+        if job.proc and job.proc.poll() is None:
+            try:
+                os.killpg(job.proc.pid, signal.SIGTERM)
+            except ProcessLookupError:
+                pass
+    deadline = time.monotonic() + grace
+    for job in running:
+        if not job.proc:
+            continue
+        try:
+            job.proc.wait(timeout=max(0.0, deadline - time.monotonic()))
+        except subprocess.TimeoutExpired:
+            try:
+                os.killpg(job.proc.pid, signal.SIGKILL)
+            except ProcessLookupError:
+                pass
+            job.proc.wait()
+        except KeyboardInterrupt:  # a second Ctrl-C: no more grace
+            os.killpg(job.proc.pid, signal.SIGKILL)
+            job.proc.wait()
+        if job.out:
+            job.out.close()
+
+
+def _finish_record(job: _Job, status: str, message: str, ranks: int, options: RunOptions,
+                   failed_tool: str | None = None, log_tail: str = "") -> CaseRunRecord:
+    stages = []
+    for s in STAGES:
+        if s in job.results:
+            stages.append(job.results[s])
+        elif job.plan.get(s) == "done-before":
+            stages.append(StageRun(s, "done-before", job.previous.stage_time(s) if job.previous else None))
+        else:
+            stages.append(StageRun(s, "not-run"))
+    valid = [s.stage for s in stages if s.status in ("ok", "failed", "done-before", "interrupted")]
+    info = summarize_logs(job.dir, valid, options)
+    flags = list(info.pop("flags"))
+    if status == "mesh-failed":
+        flags.insert(0, "mesh-failed")
+    if status == "solve-failed" and "solver-crashed" not in flags:
+        flags.append(Flag.SOLVER_CRASHED)
+    if status in ("solve-failed", "interrupted") or "solve" not in [s.stage for s in stages if s.status in ("ok", "done-before")]:
+        flags = [f for f in flags if f != "not-converged"]
+    wall = sum(s.wall_time or 0.0 for s in stages if s.status in ("ok", "failed", "interrupted"))
+    return CaseRunRecord(
+        case_id=job.rec.case_id, folder=job.rec.folder, status=status, message=message, ranks=ranks,
+        stages=tuple(stages), wall_time=round(wall, 3), started_utc=job.started_utc, finished_utc=_utc(),
+        flags=tuple(dict.fromkeys(flags)), failed_tool=failed_tool, log_tail=log_tail, **info,
+    )
+
+
+def _write_record(case_dir: Path, rec: CaseRunRecord) -> None:
+    write_json_atomic(case_dir / RECORD_NAME, rec.to_dict())
+
+
+def _write_summary(root: Path, manifest, records: dict[str, CaseRunRecord], ranks: int) -> None:
+    """``run_summary.json``: this run's records, and the last record of every
+    other case of the manifest (status ``not-run`` when it never ran)."""
+    rows = []
+    for c in manifest.cases:
+        rec = records.get(c.case_id) or read_case_record(manifest.case_dir(c))
+        if rec is None:
+            rec = CaseRunRecord(case_id=c.case_id, folder=c.folder, status=Status.NOT_RUN)
+        rows.append(rec.to_dict())
+    counts: dict[str, int] = {}
+    for r in rows:
+        counts[r["status"]] = counts.get(r["status"], 0) + 1
+    write_json_atomic(root / SUMMARY_NAME, {
+        "schema": SUMMARY_SCHEMA, "schema_version": 1, "written_utc": _utc(), "ranks": ranks,
+        "counts": counts, "flag_meanings": {f: f.meaning for f in RUN_FLAGS}, "cases": rows,
+    })
+
+
+def format_duration(t: float | None) -> str:
+    if t is None:
+        return "-"
+    t = float(t)
+    if t < 60:
+        return f"{t:.1f}s"
+    m, sec = divmod(int(round(t)), 60)
+    return f"{m}m{sec:02d}s" if m < 60 else f"{m // 60}h{m % 60:02d}m"
+
+
+def summary_row(rec: CaseRunRecord) -> dict[str, str]:
+    """One table row of text cells for ``rec`` (see :func:`format_summary_table`)."""
+    worst = max(rec.final_residuals.values()) if rec.final_residuals else None
+    layers = "-" if rec.layer_coverage is None else f"{100 * rec.layer_coverage:.0f}%"
+    mesh = {True: "OK", False: f"FAILED({rec.failed_checks})", None: "-"}[rec.mesh_ok]
+    status = rec.status if rec.status != "skipped" else f"{effective_status(rec)} (done before)"
+    return {
+        "case": rec.case_id,
+        "status": status,
+        "cells": "-" if rec.cells is None else f"{rec.cells:,}",
+        "check": mesh,
+        "layers": layers,
+        "iter": "-" if rec.iterations is None else str(rec.iterations),
+        "end": rec.end_reason or "-",
+        "max resid": "-" if worst is None else f"{worst:.1e}",
+        "mesh t": format_duration(rec.stage_time("mesh")),
+        "solve t": format_duration(rec.stage_time("solve")),
+        "flags": ", ".join(rec.flags) or "-",
+    }
+
+
+def format_summary_table(records: Sequence[CaseRunRecord]) -> str:
+    """A plain-text table of the records: status, cells, checker verdict,
+    layer coverage, iterations, end reason, worst final residual, stage
+    times and flags; one line per case."""
+    rows = [summary_row(r) for r in records]
+    if not rows:
+        return "(no cases)"
+    cols = list(rows[0])
+    width = {c: max(len(c), *(len(r[c]) for r in rows)) for c in cols}
+    lines = ["  ".join(c.ljust(width[c]) for c in cols).rstrip(), "  ".join("-" * width[c] for c in cols)]
+    lines += ["  ".join(r[c].ljust(width[c]) for c in cols).rstrip() for r in rows]
+    return "\n".join(lines)
+
+
+__all__ = [
+    "STAGES", "RunOptions", "Progress", "SweepInterrupted", "run_sweep", "summarize_logs", "missing_solver_binaries",
+    "INSTALL_HINT", "format_summary_table", "summary_row", "format_duration",
+]

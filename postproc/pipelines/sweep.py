@@ -1,0 +1,376 @@
+"""Post-process a whole sweep: every case's forces, coefficients, balance and
+convergence, joined with what the runner recorded, into one results table,
+then the variant ranking, the mesh study and the aero maps — all as data
+(:class:`SweepAnalysis`, ``results.json``) that the report then renders.
+
+Inputs: a sweep folder written by ``caseprep write`` (``manifest.json``) and
+run by ``caseprep run`` (``<case>/underfloor-run.json``, ``VTK/``).
+Outputs (in the sweep folder unless told otherwise, atomic writes):
+
+* ``results/<case_id>.json`` — the full forces report of each case, with
+  the body's y+ statistics per patch and the case's flags;
+* ``results.csv`` and ``results.json`` — one row per case (``results.json``
+  also holds the ranking, the mesh study and the fitted aero maps).
+
+The HTML report (``report.html``, :mod:`postproc.report.sweep_report`) is
+rendered from the returned :class:`SweepAnalysis`.
+
+Coefficients are in the wind axes of caseprep.contract.frames (C_L positive up,
+downforce = −C_L; C_D along the relative wind; C_S along +y_W), on the
+reference area and the dynamic pressure of the resultant air speed recorded
+in the manifest. A case is **flagged** (never ranked) when the runner
+flagged it, when it did not finish, when its forces could not be computed,
+or when the runtime force monitor is still drifting at the end of the run.
+The monitor is judged by the one convergence rule
+(:mod:`caseprep.contract.convergence`, as the runner judges it): over the
+last 30 % of the samples (at least 20), each total-force component against
+max(|its mean|, the resultant force), drift and std tolerance 1 %;
+``diverging`` there gives the ``forces-drifting`` flag.
+"""
+from __future__ import annotations
+
+import csv
+import io
+import math
+import os
+from dataclasses import asdict, dataclass, field, replace
+from pathlib import Path
+from typing import Any, Callable
+
+import numpy as np
+
+from caseprep.contract.atomicio import json_ready, write_json_atomic, write_text_atomic
+from caseprep.contract.errors import UserError
+from caseprep.contract.manifest import CaseRecord, Manifest, read_manifest
+from caseprep.contract.records import Flag, Status, as_flag, effective_status, flag_meaning, read_case_record
+from postproc.io.exports import latest_export
+from postproc.io.surfaces import read_surface
+from postproc.kernels import wallchecks as wc
+from postproc.kernels.aeromap import fit_response_surface, map_grid
+from postproc.kernels.forces import face_geometry
+from postproc.kernels.meshstudy import grid_convergence
+from postproc.kernels.ranking import CaseResult, VariantScore, rank_variants
+from postproc.pipelines.case_forces import forces_report
+
+RESULTS_DIR = "results"
+
+@dataclass(frozen=True)
+class CaseOutcome:
+    """One case of the sweep after post-processing: the ranking row, the run
+    status, the flags' explanations and any note."""
+
+    result: CaseResult
+    status: str
+    cells: int | None
+    iterations: int | None
+    convergence: str | None
+    layers: str | None = None  # e.g. "body 85 %, strake_left 38 %" (share of the target layer thickness)
+    notes: tuple[str, ...] = ()
+    report: dict[str, Any] | None = field(default=None, repr=False)
+    yplus: dict[str, dict] = field(default_factory=dict)
+
+
+#: Intended y+ ranges of the wall treatments (common practice, no source):
+#: wall functions want the first cell in the log layer, a resolved laminar or
+#: low-Re wall wants it inside the viscous sublayer.
+YPLUS_RANGES = {"kOmegaSST": (30.0, 300.0), "laminar": (0.0, 5.0)}
+ALL_WALLS = "all body and wheel patches"
+
+
+def wall_yplus(case_dir: Path, case: CaseRecord) -> tuple[dict[str, dict], str | None]:
+    """y+ statistics of the body and wheel patches from the case's VTK export
+    (the solver's ``yPlus`` face field): per patch min/median/p95/max and the
+    area share inside the wall treatment's intended range
+    (:data:`YPLUS_RANGES`, chosen from the manifest's turbulence model).
+    Returns (stats by patch, None) or ({}, why not)."""
+    names = list(case.patches.get("body") or []) + list(case.patches.get("wheels") or [])
+    if not names:
+        return {}, "no body patches in the manifest"
+    try:
+        surf = read_surface(latest_export(case_dir), names)
+        yp = surf.array("yPlus")
+    except UserError as exc:
+        return {}, f"y+ not assessed: {exc}".splitlines()[0]
+    model = str(case.extra.get("turbulence_model", "kOmegaSST"))
+    target = YPLUS_RANGES.get(model, YPLUS_RANGES["kOmegaSST"])
+    S, _ = face_geometry(surf.points, (surf.offsets, surf.connectivity))
+
+    areas = np.linalg.norm(S, axis=1)
+    out = {}
+    for i, name in enumerate(surf.part_names):
+        sel = surf.part_ids == i
+        out[name] = wc.yplus_stats(name, yp[sel], areas[sel], target).to_dict()
+    out[ALL_WALLS] = wc.yplus_stats(ALL_WALLS, yp, areas, target).to_dict()
+    return out, None
+
+
+def process_case(manifest: Manifest, case: CaseRecord) -> CaseOutcome:
+    """Post-process one case of ``manifest``: its run record, its forces
+    report (when its export exists) and its :class:`CaseResult` row."""
+    case_dir = manifest.case_dir(case)
+    rec = read_case_record(case_dir)
+    flags: list[str] = list(rec.flags) if rec is not None else []
+    status = effective_status(rec) if rec is not None else Status.NOT_RUN
+    notes: list[str] = []
+    p = case.params
+    base = dict(
+        case_id=case.case_id,
+        variant=case.variant,
+        ride_height_front=float(p.get("ride_height_front", math.nan)),
+        ride_height_rear=float(p.get("ride_height_rear", math.nan)),
+        pitch_deg=float(p.get("pitch_deg", 0.0)),
+        yaw_deg=float(p.get("yaw_deg", 0.0)),
+        speed=float(p.get("speed", math.nan)),
+        mesh_level=int(p.get("mesh_level", 0)),
+    )
+    exported = (case_dir / "logs" / "export.done").is_file()
+    report = None
+    verdict = None
+    if not exported:
+        if Flag.NOT_RUN not in flags and status in (Status.OK, Status.NOT_RUN, Status.SKIPPED):
+            flags.append(Flag.NOT_RUN)
+        elif status not in (Status.OK, Status.SKIPPED) and status not in flags:
+            flags.append(as_flag(status))
+    else:
+        try:
+            report = forces_report(str(case_dir))  # the monitor judged by the one convergence rule
+        except UserError as exc:
+            flags.append(Flag.FORCES_FAILED)
+            notes.append(f"forces: {exc}")
+    nan = math.nan
+    cl = cd = cs = nan
+    clf = clr = bal = margin = None
+    if report is not None:
+        c = report.get("coefficients")
+        if c:
+            cl, cd, cs = float(c["lift"]), float(c["drag"]), float(c["side"])
+        else:
+            flags.append(Flag.FORCES_FAILED)
+            notes.append("no reference values in the manifest: coefficients not computed")
+        b = report.get("balance")
+        if b:
+            clf, clr = b.get("c_lift_front"), b.get("c_lift_rear")
+            bal, margin = b.get("balance_front"), b.get("stability_margin")
+            if abs(base["yaw_deg"]) < 1e-9 and margin is not None:
+                # at zero yaw the side force is numerical noise about zero and its
+                # centre of pressure is meaningless: report no margin
+                margin = None
+                notes.append("zero yaw: no side force to place, stability margin not reported")
+            notes.extend(b.get("notes", []))
+        conv = report.get("convergence")
+        if conv is not None:
+            verdict = conv["verdict"]
+            if verdict == "diverging":
+                flags.append(Flag.FORCES_DRIFTING)
+        else:
+            notes.append("no runtime force monitor found: convergence not assessed")
+    yplus: dict[str, dict] = {}
+    if report is not None:
+        yplus, why = wall_yplus(case_dir, case)
+        if why:
+            notes.append(why)
+    result = CaseResult(**base, cl=cl, cd=cd, cs=cs, cl_front=clf, cl_rear=clr, balance=bal,
+                        stability_margin=margin, flags=tuple(dict.fromkeys(flags)))
+    layers = None
+    if rec is not None and rec.layers:
+        layers = ", ".join(f"{d.get('patch')} {d.get('thickness_percent'):.0f} %" for d in rec.layers
+                           if d.get("thickness_percent") is not None) or None
+    return CaseOutcome(result=result, status=status, cells=rec.cells if rec else None,
+                       iterations=rec.iterations if rec else None, convergence=verdict,
+                       notes=tuple(notes), report=report, yplus=yplus, layers=layers)
+
+
+def outcome_row(o: CaseOutcome) -> dict[str, Any]:
+    """A flat dict of one case for the CSV/JSON tables."""
+    r = asdict(o.result)
+    r["flags"] = " ".join(o.result.flags)
+    r["downforce_coefficient"] = -o.result.cl if math.isfinite(o.result.cl) else None
+    r.update(status=o.status, cells=o.cells, iterations=o.iterations, convergence=o.convergence, layers=o.layers)
+    if o.yplus:
+        a = o.yplus[ALL_WALLS]  # all body and wheel faces together
+        r.update(yplus_median=a["median"], yplus_p95=a["p95"], yplus_max=a["max"],
+                 yplus_share_in_range=a["share_in_target"], yplus_range="{:g}-{:g}".format(*a["target"]))
+    r["notes"] = "; ".join(o.notes)
+    return r
+
+
+#: representative cell size of mesh level m relative to level 0: each level
+#: divides the base cell by √2 (caseprep.planning.domain), so h_m = 2^(−m/2)
+def level_cell_size(level: int) -> float:
+    return 2.0 ** (-0.5 * level)
+
+
+def mesh_study(results: list[CaseResult]) -> list[dict[str, Any]]:
+    """Grid convergence (Celik et al. 2008, postproc.kernels.meshstudy) of C_L and C_D
+    for every operating point solved on three or more mesh levels (unflagged
+    cases only; the three finest levels are used). One dict per point and
+    coefficient: the point's parameters, the values per level, the apparent
+    order, the extrapolated value and the fine-mesh GCI (fraction)."""
+    groups: dict[tuple, dict[int, CaseResult]] = {}
+    for r in results:
+        if r.flags or not math.isfinite(r.cl):
+            continue
+        key = (r.variant, round(r.ride_height_front, 9), round(r.ride_height_rear, 9), round(r.pitch_deg, 9),
+               round(r.yaw_deg, 9), round(r.speed, 9) if math.isfinite(r.speed) else None)
+        groups.setdefault(key, {})[r.mesh_level] = r
+    out = []
+    for key, by_level in groups.items():
+        if len(by_level) < 3:
+            continue
+        lv = sorted(by_level)[-3:][::-1]  # finest first
+        rows = [by_level[m] for m in lv]
+        for name, get in (("cl", lambda r: r.cl), ("cd", lambda r: r.cd)):
+            g = grid_convergence(*(get(r) for r in rows), *(level_cell_size(m) for m in lv))
+            out.append({"variant": key[0], "ride_height_front": key[1], "ride_height_rear": key[2],
+                        "pitch_deg": key[3], "yaw_deg": key[4], "speed": key[5], "coefficient": name,
+                        "levels": lv, "cases": [r.case_id for r in rows], **g.to_dict()})
+    return out
+
+
+def _csv(rows: list[dict[str, Any]]) -> str:
+    cols: list[str] = []
+    for r in rows:
+        cols += [k for k in r if k not in cols]
+    buf = io.StringIO()
+    w = csv.writer(buf, lineterminator="\n")
+    w.writerow(cols)
+    for r in rows:
+        w.writerow(["" if r.get(k) is None or (isinstance(r.get(k), float) and not math.isfinite(r[k]))
+                    else (f"{r[k]:.6g}" if isinstance(r.get(k), float) else r[k]) for k in cols])
+    return buf.getvalue()
+
+
+#: Points of the fitted ride-height map along each side of its grid.
+MAP_GRID_POINTS = 24
+
+
+def aero_maps(results: list[CaseResult]) -> list[dict[str, Any]]:
+    """The fitted downforce maps, one per variant with at least three
+    unflagged points at the smallest |yaw|: a least-squares quadratic
+    response surface of −C_L over the front and rear ride heights
+    (:func:`postproc.kernels.aeromap.fit_response_surface`), its fit quality,
+    its gradient at the mean ride heights (per mm) and, when both ride
+    heights vary, its values on a ``MAP_GRID_POINTS``² grid over the
+    rectangle of the points (ride heights m)."""
+    ok = [r for r in results if not r.flags]
+    variants = list(dict.fromkeys(r.variant for r in results))
+    ymin = min((abs(r.yaw_deg) for r in ok), default=0.0)
+    base = [r for r in ok if abs(abs(r.yaw_deg) - ymin) < 1e-9]
+    out = []
+    for v in variants:
+        rows = [r for r in base if r.variant == v
+                and math.isfinite(r.ride_height_front) and math.isfinite(r.ride_height_rear) and math.isfinite(r.cl)]
+        if len(rows) < 3:
+            continue
+        hf = [r.ride_height_front for r in rows]
+        hr = [r.ride_height_rear for r in rows]
+        fit = fit_response_surface(hf, hr, [-r.cl for r in rows], degree=2)
+        g = fit.gradient(np.mean(hf), np.mean(hr))
+        grid = None
+        if len(set(hf)) > 1 and len(set(hr)) > 1:
+            front, rear, values = map_grid(fit, hf, hr, MAP_GRID_POINTS)
+            grid = {"front": front, "rear": rear, "values": values}
+        out.append({"variant": v, "coefficient": "downforce", "label": "−C_L", "degree": fit.degree,
+                    "n_points": fit.n_points, "r2": fit.r2, "rms": fit.rms,
+                    "d_front_per_mm": float(g[0]) / 1000.0, "d_rear_per_mm": float(g[1]) / 1000.0,
+                    "points": {"front": hf, "rear": hr}, "grid": grid})
+    return out
+
+
+@dataclass(frozen=True)
+class SweepAnalysis:
+    """A sweep's results as data, what the report renders: the rows
+    (``results``), the variant ranking, the fitted aero maps
+    (:func:`aero_maps`), the mesh study (:func:`mesh_study`), notes on the
+    flags, the per-case run and mesh checks, and — after
+    :func:`postprocess_sweep` — the per-case outcomes and the written paths
+    (keys ``csv``, ``json``, ``report``, ``cases``)."""
+
+    title: str
+    study: str
+    results: tuple[CaseResult, ...]
+    ranking: tuple[VariantScore, ...]
+    aero_maps: tuple[dict[str, Any], ...]
+    mesh_study: tuple[dict[str, Any], ...]
+    notes: tuple[str, ...] = ()
+    checks: tuple[dict[str, Any], ...] = ()
+    outcomes: tuple[CaseOutcome, ...] = ()
+    paths: dict[str, Path] = field(default_factory=dict)
+
+
+def analyse_results(results: list[CaseResult], title: str = "Sweep report", study: str = "",
+                    notes: list[str] | None = None, checks: list[dict] | None = None,
+                    mesh: list[dict] | None = None) -> SweepAnalysis:
+    """Rank the variants, fit the aero maps and (unless ``mesh`` is given)
+    run the mesh study over ``results``; returns the :class:`SweepAnalysis`."""
+    return SweepAnalysis(title=title, study=study, results=tuple(results), ranking=tuple(rank_variants(results)),
+                         aero_maps=tuple(aero_maps(results)),
+                         mesh_study=tuple(mesh_study(results) if mesh is None else mesh),
+                         notes=tuple(notes or ()), checks=tuple(checks or ()))
+
+
+REPORT_NAME = "report.html"
+
+
+def postprocess_sweep(
+    sweep_dir: str | os.PathLike,
+    out_dir: str | os.PathLike | None = None,
+    title: str | None = None,
+    progress: Callable[[int, int, CaseOutcome], None] | None = None,
+    force: bool = False,
+) -> SweepAnalysis:
+    """Post-process every case of a sweep and write the tables.
+
+    ``out_dir`` defaults to the sweep folder. ``progress(i, n, outcome)`` is
+    called after each case. Existing results (tables or report) are not
+    replaced unless ``force`` (UserError naming the file). Returns the
+    :class:`SweepAnalysis` with the outcomes and the paths (keys ``csv``,
+    ``json``, ``cases`` written; ``report`` where the report belongs).
+    Raises UserError for a folder that is not a sweep.
+    """
+    manifest = read_manifest(sweep_dir)
+    out = Path(out_dir) if out_dir is not None else Path(manifest.root or sweep_dir)
+    existing = [p for p in (out / "results.csv", out / "results.json", out / REPORT_NAME) if p.exists()]
+    if existing and not force:
+        raise UserError(expected="no earlier results in the output folder", got=", ".join(str(p) for p in existing),
+                        fix="pass --force to replace them, or -o to write somewhere else")
+    outcomes = []
+    n = len(manifest.cases)
+    for i, case in enumerate(manifest.cases):
+        o = process_case(manifest, case)
+        outcomes.append(o)
+        if o.report is not None:
+            write_json_atomic(out / RESULTS_DIR / f"{case.case_id}.json",
+                              json_ready({**o.report, "yplus": o.yplus, "flags": list(o.result.flags)}))
+        if progress is not None:
+            progress(i + 1, n, o)
+    rows = [outcome_row(o) for o in outcomes]
+    paths = {
+        "csv": out / "results.csv",
+        "json": out / "results.json",
+        "report": out / REPORT_NAME,
+        "cases": out / RESULTS_DIR,
+    }
+    write_text_atomic(paths["csv"], _csv(rows))
+    notes = []
+    flags = sorted({f for o in outcomes for f in o.result.flags})
+    for f in flags:
+        k = sum(f in o.result.flags for o in outcomes)
+        notes.append(f"{k} case(s) flagged '{f}': {flag_meaning(f)}")
+    check_keys = ("case_id", "status", "cells", "layers", "iterations", "convergence", "yplus_median", "yplus_p95",
+                  "yplus_share_in_range", "yplus_range")
+    checks = [{k: r.get(k) for k in check_keys} for r in rows]
+    analysis = analyse_results([o.result for o in outcomes],
+                               title=title or f"Sweep report — {manifest.study or Path(sweep_dir).name}",
+                               study=manifest.study, notes=notes, checks=checks)
+    write_json_atomic(paths["json"], json_ready({
+        "study": manifest.study,
+        "axes": "wind axes of caseprep.contract.frames: C_L positive up (downforce = -C_L), C_D along the relative wind, "
+                "C_S along +y_W; balance = front share of downforce; ride heights m; angles deg",
+        "flags": {f: flag_meaning(f) for f in flags},
+        "cases": rows,
+        "ranking": [asdict(s) for s in analysis.ranking],
+        "mesh_study": list(analysis.mesh_study),
+        "aero_maps": list(analysis.aero_maps),
+    }))
+    return replace(analysis, outcomes=tuple(outcomes), paths=paths)

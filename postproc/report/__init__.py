@@ -1,0 +1,2 @@
+"""Presentation: renders the sweep's analysis data as a self-contained HTML report (no computing).
+"""

@@ -64,6 +64,11 @@ def _table(r: dict) -> str:
     cv = r.get("convergence")
     if cv:
         lines.append(f"convergence of the runtime monitor (last {cv['window']} samples): {cv['verdict']}")
+    cc = r.get("coefficient_convergence")
+    if cc:
+        worst = ", ".join(f"{k} {s['mean']:.4f} ± {s['std']:.4f} (drift {s['drift']:+.4f}, tol {s['tolerance']:g})"
+                          for k, s in cc["series"].items() if s["verdict"] != "converged")
+        lines.append(f"in coefficient counts (window means ± std): {cc['verdict']}" + (f": {worst}" if worst else ""))
     for n in r.get("notes", []) + ((b or {}).get("notes", []) if b else []):
         lines.append(f"note: {n}")
     return "\n".join(lines)
@@ -121,10 +126,15 @@ def forces_cmd(target, patches, rho, kinematic, normals, shear_on, p_ref, about,
 @click.option("--title", help="Report title (default from the study name).")
 @click.option("--force", is_flag=True, help="Replace earlier results in the output folder.")
 @click.option("-q", "--quiet", is_flag=True, help="No per-case progress lines.")
-def sweep_cmd(sweep_dir: str, out_dir: str | None, title: str | None, force: bool, quiet: bool) -> None:
+@click.option("-c", "--config", "config", type=click.Path(dir_okay=False),
+              help="Analysis settings for analysis.json (default: ANALYSIS.toml in the sweep folder, else the "
+                   "sweep config's [analysis] table, else built-in defaults).")
+def sweep_cmd(sweep_dir: str, out_dir: str | None, title: str | None, force: bool, quiet: bool,
+              config: str | None) -> None:
     """Post-process every case of SWEEP_DIR (written by `caseprep write`, run
     by `caseprep run`): forces, coefficients, aero balance, convergence and
-    the runner's flags → results table, variant ranking and an HTML report.
+    the runner's flags → results table, variant ranking, analysis.json (as
+    `postproc analyse`) and an HTML report.
 
     Flagged cases (mesh failed, layers collapsed, not converged, not run…)
     are listed and never ranked.
@@ -139,12 +149,19 @@ def sweep_cmd(sweep_dir: str, out_dir: str | None, title: str | None, force: boo
         what = (f"C_L {r.cl:+.4f}  C_D {r.cd:.4f}" if r.cl == r.cl else "no coefficients")
         click.echo(f"[{i}/{n}] {r.case_id}: {o.status}; {what}" + (f"; flags: {', '.join(r.flags)}" if r.flags else ""))
 
-    analysis = postprocess_sweep(sweep_dir, out_dir, title=title, progress=progress, force=force)
+    analysis = postprocess_sweep(sweep_dir, out_dir, title=title, progress=progress, force=force,
+                                 analysis_config=config)
     outcomes, paths = analysis.outcomes, analysis.paths
     write_report(analysis, paths["report"])
     n_flag = sum(bool(o.result.flags) for o in outcomes)
     click.echo(f"{len(outcomes)} case(s), {n_flag} flagged (not ranked).")
     click.echo(f"results: {paths['csv']}, {paths['json']}; report: {paths['report']}")
+    if analysis.analysis is not None:
+        dec = analysis.analysis["ranking"]["decision"]
+        click.echo(f"analysis: {paths['analysis']} (decision: {dec['status']}: {dec['message']})")
+    for n in analysis.notes:
+        if n.startswith("analysis.json not written"):
+            click.echo(n)
     click.echo("Caution: CFD is an approximation — validate by physical test; run vehicles only where permitted "
                "and safe; defer to local rules and qualified engineers.")
 

@@ -75,12 +75,13 @@ def test_monitor_series_reduce_like_the_export():
     n = 40
     mon = {f"force.total_{c}": np.full(n, F[i]) for i, c in enumerate("xyz")}
     mon.update({f"moment.total_{c}": np.full(n, M[i]) for i, c in enumerate("xyz")})
-    s = coefficient_series(mon, ref, window=20)
+    axle = (np.eye(3)[0], np.eye(3)[1], np.eye(3)[2], np.zeros(3))   # level body on the plane z = 0
+    s = coefficient_series(mon, ref, axle=axle, window=20)
     r = _result(F, M, np.array(ref.moment_point))
     c, b = co.coefficients(r, ref), co.balance(r, ref)     # level body, zero yaw
     assert len(s["cl"]) == 20
     assert s["cl"][0] == pytest.approx(c.lift) and s["cd"][0] == pytest.approx(c.drag)
     assert s["cn"][0] == pytest.approx(c.yawing)
     assert s["cl_front"][0] == pytest.approx(b.c_lift_front) and s["cl_rear"][0] == pytest.approx(b.c_lift_rear)
-    v = judge_monitor(mon, ref, window=20)
+    v = judge_monitor(mon, ref, axle=axle, window=20)
     assert v["verdict"] == "converged" and v["means"]["cl"] == pytest.approx(c.lift)

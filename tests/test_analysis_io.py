@@ -192,3 +192,28 @@ def test_settings_errors_name_the_key(tmp_path):
         p.write_text(text)
         with pytest.raises(UserError, match=expected.replace("(", r"\(")):
             read_analysis_config(p)
+
+
+def test_postproc_sweep_writes_the_same_analysis(tmp_path):
+    # the example floor study written but not run: every point flagged `not-run`, so no
+    # variant can be compared — and the analysis says so as data
+    from caseprep.cli import main as caseprep_main
+
+    root = tmp_path / "sw"
+    w = CliRunner().invoke(caseprep_main, ["write", str(REPO / "example_cases" / "floor_study" / "sweep.toml"),
+                                           "-o", str(root)], catch_exceptions=False)
+    assert w.exit_code == 0, w.output
+    r = CliRunner().invoke(main, ["sweep", str(root), "-q"], catch_exceptions=False)
+    assert r.exit_code == 0, r.output
+    d = json.loads((root / "analysis.json").read_text())
+    assert d["source"]["kind"] == "sweep" and d["ranking"]["decision"]["status"] == "no-common-points"
+    assert len(d["ranking"]["envelope"]) == 4 and all(not v["compared"] for v in d["ranking"]["variants"])
+    # `postproc analyse` on the folder computes the same decision
+    again = _run([root, "-o", tmp_path / "again"])
+    assert again.exit_code == 0, again.output
+    assert json.loads((tmp_path / "again" / "analysis.json").read_text())["ranking"] == d["ranking"]
+    # bad settings stop the sweep before anything is written
+    (root / "ANALYSIS.toml").write_text("[ranking.weights]\ndownforse = 1.0\n")
+    bad = CliRunner().invoke(main, ["sweep", str(root), "-q", "-o", str(tmp_path / "o2")], catch_exceptions=False)
+    assert bad.exit_code == 2 and "Did you mean 'downforce'" in bad.output
+    assert not (tmp_path / "o2").exists()

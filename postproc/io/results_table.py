@@ -171,6 +171,8 @@ def _check_units(rows: list[dict], source: str) -> None:
     for i, r in enumerate(rows):
         for k in ("ride_height_front", "ride_height_rear"):
             h = r[k]
+            if math.isnan(h):   # only a flagged row may leave it empty; _table drops it
+                continue
             if h > RIDE_HEIGHT_MAX:
                 raise UserError(expected=f"ride heights in m (0 < h ≤ {RIDE_HEIGHT_MAX:g})", got=h, file=source,
                                 key=f"{k} of {r['case_id']}",
@@ -178,7 +180,7 @@ def _check_units(rows: list[dict], source: str) -> None:
             if not h > 0:
                 raise UserError(expected="a ride height above the ground (> 0 m)", got=h, file=source,
                                 key=f"{k} of {r['case_id']}", fix="ride heights are measured upwards from the ground")
-        if not r["speed"] > 0:
+        if not r["speed"] > 0 and not math.isnan(r["speed"]):
             raise UserError(expected="a positive speed (m/s)", got=r["speed"], file=source,
                             key=f"speed of {r['case_id']}")
         if abs(r["yaw_deg"]) > 90:
@@ -190,11 +192,22 @@ def _check_units(rows: list[dict], source: str) -> None:
                 raise UserError(expected=f"a positive {what}", got=a, file=source, key=f"{k} of {r['case_id']}")
 
 
+POINT = ("ride_height_front", "ride_height_rear", "yaw_deg", "speed", "mesh_level")
+
+
 def _table(rows: list[dict], source: str, kind: str, notes: list[str]) -> ResultsTable:
     if not rows:
         raise UserError(expected="at least one data row", got="none", file=source,
                         fix="add one row per operating point under the header")
     _check_units(rows, source)
+    lost = [r["case_id"] for r in rows if any(math.isnan(float(r[k])) for k in POINT)]
+    if lost:
+        rows = [r for r in rows if not any(math.isnan(float(r[k])) for k in POINT)]
+        notes = notes + [f"{len(lost)} flagged row(s) without an operating point left out: "
+                         + ", ".join(lost[:10]) + (" …" if len(lost) > 10 else "")]
+    if not rows:
+        raise UserError(expected="at least one row with an operating point (ride heights, yaw, speed)",
+                        got="none", file=source, fix="only flagged rows without ride heights were found")
     ids = [r["case_id"] for r in rows]
     dup = sorted({i for i in ids if ids.count(i) > 1})
     if dup:
@@ -261,8 +274,10 @@ def read_results_csv(path: str | Path) -> ResultsTable:
 def _case_extras(case_file: Path) -> dict[str, float]:
     """Reference area, air density and iterative uncertainties of one case from its
     ``results/<case>.json`` (written by ``postproc sweep``); {} when absent.
+    Used where the results row has no value of its own (a row's ``u_*`` are
+    the window spreads of the rule in coefficient counts).
 
-    Iterative uncertainty: the force monitor's standard deviation over the
+    Fallback iterative uncertainty: the force monitor's standard deviation over the
     settling window divided by q·A. The monitor judges body-frame force
     components (N); C_L takes the vertical one, C_D and C_S the in-plane
     resultant of the two horizontal ones (a bound at any yaw), and the axle
@@ -310,6 +325,7 @@ def read_sweep_table(folder: str | Path) -> ResultsTable:
         raise UserError(expected="a list of case rows under 'cases'", got=type(cases).__name__, file=str(p), key="cases",
                         fix="re-run `postproc sweep --force`")
     records, ids = [], []
+    approximated = False
     for i, c in enumerate(cases):
         rec = dict(c)
         cid = str(c.get("case_id") or f"cases[{i}]")
@@ -317,11 +333,14 @@ def read_sweep_table(folder: str | Path) -> ResultsTable:
             rec["flags"] = " ".join(str(f) for f in rec["flags"])
         extra = _case_extras(root / "results" / f"{cid}.json") if "/" not in cid and "\\" not in cid else {}
         for k, v in extra.items():
-            rec.setdefault(k, v)
+            if rec.get(k) is None:      # the row's own value (window spread, area) wins
+                if k.startswith("u_"):
+                    approximated = True
+                rec[k] = v
         records.append((rec, lambda name, i=i, cid=cid: f"{p} cases[{i}] ({cid})"))
         ids.append(cid)
-    notes = ["sweep source: iterative uncertainties from the force monitor's spread over the settling window "
-             "(axle-lift spread taken as the whole-lift spread)"]
+    notes = ["sweep source: some iterative uncertainties estimated from the force monitor's spread "
+             "(σ(F)/(qA); axle-lift spread taken as the whole-lift spread)"] if approximated else []
     return _table(_parse_rows(records, ids), str(p), "sweep", notes)
 
 

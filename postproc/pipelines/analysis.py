@@ -21,6 +21,7 @@ import numpy as np
 
 from caseprep.contract import __version__
 from caseprep.contract.errors import UserError, did_you_mean
+from caseprep.contract.manifest import read_manifest
 from caseprep.contract.atomicio import json_ready, write_json_atomic
 
 from ..io.analysis_config import STANDARD_AIR_DENSITY, AnalysisConfig, read_analysis_config
@@ -359,11 +360,45 @@ def analyse_table(table: ResultsTable, cfg: AnalysisConfig) -> dict:
     })
 
 
-def default_config_path(source: Path) -> Path | None:
-    """``ANALYSIS.toml`` beside the source (in the sweep folder, or next to the CSV), if there is one."""
+def default_config_path(source: Path, sweep_config: str | None = None) -> Path | None:
+    """The settings a source implies: ``ANALYSIS.toml`` beside it (in the
+    sweep folder, or next to the CSV), else the sweep's own config file
+    (``sweep_config``, as the manifest records it: absolute, or relative to
+    the sweep folder or the working folder) when it has an ``[analysis]``
+    table; None when there is neither."""
     folder = source if source.is_dir() else source.parent
     p = folder / "ANALYSIS.toml"
-    return p if p.is_file() else None
+    if p.is_file():
+        return p
+    if sweep_config:
+        for c in (Path(sweep_config), folder / sweep_config):
+            try:
+                if c.is_file() and "[analysis" in c.read_text(encoding="utf-8", errors="replace"):
+                    return c
+            except OSError:
+                continue
+    return None
+
+
+def write_analysis(data: dict, target: Path) -> Path:
+    """Write ``analysis.json`` atomically as strict JSON (nothing on failure)."""
+    json.dumps(data, allow_nan=False)   # strict JSON before anything is written
+    try:
+        write_json_atomic(target, data)
+    except OSError as exc:
+        raise UserError(expected="a writable output folder", got=f"{target.parent} ({exc.strerror})",
+                        key="-o/--out", fix="choose a folder you can write to") from None
+    return target
+
+
+def _manifest_config(src: Path) -> str | None:
+    """The config file a sweep folder's manifest records, if it is one."""
+    if not (src.is_dir() and (src / "manifest.json").is_file()):
+        return None
+    try:
+        return read_manifest(src).config_file or None
+    except UserError:
+        return None
 
 
 def run_analysis(source: str | Path, config: str | Path | None = None, out_dir: str | Path | None = None,
@@ -373,7 +408,7 @@ def run_analysis(source: str | Path, config: str | Path | None = None, out_dir: 
     unless ``force``. Returns the data and the path written."""
     src = Path(source)
     table = read_results(src)
-    cfg_path = Path(config) if config is not None else default_config_path(src)
+    cfg_path = Path(config) if config is not None else default_config_path(src, _manifest_config(src))
     cfg = read_analysis_config(cfg_path)
     out = Path(out_dir) if out_dir is not None else (src if src.is_dir() else src.parent)
     target = out / OUTPUT_NAME
@@ -383,10 +418,4 @@ def run_analysis(source: str | Path, config: str | Path | None = None, out_dir: 
     if out.exists() and not out.is_dir():
         raise UserError(expected="an output folder", got=f"{out} (a file)", key="-o/--out")
     data = analyse_table(table, cfg)
-    json.dumps(data, allow_nan=False)   # strict JSON before anything is written
-    try:
-        write_json_atomic(target, data)
-    except OSError as exc:
-        raise UserError(expected="a writable output folder", got=f"{out} ({exc.strerror})", key="-o/--out",
-                        fix="choose a folder you can write to") from None
-    return data, target
+    return data, write_analysis(data, target)

@@ -129,4 +129,29 @@ def forces_report(target: str, patches: tuple[str, ...] = (), rho: float | None 
             out["convergence"] = assess_force_monitor(case_dir, window=window, options=convergence).to_dict()
         except UserError as exc:
             out["notes"].append(f"convergence not assessed: {exc}")
+        if rv is not None and "convergence" in out:
+            rot = axes_rotations(placement, wind)
+            axle = axle_axes(placement) if "balance" in out else None
+            out["coefficient_convergence"] = _coefficient_convergence(case_dir, rv, rot, axle, window, convergence,
+                                                                      out["notes"])
     return out
+
+
+def _coefficient_convergence(case_dir, rv, rotations, axle, window, options, notes: list[str]) -> dict | None:
+    """The monitor's coefficients judged in coefficient counts over the
+    settling window (:func:`caseprep.contract.convergence.judge_coefficients`),
+    with their window means and spreads; None (and a note) when the monitor
+    cannot be read."""
+    from caseprep.contract.convergence import settle_window
+    from caseprep.contract.monitor import FORCES_NAME, read_monitor
+
+    from postproc.pipelines.monitor_coefficients import judge_monitor
+
+    try:
+        mon = read_monitor(case_dir, FORCES_NAME if (case_dir / "postProcessing" / FORCES_NAME).is_dir() else None)
+        n = len(mon["force.total_x"])
+        w = settle_window(n, options) if window is None else window
+        return judge_monitor(mon, rv, rotations, axle, w, options)
+    except (UserError, KeyError) as exc:
+        notes.append(f"coefficients not judged in counts: {exc}")
+        return None

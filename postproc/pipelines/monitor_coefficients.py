@@ -16,7 +16,6 @@ from typing import Mapping
 import numpy as np
 
 from caseprep.contract.convergence import DEFAULT_OPTIONS, ConvergenceOptions, judge_coefficients
-from caseprep.contract.frames import axes_rotations, axle_axes
 
 from ..kernels import coefficients as co
 from ..kernels.forces import ForceResult
@@ -28,12 +27,16 @@ def _result(force: np.ndarray, moment: np.ndarray, about: np.ndarray) -> ForceRe
                        moment_viscous=z, area=0.0, about=about, n_faces=0)
 
 
-def coefficient_series(monitor: Mapping[str, np.ndarray], ref: co.ReferenceValues, placement=None,
-                       wind_direction_body=None, window: int | None = None) -> dict[str, np.ndarray]:
-    """Coefficient series (``cl``, ``cd``, ``cs``, ``cn`` and, with axles,
-    ``cl_front``, ``cl_rear``) of the last ``window`` monitor samples (all
-    when None). Needs ``force.total_x/y/z``; without ``moment.total_*`` the
-    moment-based series are left out. Raises KeyError when the forces are missing."""
+def coefficient_series(monitor: Mapping[str, np.ndarray], ref: co.ReferenceValues,
+                       rotations: Mapping[str, np.ndarray] | None = None, axle=None,
+                       window: int | None = None) -> dict[str, np.ndarray]:
+    """Coefficient series (``cl``, ``cd``, ``cs``, ``cn`` and, with ``axle``
+    axes (:func:`caseprep.contract.frames.axle_axes`) and the axles in
+    ``ref``, ``cl_front``, ``cl_rear``) of the last ``window`` monitor samples
+    (all when None). ``rotations``: :func:`caseprep.contract.frames.axes_rotations`
+    of the case (default: level body, zero yaw). Needs ``force.total_x/y/z``;
+    without ``moment.total_*`` the moment-based series are left out. Raises
+    KeyError when the forces are missing."""
     F = np.stack([np.asarray(monitor[f"force.total_{c}"], dtype=float) for c in "xyz"], axis=1)
     has_m = all(f"moment.total_{c}" in monitor for c in "xyz")
     M = np.stack([np.asarray(monitor[f"moment.total_{c}"], dtype=float) for c in "xyz"], axis=1) if has_m else None
@@ -41,13 +44,12 @@ def coefficient_series(monitor: Mapping[str, np.ndarray], ref: co.ReferenceValue
         F = F[-window:]
         M = None if M is None else M[-window:]
     about = np.asarray(ref.moment_point, dtype=float)
-    names = ["cl", "cd", "cs"] + (["cn"] if has_m else []) + \
-        (["cl_front", "cl_rear"] if has_m and ref.front_axle is not None and ref.rear_axle is not None else [])
+    axles = has_m and axle is not None and ref.front_axle is not None and ref.rear_axle is not None
+    names = ["cl", "cd", "cs"] + (["cn"] if has_m else []) + (["cl_front", "cl_rear"] if axles else [])
     out = {k: np.empty(len(F)) for k in names}
-    rot, axle = axes_rotations(placement, wind_direction_body), axle_axes(placement)
     for i in range(len(F)):
         r = _result(F[i], M[i] if M is not None else np.zeros(3), about)
-        c = co.coefficients(r, ref, rot)
+        c = co.coefficients(r, ref, rotations)
         out["cl"][i], out["cd"][i], out["cs"][i] = c.lift, c.drag, c.side
         if "cn" in out:
             out["cn"][i] = c.yawing
@@ -57,9 +59,9 @@ def coefficient_series(monitor: Mapping[str, np.ndarray], ref: co.ReferenceValue
     return out
 
 
-def judge_monitor(monitor: Mapping[str, np.ndarray], ref: co.ReferenceValues, placement=None,
-                  wind_direction_body=None, window: int | None = None,
+def judge_monitor(monitor: Mapping[str, np.ndarray], ref: co.ReferenceValues,
+                  rotations: Mapping[str, np.ndarray] | None = None, axle=None, window: int | None = None,
                   options: ConvergenceOptions = DEFAULT_OPTIONS) -> dict:
     """The coefficient-count verdict of a monitor over ``window`` samples,
     with window means and spreads (``caseprep.contract.convergence``)."""
-    return judge_coefficients(coefficient_series(monitor, ref, placement, wind_direction_body, window), options)
+    return judge_coefficients(coefficient_series(monitor, ref, rotations, axle, window), options)

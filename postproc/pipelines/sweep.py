@@ -10,7 +10,10 @@ Outputs (in the sweep folder unless told otherwise, atomic writes):
 * ``results/<case_id>.json`` — the full forces report of each case, with
   the body's y+ statistics per patch and the case's flags;
 * ``results.csv`` and ``results.json`` — one row per case (``results.json``
-  also holds the ranking, the mesh study and the fitted aero maps).
+  also holds the ranking, the mesh study and the fitted aero maps);
+* ``analysis.json`` — the analysis of the results table
+  (:mod:`postproc.pipelines.analysis`, the same as ``postproc analyse``):
+  maps with error bars, peak and stall, the platform, the honest ranking.
 
 The HTML report (``report.html``, :mod:`postproc.report.sweep_report`) is
 rendered from the returned :class:`SweepAnalysis`.
@@ -22,10 +25,13 @@ in the manifest. A case is **flagged** (never ranked) when the runner
 flagged it, when it did not finish, when its forces could not be computed,
 or when the runtime force monitor is still drifting at the end of the run.
 The monitor is judged by the one convergence rule
-(:mod:`caseprep.contract.convergence`, as the runner judges it): over the
-last 30 % of the samples (at least 20), each total-force component against
-max(|its mean|, the resultant force), drift and std tolerance 1 %;
-``diverging`` there gives the ``forces-drifting`` flag.
+(:mod:`caseprep.contract.convergence`) over the settling window (the last
+30 % of the samples, at least 20): in coefficient counts when the case has
+reference values (each coefficient and the balance against its own
+tolerance; the reported coefficients are then the window means, with their
+standard deviations as ``u_*``), else each total-force component against
+max(|its mean|, the resultant force), as the runner judges it; ``diverging``
+gives the ``forces-drifting`` flag.
 """
 from __future__ import annotations
 
@@ -50,6 +56,11 @@ from postproc.kernels.aeromap import fit_response_surface, map_grid
 from postproc.kernels.forces import face_geometry
 from postproc.kernels.meshstudy import grid_convergence
 from postproc.kernels.ranking import CaseResult, VariantScore, rank_variants
+from postproc.io.analysis_config import read_analysis_config
+from postproc.io.results_table import read_sweep_table
+from postproc.pipelines.analysis import OUTPUT_NAME as ANALYSIS_NAME
+from postproc.pipelines.analysis import analyse_table, default_config_path, resolve_options, write_analysis
+from postproc.pipelines.analysis_points import level_cell_size
 from postproc.pipelines.case_forces import forces_report
 
 RESULTS_DIR = "results"
@@ -140,6 +151,7 @@ def process_case(manifest: Manifest, case: CaseRecord) -> CaseOutcome:
     nan = math.nan
     cl = cd = cs = nan
     clf = clr = bal = margin = None
+    extra: dict[str, float] = {}
     if report is not None:
         c = report.get("coefficients")
         if c:
@@ -158,19 +170,35 @@ def process_case(manifest: Manifest, case: CaseRecord) -> CaseOutcome:
                 notes.append("zero yaw: no side force to place, stability margin not reported")
             notes.extend(b.get("notes", []))
         conv = report.get("convergence")
-        if conv is not None:
+        counts = report.get("coefficient_convergence")
+        if counts is not None:
+            # the rule in coefficient counts; the reported coefficients are its window means
+            verdict = counts["verdict"]
+            means, stds = counts["means"], counts["stds"]
+            cl, cd, cs = (float(means.get(k, v)) for k, v in (("cl", cl), ("cd", cd), ("cs", cs)))
+            clf, clr = means.get("cl_front", clf), means.get("cl_rear", clr)
+            if "balance" in means and means["balance"] is not None and math.isfinite(means["balance"]):
+                bal = means["balance"]
+            extra.update({f"u_{k}": float(stds[k]) for k in ("cl", "cd", "cs", "cl_front", "cl_rear") if k in stds})
+            notes.append(f"coefficients: means over the last {counts['window']} iterations of the monitor")
+            if verdict == "diverging":
+                flags.append(Flag.FORCES_DRIFTING)
+        elif conv is not None:
             verdict = conv["verdict"]
             if verdict == "diverging":
                 flags.append(Flag.FORCES_DRIFTING)
         else:
             notes.append("no runtime force monitor found: convergence not assessed")
+        ref = report.get("reference") or {}
+        extra.update({k: float(ref[r]) for k, r in (("reference_area", "area"), ("air_density", "rho"))
+                      if isinstance(ref.get(r), (int, float))})
     yplus: dict[str, dict] = {}
     if report is not None:
         yplus, why = wall_yplus(case_dir, case)
         if why:
             notes.append(why)
     result = CaseResult(**base, cl=cl, cd=cd, cs=cs, cl_front=clf, cl_rear=clr, balance=bal,
-                        stability_margin=margin, flags=tuple(dict.fromkeys(flags)))
+                        stability_margin=margin, flags=tuple(dict.fromkeys(flags)), **extra)
     layers = None
     if rec is not None and rec.layers:
         layers = ", ".join(f"{d.get('patch')} {d.get('thickness_percent'):.0f} %" for d in rec.layers
@@ -194,10 +222,6 @@ def outcome_row(o: CaseOutcome) -> dict[str, Any]:
     return r
 
 
-#: representative cell size of mesh level m relative to level 0: each level
-#: divides the base cell by √2 (caseprep.planning.domain), so h_m = 2^(−m/2)
-def level_cell_size(level: int) -> float:
-    return 2.0 ** (-0.5 * level)
 
 
 def mesh_study(results: list[CaseResult]) -> list[dict[str, Any]]:
@@ -296,6 +320,7 @@ class SweepAnalysis:
     checks: tuple[dict[str, Any], ...] = ()
     outcomes: tuple[CaseOutcome, ...] = ()
     paths: dict[str, Path] = field(default_factory=dict)
+    analysis: dict[str, Any] | None = None   # analysis.json (postproc.pipelines.analysis), when written
 
 
 def analyse_results(results: list[CaseResult], title: str = "Sweep report", study: str = "",
@@ -318,6 +343,7 @@ def postprocess_sweep(
     title: str | None = None,
     progress: Callable[[int, int, CaseOutcome], None] | None = None,
     force: bool = False,
+    analysis_config: str | os.PathLike | None = None,
 ) -> SweepAnalysis:
     """Post-process every case of a sweep and write the tables.
 
@@ -330,7 +356,12 @@ def postprocess_sweep(
     """
     manifest = read_manifest(sweep_dir)
     out = Path(out_dir) if out_dir is not None else Path(manifest.root or sweep_dir)
-    existing = [p for p in (out / "results.csv", out / "results.json", out / REPORT_NAME) if p.exists()]
+    root = Path(manifest.root or sweep_dir)
+    cfg_path = analysis_config if analysis_config is not None else default_config_path(root, manifest.config_file)
+    cfg = read_analysis_config(cfg_path)
+    resolve_options(cfg)   # settings errors before any case is processed
+    existing = [p for p in (out / "results.csv", out / "results.json", out / REPORT_NAME, out / ANALYSIS_NAME)
+                if p.exists()]
     if existing and not force:
         raise UserError(expected="no earlier results in the output folder", got=", ".join(str(p) for p in existing),
                         fix="pass --force to replace them, or -o to write somewhere else")
@@ -373,4 +404,10 @@ def postprocess_sweep(
         "mesh_study": list(analysis.mesh_study),
         "aero_maps": list(analysis.aero_maps),
     }))
-    return replace(analysis, outcomes=tuple(outcomes), paths=paths)
+    data = None
+    try:   # the same analysis as `postproc analyse` on this folder
+        data = analyse_table(read_sweep_table(out), cfg)
+        paths["analysis"] = write_analysis(data, out / ANALYSIS_NAME)
+    except UserError as exc:
+        analysis = replace(analysis, notes=analysis.notes + (f"analysis.json not written: {exc}",))
+    return replace(analysis, outcomes=tuple(outcomes), paths=paths, analysis=data)

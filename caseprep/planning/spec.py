@@ -167,7 +167,7 @@ class SolverSpec:
     """Solver controls: iteration budget, output interval, parallel ranks,
     the decomposition split (product = n_procs) and relaxation (the momentum
     relaxation and the non-orthogonal correctors follow the mesh: see
-    :data:`caseprep.render.MESH_NUMERICS`)."""
+    :data:`caseprep.casefiles.render.MESH_NUMERICS`)."""
 
     n_iterations: int
     write_interval: int

@@ -93,3 +93,8 @@ def test_real_smoke_sweep(tmp_path):
     # prism-layer coverage per patch from the mesher's log (this spec asks for layers)
     assert row["layers"] and row["layers"].endswith("%")
     assert (paths["cases"] / "smoke-a.json").is_file()
+    # the sweep's analysis.json is the analysis of this table: the point carries the window spread
+    an = json.loads(paths["analysis"].read_text())
+    (pt,) = an["points"]
+    assert pt["cases"] == ["smoke-a"] and pt["usable"] is False       # flagged above: not compared
+    assert an["ranking"]["decision"]["status"] == "no-common-points"

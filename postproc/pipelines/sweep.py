@@ -115,6 +115,61 @@ def wall_yplus(case_dir: Path, case: CaseRecord) -> tuple[dict[str, dict], str |
     return out, None
 
 
+def _report_values(report: dict | None, yaw_deg: float, flags: list, notes: list[str]) -> tuple[dict, str | None]:
+    """The row's coefficients from a case's forces report (keyword arguments
+    of :class:`CaseResult`) and the monitor's verdict. With the rule in
+    coefficient counts the coefficients are its window means, with their
+    spreads as ``u_*``. Appends to ``flags`` and ``notes``."""
+    verdict = None
+    nan = math.nan
+    cl = cd = cs = nan
+    clf = clr = bal = margin = None
+    extra: dict[str, float] = {}
+    if report is None:
+        return {"cl": nan, "cd": nan, "cs": nan}, None
+    c = report.get("coefficients")
+    if c:
+        cl, cd, cs = float(c["lift"]), float(c["drag"]), float(c["side"])
+    else:
+        flags.append(Flag.FORCES_FAILED)
+        notes.append("no reference values in the manifest: coefficients not computed")
+    b = report.get("balance")
+    if b:
+        clf, clr = b.get("c_lift_front"), b.get("c_lift_rear")
+        bal, margin = b.get("balance_front"), b.get("stability_margin")
+        if abs(yaw_deg) < 1e-9 and margin is not None:
+            # at zero yaw the side force is numerical noise about zero and its
+            # centre of pressure is meaningless: report no margin
+            margin = None
+            notes.append("zero yaw: no side force to place, stability margin not reported")
+        notes.extend(b.get("notes", []))
+    conv = report.get("convergence")
+    counts = report.get("coefficient_convergence")
+    if counts is not None:
+        # the rule in coefficient counts; the reported coefficients are its window means
+        verdict = counts["verdict"]
+        means, stds = counts["means"], counts["stds"]
+        cl, cd, cs = (float(means.get(k, v)) for k, v in (("cl", cl), ("cd", cd), ("cs", cs)))
+        clf, clr = means.get("cl_front", clf), means.get("cl_rear", clr)
+        if "balance" in means and means["balance"] is not None and math.isfinite(means["balance"]):
+            bal = means["balance"]
+        extra.update({f"u_{k}": float(stds[k]) for k in ("cl", "cd", "cs", "cl_front", "cl_rear") if k in stds})
+        notes.append(f"coefficients: means over the last {counts['window']} iterations of the monitor")
+        if verdict == "diverging":
+            flags.append(Flag.FORCES_DRIFTING)
+    elif conv is not None:
+        verdict = conv["verdict"]
+        if verdict == "diverging":
+            flags.append(Flag.FORCES_DRIFTING)
+    else:
+        notes.append("no runtime force monitor found: convergence not assessed")
+    ref = report.get("reference") or {}
+    extra.update({k: float(ref[r]) for k, r in (("reference_area", "area"), ("air_density", "rho"))
+                  if isinstance(ref.get(r), (int, float))})
+    return {"cl": cl, "cd": cd, "cs": cs, "cl_front": clf, "cl_rear": clr, "balance": bal,
+            "stability_margin": margin, **extra}, verdict
+
+
 def process_case(manifest: Manifest, case: CaseRecord) -> CaseOutcome:
     """Post-process one case of ``manifest``: its run record, its forces
     report (when its export exists) and its :class:`CaseResult` row."""
@@ -148,57 +203,13 @@ def process_case(manifest: Manifest, case: CaseRecord) -> CaseOutcome:
         except UserError as exc:
             flags.append(Flag.FORCES_FAILED)
             notes.append(f"forces: {exc}")
-    nan = math.nan
-    cl = cd = cs = nan
-    clf = clr = bal = margin = None
-    extra: dict[str, float] = {}
-    if report is not None:
-        c = report.get("coefficients")
-        if c:
-            cl, cd, cs = float(c["lift"]), float(c["drag"]), float(c["side"])
-        else:
-            flags.append(Flag.FORCES_FAILED)
-            notes.append("no reference values in the manifest: coefficients not computed")
-        b = report.get("balance")
-        if b:
-            clf, clr = b.get("c_lift_front"), b.get("c_lift_rear")
-            bal, margin = b.get("balance_front"), b.get("stability_margin")
-            if abs(base["yaw_deg"]) < 1e-9 and margin is not None:
-                # at zero yaw the side force is numerical noise about zero and its
-                # centre of pressure is meaningless: report no margin
-                margin = None
-                notes.append("zero yaw: no side force to place, stability margin not reported")
-            notes.extend(b.get("notes", []))
-        conv = report.get("convergence")
-        counts = report.get("coefficient_convergence")
-        if counts is not None:
-            # the rule in coefficient counts; the reported coefficients are its window means
-            verdict = counts["verdict"]
-            means, stds = counts["means"], counts["stds"]
-            cl, cd, cs = (float(means.get(k, v)) for k, v in (("cl", cl), ("cd", cd), ("cs", cs)))
-            clf, clr = means.get("cl_front", clf), means.get("cl_rear", clr)
-            if "balance" in means and means["balance"] is not None and math.isfinite(means["balance"]):
-                bal = means["balance"]
-            extra.update({f"u_{k}": float(stds[k]) for k in ("cl", "cd", "cs", "cl_front", "cl_rear") if k in stds})
-            notes.append(f"coefficients: means over the last {counts['window']} iterations of the monitor")
-            if verdict == "diverging":
-                flags.append(Flag.FORCES_DRIFTING)
-        elif conv is not None:
-            verdict = conv["verdict"]
-            if verdict == "diverging":
-                flags.append(Flag.FORCES_DRIFTING)
-        else:
-            notes.append("no runtime force monitor found: convergence not assessed")
-        ref = report.get("reference") or {}
-        extra.update({k: float(ref[r]) for k, r in (("reference_area", "area"), ("air_density", "rho"))
-                      if isinstance(ref.get(r), (int, float))})
+    values, verdict = _report_values(report, base["yaw_deg"], flags, notes)
     yplus: dict[str, dict] = {}
     if report is not None:
         yplus, why = wall_yplus(case_dir, case)
         if why:
             notes.append(why)
-    result = CaseResult(**base, cl=cl, cd=cd, cs=cs, cl_front=clf, cl_rear=clr, balance=bal,
-                        stability_margin=margin, flags=tuple(dict.fromkeys(flags)), **extra)
+    result = CaseResult(**base, **values, flags=tuple(dict.fromkeys(flags)))
     layers = None
     if rec is not None and rec.layers:
         layers = ", ".join(f"{d.get('patch')} {d.get('thickness_percent'):.0f} %" for d in rec.layers

@@ -166,7 +166,7 @@ def test_output_folder_gets_nothing_but_analysis_json(tmp_path):
 
 def test_analysis_table_inside_a_sweep_config(tmp_path):
     # caseprep accepts (and ignores) an [analysis] table; postproc reads it
-    from caseprep.config.schema import load_config
+    from caseprep.config.load import load_config
     from postproc.io.analysis_config import read_analysis_config
 
     src = REPO / "example_cases" / "floor_study"

@@ -59,7 +59,7 @@ def test_real_smoke_sweep(tmp_path):
     # the table carries the window means of the forces report's coefficient series (the rule in
     # coefficient counts), with their spreads; the monitor's last sample, reduced the same way,
     # is the export's wind-axes coefficient (same integral, Float32 storage: 1e-6)
-    rep = forces_report(str(root / "cases" / "smoke-a"))
+    rep = forces_report(str(root / "cases" / "smoke-a")).to_dict()
     counts = rep["coefficient_convergence"]
     assert o.result.cd == pytest.approx(counts["means"]["cd"], rel=1e-12)
     assert o.result.cl == pytest.approx(counts["means"]["cl"], rel=1e-12)

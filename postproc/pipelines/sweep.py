@@ -53,7 +53,7 @@ from postproc.io.exports import latest_export
 from postproc.io.surfaces import read_surface
 from postproc.kernels import wallchecks as wc
 from postproc.kernels.aeromap import fit_response_surface, map_grid
-from postproc.kernels.forces import face_geometry
+from postproc.kernels.polygons import face_geometry
 from postproc.kernels.meshstudy import grid_convergence
 from postproc.kernels.ranking import CaseResult, VariantScore, rank_variants
 from postproc.io.analysis_config import read_analysis_config
@@ -61,14 +61,16 @@ from postproc.io.results_table import read_sweep_table
 from postproc.pipelines.analysis import OUTPUT_NAME as ANALYSIS_NAME
 from postproc.pipelines.analysis import analyse_table, default_config_path, resolve_options, write_analysis
 from postproc.pipelines.analysis_points import level_cell_size
-from postproc.pipelines.case_forces import forces_report
+from postproc.pipelines.case_forces import ForcesReport, forces_report
 
 RESULTS_DIR = "results"
 
 @dataclass(frozen=True)
 class CaseOutcome:
-    """One case of the sweep after post-processing: the ranking row, the run
-    status, the flags' explanations and any note."""
+    """One row of the sweep's results: the case's ranking row (``result``),
+    its run status, cell and iteration counts, the monitor's verdict, the
+    prism-layer coverage, notes, the full forces report and the y+
+    statistics per patch. :meth:`row` is its flat form in the tables."""
 
     result: CaseResult
     status: str
@@ -77,14 +79,24 @@ class CaseOutcome:
     convergence: str | None
     layers: str | None = None  # e.g. "body 85 %, strake_left 38 %" (share of the target layer thickness)
     notes: tuple[str, ...] = ()
-    report: dict[str, Any] | None = field(default=None, repr=False)
+    report: ForcesReport | None = field(default=None, repr=False)
     yplus: dict[str, dict] = field(default_factory=dict)
 
+    def row(self) -> dict[str, Any]:
+        """The case as one flat row of the results tables (CSV and JSON)."""
+        r = asdict(self.result)
+        r["flags"] = " ".join(self.result.flags)
+        r["downforce_coefficient"] = -self.result.cl if math.isfinite(self.result.cl) else None
+        r.update(status=self.status, cells=self.cells, iterations=self.iterations, convergence=self.convergence,
+                 layers=self.layers)
+        if self.yplus:
+            a = self.yplus[ALL_WALLS]  # all body and wheel faces together
+            r.update(yplus_median=a["median"], yplus_p95=a["p95"], yplus_max=a["max"],
+                     yplus_share_in_range=a["share_in_target"], yplus_range="{:g}-{:g}".format(*a["target"]))
+        r["notes"] = "; ".join(self.notes)
+        return r
 
-#: Intended y+ ranges of the wall treatments (common practice, no source):
-#: wall functions want the first cell in the log layer, a resolved laminar or
-#: low-Re wall wants it inside the viscous sublayer.
-YPLUS_RANGES = {"kOmegaSST": (30.0, 300.0), "laminar": (0.0, 5.0)}
+
 ALL_WALLS = "all body and wheel patches"
 
 
@@ -92,7 +104,7 @@ def wall_yplus(case_dir: Path, case: CaseRecord) -> tuple[dict[str, dict], str |
     """y+ statistics of the body and wheel patches from the case's VTK export
     (the solver's ``yPlus`` face field): per patch min/median/p95/max and the
     area share inside the wall treatment's intended range
-    (:data:`YPLUS_RANGES`, chosen from the manifest's turbulence model).
+    (:func:`postproc.kernels.wallchecks.yplus_range` of the manifest's turbulence model).
     Returns (stats by patch, None) or ({}, why not)."""
     names = list(case.patches.get("body") or []) + list(case.patches.get("wheels") or [])
     if not names:
@@ -102,8 +114,7 @@ def wall_yplus(case_dir: Path, case: CaseRecord) -> tuple[dict[str, dict], str |
         yp = surf.array("yPlus")
     except UserError as exc:
         return {}, f"y+ not assessed: {exc}".splitlines()[0]
-    model = str(case.extra.get("turbulence_model", "kOmegaSST"))
-    target = YPLUS_RANGES.get(model, YPLUS_RANGES["kOmegaSST"])
+    target = wc.yplus_range(case.turbulence_model)
     S, _ = face_geometry(surf.points, (surf.offsets, surf.connectivity))
 
     areas = np.linalg.norm(S, axis=1)
@@ -115,59 +126,50 @@ def wall_yplus(case_dir: Path, case: CaseRecord) -> tuple[dict[str, dict], str |
     return out, None
 
 
-def _report_values(report: dict | None, yaw_deg: float, flags: list, notes: list[str]) -> tuple[dict, str | None]:
+def _report_values(report: ForcesReport | None, yaw_deg: float, flags: list, notes: list[str]) -> tuple[dict, str | None]:
     """The row's coefficients from a case's forces report (keyword arguments
     of :class:`CaseResult`) and the monitor's verdict. With the rule in
     coefficient counts the coefficients are its window means, with their
     spreads as ``u_*``. Appends to ``flags`` and ``notes``."""
-    verdict = None
     nan = math.nan
-    cl = cd = cs = nan
-    clf = clr = bal = margin = None
-    extra: dict[str, float] = {}
     if report is None:
         return {"cl": nan, "cd": nan, "cs": nan}, None
-    c = report.get("coefficients")
-    if c:
-        cl, cd, cs = float(c["lift"]), float(c["drag"]), float(c["side"])
+    v: dict[str, Any] = {"cl": nan, "cd": nan, "cs": nan}
+    c = report.coefficients
+    if c is not None:
+        v.update(cl=float(c.lift), cd=float(c.drag), cs=float(c.side))
     else:
         flags.append(Flag.FORCES_FAILED)
         notes.append("no reference values in the manifest: coefficients not computed")
-    b = report.get("balance")
-    if b:
-        clf, clr = b.get("c_lift_front"), b.get("c_lift_rear")
-        bal, margin = b.get("balance_front"), b.get("stability_margin")
-        if abs(yaw_deg) < 1e-9 and margin is not None:
+    b = report.balance
+    if b is not None:
+        v.update(cl_front=b.c_lift_front, cl_rear=b.c_lift_rear, balance=b.balance_front,
+                 stability_margin=b.stability_margin)
+        if abs(yaw_deg) < 1e-9 and b.stability_margin is not None:
             # at zero yaw the side force is numerical noise about zero and its
             # centre of pressure is meaningless: report no margin
-            margin = None
+            v["stability_margin"] = None
             notes.append("zero yaw: no side force to place, stability margin not reported")
-        notes.extend(b.get("notes", []))
-    conv = report.get("convergence")
-    counts = report.get("coefficient_convergence")
+        notes.extend(b.notes)
+    verdict = None
+    counts = report.coefficient_convergence
     if counts is not None:
         # the rule in coefficient counts; the reported coefficients are its window means
         verdict = counts["verdict"]
-        means, stds = counts["means"], counts["stds"]
-        cl, cd, cs = (float(means.get(k, v)) for k, v in (("cl", cl), ("cd", cd), ("cs", cs)))
-        clf, clr = means.get("cl_front", clf), means.get("cl_rear", clr)
-        if "balance" in means and means["balance"] is not None and math.isfinite(means["balance"]):
-            bal = means["balance"]
-        extra.update({f"u_{k}": float(stds[k]) for k in ("cl", "cd", "cs", "cl_front", "cl_rear") if k in stds})
+        v.update({k: float(x) for k, x in counts["means"].items()
+                  if k in ("cl", "cd", "cs", "cl_front", "cl_rear", "balance") and x is not None and math.isfinite(x)})
+        v.update({f"u_{k}": float(x) for k, x in counts["stds"].items()
+                  if k in ("cl", "cd", "cs", "cl_front", "cl_rear") and x is not None})
         notes.append(f"coefficients: means over the last {counts['window']} iterations of the monitor")
-        if verdict == "diverging":
-            flags.append(Flag.FORCES_DRIFTING)
-    elif conv is not None:
-        verdict = conv["verdict"]
-        if verdict == "diverging":
-            flags.append(Flag.FORCES_DRIFTING)
+    elif report.convergence is not None:
+        verdict = report.convergence.verdict
     else:
         notes.append("no runtime force monitor found: convergence not assessed")
-    ref = report.get("reference") or {}
-    extra.update({k: float(ref[r]) for k, r in (("reference_area", "area"), ("air_density", "rho"))
-                  if isinstance(ref.get(r), (int, float))})
-    return {"cl": cl, "cd": cd, "cs": cs, "cl_front": clf, "cl_rear": clr, "balance": bal,
-            "stability_margin": margin, **extra}, verdict
+    if verdict == "diverging":
+        flags.append(Flag.FORCES_DRIFTING)
+    if report.reference is not None:
+        v.update(reference_area=float(report.reference.area), air_density=float(report.reference.rho))
+    return v, verdict
 
 
 def process_case(manifest: Manifest, case: CaseRecord) -> CaseOutcome:
@@ -383,10 +385,10 @@ def postprocess_sweep(
         outcomes.append(o)
         if o.report is not None:
             write_json_atomic(out / RESULTS_DIR / f"{case.case_id}.json",
-                              json_ready({**o.report, "yplus": o.yplus, "flags": list(o.result.flags)}))
+                              json_ready({**o.report.to_dict(), "yplus": o.yplus, "flags": list(o.result.flags)}))
         if progress is not None:
             progress(i + 1, n, o)
-    rows = [outcome_row(o) for o in outcomes]
+    rows = [o.row() for o in outcomes]
     paths = {
         "csv": out / "results.csv",
         "json": out / "results.json",

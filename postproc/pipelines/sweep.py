@@ -59,6 +59,7 @@ from caseprep.contract.locking import refuse_interrupted, sweep_lock
 from caseprep.contract.manifest import CaseRecord, Manifest, read_manifest
 from caseprep.contract.records import Flag, Status, as_flag, effective_status, flag_meaning, load_case_record, read_case_record
 from postproc.io.exports import latest_export
+from postproc.io.isolation import UnreadableFile, isolated, preload
 from postproc.io.surfaces import read_surface
 from postproc.kernels import wallchecks as wc
 from postproc.kernels.aeromap import fit_response_surface, map_grid
@@ -77,6 +78,8 @@ from postproc.pipelines.report_data import (ReportOptions, assemble, check_basel
                                             history_from_monitor)
 
 RESULTS_DIR = "results"
+# the child processes that read the cases start with these loaded (postproc.io.isolation)
+preload("pyvista", "postproc.pipelines.case_flow", "postproc.pipelines.case_forces")
 
 @dataclass(frozen=True)
 class CaseOutcome:
@@ -232,9 +235,12 @@ def process_case(manifest: Manifest, case: CaseRecord, flow: FlowOptions | None 
     else:
         try:
             report = forces_report(str(case_dir))  # the monitor judged by the one convergence rule
+        except UnreadableFile as exc:  # corrupt, absurd sizes or it crashed the reader: this case only
+            flags.append(Flag.UNREADABLE)
+            notes.append(f"unreadable: {exc}".replace("\n", " "))
         except UserError as exc:
             flags.append(Flag.FORCES_FAILED)
-            notes.append(f"forces: {exc}")
+            notes.append(f"forces: {exc}".replace("\n", " "))
     values, verdict = _report_values(report, base["yaw_deg"], flags, notes)
     yplus: dict[str, dict] = {}
     if report is not None:
@@ -250,12 +256,15 @@ def process_case(manifest: Manifest, case: CaseRecord, flow: FlowOptions | None 
     flow_cols: dict[str, Any] = {}
     scene = None
     if flow is not None and exported:
-        try:
-            cf = analyse_case_flow(case_dir, flow, label=case.case_id)
+        try:  # the volume is read and analysed in a child process: a bad file cannot end the sweep
+            cf = isolated(analyse_case_flow, case_dir, flow, label=case.case_id, what=str(case_dir / "VTK"))
             flow_cols = cf.metrics.to_dict()
             scene = cf.scene
             if cf.scene_error:
                 notes.append("picture: " + cf.scene_error)
+        except UnreadableFile as exc:
+            notes.append("unreadable: " + str(exc).replace("\n", " "))
+            result = replace(result, flags=tuple(dict.fromkeys((*result.flags, Flag.UNREADABLE))))
         except UserError as exc:
             notes.append("flow: " + str(exc).splitlines()[0])
     history = None
@@ -591,8 +600,9 @@ def _postprocess_locked(manifest: Manifest, out: Path, title, progress, force: b
             skipped.append((pc.case_id, tried.split(": ", 1)[1]))
         elif sc is None:
             try:
-                cf = analyse_case_flow(manifest.case_dir(manifest.case(pc.case_id)), replace(flow, scene=True),
-                                       label=pc.case_id)
+                cdir = manifest.case_dir(manifest.case(pc.case_id))
+                cf = isolated(analyse_case_flow, cdir, replace(flow, scene=True), label=pc.case_id,
+                              what=str(cdir / "VTK"))
                 sc = cf.scene
                 if sc is None:
                     skipped.append((pc.case_id, cf.scene_error or "no picture scene"))

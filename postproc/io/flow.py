@@ -115,6 +115,10 @@ def read_flow(path: str | Path, *, need_volume: bool = True) -> FlowCase:
     import pyvista as pv
 
     f, case_dir = resolve_result(path)
+    if f.suffix.lower() == ".vtm":
+        from postproc.io.surfaces import vtm_blocks
+
+        vtm_blocks(f)  # every block must stay inside the export's folder (raises naming the block)
     try:
         data = pv.read(str(f))
     except Exception as exc:  # VTK reader errors

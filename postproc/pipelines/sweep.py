@@ -33,6 +33,7 @@ max(|its mean|, the resultant force), drift and std tolerance 1 %;
 """
 from __future__ import annotations
 
+import contextlib
 import csv
 import io
 import json
@@ -48,8 +49,9 @@ from caseprep.contract.atomicio import json_ready, write_json_atomic, write_text
 from caseprep.contract.convergence import settle_window
 from caseprep.contract.monitor import read_monitor
 from caseprep.contract.errors import UserError
+from caseprep.contract.locking import refuse_interrupted, sweep_lock
 from caseprep.contract.manifest import CaseRecord, Manifest, read_manifest
-from caseprep.contract.records import Flag, Status, as_flag, effective_status, flag_meaning, read_case_record
+from caseprep.contract.records import Flag, Status, as_flag, effective_status, flag_meaning, load_case_record, read_case_record
 from postproc.io.exports import latest_export
 from postproc.io.surfaces import read_surface
 from postproc.kernels import wallchecks as wc
@@ -140,10 +142,17 @@ def process_case(manifest: Manifest, case: CaseRecord, flow: FlowOptions | None 
 
     t_start = time.perf_counter()
     case_dir = manifest.case_dir(case)
-    rec = read_case_record(case_dir)
-    flags: list[str] = list(rec.flags) if rec is not None else []
-    status = effective_status(rec) if rec is not None else Status.NOT_RUN
     notes: list[str] = []
+    try:
+        rec = load_case_record(case_dir)
+        unreadable_record = False
+    except UserError as exc:
+        rec, unreadable_record = None, True
+        notes.append(f"run record: {exc}".replace("\n", " "))
+    flags: list[str] = list(rec.flags) if rec is not None else []
+    if unreadable_record:
+        flags.append(Flag.RECORD_UNREADABLE)
+    status = effective_status(rec) if rec is not None else Status.NOT_RUN
     p = case.params
     base = dict(
         case_id=case.case_id,
@@ -266,16 +275,33 @@ def mesh_study(results: list[CaseResult]) -> list[dict[str, Any]]:
     return out
 
 
+#: First characters that make a spreadsheet evaluate a cell as a formula (or
+#: a command) when a CSV file is opened: OWASP, "CSV Injection" (common
+#: practice). A text cell starting with one of them gets a leading apostrophe.
+FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
+
+
+def spreadsheet_safe(value: object) -> object:
+    """``value`` for a CSV cell: text that a spreadsheet would evaluate
+    (starting with one of :data:`FORMULA_START`) is prefixed with ``'`` so it
+    stays text; numbers are left alone (they are written by us)."""
+    if isinstance(value, str) and value.startswith(FORMULA_START):
+        return "'" + value
+    return value
+
+
 def _csv(rows: list[dict[str, Any]]) -> str:
+    """The rows as CSV: floats with 6 significant digits, NaN/inf and None
+    empty, text cells neutralised for spreadsheets (:func:`spreadsheet_safe`)."""
     cols: list[str] = []
     for r in rows:
         cols += [k for k in r if k not in cols]
     buf = io.StringIO()
     w = csv.writer(buf, lineterminator="\n")
-    w.writerow(cols)
+    w.writerow([spreadsheet_safe(c) for c in cols])
     for r in rows:
         w.writerow(["" if r.get(k) is None or (isinstance(r.get(k), float) and not math.isfinite(r[k]))
-                    else (f"{r[k]:.6g}" if isinstance(r.get(k), float) else r[k]) for k in cols])
+                    else (f"{r[k]:.6g}" if isinstance(r.get(k), float) else spreadsheet_safe(r[k])) for k in cols])
     return buf.getvalue()
 
 
@@ -423,8 +449,20 @@ def postprocess_sweep(
     sweep.
     """
     flow = flow or FlowOptions()
-    manifest = read_manifest(sweep_dir)
-    out = Path(out_dir) if out_dir is not None else Path(manifest.root or sweep_dir)
+    root = Path(read_manifest(sweep_dir).root or sweep_dir)  # not a sweep: refused before anything is created
+    out = Path(out_dir) if out_dir is not None else root
+    with contextlib.ExitStack() as locks:  # one command at a time in the sweep (and the output) folder
+        locks.enter_context(sweep_lock(root, "postproc sweep"))
+        if out.resolve() != root.resolve():
+            locks.enter_context(sweep_lock(out, "postproc sweep"))
+        refuse_interrupted(root, "postproc sweep")
+        return _postprocess_locked(read_manifest(root), out, title, progress, force, options, flow)
+
+
+def _postprocess_locked(manifest: Manifest, out: Path, title, progress, force: bool, options: ReportOptions,
+                        flow: FlowOptions) -> SweepAnalysis:
+    """:func:`postprocess_sweep` holding the locks."""
+    sweep_dir = manifest.root
     existing = [p for p in (out / "results.csv", out / "results.json", out / REPORT_NAME) if p.exists()]
     if existing and not force:
         raise UserError(expected="no earlier results in the output folder", got=", ".join(str(p) for p in existing),
@@ -450,9 +488,10 @@ def postprocess_sweep(
         o = process_case(manifest, case, replace(flow, scene=case.case_id in want_scene))
         outcomes.append(o)
         if o.report is not None:
-            write_json_atomic(out / RESULTS_DIR / f"{case.case_id}.json",
+            write_json_atomic(out / RESULTS_DIR / f"{case.case_id}.json",  # case ids are checked names
                               json_ready({**o.report.to_dict(), "yplus": o.yplus, "flow": o.flow,
-                                          "flags": list(o.result.flags)}))
+                                          "flags": list(o.result.flags)}),
+                              root=out)
         if progress is not None:
             progress(i + 1, n, o)
     rows = [o.row() for o in outcomes]
@@ -462,7 +501,7 @@ def postprocess_sweep(
         "report": out / REPORT_NAME,
         "cases": out / RESULTS_DIR,
     }
-    write_text_atomic(paths["csv"], _csv(rows))
+    write_text_atomic(paths["csv"], _csv(rows), root=out)
     notes = []
     flags = sorted({f for o in outcomes for f in o.result.flags})
     for f in flags:
@@ -474,7 +513,7 @@ def postprocess_sweep(
     title = title or options.title or f"Sweep report — {manifest.study or Path(sweep_dir).name}"
     analysis = analyse_results([o.result for o in outcomes], title=title, study=manifest.study, notes=notes,
                                checks=checks)
-    write_json_atomic(paths["json"], json_ready({
+    write_json_atomic(paths["json"], root=out, obj=json_ready({
         "study": manifest.study,
         "axes": "wind axes of caseprep.contract.frames: C_L positive up (downforce = -C_L), C_D along the relative wind, "
                 "C_S along +y_W; balance = front share of downforce; ride heights m; angles deg",

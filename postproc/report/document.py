@@ -312,5 +312,5 @@ def write_report(data, path: str | os.PathLike, options: PictureOptions = Pictur
     """Render and write the report atomically; returns the path and timings."""
     text, info = render_report(data, options)
     p = Path(path)
-    write_text_atomic(p, text)
+    write_text_atomic(p, text, root=p.parent)  # never through a link named like the report
     return p, info

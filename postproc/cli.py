@@ -151,7 +151,7 @@ def sweep_cmd(sweep_dir: str, out_dir: str | None, title: str | None, baseline: 
     """
     from postproc.pipelines.report_data import ReportOptions
     from postproc.pipelines.sweep import postprocess_sweep
-    from postproc.report import write_report
+    from postproc.report import RenderInfo, write_report
 
     def progress(i, n, o):
         if quiet:
@@ -165,7 +165,8 @@ def sweep_cmd(sweep_dir: str, out_dir: str | None, title: str | None, baseline: 
     analysis = postprocess_sweep(sweep_dir, out_dir, title=title, progress=progress, force=force, options=opts,
                                  analysis_config=config)
     outcomes, paths = analysis.outcomes, analysis.paths
-    _, info = write_report(analysis, paths["report"])
+    info = RenderInfo()
+    write_report(analysis, paths["report"], info=info)
     n_flag = sum(bool(o.result.flags) for o in outcomes)
     click.echo(f"{len(outcomes)} case(s), {n_flag} flagged (not ranked).")
     click.echo(f"results: {paths['csv']}, {paths['json']}; report: {paths['report']} ({info.size / 1e6:.2f} MB)")

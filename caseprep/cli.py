@@ -15,6 +15,9 @@ from caseprep.contract.cli_common import FriendlyGroup
 from caseprep.contract.convergence import DEFAULT_OPTIONS, ConvergenceOptions
 from caseprep.contract.errors import UserError
 from caseprep.contract.records import flag_meaning
+from caseprep.run.runner import RunOptions
+
+RUN_DEFAULTS = RunOptions()
 
 
 @click.group(cls=FriendlyGroup, context_settings={"help_option_names": ["-h", "--help"]})
@@ -47,7 +50,7 @@ def _progress_printer(quiet: bool):
         elif ev.event == "skipped":
             click.echo(f"{head}: skipped ({ev.message})")
         elif ev.event == "interrupted":
-            click.echo(f"{head}: interrupted during {ev.stage}")
+            click.echo(f"{head}: interrupted ({ev.message})")
         elif ev.event == "case-done" and ev.record is not None:
             r = ev.record
             extra = f" flags: {', '.join(r.flags)}" if r.flags else ""
@@ -69,15 +72,19 @@ def _progress_printer(quiet: bool):
 @click.option("--residual-tol", type=float, default=DEFAULT_OPTIONS.residual_tol, show_default=True,
               help="Residual below which a run that used its whole budget counts as converged; above it the "
                    "force monitor must have settled (see the README's convergence rule).")
+@click.option("--grace", type=click.FloatRange(min=0.0), default=RUN_DEFAULTS.kill_grace, show_default=True,
+              help="Seconds between SIGTERM and SIGKILL for the running cases when the run is stopped "
+                   "(keep it below the scheduler's own grace, e.g. SLURM's KillWait).")
 @click.option("-q", "--quiet", is_flag=True, help="Print only case starts, failures and results.")
 @click.option("--skip-solver-check", is_flag=True, hidden=True)
-def run_cmd(sweep_dir, jobs, ranks, only, stages, force, residual_tol, quiet, skip_solver_check) -> None:
+def run_cmd(sweep_dir, jobs, ranks, only, stages, force, residual_tol, grace, quiet, skip_solver_check) -> None:
     """Run the solver over the cases of SWEEP_DIR (a folder written by
     `caseprep write`): mesh, solve and export each case, resumably.
 
     Each case's outcome goes to <case>/underfloor-run.json and the sweep's
     run_summary.json. Exit code 0 when every case ran, 1 when any case
-    failed, 2 for a usage error, 130 when interrupted (run again to resume).
+    failed, 2 for a usage error, 143 when stopped by SIGTERM (a scheduler's
+    cancel or time limit), 130 by SIGINT/Ctrl-C (run again to resume).
     """
     import os
     import time
@@ -94,7 +101,7 @@ def run_cmd(sweep_dir, jobs, ranks, only, stages, force, residual_tol, quiet, sk
         click.echo(f"note: {jobs} jobs × {ranks} ranks = {jobs * ranks} processes on {cores} cores; "
                    "cases will compete for the processors", err=True)
     t0 = time.monotonic()
-    opts = runner.RunOptions(convergence=ConvergenceOptions(residual_tol=residual_tol))
+    opts = runner.RunOptions(convergence=ConvergenceOptions(residual_tol=residual_tol), kill_grace=grace)
     try:
         records = runner.run_sweep(sweep_dir, jobs=jobs, ranks=ranks, stages=list(stages) or None,
                                    only=list(only) or None, force=force, progress=_progress_printer(quiet),
@@ -102,8 +109,9 @@ def run_cmd(sweep_dir, jobs, ranks, only, stages, force, residual_tol, quiet, sk
     except runner.SweepInterrupted as exc:
         click.echo("")
         click.echo(runner.format_summary_table(exc.records))
-        click.echo("interrupted: running cases were stopped and recorded; run the same command again to resume.")
-        sys.exit(130)
+        click.echo(f"{exc}: running cases were stopped and recorded 'interrupted'; run the same command again "
+                   "to resume.")
+        sys.exit(exc.exit_code)
     except KeyboardInterrupt:  # before any case started
         click.echo("interrupted before any case started.", err=True)
         sys.exit(130)

@@ -18,7 +18,7 @@ Steps
    print where they are and how long the demo took.
 
 Exit codes: 0 all cases ran, 1 some case failed, 2 a missing prerequisite
-(example config, solver), 130 interrupted (run again to resume).
+(example config, solver), 143/130 stopped by SIGTERM/SIGINT (run again to resume).
 """
 from __future__ import annotations
 
@@ -124,9 +124,9 @@ def main(argv: list[str] | None = None) -> int:
         say(f"running {len(manifest.cases)} case(s), {a.jobs} at a time, {a.ranks} rank(s) each …")
         try:
             recs = runner.run_sweep(sweep_dir, jobs=a.jobs, ranks=a.ranks, force=a.force, progress=progress)
-        except runner.SweepInterrupted:
-            return _stop("interrupted; the running case was stopped and recorded. Run `make demo` again to resume.",
-                         130)
+        except runner.SweepInterrupted as exc:
+            return _stop(f"{exc}; the running cases were stopped and recorded. Run `make demo` again to resume.",
+                         exc.exit_code)
     except UserError as exc:
         return _stop(str(exc), 2)
 

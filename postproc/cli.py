@@ -129,6 +129,7 @@ def sweep_cmd(sweep_dir: str, out_dir: str | None, title: str | None, force: boo
     Flagged cases (mesh failed, layers collapsed, not converged, not run…)
     are listed and never ranked.
     """
+    from caseprep.contract.signals import StopRequested
     from postproc.pipelines.sweep import postprocess_sweep
     from postproc.report.sweep_report import write_report
 
@@ -139,7 +140,11 @@ def sweep_cmd(sweep_dir: str, out_dir: str | None, title: str | None, force: boo
         what = (f"C_L {r.cl:+.4f}  C_D {r.cd:.4f}" if r.cl == r.cl else "no coefficients")
         click.echo(f"[{i}/{n}] {r.case_id}: {o.status}; {what}" + (f"; flags: {', '.join(r.flags)}" if r.flags else ""))
 
-    analysis = postprocess_sweep(sweep_dir, out_dir, title=title, progress=progress, force=force)
+    try:
+        analysis = postprocess_sweep(sweep_dir, out_dir, title=title, progress=progress, force=force)
+    except StopRequested as exc:
+        click.echo(f"stopped by {exc}: no tables written; run the same command again.", err=True)
+        sys.exit(exc.exit_code)
     outcomes, paths = analysis.outcomes, analysis.paths
     write_report(analysis, paths["report"])
     n_flag = sum(bool(o.result.flags) for o in outcomes)

@@ -30,7 +30,8 @@ class Status(StrEnum):
     SOLVE_FAILED = "solve-failed"
     EXPORT_FAILED = "export-failed"
     SKIPPED = "skipped"          # all requested stages were done before
-    INTERRUPTED = "interrupted"
+    INTERRUPTED = "interrupted"  # stopped by a signal (or Ctrl-C) before it finished
+    RUNNING = "running"          # a stage has started and not finished (host and pid say where)
     NOT_READY = "not-ready"      # a requested stage needs an earlier one first
     NOT_RUN = "not-run"          # in the run summary: the case never ran
 
@@ -60,6 +61,7 @@ class Flag(StrEnum):
     EXPORT_FAILED = "export-failed"
     NOT_READY = "not-ready"
     INTERRUPTED = "interrupted"
+    RUNNING = "running"
 
     @property
     def meaning(self) -> str:
@@ -82,6 +84,8 @@ _MEANING = {
     Flag.EXPORT_FAILED: "the export stage failed",
     Flag.NOT_READY: "a requested stage needed an earlier stage that was not done",
     Flag.INTERRUPTED: "the run was interrupted",
+    Flag.RUNNING: ("a stage was running when the results were read (or its runner ended without recording the "
+                   "outcome: the record's host and pid say where it ran)"),
 }
 
 #: The flags the runner sets (the rest are set by the post-processing).
@@ -108,7 +112,8 @@ def as_flag(value: str) -> Flag | str:
 @dataclass(frozen=True)
 class StageRun:
     """One stage of one case: ``status`` ``ok``, ``failed``, ``done-before``
-    (marker present, not run again), ``interrupted`` or ``not-run``;
+    (marker present, not run again), ``running`` (started, not finished),
+    ``interrupted`` or ``not-run``;
     ``wall_time`` s (for ``done-before``, the time recorded then, if any)."""
 
     stage: str
@@ -129,6 +134,8 @@ class CaseRunRecord:
     ``layers``: per patch ``{patch, target_layers, layers, coverage,
     thickness_percent}``; ``layer_coverage`` the face-weighted mean coverage.
     ``failed_tool`` and ``log_tail`` describe a failure. Times in s.
+    ``host`` and ``pid``: the machine and the process id of the runner that
+    wrote the record (a ``running`` record names where the stage runs).
     ``convergence``: why the run counts as converged or not (see
     :mod:`caseprep.contract.convergence`); ``residual_drop``: the smallest drop of a field's
     initial residual over the run, in orders of magnitude (log10 of the
@@ -165,6 +172,8 @@ class CaseRunRecord:
     flags: tuple[Flag | str, ...] = ()
     failed_tool: str | None = None
     log_tail: str = ""
+    host: str = ""
+    pid: int | None = None
 
     @property
     def failed(self) -> bool:

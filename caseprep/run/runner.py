@@ -15,9 +15,22 @@ whose results it makes stale. A case with all requested stages done is
 
 Failure handling: a stage fails when ``run.sh`` exits non-zero or does not
 leave its marker; the case stops there, its record carries the failing
-tool's log tail, and the other cases go on. Ctrl-C terminates the running
-cases' process groups, records them as ``interrupted`` and raises
-:class:`SweepInterrupted`.
+tool's log tail, and the other cases go on.
+
+Records never claim a result that is being replaced: when a stage starts,
+the case's record is rewritten with status ``running`` (the stage, the host
+and the runner's pid) before ``run.sh`` starts, and the sweep summary with
+it when the case starts.
+
+Stopping: SIGTERM (what a batch scheduler sends) and SIGINT (Ctrl-C) are
+handled alike, whatever the parent process ignored
+(:mod:`caseprep.contract.signals`): no new case or stage starts, the running
+cases' process groups get SIGTERM, then SIGKILL after
+:attr:`RunOptions.kill_grace` seconds (at once on a second signal), each
+unfinished case is recorded ``interrupted``, the summary is rewritten
+(atomically, like every record) and :class:`SweepInterrupted` is raised
+(exit code 143 or 130 in the command). Running again resumes: the stopped
+stage has no marker and runs again.
 
 Units: wall times in seconds; cell counts; residuals are the solver's
 dimensionless normalised residuals. No axes are involved.
@@ -28,9 +41,10 @@ import datetime as _dt
 import os
 import shutil
 import signal
+import socket
 import subprocess
 import time
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import Any, Callable, Iterable, Sequence
 
@@ -38,6 +52,7 @@ from caseprep.run import solverlogs as sl
 from caseprep.contract.atomicio import write_json_atomic
 from caseprep.contract.convergence import DEFAULT_OPTIONS, ConvergenceOptions, force_settling, judge_convergence
 from caseprep.contract.errors import UserError, did_you_mean
+from caseprep.contract.signals import StopSignals, exit_code, signal_name
 from caseprep.contract.manifest import CaseRecord, read_manifest
 from caseprep.contract.records import (RECORD_NAME, RUN_FLAGS, SUMMARY_NAME, SUMMARY_SCHEMA, CaseRunRecord, Flag,
                                        StageRun, Status, effective_status, read_case_record)
@@ -70,7 +85,8 @@ class RunOptions:
     ``tail_lines``: lines of the failing log kept in the record.
     ``heartbeat``: seconds between ``running`` progress events.
     ``poll``: seconds between checks of the running processes.
-    ``kill_grace``: seconds between SIGTERM and SIGKILL on interrupt.
+    ``kill_grace``: seconds between SIGTERM and SIGKILL when stopped (keep it
+    below the scheduler's own grace, e.g. SLURM's KillWait, 30 s by default).
     """
 
     convergence: ConvergenceOptions = DEFAULT_OPTIONS
@@ -101,11 +117,15 @@ class Progress:
 
 
 class SweepInterrupted(Exception):
-    """Ctrl-C during :func:`run_sweep`; ``records`` holds what was recorded."""
+    """A stop signal (SIGTERM, SIGINT/Ctrl-C) during :func:`run_sweep`, after
+    the running cases were stopped and recorded ``interrupted``; ``records``
+    holds what was recorded, ``signum`` the signal, ``exit_code`` 128 + it."""
 
-    def __init__(self, records: list[CaseRunRecord]):
-        super().__init__("interrupted")
+    def __init__(self, records: list[CaseRunRecord], signum: int = signal.SIGINT):
+        super().__init__(f"stopped by {signal_name(signum)}")
         self.records = records
+        self.signum = int(signum)
+        self.exit_code = exit_code(signum)
 
 
 def _utc() -> str:
@@ -261,8 +281,9 @@ def run_sweep(
     marked done. ``progress`` is called with :class:`Progress` events from
     the calling thread. Raises :class:`UserError` for a folder that is not a
     sweep, unknown ids or stages, or a case folder without an executable
-    ``run.sh``; raises :class:`SweepInterrupted` on Ctrl-C after stopping
-    the running cases.
+    ``run.sh``; raises :class:`SweepInterrupted` on SIGTERM or SIGINT (from
+    the main thread; elsewhere on KeyboardInterrupt) after stopping and
+    recording the running cases.
     """
     # absolute: run.sh is started with the case folder as working directory
     root = Path(sweep_dir).resolve()
@@ -326,74 +347,146 @@ def run_sweep(
         else:
             pending.append(_Job(i, c, cdir, to_run, plan, prev))
 
-    running: list[_Job] = []
-    try:
-        while pending or running:
-            while pending and len(running) < jobs:
-                job = pending.pop(0)
-                job.t0 = time.monotonic()
-                job.started_utc = _utc()
-                running.append(job)  # before starting: an interrupt must find its process
-                emit(Progress(job.rec.case_id, job.index, total, "case-start", message=" ".join(job.to_run)))
-                _start_stage(job, env, emit, total)
-            time.sleep(options.poll)
-            now = time.monotonic()
-            for job in list(running):
-                rc = job.proc.poll()
-                if rc is None:
-                    if now - job.last_beat >= options.heartbeat:
-                        job.last_beat = now
-                        emit(Progress(job.rec.case_id, job.index, total, "running", job.stage, now - job.t0,
-                                      now - job.stage_t0))
-                    continue
-                job.out.close()
-                stage = job.stage
-                dt = now - job.stage_t0
-                marker = job.dir / "logs" / f"{stage}.done"
-                if rc == 0 and marker.exists():
-                    job.results[stage] = StageRun(stage, "ok", round(dt, 3), rc)
-                    emit(Progress(job.rec.case_id, job.index, total, "stage-done", stage, now - job.t0, dt))
-                    if job.to_run:
-                        _start_stage(job, env, emit, total)
-                        continue
-                    rec = _finish_record(job, Status.OK, "", ranks, options)
-                else:
-                    job.results[stage] = StageRun(stage, "failed", round(dt, 3), rc)
-                    tool, log = _failing_tool(job.dir, stage, job.stage_wall0)
-                    out_log = job.dir / "logs" / f"underfloor-{stage}.out"
-                    if rc == 0:
-                        why = f"run.sh {stage} exited 0 but did not leave logs/{stage}.done"
-                    else:
-                        err = sl.fatal_error(_read(log) or "") if log else None
-                        why = f"{tool or 'run.sh'} failed (exit {rc})" + (f": {err}" if err else "")
-                    tail = _tail(log, options.tail_lines) if log else ""
-                    out_tail = _tail(out_log, 8)
-                    if out_tail:
-                        tail = (tail + "\n--- run.sh output ---\n" if tail else "") + out_tail
-                    emit(Progress(job.rec.case_id, job.index, total, "stage-failed", stage, now - job.t0, dt, why))
-                    rec = _finish_record(job, FAILED_STATUS[stage], why, ranks, options, failed_tool=tool,
-                                         log_tail=tail)
-                running.remove(job)
-                records[job.rec.case_id] = rec
-                _write_record(job.dir, rec)
-                _write_summary(root, manifest, records, ranks)
-                emit(Progress(job.rec.case_id, job.index, total, "case-done", None, rec.wall_time, 0.0,
-                              rec.message, rec))
-    except KeyboardInterrupt:
-        _stop(running, options.kill_grace)
-        now = time.monotonic()
-        for job in running:
-            if job.stage is None or job.proc is None:
-                continue
-            job.results[job.stage] = StageRun(job.stage, "interrupted", round(now - job.stage_t0, 3), None)
-            rec = _finish_record(job, Status.INTERRUPTED, f"interrupted during {job.stage}", ranks, options)
-            records[job.rec.case_id] = rec
-            _write_record(job.dir, rec)
-            emit(Progress(job.rec.case_id, job.index, total, "interrupted", job.stage, now - job.t0))
-        _write_summary(root, manifest, records, ranks)
-        raise SweepInterrupted([records[c.case_id] for c in selected if c.case_id in records]) from None
-    _write_summary(root, manifest, records, ranks)
+    host, pid = socket.gethostname(), os.getpid()
+    run = _Run(root, manifest, total, ranks, options, emit, env, host, pid, records)
+    with StopSignals() as stop:
+        run.loop(pending, jobs, stop)
     return [records[c.case_id] for c in selected]
+
+
+class _Run:
+    """The scheduling loop of one :func:`run_sweep` call and what it records."""
+
+    def __init__(self, root: Path, manifest, total: int, ranks: int, options: RunOptions, emit, env: dict[str, str],
+                 host: str, pid: int, records: dict[str, CaseRunRecord]):
+        self.root, self.manifest, self.total, self.ranks = root, manifest, total, ranks
+        self.options, self.emit, self.env, self.host, self.pid = options, emit, env, host, pid
+        self.records = records
+        self.running: list[_Job] = []
+
+    def loop(self, pending: list[_Job], jobs: int, stop: StopSignals) -> None:
+        """Start cases while fewer than ``jobs`` run, follow them to the end;
+        on a stop signal (or Ctrl-C) stop them and raise SweepInterrupted."""
+        try:
+            while (pending or self.running) and not stop.requested:
+                while pending and len(self.running) < jobs and not stop.requested:
+                    job = pending.pop(0)
+                    job.t0 = time.monotonic()
+                    job.started_utc = _utc()
+                    self.running.append(job)  # before starting: a stop must find its process
+                    self.emit(Progress(job.rec.case_id, job.index, self.total, "case-start",
+                                       message=" ".join(job.to_run)))
+                    self.start_stage(job, summary=True)
+                time.sleep(self.options.poll)
+                now = time.monotonic()
+                for job in list(self.running):
+                    if job.proc is None:
+                        continue
+                    rc = job.proc.poll()
+                    if rc is None:
+                        if now - job.last_beat >= self.options.heartbeat:
+                            job.last_beat = now
+                            self.emit(Progress(job.rec.case_id, job.index, self.total, "running", job.stage,
+                                               now - job.t0, now - job.stage_t0))
+                        continue
+                    self.stage_ended(job, rc, now, stop)
+        except KeyboardInterrupt:  # only outside the main thread, where no handler is installed
+            stop.note_keyboard_interrupt()
+        if stop.requested:
+            self.interrupt(stop)
+
+    def start_stage(self, job: _Job, summary: bool = False) -> None:
+        """Mark the case ``running`` on disk (record, and the summary when
+        ``summary``), then start its next stage."""
+        stage = job.to_run[0]
+        rec = self.running_record(job, stage)
+        self.records[job.rec.case_id] = rec
+        _write_record(job.dir, rec)
+        if summary:
+            _write_summary(self.root, self.manifest, self.records, self.ranks)
+        _start_stage(job, self.env, self.emit, self.total)
+
+    def running_record(self, job: _Job, stage: str) -> CaseRunRecord:
+        """The record while ``stage`` runs: no result of the stages being redone."""
+        stages = []
+        for s in STAGES:
+            if s in job.results:
+                stages.append(job.results[s])
+            elif s == stage:
+                stages.append(StageRun(s, "running"))
+            elif job.plan.get(s) == "done-before" and STAGES.index(s) < STAGES.index(stage):
+                stages.append(StageRun(s, "done-before", job.previous.stage_time(s) if job.previous else None))
+            else:
+                stages.append(StageRun(s, "not-run"))
+        return CaseRunRecord(case_id=job.rec.case_id, folder=job.rec.folder, status=Status.RUNNING,
+                             message=f"{stage} running on {self.host} (runner pid {self.pid})", ranks=self.ranks,
+                             stages=tuple(stages), started_utc=job.started_utc, host=self.host, pid=self.pid)
+
+    def stage_ended(self, job: _Job, rc: int, now: float, stop: StopSignals) -> None:
+        job.out.close()
+        job.out = None
+        stage = job.stage
+        dt = now - job.stage_t0
+        marker = job.dir / "logs" / f"{stage}.done"
+        case, idx, total = job.rec.case_id, job.index, self.total
+        if rc == 0 and marker.exists():
+            job.results[stage] = StageRun(stage, "ok", round(dt, 3), rc)
+            job.proc = None
+            self.emit(Progress(case, idx, total, "stage-done", stage, now - job.t0, dt))
+            if job.to_run:
+                if not stop.requested:
+                    self.start_stage(job)
+                return  # on a stop, recorded as interrupted before its next stage
+            rec = _finish_record(job, Status.OK, "", self.ranks, self.options)
+        else:
+            job.results[stage] = StageRun(stage, "failed", round(dt, 3), rc)
+            tool, log = _failing_tool(job.dir, stage, job.stage_wall0)
+            out_log = job.dir / "logs" / f"underfloor-{stage}.out"
+            if rc == 0:
+                why = f"run.sh {stage} exited 0 but did not leave logs/{stage}.done"
+            else:
+                err = sl.fatal_error(_read(log) or "") if log else None
+                why = f"{tool or 'run.sh'} failed (exit {rc})" + (f": {err}" if err else "")
+            tail = _tail(log, self.options.tail_lines) if log else ""
+            out_tail = _tail(out_log, 8)
+            if out_tail:
+                tail = (tail + "\n--- run.sh output ---\n" if tail else "") + out_tail
+            self.emit(Progress(case, idx, total, "stage-failed", stage, now - job.t0, dt, why))
+            rec = _finish_record(job, FAILED_STATUS[stage], why, self.ranks, self.options, failed_tool=tool,
+                                 log_tail=tail)
+        self.running.remove(job)
+        self.finish(job, rec)
+        self.emit(Progress(case, idx, total, "case-done", None, rec.wall_time, 0.0, rec.message, rec))
+
+    def finish(self, job: _Job, rec: CaseRunRecord, summary: bool = True) -> None:
+        rec = replace(rec, host=self.host, pid=self.pid)
+        self.records[job.rec.case_id] = rec
+        _write_record(job.dir, rec)
+        if summary:
+            _write_summary(self.root, self.manifest, self.records, self.ranks)
+
+    def interrupt(self, stop: StopSignals) -> None:
+        """Stop the running cases, record each as ``interrupted``, write the
+        summary, raise :class:`SweepInterrupted`."""
+        _stop(self.running, self.options.kill_grace, stop)
+        now = time.monotonic()
+        why = f"stopped by {signal_name(stop.signum)}"
+        for job in self.running:
+            if job.stage is None:
+                continue
+            if job.stage in job.results:  # its last stage finished; the next one was not started
+                nxt = job.to_run[0] if job.to_run else "the next stage"
+                msg = f"{why} before {nxt}"
+            else:
+                job.results[job.stage] = StageRun(job.stage, "interrupted", round(now - job.stage_t0, 3), None)
+                msg = f"{why} during {job.stage}"
+            rec = _finish_record(job, Status.INTERRUPTED, msg, self.ranks, self.options)
+            self.finish(job, rec, summary=False)
+            self.emit(Progress(job.rec.case_id, job.index, self.total, "interrupted", job.stage, now - job.t0,
+                               message=msg))
+        _write_summary(self.root, self.manifest, self.records, self.ranks)
+        order = [c.case_id for c in self.manifest.cases]
+        raise SweepInterrupted([self.records[c] for c in order if c in self.records], stop.signum)
 
 
 def _start_stage(job: _Job, env: dict[str, str], emit, total: int) -> None:
@@ -406,6 +499,8 @@ def _start_stage(job: _Job, env: dict[str, str], emit, total: int) -> None:
             (logs / f"{later}.done").unlink()
         except FileNotFoundError:
             pass
+        if job.plan.get(later) == "done-before":
+            job.plan[later] = "not-run"
     job.stage = stage
     job.stage_t0 = time.monotonic()
     job.stage_wall0 = time.time()
@@ -416,31 +511,49 @@ def _start_stage(job: _Job, env: dict[str, str], emit, total: int) -> None:
     emit(Progress(job.rec.case_id, job.index, total, "stage-start", stage, job.stage_t0 - job.t0))
 
 
-def _stop(running: list[_Job], grace: float) -> None:
-    """SIGTERM the running cases' process groups, then SIGKILL after ``grace`` s."""
-    for job in running:
-        if job.proc and job.proc.poll() is None:
-            try:
-                os.killpg(job.proc.pid, signal.SIGTERM)
-            except ProcessLookupError:
-                pass
+def _stop(running: list[_Job], grace: float, stop: StopSignals | None = None) -> None:
+    """SIGTERM the running cases' process groups (run.sh, the tools, the MPI
+    ranks), wait until every process of them has ended, SIGKILL what is left
+    after ``grace`` s (at once on a second stop signal)."""
+    live = [j for j in running if j.proc is not None and _group_alive(j.proc)]
+    for job in live:
+        _signal_group(job.proc, signal.SIGTERM)
+    seen = stop.count if stop is not None else 0
     deadline = time.monotonic() + grace
+    try:
+        while live and time.monotonic() < deadline and (stop is None or stop.count == seen):
+            time.sleep(0.05)
+            live = [j for j in live if _group_alive(j.proc)]
+    except KeyboardInterrupt:  # a second Ctrl-C outside the main thread: no more grace
+        pass
+    for job in live:
+        _signal_group(job.proc, signal.SIGKILL)
     for job in running:
-        if not job.proc:
-            continue
-        try:
-            job.proc.wait(timeout=max(0.0, deadline - time.monotonic()))
-        except subprocess.TimeoutExpired:
-            try:
-                os.killpg(job.proc.pid, signal.SIGKILL)
-            except ProcessLookupError:
-                pass
-            job.proc.wait()
-        except KeyboardInterrupt:  # a second Ctrl-C: no more grace
-            os.killpg(job.proc.pid, signal.SIGKILL)
+        if job.proc is not None:
             job.proc.wait()
         if job.out:
             job.out.close()
+            job.out = None
+
+
+def _group_alive(proc: subprocess.Popen) -> bool:
+    """Whether any process of the group that ``proc`` leads still exists
+    (the leader is reaped first, so a finished leader does not count)."""
+    proc.poll()
+    try:
+        os.killpg(proc.pid, 0)
+    except ProcessLookupError:
+        return False
+    except PermissionError:
+        return True
+    return True
+
+
+def _signal_group(proc: subprocess.Popen, sig: int) -> None:
+    try:
+        os.killpg(proc.pid, sig)
+    except (ProcessLookupError, PermissionError):
+        pass
 
 
 def _finish_record(job: _Job, status: str, message: str, ranks: int, options: RunOptions,

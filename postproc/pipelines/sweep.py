@@ -42,6 +42,7 @@ import numpy as np
 from caseprep.contract.atomicio import json_ready, write_json_atomic, write_text_atomic
 from caseprep.contract.errors import UserError
 from caseprep.contract.manifest import CaseRecord, Manifest, read_manifest
+from caseprep.contract.signals import StopSignals
 from caseprep.contract.records import Flag, Status, as_flag, effective_status, flag_meaning, read_case_record
 from postproc.io.exports import latest_export
 from postproc.io.surfaces import read_surface
@@ -336,14 +337,17 @@ def postprocess_sweep(
                         fix="pass --force to replace them, or -o to write somewhere else")
     outcomes = []
     n = len(manifest.cases)
-    for i, case in enumerate(manifest.cases):
-        o = process_case(manifest, case)
-        outcomes.append(o)
-        if o.report is not None:
-            write_json_atomic(out / RESULTS_DIR / f"{case.case_id}.json",
-                              json_ready({**o.report, "yplus": o.yplus, "flags": list(o.result.flags)}))
-        if progress is not None:
-            progress(i + 1, n, o)
+    # SIGTERM and SIGINT alike: StopRequested at once; every file is written
+    # atomically, so a stop leaves earlier files whole and writes no tables.
+    with StopSignals(raise_at_once=True):
+        for i, case in enumerate(manifest.cases):
+            o = process_case(manifest, case)
+            outcomes.append(o)
+            if o.report is not None:
+                write_json_atomic(out / RESULTS_DIR / f"{case.case_id}.json",
+                                  json_ready({**o.report, "yplus": o.yplus, "flags": list(o.result.flags)}))
+            if progress is not None:
+                progress(i + 1, n, o)
     rows = [outcome_row(o) for o in outcomes]
     paths = {
         "csv": out / "results.csv",

@@ -37,7 +37,9 @@ def _progress_printer(quiet: bool):
 
     def show(ev) -> None:
         head = f"[{ev.index}/{ev.total}] {ev.case_id}"
-        if ev.event == "case-start":
+        if ev.event == "layout":
+            click.echo(ev.message)
+        elif ev.event == "case-start":
             click.echo(f"{head}: start ({ev.message})")
         elif ev.event == "stage-start" and not quiet:
             click.echo(f"{head}: {ev.stage} …")
@@ -62,9 +64,12 @@ def _progress_printer(quiet: bool):
 
 @main.command("run")
 @click.argument("sweep_dir", type=click.Path(file_okay=False, path_type=str))
-@click.option("-j", "--jobs", type=int, default=1, show_default=True, help="Cases run at the same time.")
-@click.option("--ranks", type=int, default=1, show_default=True,
-              help="MPI ranks per case (1 = serial). Keep jobs × ranks ≤ cores.")
+@click.option("-j", "--jobs", type=int, default=None,
+              help="Cases run at the same time (default: one per core when there are at least as many cases to "
+                   "run as cores, else all of them).")
+@click.option("--ranks", type=int, default=None,
+              help="MPI ranks per case (default: 1 when there are at least as many cases to run as cores, else "
+                   "the cores shared out among the cases). Keep jobs × ranks ≤ cores.")
 @click.option("--only", "only", multiple=True, metavar="ID", help="Run only this case id (repeatable).")
 @click.option("--stage", "stages", multiple=True, type=click.Choice(["mesh", "solve", "export"]),
               help="Run only this stage (repeatable); default all three.")
@@ -96,8 +101,8 @@ def run_cmd(sweep_dir, jobs, ranks, only, stages, force, residual_tol, grace, qu
         if missing:
             raise UserError(expected="the solver's programs on PATH", got=", ".join(missing),
                             fix=f"install them: {runner.INSTALL_HINT}")
-    cores = os.cpu_count() or 1
-    if jobs * ranks > cores:
+    cores = runner.usable_cores()
+    if jobs is not None and ranks is not None and jobs * ranks > cores:
         click.echo(f"note: {jobs} jobs × {ranks} ranks = {jobs * ranks} processes on {cores} cores; "
                    "cases will compete for the processors", err=True)
     t0 = time.monotonic()

@@ -8,8 +8,8 @@ Steps
    invented demo scenario) at the ``smoke`` fidelity into OUT/sweep with the
    caseprep Python API. An existing OUT/sweep is reused (``--force`` rewrites
    it), so running the demo again resumes where it stopped.
-2. Run every case with the case runner (1 case at a time, 2 MPI ranks by
-   default), printing progress. A case that fails is reported with the tail
+2. Run every case with the case runner (by default its throughput rule:
+   one serial case per core), printing progress. A case that fails is reported with the tail
    of its log; the others go on.
 3. Post-process every case (postproc.pipelines.sweep: forces, coefficients, aero
    balance, convergence, the runner's flags) and write OUT/results.csv,
@@ -73,7 +73,9 @@ def _stop(msg: str, code: int) -> int:
 def progress(ev: runner.Progress) -> None:
     head = f"  [{ev.index}/{ev.total}] {ev.case_id}"
     d = runner.format_duration
-    if ev.event == "stage-start":
+    if ev.event == "layout":
+        say(f"  {ev.message}")
+    elif ev.event == "stage-start":
         say(f"{head}: {ev.stage} …")
     elif ev.event == "stage-done":
         say(f"{head}: {ev.stage} done in {d(ev.stage_elapsed)}")
@@ -98,8 +100,9 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--out", default="runs/demo", help="output folder (default runs/demo)")
     ap.add_argument("--config", default=str(DEFAULT_CONFIG), help="sweep config (default the bundled example)")
     ap.add_argument("--fidelity", default="smoke", help="mesh fidelity (default smoke)")
-    ap.add_argument("--jobs", type=int, default=1, help="cases at a time (default 1)")
-    ap.add_argument("--ranks", type=int, default=2, help="MPI ranks per case (default 2)")
+    ap.add_argument("--jobs", type=int, default=None,
+                    help="cases at a time (default: the runner's throughput rule, one serial case per core)")
+    ap.add_argument("--ranks", type=int, default=None, help="MPI ranks per case (default: the runner's rule)")
     ap.add_argument("--force", action="store_true", help="rewrite the sweep and re-run every case")
     a = ap.parse_args(argv)
     t0 = time.monotonic()
@@ -121,7 +124,7 @@ def main(argv: list[str] | None = None) -> int:
         else:
             write_sweep(config, sweep_dir, a.fidelity, a.force)
         manifest = read_manifest(sweep_dir)
-        say(f"running {len(manifest.cases)} case(s), {a.jobs} at a time, {a.ranks} rank(s) each …")
+        say(f"running {len(manifest.cases)} case(s) …")
         try:
             recs = runner.run_sweep(sweep_dir, jobs=a.jobs, ranks=a.ranks, force=a.force, progress=progress)
         except runner.SweepInterrupted as exc:

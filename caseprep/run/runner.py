@@ -3,7 +3,9 @@
 Each case folder of a sweep (see the case folder contract in the README) has
 an executable ``run.sh`` with three stages: ``mesh``, ``solve`` and
 ``export``. :func:`run_sweep` calls ``run.sh <stage>`` for each stage of each
-case, ``jobs`` cases at a time, with ``UF_RANKS`` MPI ranks per case, and
+case, ``jobs`` cases at a time, with ``UF_RANKS`` MPI ranks per case (by
+default the throughput rule of :func:`choose_layout`: one serial case per
+core while there are at least as many cases to run as cores), and
 after each case reads the solver's logs (:mod:`caseprep.run.solverlogs`) into a
 :class:`CaseRunRecord` written to ``<case>/underfloor-run.json``; the sweep's
 ``run_summary.json`` collects them.
@@ -74,6 +76,58 @@ def missing_solver_binaries(names: Iterable[str] = SOLVER_BINARIES) -> list[str]
     return [n for n in names if shutil.which(n) is None]
 
 
+def usable_cores() -> int:
+    """Cores this process may run on (its CPU affinity: a batch system's or
+    taskset's limit), at least 1."""
+    try:
+        return max(1, len(os.sched_getaffinity(0)))
+    except (AttributeError, OSError):
+        return max(1, os.cpu_count() or 1)
+
+
+@dataclass(frozen=True)
+class Layout:
+    """How a sweep uses the machine: ``jobs`` cases at a time, ``ranks`` MPI
+    ranks each, and why (``reason``, one line for the user)."""
+
+    jobs: int
+    ranks: int
+    reason: str
+
+
+def choose_layout(pending: int, cores: int, jobs: int | None = None, ranks: int | None = None) -> Layout:
+    """The throughput rule: pack the machine with whole cases first.
+
+    * neither given: with at least as many cases to run as ``cores``, one
+      serial case per core (``jobs = cores``, ``ranks = 1``); with fewer, every
+      case at once and the cores shared out as MPI ranks
+      (``ranks = cores // pending``);
+    * only ``ranks`` given: as many cases as fit, ``jobs = cores // ranks``
+      (at least 1, at most the cases to run);
+    * only ``jobs`` given: ``ranks = cores // min(jobs, pending)`` (at least 1);
+    * both given: as given.
+
+    Why serial cases first: parallel ranks of one case add decomposition and
+    reconstruction, exchange data every iteration and, when another process
+    wants a core, wait on each other; independent cases do none of that
+    (measured in the README, "Throughput").
+    """
+    pending = max(1, int(pending))
+    cores = max(1, int(cores))
+    if jobs is not None and ranks is not None:
+        return Layout(jobs, ranks, f"{jobs} at a time, {ranks} rank(s) each, as asked")
+    if ranks is not None:
+        j = max(1, min(pending, cores // ranks))
+        return Layout(j, ranks, f"{ranks} rank(s) per case as asked: {j} case(s) at a time on {cores} core(s)")
+    if jobs is not None:
+        r = max(1, cores // min(jobs, pending))
+        return Layout(jobs, r, f"{jobs} at a time as asked: {r} rank(s) each on {cores} core(s)")
+    if pending >= cores:
+        return Layout(cores, 1, f"{pending} case(s) to run on {cores} core(s): one serial case per core")
+    r = max(1, cores // pending)
+    return Layout(pending, r, f"{pending} case(s) to run on {cores} core(s): all at once, {r} MPI rank(s) each")
+
+
 @dataclass(frozen=True)
 class RunOptions:
     """Thresholds of the flags and the runner's timing.
@@ -99,7 +153,9 @@ class RunOptions:
 
 @dataclass(frozen=True)
 class Progress:
-    """One progress event: ``event`` is ``case-start``, ``stage-start``,
+    """One progress event: ``event`` is ``layout`` (once, first: ``message``
+    says how many cases at a time with how many ranks, and why),
+    ``case-start``, ``stage-start``,
     ``stage-done``, ``stage-failed``, ``running`` (heartbeat), ``case-done``,
     ``skipped`` or ``interrupted``; ``elapsed`` s since the case started,
     ``stage_elapsed`` s since the stage started; ``index`` 1-based among
@@ -265,8 +321,8 @@ def _plan(case_dir: Path, stages: Sequence[str], force: bool) -> tuple[list[str]
 
 def run_sweep(
     sweep_dir: str | os.PathLike,
-    jobs: int = 1,
-    ranks: int = 1,
+    jobs: int | None = None,
+    ranks: int | None = None,
     stages: Sequence[str] | None = None,
     only: Sequence[str] | None = None,
     force: bool = False,
@@ -276,6 +332,9 @@ def run_sweep(
     """Run the cases of the sweep in ``sweep_dir``; returns one record per selected case.
 
     ``jobs`` cases at a time, each with ``ranks`` MPI ranks (``UF_RANKS``);
+    either left None is chosen by :func:`choose_layout` from the cases to
+    run and :func:`usable_cores` (a ``layout`` progress event carries the
+    reason before the first case starts);
     ``stages`` a subset of :data:`STAGES` (default all); ``only`` case ids
     to run (default all in the manifest); ``force`` re-runs stages already
     marked done. ``progress`` is called with :class:`Progress` events from
@@ -288,9 +347,9 @@ def run_sweep(
     # absolute: run.sh is started with the case folder as working directory
     root = Path(sweep_dir).resolve()
     manifest = read_manifest(root)
-    if jobs < 1:
+    if jobs is not None and jobs < 1:
         raise UserError(expected="a number of parallel cases ≥ 1", got=jobs, key="jobs", fix="use -j 1 or more")
-    if ranks < 1:
+    if ranks is not None and ranks < 1:
         raise UserError(expected="a number of MPI ranks ≥ 1", got=ranks, key="ranks", fix="use --ranks 1 or more")
     stages = list(STAGES) if not stages else list(stages)
     for s in stages:
@@ -318,22 +377,18 @@ def run_sweep(
                         key=f"cases[{bad[0].case_id}]",
                         fix=f"{len(bad)} case folder(s) lack it; rewrite the sweep with `caseprep write --force`")
 
-    env = dict(os.environ)
-    env["UF_RANKS"] = str(ranks)
-    if "WM_PROJECT_DIR" not in env and Path("/usr/share/openfoam/etc").is_dir():
-        env["WM_PROJECT_DIR"] = "/usr/share/openfoam"
-    if hasattr(os, "geteuid") and os.geteuid() == 0:  # the MPI launcher refuses root without these
-        env.setdefault("OMPI_ALLOW_RUN_AS_ROOT", "1")
-        env.setdefault("OMPI_ALLOW_RUN_AS_ROOT_CONFIRM", "1")
-
     emit = progress or (lambda ev: None)
     total = len(selected)
+    planned = [(i, c, manifest.case_dir(c), *_plan(manifest.case_dir(c), stages, force)) for i, c in enumerate(selected, 1)]
+    layout = choose_layout(sum(1 for *_, to_run, _p, why in planned if to_run and not why), usable_cores(), jobs, ranks)
+    jobs, ranks = layout.jobs, layout.ranks
+    emit(Progress("", 0, total, "layout", message=layout.reason))
+    env = _case_env(ranks)
+
     records: dict[str, CaseRunRecord] = {}
     pending: list[_Job] = []
-    for i, c in enumerate(selected, 1):
-        cdir = manifest.case_dir(c)
+    for i, c, cdir, to_run, plan, why in planned:
         prev = read_case_record(cdir)
-        to_run, plan, why = _plan(cdir, stages, force)
         if why:
             rec = _finish_record(_Job(i, c, cdir, [], plan, prev), Status.NOT_READY, why, ranks, options)
             records[c.case_id] = rec
@@ -341,7 +396,7 @@ def run_sweep(
             emit(Progress(c.case_id, i, total, "case-done", message=why, record=rec))
         elif not to_run:
             rec = _finish_record(_Job(i, c, cdir, [], plan, prev), Status.SKIPPED, "all requested stages done before",
-                                 ranks, options)
+                                 prev.ranks if prev is not None else ranks, options)
             records[c.case_id] = rec
             emit(Progress(c.case_id, i, total, "skipped", message="done before; use --force to run again", record=rec))
         else:
@@ -352,6 +407,19 @@ def run_sweep(
     with StopSignals() as stop:
         run.loop(pending, jobs, stop)
     return [records[c.case_id] for c in selected]
+
+
+def _case_env(ranks: int) -> dict[str, str]:
+    """The environment of the cases' run.sh: ``UF_RANKS``, the solver's
+    installation, and what the MPI launcher needs to run as root."""
+    env = dict(os.environ)
+    env["UF_RANKS"] = str(ranks)
+    if "WM_PROJECT_DIR" not in env and Path("/usr/share/openfoam/etc").is_dir():
+        env["WM_PROJECT_DIR"] = "/usr/share/openfoam"
+    if hasattr(os, "geteuid") and os.geteuid() == 0:  # the MPI launcher refuses root without these
+        env.setdefault("OMPI_ALLOW_RUN_AS_ROOT", "1")
+        env.setdefault("OMPI_ALLOW_RUN_AS_ROOT_CONFIRM", "1")
+    return env
 
 
 class _Run:

@@ -11,8 +11,10 @@ Steps
 2. Run every case with the case runner (by default its throughput rule:
    one serial case per core), printing progress. A case that fails is reported with the tail
    of its log; the others go on.
-3. Post-process every case (postproc.pipelines.sweep: forces, coefficients, aero
-   balance, convergence, the runner's flags) and write OUT/results.csv,
+3. Post-process every case, one worker process per core, reusing the stored
+   result of every case whose inputs are unchanged (postproc.pipelines.sweep:
+   forces, coefficients, aero balance, convergence, the runner's flags) and
+   write OUT/results.csv,
    OUT/results.json, OUT/results/<case>.json and OUT/report.html (the
    self-contained sweep report with the ranking and the safety caution);
    print where they are and how long the demo took.
@@ -37,7 +39,8 @@ from caseprep.run import runner  # noqa: E402
 from caseprep.contract.errors import UserError  # noqa: E402
 from caseprep.contract.manifest import read_manifest  # noqa: E402
 from caseprep.contract.records import SUMMARY_NAME  # noqa: E402
-from postproc.pipelines.sweep import postprocess_sweep  # noqa: E402
+from caseprep.contract.signals import StopRequested  # noqa: E402
+from postproc.pipelines.sweep import SweepOptions, postprocess_sweep  # noqa: E402
 from postproc.report.sweep_report import write_report  # noqa: E402
 
 DEFAULT_CONFIG = HERE / "floor_study" / "sweep.toml"
@@ -135,18 +138,21 @@ def main(argv: list[str] | None = None) -> int:
 
     say("post-processing every case (forces, coefficients, balance, convergence) …")
 
-    def post_progress(i, n, o):
-        r = o.result
+    def post_progress(ev):
+        r = ev.outcome.result
         what = f"C_L {r.cl:+.4f}, C_D {r.cd:.4f}" if math.isfinite(r.cl) else "no coefficients"
-        say(f"  [{i}/{n}] {r.case_id}: {what}" + (f" — flags: {', '.join(r.flags)}" if r.flags else ""))
+        say(f"  [{ev.done}/{ev.total}] {r.case_id}: {what}" + (f" — flags: {', '.join(r.flags)}" if r.flags else "")
+            + (" (reused)" if ev.reused else ""))
 
+    opts = SweepOptions(out_dir=out, force=True, jobs=runner.usable_cores(),
+                        title="underfloor demo — example floor study (DEMO data, smoke meshes)")
     try:
-        analysis = postprocess_sweep(sweep_dir, out_dir=out, force=True, progress=post_progress,
-                                     title="underfloor demo — example floor study (DEMO data, smoke meshes)")
+        analysis = postprocess_sweep(sweep_dir, opts, progress=post_progress, render=write_report)
         paths = analysis.paths
-        write_report(analysis, paths["report"])
     except UserError as exc:
         return _stop(str(exc), 2)
+    except StopRequested as exc:
+        return _stop(f"stopped by {exc}; finished cases are stored. Run `make demo` again to resume.", exc.exit_code)
     elapsed = time.monotonic() - t0
     say("")
     say(runner.format_summary_table(recs))

@@ -114,44 +114,115 @@ def forces_cmd(target, patches, rho, kinematic, normals, shear_on, p_ref, about,
 
 # --------------------------------------------------------------------------- sweep
 
+CAUTION = ("Caution: CFD is an approximation — validate by physical test; run vehicles only where permitted "
+           "and safe; defer to local rules and qualified engineers.")
+
+
+def _case_line(ev) -> str:
+    """One line for a case done (``postproc.pipelines.sweep.CaseProgress``)."""
+    o = ev.outcome
+    r = o.result
+    what = f"C_L {r.cl:+.4f}  C_D {r.cd:.4f}" if r.cl == r.cl else "no coefficients"
+    return (f"{r.case_id}: {o.status}; {what}" + (f"; flags: {', '.join(r.flags)}" if r.flags else "")
+            + ("  (reused: inputs unchanged)" if ev.reused else ""))
+
+
 @main.command("sweep")
 @click.argument("sweep_dir", type=click.Path(file_okay=False))
 @click.option("-o", "--out", "out_dir", type=click.Path(file_okay=False),
-              help="Where to write results.csv, results.json, report.html and results/ (default: the sweep folder).")
+              help="Where to write results.csv, results.json, report.html, results/ and shards/ "
+                   "(default: the sweep folder).")
+@click.option("-j", "--jobs", type=click.IntRange(min=1), default=1, show_default=True,
+              help="Worker processes: cases post-processed at the same time.")
+@click.option("--shard", "shard", metavar="I/N",
+              help="Process only shard I of N (cases at manifest positions k with k mod N = I-1) and write their "
+                   "per-case results, no tables; then `postproc merge`.")
+@click.option("--recompute", is_flag=True, help="Recompute every case even when its stored result is reusable.")
 @click.option("--title", help="Report title (default from the study name).")
-@click.option("--force", is_flag=True, help="Replace earlier results in the output folder.")
+@click.option("--force", is_flag=True, help="Replace earlier tables (results.csv/json, report) in the output folder.")
+@click.option("--wait", type=click.FloatRange(min=0.0), default=300.0, show_default=True,
+              help="Seconds to wait for another process writing the same tables.")
 @click.option("-q", "--quiet", is_flag=True, help="No per-case progress lines.")
-def sweep_cmd(sweep_dir: str, out_dir: str | None, title: str | None, force: bool, quiet: bool) -> None:
+def sweep_cmd(sweep_dir: str, out_dir: str | None, jobs: int, shard: str | None, recompute: bool,
+              title: str | None, force: bool, wait: float, quiet: bool) -> None:
     """Post-process every case of SWEEP_DIR (written by `caseprep write`, run
     by `caseprep run`): forces, coefficients, aero balance, convergence and
     the runner's flags → results table, variant ranking and an HTML report.
 
-    Flagged cases (mesh failed, layers collapsed, not converged, not run…)
-    are listed and never ranked.
+    Each case's result is stored in results/<case>.json and reused while the
+    case's inputs are unchanged (manifest entry; size and modification time
+    of its run record, VTK export and monitor files), so a rerun after a
+    crash, a stop or new cases only does the new work. Flagged cases (mesh
+    failed, layers collapsed, not converged, not run…) are listed and never
+    ranked. Exit code 0, 2 for a usage error, 143/130 when stopped by
+    SIGTERM/SIGINT (run again to resume).
     """
     from caseprep.contract.signals import StopRequested
-    from postproc.pipelines.sweep import postprocess_sweep
+    from postproc.pipelines.shards import ALL, parse_shard
+    from postproc.pipelines.sweep import SweepOptions, postprocess_shard, postprocess_sweep
     from postproc.report.sweep_report import write_report
 
-    def progress(i, n, o):
-        if quiet:
-            return
-        r = o.result
-        what = (f"C_L {r.cl:+.4f}  C_D {r.cd:.4f}" if r.cl == r.cl else "no coefficients")
-        click.echo(f"[{i}/{n}] {r.case_id}: {o.status}; {what}" + (f"; flags: {', '.join(r.flags)}" if r.flags else ""))
+    sh = parse_shard(shard)
+    opts = SweepOptions(out_dir=out_dir, title=title, force=force, jobs=jobs, shard=sh, recompute=recompute,
+                        wait=wait)
+
+    def progress(ev) -> None:
+        if not quiet:
+            click.echo(f"[{ev.done}/{ev.total}] " + _case_line(ev))
 
     try:
-        analysis = postprocess_sweep(sweep_dir, out_dir, title=title, progress=progress, force=force)
+        if sh != ALL:
+            run = postprocess_shard(sweep_dir, opts, progress=progress)
+            click.echo(f"shard {sh}: {len(run.outcomes)} case(s), {len(run.computed)} computed, "
+                       f"{len(run.reused)} reused; state {run.state_file}. Assemble the tables with "
+                       f"`postproc merge {sweep_dir}" + (f" -o {out_dir}" if out_dir else "") + "`.")
+            return
+        analysis = postprocess_sweep(sweep_dir, opts, progress=progress, render=write_report)
     except StopRequested as exc:
-        click.echo(f"stopped by {exc}: no tables written; run the same command again.", err=True)
+        click.echo(f"stopped by {exc}: finished cases are stored, the others recorded interrupted; no tables "
+                   "written. Run the same command again to resume.", err=True)
         sys.exit(exc.exit_code)
     outcomes, paths = analysis.outcomes, analysis.paths
-    write_report(analysis, paths["report"])
     n_flag = sum(bool(o.result.flags) for o in outcomes)
     click.echo(f"{len(outcomes)} case(s), {n_flag} flagged (not ranked).")
     click.echo(f"results: {paths['csv']}, {paths['json']}; report: {paths['report']}")
-    click.echo("Caution: CFD is an approximation — validate by physical test; run vehicles only where permitted "
-               "and safe; defer to local rules and qualified engineers.")
+    click.echo(CAUTION)
+
+
+@main.command("merge")
+@click.argument("sweep_dir", type=click.Path(file_okay=False))
+@click.option("-o", "--out", "out_dir", type=click.Path(file_okay=False),
+              help="The output folder the shards wrote into (default: the sweep folder).")
+@click.option("--shards", "n_shards", type=click.IntRange(min=1),
+              help="Number of shards the cases were split into (names the missing ones; default from shards/).")
+@click.option("--title", help="Report title (default from the study name).")
+@click.option("--force", is_flag=True, help="Replace earlier tables (results.csv/json, report).")
+@click.option("--wait", type=click.FloatRange(min=0.0), default=300.0, show_default=True,
+              help="Seconds to wait for another merge of the same folder before giving up.")
+def merge_cmd(sweep_dir: str, out_dir: str | None, n_shards: int | None, title: str | None, force: bool,
+              wait: float) -> None:
+    """Assemble results.csv, results.json and the report of SWEEP_DIR from
+    the per-case results its shards wrote (`postproc sweep --shard I/N`).
+
+    Computes nothing per case: a case without a usable result is listed,
+    flagged results-missing and its shard named; everything else is
+    written. Exit code 0, 1 when cases are missing (tables still written),
+    2 for a usage error.
+    """
+    from postproc.pipelines.sweep import SweepOptions, merge_results
+    from postproc.report.sweep_report import write_report
+
+    opts = SweepOptions(out_dir=out_dir, title=title, force=force, wait=wait, expected_shards=n_shards)
+    analysis, gap = merge_results(sweep_dir, opts, render=write_report)
+    outcomes, paths = analysis.outcomes, analysis.paths
+    n_flag = sum(bool(o.result.flags) for o in outcomes)
+    click.echo(f"{len(outcomes)} case(s), {n_flag} flagged (not ranked).")
+    click.echo(f"results: {paths['csv']}, {paths['json']}; report: {paths['report']}")
+    click.echo(CAUTION)
+    if gap is not None:
+        click.echo(f"incomplete: {gap.message()}. Rerun those shards (`postproc sweep {sweep_dir} --shard I/N`), "
+                   "then merge again with --force.", err=True)
+        sys.exit(1)
 
 
 # ---------------------------------------------------------------------------

@@ -56,6 +56,7 @@ class Flag(StrEnum):
     NOT_RUN = "not-run"
     FORCES_FAILED = "forces-failed"
     FORCES_DRIFTING = "forces-drifting"
+    RESULTS_MISSING = "results-missing"
     # a run that stopped early carries its status as a flag in the results
     SOLVE_FAILED = "solve-failed"
     EXPORT_FAILED = "export-failed"
@@ -80,6 +81,8 @@ _MEANING = {
     Flag.NOT_RUN: "the case has not been run (or not to the end): no results",
     Flag.FORCES_FAILED: "the forces could not be computed from the case's export",
     Flag.FORCES_DRIFTING: "the runtime force monitor was still drifting at the end of the run (not settled)",
+    Flag.RESULTS_MISSING: ("no usable post-processing result for the case when the tables were merged (its shard "
+                           "did not run or did not finish, or its result was stale or corrupt): rerun its shard"),
     Flag.SOLVE_FAILED: "the solve stage failed",
     Flag.EXPORT_FAILED: "the export stage failed",
     Flag.NOT_READY: "a requested stage needed an earlier stage that was not done",

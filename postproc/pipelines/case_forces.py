@@ -23,14 +23,18 @@ def forces_report(target: str, patches: tuple[str, ...] = (), rho: float | None 
                shear_field: str = "wallShearStress", no_shear: bool = False, allow_nonfinite: bool = False,
                allow_open: bool = False, area: float | None = None, length: float | None = None,
                speed: float | None = None, wheelbase: float | None = None, front_axle=None, rear_axle=None,
-               cog=None, window: int | None = None, convergence: ConvergenceOptions = DEFAULT_OPTIONS) -> dict:
+               cog=None, window: int | None = None, convergence: ConvergenceOptions = DEFAULT_OPTIONS,
+               surface=None) -> dict:
     """Read, integrate and reduce one surface or case; returns the JSON-ready
     report (see ``postproc forces --help``). Raises UserError on bad input.
 
     The runtime force monitor is judged by the one convergence rule
     (:func:`caseprep.contract.convergence.assess_force_monitor` with
     ``convergence``, over ``window`` samples, default its settling window),
-    as the runner and the sweep judge it."""
+    as the runner and the sweep judge it. ``surface``: the body patches
+    already read from ``target``'s export (a :class:`postproc.io.surfaces.Surface`
+    with the pressure and shear arrays), so that a caller needing other arrays
+    of the same faces reads the file once; None: read here."""
     from pathlib import Path
 
     from caseprep.contract.frames import axes_rotations, axle_axes
@@ -62,7 +66,10 @@ def forces_report(target: str, patches: tuple[str, ...] = (), rho: float | None 
     if patches is not None and any(not p.strip() for p in patches):
         raise UserError(expected="non-empty patch names or patterns", got="an empty --patches value", key="--patches")
     wanted = [pressure_field] + ([] if no_shear else [shear_field])
-    surf = read_surface(vtk_file, list(patches) or None, arrays=wanted)  # only the arrays used
+    if surface is not None:
+        surf = surface
+    else:
+        surf = read_surface(vtk_file, list(patches) or None, arrays=wanted)  # only the arrays used
     ref = record.reference if record is not None else None
     if rho is None and ref is not None:
         rho = ref.rho

@@ -30,9 +30,11 @@ max(|its mean|, the resultant force), drift and std tolerance 1 %;
 from __future__ import annotations
 
 import csv
+import datetime as _dt
 import io
 import math
 import os
+import time
 from dataclasses import asdict, dataclass, field, replace
 from pathlib import Path
 from typing import Any, Callable
@@ -42,7 +44,7 @@ import numpy as np
 from caseprep.contract.atomicio import json_ready, write_json_atomic, write_text_atomic
 from caseprep.contract.errors import UserError
 from caseprep.contract.manifest import CaseRecord, Manifest, read_manifest
-from caseprep.contract.signals import StopSignals
+from caseprep.contract.signals import StopRequested
 from caseprep.contract.records import Flag, Status, as_flag, effective_status, flag_meaning, read_case_record
 from postproc.io.exports import latest_export
 from postproc.io.surfaces import read_surface
@@ -52,8 +54,10 @@ from postproc.kernels.forces import face_geometry
 from postproc.kernels.meshstudy import grid_convergence
 from postproc.kernels.ranking import CaseResult, VariantScore, rank_variants
 from postproc.pipelines.case_forces import forces_report
-
-RESULTS_DIR = "results"
+from postproc.pipelines.caseresults import (RESULTS_DIR, Fingerprint, fingerprint, read_case_result,
+                                            write_case_result)
+from postproc.pipelines.shards import (ALL, OutputLock, Shard, manifest_digest, read_shard_states, run_cases,
+                                       write_shard_state)
 
 @dataclass(frozen=True)
 class CaseOutcome:
@@ -70,6 +74,33 @@ class CaseOutcome:
     report: dict[str, Any] | None = field(default=None, repr=False)
     yplus: dict[str, dict] = field(default_factory=dict)
 
+    def to_json(self) -> dict[str, Any]:
+        """The JSON form stored as the case's result (``results/<case>.json``):
+        the ranking row (``result``), run facts, notes, the full forces report
+        (``forces``, None without an export), y+ per patch and the flags."""
+        return json_ready({"result": asdict(self.result), "status": self.status, "cells": self.cells,
+                           "iterations": self.iterations, "convergence": self.convergence, "layers": self.layers,
+                           "notes": list(self.notes), "forces": self.report, "yplus": self.yplus,
+                           "flags": list(self.result.flags)})
+
+    @classmethod
+    def from_json(cls, d: dict[str, Any]) -> "CaseOutcome":
+        """Inverse of :meth:`to_json` (None → NaN for the coefficients).
+        Raises ValueError/TypeError/KeyError for content of the wrong shape."""
+        r = dict(d["result"])
+        for k in ("cl", "cd", "cs", "ride_height_front", "ride_height_rear", "speed"):
+            r[k] = math.nan if r.get(k) is None else float(r[k])
+        r["flags"] = tuple(as_flag(str(f)) for f in r.get("flags") or ())
+        result = CaseResult(**r)
+        notes = d.get("notes") or []
+        yplus = d.get("yplus") or {}
+        forces = d.get("forces")
+        if not isinstance(notes, list) or not isinstance(yplus, dict) or not (forces is None or isinstance(forces, dict)):
+            raise TypeError("per-case result of the wrong shape")
+        return cls(result=result, status=str(d["status"]), cells=d.get("cells"), iterations=d.get("iterations"),
+                   convergence=d.get("convergence"), layers=d.get("layers"), notes=tuple(str(n) for n in notes),
+                   report=forces, yplus=yplus)
+
 
 #: Intended y+ ranges of the wall treatments (common practice, no source):
 #: wall functions want the first cell in the log layer, a resolved laminar or
@@ -78,17 +109,28 @@ YPLUS_RANGES = {"kOmegaSST": (30.0, 300.0), "laminar": (0.0, 5.0)}
 ALL_WALLS = "all body and wheel patches"
 
 
-def wall_yplus(case_dir: Path, case: CaseRecord) -> tuple[dict[str, dict], str | None]:
+#: The face arrays of the body patches the sweep uses (forces: pressure and
+#: wall shear; wall checks: y+), read together, once per case.
+SURFACE_ARRAYS = ("p", "wallShearStress", "yPlus")
+
+
+def wall_patches(case: CaseRecord) -> list[str]:
+    """The body and wheel patches of a case (from the manifest)."""
+    return list(case.patches.get("body") or []) + list(case.patches.get("wheels") or [])
+
+
+def wall_yplus(case_dir: Path, case: CaseRecord, surface=None) -> tuple[dict[str, dict], str | None]:
     """y+ statistics of the body and wheel patches from the case's VTK export
     (the solver's ``yPlus`` face field): per patch min/median/p95/max and the
     area share inside the wall treatment's intended range
     (:data:`YPLUS_RANGES`, chosen from the manifest's turbulence model).
-    Returns (stats by patch, None) or ({}, why not)."""
-    names = list(case.patches.get("body") or []) + list(case.patches.get("wheels") or [])
+    ``surface``: those patches already read (with ``yPlus``); None: read
+    them here. Returns (stats by patch, None) or ({}, why not)."""
+    names = wall_patches(case)
     if not names:
         return {}, "no body patches in the manifest"
     try:
-        surf = read_surface(latest_export(case_dir), names)
+        surf = surface if surface is not None else read_surface(latest_export(case_dir), names, arrays=["yPlus"])
         yp = surf.array("yPlus")
     except UserError as exc:
         return {}, f"y+ not assessed: {exc}".splitlines()[0]
@@ -105,16 +147,10 @@ def wall_yplus(case_dir: Path, case: CaseRecord) -> tuple[dict[str, dict], str |
     return out, None
 
 
-def process_case(manifest: Manifest, case: CaseRecord) -> CaseOutcome:
-    """Post-process one case of ``manifest``: its run record, its forces
-    report (when its export exists) and its :class:`CaseResult` row."""
-    case_dir = manifest.case_dir(case)
-    rec = read_case_record(case_dir)
-    flags: list[str] = list(rec.flags) if rec is not None else []
-    status = effective_status(rec) if rec is not None else Status.NOT_RUN
-    notes: list[str] = []
+def _case_params(case: CaseRecord) -> dict[str, Any]:
+    """The operating point of a case as :class:`CaseResult` fields."""
     p = case.params
-    base = dict(
+    return dict(
         case_id=case.case_id,
         variant=case.variant,
         ride_height_front=float(p.get("ride_height_front", math.nan)),
@@ -124,6 +160,32 @@ def process_case(manifest: Manifest, case: CaseRecord) -> CaseOutcome:
         speed=float(p.get("speed", math.nan)),
         mesh_level=int(p.get("mesh_level", 0)),
     )
+
+
+def missing_outcome(manifest: Manifest, case: CaseRecord, why: str) -> CaseOutcome:
+    """The row of a case whose post-processing result is missing (a merge
+    with a gap): its operating point and run status, no coefficients, the
+    ``results-missing`` flag and ``why`` as a note."""
+    rec = read_case_record(manifest.case_dir(case))
+    flags = list(rec.flags) if rec is not None else []
+    status = effective_status(rec) if rec is not None else Status.NOT_RUN
+    nan = math.nan
+    result = CaseResult(**_case_params(case), cl=nan, cd=nan, cs=nan,
+                        flags=tuple(dict.fromkeys([*flags, Flag.RESULTS_MISSING])))
+    return CaseOutcome(result=result, status=status, cells=rec.cells if rec else None,
+                       iterations=rec.iterations if rec else None, convergence=None,
+                       notes=(f"no post-processing result: {why}",))
+
+
+def process_case(manifest: Manifest, case: CaseRecord) -> CaseOutcome:
+    """Post-process one case of ``manifest``: its run record, its forces
+    report (when its export exists) and its :class:`CaseResult` row."""
+    case_dir = manifest.case_dir(case)
+    rec = read_case_record(case_dir)
+    flags: list[str] = list(rec.flags) if rec is not None else []
+    status = effective_status(rec) if rec is not None else Status.NOT_RUN
+    notes: list[str] = []
+    base = _case_params(case)
     exported = (case_dir / "logs" / "export.done").is_file()
     report = None
     verdict = None
@@ -133,8 +195,13 @@ def process_case(manifest: Manifest, case: CaseRecord) -> CaseOutcome:
         elif status not in (Status.OK, Status.SKIPPED) and status not in flags:
             flags.append(as_flag(status))
     else:
+        surf = None
         try:
-            report = forces_report(str(case_dir))  # the monitor judged by the one convergence rule
+            names = wall_patches(case)
+            if names:  # one read of the body's faces for the forces and the y+
+                surf = read_surface(latest_export(case_dir), names, arrays=list(SURFACE_ARRAYS))
+            # the monitor judged by the one convergence rule
+            report = forces_report(str(case_dir), surface=surf)
         except UserError as exc:
             flags.append(Flag.FORCES_FAILED)
             notes.append(f"forces: {exc}")
@@ -167,7 +234,7 @@ def process_case(manifest: Manifest, case: CaseRecord) -> CaseOutcome:
             notes.append("no runtime force monitor found: convergence not assessed")
     yplus: dict[str, dict] = {}
     if report is not None:
-        yplus, why = wall_yplus(case_dir, case)
+        yplus, why = wall_yplus(case_dir, case, surface=surf)
         if why:
             notes.append(why)
     result = CaseResult(**base, cl=cl, cd=cd, cs=cs, cl_front=clf, cl_rear=clr, balance=bal,
@@ -311,43 +378,276 @@ def analyse_results(results: list[CaseResult], title: str = "Sweep report", stud
 
 
 REPORT_NAME = "report.html"
+TABLE_NAMES = ("results.csv", "results.json", REPORT_NAME)
+
+
+@dataclass(frozen=True)
+class SweepOptions:
+    """How to post-process a sweep (the options of ``postproc sweep`` and
+    ``postproc merge``).
+
+    ``out_dir``: where the tables, ``results/`` and ``shards/`` go (default the
+    sweep folder); ``title`` of the report; ``force``: replace earlier tables;
+    ``jobs``: worker processes (each case read and reduced in one of them);
+    ``shard``: the part of the cases to process (:class:`Shard`; all by
+    default); ``recompute``: ignore reusable per-case results; ``wait``: s to
+    wait for another writer of the tables before giving up;
+    ``expected_shards``: for a merge, the number of shards the cases were
+    split into (names the missing ones; default from the shard states).
+    """
+
+    out_dir: str | os.PathLike | None = None
+    title: str | None = None
+    force: bool = False
+    jobs: int = 1
+    shard: Shard = ALL
+    recompute: bool = False
+    wait: float = 300.0
+    expected_shards: int | None = None
+
+
+@dataclass(frozen=True)
+class CaseProgress:
+    """One case done: ``done`` of ``total`` in this run, the outcome,
+    whether it was ``reused`` (inputs unchanged) and the run's ``elapsed`` s."""
+
+    done: int
+    total: int
+    outcome: CaseOutcome
+    reused: bool
+    elapsed: float
+
+
+@dataclass(frozen=True)
+class ShardRun:
+    """What one run over a shard did: the outcomes by case id (manifest
+    order), which cases were computed and which reused, and why each
+    computed case could not be reused (``missing``, ``stale: …``, ``corrupt: …``)."""
+
+    shard: Shard
+    outcomes: dict[str, CaseOutcome]
+    computed: tuple[str, ...]
+    reused: tuple[str, ...]
+    reasons: dict[str, str]
+    state_file: Path
+
+
+@dataclass(frozen=True)
+class MergeGap:
+    """Cases without a usable result at a merge: ``cases`` {id: why},
+    ``shards`` the shards they belong to (when the split is known)."""
+
+    cases: dict[str, str]
+    shards: tuple[Shard, ...]
+
+    def message(self) -> str:
+        what = ", ".join(f"{k} ({v})" for k, v in list(self.cases.items())[:6]) + (
+            " …" if len(self.cases) > 6 else "")
+        head = (f"shard(s) {', '.join(map(str, self.shards))} missing or unfinished: " if self.shards else "")
+        return f"{head}{len(self.cases)} case(s) without a post-processing result: {what}"
+
+
+def _out_folder(manifest: Manifest, sweep_dir, options: SweepOptions) -> Path:
+    return Path(options.out_dir) if options.out_dir is not None else Path(manifest.root or sweep_dir)
+
+
+def _refuse_existing_tables(out: Path, force: bool) -> None:
+    existing = [out / n for n in TABLE_NAMES if (out / n).exists()]
+    if existing and not force:
+        raise UserError(expected="no earlier results in the output folder", got=", ".join(str(p) for p in existing),
+                        fix="pass --force to replace them, or -o to write somewhere else")
+
+
+_WORKER_MANIFEST: Manifest | None = None
+
+
+def _worker_setup(manifest: Manifest) -> None:
+    global _WORKER_MANIFEST
+    _WORKER_MANIFEST = manifest
+
+
+def _worker_case(case_id: str) -> dict[str, Any]:
+    """Post-process one case in a worker; its JSON form goes back to the parent."""
+    assert _WORKER_MANIFEST is not None
+    return process_case(_WORKER_MANIFEST, _WORKER_MANIFEST.case(case_id)).to_json()
+
+
+def postprocess_shard(sweep_dir: str | os.PathLike, options: SweepOptions = SweepOptions(),
+                      progress: Callable[[CaseProgress], None] | None = None) -> ShardRun:
+    """Post-process the cases of ``options.shard`` (all by default): reuse
+    each case's stored result while its inputs are unchanged
+    (:mod:`postproc.pipelines.caseresults`), compute the others in
+    ``options.jobs`` worker processes, write each result atomically as it
+    comes, and the shard's state (:mod:`postproc.pipelines.shards`) when it
+    starts and ends. Writes no tables.
+
+    SIGTERM/SIGINT: the workers are stopped, the shard state records the
+    unfinished cases ``interrupted``, :class:`StopRequested` propagates.
+    """
+    manifest = read_manifest(sweep_dir)
+    if options.jobs < 1:
+        raise UserError(expected="a number of worker processes ≥ 1", got=options.jobs, key="-j",
+                        fix="use -j 1 or more")
+    return _process_shard(manifest, _out_folder(manifest, sweep_dir, options), options, progress)
+
+
+def _process_shard(manifest: Manifest, out: Path, options: SweepOptions,
+                   progress: Callable[[CaseProgress], None] | None) -> ShardRun:
+    shard = options.shard
+    cases = shard.select(list(manifest.cases))
+    t0 = time.monotonic()
+    started = _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ")
+    state = {c.case_id: "pending" for c in cases}
+    write_shard_state(out, manifest, shard, "running", state, started)
+    outcomes: dict[str, CaseOutcome] = {}
+    fps: dict[str, Fingerprint] = {}
+    reasons: dict[str, str] = {}
+    todo: list[CaseRecord] = []
+    done = 0
+
+    def report(o: CaseOutcome, reused: bool) -> None:
+        nonlocal done
+        done += 1
+        if progress is not None:
+            progress(CaseProgress(done, len(cases), o, reused, time.monotonic() - t0))
+
+    for c in cases:
+        fp = fingerprint(manifest.case_dir(c), c)
+        fps[c.case_id] = fp
+        if options.recompute:
+            reasons[c.case_id] = "recompute asked"
+        else:
+            st = read_case_result(out, c.case_id, manifest.study, fp)
+            if st.usable:
+                try:
+                    o = CaseOutcome.from_json(st.payload)
+                except (KeyError, TypeError, ValueError) as exc:
+                    reasons[c.case_id] = f"corrupt: {exc}"
+                else:
+                    outcomes[c.case_id] = o
+                    state[c.case_id] = "reused"
+                    report(o, True)
+                    continue
+            else:
+                reasons[c.case_id] = st.why
+        todo.append(c)
+
+    def on_result(k: int, payload: dict[str, Any]) -> None:
+        cid = todo[k].case_id
+        write_case_result(out, cid, manifest.study, fps[cid], payload)
+        o = CaseOutcome.from_json(payload)
+        outcomes[cid] = o
+        state[cid] = "computed"
+        report(o, False)
+
+    try:
+        run_cases(_worker_case, [c.case_id for c in todo], options.jobs, on_result,
+                  init=_worker_setup, init_args=(manifest,))
+    except StopRequested:
+        state = {k: ("interrupted" if v == "pending" else v) for k, v in state.items()}
+        write_shard_state(out, manifest, shard, "interrupted", state, started)
+        raise
+    path = write_shard_state(out, manifest, shard, "done", state, started)
+    order = [c.case_id for c in cases]
+    return ShardRun(shard=shard, outcomes={k: outcomes[k] for k in order}, computed=tuple(c.case_id for c in todo),
+                    reused=tuple(k for k in order if state[k] == "reused"),
+                    reasons={c.case_id: reasons.get(c.case_id, "") for c in todo}, state_file=path)
 
 
 def postprocess_sweep(
     sweep_dir: str | os.PathLike,
-    out_dir: str | os.PathLike | None = None,
-    title: str | None = None,
-    progress: Callable[[int, int, CaseOutcome], None] | None = None,
-    force: bool = False,
+    options: SweepOptions = SweepOptions(),
+    progress: Callable[[CaseProgress], None] | None = None,
+    render: Callable[["SweepAnalysis", Path], Any] | None = None,
 ) -> SweepAnalysis:
-    """Post-process every case of a sweep and write the tables.
+    """Post-process every case of a sweep (reusing unchanged per-case
+    results, see :func:`postprocess_shard`) and write the tables.
 
-    ``out_dir`` defaults to the sweep folder. ``progress(i, n, outcome)`` is
-    called after each case. Existing results (tables or report) are not
-    replaced unless ``force`` (UserError naming the file). Returns the
-    :class:`SweepAnalysis` with the outcomes and the paths (keys ``csv``,
-    ``json``, ``cases`` written; ``report`` where the report belongs).
-    Raises UserError for a folder that is not a sweep.
+    ``options.out_dir`` defaults to the sweep folder. Existing tables
+    (``results.csv``, ``results.json``, the report) are not replaced unless
+    ``options.force`` (UserError naming the file). ``render(analysis, path)``
+    writes the report while the tables' lock is held (so the three files
+    come from one run). Returns the :class:`SweepAnalysis` with the outcomes
+    and the paths (keys ``csv``, ``json``, ``cases`` written; ``report``
+    where the report belongs). Raises UserError for a folder that is not a
+    sweep.
     """
     manifest = read_manifest(sweep_dir)
-    out = Path(out_dir) if out_dir is not None else Path(manifest.root or sweep_dir)
-    existing = [p for p in (out / "results.csv", out / "results.json", out / REPORT_NAME) if p.exists()]
-    if existing and not force:
-        raise UserError(expected="no earlier results in the output folder", got=", ".join(str(p) for p in existing),
-                        fix="pass --force to replace them, or -o to write somewhere else")
-    outcomes = []
-    n = len(manifest.cases)
-    # SIGTERM and SIGINT alike: StopRequested at once; every file is written
-    # atomically, so a stop leaves earlier files whole and writes no tables.
-    with StopSignals(raise_at_once=True):
-        for i, case in enumerate(manifest.cases):
-            o = process_case(manifest, case)
-            outcomes.append(o)
-            if o.report is not None:
-                write_json_atomic(out / RESULTS_DIR / f"{case.case_id}.json",
-                                  json_ready({**o.report, "yplus": o.yplus, "flags": list(o.result.flags)}))
-            if progress is not None:
-                progress(i + 1, n, o)
+    out = _out_folder(manifest, sweep_dir, options)
+    if options.shard != ALL:
+        raise UserError(expected="all cases for the tables", got=f"shard {options.shard}", key="--shard",
+                        fix="process shards with postprocess_shard, then merge them")
+    _refuse_existing_tables(out, options.force)
+    if options.jobs < 1:
+        raise UserError(expected="a number of worker processes ≥ 1", got=options.jobs, key="-j",
+                        fix="use -j 1 or more")
+    run = _process_shard(manifest, out, options, progress)
+    outcomes = [run.outcomes[c.case_id] for c in manifest.cases]
+    return _assemble(manifest, out, outcomes, options, [], render)
+
+
+def merge_results(
+    sweep_dir: str | os.PathLike,
+    options: SweepOptions = SweepOptions(),
+    render: Callable[["SweepAnalysis", Path], Any] | None = None,
+) -> tuple[SweepAnalysis, MergeGap | None]:
+    """Assemble the tables from the stored per-case results (after the
+    shards ran): a case without a usable result (missing, stale, corrupt,
+    of another study) gets the ``results-missing`` flag and a note, the
+    shards holding such cases are named (:class:`MergeGap`), and everything
+    else is written. Computes nothing per case.
+
+    UserError for shard states of another study in the output folder (the
+    results folder of a different sweep) or existing tables without
+    ``options.force``."""
+    manifest = read_manifest(sweep_dir)
+    out = _out_folder(manifest, sweep_dir, options)
+    _refuse_existing_tables(out, options.force)
+    states, notes = read_shard_states(out)
+    foreign = [st for st in states if st.study != manifest.study]
+    if foreign:
+        raise UserError(expected=f"shard states of the study {manifest.study!r} (this sweep)",
+                        got=f"study {foreign[0].study!r}", file=str(foreign[0].path), key="study",
+                        fix="this output folder holds another sweep's post-processing: merge into another folder "
+                            "with -o, or remove its shards/ and results/")
+    digest = manifest_digest(manifest)
+    current = [st for st in states if st.manifest == digest]
+    for st in states:
+        if st.manifest != digest:
+            notes.append(f"shard state {st.path.name} is from an earlier manifest of this sweep: ignored")
+    n = options.expected_shards
+    if n is None:
+        counts = {st.shard.count for st in current}
+        n = counts.pop() if len(counts) == 1 else None
+    outcomes, gaps = [], {}
+    for c in manifest.cases:
+        st = read_case_result(out, c.case_id, manifest.study, fingerprint(manifest.case_dir(c), c))
+        o = None
+        if st.usable:
+            try:
+                o = CaseOutcome.from_json(st.payload)
+            except (KeyError, TypeError, ValueError) as exc:
+                st = replace(st, why=f"corrupt: {exc}")
+        if o is None:
+            gaps[c.case_id] = st.why
+            o = missing_outcome(manifest, c, st.why)
+        outcomes.append(o)
+    gap = None
+    if gaps:
+        pos = {c.case_id: k for k, c in enumerate(manifest.cases)}
+        shards = sorted({Shard.of_position(pos[cid], n) for cid in gaps} if n else set(),
+                        key=lambda sh: sh.index)
+        shards += [st.shard for st in current if st.state != "done" and st.shard not in shards
+                   and st.shard.count == n]
+        gap = MergeGap(cases=gaps, shards=tuple(shards))
+        notes.append(gap.message())
+    return _assemble(manifest, out, outcomes, options, notes, render), gap
+
+
+def _assemble(manifest: Manifest, out: Path, outcomes: list[CaseOutcome], options: SweepOptions,
+              extra_notes: list[str], render) -> SweepAnalysis:
+    """Write results.csv/json (and the report through ``render``) under the
+    output folder's lock; returns the analysis."""
     rows = [outcome_row(o) for o in outcomes]
     paths = {
         "csv": out / "results.csv",
@@ -355,8 +655,7 @@ def postprocess_sweep(
         "report": out / REPORT_NAME,
         "cases": out / RESULTS_DIR,
     }
-    write_text_atomic(paths["csv"], _csv(rows))
-    notes = []
+    notes = list(extra_notes)
     flags = sorted({f for o in outcomes for f in o.result.flags})
     for f in flags:
         k = sum(f in o.result.flags for o in outcomes)
@@ -365,16 +664,23 @@ def postprocess_sweep(
                   "yplus_share_in_range", "yplus_range")
     checks = [{k: r.get(k) for k in check_keys} for r in rows]
     analysis = analyse_results([o.result for o in outcomes],
-                               title=title or f"Sweep report — {manifest.study or Path(sweep_dir).name}",
+                               title=options.title or f"Sweep report — {manifest.study or out.name}",
                                study=manifest.study, notes=notes, checks=checks)
-    write_json_atomic(paths["json"], json_ready({
-        "study": manifest.study,
-        "axes": "wind axes of caseprep.contract.frames: C_L positive up (downforce = -C_L), C_D along the relative wind, "
-                "C_S along +y_W; balance = front share of downforce; ride heights m; angles deg",
-        "flags": {f: flag_meaning(f) for f in flags},
-        "cases": rows,
-        "ranking": [asdict(s) for s in analysis.ranking],
-        "mesh_study": list(analysis.mesh_study),
-        "aero_maps": list(analysis.aero_maps),
-    }))
-    return replace(analysis, outcomes=tuple(outcomes), paths=paths)
+    analysis = replace(analysis, outcomes=tuple(outcomes), paths=paths)
+    with OutputLock(out, timeout=options.wait):
+        _refuse_existing_tables(out, options.force)  # another writer may have finished meanwhile
+        write_text_atomic(paths["csv"], _csv(rows))
+        write_json_atomic(paths["json"], json_ready({
+            "study": manifest.study,
+            "axes": "wind axes of caseprep.contract.frames: C_L positive up (downforce = -C_L), C_D along the "
+                    "relative wind, C_S along +y_W; balance = front share of downforce; ride heights m; angles deg",
+            "flags": {f: flag_meaning(f) for f in flags},
+            "notes": notes,
+            "cases": rows,
+            "ranking": [asdict(s) for s in analysis.ranking],
+            "mesh_study": list(analysis.mesh_study),
+            "aero_maps": list(analysis.aero_maps),
+        }))
+        if render is not None:
+            render(analysis, paths["report"])
+    return analysis

@@ -149,7 +149,7 @@ def write_cmd(config: str, out_dir: str, force: bool, fidelity: str | None) -> N
     Existing identical cases are left alone and new ones added; a case that
     exists with different content is refused unless --force is given.
     """
-    from caseprep.config.schema import load_config, with_fidelity  # planning half: loaded only when needed
+    from caseprep.config.load import load_config, with_fidelity  # planning half: loaded only when needed
     from caseprep.planning.planner import plan
     from caseprep.casefiles.writer import write_sweep
 
@@ -186,7 +186,7 @@ def plan_cmd(config: str) -> None:
     ride heights mm, pitch and yaw deg, speed m/s, mesh level, minimum ground
     clearance mm and where along the body (% of length from the nose),
     blockage %, estimated cells). Writes nothing."""
-    from caseprep.config.schema import load_config
+    from caseprep.config.load import load_config
     from caseprep.planning.planner import TABLE_COLUMNS, plan_all, table_rows
     from caseprep.contract.errors import UserErrors
 

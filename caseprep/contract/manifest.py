@@ -43,8 +43,17 @@ CaseRecord::
       "patches": {"body": ["body"], "wheels": ["wheel_fl", …], "ground": "ground"},
       "fidelity": "smoke",
       "min_clearance": 0.021, "min_clearance_at": [x, y, z], # body frame
-      "estimated_cells": 180000
+      "estimated_cells": 180000,
+      …the planning facts of INFO_FIELDS (geometry sources, air state, warnings…),
+      "turbulence_model": "kOmegaSST",        # or "laminar"
+      "target_yplus": 50.0 | null,            # of the first prism layer; null without layers
+      "outputs": {"forces": "postProcessing/uf_forces/0/force.dat", …}  # where the run's outputs land
     }
+
+Every key a record carries is declared here: the fields of
+:class:`CaseRecord`, and the planning facts it keeps for the record in
+``info``, whose keys are those of :data:`INFO_FIELDS` (a record read from
+disk keeps no other key).
 
 All lengths in m, speeds in m/s, density kg/m³, kinematic viscosity m²/s,
 angles in degrees (keys ending ``_deg``).
@@ -88,9 +97,34 @@ class Reference:
         return 0.5 * self.rho * self.speed**2
 
 
+#: The planning facts a case record keeps for the record (``CaseRecord.info``),
+#: with what they mean. postproc reads none of them.
+INFO_FIELDS: dict[str, str] = {
+    "geometry_source": "the variant's geometry file as configured (path)",
+    "geometry_length_unit": "length unit of that file (m, mm, in)",
+    "geometry_scale_to_m": "its scale to metres",
+    "wheel_sources": "wheel name → its geometry file (path)",
+    "geometry_sources": "shared file name under geometry/ → source path",
+    "geometry_scales": "shared file name under geometry/ → scale to metres",
+    "wheel_length_unit": "length unit of the wheel files",
+    "air": "air state: temperature (K), pressure (Pa), dynamic viscosity mu (Pa s)",
+    "frontal_area_wind": "body shadow area normal to the relative wind (m², convex-hull bound)",
+    "min_clearance_x_percent": "where the smallest ground clearance is, % of the body length from the nose",
+    "warnings": "planning warnings of the case",
+    "empty_section": "true for an empty test section (no body)",
+    "ground_leading_edge": "empty test section: distance of the ground's leading edge from the inlet (m)",
+    "ground_first_cell": "empty test section: first background cell height on the ground (m), or null",
+}
+
+
 @dataclass(frozen=True)
 class CaseRecord:
-    """One case of the sweep as the manifest describes it."""
+    """One case of the sweep as the manifest describes it (schema above).
+
+    ``turbulence_model`` and ``target_yplus`` (of the first prism layer, None
+    without layers) are what the post-processing judges y+ by; ``outputs``
+    where the run's outputs land, relative to the case folder; ``info`` the
+    planning facts of :data:`INFO_FIELDS`."""
 
     case_id: str
     folder: str
@@ -107,7 +141,10 @@ class CaseRecord:
     min_clearance: float | None = None
     min_clearance_at: tuple[float, float, float] | None = None
     estimated_cells: int | None = None
-    extra: dict[str, Any] = field(default_factory=dict)
+    turbulence_model: str | None = None
+    target_yplus: float | None = None
+    outputs: dict[str, str] = field(default_factory=dict)
+    info: dict[str, Any] = field(default_factory=dict)
 
     def to_dict(self) -> dict[str, Any]:
         r = self.reference
@@ -140,16 +177,12 @@ class CaseRecord:
             "min_clearance_at": list(self.min_clearance_at) if self.min_clearance_at is not None else None,
             "estimated_cells": self.estimated_cells,
         }
-        d.update(self.extra)
+        d.update((k, v) for k, v in self.info.items() if k in INFO_FIELDS)
+        d.update(turbulence_model=self.turbulence_model, target_yplus=self.target_yplus, outputs=dict(self.outputs))
         return d
 
     @classmethod
     def from_dict(cls, d: dict[str, Any], source: str = MANIFEST_NAME) -> "CaseRecord":
-        known = {
-            "case_id", "folder", "variant", "params", "yaw_mode", "ground", "mesh_frame", "frames",
-            "wind_direction_body", "reference", "patches", "fidelity", "min_clearance",
-            "min_clearance_at", "estimated_cells",
-        }
         cid = d.get("case_id", "?")
         try:
             r = d["reference"]
@@ -182,7 +215,10 @@ class CaseRecord:
                 min_clearance=d.get("min_clearance"),
                 min_clearance_at=tuple(d["min_clearance_at"]) if d.get("min_clearance_at") is not None else None,
                 estimated_cells=d.get("estimated_cells"),
-                extra={k: v for k, v in d.items() if k not in known},
+                turbulence_model=None if d.get("turbulence_model") is None else str(d["turbulence_model"]),
+                target_yplus=None if d.get("target_yplus") is None else float(d["target_yplus"]),
+                outputs={str(k): str(v) for k, v in (d.get("outputs") or {}).items()},
+                info={k: v for k, v in d.items() if k in INFO_FIELDS},
             )
         except KeyError as exc:
             raise UserError(

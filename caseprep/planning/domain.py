@@ -149,100 +149,136 @@ class DomainPlan:
     problems: tuple[tuple[str, str], ...]  # (what is wrong, how to fix it)
 
 
-def plan_domain(*, extent_points: np.ndarray, placement: Placement, ground: str, body_length: float,
-                body_area: float, frontal_area: float, min_clearance: float | None, ride_heights: tuple[float, float] | None,
-                settings: MeshSettings, mesh_level: int, air_speed: float, nu: float,
-                upstream: float = 3.0, downstream: float = 6.0, width: float | None = None, height: float | None = None,
-                target_blockage: float = 0.01, max_blockage: float = 0.05,
-                extent_range: Callable[[np.ndarray], tuple[np.ndarray, np.ndarray]] | None = None) -> DomainPlan:
-    """Size the domain and the mesh of one case.
-
-    ``extent_points`` (N,3): body (and wheel) points in the body frame, m
-    (hull vertices suffice); ``placement`` the body → ground transform;
-    ``ground`` "moving" | "stationary" | "none"; ``body_length`` L (m);
-    ``body_area`` surface area (m²); ``frontal_area`` shadow normal to the
+@dataclass(frozen=True)
+class BodyExtent:
+    """What sizing needs of the placed body: ``points`` (N,3) body (and
+    wheel) points in the body frame, m (hull vertices suffice); ``length`` L
+    (m); ``area`` surface area (m²); ``frontal_area`` shadow normal to the
     wind (m²); ``min_clearance`` smallest ground clearance (m, None without a
-    ground); ``ride_heights`` (front, rear) m; ``air_speed`` m/s; ``nu``
-    m²/s; ``upstream``/``downstream`` in body lengths; ``width``/``height``
-    (m) fix the section instead of sizing it for ``target_blockage``;
-    ``extent_range(axes)`` (optional) returns the (min, max) of
-    ``extent_points @ axes.T`` — a caller planning many cases passes a cached
-    version (the range depends on the rotation only).
-    """
-    warnings: list[str] = []
-    problems: list[tuple[str, str]] = []
-    axes = wind_axes(placement)
-    g0 = placement.ground_point_body if ground != "none" else np.zeros(3)
-    if extent_range is None:
-        q = np.asarray(extent_points, float) @ axes.T  # coordinates along e1, e2, e3
+    ground); ``ride_heights`` (front, rear) m or None; ``extent_range(axes)``
+    (optional) the (min, max) of ``points @ axes.T`` — a caller planning many
+    cases passes a cached version (the range depends on the rotation only)."""
+
+    points: np.ndarray
+    length: float
+    area: float
+    frontal_area: float
+    min_clearance: float | None = None
+    ride_heights: tuple[float, float] | None = None
+    extent_range: Callable[[np.ndarray], tuple[np.ndarray, np.ndarray]] | None = None
+
+
+@dataclass(frozen=True)
+class DomainSizing:
+    """The config's domain table (defaults in :mod:`caseprep.config.keys`):
+    ``upstream``/``downstream`` in body lengths; ``width``/``height`` (m) fix the section instead of sizing it for
+    ``target_blockage``; cases above ``max_blockage`` are refused."""
+
+    upstream: float
+    downstream: float
+    width: float | None
+    height: float | None
+    target_blockage: float
+    max_blockage: float
+
+
+def _wind_extent(body: BodyExtent, axes: np.ndarray, g0: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """(min, max) of the body along the wind axes e1, e2, e3, measured from the ground point g0 (m)."""
+    if body.extent_range is None:
+        q = np.asarray(body.points, float) @ axes.T  # coordinates along e1, e2, e3
         lo, hi = q.min(axis=0), q.max(axis=0)
     else:
-        lo, hi = extent_range(axes)
-    off = g0 @ axes.T  # measured from the ground point
-    lo, hi = lo - off, hi - off
-    L = body_length
+        lo, hi = body.extent_range(axes)
+    off = g0 @ axes.T
+    return lo - off, hi - off
+
+
+@dataclass(frozen=True)
+class _Section:
+    """The background box: origin and lengths along the wind axes (m, from
+    the ground point), cells per direction, and the refused-case problems
+    and warnings of its size."""
+
+    origin: np.ndarray
+    lens: np.ndarray
+    n: tuple[int, int, int]
+    domain: Domain
+    problems: tuple[tuple[str, str], ...]
+    warnings: tuple[str, ...]
+
+
+def _section(body: BodyExtent, lo, hi, axes, g0, ground: str, sz: DomainSizing, d0: float) -> _Section:
+    """Size the background box for blockage (or as fixed by the config) in
+    whole cubic cells of ``d0`` (m) and check the blockage."""
+    L = body.length
     bw, bh = hi[1] - lo[1], hi[2] - lo[2]
-    d0 = base_cell_size(settings, L, mesh_level)
-    A_box = frontal_area / target_blockage
+    A_box = body.frontal_area / sz.target_blockage
     if ground != "none":
-        H = height if height is not None else max(math.sqrt(A_box / 2.0), hi[2] + 2.0 * bh)
-        W = width if width is not None else max(2.0 * H, bw + 4.0 * bh)
-        z0 = 0.0
+        H = sz.height if sz.height is not None else max(math.sqrt(A_box / 2.0), hi[2] + 2.0 * bh)
+        W = sz.width if sz.width is not None else max(2.0 * H, bw + 4.0 * bh)
     else:
         S = math.sqrt(A_box)
-        H = height if height is not None else max(S, bh + 4.0 * bh)
-        W = width if width is not None else max(S, bw + 4.0 * bw)
-        z0 = 0.5 * (lo[2] + hi[2]) - 0.5 * H
-    y0 = 0.5 * (lo[1] + hi[1]) - 0.5 * W
-    x0 = lo[0] - upstream * L
-    Lx = (hi[0] - lo[0]) + (upstream + downstream) * L
+        H = sz.height if sz.height is not None else max(S, bh + 4.0 * bh)
+        W = sz.width if sz.width is not None else max(S, bw + 4.0 * bw)
+    x0 = lo[0] - sz.upstream * L
+    Lx = (hi[0] - lo[0]) + (sz.upstream + sz.downstream) * L
     n = [max(1, math.ceil(Lx / d0 - 1e-9)), max(1, math.ceil(W / d0 - 1e-9)), max(1, math.ceil(H / d0 - 1e-9))]
-    if width is None:
+    if sz.width is None:
         n[1] += n[1] % 2  # keep the body centred on a cell face line
     # cubic background cells: lengths rounded up to whole cells (fixed sizes kept)
-    lens = np.array([n[0] * d0, n[1] * d0 if width is None else W, n[2] * d0 if height is None else H])
+    lens = np.array([n[0] * d0, n[1] * d0 if sz.width is None else W, n[2] * d0 if sz.height is None else H])
     y0 = 0.5 * (lo[1] + hi[1]) - 0.5 * lens[1]
-    if ground == "none":
-        z0 = 0.5 * (lo[2] + hi[2]) - 0.5 * lens[2]
-    if width is not None and (lo[1] < y0 or hi[1] > y0 + lens[1]):
+    z0 = 0.0 if ground != "none" else 0.5 * (lo[2] + hi[2]) - 0.5 * lens[2]
+    problems, warnings = [], []
+    if sz.width is not None and (lo[1] < y0 or hi[1] > y0 + lens[1]):
         problems.append((f"the body ({bw:.4g} m wide across the wind) does not fit in domain.width = {W} m",
                          "enlarge domain.width or leave it out (automatic size)"))
-    if height is not None and hi[2] > z0 + lens[2]:
+    if sz.height is not None and hi[2] > z0 + lens[2]:
         problems.append((f"the body (top at {hi[2]:.4g} m) does not fit under domain.height = {H} m",
                          "enlarge domain.height or leave it out (automatic size)"))
     origin = np.array([x0, y0, z0])
-    box = _box("domain", g0, axes, origin, origin + lens)
-    blockage = frontal_area / float(lens[1] * lens[2])
-    if blockage > max_blockage:
-        problems.append((f"blockage {100 * blockage:.2f} % is above the limit of {100 * max_blockage:.2f} % (frontal area "
-                         f"{frontal_area:.4g} m², inlet {lens[1]:.4g} m × {lens[2]:.4g} m)",
+    blockage = body.frontal_area / float(lens[1] * lens[2])
+    if blockage > sz.max_blockage:
+        problems.append((f"blockage {100 * blockage:.2f} % is above the limit of {100 * sz.max_blockage:.2f} % (frontal "
+                         f"area {body.frontal_area:.4g} m², inlet {lens[1]:.4g} m × {lens[2]:.4g} m)",
                          "enlarge domain.width/height, or raise domain.max_blockage to accept the blockage knowingly"))
     elif blockage > WARN_BLOCKAGE:
         warnings.append(f"blockage {100 * blockage:.2f} % is above 1 % (common-practice limit); results carry a blockage effect")
-    domain = Domain(box=box, cells=(int(n[0]), int(n[1]), int(n[2])), ground=ground, blockage=float(blockage))
+    domain = Domain(box=_box("domain", g0, axes, origin, origin + lens), cells=(int(n[0]), int(n[1]), int(n[2])),
+                    ground=ground, blockage=float(blockage))
+    return _Section(origin, lens, (int(n[0]), int(n[1]), int(n[2])), domain, tuple(problems), tuple(warnings))
 
+
+def _regions(body: BodyExtent, lo, hi, axes, g0, ground: str, z0: float, settings: MeshSettings,
+             d0: float) -> tuple[list[RefinementRegion], int | None, list[tuple[str, str]]]:
+    """Refinement regions (wake; underbody gap and rear with a ground, else a
+    near-body box), the gap level and the problem of a gap too fine for the
+    preset's finest level."""
+    L = body.length
+    bw, bh = hi[1] - lo[1], hi[2] - lo[2]
     smin, smax = settings.surface_levels
     regions: list[RefinementRegion] = []
+    problems: list[tuple[str, str]] = []
     gap_level = None
     margin = 0.02 * L
-    wake = settings.preset.wake_length
     wl = settings.preset.wake_level
-    regions.append(RefinementRegion(_box("wake", g0, axes,
-                                         np.array([lo[0] - 0.1 * L, lo[1] - 0.2 * bw, max(z0, lo[2] - 0.3 * bh) if ground == "none" else -margin]),
-                                         np.array([hi[0] + wake * L, hi[1] + 0.2 * bw, hi[2] + 0.3 * bh])), wl))
-    if ground != "none" and min_clearance is not None:
-        if min_clearance > 0:
-            need = max(smax, math.ceil(math.log2(settings.gap_cells * d0 / min_clearance) - 1e-12))
+    regions.append(RefinementRegion(_box(
+        "wake", g0, axes, np.array([lo[0] - 0.1 * L, lo[1] - 0.2 * bw, max(z0, lo[2] - 0.3 * bh) if ground == "none" else -margin]),
+        np.array([hi[0] + settings.preset.wake_length * L, hi[1] + 0.2 * bw, hi[2] + 0.3 * bh])), wl))
+    clearance = body.min_clearance
+    if ground != "none" and clearance is not None:
+        if clearance > 0:
+            need = max(smax, math.ceil(math.log2(settings.gap_cells * d0 / clearance) - 1e-12))
             gap_level = int(need)
             if need > settings.max_level:
                 finest = d0 / 2**settings.max_level
                 problems.append((
-                    f"the smallest ground clearance {min_clearance * 1e3:.3f} mm needs {settings.gap_cells:g} cells of at most "
-                    f"{min_clearance / settings.gap_cells * 1e3:.3f} mm; the finest level allowed (level {settings.max_level}, "
-                    f"{finest * 1e3:.3f} mm cells) gives {min_clearance / finest:.2f} cells",
+                    f"the smallest ground clearance {clearance * 1e3:.3f} mm needs {settings.gap_cells:g} cells of at most "
+                    f"{clearance / settings.gap_cells * 1e3:.3f} mm; the finest level allowed (level {settings.max_level}, "
+                    f"{finest * 1e3:.3f} mm cells) gives {clearance / finest:.2f} cells",
                     "raise the ride height, use a finer fidelity or mesh level, or raise mesh.max_level"))
                 gap_level = settings.max_level
-            top = 1.5 * max(max(ride_heights) if ride_heights else 0.0, min_clearance)
+            top = 1.5 * max(max(body.ride_heights) if body.ride_heights else 0.0, clearance)
             regions.append(RefinementRegion(_box("underbody", g0, axes, np.array([lo[0] - margin, lo[1] - margin, -margin]),
                                                  np.array([hi[0] + margin, hi[1] + margin, top])), gap_level))
             regions.append(RefinementRegion(_box("rear", g0, axes, np.array([hi[0] - 0.25 * L, lo[1] - margin, -margin]),
@@ -252,33 +288,59 @@ def plan_domain(*, extent_points: np.ndarray, placement: Placement, ground: str,
         regions.append(RefinementRegion(_box("near", g0, axes, np.array([lo[0] - 0.2 * L, lo[1] - 0.2 * bw, lo[2] - 0.2 * bh]),
                                              np.array([hi[0] + 0.5 * L, hi[1] + 0.2 * bw, hi[2] + 0.2 * bh])), max(wl, smin)))
     regions.sort(key=lambda r: r.level)
+    return regions, gap_level, problems
 
-    layers = None
-    if settings.layers > 0:
-        h1 = first_cell_height(settings.target_yplus, air_speed, L, nu)
-        layers = Layers(n_layers=settings.layers, first_cell_height=h1, expansion=settings.layer_expansion,
-                        target_yplus=settings.target_yplus)
-        T = layer_stack_thickness(h1, settings.layers, settings.layer_expansion)
-        ds = d0 / 2**smax
-        if T > ds:
-            warnings.append(f"the prism-layer stack ({T * 1e3:.3f} mm) is thicker than the finest surface cell "
-                            f"({ds * 1e3:.3f} mm); the mesher may collapse layers (raise target_yplus or layers)")
-        if min_clearance is not None and ground != "none" and T > 0.5 * min_clearance:
-            warnings.append(f"the prism-layer stack ({T * 1e3:.3f} mm) fills more than half of the smallest ground clearance "
-                            f"({min_clearance * 1e3:.3f} mm)")
 
+def _layers(body: BodyExtent, ground: str, settings: MeshSettings, air_speed: float, nu: float,
+            d0: float) -> tuple[Layers | None, list[str]]:
+    """The prism layers for the target y+ (None without layers) and warnings
+    when the stack is thicker than the finest surface cell or half the gap."""
+    if settings.layers <= 0:
+        return None, []
+    warnings = []
+    h1 = first_cell_height(settings.target_yplus, air_speed, body.length, nu)
+    layers = Layers(n_layers=settings.layers, first_cell_height=h1, expansion=settings.layer_expansion,
+                    target_yplus=settings.target_yplus)
+    T = layer_stack_thickness(h1, settings.layers, settings.layer_expansion)
+    ds = d0 / 2**settings.surface_levels[1]
+    if T > ds:
+        warnings.append(f"the prism-layer stack ({T * 1e3:.3f} mm) is thicker than the finest surface cell "
+                        f"({ds * 1e3:.3f} mm); the mesher may collapse layers (raise target_yplus or layers)")
+    if body.min_clearance is not None and ground != "none" and T > 0.5 * body.min_clearance:
+        warnings.append(f"the prism-layer stack ({T * 1e3:.3f} mm) fills more than half of the smallest ground clearance "
+                        f"({body.min_clearance * 1e3:.3f} mm)")
+    return layers, warnings
+
+
+def plan_domain(body: BodyExtent, placement: Placement, ground: str, sizing: DomainSizing, settings: MeshSettings,
+                mesh_level: int, air_speed: float, nu: float) -> DomainPlan:
+    """Size the domain and the mesh of one case: the background box
+    (:func:`_section`), the refinement regions (:func:`_regions`), the
+    prism layers (:func:`_layers`) and the point that marks the fluid.
+
+    ``placement`` the body → ground transform; ``ground`` "moving" |
+    "stationary" | "none"; ``mesh_level`` of the sweep point; ``air_speed``
+    m/s and ``nu`` m²/s for the first-cell height.
+    """
+    axes = wind_axes(placement)
+    g0 = placement.ground_point_body if ground != "none" else np.zeros(3)
+    lo, hi = _wind_extent(body, axes, g0)
+    d0 = base_cell_size(settings, body.length, mesh_level)
+    sec = _section(body, lo, hi, axes, g0, ground, sizing, d0)
+    regions, gap_level, gap_problems = _regions(body, lo, hi, axes, g0, ground, sec.origin[2], settings, d0)
+    layers, layer_warnings = _layers(body, ground, settings, air_speed, nu, d0)
     # location in mesh: upstream of the body, at a fraction of a cell no refinement level puts on a face
     frac = 0.4371
-    k1 = max(0, min(n[0] - 1, int(0.3 * upstream * L / d0)))
-    k2 = n[1] // 2
-    k3 = n[2] // 2
-    c = np.array([(k1 + frac) * d0, (k2 + frac) * lens[1] / n[1], (k3 + frac) * lens[2] / n[2]])
-    lim = g0 + (origin + c) @ axes
+    n = sec.n
+    k1 = max(0, min(n[0] - 1, int(0.3 * sizing.upstream * body.length / d0)))
+    c = np.array([(k1 + frac) * d0, (n[1] // 2 + frac) * sec.lens[1] / n[1], (n[2] // 2 + frac) * sec.lens[2] / n[2]])
+    lim = g0 + (sec.origin + c) @ axes
+    smin, smax = settings.surface_levels
     mesh = MeshSpec(base_cell=float(d0), surface_levels=(int(smin), int(smax)), feature_level=int(settings.feature_level),
                     regions=tuple(regions), layers=layers, location_in_mesh=tuple(float(v) for v in lim))
-    est = estimate_cells(domain, mesh, body_area)
-    return DomainPlan(domain=domain, mesh=mesh, base_cell=float(d0), gap_level=gap_level, estimated_cells=est,
-                      warnings=tuple(warnings), problems=tuple(problems))
+    return DomainPlan(domain=sec.domain, mesh=mesh, base_cell=float(d0), gap_level=gap_level,
+                      estimated_cells=estimate_cells(sec.domain, mesh, body.area),
+                      warnings=sec.warnings + tuple(layer_warnings), problems=sec.problems + tuple(gap_problems))
 
 
 def ground_grading(height: float, first_cell: float, top_cell: float) -> tuple[int, float, float]:

@@ -351,12 +351,34 @@ def run_sweep(
         raise UserError(expected="a number of parallel cases ≥ 1", got=jobs, key="jobs", fix="use -j 1 or more")
     if ranks is not None and ranks < 1:
         raise UserError(expected="a number of MPI ranks ≥ 1", got=ranks, key="ranks", fix="use --ranks 1 or more")
+    stages = _checked_stages(stages)
+    selected = _selected_cases(root, manifest, only)
+    emit = progress or (lambda ev: None)
+    plans = [_plan(manifest.case_dir(c), stages, force) for c in selected]
+    n_pending = sum(1 for to_run, _plan_, why in plans if to_run and not why)
+    layout = choose_layout(n_pending, usable_cores(), jobs, ranks)
+    emit(Progress("", 0, len(selected), "layout", message=layout.reason))
+    records: dict[str, CaseRunRecord] = {}
+    pending = _pending_jobs(manifest, selected, stages, force, layout.ranks, options, records, emit)
+    run = _Run(root, manifest, len(selected), layout.ranks, options, emit, _environment(layout.ranks),
+               socket.gethostname(), os.getpid(), records)
+    with StopSignals() as stop:
+        run.loop(pending, layout.jobs, stop)
+    return [records[c.case_id] for c in selected]
+
+
+def _checked_stages(stages: Sequence[str] | None) -> list[str]:
+    """The requested stages in run order (all when none are given)."""
     stages = list(STAGES) if not stages else list(stages)
     for s in stages:
         if s not in STAGES:
             raise UserError(expected=f"a stage among {', '.join(STAGES)}", got=s, key="stage",
                             fix="pick one of those." + did_you_mean(s, STAGES))
-    stages = [s for s in STAGES if s in stages]
+    return [s for s in STAGES if s in stages]
+
+
+def _selected_cases(root: Path, manifest, only: Sequence[str] | None) -> list[CaseRecord]:
+    """The manifest's cases to run (``only`` those ids), each with an executable run.sh."""
     ids = [c.case_id for c in manifest.cases]
     if only:
         unknown = [i for i in only if i not in ids]
@@ -376,19 +398,32 @@ def run_sweep(
         raise UserError(expected="an executable run.sh in every case folder", got=str(manifest.case_dir(bad[0]) / "run.sh"),
                         key=f"cases[{bad[0].case_id}]",
                         fix=f"{len(bad)} case folder(s) lack it; rewrite the sweep with `caseprep write --force`")
+    return selected
 
-    emit = progress or (lambda ev: None)
-    total = len(selected)
-    planned = [(i, c, manifest.case_dir(c), *_plan(manifest.case_dir(c), stages, force)) for i, c in enumerate(selected, 1)]
-    layout = choose_layout(sum(1 for *_, to_run, _p, why in planned if to_run and not why), usable_cores(), jobs, ranks)
-    jobs, ranks = layout.jobs, layout.ranks
-    emit(Progress("", 0, total, "layout", message=layout.reason))
-    env = _case_env(ranks)
 
-    records: dict[str, CaseRunRecord] = {}
+def _environment(ranks: int) -> dict[str, str]:
+    """The environment of run.sh: ``UF_RANKS``, the solver's install folder
+    when unset, and what the MPI launcher needs to run as root."""
+    env = dict(os.environ)
+    env["UF_RANKS"] = str(ranks)
+    if "WM_PROJECT_DIR" not in env and Path("/usr/share/openfoam/etc").is_dir():
+        env["WM_PROJECT_DIR"] = "/usr/share/openfoam"
+    if hasattr(os, "geteuid") and os.geteuid() == 0:  # the MPI launcher refuses root without these
+        env.setdefault("OMPI_ALLOW_RUN_AS_ROOT", "1")
+        env.setdefault("OMPI_ALLOW_RUN_AS_ROOT_CONFIRM", "1")
+    return env
+
+
+def _pending_jobs(manifest, selected: list[CaseRecord], stages: list[str], force: bool, ranks: int,
+                  options: RunOptions, records: dict[str, CaseRunRecord], emit) -> list[_Job]:
+    """The jobs to run; cases that cannot start (``not-ready``) or have
+    nothing to do (``skipped``) are recorded in ``records`` at once."""
     pending: list[_Job] = []
-    for i, c, cdir, to_run, plan, why in planned:
+    total = len(selected)
+    for i, c in enumerate(selected, 1):
+        cdir = manifest.case_dir(c)
         prev = read_case_record(cdir)
+        to_run, plan, why = _plan(cdir, stages, force)
         if why:
             rec = _finish_record(_Job(i, c, cdir, [], plan, prev), Status.NOT_READY, why, ranks, options)
             records[c.case_id] = rec
@@ -401,25 +436,7 @@ def run_sweep(
             emit(Progress(c.case_id, i, total, "skipped", message="done before; use --force to run again", record=rec))
         else:
             pending.append(_Job(i, c, cdir, to_run, plan, prev))
-
-    host, pid = socket.gethostname(), os.getpid()
-    run = _Run(root, manifest, total, ranks, options, emit, env, host, pid, records)
-    with StopSignals() as stop:
-        run.loop(pending, jobs, stop)
-    return [records[c.case_id] for c in selected]
-
-
-def _case_env(ranks: int) -> dict[str, str]:
-    """The environment of the cases' run.sh: ``UF_RANKS``, the solver's
-    installation, and what the MPI launcher needs to run as root."""
-    env = dict(os.environ)
-    env["UF_RANKS"] = str(ranks)
-    if "WM_PROJECT_DIR" not in env and Path("/usr/share/openfoam/etc").is_dir():
-        env["WM_PROJECT_DIR"] = "/usr/share/openfoam"
-    if hasattr(os, "geteuid") and os.geteuid() == 0:  # the MPI launcher refuses root without these
-        env.setdefault("OMPI_ALLOW_RUN_AS_ROOT", "1")
-        env.setdefault("OMPI_ALLOW_RUN_AS_ROOT_CONFIRM", "1")
-    return env
+    return pending
 
 
 class _Run:

@@ -18,11 +18,22 @@ from dataclasses import dataclass
 
 import numpy as np
 
+#: Intended y+ range of the first cell per wall treatment (common practice, no
+#: source): wall functions want it in the log layer, a resolved wall inside the
+#: viscous sublayer (relaxed: its edge).
 YPLUS_RANGES: dict[str, tuple[float, float]] = {
     "wall-functions": (30.0, 300.0),
     "resolved": (0.0, 1.0),
     "resolved-relaxed": (0.0, 5.0),
 }
+#: The wall treatment each turbulence model of the case files uses.
+MODEL_TREATMENT: dict[str, str] = {"kOmegaSST": "wall-functions", "laminar": "resolved-relaxed"}
+
+
+def yplus_range(turbulence_model: str | None) -> tuple[float, float]:
+    """The intended y+ range of a case's turbulence model (that of
+    ``kOmegaSST`` for an unknown or missing model)."""
+    return YPLUS_RANGES[MODEL_TREATMENT.get(str(turbulence_model), MODEL_TREATMENT["kOmegaSST"])]
 ABSURD_YPLUS = 1.0e4
 
 

@@ -50,10 +50,10 @@ from postproc.io.exports import latest_export
 from postproc.io.surfaces import read_surface
 from postproc.kernels import wallchecks as wc
 from postproc.kernels.aeromap import fit_response_surface, map_grid
-from postproc.kernels.forces import face_geometry
+from postproc.kernels.polygons import face_geometry
 from postproc.kernels.meshstudy import grid_convergence
 from postproc.kernels.ranking import CaseResult, VariantScore, rank_variants
-from postproc.pipelines.case_forces import forces_report
+from postproc.pipelines.case_forces import ForcesReport, forces_report
 from postproc.pipelines.caseresults import (RESULTS_DIR, Fingerprint, fingerprint, read_case_result,
                                             write_case_result)
 from postproc.pipelines.shards import (ALL, OutputLock, Shard, manifest_digest, read_shard_states, run_cases,
@@ -61,8 +61,10 @@ from postproc.pipelines.shards import (ALL, OutputLock, Shard, manifest_digest, 
 
 @dataclass(frozen=True)
 class CaseOutcome:
-    """One case of the sweep after post-processing: the ranking row, the run
-    status, the flags' explanations and any note."""
+    """One row of the sweep's results: the case's ranking row (``result``),
+    its run status, cell and iteration counts, the monitor's verdict, the
+    prism-layer coverage, notes, the full forces report and the y+
+    statistics per patch. :meth:`row` is its flat form in the tables."""
 
     result: CaseResult
     status: str
@@ -71,8 +73,25 @@ class CaseOutcome:
     convergence: str | None
     layers: str | None = None  # e.g. "body 85 %, strake_left 38 %" (share of the target layer thickness)
     notes: tuple[str, ...] = ()
-    report: dict[str, Any] | None = field(default=None, repr=False)
+    report: ForcesReport | None = field(default=None, repr=False)
     yplus: dict[str, dict] = field(default_factory=dict)
+    #: the forces report's JSON form when the outcome was read back from a
+    #: stored result (``report`` is then None)
+    stored_forces: dict[str, Any] | None = field(default=None, repr=False)
+
+    def row(self) -> dict[str, Any]:
+        """The case as one flat row of the results tables (CSV and JSON)."""
+        r = asdict(self.result)
+        r["flags"] = " ".join(self.result.flags)
+        r["downforce_coefficient"] = -self.result.cl if math.isfinite(self.result.cl) else None
+        r.update(status=self.status, cells=self.cells, iterations=self.iterations, convergence=self.convergence,
+                 layers=self.layers)
+        if self.yplus:
+            a = self.yplus[ALL_WALLS]  # all body and wheel faces together
+            r.update(yplus_median=a["median"], yplus_p95=a["p95"], yplus_max=a["max"],
+                     yplus_share_in_range=a["share_in_target"], yplus_range="{:g}-{:g}".format(*a["target"]))
+        r["notes"] = "; ".join(self.notes)
+        return r
 
     def to_json(self) -> dict[str, Any]:
         """The JSON form stored as the case's result (``results/<case>.json``):
@@ -80,7 +99,7 @@ class CaseOutcome:
         (``forces``, None without an export), y+ per patch and the flags."""
         return json_ready({"result": asdict(self.result), "status": self.status, "cells": self.cells,
                            "iterations": self.iterations, "convergence": self.convergence, "layers": self.layers,
-                           "notes": list(self.notes), "forces": self.report, "yplus": self.yplus,
+                           "notes": list(self.notes), "forces": self.forces_dict(), "yplus": self.yplus,
                            "flags": list(self.result.flags)})
 
     @classmethod
@@ -99,13 +118,13 @@ class CaseOutcome:
             raise TypeError("per-case result of the wrong shape")
         return cls(result=result, status=str(d["status"]), cells=d.get("cells"), iterations=d.get("iterations"),
                    convergence=d.get("convergence"), layers=d.get("layers"), notes=tuple(str(n) for n in notes),
-                   report=forces, yplus=yplus)
+                   stored_forces=forces, yplus=yplus)
+
+    def forces_dict(self) -> dict[str, Any] | None:
+        """The forces report's JSON form (None without one)."""
+        return self.report.to_dict() if self.report is not None else self.stored_forces
 
 
-#: Intended y+ ranges of the wall treatments (common practice, no source):
-#: wall functions want the first cell in the log layer, a resolved laminar or
-#: low-Re wall wants it inside the viscous sublayer.
-YPLUS_RANGES = {"kOmegaSST": (30.0, 300.0), "laminar": (0.0, 5.0)}
 ALL_WALLS = "all body and wheel patches"
 
 
@@ -123,7 +142,7 @@ def wall_yplus(case_dir: Path, case: CaseRecord, surface=None) -> tuple[dict[str
     """y+ statistics of the body and wheel patches from the case's VTK export
     (the solver's ``yPlus`` face field): per patch min/median/p95/max and the
     area share inside the wall treatment's intended range
-    (:data:`YPLUS_RANGES`, chosen from the manifest's turbulence model).
+    (:func:`postproc.kernels.wallchecks.yplus_range` of the manifest's turbulence model).
     ``surface``: those patches already read (with ``yPlus``); None: read
     them here. Returns (stats by patch, None) or ({}, why not)."""
     names = wall_patches(case)
@@ -134,8 +153,7 @@ def wall_yplus(case_dir: Path, case: CaseRecord, surface=None) -> tuple[dict[str
         yp = surf.array("yPlus")
     except UserError as exc:
         return {}, f"y+ not assessed: {exc}".splitlines()[0]
-    model = str(case.extra.get("turbulence_model", "kOmegaSST"))
-    target = YPLUS_RANGES.get(model, YPLUS_RANGES["kOmegaSST"])
+    target = wc.yplus_range(case.turbulence_model)
     S, _ = face_geometry(surf.points, (surf.offsets, surf.connectivity))
 
     areas = np.linalg.norm(S, axis=1)
@@ -209,25 +227,24 @@ def process_case(manifest: Manifest, case: CaseRecord) -> CaseOutcome:
     cl = cd = cs = nan
     clf = clr = bal = margin = None
     if report is not None:
-        c = report.get("coefficients")
-        if c:
-            cl, cd, cs = float(c["lift"]), float(c["drag"]), float(c["side"])
+        c = report.coefficients
+        if c is not None:
+            cl, cd, cs = float(c.lift), float(c.drag), float(c.side)
         else:
             flags.append(Flag.FORCES_FAILED)
             notes.append("no reference values in the manifest: coefficients not computed")
-        b = report.get("balance")
-        if b:
-            clf, clr = b.get("c_lift_front"), b.get("c_lift_rear")
-            bal, margin = b.get("balance_front"), b.get("stability_margin")
+        b = report.balance
+        if b is not None:
+            clf, clr = b.c_lift_front, b.c_lift_rear
+            bal, margin = b.balance_front, b.stability_margin
             if abs(base["yaw_deg"]) < 1e-9 and margin is not None:
                 # at zero yaw the side force is numerical noise about zero and its
                 # centre of pressure is meaningless: report no margin
                 margin = None
                 notes.append("zero yaw: no side force to place, stability margin not reported")
-            notes.extend(b.get("notes", []))
-        conv = report.get("convergence")
-        if conv is not None:
-            verdict = conv["verdict"]
+            notes.extend(b.notes)
+        if report.convergence is not None:
+            verdict = report.convergence.verdict
             if verdict == "diverging":
                 flags.append(Flag.FORCES_DRIFTING)
         else:
@@ -246,20 +263,6 @@ def process_case(manifest: Manifest, case: CaseRecord) -> CaseOutcome:
     return CaseOutcome(result=result, status=status, cells=rec.cells if rec else None,
                        iterations=rec.iterations if rec else None, convergence=verdict,
                        notes=tuple(notes), report=report, yplus=yplus, layers=layers)
-
-
-def outcome_row(o: CaseOutcome) -> dict[str, Any]:
-    """A flat dict of one case for the CSV/JSON tables."""
-    r = asdict(o.result)
-    r["flags"] = " ".join(o.result.flags)
-    r["downforce_coefficient"] = -o.result.cl if math.isfinite(o.result.cl) else None
-    r.update(status=o.status, cells=o.cells, iterations=o.iterations, convergence=o.convergence, layers=o.layers)
-    if o.yplus:
-        a = o.yplus[ALL_WALLS]  # all body and wheel faces together
-        r.update(yplus_median=a["median"], yplus_p95=a["p95"], yplus_max=a["max"],
-                 yplus_share_in_range=a["share_in_target"], yplus_range="{:g}-{:g}".format(*a["target"]))
-    r["notes"] = "; ".join(o.notes)
-    return r
 
 
 #: representative cell size of mesh level m relative to level 0: each level
@@ -648,7 +651,7 @@ def _assemble(manifest: Manifest, out: Path, outcomes: list[CaseOutcome], option
               extra_notes: list[str], render) -> SweepAnalysis:
     """Write results.csv/json (and the report through ``render``) under the
     output folder's lock; returns the analysis."""
-    rows = [outcome_row(o) for o in outcomes]
+    rows = [o.row() for o in outcomes]
     paths = {
         "csv": out / "results.csv",
         "json": out / "results.json",

@@ -150,17 +150,18 @@ def write_cmd(config: str, out_dir: str, force: bool, fidelity: str | None) -> N
     exists with different content is refused unless --force is given.
     """
     from caseprep.config.load import load_config, with_fidelity  # planning half: loaded only when needed
+    from caseprep.planning.batch import batch_settings
     from caseprep.planning.planner import plan
     from caseprep.casefiles.writer import write_sweep
 
     cfg = with_fidelity(load_config(config), fidelity)
     specs = plan(cfg)
-    summary = write_sweep(specs, out_dir, config, force=force, study=cfg.study.name)
+    summary = write_sweep(specs, out_dir, config, force=force, study=cfg.study.name, batch=batch_settings(cfg))
     click.echo(f"{summary.root}: {len(summary.written)} new, {len(summary.replaced)} replaced, "
                f"{len(summary.unchanged)} unchanged case(s); manifest {summary.manifest}")
     if summary.geometry_written:
         click.echo("shared geometry written: " + ", ".join(summary.geometry_written))
-    click.echo(f"run them: {summary.root}/run_all.sh  (or sbatch slurm_array.sh on a cluster)")
+    click.echo(f"run them here: caseprep run {summary.root}   on a SLURM cluster: {summary.root}/submit.sh")
 
 
 def _format_table(rows: list[dict], columns: tuple[str, ...]) -> str:

@@ -57,6 +57,7 @@ def write_sweep(config_path: Path, sweep_dir: Path, fidelity: str, force: bool) 
     """Plan and write the sweep with the caseprep Python API."""
     try:
         from caseprep.config.load import load_config, with_fidelity
+        from caseprep.planning.batch import batch_settings
         from caseprep.planning.planner import plan
         from caseprep.casefiles.writer import write_sweep as _write
     except ImportError as exc:
@@ -65,7 +66,7 @@ def write_sweep(config_path: Path, sweep_dir: Path, fidelity: str, force: bool) 
     config = with_fidelity(config, fidelity)
     specs = plan(config)
     say(f"writing {len(specs)} case(s) at fidelity {fidelity!r} into {sweep_dir} …")
-    _write(specs, sweep_dir, config_path, force=force, study=config.study.name)
+    _write(specs, sweep_dir, config_path, force=force, study=config.study.name, batch=batch_settings(config))
 
 
 def _stop(msg: str, code: int) -> int:

@@ -5,7 +5,10 @@ Layout written under ``out_dir``::
     manifest.json           sweep manifest (caseprep.contract.manifest), one record per case
     cases.txt               one case id per line (run_all.sh, slurm_array.sh read it)
     run_all.sh              workstation runner (N cases at a time)
-    slurm_array.sh          SLURM array job (one task per case)
+    slurm_array.sh          SLURM array job: the solver (one task per case)
+    slurm_post.sh           SLURM array job: the post-processing shards
+    slurm_merge.sh          SLURM job: merge the shards, tables and report
+    submit.sh               submits the three with afterany dependencies
     geometry/<file>         the ONE copy of each surface file (body, wheels)
     cases/<case_id>/        one solver case; constant/triSurface/<file> is a
                             relative symlink to ../../../../geometry/<file>
@@ -46,6 +49,7 @@ from caseprep.casefiles.render import (CASES_DIR, GEOMETRY_DIR, CaseFile, output
                      surfaces)
 from caseprep.contract.atomicio import write_bytes_atomic, write_text_atomic
 from caseprep.geometry.stl import convert_to_stl, scale_stl_bytes, stl_solid_names
+from caseprep.planning.batch import BatchSettings
 from caseprep.planning.spec import CaseSpec
 
 
@@ -304,6 +308,7 @@ def write_sweep(
     *,
     geometry_sources: Mapping[str, os.PathLike | str] | None = None,
     study: str | None = None,
+    batch: BatchSettings = BatchSettings(),
 ) -> WriteSummary:
     """Write the sweep folder ``out_dir`` for ``specs`` (see module docstring).
 
@@ -314,7 +319,9 @@ def write_sweep(
     to the config. ``spec.extra["geometry_scales"][name]`` (else ``spec.extra["geometry_scale"]``,
     default 1) multiplies the
     source coordinates (e.g. 0.001 for a file drawn in mm) when the shared
-    copy is made. ``study``: manifest study name (default: the existing
+    copy is made. ``batch``: the resources of the cluster job scripts
+    (:class:`caseprep.planning.batch.BatchSettings`, from the config's
+    ``[cluster]`` table). ``study``: manifest study name (default: the existing
     manifest's, else the config file's stem).
 
     Returns a :class:`WriteSummary`. Raises :class:`UserError` for a case or
@@ -367,7 +374,7 @@ def write_sweep(
         study=study or (old.study if old is not None and old.study else cfg.stem),
     )
     kept_ids = [r.case_id for r in records]
-    scripts = render_sweep_scripts(kept_ids, max(s.solver.n_procs for s in specs))
+    scripts = render_sweep_scripts(kept_ids, max(s.solver.n_procs for s in specs), batch, manifest.study)
     for rel, f in scripts.items():
         write_text_atomic(root / rel, f.text, mode=f.mode)
     mpath = write_manifest(manifest, root)

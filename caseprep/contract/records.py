@@ -139,6 +139,9 @@ class CaseRunRecord:
     ``failed_tool`` and ``log_tail`` describe a failure. Times in s.
     ``host`` and ``pid``: the machine and the process id of the runner that
     wrote the record (a ``running`` record names where the stage runs).
+    ``numerics``: what the mesh stage chose from the mesh's quality
+    (``non_orthogonal_correctors``, ``momentum_relaxation``; from
+    ``system/meshNumerics``), None before meshing.
     ``convergence``: why the run counts as converged or not (see
     :mod:`caseprep.contract.convergence`); ``residual_drop``: the smallest drop of a field's
     initial residual over the run, in orders of magnitude (log10 of the
@@ -162,6 +165,7 @@ class CaseRunRecord:
     failed_checks: int | None = None
     max_non_orthogonality: float | None = None
     max_skewness: float | None = None
+    numerics: dict[str, Any] | None = None
     layer_coverage: float | None = None
     layers: tuple[dict[str, Any], ...] = ()
     iterations: int | None = None

@@ -236,6 +236,9 @@ def summarize_logs(case_dir: Path, valid_stages: Sequence[str], options: RunOpti
                        max_non_orthogonality=c.max_non_orthogonality, max_skewness=c.max_skewness)
             if c.mesh_ok is False:
                 flags.append(Flag.MESH_CHECKS_FAILED)
+        numerics = _read(case_dir / "system" / "meshNumerics")
+        if numerics is not None:
+            out["numerics"] = sl.parse_mesh_numerics(numerics)
         out["cells"] = cells
     if "solve" in valid_stages:
         so = _read(logs / "simpleFoam.log")

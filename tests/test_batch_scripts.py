@@ -131,9 +131,11 @@ def test_submit_wires_the_chain_and_skips_exported_cases(tmp_path):
 
 def test_submit_without_sbatch_says_so(tmp_path):
     out = _write(tmp_path)
-    env = dict(os.environ, PATH="/usr/bin:/bin")
-    if shutil.which("sbatch", path=env["PATH"]):
-        pytest.skip("a real sbatch is installed here")
+    bin_dir = tmp_path / "nobatch"  # the tools submit.sh uses, and no sbatch
+    bin_dir.mkdir()
+    for tool in ("bash", "dirname", "date", "sed"):
+        (bin_dir / tool).symlink_to(shutil.which(tool))
+    env = dict(os.environ, PATH=str(bin_dir))
     r = subprocess.run(["./submit.sh"], cwd=out, env=env, capture_output=True, text=True)
     assert r.returncode == 2 and "sbatch not found" in r.stderr
     r = subprocess.run(["./submit.sh", "-x"], cwd=out, env=env, capture_output=True, text=True)

@@ -202,3 +202,27 @@ def test_second_signal_skips_the_grace(tmp_path):
     assert time.monotonic() - t0 < 20  # not the 60 s grace
     assert gone(int((logs / "child.pid").read_text()))
     assert record(root, "stubborn")["status"] == "interrupted"
+
+
+def test_scheduler_signals_every_process_at_once(tmp_path):
+    """A batch scheduler's cancel sends SIGTERM to every process of the job:
+    the case's processes may end before the runner's own handler runs. The
+    case is still recorded interrupted, not failed."""
+    root = tmp_path / "s"
+    write_manifest_only(root, ["slow"])
+    make_case(root, "slow", sleep=120)
+    logs = root / "cases" / "slow" / "logs"
+    proc = start_run(root)
+    try:
+        wait_for(logs / "child.pid")
+        for pid in (int((logs / "child.pid").read_text()), int((logs / "script.pid").read_text())):
+            os.kill(pid, signal.SIGTERM)  # the case's processes first
+        time.sleep(0.3)
+        proc.send_signal(signal.SIGTERM)  # then the runner
+        out, _ = proc.communicate(timeout=60)
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+    assert proc.returncode == 143, out
+    rec = record(root, "slow")
+    assert rec["status"] == "interrupted" and "SIGTERM" in rec["message"], rec["message"]

@@ -466,6 +466,8 @@ class _Run:
                                        message=" ".join(job.to_run)))
                     self.start_stage(job, summary=True)
                 time.sleep(self.options.poll)
+                if stop.requested:  # what ended meanwhile may have ended by the same signal
+                    break
                 now = time.monotonic()
                 for job in list(self.running):
                     if job.proc is None:
@@ -527,6 +529,12 @@ class _Run:
                 return  # on a stop, recorded as interrupted before its next stage
             rec = _finish_record(job, Status.OK, "", self.ranks, self.options)
         else:
+            if not stop.requested and _killed_by_signal(rc):
+                # a scheduler signals every process of the job at once: the
+                # case's processes may end before our own handler has run
+                _await_stop(stop, STOP_SIGNAL_WAIT)
+            if stop.requested:
+                return  # ended by the stop signal: recorded interrupted, not failed
             job.results[stage] = StageRun(stage, "failed", round(dt, 3), rc)
             tool, log = _failing_tool(job.dir, stage, job.stage_wall0)
             out_log = job.dir / "logs" / f"underfloor-{stage}.out"
@@ -597,6 +605,26 @@ def _start_stage(job: _Job, env: dict[str, str], emit, total: int) -> None:
     job.proc = subprocess.Popen([str(job.dir / "run.sh"), stage], cwd=job.dir, env=env, stdout=job.out,
                                 stderr=subprocess.STDOUT, stdin=subprocess.DEVNULL, start_new_session=True)
     emit(Progress(job.rec.case_id, job.index, total, "stage-start", stage, job.stage_t0 - job.t0))
+
+
+#: Seconds a stage that ended by a stop signal waits for the runner's own
+#: signal before it counts as failed.
+STOP_SIGNAL_WAIT = 2.0
+_STOP_SIGNALS = (signal.SIGTERM, signal.SIGINT, signal.SIGKILL, signal.SIGHUP)
+
+
+def _killed_by_signal(rc: int | None) -> bool:
+    """Whether an exit status says "ended by a stop signal": -N from Python
+    for a direct child, 128 + N from a shell whose child was."""
+    if rc is None:
+        return False
+    return (rc < 0 and -rc in _STOP_SIGNALS) or (rc > 128 and rc - 128 in _STOP_SIGNALS)
+
+
+def _await_stop(stop: StopSignals, seconds: float) -> None:
+    deadline = time.monotonic() + seconds
+    while not stop.requested and time.monotonic() < deadline:
+        time.sleep(0.05)
 
 
 def _stop(running: list[_Job], grace: float, stop: StopSignals | None = None) -> None:

@@ -12,6 +12,7 @@ import click
 
 from caseprep.contract import __version__
 from caseprep.contract.cli_common import FriendlyGroup
+from caseprep.contract.cli_progress import ProgressDisplay
 from caseprep.contract.convergence import DEFAULT_OPTIONS, ConvergenceOptions
 from caseprep.contract.errors import UserError
 from caseprep.contract.records import flag_meaning
@@ -31,35 +32,67 @@ def main() -> None:
     """
 
 
-def _progress_printer(quiet: bool):
-    """A progress callback printing one line per event (stderr-free, stdout)."""
-    from caseprep.run.runner import format_duration
+class _RunProgress:
+    """The progress of `caseprep run` (events of caseprep.run.runner.Progress):
+    a bar on a terminal, else one line per finished case with the count and
+    the estimated time left; stage lines with ``verbose``, fewer with ``quiet``."""
 
-    def show(ev) -> None:
+    def __init__(self, quiet: bool, verbose: bool, tty: bool | None = None):
+        self.quiet, self.verbose, self.tty = quiet, verbose, tty
+        self.display: ProgressDisplay | None = None
+        self.now: dict[str, str] = {}
+
+    def _note(self) -> str:
+        return "; ".join(f"{k}: {v}" for k, v in self.now.items())
+
+    def __call__(self, ev) -> None:
+        from caseprep.contract.progress import format_duration as d
+
+        if self.display is None:
+            self.display = ProgressDisplay(ev.total, tty=self.tty)
+        out = self.display
         head = f"[{ev.index}/{ev.total}] {ev.case_id}"
+        verbose = self.verbose and not self.quiet
         if ev.event == "layout":
-            click.echo(ev.message)
-        elif ev.event == "case-start":
-            click.echo(f"{head}: start ({ev.message})")
-        elif ev.event == "stage-start" and not quiet:
-            click.echo(f"{head}: {ev.stage} …")
-        elif ev.event == "running":
-            click.echo(f"{head}: {ev.stage} running {format_duration(ev.stage_elapsed)} (case {format_duration(ev.elapsed)})")
-        elif ev.event == "stage-done" and not quiet:
-            click.echo(f"{head}: {ev.stage} done in {format_duration(ev.stage_elapsed)}")
+            out.message(ev.message)
+        elif ev.event in ("case-start", "stage-start", "running"):
+            if ev.stage:
+                self.now[ev.case_id] = f"{ev.stage} {d(ev.stage_elapsed)}"
+            if ev.event == "stage-start" and verbose:
+                out.message(f"{head}: {ev.stage} …")
+            elif ev.event == "running" and verbose and not out.tty:
+                out.message(f"{head}: {ev.stage} running {d(ev.stage_elapsed)} (case {d(ev.elapsed)})")
+            out.draw(self._note())
+        elif ev.event == "stage-done":
+            if verbose:
+                out.message(f"{head}: {ev.stage} done in {d(ev.stage_elapsed)}")
         elif ev.event == "stage-failed":
-            click.echo(f"{head}: {ev.stage} FAILED after {format_duration(ev.stage_elapsed)}: {ev.message}")
+            out.message(f"{head}: {ev.stage} FAILED after {d(ev.stage_elapsed)}: {ev.message}")
         elif ev.event == "skipped":
-            click.echo(f"{head}: skipped ({ev.message})")
+            if self.quiet:
+                out.meter.finish(worked=False)
+            else:
+                out.item_done(f"{head}: skipped ({ev.message})", worked=False)
         elif ev.event == "interrupted":
-            click.echo(f"{head}: interrupted ({ev.message})")
+            self.now.pop(ev.case_id, None)
+            out.message(f"{head}: interrupted ({ev.message})")
         elif ev.event == "case-done" and ev.record is not None:
+            self.now.pop(ev.case_id, None)
             r = ev.record
             extra = f" flags: {', '.join(r.flags)}" if r.flags else ""
-            click.echo(f"{head}: {r.status} in {format_duration(r.wall_time)}{extra}")
+            worked = any(s.status in ("ok", "failed") for s in r.stages)
+            if self.quiet and not r.failed:
+                out.meter.finish(worked)
+                out.draw(self._note())
+            else:
+                out.item_done(f"{head}: {r.status} in {d(r.wall_time)}{extra}", worked)
             if r.failed and r.log_tail:
-                click.echo("    " + "\n    ".join(r.log_tail.splitlines()[-12:]))
-    return show
+                out.message("    " + "\n    ".join(r.log_tail.splitlines()[-12:]))
+            out.draw(self._note())
+
+    def close(self) -> None:
+        if self.display is not None:
+            self.display.close()
 
 
 @main.command("run")
@@ -80,9 +113,11 @@ def _progress_printer(quiet: bool):
 @click.option("--grace", type=click.FloatRange(min=0.0), default=RUN_DEFAULTS.kill_grace, show_default=True,
               help="Seconds between SIGTERM and SIGKILL for the running cases when the run is stopped "
                    "(keep it below the scheduler's own grace, e.g. SLURM's KillWait).")
-@click.option("-q", "--quiet", is_flag=True, help="Print only case starts, failures and results.")
+@click.option("-q", "--quiet", is_flag=True, help="Print only failures and the final table.")
+@click.option("-v", "--verbose", is_flag=True, help="Also print each stage's start and end.")
 @click.option("--skip-solver-check", is_flag=True, hidden=True)
-def run_cmd(sweep_dir, jobs, ranks, only, stages, force, residual_tol, grace, quiet, skip_solver_check) -> None:
+def run_cmd(sweep_dir, jobs, ranks, only, stages, force, residual_tol, grace, quiet, verbose,
+            skip_solver_check) -> None:
     """Run the solver over the cases of SWEEP_DIR (a folder written by
     `caseprep write`): mesh, solve and export each case, resumably.
 
@@ -106,11 +141,16 @@ def run_cmd(sweep_dir, jobs, ranks, only, stages, force, residual_tol, grace, qu
         click.echo(f"note: {jobs} jobs × {ranks} ranks = {jobs * ranks} processes on {cores} cores; "
                    "cases will compete for the processors", err=True)
     t0 = time.monotonic()
-    opts = runner.RunOptions(convergence=ConvergenceOptions(residual_tol=residual_tol), kill_grace=grace)
+    show = _RunProgress(quiet, verbose)
+    tty = sys.stdout.isatty()
+    opts = runner.RunOptions(convergence=ConvergenceOptions(residual_tol=residual_tol), kill_grace=grace,
+                             heartbeat=1.0 if tty else RUN_DEFAULTS.heartbeat)  # a terminal's bar moves on
     try:
-        records = runner.run_sweep(sweep_dir, jobs=jobs, ranks=ranks, stages=list(stages) or None,
-                                   only=list(only) or None, force=force, progress=_progress_printer(quiet),
-                                   options=opts)
+        try:
+            records = runner.run_sweep(sweep_dir, jobs=jobs, ranks=ranks, stages=list(stages) or None,
+                                       only=list(only) or None, force=force, progress=show, options=opts)
+        finally:
+            show.close()
     except runner.SweepInterrupted as exc:
         click.echo("")
         click.echo(runner.format_summary_table(exc.records))

@@ -39,6 +39,7 @@ from caseprep.run import runner  # noqa: E402
 from caseprep.contract.errors import UserError  # noqa: E402
 from caseprep.contract.manifest import read_manifest  # noqa: E402
 from caseprep.contract.records import SUMMARY_NAME  # noqa: E402
+from caseprep.contract.progress import ProgressMeter, format_duration  # noqa: E402
 from caseprep.contract.signals import StopRequested  # noqa: E402
 from postproc.pipelines.sweep import SweepOptions, postprocess_sweep  # noqa: E402
 from postproc.report.sweep_report import write_report  # noqa: E402
@@ -74,26 +75,37 @@ def _stop(msg: str, code: int) -> int:
     return code
 
 
-def progress(ev: runner.Progress) -> None:
-    head = f"  [{ev.index}/{ev.total}] {ev.case_id}"
-    d = runner.format_duration
-    if ev.event == "layout":
-        say(f"  {ev.message}")
-    elif ev.event == "stage-start":
-        say(f"{head}: {ev.stage} …")
-    elif ev.event == "stage-done":
-        say(f"{head}: {ev.stage} done in {d(ev.stage_elapsed)}")
-    elif ev.event == "running":
-        say(f"{head}: {ev.stage} still running ({d(ev.stage_elapsed)})")
-    elif ev.event == "stage-failed":
-        say(f"{head}: {ev.stage} FAILED: {ev.message}")
-    elif ev.event == "skipped":
-        say(f"{head}: done in an earlier run, skipped")
-    elif ev.event == "case-done" and ev.record is not None:
-        r = ev.record
-        say(f"{head}: {r.status} in {d(r.wall_time)}" + (f" — flags: {', '.join(r.flags)}" if r.flags else ""))
-        if r.failed and r.log_tail:
-            say("      " + "\n      ".join(r.log_tail.splitlines()[-15:]))
+class RunProgress:
+    """Stage lines, and per finished case the count and the estimated time left."""
+
+    def __init__(self) -> None:
+        self.meter: ProgressMeter | None = None
+
+    def __call__(self, ev: runner.Progress) -> None:
+        head = f"  [{ev.index}/{ev.total}] {ev.case_id}"
+        d = format_duration
+        if self.meter is None:
+            self.meter = ProgressMeter(ev.total)
+        if ev.event == "layout":
+            say(f"  {ev.message}")
+        elif ev.event == "stage-start":
+            say(f"{head}: {ev.stage} …")
+        elif ev.event == "stage-done":
+            say(f"{head}: {ev.stage} done in {d(ev.stage_elapsed)}")
+        elif ev.event == "running":
+            say(f"{head}: {ev.stage} still running ({d(ev.stage_elapsed)})")
+        elif ev.event == "stage-failed":
+            say(f"{head}: {ev.stage} FAILED: {ev.message}")
+        elif ev.event == "skipped":
+            self.meter.finish(worked=False)
+            say(f"{head}: done in an earlier run, skipped")
+        elif ev.event == "case-done" and ev.record is not None:
+            r = ev.record
+            self.meter.finish(worked=any(s.status in ("ok", "failed") for s in r.stages))
+            say(f"{head}: {r.status} in {d(r.wall_time)}" + (f" — flags: {', '.join(r.flags)}" if r.flags else "")
+                + f"  [{self.meter.line()}]")
+            if r.failed and r.log_tail:
+                say("      " + "\n      ".join(r.log_tail.splitlines()[-15:]))
 
 
 # ---------------------------------------------------------------- main
@@ -130,7 +142,7 @@ def main(argv: list[str] | None = None) -> int:
         manifest = read_manifest(sweep_dir)
         say(f"running {len(manifest.cases)} case(s) …")
         try:
-            recs = runner.run_sweep(sweep_dir, jobs=a.jobs, ranks=a.ranks, force=a.force, progress=progress)
+            recs = runner.run_sweep(sweep_dir, jobs=a.jobs, ranks=a.ranks, force=a.force, progress=RunProgress())
         except runner.SweepInterrupted as exc:
             return _stop(f"{exc}; the running cases were stopped and recorded. Run `make demo` again to resume.",
                          exc.exit_code)
@@ -139,11 +151,16 @@ def main(argv: list[str] | None = None) -> int:
 
     say("post-processing every case (forces, coefficients, balance, convergence) …")
 
+    post_meter: list[ProgressMeter] = []
+
     def post_progress(ev):
+        if not post_meter:
+            post_meter.append(ProgressMeter(ev.total))
+        post_meter[0].finish(worked=not ev.reused)
         r = ev.outcome.result
         what = f"C_L {r.cl:+.4f}, C_D {r.cd:.4f}" if math.isfinite(r.cl) else "no coefficients"
         say(f"  [{ev.done}/{ev.total}] {r.case_id}: {what}" + (f" — flags: {', '.join(r.flags)}" if r.flags else "")
-            + (" (reused)" if ev.reused else ""))
+            + (" (reused)" if ev.reused else "") + f"  [{post_meter[0].line()}]")
 
     opts = SweepOptions(out_dir=out, force=True, jobs=runner.usable_cores(),
                         title="underfloor demo — example floor study (DEMO data, smoke meshes)")

@@ -10,6 +10,7 @@ import sys
 import click
 
 from caseprep.contract.cli_common import FriendlyGroup
+from caseprep.contract.cli_progress import ProgressDisplay
 
 from caseprep.contract import __version__
 from postproc.pipelines.case_forces import ForcesOptions, forces_report
@@ -169,19 +170,32 @@ def sweep_cmd(sweep_dir: str, out_dir: str | None, jobs: int, shard: str | None,
     opts = SweepOptions(out_dir=out_dir, title=title, force=force, jobs=jobs, shard=sh, recompute=recompute,
                         wait=wait)
 
-    def progress(ev) -> None:
-        if not quiet:
-            click.echo(f"[{ev.done}/{ev.total}] " + _case_line(ev))
+    shown: list[ProgressDisplay] = []
+
+    def progress(ev) -> None:  # a bar on a terminal, else one line per case with the time left
+        if not shown:
+            shown.append(ProgressDisplay(ev.total))
+        if quiet:
+            shown[0].meter.finish(not ev.reused)
+            shown[0].draw()
+        else:
+            shown[0].item_done(f"[{ev.done}/{ev.total}] " + _case_line(ev), worked=not ev.reused)
 
     try:
         if sh != ALL:
             run = postprocess_shard(sweep_dir, opts, progress=progress)
+            for d in shown:
+                d.close()
             click.echo(f"shard {sh}: {len(run.outcomes)} case(s), {len(run.computed)} computed, "
                        f"{len(run.reused)} reused; state {run.state_file}. Assemble the tables with "
                        f"`postproc merge {sweep_dir}" + (f" -o {out_dir}" if out_dir else "") + "`.")
             return
         analysis = postprocess_sweep(sweep_dir, opts, progress=progress, render=write_report)
+        for d in shown:
+            d.close()
     except StopRequested as exc:
+        for d in shown:
+            d.close()
         click.echo(f"stopped by {exc}: finished cases are stored, the others recorded interrupted; no tables "
                    "written. Run the same command again to resume.", err=True)
         sys.exit(exc.exit_code)

@@ -54,6 +54,7 @@ from caseprep.run import solverlogs as sl
 from caseprep.contract.atomicio import write_json_atomic
 from caseprep.contract.convergence import DEFAULT_OPTIONS, ConvergenceOptions, force_settling, judge_convergence
 from caseprep.contract.errors import UserError, did_you_mean
+from caseprep.contract.progress import format_duration
 from caseprep.contract.signals import StopSignals, exit_code, signal_name
 from caseprep.contract.manifest import CaseRecord, read_manifest
 from caseprep.contract.records import (RECORD_NAME, RUN_FLAGS, SUMMARY_NAME, SUMMARY_SCHEMA, CaseRunRecord, Flag,
@@ -719,16 +720,6 @@ def _write_summary(root: Path, manifest, records: dict[str, CaseRunRecord], rank
         "schema": SUMMARY_SCHEMA, "schema_version": 1, "written_utc": _utc(), "ranks": ranks,
         "counts": counts, "flag_meanings": {f: f.meaning for f in RUN_FLAGS}, "cases": rows,
     })
-
-
-def format_duration(t: float | None) -> str:
-    if t is None:
-        return "-"
-    t = float(t)
-    if t < 60:
-        return f"{t:.1f}s"
-    m, sec = divmod(int(round(t)), 60)
-    return f"{m}m{sec:02d}s" if m < 60 else f"{m // 60}h{m % 60:02d}m"
 
 
 def summary_row(rec: CaseRunRecord) -> dict[str, str]:

@@ -41,8 +41,9 @@ from caseprep.contract.manifest import read_manifest  # noqa: E402
 from caseprep.contract.records import SUMMARY_NAME  # noqa: E402
 from caseprep.contract.progress import ProgressMeter, format_duration  # noqa: E402
 from caseprep.contract.signals import StopRequested  # noqa: E402
+from postproc.pipelines.report_data import ReportOptions  # noqa: E402
 from postproc.pipelines.sweep import SweepOptions, postprocess_sweep  # noqa: E402
-from postproc.report.sweep_report import write_report  # noqa: E402
+from postproc.report import write_report  # noqa: E402
 
 DEFAULT_CONFIG = HERE / "floor_study" / "sweep.toml"
 SAFETY = ("CFD is an approximation: the numbers depend on the mesh, the turbulence model and the set-up. "
@@ -149,7 +150,7 @@ def main(argv: list[str] | None = None) -> int:
     except UserError as exc:
         return _stop(str(exc), 2)
 
-    say("post-processing every case (forces, coefficients, balance, convergence) …")
+    say("post-processing every case (forces, coefficients, balance, convergence, flow numbers) and the report …")
 
     post_meter: list[ProgressMeter] = []
 
@@ -162,11 +163,19 @@ def main(argv: list[str] | None = None) -> int:
         say(f"  [{ev.done}/{ev.total}] {r.case_id}: {what}" + (f" — flags: {', '.join(r.flags)}" if r.flags else "")
             + (" (reused)" if ev.reused else "") + f"  [{post_meter[0].line()}]")
 
-    opts = SweepOptions(out_dir=out, force=True, jobs=runner.usable_cores(),
-                        title="underfloor demo — example floor study (DEMO data, smoke meshes)")
+    opts = SweepOptions(out_dir=out, force=True, jobs=runner.usable_cores(), report=ReportOptions(
+        title="underfloor demo — example floor study (DEMO data, smoke meshes)"))
+    written = {}
+
+    def render(analysis, path):
+        written["info"] = write_report(analysis, path)[1]
+
     try:
-        analysis = postprocess_sweep(sweep_dir, opts, progress=post_progress, render=write_report)
+        t_post = time.monotonic()
+        analysis = postprocess_sweep(sweep_dir, opts, progress=post_progress, render=render)
         paths = analysis.paths
+        info = written["info"]
+        t_post = time.monotonic() - t_post
     except UserError as exc:
         return _stop(str(exc), 2)
     except StopRequested as exc:
@@ -176,8 +185,10 @@ def main(argv: list[str] | None = None) -> int:
     say(runner.format_summary_table(recs))
     failed = [r for r in recs if r.failed]
     say("")
-    say(f"report: {paths['report']}; tables: {paths['csv']}, {paths['json']}; run records: "
-        f"{sweep_dir / SUMMARY_NAME}")
+    say(f"report: {paths['report']} ({info.size / 1e6:.2f} MB; post-processing and report "
+        f"{runner.format_duration(t_post)}, pictures {info.seconds.get('pictures', 0.0):.1f} s"
+        f"{'' if info.backend else ', no pictures: see the report'}); tables: {paths['csv']}, {paths['json']}; "
+        f"run records: {sweep_dir / SUMMARY_NAME}")
     say(f"demo took {runner.format_duration(elapsed)}; {len(recs) - len(failed)} of {len(recs)} case(s) ran"
         + (f", {len(failed)} failed (see above)" if failed else ""))
     say("Caution: " + SAFETY)

@@ -143,15 +143,22 @@ def _case_line(ev) -> str:
                    "per-case results, no tables; then `postproc merge`.")
 @click.option("--recompute", is_flag=True, help="Recompute every case even when its stored result is reusable.")
 @click.option("--title", help="Report title (default from the study name).")
+@click.option("--baseline", help="Variant the pressure-difference pictures compare against (default: the first).")
+@click.option("--picture-ride-height", type=float,
+              help="Front ride height (m) of the pictured point (default: the sweep's median).")
+@click.option("--picture-yaw", type=float, help="Yaw (deg) of the pictured point (default: the smallest |yaw|).")
+@click.option("--no-pictures", is_flag=True, help="No flow pictures (very large sweeps; flow numbers still computed).")
 @click.option("--force", is_flag=True, help="Replace earlier tables (results.csv/json, report) in the output folder.")
 @click.option("--wait", type=click.FloatRange(min=0.0), default=300.0, show_default=True,
               help="Seconds to wait for another process writing the same tables.")
 @click.option("-q", "--quiet", is_flag=True, help="No per-case progress lines.")
 def sweep_cmd(sweep_dir: str, out_dir: str | None, jobs: int, shard: str | None, recompute: bool,
-              title: str | None, force: bool, wait: float, quiet: bool) -> None:
+              title: str | None, baseline: str | None, picture_ride_height: float | None,
+              picture_yaw: float | None, no_pictures: bool, force: bool, wait: float, quiet: bool) -> None:
     """Post-process every case of SWEEP_DIR (written by `caseprep write`, run
-    by `caseprep run`): forces, coefficients, aero balance, convergence and
-    the runner's flags → results table, variant ranking and an HTML report.
+    by `caseprep run`): forces, coefficients, aero balance, convergence, the
+    runner's flags and each case's flow numbers → results table, variant
+    ranking and a self-contained HTML report with flow pictures and plots.
 
     Each case's result is stored in results/<case>.json and reused while the
     case's inputs are unchanged (manifest entry; size and modification time
@@ -162,14 +169,15 @@ def sweep_cmd(sweep_dir: str, out_dir: str | None, jobs: int, shard: str | None,
     SIGTERM/SIGINT (run again to resume).
     """
     from caseprep.contract.signals import StopRequested
+    from postproc.pipelines.report_data import ReportOptions
     from postproc.pipelines.shards import ALL, parse_shard
     from postproc.pipelines.sweep import SweepOptions, postprocess_shard, postprocess_sweep
-    from postproc.report.sweep_report import write_report
 
     sh = parse_shard(shard)
-    opts = SweepOptions(out_dir=out_dir, title=title, force=force, jobs=jobs, shard=sh, recompute=recompute,
-                        wait=wait)
-
+    ropts = ReportOptions(title=title, baseline=baseline, reference_ride_height=picture_ride_height,
+                          reference_yaw_deg=picture_yaw, pictures=not no_pictures)
+    opts = SweepOptions(out_dir=out_dir, force=force, jobs=jobs, shard=sh, recompute=recompute, wait=wait,
+                        report=ropts)
     shown: list[ProgressDisplay] = []
 
     def progress(ev) -> None:  # a bar on a terminal, else one line per case with the time left
@@ -190,7 +198,7 @@ def sweep_cmd(sweep_dir: str, out_dir: str | None, jobs: int, shard: str | None,
                        f"{len(run.reused)} reused; state {run.state_file}. Assemble the tables with "
                        f"`postproc merge {sweep_dir}" + (f" -o {out_dir}" if out_dir else "") + "`.")
             return
-        analysis = postprocess_sweep(sweep_dir, opts, progress=progress, render=write_report)
+        analysis = postprocess_sweep(sweep_dir, opts, progress=progress, render=_write_report)
         for d in shown:
             d.close()
     except StopRequested as exc:
@@ -199,10 +207,21 @@ def sweep_cmd(sweep_dir: str, out_dir: str | None, jobs: int, shard: str | None,
         click.echo(f"stopped by {exc}: finished cases are stored, the others recorded interrupted; no tables "
                    "written. Run the same command again to resume.", err=True)
         sys.exit(exc.exit_code)
+    _tables_written(analysis)
+
+
+def _write_report(analysis, path):
+    from postproc.report import write_report
+
+    return write_report(analysis, path)
+
+
+def _tables_written(analysis) -> None:
     outcomes, paths = analysis.outcomes, analysis.paths
     n_flag = sum(bool(o.result.flags) for o in outcomes)
+    size = paths["report"].stat().st_size if paths["report"].is_file() else 0
     click.echo(f"{len(outcomes)} case(s), {n_flag} flagged (not ranked).")
-    click.echo(f"results: {paths['csv']}, {paths['json']}; report: {paths['report']}")
+    click.echo(f"results: {paths['csv']}, {paths['json']}; report: {paths['report']} ({size / 1e6:.2f} MB)")
     click.echo(CAUTION)
 
 
@@ -226,16 +245,13 @@ def merge_cmd(sweep_dir: str, out_dir: str | None, n_shards: int | None, title: 
     written. Exit code 0, 1 when cases are missing (tables still written),
     2 for a usage error.
     """
+    from postproc.pipelines.report_data import ReportOptions
     from postproc.pipelines.sweep import SweepOptions, merge_results
-    from postproc.report.sweep_report import write_report
 
-    opts = SweepOptions(out_dir=out_dir, title=title, force=force, wait=wait, expected_shards=n_shards)
-    analysis, gap = merge_results(sweep_dir, opts, render=write_report)
-    outcomes, paths = analysis.outcomes, analysis.paths
-    n_flag = sum(bool(o.result.flags) for o in outcomes)
-    click.echo(f"{len(outcomes)} case(s), {n_flag} flagged (not ranked).")
-    click.echo(f"results: {paths['csv']}, {paths['json']}; report: {paths['report']}")
-    click.echo(CAUTION)
+    opts = SweepOptions(out_dir=out_dir, force=force, wait=wait, expected_shards=n_shards,
+                        report=ReportOptions(title=title))
+    analysis, gap = merge_results(sweep_dir, opts, render=_write_report)
+    _tables_written(analysis)
     if gap is not None:
         click.echo(f"incomplete: {gap.message()}. Rerun those shards (`postproc sweep {sweep_dir} --shard I/N`), "
                    "then merge again with --force.", err=True)
@@ -320,26 +336,33 @@ def _print_vortices(d: dict) -> None:
 @main.command("vortices")
 @click.argument("source", type=click.Path())
 @click.option("--stations", help="Comma-separated x stations (m, body frame, x rearward). Default: every 5 % of the reference length from the nose to half a length behind the tail.")
-@click.option("--threshold", "q_star", type=float, default=100.0, show_default=True,
-              help="Core threshold on Q* = Q/(V/L)^2.")
+@click.option("--threshold", "q_star", type=float,
+              help="Core threshold on Q/(V/l)^2 (default 0.01 with the gap scale, 100 with the reference length).")
+@click.option("--q-scale", type=click.Choice(["auto", "gap", "length"]), default="auto", show_default=True,
+              help="Length l normalising Q: the ride height (gap; 'auto' when the manifest gives it) or the "
+                   "reference length L.")
+@click.option("--gap", type=float, help="Gap scale h (m) when there is no sweep manifest.")
 @click.option("--speed", type=float, help="Reference speed V (m/s) when there is no sweep manifest.")
 @click.option("--length", type=float, help="Reference length L (m) when there is no sweep manifest.")
 @click.option("--max-jump", type=float, help="Largest core displacement (m) between stations when linking tracks (default: two station spacings).")
 @click.option("--velocity", default="U", show_default=True, help="Name of the cell velocity array.")
 @click.option("--no-regions", is_flag=True, help="Skip the connected 3D Q-regions.")
 @_with_common
-def vortices_cmd(source, stations, q_star, speed, length, max_jump, velocity, no_regions, as_json, output, force):
+def vortices_cmd(source, stations, q_star, q_scale, gap, speed, length, max_jump, velocity, no_regions, as_json,
+                 output, force):
     """Vortex cores on cross-stream stations (Q-criterion), tracks and 3D Q-regions.
 
     SOURCE: a case folder, VTK/<case>_<time>.vtm or an internal .vtu. Per core:
     centre [x, y, z] (m), sense (+1/-1 about +x), circulation (m^2/s),
     radius (m), peak_q (1/s^2), axial velocity excess.
     """
-    from postproc.pipelines.case_flow import analyse_vortices
+    from postproc.pipelines.case_flow import Q_STAR_DEFAULTS, analyse_vortices, q_normalisation
 
     case = _load(source)
-    res = analyse_vortices(case, stations=_floats(stations, "--stations"), q_star=q_star, speed=speed,
-                           length=length, max_jump=max_jump, regions=not no_regions, velocity=velocity)
+    kind, h = q_normalisation(case, q_scale, gap)
+    res = analyse_vortices(case, stations=_floats(stations, "--stations"),
+                           q_star=q_star if q_star is not None else Q_STAR_DEFAULTS[kind], speed=speed,
+                           length=length, max_jump=max_jump, regions=not no_regions, velocity=velocity, q_length=h)
     payload = {"source": str(case.source), "case_id": case.record.case_id if case.record else None, **res.to_dict()}
     _emit(payload, as_json, output, force, _print_vortices)
 
@@ -449,31 +472,25 @@ def walls_cmd(source, treatment, yplus_range, nu, speed, lines, as_json, output,
 
 @main.command("flow")
 @click.argument("source", type=click.Path())
-@click.option("--threshold", "q_star", type=float, default=100.0, show_default=True, help="Core threshold on Q*.")
+@click.option("--threshold", "q_star", type=float,
+              help="Core threshold on Q/(V/l)^2 (default 0.01 with the gap scale, 100 with the reference length).")
+@click.option("--q-scale", type=click.Choice(["auto", "gap", "length"]), default="auto", show_default=True,
+              help="Length l normalising Q: the ride height (gap; 'auto' when the manifest gives it) or the "
+                   "reference length.")
+@click.option("--gap", type=float, help="Gap scale h (m) when there is no sweep manifest.")
 @click.option("--treatment", type=click.Choice(["wall-functions", "resolved", "resolved-relaxed"]),
               default="wall-functions", show_default=True, help="Intended wall treatment (its y+ range).")
 @_with_common
-def flow_cmd(source, q_star, treatment, as_json, output, force):
+def flow_cmd(source, q_star, q_scale, gap, treatment, as_json, output, force):
     """All flow-structure results of one case in one JSON: vortices, diffuser
-    (stations found from the floor), underbody Cp and wall checks. A part that
-    cannot be computed is reported with its reason instead."""
-    from caseprep.contract.errors import UserError
-
-    from postproc.pipelines.case_flow import analyse_diffuser, analyse_underbody, analyse_vortices, analyse_walls
+    (stations found from the floor), underbody Cp and wall checks — the same
+    numbers `postproc sweep` puts in its flow columns. A part that cannot be
+    computed is reported with its reason instead."""
+    from postproc.pipelines.case_flow import flow_payload
 
     case = _load(source)
-    payload = {"source": str(case.source), "case_id": case.record.case_id if case.record else None}
-    parts = {
-        "vortices": lambda: analyse_vortices(case, q_star=q_star).to_dict(),
-        "diffuser": lambda: analyse_diffuser(case).to_dict(),
-        "underbody": lambda: analyse_underbody(case),
-        "walls": lambda: analyse_walls(case, target=_yplus_target(treatment, None)),
-    }
-    for name, fn in parts.items():
-        try:
-            payload[name] = fn()
-        except UserError as exc:
-            payload[name] = {"error": str(exc)}
+    payload, _ = flow_payload(case, q_star=q_star, q_scale=q_scale, gap=gap, target=_yplus_target(treatment, None))
+    parts = ("vortices", "diffuser", "underbody", "walls")
 
     def summary(d):
         for name in parts:

@@ -8,7 +8,7 @@ from caseprep.contract.records import Flag
 from postproc.kernels.aeromap import fit_response_surface
 from postproc.kernels.ranking import CaseResult, rank_variants, variant_metrics
 from postproc.pipelines.sweep import analyse_results
-from postproc.report.sweep_report import write_report
+from postproc.report import write_report
 
 
 def _quadratic(hf, hr):
@@ -89,11 +89,13 @@ def test_undefined_balance_is_noted_not_divided():
 
 def test_report_is_self_contained_and_cautions(tmp_path):
     rows = _rows("flat", 1.0, 1.0) + _rows("ramp", 1.3, 2.0, flags_at=2)
-    p = write_report(analyse_results(rows, title="Demo <study>", notes=["a <b> note"]), tmp_path / "report.html")
+    p, _ = write_report(analyse_results(rows, title="Demo <study>", notes=["a <b> note"]), tmp_path / "report.html")
     text = p.read_text()
     assert "validate every decision by physical test" in text.lower()
     assert "qualified engineers" in text
-    assert "<svg" in text and "http://" not in text.replace("http://www.w3.org/2000/svg", "")
+    # plots embedded as data URIs (SVG), nothing fetched from the network, no scripts
+    assert "data:image/svg+xml;base64," in text and "http://" not in text and "https://" not in text
+    assert "<script" not in text.lower()
     assert "Demo &lt;study&gt;" in text and "a &lt;b&gt; note" in text
     assert "ramp-2" in text and "not-converged" in text
     assert not list(tmp_path.glob(".*.tmp"))

@@ -264,10 +264,10 @@ def test_cli_stop_exit_code(tmp_path, monkeypatch):
     root = write_manifest_only(tmp_path / "sw", _ids(3))
     real = sw.process_case
 
-    def stop_after_first(manifest, case):
+    def stop_after_first(manifest, case, *args):
         if case.case_id == "case01":
             os.kill(os.getpid(), signal.SIGTERM)
-        return real(manifest, case)
+        return real(manifest, case, *args)
 
     monkeypatch.setattr(sw, "process_case", stop_after_first)
     r = CliRunner().invoke(postproc_main, ["sweep", str(root), "-q"])

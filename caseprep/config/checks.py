@@ -46,6 +46,7 @@ def problems(cfg: Config, base: Path, file: str) -> list[UserError]:
     _domain(cfg, errs)
     _solver(cfg, errs)
     _cluster(cfg, errs)
+    _report(cfg, errs)
     return list(errs)
 
 
@@ -243,6 +244,16 @@ def _domain(cfg: Config, errs: _Problems) -> None:
 def _solver(cfg: Config, errs: _Problems) -> None:
     for k in ("iterations", "write_interval", "ranks", "turbulence_intensity", "turbulence_length_scale"):
         errs.check(f"solver.{k}", getattr(cfg.solver, k))
+
+
+def _report(cfg: Config, errs: _Problems) -> None:
+    r = cfg.report
+    known = list(cfg.variants)
+    if r.baseline is not None and r.baseline not in cfg.variants:
+        errs.add(expected="a variant defined under [variants]", got=r.baseline, key="report.baseline",
+                 fix="name one of: " + ", ".join(known) + "." + did_you_mean(r.baseline, known))
+    errs.check("report.picture_ride_height", r.picture_ride_height)
+    errs.check("report.picture_yaw_deg", r.picture_yaw_deg)
 
 
 def _empty_section_problems(cfg: Config, file: str) -> list[UserError]:

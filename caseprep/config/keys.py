@@ -252,6 +252,13 @@ KEYS: dict[str, Key] = {
     "cluster.postproc_time": Key("—", "time limit of each post-processing task", "01:00:00", pattern=_BATCH_TIME),
     "cluster.report_memory": Key("—", "memory of the merge and report job", "4G", pattern=_BATCH_MEMORY),
     "cluster.report_time": Key("—", "time limit of the merge and report job", "00:30:00", pattern=_BATCH_TIME),
+    "report.baseline": Key("—", "variant the report's pressure-difference pictures compare against "
+                                "(`postproc sweep --baseline` overrides)", default="the first variant"),
+    "report.picture_ride_height": Key("m", "front ride height of the operating point pictured for every variant "
+                                           "(`--picture-ride-height`)", default="median of the sweep",
+                                      range=_RIDE_HEIGHT),
+    "report.picture_yaw_deg": Key("deg", "yaw of the pictured operating point (`--picture-yaw`)",
+                                  default="smallest yaw", range=_YAW),
 }
 
 

@@ -174,6 +174,12 @@ class ClusterCfg(_M):
     postproc_time: str = default("cluster.postproc_time")
     report_memory: str = default("cluster.report_memory")
     report_time: str = default("cluster.report_time")
+class ReportCfg(_M):
+    """What the sweep report pictures (``postproc sweep`` reads it from the manifest)."""
+
+    baseline: str | None = None
+    picture_ride_height: float | None = None
+    picture_yaw_deg: float | None = None
 
 
 class Config(_M):
@@ -190,6 +196,7 @@ class Config(_M):
     domain: DomainCfg = DomainCfg()
     solver: SolverCfg = SolverCfg()
     cluster: ClusterCfg = ClusterCfg()
+    report: ReportCfg = ReportCfg()
     _file: str = PrivateAttr(default="config.toml")
 
     @property
@@ -218,7 +225,7 @@ class Config(_M):
 _MODELS: dict[str, type[BaseModel]] = {
     "": Config, "study": StudyCfg, "air": AirCfg, "ground": GroundCfg, "body": BodyCfg, "wheels": WheelCfg,
     "variants": VariantCfg, "sweep": SweepCfg, "points": PointCfg, "mesh": MeshCfg, "domain": DomainCfg,
-    "solver": SolverCfg, "cluster": ClusterCfg,
+    "solver": SolverCfg, "cluster": ClusterCfg, "report": ReportCfg,
 }
 
 

@@ -114,6 +114,7 @@ INFO_FIELDS: dict[str, str] = {
     "empty_section": "true for an empty test section (no body)",
     "ground_leading_edge": "empty test section: distance of the ground's leading edge from the inlet (m)",
     "ground_first_cell": "empty test section: first background cell height on the ground (m), or null",
+    "report": "the config's [report] settings: baseline variant, pictured ride height (m) and yaw (deg)",
 }
 
 

@@ -385,6 +385,8 @@ def plan_case(cfg: Config, pt: SweepPoint, geoms: dict[str, VariantGeometry], ai
         "frontal_area_wind": frontal_wind,
         "min_clearance_x_percent": pct,
         "warnings": list(notes),
+        # what the sweep report pictures ([report]; postproc reads it from the manifest)
+        "report": cfg.report.model_dump(exclude_none=True),
     }
     spec = CaseSpec(
         case_id=cid, variant=pt.variant, params=pt.params(), yaw_mode=mode, placement=P, geometry=f"{pt.variant}.stl",

@@ -7,13 +7,27 @@ Inputs: a sweep folder written by ``caseprep write`` (``manifest.json``) and
 run by ``caseprep run`` (``<case>/underfloor-run.json``, ``VTK/``).
 Outputs (in the sweep folder unless told otherwise, atomic writes):
 
-* ``results/<case_id>.json`` — the full forces report of each case, with
-  the body's y+ statistics per patch and the case's flags;
+* ``results/<case_id>.json`` — each case's result: its row, the full
+  forces report, the body's y+ statistics per patch, its flow columns and
+  flags, with the fingerprint of its inputs (reused while they are
+  unchanged, :mod:`postproc.pipelines.caseresults`);
+* ``shards/<I>-of-<N>.json`` — the state of each run over a shard
+  (:mod:`postproc.pipelines.shards`);
 * ``results.csv`` and ``results.json`` — one row per case (``results.json``
   also holds the ranking, the mesh study and the fitted aero maps).
 
-The HTML report (``report.html``, :mod:`postproc.report.sweep_report`) is
-rendered from the returned :class:`SweepAnalysis`.
+The cases are processed by :func:`postprocess_shard` (all of them, or one
+shard ``I/N``; ``jobs`` worker processes), the tables assembled by
+:func:`postprocess_sweep` (after processing every case) or
+:func:`merge_results` (from what the shards stored, computing nothing per
+case but the pictures), under the output folder's lock.
+
+Besides the forces, each case with a volume result gets its flow columns
+(:mod:`postproc.pipelines.case_flow`: diffuser recovery, main vortex pair,
+ramp separation, floor suction — the numbers ``postproc flow`` gives), and
+one case per variant (the same operating point for all) its picture scene.
+The HTML report (``report.html``, :mod:`postproc.report`) is rendered from
+the returned :class:`SweepAnalysis` (its ``report_data``).
 
 Coefficients are in the wind axes of caseprep.contract.frames (C_L positive up,
 downforce = −C_L; C_D along the relative wind; C_S along +y_W), on the
@@ -32,6 +46,7 @@ from __future__ import annotations
 import csv
 import datetime as _dt
 import io
+import json
 import math
 import os
 import time
@@ -42,10 +57,12 @@ from typing import Any, Callable
 import numpy as np
 
 from caseprep.contract.atomicio import json_ready, write_json_atomic, write_text_atomic
+from caseprep.contract.convergence import settle_window
+from caseprep.contract.monitor import read_monitor
 from caseprep.contract.errors import UserError
 from caseprep.contract.manifest import CaseRecord, Manifest, read_manifest
-from caseprep.contract.signals import StopRequested
 from caseprep.contract.records import Flag, Status, as_flag, effective_status, flag_meaning, read_case_record
+from caseprep.contract.signals import StopRequested
 from postproc.io.exports import latest_export
 from postproc.io.surfaces import read_surface
 from postproc.kernels import wallchecks as wc
@@ -53,9 +70,13 @@ from postproc.kernels.aeromap import fit_response_surface, map_grid
 from postproc.kernels.polygons import face_geometry
 from postproc.kernels.meshstudy import grid_convergence
 from postproc.kernels.ranking import CaseResult, VariantScore, rank_variants
+from postproc.pipelines.case_flow import FlowOptions, analyse_case_flow
 from postproc.pipelines.case_forces import ForcesReport, forces_report
+from postproc.pipelines.case_scene import scene_difference
 from postproc.pipelines.caseresults import (RESULTS_DIR, Fingerprint, fingerprint, read_case_result,
                                             write_case_result)
+from postproc.pipelines.report_data import (ReportOptions, assemble, check_baseline, choose_picture_cases,
+                                            history_from_monitor)
 from postproc.pipelines.shards import (ALL, OutputLock, Shard, manifest_digest, read_shard_states, run_cases,
                                        write_shard_state)
 
@@ -75,6 +96,10 @@ class CaseOutcome:
     notes: tuple[str, ...] = ()
     report: ForcesReport | None = field(default=None, repr=False)
     yplus: dict[str, dict] = field(default_factory=dict)
+    flow: dict[str, Any] = field(default_factory=dict)
+    scene: Any = field(default=None, repr=False)
+    history: Any = field(default=None, repr=False)
+    seconds: dict[str, float] = field(default_factory=dict)
     #: the forces report's JSON form when the outcome was read back from a
     #: stored result (``report`` is then None)
     stored_forces: dict[str, Any] | None = field(default=None, repr=False)
@@ -90,17 +115,24 @@ class CaseOutcome:
             a = self.yplus[ALL_WALLS]  # all body and wheel faces together
             r.update(yplus_median=a["median"], yplus_p95=a["p95"], yplus_max=a["max"],
                      yplus_share_in_range=a["share_in_target"], yplus_range="{:g}-{:g}".format(*a["target"]))
+        r.update(self.flow)
         r["notes"] = "; ".join(self.notes)
         return r
+
+    def forces_dict(self) -> dict[str, Any] | None:
+        """The forces report's JSON form (None without one)."""
+        return self.report.to_dict() if self.report is not None else self.stored_forces
 
     def to_json(self) -> dict[str, Any]:
         """The JSON form stored as the case's result (``results/<case>.json``):
         the ranking row (``result``), run facts, notes, the full forces report
-        (``forces``, None without an export), y+ per patch and the flags."""
+        (``forces``, None without an export), y+ per patch, the flow columns
+        and the flags. The picture scene and the force history are not
+        stored (rebuilt from the case's files when the report needs them)."""
         return json_ready({"result": asdict(self.result), "status": self.status, "cells": self.cells,
                            "iterations": self.iterations, "convergence": self.convergence, "layers": self.layers,
                            "notes": list(self.notes), "forces": self.forces_dict(), "yplus": self.yplus,
-                           "flags": list(self.result.flags)})
+                           "flow": self.flow, "flags": list(self.result.flags), "seconds": self.seconds})
 
     @classmethod
     def from_json(cls, d: dict[str, Any]) -> "CaseOutcome":
@@ -111,18 +143,14 @@ class CaseOutcome:
             r[k] = math.nan if r.get(k) is None else float(r[k])
         r["flags"] = tuple(as_flag(str(f)) for f in r.get("flags") or ())
         result = CaseResult(**r)
-        notes = d.get("notes") or []
-        yplus = d.get("yplus") or {}
+        notes, yplus, flow = d.get("notes") or [], d.get("yplus") or {}, d.get("flow") or {}
         forces = d.get("forces")
-        if not isinstance(notes, list) or not isinstance(yplus, dict) or not (forces is None or isinstance(forces, dict)):
+        if (not isinstance(notes, list) or not isinstance(yplus, dict) or not isinstance(flow, dict)
+                or not (forces is None or isinstance(forces, dict))):
             raise TypeError("per-case result of the wrong shape")
         return cls(result=result, status=str(d["status"]), cells=d.get("cells"), iterations=d.get("iterations"),
                    convergence=d.get("convergence"), layers=d.get("layers"), notes=tuple(str(n) for n in notes),
-                   stored_forces=forces, yplus=yplus)
-
-    def forces_dict(self) -> dict[str, Any] | None:
-        """The forces report's JSON form (None without one)."""
-        return self.report.to_dict() if self.report is not None else self.stored_forces
+                   yplus=yplus, flow=flow, seconds=dict(d.get("seconds") or {}), stored_forces=forces)
 
 
 ALL_WALLS = "all body and wheel patches"
@@ -195,9 +223,14 @@ def missing_outcome(manifest: Manifest, case: CaseRecord, why: str) -> CaseOutco
                        notes=(f"no post-processing result: {why}",))
 
 
-def process_case(manifest: Manifest, case: CaseRecord) -> CaseOutcome:
+def process_case(manifest: Manifest, case: CaseRecord, flow: FlowOptions | None = None) -> CaseOutcome:
     """Post-process one case of ``manifest``: its run record, its forces
-    report (when its export exists) and its :class:`CaseResult` row."""
+    report (when its export exists), its :class:`CaseResult` row, its force
+    history and, with ``flow``, its flow columns (and its picture scene when
+    ``flow.scene``)."""
+    import time
+
+    t_start = time.perf_counter()
     case_dir = manifest.case_dir(case)
     rec = read_case_record(case_dir)
     flags: list[str] = list(rec.flags) if rec is not None else []
@@ -260,9 +293,31 @@ def process_case(manifest: Manifest, case: CaseRecord) -> CaseOutcome:
     if rec is not None and rec.layers:
         layers = ", ".join(f"{d.get('patch')} {d.get('thickness_percent'):.0f} %" for d in rec.layers
                            if d.get("thickness_percent") is not None) or None
+    t_forces = time.perf_counter()
+    flow_cols: dict[str, Any] = {}
+    scene = None
+    if flow is not None and exported:
+        try:
+            cf = analyse_case_flow(case_dir, flow, label=case.case_id)
+            flow_cols = cf.metrics.to_dict()
+            scene = cf.scene
+            if cf.scene_error:
+                notes.append("picture: " + cf.scene_error)
+        except UserError as exc:
+            notes.append("flow: " + str(exc).splitlines()[0])
+    history = None
+    if report is not None:
+        try:
+            mon = read_monitor(case_dir)
+            n = len(mon.get("Time", ()))
+            history = history_from_monitor(case.case_id, mon, settle_window(n), verdict or "", bool(result.flags))
+        except UserError:
+            pass
     return CaseOutcome(result=result, status=status, cells=rec.cells if rec else None,
                        iterations=rec.iterations if rec else None, convergence=verdict,
-                       notes=tuple(notes), report=report, yplus=yplus, layers=layers)
+                       notes=tuple(notes), report=report, yplus=yplus, layers=layers, flow=flow_cols, scene=scene,
+                       history=history, seconds={"forces": t_forces - t_start,
+                                                 "flow": time.perf_counter() - t_forces})
 
 
 #: representative cell size of mesh level m relative to level 0: each level
@@ -341,10 +396,13 @@ def aero_maps(results: list[CaseResult]) -> list[dict[str, Any]]:
         if len(set(hf)) > 1 and len(set(hr)) > 1:
             front, rear, values = map_grid(fit, hf, hr, MAP_GRID_POINTS)
             grid = {"front": front, "rear": rear, "values": values}
+        measured = [-r.cl for r in rows]
         out.append({"variant": v, "coefficient": "downforce", "label": "−C_L", "degree": fit.degree,
                     "n_points": fit.n_points, "r2": fit.r2, "rms": fit.rms,
                     "d_front_per_mm": float(g[0]) / 1000.0, "d_rear_per_mm": float(g[1]) / 1000.0,
-                    "points": {"front": hf, "rear": hr}, "grid": grid})
+                    "points": {"front": hf, "rear": hr, "value": measured,
+                               "error": [float(fit(a, b)) - m for a, b, m in zip(hf, hr, measured)]},
+                    "grid": grid})
     return out
 
 
@@ -367,20 +425,80 @@ class SweepAnalysis:
     checks: tuple[dict[str, Any], ...] = ()
     outcomes: tuple[CaseOutcome, ...] = ()
     paths: dict[str, Path] = field(default_factory=dict)
+    report_data: Any = field(default=None, repr=False)
 
 
 def analyse_results(results: list[CaseResult], title: str = "Sweep report", study: str = "",
                     notes: list[str] | None = None, checks: list[dict] | None = None,
                     mesh: list[dict] | None = None) -> SweepAnalysis:
     """Rank the variants, fit the aero maps and (unless ``mesh`` is given)
-    run the mesh study over ``results``; returns the :class:`SweepAnalysis`."""
-    return SweepAnalysis(title=title, study=study, results=tuple(results), ranking=tuple(rank_variants(results)),
-                         aero_maps=tuple(aero_maps(results)),
-                         mesh_study=tuple(mesh_study(results) if mesh is None else mesh),
-                         notes=tuple(notes or ()), checks=tuple(checks or ()))
+    run the mesh study over ``results``; returns the :class:`SweepAnalysis`
+    with its report data (no flow numbers, pictures or histories: those
+    need the cases' files, :func:`postprocess_sweep`)."""
+    ranking = tuple(rank_variants(results))
+    maps = tuple(aero_maps(results))
+    study_rows = tuple(mesh_study(results) if mesh is None else mesh)
+    data = assemble(results, title=title, study=study, notes=notes or (), checks=checks or (),
+                    mesh_study=list(study_rows), aero_maps=list(maps), ranking=list(ranking),
+                    options=ReportOptions(pictures=False))
+    return SweepAnalysis(title=title, study=study, results=tuple(results), ranking=ranking, aero_maps=maps,
+                         mesh_study=study_rows, notes=tuple(notes or ()), checks=tuple(checks or ()),
+                         report_data=data)
 
 
 REPORT_NAME = "report.html"
+
+
+def _iterative_spread(outcomes: list[CaseOutcome]) -> dict[str, tuple[float, float]]:
+    """Per variant: the RMS over its unflagged cases of the runtime force
+    monitor's standard deviation over the settling window, as coefficient
+    half-widths (−C_L, C_D): the std of the body-axes force over qA (body
+    and wind axes differ by the pitch and yaw angles, a few degrees: cos 4°
+    = 0.998). Variants without monitor statistics are left out."""
+    acc: dict[str, list[tuple[float, float]]] = {}
+    for o in outcomes:
+        if o.result.flags:
+            continue
+        sz = sx = qa = None
+        rep = o.report
+        if rep is not None and rep.convergence is not None and rep.reference is not None:
+            stats = rep.convergence.series
+            fz, fx = stats.get("force.total_z"), stats.get("force.total_x")
+            sz, sx = (fz.std if fz is not None else None), (fx.std if fx is not None else None)
+            qa = float(rep.reference.q) * float(rep.reference.area)
+        elif rep is None and o.stored_forces:  # read back from a stored result: the same numbers as JSON
+            d = o.stored_forces
+            series = (d.get("convergence") or {}).get("series") or {}
+            ref = d.get("reference") or {}
+            sz = (series.get("force.total_z") or {}).get("std")
+            sx = (series.get("force.total_x") or {}).get("std")
+            if ref.get("q") is not None and ref.get("area") is not None:
+                qa = float(ref["q"]) * float(ref["area"])
+        if sz is None or sx is None or not qa or qa <= 0:
+            continue
+        sz, sx = float(sz), float(sx)
+        if math.isfinite(sz) and math.isfinite(sx):
+            acc.setdefault(o.result.variant, []).append((sz / qa, sx / qa))
+    return {v: (float(np.sqrt(np.mean([a * a for a, _ in xs]))), float(np.sqrt(np.mean([b * b for _, b in xs]))))
+            for v, xs in acc.items()}
+
+
+def _planned_rows(manifest: Manifest) -> list[CaseResult]:
+    """The sweep's points with the runner's flags, before any forces (to
+    choose the pictured cases while the cases are read the first time)."""
+    rows = []
+    for c in manifest.cases:
+        rec = read_case_record(manifest.case_dir(c))
+        p = c.params
+        rows.append(CaseResult(case_id=c.case_id, variant=c.variant,
+                               ride_height_front=float(p.get("ride_height_front", math.nan)),
+                               ride_height_rear=float(p.get("ride_height_rear", math.nan)),
+                               pitch_deg=float(p.get("pitch_deg", 0.0)), yaw_deg=float(p.get("yaw_deg", 0.0)),
+                               cl=0.0, cd=0.0, mesh_level=int(p.get("mesh_level", 0)),
+                               flags=tuple(rec.flags) if rec is not None else (Flag.NOT_RUN,)))
+    return rows
+
+
 TABLE_NAMES = ("results.csv", "results.json", REPORT_NAME)
 
 
@@ -390,23 +508,26 @@ class SweepOptions:
     ``postproc merge``).
 
     ``out_dir``: where the tables, ``results/`` and ``shards/`` go (default the
-    sweep folder); ``title`` of the report; ``force``: replace earlier tables;
-    ``jobs``: worker processes (each case read and reduced in one of them);
-    ``shard``: the part of the cases to process (:class:`Shard`; all by
-    default); ``recompute``: ignore reusable per-case results; ``wait``: s to
-    wait for another writer of the tables before giving up;
-    ``expected_shards``: for a merge, the number of shards the cases were
-    split into (names the missing ones; default from the shard states).
+    sweep folder); ``force``: replace earlier tables; ``jobs``: worker
+    processes (each case read and reduced in one of them); ``shard``: the
+    part of the cases to process (:class:`Shard`; all by default);
+    ``recompute``: ignore reusable per-case results; ``wait``: s to wait for
+    another writer of the tables before giving up; ``expected_shards``: for a
+    merge, the number of shards the cases were split into (names the missing
+    ones; default from the shard states); ``report``: the report's options
+    (title, baseline and pictured point, pictures or not); ``flow``: the
+    per-case flow pass (default :class:`FlowOptions`).
     """
 
     out_dir: str | os.PathLike | None = None
-    title: str | None = None
     force: bool = False
     jobs: int = 1
     shard: Shard = ALL
     recompute: bool = False
     wait: float = 300.0
     expected_shards: int | None = None
+    report: ReportOptions = ReportOptions()
+    flow: FlowOptions | None = None
 
 
 @dataclass(frozen=True)
@@ -461,18 +582,42 @@ def _refuse_existing_tables(out: Path, force: bool) -> None:
                         fix="pass --force to replace them, or -o to write somewhere else")
 
 
-_WORKER_MANIFEST: Manifest | None = None
+def _check_jobs(options: SweepOptions) -> None:
+    if options.jobs < 1:
+        raise UserError(expected="a number of worker processes ≥ 1", got=options.jobs, key="-j",
+                        fix="use -j 1 or more")
 
 
-def _worker_setup(manifest: Manifest) -> None:
-    global _WORKER_MANIFEST
-    _WORKER_MANIFEST = manifest
+def _report_options(manifest: Manifest, options: ReportOptions) -> tuple[ReportOptions, str | None]:
+    """The report options completed from the config's [report] settings
+    (carried by the manifest records) where not given; the checked baseline."""
+    variants = list(dict.fromkeys(c.variant for c in manifest.cases))
+    cfg = next((dict(c.info["report"]) for c in manifest.cases if isinstance(c.info.get("report"), dict)), {})
+    options = replace(
+        options,
+        baseline=options.baseline if options.baseline is not None else cfg.get("baseline"),
+        reference_ride_height=(options.reference_ride_height if options.reference_ride_height is not None
+                               else cfg.get("picture_ride_height")),
+        reference_yaw_deg=options.reference_yaw_deg if options.reference_yaw_deg is not None else cfg.get("picture_yaw_deg"))
+    baseline = check_baseline(options.baseline, variants,
+                              "--baseline" if options.baseline is None or "baseline" not in cfg
+                              else "report.baseline (config, in the manifest)")
+    return options, baseline
 
 
-def _worker_case(case_id: str) -> dict[str, Any]:
-    """Post-process one case in a worker; its JSON form goes back to the parent."""
-    assert _WORKER_MANIFEST is not None
-    return process_case(_WORKER_MANIFEST, _WORKER_MANIFEST.case(case_id)).to_json()
+_WORKER: dict[str, Any] = {}
+
+
+def _worker_setup(manifest: Manifest, flow: FlowOptions, scenes: frozenset[str]) -> None:
+    _WORKER.update(manifest=manifest, flow=flow, scenes=scenes)
+
+
+def _worker_case(case_id: str) -> tuple[dict[str, Any], Any]:
+    """Post-process one case in a worker: its JSON form and its picture scene
+    (None unless it is a pictured case) go back to the parent."""
+    m: Manifest = _WORKER["manifest"]
+    o = process_case(m, m.case(case_id), replace(_WORKER["flow"], scene=case_id in _WORKER["scenes"]))
+    return o.to_json(), o.scene
 
 
 def postprocess_shard(sweep_dir: str | os.PathLike, options: SweepOptions = SweepOptions(),
@@ -488,15 +633,16 @@ def postprocess_shard(sweep_dir: str | os.PathLike, options: SweepOptions = Swee
     unfinished cases ``interrupted``, :class:`StopRequested` propagates.
     """
     manifest = read_manifest(sweep_dir)
-    if options.jobs < 1:
-        raise UserError(expected="a number of worker processes ≥ 1", got=options.jobs, key="-j",
-                        fix="use -j 1 or more")
-    return _process_shard(manifest, _out_folder(manifest, sweep_dir, options), options, progress)
+    _check_jobs(options)
+    return _process_shard(manifest, _out_folder(manifest, sweep_dir, options), options, progress, frozenset())
 
 
 def _process_shard(manifest: Manifest, out: Path, options: SweepOptions,
-                   progress: Callable[[CaseProgress], None] | None) -> ShardRun:
+                   progress: Callable[[CaseProgress], None] | None, scenes: frozenset[str]) -> ShardRun:
+    """The cases of ``options.shard``; ``scenes``: case ids whose picture
+    scene is built while the case is read (reused cases get none)."""
     shard = options.shard
+    flow = options.flow or FlowOptions()
     cases = shard.select(list(manifest.cases))
     t0 = time.monotonic()
     started = _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ")
@@ -535,17 +681,18 @@ def _process_shard(manifest: Manifest, out: Path, options: SweepOptions,
                 reasons[c.case_id] = st.why
         todo.append(c)
 
-    def on_result(k: int, payload: dict[str, Any]) -> None:
+    def on_result(k: int, value: tuple[dict[str, Any], Any]) -> None:
+        payload, scene = value
         cid = todo[k].case_id
         write_case_result(out, cid, manifest.study, fps[cid], payload)
-        o = CaseOutcome.from_json(payload)
+        o = replace(CaseOutcome.from_json(payload), scene=scene)
         outcomes[cid] = o
         state[cid] = "computed"
         report(o, False)
 
     try:
         run_cases(_worker_case, [c.case_id for c in todo], options.jobs, on_result,
-                  init=_worker_setup, init_args=(manifest,))
+                  init=_worker_setup, init_args=(manifest, flow, scenes))
     except StopRequested:
         state = {k: ("interrupted" if v == "pending" else v) for k, v in state.items()}
         write_shard_state(out, manifest, shard, "interrupted", state, started)
@@ -568,12 +715,16 @@ def postprocess_sweep(
 
     ``options.out_dir`` defaults to the sweep folder. Existing tables
     (``results.csv``, ``results.json``, the report) are not replaced unless
-    ``options.force`` (UserError naming the file). ``render(analysis, path)``
-    writes the report while the tables' lock is held (so the three files
-    come from one run). Returns the :class:`SweepAnalysis` with the outcomes
-    and the paths (keys ``csv``, ``json``, ``cases`` written; ``report``
-    where the report belongs). Raises UserError for a folder that is not a
-    sweep.
+    ``options.force`` (UserError naming the file). ``options.report``
+    chooses the pictured operating point and the baseline of the difference
+    pictures (a baseline that is not a variant of the sweep is a UserError
+    naming the available ones) and whether pictures are wanted.
+    ``render(analysis, path)`` writes the report while the tables' lock is
+    held (so the three files come from one run). Returns the
+    :class:`SweepAnalysis` with the outcomes, the paths (keys ``csv``,
+    ``json``, ``cases`` written; ``report`` where the report belongs) and
+    ``report_data``, what the report renders. Raises UserError for a
+    folder that is not a sweep.
     """
     manifest = read_manifest(sweep_dir)
     out = _out_folder(manifest, sweep_dir, options)
@@ -581,10 +732,13 @@ def postprocess_sweep(
         raise UserError(expected="all cases for the tables", got=f"shard {options.shard}", key="--shard",
                         fix="process shards with postprocess_shard, then merge them")
     _refuse_existing_tables(out, options.force)
-    if options.jobs < 1:
-        raise UserError(expected="a number of worker processes ≥ 1", got=options.jobs, key="-j",
-                        fix="use -j 1 or more")
-    run = _process_shard(manifest, out, options, progress)
+    _check_jobs(options)
+    ropts, _ = _report_options(manifest, options.report)
+    variants = list(dict.fromkeys(c.variant for c in manifest.cases))
+    # the pictured cases, from the plan and the runner's flags (forces may add flags: checked at assembly)
+    want_scene = (frozenset(pc.case_id for pc in choose_picture_cases(_planned_rows(manifest), variants, ropts))
+                  if ropts.pictures else frozenset())
+    run = _process_shard(manifest, out, options, progress, want_scene)
     outcomes = [run.outcomes[c.case_id] for c in manifest.cases]
     return _assemble(manifest, out, outcomes, options, [], render)
 
@@ -598,7 +752,8 @@ def merge_results(
     shards ran): a case without a usable result (missing, stale, corrupt,
     of another study) gets the ``results-missing`` flag and a note, the
     shards holding such cases are named (:class:`MergeGap`), and everything
-    else is written. Computes nothing per case.
+    else is written. Computes nothing per case but the pictured cases'
+    scenes.
 
     UserError for shard states of another study in the output folder (the
     results folder of a different sweep) or existing tables without
@@ -647,10 +802,30 @@ def merge_results(
     return _assemble(manifest, out, outcomes, options, notes, render), gap
 
 
+def _with_history(manifest: Manifest, o: CaseOutcome) -> CaseOutcome:
+    """The outcome with its force history (read from the case's runtime
+    monitor when the outcome came back from a stored result)."""
+    if o.history is not None or not (o.report is not None or o.stored_forces):
+        return o
+    try:
+        mon = read_monitor(manifest.case_dir(manifest.case(o.result.case_id)))
+    except UserError:
+        return o
+    n = len(mon.get("Time", ()))
+    hist = history_from_monitor(o.result.case_id, mon, settle_window(n), o.convergence or "", bool(o.result.flags))
+    return replace(o, history=hist)
+
+
 def _assemble(manifest: Manifest, out: Path, outcomes: list[CaseOutcome], options: SweepOptions,
               extra_notes: list[str], render) -> SweepAnalysis:
-    """Write results.csv/json (and the report through ``render``) under the
-    output folder's lock; returns the analysis."""
+    """Tables, analysis and report data from the outcomes; results.csv,
+    results.json (and the report, through ``render``) written under the
+    output folder's lock. Builds the pictured cases' scenes not built
+    while the cases were read."""
+    ropts, baseline = _report_options(manifest, options.report)
+    flow = options.flow or FlowOptions()
+    outcomes = [_with_history(manifest, o) for o in outcomes]
+    variants = list(dict.fromkeys(c.variant for c in manifest.cases))
     rows = [o.row() for o in outcomes]
     paths = {
         "csv": out / "results.csv",
@@ -666,10 +841,58 @@ def _assemble(manifest: Manifest, out: Path, outcomes: list[CaseOutcome], option
     check_keys = ("case_id", "status", "cells", "layers", "iterations", "convergence", "yplus_median", "yplus_p95",
                   "yplus_share_in_range", "yplus_range")
     checks = [{k: r.get(k) for k in check_keys} for r in rows]
-    analysis = analyse_results([o.result for o in outcomes],
-                               title=options.title or f"Sweep report — {manifest.study or out.name}",
-                               study=manifest.study, notes=notes, checks=checks)
-    analysis = replace(analysis, outcomes=tuple(outcomes), paths=paths)
+    title = ropts.title or f"Sweep report — {manifest.study or out.name}"
+    analysis = analyse_results([o.result for o in outcomes], title=title, study=manifest.study, notes=notes,
+                               checks=checks)
+    # the pictured cases, now with every flag known; a scene not built while the case was read is built now
+    results = [o.result for o in outcomes]
+    skipped: list[tuple[str, str]] = []
+    pcs = choose_picture_cases(results, variants, ropts) if ropts.pictures else []
+    by_id = {o.result.case_id: o for o in outcomes}
+    scenes = []
+    for pc in pcs:
+        o = by_id[pc.case_id]
+        sc = o.scene
+        tried = next((n for n in o.notes if n.startswith(("picture: ", "flow: "))), None)
+        if sc is None and tried:
+            skipped.append((pc.case_id, tried.split(": ", 1)[1]))
+        elif sc is None:
+            try:
+                cf = analyse_case_flow(manifest.case_dir(manifest.case(pc.case_id)), replace(flow, scene=True),
+                                       label=pc.case_id)
+                sc = cf.scene
+                if sc is None:
+                    skipped.append((pc.case_id, cf.scene_error or "no picture scene"))
+            except UserError as exc:
+                skipped.append((pc.case_id, str(exc).splitlines()[0]))
+        if sc is not None:
+            scenes.append(sc)
+    if ropts.pictures:
+        for v in variants:
+            if v not in {pc.variant for pc in pcs}:
+                skipped.append((v, "no usable case with a volume result to picture"))
+    base = next((sc for sc in scenes if sc.variant == baseline), None)
+    scenes = [scene_difference(sc, base) for sc in scenes]
+    flow_rows = {o.result.case_id: {"variant": o.result.variant, **o.flow} for o in outcomes if o.flow}
+    # analysis results beside the tables (ties, peak/stall, platform), when present: optional report sections
+    extra = []
+    analysis_doc = None
+    apath = out / "analysis.json"
+    if apath.is_file():
+        try:
+            analysis_doc = json.loads(apath.read_text(encoding="utf-8"))
+            if not isinstance(analysis_doc, dict):
+                raise ValueError("not a JSON object")
+        except (ValueError, UnicodeDecodeError) as exc:
+            analysis_doc = None
+            extra.append(f"{apath} not used: {exc}")
+    data = assemble(results, title=title, study=manifest.study, notes=notes + extra, checks=checks,
+                    mesh_study=list(analysis.mesh_study), aero_maps=list(analysis.aero_maps), flow_rows=flow_rows,
+                    scenes=scenes, picture_cases=pcs, pictures_skipped=skipped,
+                    histories=[o.history for o in outcomes if o.history is not None],
+                    spread=_iterative_spread(outcomes), options=replace(ropts, baseline=baseline),
+                    ranking=list(analysis.ranking), analysis=analysis_doc)
+    analysis = replace(analysis, outcomes=tuple(outcomes), paths=paths, report_data=data)
     with OutputLock(out, timeout=options.wait):
         _refuse_existing_tables(out, options.force)  # another writer may have finished meanwhile
         write_text_atomic(paths["csv"], _csv(rows))

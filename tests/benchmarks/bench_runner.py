@@ -23,6 +23,7 @@ import argparse
 import json
 import math
 import os
+import resource
 import shutil
 import subprocess
 import sys
@@ -62,23 +63,29 @@ def load1() -> float:
 
 
 def run_layout(base: Path, dest: Path, args: list[str]) -> dict:
+    """Wall time and CPU time (user + system of the command and everything
+    it started) of `caseprep run` on a fresh copy of the sweep."""
     shutil.copytree(base, dest, symlinks=True)
     l0 = load1()
+    r0 = resource.getrusage(resource.RUSAGE_CHILDREN)
     t0 = time.monotonic()
     res = subprocess.run([str(BIN / "caseprep"), "run", str(dest), "-q", *args], capture_output=True, text=True)
     dt = time.monotonic() - t0
-    if res.returncode != 0:
-        print(res.stdout[-3000:], res.stderr[-2000:])
-        raise SystemExit(f"caseprep run {' '.join(args)} failed (exit {res.returncode})")
+    r1 = resource.getrusage(resource.RUSAGE_CHILDREN)
+    cpu = (r1.ru_utime - r0.ru_utime) + (r1.ru_stime - r0.ru_stime)
+    if res.returncode != 0:  # a failed case is reported and the comparison goes on without it
+        print(f"\ncaseprep run {' '.join(args)} exit {res.returncode}:\n" + res.stdout[-1500:])
     layout = next((ln for ln in res.stdout.splitlines() if "core(s)" in ln), "")
-    return {"wall_s": round(dt, 1), "load_before": round(l0, 2), "load_after": round(load1(), 2), "layout": layout}
+    return {"wall_s": round(dt, 1), "cpu_s": round(cpu, 1), "load_before": round(l0, 2),
+            "load_after": round(load1(), 2), "layout": layout}
 
 
 def coefficients(sweep: Path) -> dict[str, tuple[float, float]]:
-    subprocess.run([str(BIN / "postproc"), "sweep", str(sweep), "-q", "--force"], check=True,
+    subprocess.run([str(BIN / "postproc"), "sweep", str(sweep), "-q", "--force", "--no-pictures"], check=True,
                    stdout=subprocess.DEVNULL)
     rows = json.loads((sweep / "results.json").read_text())["cases"]
-    return {r["case_id"]: (r["cl"], r["cd"]) for r in rows}
+    nan = float("nan")
+    return {r["case_id"]: (nan if r["cl"] is None else r["cl"], nan if r["cd"] is None else r["cd"]) for r in rows}
 
 
 def main(argv=None) -> int:
@@ -103,7 +110,8 @@ def main(argv=None) -> int:
                 print(f"{cond:7s} {name:16s} …", end="", flush=True)
                 r = run_layout(base, dest, args)
                 results["runs"][f"{cond} {name}"] = r
-                print(f" {r['wall_s']:7.1f} s  (load {r['load_before']}→{r['load_after']}) {r['layout']}", flush=True)
+                print(f" {r['wall_s']:7.1f} s wall, {r['cpu_s']:7.1f} s CPU  (load {r['load_before']}→"
+                      f"{r['load_after']}) {r['layout']}", flush=True)
                 coeffs[(cond, name)] = coefficients(dest)
         finally:
             if hog is not None:
@@ -114,16 +122,18 @@ def main(argv=None) -> int:
         d = results["runs"][f"{cond} default"]["wall_s"]
         m = results["runs"][f"{cond} -j 1 --ranks 2"]["wall_s"]
         results[f"ratio_{cond}"] = round(m / d, 2)
+        cd = results["runs"][f"{cond} default"]["cpu_s"]
+        cm = results["runs"][f"{cond} -j 1 --ranks 2"]["cpu_s"]
         print(f"{cond}: default {d:.1f} s, -j 1 --ranks 2 {m:.1f} s: default {m / d:.2f}× faster "
-              f"(target {'1.3' if cond == 'quiet' else '2.5'}×)")
+              f"(target {'1.3' if cond == 'quiet' else '2.5'}×); CPU {cd:.0f} s against {cm:.0f} s")
     ref = coeffs[(a.conditions.split(",")[0], "default")]
     worst = 0.0
     for key, c in coeffs.items():
         for cid, (cl, cd) in c.items():
-            rl, rd = ref[cid]
-            if not all(map(math.isfinite, (cl, cd, rl, rd))):
+            if cid not in ref or not all(map(math.isfinite, (cl, cd, *ref[cid]))):
                 print(f"  {key} {cid}: no coefficients")
                 continue
+            rl, rd = ref[cid]
             worst = max(worst, abs(cl - rl) / max(abs(rl), 1e-9), abs(cd - rd) / max(abs(rd), 1e-9))
     results["max_relative_coefficient_difference"] = worst
     print(f"largest relative difference of C_L or C_D between layouts and runs: {100 * worst:.2f} % "

@@ -174,7 +174,7 @@ def main(argv: list[str] | None = None) -> int:
         t_post = time.monotonic()
         analysis = postprocess_sweep(sweep_dir, opts, progress=post_progress, render=render)
         paths = analysis.paths
-        info = written["info"]
+        info = written.get("info")  # None: nothing changed since the report was written
         t_post = time.monotonic() - t_post
     except UserError as exc:
         return _stop(str(exc), 2)
@@ -185,9 +185,10 @@ def main(argv: list[str] | None = None) -> int:
     say(runner.format_summary_table(recs))
     failed = [r for r in recs if r.failed]
     say("")
-    say(f"report: {paths['report']} ({info.size / 1e6:.2f} MB; post-processing and report "
-        f"{runner.format_duration(t_post)}, pictures {info.seconds.get('pictures', 0.0):.1f} s"
-        f"{'' if info.backend else ', no pictures: see the report'}); tables: {paths['csv']}, {paths['json']}; "
+    made = ("nothing changed since it was written" if info is None else
+            f"{info.size / 1e6:.2f} MB; post-processing and report {runner.format_duration(t_post)}, pictures "
+            f"{info.seconds.get('pictures', 0.0):.1f} s{'' if info.backend else ', no pictures: see the report'}")
+    say(f"report: {paths['report']} ({made}); tables: {paths['csv']}, {paths['json']}; "
         f"run records: {sweep_dir / SUMMARY_NAME}")
     say(f"demo took {runner.format_duration(elapsed)}; {len(recs) - len(failed)} of {len(recs)} case(s) ran"
         + (f", {len(failed)} failed (see above)" if failed else ""))

@@ -218,6 +218,11 @@ def _write_report(analysis, path):
 
 def _tables_written(analysis) -> None:
     outcomes, paths = analysis.outcomes, analysis.paths
+    if analysis.up_to_date:
+        click.echo(f"{len(outcomes)} case(s): nothing changed since the tables and the report were written; "
+                   f"left as they are: {paths['csv']}, {paths['json']}, {paths['report']}")
+        click.echo(CAUTION)
+        return
     n_flag = sum(bool(o.result.flags) for o in outcomes)
     size = paths["report"].stat().st_size if paths["report"].is_file() else 0
     click.echo(f"{len(outcomes)} case(s), {n_flag} flagged (not ranked).")

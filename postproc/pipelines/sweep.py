@@ -426,6 +426,9 @@ class SweepAnalysis:
     outcomes: tuple[CaseOutcome, ...] = ()
     paths: dict[str, Path] = field(default_factory=dict)
     report_data: Any = field(default=None, repr=False)
+    #: True when nothing had changed since the tables and the report were
+    #: written (they were left as they are; no ranking or report data here)
+    up_to_date: bool = False
 
 
 def analyse_results(results: list[CaseResult], title: str = "Sweep report", study: str = "",
@@ -715,7 +718,11 @@ def postprocess_sweep(
 
     ``options.out_dir`` defaults to the sweep folder. Existing tables
     (``results.csv``, ``results.json``, the report) are not replaced unless
-    ``options.force`` (UserError naming the file). ``options.report``
+    ``options.force`` (UserError naming the file, before any case is
+    computed); when nothing changed since they were made (every case's
+    result stored for its current inputs, the same options: the digest in
+    ``results.json``) they are left as they are and the analysis comes back
+    with ``up_to_date`` set. ``options.report``
     chooses the pictured operating point and the baseline of the difference
     pictures (a baseline that is not a variant of the sweep is a UserError
     naming the available ones) and whether pictures are wanted.
@@ -731,16 +738,71 @@ def postprocess_sweep(
     if options.shard != ALL:
         raise UserError(expected="all cases for the tables", got=f"shard {options.shard}", key="--shard",
                         fix="process shards with postprocess_shard, then merge them")
-    _refuse_existing_tables(out, options.force)
     _check_jobs(options)
     ropts, _ = _report_options(manifest, options.report)
     variants = list(dict.fromkeys(c.variant for c in manifest.cases))
     # the pictured cases, from the plan and the runner's flags (forces may add flags: checked at assembly)
     want_scene = (frozenset(pc.case_id for pc in choose_picture_cases(_planned_rows(manifest), variants, ropts))
                   if ropts.pictures else frozenset())
+    digest = _inputs_digest(manifest, out, options, ropts)
+    if not options.recompute:
+        same = _unchanged(manifest, out, digest)
+        if same is not None:  # nothing to compute and nothing to rewrite
+            title = ropts.title or f"Sweep report — {manifest.study or out.name}"
+            return SweepAnalysis(title=title, study=manifest.study, results=tuple(o.result for o in same),
+                                 ranking=(), aero_maps=(), mesh_study=(), outcomes=tuple(same),
+                                 paths=_table_paths(out), up_to_date=True)
+    _refuse_existing_tables(out, options.force)
     run = _process_shard(manifest, out, options, progress, want_scene)
     outcomes = [run.outcomes[c.case_id] for c in manifest.cases]
-    return _assemble(manifest, out, outcomes, options, [], render)
+    return _assemble(manifest, out, outcomes, options, [], render, digest)
+
+
+def _table_paths(out: Path) -> dict[str, Path]:
+    return {"csv": out / "results.csv", "json": out / "results.json", "report": out / REPORT_NAME,
+            "cases": out / RESULTS_DIR}
+
+
+def _inputs_digest(manifest: Manifest, out: Path, options: SweepOptions, ropts: ReportOptions) -> str:
+    """SHA-256 of everything the tables and the report are made from: each
+    case's fingerprint (:mod:`postproc.pipelines.caseresults`), the report
+    and flow options, the analysis results beside the tables, the version."""
+    import hashlib
+
+    from caseprep.contract import __version__
+
+    try:
+        analysis = hashlib.sha256((out / "analysis.json").read_bytes()).hexdigest()
+    except OSError:
+        analysis = None
+    doc = {"cases": [[c.case_id, fingerprint(manifest.case_dir(c), c).digest] for c in manifest.cases],
+           "report": asdict(ropts), "flow": asdict(options.flow or FlowOptions()), "analysis": analysis,
+           "version": __version__}
+    return "sha256:" + hashlib.sha256(json.dumps(json_ready(doc), sort_keys=True).encode()).hexdigest()
+
+
+def _unchanged(manifest: Manifest, out: Path, digest: str) -> list[CaseOutcome] | None:
+    """The stored outcomes when the tables and the report exist and were
+    made from exactly these inputs (``digest``) with every case's result
+    stored and usable; None otherwise."""
+    paths = _table_paths(out)
+    if not all(paths[k].is_file() for k in ("csv", "json", "report")):
+        return None
+    try:
+        if json.loads(paths["json"].read_text(encoding="utf-8")).get("inputs") != digest:
+            return None
+    except (OSError, ValueError, AttributeError):
+        return None
+    outcomes = []
+    for c in manifest.cases:
+        st = read_case_result(out, c.case_id, manifest.study, fingerprint(manifest.case_dir(c), c))
+        if not st.usable:
+            return None
+        try:
+            outcomes.append(CaseOutcome.from_json(st.payload))
+        except (KeyError, TypeError, ValueError):
+            return None
+    return outcomes
 
 
 def merge_results(
@@ -799,7 +861,9 @@ def merge_results(
                    and st.shard.count == n]
         gap = MergeGap(cases=gaps, shards=tuple(shards))
         notes.append(gap.message())
-    return _assemble(manifest, out, outcomes, options, notes, render), gap
+    ropts, _ = _report_options(manifest, options.report)
+    digest = None if gap else _inputs_digest(manifest, out, options, ropts)
+    return _assemble(manifest, out, outcomes, options, notes, render, digest), gap
 
 
 def _with_history(manifest: Manifest, o: CaseOutcome) -> CaseOutcome:
@@ -817,22 +881,18 @@ def _with_history(manifest: Manifest, o: CaseOutcome) -> CaseOutcome:
 
 
 def _assemble(manifest: Manifest, out: Path, outcomes: list[CaseOutcome], options: SweepOptions,
-              extra_notes: list[str], render) -> SweepAnalysis:
+              extra_notes: list[str], render, digest: str | None = None) -> SweepAnalysis:
     """Tables, analysis and report data from the outcomes; results.csv,
-    results.json (and the report, through ``render``) written under the
-    output folder's lock. Builds the pictured cases' scenes not built
-    while the cases were read."""
+    results.json (with ``digest``, what they were made from, see
+    :func:`_inputs_digest`) and the report (through ``render``) written
+    under the output folder's lock. Builds the pictured cases' scenes not
+    built while the cases were read."""
     ropts, baseline = _report_options(manifest, options.report)
     flow = options.flow or FlowOptions()
     outcomes = [_with_history(manifest, o) for o in outcomes]
     variants = list(dict.fromkeys(c.variant for c in manifest.cases))
     rows = [o.row() for o in outcomes]
-    paths = {
-        "csv": out / "results.csv",
-        "json": out / "results.json",
-        "report": out / REPORT_NAME,
-        "cases": out / RESULTS_DIR,
-    }
+    paths = _table_paths(out)
     notes = list(extra_notes)
     flags = sorted({f for o in outcomes for f in o.result.flags})
     for f in flags:
@@ -906,6 +966,7 @@ def _assemble(manifest: Manifest, out: Path, outcomes: list[CaseOutcome], option
             "ranking": [asdict(s) for s in analysis.ranking],
             "mesh_study": list(analysis.mesh_study),
             "aero_maps": list(analysis.aero_maps),
+            "inputs": digest,
         }))
         if render is not None:
             render(analysis, paths["report"])

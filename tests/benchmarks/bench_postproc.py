@@ -19,6 +19,7 @@ from __future__ import annotations
 import argparse
 import json
 import os
+import resource
 import shutil
 import subprocess
 import sys
@@ -30,9 +31,18 @@ ROOT = Path(__file__).resolve().parents[2]
 BIN = Path(sys.executable).parent
 
 
+CPU: list[float] = []  # CPU seconds (user + system, with child processes) of each measurement, in order
+
+
+def _cpu() -> float:
+    s, c = resource.getrusage(resource.RUSAGE_SELF), resource.getrusage(resource.RUSAGE_CHILDREN)
+    return s.ru_utime + s.ru_stime + c.ru_utime + c.ru_stime
+
+
 def timed(args: list[str]) -> float:
-    t0 = time.monotonic()
+    t0, c0 = time.monotonic(), _cpu()
     subprocess.run(args, check=True, stdout=subprocess.DEVNULL)
+    CPU.append(_cpu() - c0)
     return time.monotonic() - t0
 
 
@@ -40,8 +50,9 @@ def in_process(sweep: Path, out: Path, jobs: int, recompute: bool) -> float:
     """Seconds of the per-case work alone (no imports, no tables)."""
     from postproc.pipelines.sweep import SweepOptions, postprocess_shard
 
-    t0 = time.monotonic()
+    t0, c0 = time.monotonic(), _cpu()
     postprocess_shard(sweep, SweepOptions(out_dir=out, jobs=jobs, recompute=recompute))
+    CPU.append(_cpu() - c0)
     return time.monotonic() - t0
 
 
@@ -69,7 +80,8 @@ def main(argv=None) -> int:
                 work_only.append(in_process(sweep, out, jobs, recompute=True))
             res["cli"][jobs], res["work"][jobs] = min(cli), min(work_only)
             print(f"-j {jobs}: command {min(cli):6.2f} s (runs {', '.join(f'{t:.2f}' for t in cli)}); "
-                  f"case work {min(work_only):6.2f} s", flush=True)
+                  f"case work {min(work_only):6.2f} s; CPU of the last command and case work "
+                  f"{CPU[-2]:.1f} s, {CPU[-1]:.1f} s", flush=True)
         out = work / "j2-0"
         rerun = [timed([str(BIN / "postproc"), "sweep", str(sweep), "-o", str(out), "-q", "--force"])
                  for _ in range(a.repeat)]

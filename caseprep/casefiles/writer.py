@@ -50,6 +50,7 @@ from caseprep.casefiles.render import (CASES_DIR, GEOMETRY_DIR, CaseFile, output
                      surfaces)
 from caseprep.contract.atomicio import write_bytes_atomic, write_text_atomic
 from caseprep.planning.spec import CaseSpec
+from caseprep.geometry.stl import read_stl, stl_binary_bytes, write_stl_ascii
 
 
 @dataclass(frozen=True)
@@ -159,8 +160,35 @@ def _expected_solids(spec: CaseSpec) -> dict[str, list[str]]:
     return {s.file: [solid for solid, _ in s.regions] for s in surfaces(spec)}
 
 
+def _make_geometry(name: str, recipe: Mapping) -> bytes:
+    """A geometry file the planner asked for (``spec.extra["geometry_recipes"]``):
+    the ``source`` STL read in its ``unit``, the ``solids`` kept (None: all),
+    the points moved by p' = ``rotation`` @ p + ``offset`` (m; None: kept),
+    written as one binary STL solid (``solid_name`` given: a placed wheel)
+    or as ASCII with the kept solids' names (a body without its wheels)."""
+    try:
+        surf = read_stl(recipe["source"], recipe["unit"], default_name=recipe.get("solid_name") or "body")
+    except UserError as exc:
+        raise UserError(f"{exc} (making geometry/{name})") from None
+    if recipe.get("solids") is not None:
+        missing = [n for n in recipe["solids"] if n not in surf.solid_names]
+        if missing:
+            raise UserError(expected=f"the solids {missing} in {recipe['source']}", got=list(surf.solid_names),
+                            file=str(recipe["source"]), key="geometry solids", fix="check the solid names of the file")
+        surf = surf.select(recipe["solids"])
+    tris = surf.triangles
+    if recipe.get("rotation") is not None:
+        R = np.asarray(recipe["rotation"], dtype=float).reshape(3, 3)
+        tris = tris @ R.T + np.asarray(recipe["offset"], dtype=float).reshape(3)
+    if recipe.get("solid_name"):
+        return stl_binary_bytes(tris)
+    groups = [(n, tris[surf.solid == i]) for i, n in enumerate(surf.solid_names)]
+    return write_stl_ascii(None, groups).encode()
+
+
 def _prepare_geometry(specs: Sequence[CaseSpec], sources: Mapping, config_dir: Path) -> dict[str, bytes]:
-    """Bytes of each shared geometry file (copied, scaled or converted once)."""
+    """Bytes of each shared geometry file (copied, scaled, converted or made
+    from a recipe once)."""
     out: dict[str, bytes] = {}
     want: dict[str, tuple[list[str], CaseSpec, float]] = {}
     for spec in specs:
@@ -174,6 +202,10 @@ def _prepare_geometry(specs: Sequence[CaseSpec], sources: Mapping, config_dir: P
                                 fix="give differing surfaces different file names")
             want[name] = (solids, spec, scale)
     for name, (solids, spec, scale) in want.items():
+        recipe = (spec.extra.get("geometry_recipes") or {}).get(name)
+        if recipe is not None and name not in sources:
+            out[name] = _make_geometry(name, recipe)
+            continue
         src = _resolve_source(name, spec, sources, config_dir)
         is_stl = src.suffix.lower() == ".stl"
         if is_stl:

@@ -47,6 +47,7 @@ KEYS: dict[str, tuple[str, str, str]] = {
     "air.density": ("kg/m³", "density", "p/(R T)"),
     "air.viscosity": ("Pa s", "dynamic viscosity", "Sutherland's law"),
     "air.kinematic_viscosity": ("m²/s", "kinematic viscosity (overrides viscosity/density)", "μ/ρ"),
+    "air.underfloor_speed_factor": ("—", "peak underfloor speed / air speed: first-cell sizing and the Mach check", "1.4"),
     "ground.mode": ("—", "moving | stationary | none (far field, no ground)", '"moving"'),
     "body.length_unit": ("—", "unit of the geometry files: m | mm | in", '"m"'),
     "body.reference_area": ("m²", 'reference area, or "auto" (frontal area of the first variant)', '"auto"'),
@@ -62,9 +63,14 @@ KEYS: dict[str, tuple[str, str, str]] = {
     "body.wheels[].name": ("—", "wheel name (patch name)", "required"),
     "body.wheels[].centre": ("m", "wheel centre (body frame)", "required"),
     "body.wheels[].axis": ("—", "rotation axis (body frame)", "[0, 1, 0]"),
-    "body.wheels[].radius": ("m", "rolling radius", "required"),
+    "body.wheels[].radius": ("m", "unloaded rolling radius (the centre stands at the loaded radius, radius × (1 − flattening))", "required"),
     "body.wheels[].geometry": ("—", "STL file of the wheel (same length_unit)", "none"),
     "body.wheels[].solid": ("—", "or: name of the wheel's solid in the body STL", "none"),
+    "body.wheels[].steering_deg": ("deg", "steering angle about the ground normal (positive: front of the wheel to the driver's left)", "0"),
+    "body.wheels[].camber_deg": ("deg", "camber angle (positive: top of the wheel leaning away from the centre plane)", "0"),
+    "body.wheels[].flattening": ("—", "depth the tyre is sunk into the ground, fraction of the radius (flat contact patch)", "0.02"),
+    "body.wheels[].rotation": ("—", "wall (rotating wall, axisymmetric wheels) | zone (also a rotating reference zone, spoked wheels)", '"wall"'),
+    "body.wheels[].zone_radius": ("m", "radius of the rotating reference zone (rotation = \"zone\")", "0.75 × radius"),
     "variants.<name>.geometry": ("—", 'STL file of this variant (relative to the config), or "none" (empty test section)', "required"),
     "variants.<name>.length_unit": ("—", "overrides body.length_unit", "body.length_unit"),
     "variants.<name>.reference_area": ("m²", "overrides body.reference_area", "body.reference_area"),
@@ -91,13 +97,14 @@ KEYS: dict[str, tuple[str, str, str]] = {
     "mesh.surface_levels": ("—", "[min, max] refinement levels on the body", "preset"),
     "mesh.feature_level": ("—", "refinement level of feature edges", "preset"),
     "mesh.max_level": ("—", "finest level allowed (underbody gap)", "preset"),
-    "mesh.gap_cells": ("—", "cells required across the smallest ground clearance", "preset"),
-    "mesh.target_yplus": ("—", "target y+ of the first cell", "preset"),
+    "mesh.gap_cells": ("—", "cells required across the reference clearance (the lower ride height): prism layers and core cells", "preset"),
+    "mesh.target_yplus": ("—", "y+ at the first cell centre at mesh level 0 (flat-plate estimate at the underfloor speed)", "preset"),
+    "mesh.wall_treatment": ("—", "wall-function | low-re (viscous sublayer resolved, y+ ≈ 1)", '"wall-function"'),
     "mesh.layers": ("—", "number of prism layers (0: none)", "preset"),
     "mesh.layer_expansion": ("—", "layer growth ratio", "preset"),
     "mesh.ground_first_cell": ("m", "empty test section: height of the first background cell on the ground (graded upwards)", "uniform cells"),
-    "domain.upstream": ("body lengths", "inlet distance ahead of the body", "3"),
-    "domain.downstream": ("body lengths", "outlet distance behind the body", "6"),
+    "domain.upstream": ("body lengths", "inlet distance ahead of the body", "5"),
+    "domain.downstream": ("body lengths", "outlet distance behind the body", "10"),
     "domain.length": ("m", "empty test section: length from inlet to outlet", "required with geometry = \"none\""),
     "domain.lead_in": ("m", "empty test section: slip floor from the inlet to the ground's leading edge (part of domain.length)", "0"),
     "domain.width": ("m", "domain width (default: sized for blockage)", "auto"),
@@ -108,9 +115,16 @@ KEYS: dict[str, tuple[str, str, str]] = {
     "solver.iterations": ("—", "iterations", "preset"),
     "solver.write_interval": ("—", "iterations between result writes", "iterations"),
     "solver.ranks": ("—", "parallel ranks (MPI processes)", "1"),
-    "solver.turbulence_intensity": ("—", "inlet turbulence intensity (fraction)", "0.005"),
-    "solver.turbulence_length_scale": ("m", "inlet turbulence length scale", "0.001 × reference length"),
+    "solver.turbulence_intensity": ("—", "free-stream turbulence intensity at the model (fraction)", "0.005"),
+    "solver.turbulence_length_scale": ("m", "free-stream turbulence length scale at the model", "0.02 × body length"),
 }
+
+
+#: Plausible wheel angles (common practice, no source): the steering lock of
+#: a road car is about 35–40 deg at the wheel; race cars run a few degrees of
+#: camber.
+MAX_STEERING_DEG = 40.0
+MAX_CAMBER_DEG = 10.0
 
 
 def _check_name(v: str) -> str:
@@ -141,6 +155,7 @@ class AirCfg(_M):
     density: float | None = None
     viscosity: float | None = None
     kinematic_viscosity: float | None = None
+    underfloor_speed_factor: float = 1.4
 
 
 class GroundCfg(_M):
@@ -154,6 +169,11 @@ class WheelCfg(_M):
     axis: Vec3 = (0.0, 1.0, 0.0)
     geometry: str | None = None
     solid: str | None = None
+    steering_deg: float = 0.0
+    camber_deg: float = 0.0
+    flattening: float = 0.02
+    rotation: Literal["wall", "zone"] = "wall"
+    zone_radius: float | None = None
 
     @field_validator("name")
     @classmethod
@@ -217,13 +237,14 @@ class MeshCfg(_M):
     layers: int | None = None
     layer_expansion: float | None = None
     ground_first_cell: float | None = None
+    wall_treatment: Literal["wall-function", "low-re"] = "wall-function"
 
 
 class DomainCfg(_M):
     length: float | None = None
     lead_in: float | None = None
-    upstream: float = 3.0
-    downstream: float = 6.0
+    upstream: float = 5.0
+    downstream: float = 10.0
     width: float | None = None
     height: float | None = None
     target_blockage: float = 0.01
@@ -453,6 +474,10 @@ def _semantic(cfg: Config, base: Path, file: str) -> list[UserError]:
                               file=file, key="air.altitude"))
     for k in ("density", "viscosity", "kinematic_viscosity"):
         _positive(errs, file, f"air.{k}", getattr(a, k), KEYS[f"air.{k}"][0])
+    if not 1.0 <= a.underfloor_speed_factor <= 3.0:
+        errs.append(UserError(expected="an underfloor speed factor from 1.0 to 3.0 (peak speed under the floor / air speed)",
+                              got=a.underfloor_speed_factor, file=file, key="air.underfloor_speed_factor",
+                              fix="1.3–1.5 is typical of a ground-effect floor (a suction peak C_p of about −1)"))
 
     if not cfg.variants:
         errs.append(UserError(expected="at least one [variants.NAME] table", got="none", file=file, key="variants",
@@ -508,6 +533,25 @@ def _semantic(cfg: Config, base: Path, file: str) -> list[UserError]:
                                   fix="check the path (relative to the config file's folder)"))
         if sum(c * c for c in w.axis) == 0:
             errs.append(UserError(expected="a non-zero axis vector", got=w.axis, file=file, key=key + ".axis"))
+        elif w.axis[0] ** 2 + w.axis[1] ** 2 < 1e-6 * sum(c * c for c in w.axis):
+            errs.append(UserError(expected="a wheel axis with a horizontal part (the wheel stands on the ground)", got=w.axis,
+                                  file=file, key=key + ".axis", fix="give the axle direction, e.g. [0, 1, 0]"))
+        if not abs(w.steering_deg) <= MAX_STEERING_DEG:
+            errs.append(UserError(expected=f"a steering angle with |δ| ≤ {MAX_STEERING_DEG:g} deg (road-car steering lock)",
+                                  got=w.steering_deg, file=file, key=key + ".steering_deg", fix="angles are in degrees"))
+        if not abs(w.camber_deg) <= MAX_CAMBER_DEG:
+            errs.append(UserError(expected=f"a camber angle with |γ| ≤ {MAX_CAMBER_DEG:g} deg", got=w.camber_deg, file=file,
+                                  key=key + ".camber_deg", fix="angles are in degrees"))
+        if not 0.0 <= w.flattening <= 0.1:
+            errs.append(UserError(expected="a flattening from 0 to 0.1 of the radius (0.02: sunk 2 % into the ground)",
+                                  got=w.flattening, file=file, key=key + ".flattening"))
+        if w.zone_radius is not None and w.rotation != "zone":
+            errs.append(UserError(expected='zone_radius only with rotation = "zone"', got=w.zone_radius, file=file,
+                                  key=key + ".zone_radius", fix='remove it or set rotation = "zone"'))
+        elif w.zone_radius is not None and w.radius > 0 and not 0.0 < w.zone_radius < w.radius * (1.0 - w.flattening):
+            errs.append(UserError(expected="a rotating-zone radius between 0 and the loaded radius (the zone must not reach the ground)",
+                                  got=w.zone_radius, file=file, key=key + ".zone_radius",
+                                  fix=f"use at most {w.radius * (1.0 - w.flattening):.4g} m (a rim's radius is typical)"))
     names = [w.name for w in b.wheels]
     for n in set(names):
         if names.count(n) > 1:
@@ -607,6 +651,16 @@ def _semantic(cfg: Config, base: Path, file: str) -> list[UserError]:
             errs.append(UserError(expected="a level from 0 to 12", got=v, file=file, key=f"mesh.{k}"))
     if m.layers is not None and not 0 <= m.layers <= 40:
         errs.append(UserError(expected="a number of layers from 0 to 40", got=m.layers, file=file, key="mesh.layers"))
+    if m.wall_treatment == "low-re" and cfg.solver.turbulence_model == "laminar":
+        errs.append(UserError(expected="mesh.wall_treatment only with a turbulence model", got="low-re with laminar flow",
+                              file=file, key="mesh.wall_treatment", fix="remove it: a laminar case resolves its walls anyway"))
+    if m.wall_treatment == "low-re" and m.fidelity == "smoke" and not m.layers:
+        errs.append(UserError(expected="prism layers for mesh.wall_treatment = \"low-re\"", got="the smoke preset (no layers)",
+                              file=file, key="mesh.wall_treatment",
+                              fix='use mesh.fidelity = "coarse" or "production", or give mesh.layers'))
+    if m.wall_treatment == "low-re" and m.layer_expansion is not None and not m.layer_expansion > 1.0:
+        errs.append(UserError(expected="a layer expansion ratio above 1 for low-re layers (they grow from y+ ≈ 1)",
+                              got=m.layer_expansion, file=file, key="mesh.layer_expansion"))
     if m.layer_expansion is not None and not 1.0 <= m.layer_expansion <= 2.0:
         errs.append(UserError(expected="a layer expansion ratio from 1.0 to 2.0", got=m.layer_expansion, file=file, key="mesh.layer_expansion"))
     d = cfg.domain

@@ -10,8 +10,10 @@ e3 = 0), e2 = e3 × e1.
 Sizing rules (common practice for external vehicle aerodynamics, no single
 source):
 
-- inlet ``upstream`` = 3 body lengths ahead of the body, outlet
-  ``downstream`` = 6 body lengths behind it (config: ``domain.*``);
+- inlet ``upstream`` = 5 body lengths ahead of the body, outlet
+  ``downstream`` = 10 body lengths behind it (config: ``domain.*``); the
+  background cells there are the coarsest of the mesh, so the length costs
+  little;
 - width and height chosen so that the blockage (frontal area normal to the
   wind / inlet face area) equals ``domain.target_blockage`` = 1 %, with
   width = 2 × height over a ground (the ground mirrors the flow) and a square
@@ -25,31 +27,70 @@ body (and wheels) normal to the wind: an upper bound of the true shadow, so
 the blockage is never under-estimated.
 
 Mesh levels: level n of a refinement region means cells of base_cell / 2ⁿ.
-The sweep's ``mesh_level`` m scales the base cell by 1/√2ᵐ (every length of
-the mesh shrinks by √2 per level, about 2.8 × the cells).
+The sweep's ``mesh_level`` m scales the base cell by 1/√2ᵐ, and with it every
+other length of the mesh: the refinement levels and the gap's splits are
+chosen once per point (at mesh level 0) and kept, and the prism-layer
+heights scale by the same 1/√2ᵐ. The mesh levels of one point are therefore
+geometrically similar (about 2.8 × the cells per level); only the far-field
+boundaries move by less than one background cell (the domain is a whole
+number of cells long at every level), and the ground rectangle with prism
+layers follows the background cells likewise.
+
+The gap
+-------
+Under the body the mesh must resolve the flow between floor and ground.
+The **reference clearance** c is the smaller of the two ride heights (the
+heights of the ride-height reference points). Cells across a clearance h:
+
+    n(h) = s N + (h − s T)/Δz,
+
+with N prism layers of total thickness T on each of the s walls that carry
+them (s = 2: floor and ground, 1: floor only, 0: no layers) and Δz the core
+cell height. The underbody is covered by slab boxes (one per eighth of the
+body length) from the ground to the underside (floor, tunnels, diffuser:
+:mod:`caseprep.geometry.underside`); their cells are refined isotropically to
+the gap level g (the coarsest level at or above the finest surface level
+with at least ``iso_gap_cells`` cells across c) and then split ``z`` times
+along the floor normal, Δz = Δ_g/2ᶻ, z chosen per slab as the fewest splits
+that give n ≥ ``mesh.gap_cells`` across the larger of c and the slab's own
+smallest clearance. The rear of the floor gets a wake region behind the
+diffuser.
 """
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Callable
 
 import numpy as np
 
-from caseprep.contract.frames import Placement, ground_to_wind_rotation, wind_direction_ground
+from caseprep.contract.frames import Placement, axle_axes, ground_to_wind_rotation, wind_direction_ground
+from caseprep.contract.walls import LOW_RE_TARGET_YPLUS, WALL_TREATMENTS
+from caseprep.geometry.underside import Underside
 from caseprep.planning.physics import first_cell_height, layer_stack_thickness
 from caseprep.planning.spec import Domain, Layers, MeshSpec, OrientedBox, RefinementRegion
 
 WARN_BLOCKAGE = 0.01  # common practice, no source
+#: Slab boxes of the underbody region along the body (common practice, no source).
+UNDERBODY_SLABS = 8
+#: A layer stack pair filling more than this share of the reference clearance
+#: leaves too little room for the core flow (common practice, no source).
+MAX_STACK_SHARE = 0.75
 
 
 @dataclass(frozen=True)
 class Preset:
     """A fidelity preset. ``cells_per_length``: body length / base cell at
     mesh level 0; levels as in :class:`~caseprep.planning.spec.RefinementRegion`;
-    ``gap_cells``: cells required across the smallest ground clearance;
-    ``max_level``: finest level the underbody region may use; ``wake_length``
-    in body lengths behind the body; ``layers`` 0 = no prism layers."""
+    ``gap_cells``: cells required across the reference clearance (prism
+    layers and core cells, see the module docstring); ``iso_gap_cells``:
+    cells of the isotropic gap level across it; ``max_z_splits``: most
+    splits of the gap cells along the floor normal (0: isotropic cells
+    only); ``max_level``: finest isotropic level the underbody may use;
+    ``wake_length`` in body lengths behind the body; ``layers`` 0 = no prism
+    layers; ``target_yplus`` the y+ at the first cell centre at mesh level 0
+    (wall functions); ``ground_layers``: prism layers also on the ground
+    under the body."""
 
     name: str
     cells_per_length: float
@@ -57,36 +98,46 @@ class Preset:
     feature_level: int
     max_level: int
     gap_cells: float
+    iso_gap_cells: float
+    max_z_splits: int
     wake_level: int
     wake_length: float
     layers: int
     layer_expansion: float
     target_yplus: float
+    ground_layers: bool
     iterations: int
 
 
 PRESETS: dict[str, Preset] = {
-    # smoke: meshes and solves in under a minute on two cores (31–36 thousand
-    # cells on the demo body, 180 iterations). Base cell L/5; body surface at level 3 (L/40),
-    # so the body's shape and a diffuser ramp are there at all; no prism
-    # layers (wall functions). Gap rule with gap_cells = 1: the underbody
-    # gets the coarsest level whose cells fit once into the smallest ground
-    # clearance (level 4 = L/80 for clearances from L/80 to L/40; level 5 at
-    # most, so clearances below L/160 are refused). One or two cells across
-    # the gap give the venturi's blockage and the ordering of floors, not a
-    # resolved underbody boundary layer: use `coarse` or finer for numbers.
-    "smoke": Preset("smoke", 5.0, (1, 3), 2, 5, 1.0, 1, 1.0, 0, 1.3, 30.0, 180),
-    "coarse": Preset("coarse", 6.0, (3, 4), 4, 7, 4.0, 2, 2.0, 3, 1.3, 50.0, 1000),
-    "production": Preset("production", 8.0, (4, 6), 6, 9, 4.0, 3, 3.0, 8, 1.2, 30.0, 3000),
+    # smoke: meshes and solves in under a minute on two cores (tens of
+    # thousands of cells on the demo body, 180 iterations). Base cell L/5;
+    # body surface at level 3 (L/40), so the body's shape and a diffuser ramp
+    # are there at all; no prism layers (wall functions on the snapped
+    # cells). It relaxes the gap rule: one isotropic cell across the
+    # reference clearance (level 4 = L/80 for clearances from L/80 to L/40;
+    # level 5 at most, so clearances below L/160 are refused) and no splits.
+    # One or two cells across the gap give the venturi's blockage and the
+    # ordering of floors, not a resolved underbody boundary layer: use
+    # `coarse` or finer for numbers.
+    "smoke": Preset("smoke", 5.0, (1, 3), 2, 5, 1.0, 1.0, 0, 1, 1.0, 0, 1.3, 100.0, False, 180),
+    # coarse and production: at least 12 cells across the reference clearance
+    # (common practice, no source), prism layers on the body and on the
+    # ground under it, first cell centre at y+ 100 (coarse) / 60 (production)
+    # at mesh level 0: inside the wall-function band 30-150 for mesh levels
+    # 0-3 (coarse) / 0-2 (production) of a similar mesh study.
+    "coarse": Preset("coarse", 6.0, (3, 4), 4, 7, 12.0, 2.0, 3, 2, 2.0, 3, 1.2, 100.0, True, 1000),
+    "production": Preset("production", 8.0, (4, 6), 6, 9, 12.0, 2.0, 3, 3, 3.0, 5, 1.2, 60.0, True, 3000),
 }
 
-LEVEL_FACTOR = math.sqrt(2.0)  # base-cell refinement per sweep mesh level
+LEVEL_FACTOR = math.sqrt(2.0)  # refinement of every mesh length per sweep mesh level
 
 
 @dataclass(frozen=True)
 class MeshSettings:
     """A preset with the config's overrides applied (``base_cell`` None:
-    body length / cells_per_length)."""
+    body length / cells_per_length; ``layers`` None: as many as the wall
+    treatment needs, see :func:`layer_count`)."""
 
     preset: Preset
     base_cell: float | None
@@ -94,15 +145,21 @@ class MeshSettings:
     feature_level: int
     max_level: int
     gap_cells: float
-    layers: int
+    layers: int | None
     layer_expansion: float
     target_yplus: float
+    wall_treatment: str = "wall-function"
 
 
 def mesh_settings(fidelity: str, base_cell=None, surface_levels=None, feature_level=None, max_level=None,
-                  gap_cells=None, layers=None, layer_expansion=None, target_yplus=None) -> MeshSettings:
-    """Resolve a preset and the overrides (None keeps the preset's value)."""
+                  gap_cells=None, layers=None, layer_expansion=None, target_yplus=None,
+                  wall_treatment: str = "wall-function") -> MeshSettings:
+    """Resolve a preset and the overrides (None keeps the preset's value).
+    ``wall_treatment`` "low-re" aims at y+ ≈ 1 at the first cell centre
+    (``target_yplus`` then defaults to it) with as many layers as needed
+    unless ``layers`` is given."""
     p = PRESETS[fidelity]
+    low = wall_treatment == "low-re"
     return MeshSettings(
         preset=p,
         base_cell=base_cell,
@@ -110,9 +167,10 @@ def mesh_settings(fidelity: str, base_cell=None, surface_levels=None, feature_le
         feature_level=p.feature_level if feature_level is None else feature_level,
         max_level=p.max_level if max_level is None else max_level,
         gap_cells=p.gap_cells if gap_cells is None else gap_cells,
-        layers=p.layers if layers is None else layers,
+        layers=(None if low else p.layers) if layers is None else layers,
         layer_expansion=p.layer_expansion if layer_expansion is None else layer_expansion,
-        target_yplus=p.target_yplus if target_yplus is None else target_yplus,
+        target_yplus=(LOW_RE_TARGET_YPLUS if low else p.target_yplus) if target_yplus is None else target_yplus,
+        wall_treatment=wall_treatment,
     )
 
 
@@ -120,6 +178,114 @@ def base_cell_size(settings: MeshSettings, body_length: float, mesh_level: int) 
     """Background cell size (m) at sweep mesh level m: Δ0 / √2ᵐ."""
     d0 = settings.base_cell if settings.base_cell is not None else body_length / settings.preset.cells_per_length
     return d0 / LEVEL_FACTOR**mesh_level
+
+
+def layer_count(first_height: float, expansion: float, last_height: float) -> int:
+    """Fewest layers whose last one, h₁ rⁿ⁻¹, is at least ``last_height``:
+    n = 1 + ⌈ln(h_last/h₁)/ln r⌉ (geometric growth from ``first_height``
+    h₁ by ``expansion`` r > 1; heights in m). Elementary."""
+    if not first_height > 0 or not expansion > 1.0:
+        raise ValueError("expected a positive first height and an expansion ratio above 1")
+    if last_height <= first_height:
+        return 1
+    return 1 + math.ceil(math.log(last_height / first_height) / math.log(expansion) - 1e-12)
+
+
+@dataclass(frozen=True)
+class LayerPlan:
+    """Prism layers of a point at mesh level 0 (``first_height``, ``thickness``
+    in m) and the wall-function first height a low-Re stack grows to."""
+
+    n_layers: int
+    first_height: float
+    expansion: float
+    centre_yplus: float
+    thickness: float
+    treatment: str
+    ground: bool
+
+
+def plan_layers(settings: MeshSettings, local_speed: float, body_length: float, nu: float) -> LayerPlan | None:
+    """The prism layers at mesh level 0, or None without layers.
+
+    First height h₁ = 2 y+ ν/u_τ for the target centre y+ (flat plate at the
+    local speed: :func:`caseprep.planning.physics.first_cell_height`).
+    ``low-re`` without an explicit layer count: enough layers, growing by the
+    expansion ratio, for the last one to reach the first height a wall
+    function would use at the preset's y+ (:func:`layer_count`), i.e. the
+    stack spans the viscous sublayer, the buffer region and the inner log
+    layer."""
+    n = settings.layers
+    if n == 0:
+        return None
+    h1 = first_cell_height(settings.target_yplus, local_speed, body_length, nu)
+    if n is None:
+        h_wf = first_cell_height(settings.preset.target_yplus, local_speed, body_length, nu)
+        n = layer_count(h1, settings.layer_expansion, h_wf)
+    T = layer_stack_thickness(h1, n, settings.layer_expansion)
+    return LayerPlan(n_layers=int(n), first_height=float(h1), expansion=float(settings.layer_expansion),
+                     centre_yplus=float(settings.target_yplus), thickness=float(T), treatment=settings.wall_treatment,
+                     ground=bool(settings.preset.ground_layers))
+
+
+def cells_across(clearance: float, core_cell: float, layers: LayerPlan | None) -> float:
+    """Cells across a ``clearance`` (m): s N + (h − s T)/Δz with s = 2 stacks
+    (floor and ground) when the layers reach the ground, 1 otherwise, 0
+    without layers; ``core_cell`` Δz (m). A core thinner than zero counts
+    as zero (the stacks are squashed)."""
+    if layers is None:
+        return clearance / core_cell
+    s = 2 if layers.ground else 1
+    return s * layers.n_layers + max(clearance - s * layers.thickness, 0.0) / core_cell
+
+
+@dataclass(frozen=True)
+class GapPlan:
+    """The underbody resolution of one point (decided at mesh level 0).
+
+    ``reference_clearance`` c (m); ``level`` the isotropic gap level;
+    ``z_splits`` per underbody slab; ``cells_across`` the fewest cells over
+    the slabs across the larger of c and the slab's smallest clearance (at
+    least ``mesh.gap_cells``); ``cells_min`` the fewest across each slab's
+    own smallest clearance (below ``cells_across`` only where the floor dips
+    under the reference clearance)."""
+
+    reference_clearance: float
+    level: int
+    z_splits: tuple[int, ...]
+    cells_across: float
+    cells_min: float
+
+
+def plan_gap(reference_clearance: float, slab_clearances: list[float], base0: float, settings: MeshSettings,
+             layers: LayerPlan | None) -> GapPlan | tuple[str, str]:
+    """Choose the gap level and the per-slab splits (module docstring) at
+    mesh level 0 (``base0`` the level-0 base cell, m; clearances in m).
+    Returns a :class:`GapPlan`, or (what is wrong, how to fix it)."""
+    p = settings.preset
+    c = reference_clearance
+    smax = settings.surface_levels[1]
+    g0 = max(smax, math.ceil(math.log2(p.iso_gap_cells * base0 / c) - 1e-12))
+    clear = [max(c, h) for h in slab_clearances] or [c]
+    for g in range(g0, settings.max_level + 1):
+        dg = base0 / 2**g
+        ks = []
+        for h in clear:
+            k = next((k for k in range(p.max_z_splits + 1) if cells_across(h, dg / 2**k, layers) >= settings.gap_cells - 1e-9),
+                     None)
+            if k is None:
+                break
+            ks.append(k)
+        else:
+            n_ref = min(cells_across(h, dg / 2**k, layers) for h, k in zip(clear, ks))
+            n_min = min(cells_across(h0, dg / 2**k, layers) for h0, k in zip(slab_clearances or [c], ks))
+            return GapPlan(float(c), int(g), tuple(int(k) for k in ks), float(n_ref), float(n_min))
+    finest = base0 / 2**settings.max_level / 2**p.max_z_splits
+    have = cells_across(c, finest, layers)
+    return (f"the reference clearance {c * 1e3:.3f} mm needs {settings.gap_cells:g} cells across (prism layers and core "
+            f"cells); the finest cells allowed (level {settings.max_level}, {finest * 1e3:.3f} mm after "
+            f"{p.max_z_splits} splits along the floor normal) give {have:.1f}",
+            "raise the ride height, use a finer fidelity, raise mesh.max_level or lower mesh.gap_cells")
 
 
 def wind_axes(placement: Placement) -> np.ndarray:
@@ -138,7 +304,8 @@ def _box(name: str, origin_b: np.ndarray, axes: np.ndarray, lo: np.ndarray, hi: 
 @dataclass(frozen=True)
 class DomainPlan:
     """Domain, mesh and estimate of one case, plus notes (warnings) and
-    problems (messages for refused cases, without file/key)."""
+    problems (messages for refused cases, without file/key), the gap plan
+    and the underbody facts (``info``: JSON-ready)."""
 
     domain: Domain
     mesh: MeshSpec
@@ -147,12 +314,57 @@ class DomainPlan:
     estimated_cells: int
     warnings: tuple[str, ...]
     problems: tuple[tuple[str, str], ...]  # (what is wrong, how to fix it)
+    gap: GapPlan | None = None
+    info: dict = field(default_factory=dict)
+
+
+@dataclass(frozen=True)
+class _Slab:
+    lo: np.ndarray      # (s, t, z) in axle axes from the ground point, m
+    hi: np.ndarray
+    clearance: float    # smallest underside height above the ground in the slab (m)
+    top: float          # 95th percentile of the underside height in the slab (m)
+    fluid_volume: float  # m³ above the ground and below the underside, inside the box
+
+
+def underbody_slabs(underside: Underside, placement: Placement, margin: float, n_slabs: int = UNDERBODY_SLABS) -> tuple[
+        list[_Slab], np.ndarray, np.ndarray]:
+    """Slab boxes covering the volume between the body's underside and the
+    ground, in the axle axes (x_A along the body on the ground, z_A the
+    ground normal; :func:`caseprep.contract.frames.axle_axes`). The body's
+    length is cut into ``n_slabs`` equal slabs; each reaches from ``margin``
+    (m) below the ground to the 95th percentile of the underside height over
+    the slab plus ``2 margin`` (the few highest cells at the body's rounded
+    sides are left out), and sideways over the slab's covered cells ±
+    ``margin``. Returns (slabs, axes rows x_A, y_A, z_A, ground point)."""
+    xA, yA, zA, g0 = axle_axes(placement)
+    axes = np.vstack([xA, yA, zA])
+    pts = underside.points()
+    q = (pts - g0) @ axes.T
+    h = placement.height_above_ground(pts)
+    s0, s1 = float(q[:, 0].min()) - 0.5 * underside.dx, float(q[:, 0].max()) + 0.5 * underside.dx
+    edges = np.linspace(s0, s1, n_slabs + 1)
+    slabs = []
+    for i in range(n_slabs):
+        sel = (q[:, 0] >= edges[i]) & (q[:, 0] <= edges[i + 1]) if i == n_slabs - 1 else (q[:, 0] >= edges[i]) & (q[:, 0] < edges[i + 1])
+        if not np.any(sel):
+            continue
+        top95 = float(np.percentile(h[sel], 95.0))
+        top = top95 + 2.0 * margin
+        t0, t1 = float(q[sel, 1].min()) - 0.5 * underside.dy - margin, float(q[sel, 1].max()) + 0.5 * underside.dy + margin
+        a0 = edges[i] - (margin if i == 0 else 0.0)
+        a1 = edges[i + 1] + (margin if i == n_slabs - 1 else 0.0)
+        covered = float(np.count_nonzero(sel)) * underside.cell_area
+        vol = float(np.clip(h[sel], 0.0, top).sum()) * underside.cell_area + max((a1 - a0) * (t1 - t0) - covered, 0.0) * top
+        slabs.append(_Slab(np.array([a0, t0, -margin]), np.array([a1, t1, top]), float(h[sel].min()), top95, vol))
+    return slabs, axes, g0
 
 
 def plan_domain(*, extent_points: np.ndarray, placement: Placement, ground: str, body_length: float,
                 body_area: float, frontal_area: float, min_clearance: float | None, ride_heights: tuple[float, float] | None,
-                settings: MeshSettings, mesh_level: int, air_speed: float, nu: float,
-                upstream: float = 3.0, downstream: float = 6.0, width: float | None = None, height: float | None = None,
+                settings: MeshSettings, mesh_level: int, air_speed: float, nu: float, local_speed: float | None = None,
+                underside: Underside | None = None,
+                upstream: float = 5.0, downstream: float = 10.0, width: float | None = None, height: float | None = None,
                 target_blockage: float = 0.01, max_blockage: float = 0.05,
                 extent_range: Callable[[np.ndarray], tuple[np.ndarray, np.ndarray]] | None = None) -> DomainPlan:
     """Size the domain and the mesh of one case.
@@ -162,8 +374,11 @@ def plan_domain(*, extent_points: np.ndarray, placement: Placement, ground: str,
     ``ground`` "moving" | "stationary" | "none"; ``body_length`` L (m);
     ``body_area`` surface area (m²); ``frontal_area`` shadow normal to the
     wind (m²); ``min_clearance`` smallest ground clearance (m, None without a
-    ground); ``ride_heights`` (front, rear) m; ``air_speed`` m/s; ``nu``
-    m²/s; ``upstream``/``downstream`` in body lengths; ``width``/``height``
+    ground); ``ride_heights`` (front, rear) m; ``air_speed`` m/s;
+    ``local_speed`` (m/s) the speed for the first-cell height (default the
+    air speed; the planner passes the underfloor speed); ``nu`` m²/s;
+    ``underside`` the body's underside map (body frame) for the underbody
+    region; ``upstream``/``downstream`` in body lengths; ``width``/``height``
     (m) fix the section instead of sizing it for ``target_blockage``;
     ``extent_range(axes)`` (optional) returns the (min, max) of
     ``extent_points @ axes.T`` — a caller planning many cases passes a cached
@@ -183,6 +398,8 @@ def plan_domain(*, extent_points: np.ndarray, placement: Placement, ground: str,
     L = body_length
     bw, bh = hi[1] - lo[1], hi[2] - lo[2]
     d0 = base_cell_size(settings, L, mesh_level)
+    base0 = base_cell_size(settings, L, 0)
+    scale = LEVEL_FACTOR**mesh_level  # every mesh length of this level = level-0 length / scale
     A_box = frontal_area / target_blockage
     if ground != "none":
         H = height if height is not None else max(math.sqrt(A_box / 2.0), hi[2] + 2.0 * bh)
@@ -193,7 +410,6 @@ def plan_domain(*, extent_points: np.ndarray, placement: Placement, ground: str,
         H = height if height is not None else max(S, bh + 4.0 * bh)
         W = width if width is not None else max(S, bw + 4.0 * bw)
         z0 = 0.5 * (lo[2] + hi[2]) - 0.5 * H
-    y0 = 0.5 * (lo[1] + hi[1]) - 0.5 * W
     x0 = lo[0] - upstream * L
     Lx = (hi[0] - lo[0]) + (upstream + downstream) * L
     n = [max(1, math.ceil(Lx / d0 - 1e-9)), max(1, math.ceil(W / d0 - 1e-9)), max(1, math.ceil(H / d0 - 1e-9))]
@@ -219,66 +435,129 @@ def plan_domain(*, extent_points: np.ndarray, placement: Placement, ground: str,
                          "enlarge domain.width/height, or raise domain.max_blockage to accept the blockage knowingly"))
     elif blockage > WARN_BLOCKAGE:
         warnings.append(f"blockage {100 * blockage:.2f} % is above 1 % (common-practice limit); results carry a blockage effect")
-    domain = Domain(box=box, cells=(int(n[0]), int(n[1]), int(n[2])), ground=ground, blockage=float(blockage))
+
+    # prism layers: decided at mesh level 0, every height scaled with the level
+    lp = plan_layers(settings, local_speed if local_speed is not None else air_speed, L, nu)
+    if lp is not None and ground == "none":
+        lp = LayerPlan(lp.n_layers, lp.first_height, lp.expansion, lp.centre_yplus, lp.thickness, lp.treatment, False)
+    layers = None
+    if lp is not None:
+        layers = Layers(n_layers=lp.n_layers, first_cell_height=lp.first_height / scale, expansion=lp.expansion,
+                        target_yplus=lp.centre_yplus / scale, ground=lp.ground, treatment=lp.treatment)
+        band = WALL_TREATMENTS[lp.treatment].band
+        if not band[0] <= layers.target_yplus <= band[1]:
+            problems.append((f"mesh level {mesh_level} puts the first cell centre at y+ {layers.target_yplus:.3g} (y+ "
+                             f"{lp.centre_yplus:.3g} at level 0, scaled by 1/√2 per level with every other mesh length), "
+                             f"outside the {lp.treatment} band {band[0]:g}–{band[1]:g}: the mesh levels cannot be similar "
+                             "and keep the wall treatment",
+                             "use fewer or lower mesh levels, or set mesh.target_yplus so that every level stays in the band"))
+        if lp.n_layers > 40:
+            problems.append((f"the {lp.treatment} treatment needs {lp.n_layers} prism layers (first layer "
+                             f"{lp.first_height * 1e3:.4f} mm growing by {lp.expansion:g})",
+                             "raise mesh.layer_expansion or use wall functions"))
+
+    # ground rectangle with prism layers (background cells under the body and its near wake)
+    ground_rect = None
+    if lp is not None and lp.ground and ground != "none":
+        d1, d2 = lens[0] / n[0], lens[1] / n[1]
+        a, b = lo[0] - 0.1 * L - x0, hi[0] + 0.5 * L - x0
+        c, e = lo[1] - 0.1 * L - y0, hi[1] + 0.1 * L - y0
+        i1 = min(max(1, math.floor(a / d1)), n[0] - 2)
+        i2 = max(min(n[0] - 1, math.ceil(b / d1)), i1 + 1)
+        j1 = min(max(1, math.floor(c / d2)), n[1] - 2)
+        j2 = max(min(n[1] - 1, math.ceil(e / d2)), j1 + 1)
+        if n[0] >= 3 and n[1] >= 3:
+            ground_rect = (int(i1), int(i2), int(j1), int(j2))
+    domain = Domain(box=box, cells=(int(n[0]), int(n[1]), int(n[2])), ground=ground, blockage=float(blockage),
+                    ground_layer_cells=ground_rect)
 
     smin, smax = settings.surface_levels
     regions: list[RefinementRegion] = []
     gap_level = None
+    gap = None
+    info: dict = {}
     margin = 0.02 * L
     wake = settings.preset.wake_length
     wl = settings.preset.wake_level
     regions.append(RefinementRegion(_box("wake", g0, axes,
                                          np.array([lo[0] - 0.1 * L, lo[1] - 0.2 * bw, max(z0, lo[2] - 0.3 * bh) if ground == "none" else -margin]),
                                          np.array([hi[0] + wake * L, hi[1] + 0.2 * bw, hi[2] + 0.3 * bh])), wl))
-    if ground != "none" and min_clearance is not None:
-        if min_clearance > 0:
-            need = max(smax, math.ceil(math.log2(settings.gap_cells * d0 / min_clearance) - 1e-12))
-            gap_level = int(need)
-            if need > settings.max_level:
-                finest = d0 / 2**settings.max_level
-                problems.append((
-                    f"the smallest ground clearance {min_clearance * 1e3:.3f} mm needs {settings.gap_cells:g} cells of at most "
-                    f"{min_clearance / settings.gap_cells * 1e3:.3f} mm; the finest level allowed (level {settings.max_level}, "
-                    f"{finest * 1e3:.3f} mm cells) gives {min_clearance / finest:.2f} cells",
-                    "raise the ride height, use a finer fidelity or mesh level, or raise mesh.max_level"))
-                gap_level = settings.max_level
-            top = 1.5 * max(max(ride_heights) if ride_heights else 0.0, min_clearance)
-            regions.append(RefinementRegion(_box("underbody", g0, axes, np.array([lo[0] - margin, lo[1] - margin, -margin]),
-                                                 np.array([hi[0] + margin, hi[1] + margin, top])), gap_level))
-            regions.append(RefinementRegion(_box("rear", g0, axes, np.array([hi[0] - 0.25 * L, lo[1] - margin, -margin]),
-                                                 np.array([hi[0] + 0.5 * L, hi[1] + margin, lo[2] + 0.6 * bh])),
-                                            max(wl, min(gap_level - 1, smax))))
+    if ground != "none" and min_clearance is not None and ride_heights is not None:
+        c_ref = float(min(ride_heights))
+        slabs, sax, sg0 = ([], None, None)
+        if underside is not None:
+            slabs, sax, sg0 = underbody_slabs(underside, placement, base0 / 2**smax)
+        gp = plan_gap(c_ref, [s.clearance for s in slabs], base0, settings, lp)
+        if isinstance(gp, tuple):
+            problems.append(gp)
+        else:
+            gap = gp
+            gap_level = gp.level
+            if slabs:  # boxes again with a margin of one gap cell (level 0: the same boxes at every mesh level)
+                dg0 = base0 / 2**gp.level
+                slabs, sax, sg0 = underbody_slabs(underside, placement, dg0)
+                for i, (sl, k) in enumerate(zip(slabs, gp.z_splits)):
+                    regions.append(RefinementRegion(_box(f"underbody{i}", sg0, sax, sl.lo, sl.hi), gp.level, int(k),
+                                                    fluid_volume=sl.fluid_volume))
+                # behind the diffuser: from a quarter length ahead of the tail to one length behind it,
+                # up to 1.25 × the exit height (the last slab's underside) and two cells of its level
+                tail = max(sl.hi[0] for sl in slabs)
+                exit_h = slabs[-1].top
+                lw = max(wl, min(gp.level - 1, smax))
+                t0, t1 = min(sl.lo[1] for sl in slabs), max(sl.hi[1] for sl in slabs)
+                regions.append(RefinementRegion(
+                    _box("diffuser_wake", sg0, sax, np.array([tail - 0.25 * L, t0, -dg0]),
+                         np.array([tail + 1.0 * L, t1, 1.25 * exit_h + 2.0 * base0 / 2**lw])), lw))
+            else:  # no underside map: one box under the whole body
+                top = 1.5 * max(max(ride_heights), min_clearance)
+                regions.append(RefinementRegion(_box("underbody", g0, axes, np.array([lo[0] - margin, lo[1] - margin, -margin]),
+                                                     np.array([hi[0] + margin, hi[1] + margin, top])), gp.level,
+                                                max(gp.z_splits)))
+            info = {"reference_clearance": c_ref, "gap_level": gp.level, "gap_cell": base0 / 2**gp.level / scale,
+                    "z_splits": list(gp.z_splits), "gap_cells_reference": round(gp.cells_across, 2),
+                    "gap_cells_min": round(gp.cells_min, 2)}
+            if min_clearance < c_ref and gp.cells_min < settings.gap_cells - 1.0:  # more than a cell short
+                warnings.append(f"the smallest clearance ({min_clearance * 1e3:.3f} mm) is below the reference clearance "
+                                f"({c_ref * 1e3:.3f} mm): {gp.cells_min:.1f} cells across it")
+        if lp is not None:
+            stacks = (2 if lp.ground else 1) * lp.thickness
+            if stacks > MAX_STACK_SHARE * c_ref:
+                what = (f"the prism layers ({lp.n_layers} × {lp.first_height * 1e3:.4f} mm growing by {lp.expansion:g}, "
+                        f"{lp.thickness * 1e3:.3f} mm per stack, {'floor and ground' if lp.ground else 'floor'}) fill "
+                        f"{100 * stacks / c_ref:.0f} % of the reference clearance {c_ref * 1e3:.3f} mm (at most "
+                        f"{100 * MAX_STACK_SHARE:.0f} %)")
+                if lp.treatment == "low-re":
+                    problems.append((what + ": the gap cannot hold the low-Re layers",
+                                     "raise the ride height, raise mesh.layer_expansion, or use mesh.wall_treatment = \"wall-function\""))
+                else:
+                    warnings.append(what + "; the mesher may squash them")
     else:
         regions.append(RefinementRegion(_box("near", g0, axes, np.array([lo[0] - 0.2 * L, lo[1] - 0.2 * bw, lo[2] - 0.2 * bh]),
                                              np.array([hi[0] + 0.5 * L, hi[1] + 0.2 * bw, hi[2] + 0.2 * bh])), max(wl, smin)))
     regions.sort(key=lambda r: r.level)
 
-    layers = None
-    if settings.layers > 0:
-        h1 = first_cell_height(settings.target_yplus, air_speed, L, nu)
-        layers = Layers(n_layers=settings.layers, first_cell_height=h1, expansion=settings.layer_expansion,
-                        target_yplus=settings.target_yplus)
-        T = layer_stack_thickness(h1, settings.layers, settings.layer_expansion)
+    if lp is not None:
         ds = d0 / 2**smax
+        T = lp.thickness / scale
         if T > ds:
             warnings.append(f"the prism-layer stack ({T * 1e3:.3f} mm) is thicker than the finest surface cell "
-                            f"({ds * 1e3:.3f} mm); the mesher may collapse layers (raise target_yplus or layers)")
-        if min_clearance is not None and ground != "none" and T > 0.5 * min_clearance:
-            warnings.append(f"the prism-layer stack ({T * 1e3:.3f} mm) fills more than half of the smallest ground clearance "
-                            f"({min_clearance * 1e3:.3f} mm)")
+                            f"({ds * 1e3:.3f} mm); the mesher may collapse layers (raise target_yplus or lower layers)")
 
     # location in mesh: upstream of the body, at a fraction of a cell no refinement level puts on a face
     frac = 0.4371
     k1 = max(0, min(n[0] - 1, int(0.3 * upstream * L / d0)))
     k2 = n[1] // 2
     k3 = n[2] // 2
-    c = np.array([(k1 + frac) * d0, (k2 + frac) * lens[1] / n[1], (k3 + frac) * lens[2] / n[2]])
-    lim = g0 + (origin + c) @ axes
+    cc = np.array([(k1 + frac) * d0, (k2 + frac) * lens[1] / n[1], (k3 + frac) * lens[2] / n[2]])
+    lim = g0 + (origin + cc) @ axes
     mesh = MeshSpec(base_cell=float(d0), surface_levels=(int(smin), int(smax)), feature_level=int(settings.feature_level),
                     regions=tuple(regions), layers=layers, location_in_mesh=tuple(float(v) for v in lim))
-    est = estimate_cells(domain, mesh, body_area)
+    footprint = None
+    if underside is not None and ground_rect is not None:
+        footprint = float(np.count_nonzero(np.isfinite(underside.z))) * underside.cell_area
+    est = estimate_cells(domain, mesh, body_area, ground_layer_area=footprint)
     return DomainPlan(domain=domain, mesh=mesh, base_cell=float(d0), gap_level=gap_level, estimated_cells=est,
-                      warnings=tuple(warnings), problems=tuple(problems))
+                      warnings=tuple(warnings), problems=tuple(problems), gap=gap, info=info)
 
 
 def ground_grading(height: float, first_cell: float, top_cell: float) -> tuple[int, float, float]:
@@ -350,29 +629,35 @@ def plan_empty_section(*, placement: Placement, length: float, width: float, hei
                       warnings=(), problems=())
 
 
-def estimate_cells(domain: Domain, mesh: MeshSpec, body_area: float) -> int:
+def estimate_cells(domain: Domain, mesh: MeshSpec, body_area: float, ground_layer_area: float | None = None) -> int:
     """Rough cell count (±50 %) of the finished mesh.
 
-    Background n1·n2·n3; each refinement region (taken as nested, in order
-    of level) adds V (1/Δ_r³ − 1/Δ_prev³); the body surface adds three cells
-    thick of the finest surface cells, A/Δ_s² × 3, and each prism layer
-    A/Δ_s². Δ_n = base_cell / 2ⁿ (m); ``body_area`` m².
+    Background n1·n2·n3; each refinement region adds V (2ᶻ/Δ_r³ − 1/Δ_c³),
+    V its fluid volume (or its box volume), Δ_r = base_cell/2^level its cell,
+    z its splits along the floor normal and Δ_c the cell of the next coarser
+    level present (regions of one level are taken as disjoint, regions of
+    different levels as nested); the body surface adds three cells thick of
+    the finest surface cells, A/Δ_s² × 3, and each prism layer A/Δ_s²; with
+    layers on the ground, each layer adds the body's footprint area
+    ``ground_layer_area`` (m²) over the gap cells' face area. Δ_n =
+    base_cell / 2ⁿ (m); ``body_area`` m².
     """
     d0 = mesh.base_cell
     total = float(np.prod(domain.cells))
-    prev = d0
-    for r in sorted(mesh.regions, key=lambda r: r.level):
+    levels = sorted({r.level for r in mesh.regions})
+    coarser = {lv: (d0 / 2**levels[i - 1] if i > 0 else d0) for i, lv in enumerate(levels)}
+    for r in mesh.regions:
         dr = d0 / 2**r.level
-        if dr >= prev:
-            continue
-        V = float(np.prod(r.box.lengths))
-        total += V * (1.0 / dr**3 - 1.0 / prev**3)
-        prev = dr
+        V = float(np.prod(r.box.lengths)) if r.fluid_volume is None else float(r.fluid_volume)
+        total += max(V * (2**r.z_splits / dr**3 - 1.0 / coarser[r.level]**3), 0.0)
     ds = d0 / 2**mesh.surface_levels[1]
     surf = body_area / ds**2
     total += 3.0 * surf
     if mesh.layers is not None:
         total += mesh.layers.n_layers * surf
+        if mesh.layers.ground and ground_layer_area:
+            gl = max((r.level for r in mesh.regions if r.box.name.startswith("underbody")), default=mesh.surface_levels[1])
+            total += mesh.layers.n_layers * ground_layer_area / (d0 / 2**gl) ** 2
     return int(round(total))
 
 

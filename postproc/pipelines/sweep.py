@@ -39,6 +39,7 @@ from typing import Any, Callable
 
 import numpy as np
 
+from caseprep.contract import walls
 from caseprep.contract.atomicio import json_ready, write_json_atomic, write_text_atomic
 from caseprep.contract.errors import UserError
 from caseprep.contract.manifest import CaseRecord, Manifest, read_manifest
@@ -48,7 +49,7 @@ from postproc.io.surfaces import read_surface
 from postproc.kernels import wallchecks as wc
 from postproc.kernels.aeromap import fit_response_surface, map_grid
 from postproc.kernels.forces import face_geometry
-from postproc.kernels.meshstudy import grid_convergence
+from postproc.kernels.meshstudy import grid_convergence, representative_cell_size
 from postproc.kernels.ranking import CaseResult, VariantScore, rank_variants
 from postproc.pipelines.case_forces import forces_report
 
@@ -68,20 +69,29 @@ class CaseOutcome:
     notes: tuple[str, ...] = ()
     report: dict[str, Any] | None = field(default=None, repr=False)
     yplus: dict[str, dict] = field(default_factory=dict)
+    cell_size: float | None = None  # h = (V/N)^(1/3), m, from the real cell count
 
 
-#: Intended y+ ranges of the wall treatments (common practice, no source):
-#: wall functions want the first cell in the log layer, a resolved laminar or
-#: low-Re wall wants it inside the viscous sublayer.
-YPLUS_RANGES = {"kOmegaSST": (30.0, 300.0), "laminar": (0.0, 5.0)}
 ALL_WALLS = "all body and wheel patches"
+
+
+def case_yplus_band(case: CaseRecord) -> tuple[float, float]:
+    """The y+ band a case is judged by: that of the wall treatment its
+    manifest record names (:data:`caseprep.contract.walls.WALL_TREATMENTS`,
+    the table the planner sized the first cell by); records without one get
+    their turbulence model's default treatment."""
+    name = case.extra.get("wall_treatment")
+    try:
+        return walls.wall_treatment(None if name is None else str(name), case.extra.get("turbulence_model")).band
+    except ValueError:
+        return walls.wall_treatment(None, case.extra.get("turbulence_model")).band
 
 
 def wall_yplus(case_dir: Path, case: CaseRecord) -> tuple[dict[str, dict], str | None]:
     """y+ statistics of the body and wheel patches from the case's VTK export
     (the solver's ``yPlus`` face field): per patch min/median/p95/max and the
-    area share inside the wall treatment's intended range
-    (:data:`YPLUS_RANGES`, chosen from the manifest's turbulence model).
+    area share inside the y+ band of the case's wall treatment (the one the
+    planner sized the first cell for: :func:`case_yplus_band`).
     Returns (stats by patch, None) or ({}, why not)."""
     names = list(case.patches.get("body") or []) + list(case.patches.get("wheels") or [])
     if not names:
@@ -91,8 +101,7 @@ def wall_yplus(case_dir: Path, case: CaseRecord) -> tuple[dict[str, dict], str |
         yp = surf.array("yPlus")
     except UserError as exc:
         return {}, f"y+ not assessed: {exc}".splitlines()[0]
-    model = str(case.extra.get("turbulence_model", "kOmegaSST"))
-    target = YPLUS_RANGES.get(model, YPLUS_RANGES["kOmegaSST"])
+    target = case_yplus_band(case)
     S, _ = face_geometry(surf.points, (surf.offsets, surf.connectivity))
 
     areas = np.linalg.norm(S, axis=1)
@@ -176,6 +185,7 @@ def process_case(manifest: Manifest, case: CaseRecord) -> CaseOutcome:
         layers = ", ".join(f"{d.get('patch')} {d.get('thickness_percent'):.0f} %" for d in rec.layers
                            if d.get("thickness_percent") is not None) or None
     return CaseOutcome(result=result, status=status, cells=rec.cells if rec else None,
+                       cell_size=case_cell_size(case, rec.cells if rec else None),
                        iterations=rec.iterations if rec else None, convergence=verdict,
                        notes=tuple(notes), report=report, yplus=yplus, layers=layers)
 
@@ -185,7 +195,8 @@ def outcome_row(o: CaseOutcome) -> dict[str, Any]:
     r = asdict(o.result)
     r["flags"] = " ".join(o.result.flags)
     r["downforce_coefficient"] = -o.result.cl if math.isfinite(o.result.cl) else None
-    r.update(status=o.status, cells=o.cells, iterations=o.iterations, convergence=o.convergence, layers=o.layers)
+    r.update(status=o.status, cells=o.cells, cell_size_h=o.cell_size, iterations=o.iterations, convergence=o.convergence,
+             layers=o.layers)
     if o.yplus:
         a = o.yplus[ALL_WALLS]  # all body and wheel faces together
         r.update(yplus_median=a["median"], yplus_p95=a["p95"], yplus_max=a["max"],
@@ -194,18 +205,35 @@ def outcome_row(o: CaseOutcome) -> dict[str, Any]:
     return r
 
 
-#: representative cell size of mesh level m relative to level 0: each level
-#: divides the base cell by √2 (caseprep.planning.domain), so h_m = 2^(−m/2)
+#: nominal cell size of mesh level m relative to level 0: each level scales
+#: every mesh length by 1/√2 (caseprep.planning.domain), so h_m = 2^(−m/2);
+#: used only when a case's real cell count is not known
 def level_cell_size(level: int) -> float:
     return 2.0 ** (-0.5 * level)
 
 
-def mesh_study(results: list[CaseResult]) -> list[dict[str, Any]]:
+def case_cell_size(case: CaseRecord, cells: int | None) -> float | None:
+    """h = (V/N)^(1/3) (m) of a case: V the fluid volume its manifest record
+    gives (``fluid_volume``, m³), N its real cell count from the run record;
+    None when either is missing."""
+    V = case.extra.get("fluid_volume")
+    try:
+        return representative_cell_size(float(V), int(cells)) if V is not None and cells else None
+    except (TypeError, ValueError):
+        return None
+
+
+def mesh_study(results: list[CaseResult], cell_sizes: dict[str, float | None] | None = None) -> list[dict[str, Any]]:
     """Grid convergence (Celik et al. 2008, postproc.kernels.meshstudy) of C_L and C_D
     for every operating point solved on three or more mesh levels (unflagged
-    cases only; the three finest levels are used). One dict per point and
-    coefficient: the point's parameters, the values per level, the apparent
-    order, the extrapolated value and the fine-mesh GCI (fraction)."""
+    cases only; the three finest levels are used). The representative cell
+    size of each case is h = (V/N)^(1/3) from its real cell count
+    (``cell_sizes``: case id → h in m) when every case of the point has one,
+    else the nominal 2^(−m/2) of its mesh level (``h_source`` says which).
+    One dict per point and coefficient: the point's parameters, the values
+    per level, h, the apparent order, the extrapolated value and the
+    fine-mesh GCI (fraction)."""
+    cell_sizes = cell_sizes or {}
     groups: dict[tuple, dict[int, CaseResult]] = {}
     for r in results:
         if r.flags or not math.isfinite(r.cl):
@@ -219,11 +247,16 @@ def mesh_study(results: list[CaseResult]) -> list[dict[str, Any]]:
             continue
         lv = sorted(by_level)[-3:][::-1]  # finest first
         rows = [by_level[m] for m in lv]
+        hs = [cell_sizes.get(r.case_id) for r in rows]
+        real = all(h is not None for h in hs) and hs[0] < hs[1] < hs[2]
+        if not real:
+            hs = [level_cell_size(m) for m in lv]
         for name, get in (("cl", lambda r: r.cl), ("cd", lambda r: r.cd)):
-            g = grid_convergence(*(get(r) for r in rows), *(level_cell_size(m) for m in lv))
+            g = grid_convergence(*(get(r) for r in rows), *hs)
             out.append({"variant": key[0], "ride_height_front": key[1], "ride_height_rear": key[2],
                         "pitch_deg": key[3], "yaw_deg": key[4], "speed": key[5], "coefficient": name,
-                        "levels": lv, "cases": [r.case_id for r in rows], **g.to_dict()})
+                        "levels": lv, "cases": [r.case_id for r in rows],
+                        "h_source": "cells" if real else "mesh level", **g.to_dict()})
     return out
 
 
@@ -300,12 +333,13 @@ class SweepAnalysis:
 
 def analyse_results(results: list[CaseResult], title: str = "Sweep report", study: str = "",
                     notes: list[str] | None = None, checks: list[dict] | None = None,
-                    mesh: list[dict] | None = None) -> SweepAnalysis:
+                    mesh: list[dict] | None = None, cell_sizes: dict[str, float | None] | None = None) -> SweepAnalysis:
     """Rank the variants, fit the aero maps and (unless ``mesh`` is given)
-    run the mesh study over ``results``; returns the :class:`SweepAnalysis`."""
+    run the mesh study over ``results`` (``cell_sizes``: case id → h, m);
+    returns the :class:`SweepAnalysis`."""
     return SweepAnalysis(title=title, study=study, results=tuple(results), ranking=tuple(rank_variants(results)),
                          aero_maps=tuple(aero_maps(results)),
-                         mesh_study=tuple(mesh_study(results) if mesh is None else mesh),
+                         mesh_study=tuple(mesh_study(results, cell_sizes) if mesh is None else mesh),
                          notes=tuple(notes or ()), checks=tuple(checks or ()))
 
 
@@ -362,7 +396,8 @@ def postprocess_sweep(
     checks = [{k: r.get(k) for k in check_keys} for r in rows]
     analysis = analyse_results([o.result for o in outcomes],
                                title=title or f"Sweep report — {manifest.study or Path(sweep_dir).name}",
-                               study=manifest.study, notes=notes, checks=checks)
+                               study=manifest.study, notes=notes, checks=checks,
+                               cell_sizes={o.result.case_id: o.cell_size for o in outcomes})
     write_json_atomic(paths["json"], json_ready({
         "study": manifest.study,
         "axes": "wind axes of caseprep.contract.frames: C_L positive up (downforce = -C_L), C_D along the relative wind, "

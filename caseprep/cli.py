@@ -136,7 +136,7 @@ def write_cmd(config: str, out_dir: str, force: bool, fidelity: str | None) -> N
     Existing identical cases are left alone and new ones added; a case that
     exists with different content is refused unless --force is given.
     """
-    from caseprep.config.schema import load_config, with_fidelity  # planning half: loaded only when needed
+    from caseprep.config.load import load_config, with_fidelity  # planning half: loaded only when needed
     from caseprep.planning.planner import plan
     from caseprep.casefiles.writer import write_sweep
 
@@ -178,7 +178,7 @@ def plan_cmd(config: str, as_json: bool) -> None:
     blockage %, estimated cells). Writes nothing."""
     import json
 
-    from caseprep.config.schema import load_config
+    from caseprep.config.load import load_config
     from caseprep.planning.planner import TABLE_COLUMNS, plan_all, plan_json, table_rows
     from caseprep.contract.atomicio import json_ready
     from caseprep.contract.errors import UserErrors

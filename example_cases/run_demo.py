@@ -53,7 +53,7 @@ def say(msg: str = "") -> None:
 def write_sweep(config_path: Path, sweep_dir: Path, fidelity: str, force: bool) -> None:
     """Plan and write the sweep with the caseprep Python API."""
     try:
-        from caseprep.config.schema import load_config, with_fidelity
+        from caseprep.config.load import load_config, with_fidelity
         from caseprep.planning.planner import plan
         from caseprep.casefiles.writer import write_sweep as _write
     except ImportError as exc:

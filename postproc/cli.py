@@ -12,7 +12,7 @@ import click
 from caseprep.contract.cli_common import FriendlyGroup
 
 from caseprep.contract import __version__
-from postproc.pipelines.case_forces import forces_report
+from postproc.pipelines.case_forces import ForcesOptions, forces_report
 
 
 @click.group(cls=FriendlyGroup, context_settings={"help_option_names": ["-h", "--help"]})
@@ -106,9 +106,12 @@ def forces_cmd(target, patches, rho, kinematic, normals, shear_on, p_ref, about,
     """
     import json
 
-    r = forces_report(target, tuple(patches), rho, kinematic, normals.replace("-", "_"), shear_on, p_ref,
-                   tuple(about) if about else None, pressure_field, shear_field, no_shear, allow_nonfinite,
-                   allow_open, area, length, speed, None, front_axle or None, rear_axle or None, cog or None, window)
+    opts = ForcesOptions(patches=tuple(patches), rho=rho, kinematic=kinematic, normals=normals.replace("-", "_"),
+                         shear_on=shear_on, p_ref=p_ref, about=tuple(about) if about else None,
+                         pressure_field=pressure_field, shear_field=shear_field, no_shear=no_shear,
+                         allow_nonfinite=allow_nonfinite, allow_open=allow_open, area=area, length=length, speed=speed,
+                         front_axle=front_axle or None, rear_axle=rear_axle or None, cog=cog or None, window=window)
+    r = forces_report(target, opts).to_dict()
     click.echo(json.dumps(r, indent=2) if as_json else _table(r))
 
 

@@ -9,7 +9,7 @@ from caseprep.contract import frames as fr
 from caseprep.contract.errors import UserError
 from caseprep.contract.frames import axes_rotations, axle_axes
 from postproc.kernels.coefficients import ReferenceValues, balance, coefficients
-from postproc.kernels.forces import ForceResult, face_geometry, integrate_forces
+from postproc.kernels.forces import ForceResult, ForceSettings, integrate_forces
 
 
 def point_load(F, at, about=(0.0, 0.0, 0.0)) -> ForceResult:
@@ -160,7 +160,7 @@ def test_thin_aerofoil_lift_slope_and_quarter_chord():
     G = lambda x: np.sqrt(x * (c - x)) + c * np.arcsin(np.sqrt(x / c))  # noqa: E731
     P, Q, dcp = _aerofoil(lambda a, b: 4 * alpha * (G(b) - G(a)) / (b - a))
     q = 0.5 * 1.2 * 30**2
-    r = integrate_forces(P, Q, dcp * q, None, kinematic=False)
+    r = integrate_forces(P, Q, dcp * q, None, ForceSettings(kinematic=False))
     ref = ReferenceValues(area=c, length=c, rho=1.2, speed=30.0, wheelbase=c, front_axle=(0, 0, 0), rear_axle=(c, 0, 0))
     co = coefficients(r, ref)
     assert co.lift == pytest.approx(2 * np.pi * alpha, rel=1e-12)  # exact face averages: round-off
@@ -173,10 +173,10 @@ def test_uniform_and_linear_load_centres_of_pressure():
     # statics (common practice, no source): uniform load → mid-chord; load ∝ x → two thirds of the chord
     ref = ReferenceValues(area=1, length=1, rho=1.2, speed=10.0, wheelbase=1.0, front_axle=(0, 0, 0), rear_axle=(1, 0, 0))
     P, Q, p = _aerofoil(lambda a, b: np.ones_like(a), n=50)
-    assert balance(integrate_forces(P, Q, p, None, kinematic=False), ref).cp_x == pytest.approx(0.5, rel=1e-12)
+    assert balance(integrate_forces(P, Q, p, None, ForceSettings(kinematic=False)), ref).cp_x == pytest.approx(0.5, rel=1e-12)
     P, Q, p = _aerofoil(lambda a, b: 0.5 * (a + b), n=50)  # exact face average of x
     # the centroid rule is exact for a linear load on each face's first moment? no: ∫x² needs O(h²) → 1e-3
-    assert balance(integrate_forces(P, Q, p, None, kinematic=False), ref).cp_x == pytest.approx(2 / 3, rel=1e-3)
+    assert balance(integrate_forces(P, Q, p, None, ForceSettings(kinematic=False)), ref).cp_x == pytest.approx(2 / 3, rel=1e-3)
 
 
 def test_reference_values_validated():

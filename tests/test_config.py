@@ -5,7 +5,7 @@ from pathlib import Path
 
 import pytest
 
-from caseprep.config.schema import load_config
+from caseprep.config.load import load_config
 from caseprep.contract.errors import UserError, UserErrors
 from planning_helpers import BASE_TOML, write_config
 
@@ -142,3 +142,49 @@ def test_too_many_values(tmp_path):
     assert "a list of 3 values" in msg and "body.front_axle" in msg
     msg = _err(tmp_path, BASE_TOML.replace("ride_height = [0.05]\npitch_deg = [0.0]", "ride_heights_front_rear = [[0.03]]"))
     assert "a list of 2 values" in msg and "sweep.ride_heights_front_rear[0]" in msg
+
+
+def test_readme_key_table_is_rendered_from_the_one_declaration():
+    # the README's table of config keys comes from caseprep.config.keys (regenerate with
+    # `python -c "from caseprep.config.keys import markdown_table; print(markdown_table())"`)
+    from pathlib import Path
+
+    from caseprep.config.keys import markdown_table
+
+    readme = (Path(__file__).resolve().parent.parent / "README.md").read_text(encoding="utf-8")
+    assert markdown_table() in readme
+
+
+def test_every_model_field_is_a_declared_key_and_back():
+    import types
+    import typing
+
+    from caseprep.config import schema
+    from caseprep.config.keys import KEYS, NO_DEFAULT
+
+    found = {}
+
+    def model_of(ann):
+        return ann if isinstance(ann, type) and not typing.get_args(ann) and issubclass(ann, schema.BaseModel) else None
+
+    def walk(model, prefix):
+        for name, f in model.model_fields.items():
+            ann = f.annotation
+            opts = [a for a in typing.get_args(ann) if a is not type(None)]
+            if typing.get_origin(ann) in (typing.Union, types.UnionType) and len(opts) == 1:
+                ann = opts[0]  # Optional[X] → X
+            args = typing.get_args(ann)
+            if typing.get_origin(ann) is tuple and args and model_of(args[0]):
+                walk(args[0], f"{prefix}{name}[].")
+            elif typing.get_origin(ann) is dict and model_of(args[1]):
+                walk(args[1], f"{prefix}{name}.<name>.")
+            elif model_of(ann):
+                walk(ann, f"{prefix}{name}.")
+            else:
+                found[prefix + name] = f
+    walk(schema.Config, "")
+    inner_lists = {"sweep.points"}  # a list of tables with a row of its own
+    assert set(found) | inner_lists == set(KEYS)
+    for key, f in found.items():  # a default in a model is the declared one
+        if not f.is_required() and f.default is not None:
+            assert KEYS[key].value is not NO_DEFAULT and f.default == KEYS[key].value, key

@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 
 from caseprep.casefiles import foamdict as fd
-from caseprep.config.schema import load_config
+from caseprep.config.load import load_config
 from caseprep.planning.domain import ground_grading
 from caseprep.contract.errors import UserError, UserErrors
 from caseprep.planning.planner import plan

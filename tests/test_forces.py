@@ -6,7 +6,8 @@ import pytest
 
 from _surfaces import icosphere, plate
 from caseprep.contract.errors import UserError
-from postproc.kernels.forces import closure, face_geometry, integrate_forces
+from postproc.kernels.forces import ForceSettings, integrate_forces
+from postproc.kernels.polygons import closure, face_geometry
 
 MU, U, A_S = 1.8e-5, 0.01, 0.5   # our invented Stokes set-up: μ Pa·s, U m/s, radius m
 
@@ -29,7 +30,7 @@ def test_stokes_sphere_drag_split_and_second_order():
     for nsub in (2, 3, 4):
         X, F = icosphere(A_S, nsub)
         p, tau = stokes_face_data(X, F)
-        r = integrate_forces(X, F, p, tau, kinematic=False, normals="out_of_body", shear_on="wall")
+        r = integrate_forces(X, F, p, tau, ForceSettings(kinematic=False, normals="out_of_body", shear_on="wall"))
         d = 6 * np.pi * MU * U * A_S  # Stokes 1851: drag = 6πμUa
         errs.append(abs(r.force[0] - d) / d)
         # Batchelor §4.9: one third from pressure, two thirds from shear (discretisation error O(h²), < 1 % here)
@@ -51,11 +52,11 @@ def test_archimedes_hydrostatic_sphere_static_and_kinematic(p0, p_ref):
     S, C = face_geometry(X, F)
     vol = np.einsum("ij,ij->", C, S) / 3.0  # the polyhedron's volume (divergence theorem)
     p = p0 - rho * g * C[:, 2]
-    r = integrate_forces(X, F, p, None, kinematic=False, p_ref=p_ref, normals="out_of_body")
+    r = integrate_forces(X, F, p, None, ForceSettings(kinematic=False, p_ref=p_ref, normals="out_of_body"))
     # Archimedes: buoyancy = ρ g V upward; exact for a linear field on planar faces (midpoint rule) → round-off
     np.testing.assert_allclose(r.force, [0, 0, rho * g * vol], atol=1e-9 * rho * g * vol * (1 + abs(p0 - p_ref) / (rho * g)))
     assert vol == pytest.approx(4 / 3 * np.pi * 0.3**3, rel=2e-2)  # faceted volume, O(h²)
-    rk = integrate_forces(X, F, p / rho, None, rho=rho, kinematic=True, p_ref=p_ref, normals="out_of_body")
+    rk = integrate_forces(X, F, p / rho, None, ForceSettings(rho=rho, kinematic=True, p_ref=p_ref, normals="out_of_body"))
     np.testing.assert_allclose(rk.force, r.force, rtol=1e-12, atol=1e-9 * rho * g * vol * (1 + abs(p0 - p_ref) / (rho * g)))
     # buoyancy acts through the centre of buoyancy: zero moment about the sphere centre
     assert np.abs(r.moment_about((1.0, -2.0, -0.7))).max() < 1e-9 * rho * g * vol * (1 + abs(p0) / (rho * g))
@@ -73,7 +74,7 @@ def test_potential_flow_sphere_dalembert():
     cos = C @ w / np.linalg.norm(C, axis=1)
     q = 0.5 * 1.2 * 30.0**2
     p = q * (1 - 2.25 * (1 - cos**2))
-    r = integrate_forces(X, F, p, None, kinematic=False, normals="out_of_body")
+    r = integrate_forces(X, F, p, None, ForceSettings(kinematic=False, normals="out_of_body"))
     scale = q * 4 * np.pi * 1.2**2
     assert np.abs(r.force).max() < 1e-12 * scale  # round-off
     assert np.abs(r.moment).max() < 1e-12 * scale * 1.2
@@ -93,7 +94,7 @@ def test_blasius_flat_plate_skin_friction():
     x1 = P[Q[:, 1], 0]
     tau_avg = 0.664 * rho * Uinf**2 * np.sqrt(nu / Uinf) * (np.sqrt(x1) - np.sqrt(x0)) / (x1 - x0)
     shear = np.column_stack([tau_avg, 0 * tau_avg, 0 * tau_avg])
-    r = integrate_forces(P, Q, np.zeros(len(Q)), shear, kinematic=False, shear_on="wall", normals="into_body")
+    r = integrate_forces(P, Q, np.zeros(len(Q)), shear, ForceSettings(kinematic=False, shear_on="wall", normals="into_body"))
     assert r.force[0] / (q * b * L) == pytest.approx(cf_exact, rel=1e-12)
     # (b) centroid values on a mesh graded towards the 1/√x leading-edge singularity (x = L s⁴):
     # on a uniform mesh the first face alone misses (2 − √2)√h₁ of the exact 2√L (first-order-like
@@ -102,8 +103,7 @@ def test_blasius_flat_plate_skin_friction():
     P, Q = plate(xs, np.linspace(0, b, 3))
     S, C = face_geometry(P, Q)
     tau = 0.332 * rho * Uinf**2 / np.sqrt(Uinf * C[:, 0] / nu)
-    r = integrate_forces(P, Q, np.zeros(len(Q)), np.column_stack([-tau / rho, 0 * tau, 0 * tau]), rho=rho,
-                         kinematic=True, shear_on="fluid")
+    r = integrate_forces(P, Q, np.zeros(len(Q)), np.column_stack([-tau / rho, 0 * tau, 0 * tau]), ForceSettings(rho=rho, kinematic=True, shear_on="fluid"))
     assert r.force[0] / (q * b * L) == pytest.approx(cf_exact, rel=5e-4)
     assert r.force_pressure == pytest.approx([0, 0, 0])
 
@@ -112,8 +112,8 @@ def test_closed_body_independent_of_p_ref_open_patch_not():
     X, F = icosphere(0.4, 2)
     rng = np.random.default_rng(3)
     p = rng.normal(size=len(F))
-    a = integrate_forces(X, F, p, None, kinematic=False, normals="out_of_body", p_ref=0.0)
-    b = integrate_forces(X, F, p, None, kinematic=False, normals="out_of_body", p_ref=1e5)
+    a = integrate_forces(X, F, p, None, ForceSettings(kinematic=False, normals="out_of_body", p_ref=0.0))
+    b = integrate_forces(X, F, p, None, ForceSettings(kinematic=False, normals="out_of_body", p_ref=1e5))
     np.testing.assert_allclose(b.force, a.force, atol=1e-9 * 1e5)   # Gauss: ∮ n dS = 0
     np.testing.assert_allclose(b.moment, a.moment, atol=1e-9 * 1e5)  # ∮ r × n dS = 0
     # open patch: the force changes by −p_ref Σ S_into (exactly)
@@ -121,8 +121,8 @@ def test_closed_body_independent_of_p_ref_open_patch_not():
     S, _ = face_geometry(P, Q)
     assert closure(S) == pytest.approx(1.0)
     p = rng.normal(size=len(Q))
-    a = integrate_forces(P, Q, p, None, kinematic=False, p_ref=0.0)
-    b = integrate_forces(P, Q, p, None, kinematic=False, p_ref=250.0)
+    a = integrate_forces(P, Q, p, None, ForceSettings(kinematic=False, p_ref=0.0))
+    b = integrate_forces(P, Q, p, None, ForceSettings(kinematic=False, p_ref=250.0))
     np.testing.assert_allclose(b.force - a.force, -250.0 * S.sum(axis=0), rtol=1e-12)
 
 
@@ -131,13 +131,13 @@ def test_conventions_normals_shear_kinematic():
     rng = np.random.default_rng(4)
     p, tau = rng.normal(size=len(F)), rng.normal(size=(len(F), 3))
     rho = 1.225
-    ref = integrate_forces(X, F, p, tau, rho=rho, kinematic=True, normals="out_of_body", shear_on="fluid")
+    ref = integrate_forces(X, F, p, tau, ForceSettings(rho=rho, kinematic=True, normals="out_of_body", shear_on="fluid"))
     # reversed vertex order = normals into the body
-    r2 = integrate_forces(X, F[:, ::-1], p, tau, rho=rho, kinematic=True, normals="into_body", shear_on="fluid")
+    r2 = integrate_forces(X, F[:, ::-1], p, tau, ForceSettings(rho=rho, kinematic=True, normals="into_body", shear_on="fluid"))
     # shear on the wall = − shear on the fluid
-    r3 = integrate_forces(X, F, p, -tau, rho=rho, kinematic=True, normals="out_of_body", shear_on="wall")
+    r3 = integrate_forces(X, F, p, -tau, ForceSettings(rho=rho, kinematic=True, normals="out_of_body", shear_on="wall"))
     # static = ρ × kinematic
-    r4 = integrate_forces(X, F, rho * p, rho * tau, kinematic=False, normals="out_of_body", shear_on="fluid")
+    r4 = integrate_forces(X, F, rho * p, rho * tau, ForceSettings(kinematic=False, normals="out_of_body", shear_on="fluid"))
     for r in (r2, r3, r4):
         np.testing.assert_allclose(r.force, ref.force, rtol=1e-12, atol=1e-12)
         np.testing.assert_allclose(r.moment, ref.moment, rtol=1e-12, atol=1e-12)
@@ -146,11 +146,11 @@ def test_conventions_normals_shear_kinematic():
     S, _ = face_geometry(X, F)
     one = np.zeros(len(F))
     one[0] = 1.0
-    r = integrate_forces(X, F, one, None, kinematic=False, normals="out_of_body")
+    r = integrate_forces(X, F, one, None, ForceSettings(kinematic=False, normals="out_of_body"))
     np.testing.assert_allclose(r.force, -S[0], rtol=1e-12)
     t = np.zeros((len(F), 3))
     t[0] = [1, 0, 0]
-    r = integrate_forces(X, F, 0 * one, t, kinematic=False, normals="out_of_body", shear_on="fluid")
+    r = integrate_forces(X, F, 0 * one, t, ForceSettings(kinematic=False, normals="out_of_body", shear_on="fluid"))
     assert r.force_viscous[0] == pytest.approx(-np.linalg.norm(S[0]))
 
 
@@ -159,7 +159,7 @@ def test_parts_sum_to_total_and_mixed_polygons_match():
     rng = np.random.default_rng(5)
     p, tau = rng.normal(size=len(F)), rng.normal(size=(len(F), 3))
     ids = (np.arange(len(F)) % 3)
-    r = integrate_forces(X, F, p, tau, rho=1.2, part_ids=ids, part_names=["a", "b", "c"], about=(0.1, 0, 0))
+    r = integrate_forces(X, F, p, tau, ForceSettings(rho=1.2, about=(0.1, 0, 0)), part_ids=ids, part_names=["a", "b", "c"])
     assert set(r.parts) == {"a", "b", "c"}
     np.testing.assert_allclose(sum(v.force for v in r.parts.values()), r.force, atol=1e-13)
     np.testing.assert_allclose(sum(v.moment for v in r.parts.values()), r.moment, atol=1e-13)
@@ -180,8 +180,8 @@ def test_moment_about_and_shift_consistent():
     X, F = icosphere(1.0, 1)
     rng = np.random.default_rng(6)
     p, tau = rng.normal(size=len(F)), rng.normal(size=(len(F), 3))
-    a = integrate_forces(X, F, p, tau, about=(0, 0, 0))
-    b = integrate_forces(X, F, p, tau, about=(1, 2, 3))
+    a = integrate_forces(X, F, p, tau, ForceSettings(about=(0, 0, 0)))
+    b = integrate_forces(X, F, p, tau, ForceSettings(about=(1, 2, 3)))
     np.testing.assert_allclose(a.moment_about((1, 2, 3)), b.moment, atol=1e-12)
     np.testing.assert_allclose(a.shifted((1, 2, 3)).moment_viscous, b.moment_viscous, atol=1e-12)
 
@@ -190,11 +190,11 @@ def test_rigid_motion_invariance():
     X, F = icosphere(0.7, 2)
     rng = np.random.default_rng(7)
     p, tau = rng.normal(size=len(F)), rng.normal(size=(len(F), 3))
-    ref = integrate_forces(X, F, p, tau, about=(0.1, 0.2, 0.3))
+    ref = integrate_forces(X, F, p, tau, ForceSettings(about=(0.1, 0.2, 0.3)))
     for _ in range(5):
         Q, _ = np.linalg.qr(rng.normal(size=(3, 3)))
         t = rng.normal(size=3) * 10
-        r = integrate_forces(X @ Q.T + t, F, p, tau @ Q.T, about=Q @ [0.1, 0.2, 0.3] + t)
+        r = integrate_forces(X @ Q.T + t, F, p, tau @ Q.T, ForceSettings(about=Q @ [0.1, 0.2, 0.3] + t))
         np.testing.assert_allclose(r.force, Q @ ref.force, atol=1e-11)
         np.testing.assert_allclose(r.moment, Q @ ref.moment, atol=1e-10)
         assert np.linalg.norm(r.force) == pytest.approx(np.linalg.norm(ref.force), rel=1e-12)
@@ -204,7 +204,7 @@ def test_rigid_motion_invariance():
 def test_float32_inputs_accumulate_in_float64():
     X, F = icosphere(1.0, 3)
     p = np.ones(len(F), dtype=np.float32) * np.float32(1e5)
-    r = integrate_forces(X.astype(np.float32), F, p, None, kinematic=False, normals="out_of_body")
+    r = integrate_forces(X.astype(np.float32), F, p, None, ForceSettings(kinematic=False, normals="out_of_body"))
     assert r.force.dtype == np.float64
     S, _ = face_geometry(X.astype(np.float32), F)
     # float64 sums of float32-exact values: the closed surface's Σ S vanishes to float64 round-off
@@ -219,10 +219,10 @@ def test_inputs_never_modified():
     p[3] = np.nan
     ids = np.arange(len(F)) % 2
     copies = [a.copy() for a in (X, F, p, tau, ids)]
-    integrate_forces(X, F, p, tau, rho=1.2, p_ref=3.0, part_ids=ids, allow_nonfinite=True)
+    integrate_forces(X, F, p, tau, ForceSettings(rho=1.2, p_ref=3.0, allow_nonfinite=True), part_ids=ids)
     S, C = face_geometry(X, F)
     s2, c2 = S.copy(), C.copy()
-    integrate_forces(area_vectors=S, centroids=C, pressure=p, shear=tau, allow_nonfinite=True, kinematic=False)
+    integrate_forces(area_vectors=S, centroids=C, pressure=p, shear=tau, settings=ForceSettings(allow_nonfinite=True, kinematic=False))
     for a, b in zip((X, F, p, tau, ids, S, C), copies + [s2, c2]):
         np.testing.assert_array_equal(a, b)
 
@@ -233,7 +233,7 @@ def test_bad_input_errors():
     p[5] = np.inf
     with pytest.raises(UserError, match=r"1 non-finite.*face 5"):
         integrate_forces(X, F, p, None)
-    r = integrate_forces(X, F, p, None, allow_nonfinite=True)
+    r = integrate_forces(X, F, p, None, ForceSettings(allow_nonfinite=True))
     assert np.isfinite(r.force).all()
     X2 = X.copy()
     F2 = F.copy()
@@ -243,4 +243,4 @@ def test_bad_input_errors():
     with pytest.raises(UserError, match="one pressure value per face"):
         integrate_forces(X, F, np.zeros(len(X)), None)
     with pytest.raises(UserError, match="normals"):
-        integrate_forces(X, F, np.zeros(len(F)), None, normals="outward")
+        integrate_forces(X, F, np.zeros(len(F)), None, ForceSettings(normals="outward"))

@@ -34,7 +34,7 @@ def test_json_keys_and_archimedes_through_the_cli(tmp_path):
     assert res.exit_code == 0, res.output
     r = json.loads(res.output)
     assert {"force", "force_pressure", "force_viscous", "moment", "area"} <= set(r)
-    from postproc.kernels.forces import face_geometry
+    from postproc.kernels.polygons import face_geometry
     S, C = face_geometry(X, F)
     vol = -np.einsum("ij,ij->", C, S) / 3.0
     # Archimedes: ρ g V upward, to round-off (linear pressure, midpoint rule exact)

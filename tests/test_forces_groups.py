@@ -9,7 +9,8 @@ import pytest
 from _surfaces import icosphere
 from _vtkfiles import polydata, write, write_solver_like_export
 from postproc.kernels import forces as pf
-from postproc.kernels.forces import face_geometry, integrate_forces
+from postproc.kernels.forces import ForceSettings, integrate_forces
+from postproc.kernels.polygons import face_geometry
 from postproc.io.surfaces import read_surface
 
 
@@ -81,14 +82,14 @@ def test_grouped_loads_match_reference_in_any_chunking(monkeypatch, chunk):
     Sr, Cr = reference_geometry(P, off, conn)
     about = (0.3, -0.2, 0.5)
     Fp, Fv, Mp, Mv = reference_loads(Sr, Cr, p, tau, 1.2, about)
-    r = integrate_forces(P, (off, conn), p, tau, rho=1.2, about=about)
+    r = integrate_forces(P, (off, conn), p, tau, ForceSettings(rho=1.2, about=about))
     # sums of ~400 terms of size ≤ 0.1 N: round-off well below 1e-13
     for got, want in ((r.force_pressure, Fp), (r.force_viscous, Fv), (r.moment_pressure, Mp), (r.moment_viscous, Mv)):
         np.testing.assert_allclose(got, want, rtol=0, atol=1e-13)
     assert r.area == pytest.approx(np.linalg.norm(Sr, axis=1).sum(), rel=1e-14)
     assert r.open_fraction == pytest.approx(np.linalg.norm(Sr.sum(0)) / np.linalg.norm(Sr, axis=1).sum(), rel=1e-12)
     # the same faces as precomputed area vectors and centroids
-    r2 = integrate_forces(area_vectors=Sr, centroids=Cr, pressure=p, shear=tau, rho=1.2, about=about)
+    r2 = integrate_forces(area_vectors=Sr, centroids=Cr, pressure=p, shear=tau, settings=ForceSettings(rho=1.2, about=about))
     np.testing.assert_allclose(r2.force, r.force, rtol=0, atol=1e-13)
     np.testing.assert_allclose(r2.moment, r.moment, rtol=0, atol=1e-13)
 
@@ -102,9 +103,9 @@ def test_parts_in_runs_and_interleaved_match_subsets(monkeypatch, chunk):
     runs = np.repeat([0, 1, 2], [300, 500, len(F) - 800])      # patches one after another (summed run by run)
     mixed = rng.integers(0, 3, len(F))                          # interleaved ids (summed by bincount)
     for ids in (runs, mixed):
-        r = integrate_forces(X, F, p, tau, rho=1.2, part_ids=ids, part_names=["a", "b", "c"], about=(0.1, 0, 0))
+        r = integrate_forces(X, F, p, tau, ForceSettings(rho=1.2, about=(0.1, 0, 0)), part_ids=ids, part_names=["a", "b", "c"])
         for i, name in enumerate("abc"):
-            sub = integrate_forces(X, F[ids == i], p[ids == i], tau[ids == i], rho=1.2, about=(0.1, 0, 0))
+            sub = integrate_forces(X, F[ids == i], p[ids == i], tau[ids == i], ForceSettings(rho=1.2, about=(0.1, 0, 0)))
             # the same faces summed in another grouping: round-off of ~500 terms of size ≤ 0.05
             np.testing.assert_allclose(r.parts[name].force, sub.force, rtol=0, atol=1e-13)
             np.testing.assert_allclose(r.parts[name].moment, sub.moment, rtol=0, atol=1e-13)
@@ -120,14 +121,14 @@ def test_grouped_path_inputs_unmodified_and_skips_nonfinite():
     tau[40, 1] = np.inf
     ids = np.arange(len(p)) % 3
     copies = [a.copy() for a in (P, off, conn, p, tau, ids)]
-    r = integrate_forces(P, (off, conn), p, tau, rho=1.2, part_ids=ids, allow_nonfinite=True)
+    r = integrate_forces(P, (off, conn), p, tau, ForceSettings(rho=1.2, allow_nonfinite=True), part_ids=ids)
     face_geometry(P, (off, conn))
     for a, b in zip((P, off, conn, p, tau, ids), copies):
         np.testing.assert_array_equal(a, b)
     keep = np.ones(len(p), bool)
     keep[[5, 17, 40]] = False
     Sr, Cr = reference_geometry(P, off, conn)
-    ref = integrate_forces(area_vectors=Sr[keep], centroids=Cr[keep], pressure=p[keep], shear=tau[keep], rho=1.2)
+    ref = integrate_forces(area_vectors=Sr[keep], centroids=Cr[keep], pressure=p[keep], shear=tau[keep], settings=ForceSettings(rho=1.2))
     np.testing.assert_allclose(r.force, ref.force, rtol=0, atol=1e-12)  # float32 data, float64 sums: round-off
     np.testing.assert_allclose(r.moment, ref.moment, rtol=0, atol=1e-12)
 

@@ -129,7 +129,7 @@ def test_functions_do_not_modify_inputs():
     pts = t.reshape(-1, 3)
     hullmod.hull_points(pts)
     hullmod.hull_projected_area(pts, [1, 0, 0])
-    body.analyse(stl.Surface(t, np.zeros(len(t), dtype=int), ("body",)))
+    body.analyse(stl.TriSurface(t, np.zeros(len(t), dtype=int), ("body",)))
     np.testing.assert_array_equal(t, t0)
 
 
@@ -142,3 +142,21 @@ def test_example_geometry_is_clean():
         s = stl.read_stl(root / f)
         r = checks.inspect_surface(s.triangles)
         assert checks.surface_problems(r, f, "k", "m") == [], f
+
+
+def test_one_binary_rule_for_reading_and_writing(tmp_path):
+    # a binary STL whose 80-byte header starts with "solid" (some exporters write that) is binary by its size,
+    # for the reader and for the solid names alike (STL format: 80-byte header, uint32 count, 50 bytes a facet)
+    import struct
+
+    tri = np.zeros(1, dtype=[("n", "<f4", 3), ("v", "<f4", (3, 3)), ("a", "<u2")])
+    tri["v"] = [[0, 0, 0], [1, 0, 0], [0, 1, 0]]
+    data = b"solid exported by a CAD tool".ljust(80, b" ") + struct.pack("<I", 1) + tri.tobytes()
+    (tmp_path / "b.stl").write_bytes(data)
+    assert stl.stl_kind(data) == "binary" and stl.stl_solid_names(data) is None
+    s = stl.read_stl(tmp_path / "b.stl")
+    assert s.n_triangles == 1 and s.solid_names == ("body",)
+    assert stl.stl_kind(b"hello, not an STL") is None
+    (tmp_path / "x.stl").write_bytes(b"hello, not an STL")
+    with pytest.raises(UserError, match="binary or ASCII STL"):
+        stl.read_stl(tmp_path / "x.stl")

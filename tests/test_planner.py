@@ -11,7 +11,7 @@ from click.testing import CliRunner
 
 from caseprep.contract import frames as fr
 from caseprep.cli import main
-from caseprep.config.schema import load_config
+from caseprep.config.load import load_config
 from caseprep.planning.domain import decomposition_split
 from caseprep.contract.errors import UserError
 from caseprep.geometry.stl import read_stl

@@ -8,7 +8,7 @@ import pytest
 from _surfaces import icosphere
 from _vtkfiles import polydata, write, write_solver_like_export
 from caseprep.contract.errors import UserError
-from postproc.kernels.forces import integrate_forces
+from postproc.kernels.forces import ForceSettings, integrate_forces
 from postproc.io.exports import latest_export
 from postproc.io.surfaces import known_extensions, read_surface, select_patches
 
@@ -28,8 +28,8 @@ def test_single_file_formats_round_trip(tmp_path, ext):
     assert s.n_faces == len(F) and s.part_names == ("wing",)
     assert s.cell_data["p"].dtype == np.float32  # stored dtype kept; the kernel accumulates in float64
     np.testing.assert_array_equal(s.cell_data["p"], p.astype(np.float32))
-    r1 = integrate_forces(s.points, s.faces, s.array("p"), s.array("wallShearStress"), rho=1.2)
-    r2 = integrate_forces(X.astype(np.float32), F, p.astype(np.float32), tau.astype(np.float32), rho=1.2)
+    r1 = integrate_forces(s.points, s.faces, s.array("p"), s.array("wallShearStress"), ForceSettings(rho=1.2))
+    r2 = integrate_forces(X.astype(np.float32), F, p.astype(np.float32), tau.astype(np.float32), ForceSettings(rho=1.2))
     np.testing.assert_allclose(r1.force, r2.force, rtol=1e-12, atol=1e-12)
 
 
@@ -87,9 +87,9 @@ def test_truncated_and_not_vtk_files(tmp_path, ext):
     if ext == ".vtk":
         # the legacy reader accepts a file cut after its cells without a complaint: the loss shows up as a
         # missing face array (or collapsed faces) when the forces are computed — still one UserError
-        from postproc.pipelines.case_forces import forces_report as run_forces
+        from postproc.pipelines.case_forces import ForcesOptions, forces_report
         with pytest.raises(UserError, match="expected a face .cell. data array 'p'|zero-area|rejects"):
-            run_forces(str(t), rho=1.2)
+            forces_report(str(t), ForcesOptions(rho=1.2))
     else:
         with pytest.raises(UserError, match="rejects|truncated"):
             read_surface(t)
@@ -154,7 +154,7 @@ def test_kernel_agrees_with_vtk_integrate_attributes():
     F_vtk = vtk_to_numpy(res.GetCellData().GetArray("pn"))[0]
     M_vtk = vtk_to_numpy(res.GetCellData().GetArray("m"))[0]
     area_vtk = vtk_to_numpy(res.GetCellData().GetArray("Area"))[0]
-    r = integrate_forces(X, F, p, tau, kinematic=False, normals="into_body", shear_on="wall")
+    r = integrate_forces(X, F, p, tau, ForceSettings(kinematic=False, normals="into_body", shear_on="wall"))
     scale = (np.abs(p).max() + np.abs(tau).max()) * area_vtk
     np.testing.assert_allclose(r.force, F_vtk, atol=1e-7 * scale)
     np.testing.assert_allclose(r.moment, M_vtk, atol=1e-7 * scale * 2)

@@ -69,7 +69,7 @@ def test_case_meshes_solves_and_exports(tmp_path):
         assert patches[p]["nFaces"] > 0 and patches[p]["type"] == "wall", p
 
     run(case, "solve")
-    forces = case / rec.extra["outputs"]["forces"]
+    forces = case / rec.outputs["forces"]
     rows = [l for l in forces.read_text().splitlines() if l and not l.startswith("#")]
     assert len(rows) == ITER
     total = np.array(rows[-1].split("(")[1].split(")")[0].split(), dtype=float)
@@ -77,7 +77,7 @@ def test_case_meshes_solves_and_exports(tmp_path):
     # drag (force along the relative wind) is positive on a bluff body in a
     # viscous flow (d'Alembert's paradox only holds for inviscid flow; common practice)
     assert total @ wind > 0
-    assert (case / rec.extra["outputs"]["residuals"]).is_file()
+    assert (case / rec.outputs["residuals"]).is_file()
     assert (case / str(ITER) / "U").is_file()
 
     run(case, "export")

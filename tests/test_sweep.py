@@ -7,7 +7,7 @@ import numpy as np
 import pytest
 
 from caseprep.contract import frames as fr
-from caseprep.config.schema import load_config
+from caseprep.config.load import load_config
 from caseprep.contract.errors import UserError
 from caseprep.planning.points import expand, heights_from_pitch, pitch_from_heights
 from planning_helpers import BASE_TOML, write_config

@@ -57,7 +57,7 @@ def test_real_smoke_sweep(tmp_path):
     assert o.status == "ok", o
     assert math.isfinite(o.result.cl) and math.isfinite(o.result.cd)
     # the table carries exactly the per-case forces report's wind-axes coefficients
-    rep = forces_report(str(root / "cases" / "smoke-a"))
+    rep = forces_report(str(root / "cases" / "smoke-a")).to_dict()
     assert o.result.cd == pytest.approx(rep["coefficients"]["drag"], rel=1e-12)
     assert o.result.cl == pytest.approx(rep["coefficients"]["lift"], rel=1e-12)
     # our integral of the exported surface equals the solver's own runtime force monitor at the

@@ -23,13 +23,13 @@ import pytest
 
 from caseprep.casefiles import foamdict as fd
 from caseprep.run import runner
-from caseprep.config.schema import load_config
+from caseprep.config.load import load_config
 from caseprep.contract.manifest import read_manifest
 from caseprep.planning.planner import plan
 from caseprep.casefiles.writer import write_sweep
-from postproc.pipelines.case_forces import forces_report
+from postproc.pipelines.case_forces import ForcesOptions, forces_report
 from caseprep.run.solverlogs import parse_solver
-from postproc.kernels.forces import face_geometry
+from postproc.kernels.polygons import face_geometry
 from postproc.io.exports import latest_export
 from postproc.io.surfaces import read_surface
 
@@ -60,7 +60,7 @@ def test_sphere_re100_drag_and_symmetry(tmp_path):
     run = records[rec.case_id]
     assert run.end_reason == "converged"  # the solver's residual targets (p 1e-4, U 1e-5) were met
     case = tmp_path / "sphere" / rec.folder
-    rep = forces_report(str(case), window=30)
+    rep = forces_report(str(case), ForcesOptions(window=30)).to_dict()
     # the runtime force monitor is steady over the last 30 iterations (drift and spread < 1 %)
     assert rep["convergence"]["verdict"] == "converged"
 
@@ -120,7 +120,7 @@ def test_ground_boundary_layer_skin_friction_matches_blasius(tmp_path):
     _, centres = face_geometry(surf.points, surf.faces)
     tau = surf.array("wallShearStress")
     U, nu = rec.reference.speed, rec.reference.nu
-    x = centres[:, 0] - rec.extra["ground_leading_edge"]  # body x = distance from the inlet along the wind
+    x = centres[:, 0] - rec.info["ground_leading_edge"]  # body x = distance from the inlet along the wind
     assert x.min() > 0 and x.max() == pytest.approx(1.0, abs=0.02)
     mid = (x >= 0.3) & (x <= 0.7)  # the middle of the 1 m ground
     assert mid.sum() >= 10
@@ -137,7 +137,7 @@ def test_ground_boundary_layer_skin_friction_matches_blasius(tmp_path):
     assert np.all(np.abs(ratio - 1.0) < 0.10), ratio
     # the first background cell on the ground is the configured one (graded mesh)
     z = internal.cell_centers().points[:, 2]
-    assert 2.0 * z.min() == pytest.approx(rec.extra["ground_first_cell"], rel=1e-3)
+    assert 2.0 * z.min() == pytest.approx(rec.info["ground_first_cell"], rel=1e-3)
 
 
 # --------------------------------------------------------------------------- 3. yaw modes
@@ -207,7 +207,7 @@ def test_yaw_signs_and_ground_motion(tmp_path, mode):
         assert np.allclose(ug / V, rec.wind_direction_body, atol=1e-9)
         assert rec.reference.speed == pytest.approx(V)
 
-    rep = forces_report(str(case), window=50)
+    rep = forces_report(str(case), ForcesOptions(window=50)).to_dict()
     c = rep["coefficients"]
     # Positive β: the air moves towards body +y, so a body symmetric about y = 0 is pushed towards +y
     # (README axes table, caseprep/contract/frames.py): positive side force.

@@ -15,7 +15,7 @@ from caseprep.casefiles import foamdict as fd
 from caseprep.casefiles.render import render_case
 from caseprep.casefiles.writer import write_sweep
 from caseprep.cli import main
-from caseprep.config.schema import load_config
+from caseprep.config.load import load_config
 from caseprep.contract.errors import UserError, UserErrors
 from caseprep.contract.manifest import read_manifest
 from caseprep.geometry.stl import read_stl
@@ -55,7 +55,7 @@ def config(tmp: Path, *, yaw_mode: str = "crosswind", ride_heights=(0.02, 0.045)
     """DEMO: the example's flat floor (1.2 m) on four cylinder wheels beside
     it (radius 80 mm, width 60 mm), smoke fidelity."""
     shutil.copy(FLAT, tmp / "flat.stl")
-    text = f"""
+    text = """
 [study]
 name = "wheels"
 [air]

@@ -15,7 +15,8 @@ import pytest
 from caseprep.contract.errors import UserError
 from caseprep.contract.manifest import read_manifest
 from caseprep.casefiles.render import OUTPUTS
-from caseprep.casefiles.writer import stl_solid_names, write_sweep
+from caseprep.casefiles.writer import write_sweep
+from caseprep.geometry.stl import stl_solid_names
 from uf_specs import demo_wheel, make_spec, write_body_stl
 
 
@@ -63,7 +64,7 @@ def test_layout_shared_geometry_and_manifest(src, tmp_path):
     assert m.study == "sweep"
     rec = m.case("c-2")
     assert rec.folder == "cases/c-2" and rec.mesh_frame == "body"
-    assert rec.extra["outputs"]["forces"] == OUTPUTS["forces"]
+    assert rec.outputs["forces"] == OUTPUTS["forces"]
     assert rec.patches == {"body": ["body", "floor"], "wheels": [], "ground": "ground"}
     np.testing.assert_allclose(rec.placement.rotation, specs[1].placement.rotation)
     # no temporary folders left behind

@@ -162,7 +162,7 @@ def _check_component(name: str, what: str) -> str:
 
 # --------------------------------------------------------------------------- surfaces
 @dataclass(frozen=True)
-class Surface:
+class SnapSurface:
     """A snapped surface for the mesher: the shared file, its entry name in
     the mesher's geometry list, (solid, patch) pairs and whether it is a wheel."""
 
@@ -190,7 +190,7 @@ def empty_section(spec: CaseSpec) -> bool:
     return not spec.geometry_solid_names and not spec.wheels
 
 
-def surfaces(spec: CaseSpec) -> list[Surface]:
+def surfaces(spec: CaseSpec) -> list[SnapSurface]:
     """The snapped surfaces of a case (body file first, then wheel files);
     none for an empty test section (:func:`empty_section`)."""
     if empty_section(spec):
@@ -210,12 +210,12 @@ def surfaces(spec: CaseSpec) -> list[Surface]:
     # Single-solid file: the mesher names the patch after the surface entry;
     # multi-solid: each region is renamed explicitly to its patch name.
     entry = regions[0][1] if len(regions) == 1 else "uf_" + foamdict.word(_stem(spec.geometry).replace("-", "_"))
-    out.append(Surface(spec.geometry, entry, regions, wheel=False))
+    out.append(SnapSurface(spec.geometry, entry, regions, wheel=False))
     for w in spec.wheels:
         if w.geometry is not None:
             _check_component(w.geometry, "wheel geometry file name")
             p = surface_patch_name(w.patch)
-            out.append(Surface(w.geometry, p, ((p, p),), wheel=True))
+            out.append(SnapSurface(w.geometry, p, ((p, p),), wheel=True))
     files = [s.file for s in out]
     if len(set(files)) != len(files):
         raise ValueError(f"a geometry file is used by two surfaces: {files}")

@@ -32,9 +32,7 @@ import dataclasses
 import datetime as _dt
 import hashlib
 import os
-import re
 import shutil
-import struct
 import tempfile
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
@@ -49,8 +47,9 @@ from caseprep.contract.manifest import MANIFEST_NAME, CaseRecord, Manifest, read
 from caseprep.casefiles.render import (CASES_DIR, GEOMETRY_DIR, CaseFile, outputs_record, render_case, render_sweep_scripts,
                      surfaces)
 from caseprep.contract.atomicio import write_bytes_atomic, write_text_atomic
+from caseprep.geometry.stl import (convert_to_stl, read_stl, scale_stl_bytes, stl_ascii_text, stl_binary_bytes,
+                                   stl_solid_names)
 from caseprep.planning.spec import CaseSpec
-from caseprep.geometry.stl import read_stl, stl_binary_bytes, write_stl_ascii
 
 
 @dataclass(frozen=True)
@@ -72,72 +71,6 @@ class WriteSummary:
 
 
 # --------------------------------------------------------------------------- geometry
-_SOLID_RE = re.compile(rb"^[ \t]*solid[ \t]+([^\r\n]*?)[ \t]*\r?$", re.MULTILINE)
-
-
-def _is_binary_stl(data: bytes) -> bool:
-    if len(data) < 84:
-        return False
-    (n,) = struct.unpack_from("<I", data, 80)
-    if len(data) == 84 + 50 * n:
-        return True
-    return not data.lstrip()[:5].lower() == b"solid"
-
-
-def stl_solid_names(data: bytes) -> list[str] | None:
-    """Solid names of an ASCII STL (in file order), or None for a binary STL
-    (which has no named solids)."""
-    if _is_binary_stl(data):
-        return None
-    return [m.group(1).decode("utf-8", "replace").split()[0] if m.group(1).strip() else "" for m in _SOLID_RE.finditer(data)]
-
-
-def _scale_stl(data: bytes, scale: float) -> bytes:
-    """The STL ``data`` with every coordinate multiplied by ``scale`` (solids kept)."""
-    if _is_binary_stl(data):
-        (n,) = struct.unpack_from("<I", data, 80)
-        rec = np.dtype([("n", "<f4", 3), ("v", "<f4", (3, 3)), ("a", "<u2")])
-        tri = np.frombuffer(data, dtype=rec, count=n, offset=84).copy()
-        tri["v"] *= np.float32(scale)
-        return data[:84] + tri.tobytes()
-
-    def sub(m: re.Match) -> bytes:
-        xyz = [float(v) * scale for v in m.group(2).split()]
-        return m.group(1) + (" ".join(f"{v:.9g}" for v in xyz)).encode()
-
-    return re.sub(rb"(^[ \t]*vertex[ \t]+)([^\r\n]+)", sub, data, flags=re.MULTILINE)
-
-
-def _convert_to_stl(src: Path, solid: str, scale: float) -> bytes:
-    """Read a non-STL surface (OBJ, PLY, VTK, … via meshio) and return an ASCII
-    STL with one solid ``solid``; coordinates × ``scale``."""
-    import meshio
-
-    try:
-        m = meshio.read(src)
-    except Exception as exc:  # meshio raises many types for unreadable files
-        raise UserError(expected="a surface file meshio can read (STL, OBJ, PLY, VTK …)", got=f"{src.name}: {exc}",
-                        file=str(src), fix="export the surface as STL") from None
-    pts = np.asarray(m.points, dtype=float)[:, :3] * scale
-    tris = [c.data for c in m.cells if c.type == "triangle"]
-    if not tris:
-        raise UserError(expected="a triangulated surface", got="no triangles", file=str(src),
-                        fix="triangulate the surface before export")
-    t = np.concatenate(tris)
-    lines = [f"solid {solid}"]
-    for a, b, c in t:
-        n = np.cross(pts[b] - pts[a], pts[c] - pts[a])
-        ln = float(np.linalg.norm(n))
-        n = n / ln if ln > 0 else n
-        lines.append("facet normal {:.9g} {:.9g} {:.9g}".format(*n))
-        lines.append("outer loop")
-        for k in (a, b, c):
-            lines.append("vertex {:.9g} {:.9g} {:.9g}".format(*pts[k]))
-        lines.append("endloop")
-        lines.append("endfacet")
-    lines.append(f"endsolid {solid}")
-    return ("\n".join(lines) + "\n").encode()
-
 
 def _resolve_source(name: str, spec: CaseSpec, sources: Mapping[str, os.PathLike | str], config_dir: Path) -> Path:
     """Where the shared geometry file ``name`` comes from: ``sources[name]``,
@@ -183,7 +116,7 @@ def _make_geometry(name: str, recipe: Mapping) -> bytes:
     if recipe.get("solid_name"):
         return stl_binary_bytes(tris)
     groups = [(n, tris[surf.solid == i]) for i, n in enumerate(surf.solid_names)]
-    return write_stl_ascii(None, groups).encode()
+    return stl_ascii_text(groups).encode()
 
 
 def _prepare_geometry(specs: Sequence[CaseSpec], sources: Mapping, config_dir: Path) -> dict[str, bytes]:
@@ -211,12 +144,12 @@ def _prepare_geometry(specs: Sequence[CaseSpec], sources: Mapping, config_dir: P
         if is_stl:
             data = src.read_bytes()
             if scale != 1.0:
-                data = _scale_stl(data, scale)
+                data = scale_stl_bytes(data, scale)
         else:
             if len(solids) != 1:
                 raise UserError(expected=f"an STL with named solids {solids}", got=src.name, file=str(src),
                                 key="geometry", fix="export a multi-solid surface as ASCII STL")
-            data = _convert_to_stl(src, solids[0], scale)
+            data = convert_to_stl(src, solids[0], scale)
         found = stl_solid_names(data)
         if found is None or len(found) == 1:
             if len(solids) != 1:
@@ -326,6 +259,77 @@ def config_hash(config_path: os.PathLike | str) -> str:
     return "sha256:" + hashlib.sha256(Path(config_path).read_bytes()).hexdigest()
 
 
+def _geometry_to_write(root: Path, geometry: Mapping[str, bytes], force: bool) -> list[str]:
+    """The shared geometry files that are new or differ (refused unless ``force``)."""
+    geo_dir = root / GEOMETRY_DIR
+    todo: list[str] = []
+    for name, data in geometry.items():
+        p = geo_dir / name
+        if p.is_symlink() or (p.exists() and not p.is_file()):
+            raise UserError(expected=f"{GEOMETRY_DIR}/{name} to be a plain file", got="a link or folder",
+                            file=str(p), fix="remove it; caseprep keeps one real copy there")
+        if p.is_file():
+            if p.stat().st_size == len(data) and p.read_bytes() == data:
+                continue
+            if not force:
+                raise UserError(
+                    f"the shared geometry {GEOMETRY_DIR}/{name} in {root} differs from the source "
+                    "(all existing cases were meshed with the old one)",
+                    fix="write to a new folder, or re-run with --force to replace it (existing meshes then no longer "
+                        "match the geometry: re-run their mesh stage)")
+        todo.append(name)
+    return todo
+
+
+def _cases_to_write(cases_dir: Path, specs: Sequence[CaseSpec], rendered: Mapping[str, Mapping[str, CaseFile]],
+                    force: bool) -> tuple[list[str], list[str], list[str]]:
+    """(new, to replace, unchanged) case ids; a differing case is refused unless ``force``."""
+    new, replace, same = [], [], []
+    for s in specs:
+        folder = cases_dir / s.case_id
+        if not (folder.exists() or folder.is_symlink()):
+            new.append(s.case_id)
+            continue
+        if folder.is_symlink() or not folder.is_dir():
+            raise UserError(expected=f"{CASES_DIR}/{s.case_id} to be a case folder", got="a file or link",
+                            file=str(folder), fix="move it away")
+        diff = _first_difference(folder, rendered[s.case_id])
+        if diff is None:
+            same.append(s.case_id)
+        elif force:
+            replace.append(s.case_id)
+        else:
+            raise UserError(
+                f"case {s.case_id} already exists in {cases_dir} and differs from what would be written: "
+                f"first difference {diff}",
+                fix="re-run with --force to replace the differing cases (their mesh, results and logs are deleted), "
+                    "or write to a new folder")
+    return new, replace, same
+
+
+def _manifest_records(root: Path, specs: Sequence[CaseSpec]) -> tuple[Manifest | None, list[CaseRecord]]:
+    """The existing manifest (None when unreadable) and the records to write:
+    the old records of cases not in this plan whose folder still exists,
+    then one per spec."""
+    old: Manifest | None = None
+    if (root / MANIFEST_NAME).is_file():
+        try:
+            old = read_manifest(root)
+        except UserError:
+            old = None
+    records: list[CaseRecord] = []
+    current = {s.case_id for s in specs}
+    if old is not None:
+        for r in old.cases:
+            if r.case_id not in current and (root / r.folder).is_dir():
+                records.append(r)
+    outputs = outputs_record()
+    for s in specs:
+        r = s.record(f"{CASES_DIR}/{s.case_id}")
+        records.append(dataclasses.replace(r, outputs=outputs))
+    return old, records
+
+
 def write_sweep(
     specs: Sequence[CaseSpec],
     out_dir: os.PathLike | str,
@@ -371,42 +375,8 @@ def write_sweep(
     # 2. compare with what exists
     cases_dir = root / CASES_DIR
     geo_dir = root / GEOMETRY_DIR
-    geo_todo: list[str] = []
-    for name, data in geometry.items():
-        p = geo_dir / name
-        if p.is_symlink() or (p.exists() and not p.is_file()):
-            raise UserError(expected=f"{GEOMETRY_DIR}/{name} to be a plain file", got="a link or folder",
-                            file=str(p), fix="remove it; caseprep keeps one real copy there")
-        if p.is_file():
-            if p.stat().st_size == len(data) and p.read_bytes() == data:
-                continue
-            if not force:
-                raise UserError(
-                    f"the shared geometry {GEOMETRY_DIR}/{name} in {root} differs from the source "
-                    "(all existing cases were meshed with the old one)",
-                    fix="write to a new folder, or re-run with --force to replace it (existing meshes then no longer "
-                        "match the geometry: re-run their mesh stage)")
-        geo_todo.append(name)
-    new, replace, same = [], [], []
-    for s in specs:
-        folder = cases_dir / s.case_id
-        if not (folder.exists() or folder.is_symlink()):
-            new.append(s.case_id)
-            continue
-        if folder.is_symlink() or not folder.is_dir():
-            raise UserError(expected=f"{CASES_DIR}/{s.case_id} to be a case folder", got="a file or link",
-                            file=str(folder), fix="move it away")
-        diff = _first_difference(folder, rendered[s.case_id])
-        if diff is None:
-            same.append(s.case_id)
-        elif force:
-            replace.append(s.case_id)
-        else:
-            raise UserError(
-                f"case {s.case_id} already exists in {cases_dir} and differs from what would be written: "
-                f"first difference {diff}",
-                fix="re-run with --force to replace the differing cases (their mesh, results and logs are deleted), "
-                    "or write to a new folder")
+    geo_todo = _geometry_to_write(root, geometry, force)
+    new, replace, same = _cases_to_write(cases_dir, specs, rendered, force)
 
     # 3. write
     cases_dir.mkdir(parents=True, exist_ok=True)
@@ -421,22 +391,7 @@ def write_sweep(
     nbytes = sum(sizes)
 
     # 4. manifest (existing records of cases not in this plan are kept while their folder exists)
-    old: Manifest | None = None
-    if (root / MANIFEST_NAME).is_file():
-        try:
-            old = read_manifest(root)
-        except UserError:
-            old = None
-    records: list[CaseRecord] = []
-    current = {s.case_id for s in specs}
-    if old is not None:
-        for r in old.cases:
-            if r.case_id not in current and (root / r.folder).is_dir():
-                records.append(r)
-    outputs = outputs_record()
-    for s in specs:
-        r = s.record(f"{CASES_DIR}/{s.case_id}")
-        records.append(dataclasses.replace(r, extra={**r.extra, "outputs": outputs}))
+    old, records = _manifest_records(root, specs)
     manifest = Manifest(
         cases=tuple(records),
         tool_version=__version__,

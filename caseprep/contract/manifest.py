@@ -43,8 +43,19 @@ CaseRecord::
       "patches": {"body": ["body"], "wheels": ["wheel_fl", …], "ground": "ground"},
       "fidelity": "smoke",
       "min_clearance": 0.021, "min_clearance_at": [x, y, z], # body frame
-      "estimated_cells": 180000
+      "estimated_cells": 180000,
+      …the planning facts of INFO_FIELDS (geometry sources, air state, warnings…),
+      "turbulence_model": "kOmegaSST",        # or "laminar"
+      "target_yplus": 50.0 | null,            # at the first prism layer's centre; null without layers
+      "wall_treatment": "wall-function",      # or "low-re", "laminar" (caseprep.contract.walls): its y+ band
+      "fluid_volume": 259.5,                  # m³: the domain box less the body, for h = (V/N)^(1/3)
+      "outputs": {"forces": "postProcessing/uf_forces/0/force.dat", …}  # where the run's outputs land
     }
+
+Every key a record carries is declared here: the fields of
+:class:`CaseRecord`, and the planning facts it keeps for the record in
+``info``, whose keys are those of :data:`INFO_FIELDS` (a record read from
+disk keeps no other key).
 
 All lengths in m, speeds in m/s, density kg/m³, kinematic viscosity m²/s,
 angles in degrees (keys ending ``_deg``).
@@ -88,9 +99,50 @@ class Reference:
         return 0.5 * self.rho * self.speed**2
 
 
+#: The planning facts a case record keeps for the record (``CaseRecord.info``),
+#: with what they mean. postproc reads none of them.
+INFO_FIELDS: dict[str, str] = {
+    "geometry_source": "the variant's geometry file as configured (path)",
+    "geometry_length_unit": "length unit of that file (m, mm, in)",
+    "geometry_scale_to_m": "its scale to metres",
+    "wheel_sources": "wheel name → its geometry file (path)",
+    "geometry_sources": "shared file name under geometry/ → source path",
+    "geometry_scales": "shared file name under geometry/ → scale to metres",
+    "wheel_length_unit": "length unit of the wheel files",
+    "air": "air state: temperature (K), pressure (Pa), dynamic viscosity mu (Pa s)",
+    "frontal_area_wind": "body shadow area normal to the relative wind (m², convex-hull bound)",
+    "min_clearance_x_percent": "where the smallest ground clearance is, % of the body length from the nose",
+    "warnings": "planning warnings of the case",
+    "empty_section": "true for an empty test section (no body)",
+    "ground_leading_edge": "empty test section: distance of the ground's leading edge from the inlet (m)",
+    "ground_first_cell": "empty test section: first background cell height on the ground (m), or null",
+    "yplus_band": "y+ band of the wall treatment at the first cell centre [low, high]",
+    "first_cell_height": "height of the first prism layer at this mesh level (m), or null",
+    "centre_yplus": "flat-plate y+ at the first cell centre at this mesh level, or null",
+    "prism_layers": "prism layers: count n, expansion ratio, whether the ground under the body has them",
+    "underfloor_speed": "the speed the first cell is sized for: air speed × air.underfloor_speed_factor (m/s)",
+    "local_mach": "Mach number of the underfloor speed",
+    "gap": "underbody resolution: reference clearance (m), gap level, gap cell (m), splits along the floor normal "
+           "per slab, cells across the reference clearance and the fewest across any slab's own clearance",
+    "base_cell": "background cell size at this mesh level (m)",
+    "turbulence": "free-stream turbulence at the inlet and at the model: k (m²/s²), omega (1/s), nut (m²/s), "
+                  "intensity, length scale (m), distance inlet → model (m)",
+    "wheels": "per wheel: centre, axis, contact point (mesh frame, m), centre height, radius, loaded radius, "
+              "flattening depth, contact gap (m), spin omega (rad/s), rotation (wall or zone), steering and camber (deg)",
+    "geometry_recipes": "files made for this case under geometry/: source, unit, solids kept, rotation and offset",
+}
+
+
 @dataclass(frozen=True)
 class CaseRecord:
-    """One case of the sweep as the manifest describes it."""
+    """One case of the sweep as the manifest describes it (schema above).
+
+    ``turbulence_model``, ``wall_treatment`` and ``target_yplus`` (at the
+    first prism layer's centre, None without layers) are what the
+    post-processing judges y+ by; ``fluid_volume`` (m³) gives the
+    representative cell size h = (V/N)^(1/3) of the mesh study; ``outputs``
+    where the run's outputs land, relative to the case folder; ``info`` the
+    planning facts of :data:`INFO_FIELDS`."""
 
     case_id: str
     folder: str
@@ -107,7 +159,12 @@ class CaseRecord:
     min_clearance: float | None = None
     min_clearance_at: tuple[float, float, float] | None = None
     estimated_cells: int | None = None
-    extra: dict[str, Any] = field(default_factory=dict)
+    turbulence_model: str | None = None
+    target_yplus: float | None = None
+    wall_treatment: str | None = None
+    fluid_volume: float | None = None
+    outputs: dict[str, str] = field(default_factory=dict)
+    info: dict[str, Any] = field(default_factory=dict)
 
     def to_dict(self) -> dict[str, Any]:
         r = self.reference
@@ -140,16 +197,13 @@ class CaseRecord:
             "min_clearance_at": list(self.min_clearance_at) if self.min_clearance_at is not None else None,
             "estimated_cells": self.estimated_cells,
         }
-        d.update(self.extra)
+        d.update((k, v) for k, v in self.info.items() if k in INFO_FIELDS)
+        d.update(turbulence_model=self.turbulence_model, target_yplus=self.target_yplus, wall_treatment=self.wall_treatment,
+                 fluid_volume=self.fluid_volume, outputs=dict(self.outputs))
         return d
 
     @classmethod
     def from_dict(cls, d: dict[str, Any], source: str = MANIFEST_NAME) -> "CaseRecord":
-        known = {
-            "case_id", "folder", "variant", "params", "yaw_mode", "ground", "mesh_frame", "frames",
-            "wind_direction_body", "reference", "patches", "fidelity", "min_clearance",
-            "min_clearance_at", "estimated_cells",
-        }
         cid = d.get("case_id", "?")
         try:
             r = d["reference"]
@@ -182,7 +236,12 @@ class CaseRecord:
                 min_clearance=d.get("min_clearance"),
                 min_clearance_at=tuple(d["min_clearance_at"]) if d.get("min_clearance_at") is not None else None,
                 estimated_cells=d.get("estimated_cells"),
-                extra={k: v for k, v in d.items() if k not in known},
+                turbulence_model=None if d.get("turbulence_model") is None else str(d["turbulence_model"]),
+                target_yplus=None if d.get("target_yplus") is None else float(d["target_yplus"]),
+                wall_treatment=None if d.get("wall_treatment") is None else str(d["wall_treatment"]),
+                fluid_volume=None if d.get("fluid_volume") is None else float(d["fluid_volume"]),
+                outputs={str(k): str(v) for k, v in (d.get("outputs") or {}).items()},
+                info={k: v for k, v in d.items() if k in INFO_FIELDS},
             )
         except KeyError as exc:
             raise UserError(

@@ -129,6 +129,9 @@ class CaseRunRecord:
     ``layers``: per patch ``{patch, target_layers, layers, coverage,
     thickness_percent}``; ``layer_coverage`` the face-weighted mean coverage.
     ``failed_tool`` and ``log_tail`` describe a failure. Times in s.
+    ``numerics``: what the mesh stage chose from the mesh's quality
+    (``non_orthogonal_correctors``, ``momentum_relaxation``; from
+    ``system/meshNumerics``), None before meshing.
     ``convergence``: why the run counts as converged or not (see
     :mod:`caseprep.contract.convergence`); ``residual_drop``: the smallest drop of a field's
     initial residual over the run, in orders of magnitude (log10 of the
@@ -152,6 +155,7 @@ class CaseRunRecord:
     failed_checks: int | None = None
     max_non_orthogonality: float | None = None
     max_skewness: float | None = None
+    numerics: dict[str, Any] | None = None
     layer_coverage: float | None = None
     layers: tuple[dict[str, Any], ...] = ()
     iterations: int | None = None

@@ -8,7 +8,7 @@ import numpy as np
 
 from caseprep.geometry.checks import SurfaceReport, inspect_surface, weld
 from caseprep.geometry.hull import hull_points, projected_area
-from caseprep.geometry.stl import Surface
+from caseprep.geometry.stl import TriSurface
 from caseprep.geometry.underside import Underside, underside_map
 
 
@@ -46,7 +46,7 @@ class BodyGeometry:
         return float(self.bounds[1][2] - self.bounds[0][2])
 
 
-def analyse(surface: Surface, exclude_from_clearance: tuple[str, ...] = ()) -> BodyGeometry:
+def analyse(surface: TriSurface, exclude_from_clearance: tuple[str, ...] = ()) -> BodyGeometry:
     """Measure a surface once for all cases of a sweep (input untouched)."""
     welded = weld(surface.triangles)
     rep = inspect_surface(surface.triangles, welded)

@@ -1,4 +1,6 @@
-"""STL files: reading (binary and ASCII, several solids) and writing.
+"""STL files: reading (binary and ASCII, several solids), the one rule that
+tells binary from ASCII, solid names, scaling, conversion from other surface
+formats, and the one ASCII writer.
 
 Coordinates are in the **body frame** (x rearward, y right, z up, see
 :mod:`caseprep.contract.frames`) in metres, after scaling by the config's
@@ -19,11 +21,12 @@ LENGTH_UNITS = {"m": 1.0, "mm": 1.0e-3, "in": 0.0254}
 _BIN_DTYPE = np.dtype([("n", "<f4", (3,)), ("v", "<f4", (3, 3)), ("attr", "<u2")])
 _VERTEX_RE = re.compile(rb"vertex\s+(\S+)\s+(\S+)\s+(\S+)")
 _SOLID_RE = re.compile(rb"^\s*solid[ \t]*([^\r\n]*)$(.*?)^\s*endsolid[^\r\n]*$", re.S | re.M)
+_SOLID_LINE_RE = re.compile(rb"^[ \t]*solid[ \t]+([^\r\n]*?)[ \t]*\r?$", re.MULTILINE)
 
 
 
 @dataclass(frozen=True)
-class Surface:
+class TriSurface:
     """A triangulated surface in the body frame.
 
     ``triangles``: (M, 3, 3) float64 vertex coordinates, m.
@@ -40,13 +43,54 @@ class Surface:
     def n_triangles(self) -> int:
         return int(self.triangles.shape[0])
 
-    def select(self, names) -> "Surface":
+    def select(self, names) -> "TriSurface":
         """The sub-surface made of the solids in ``names``."""
         idx = [i for i, n in enumerate(self.solid_names) if n in set(names)]
         keep = np.isin(self.solid, idx)
         remap = -np.ones(len(self.solid_names), dtype=int)
         remap[idx] = np.arange(len(idx))
-        return Surface(self.triangles[keep], remap[self.solid[keep]], tuple(self.solid_names[i] for i in idx), self.source)
+        return TriSurface(self.triangles[keep], remap[self.solid[keep]], tuple(self.solid_names[i] for i in idx), self.source)
+
+
+def _binary_count(data: bytes) -> int:
+    """The triangle count in a binary STL header (bytes 80–83, little-endian)."""
+    return int(np.frombuffer(data, dtype="<u4", count=1, offset=80)[0])
+
+
+def stl_kind(data: bytes) -> str | None:
+    """``"binary"``, ``"ascii"`` or None (not an STL) — the one rule: a file
+    whose length is exactly 84 + 50 × (the triangle count in its header) is
+    binary (even when its 80-byte header starts with ``solid``, as some
+    exporters write); otherwise one that starts with ``solid`` is ASCII."""
+    if len(data) >= 84 and len(data) == 84 + 50 * _binary_count(data):
+        return "binary"
+    return "ascii" if data.lstrip()[:5].lower() == b"solid" else None
+
+
+def stl_solid_names(data: bytes) -> list[str] | None:
+    """Solid names of an ASCII STL as written (first word of each ``solid``
+    line, in file order), or None for a binary STL (which has no named
+    solids)."""
+    if stl_kind(data) == "binary":
+        return None
+    return [m.group(1).decode("utf-8", "replace").split()[0] if m.group(1).strip() else ""
+            for m in _SOLID_LINE_RE.finditer(data)]
+
+
+def scale_stl_bytes(data: bytes, scale: float) -> bytes:
+    """The STL ``data`` with every coordinate multiplied by ``scale``; solids,
+    names and normals kept (binary: float32 in place; ASCII: each vertex
+    line rewritten, 9 significant digits)."""
+    if stl_kind(data) == "binary":
+        tri = np.frombuffer(data, dtype=_BIN_DTYPE, count=_binary_count(data), offset=84).copy()
+        tri["v"] *= np.float32(scale)
+        return data[:84] + tri.tobytes()
+
+    def sub(m: re.Match) -> bytes:
+        xyz = [float(v) * scale for v in m.group(2).split()]
+        return m.group(1) + (" ".join(f"{v:.9g}" for v in xyz)).encode()
+
+    return re.sub(rb"(^[ \t]*vertex[ \t]+)([^\r\n]+)", sub, data, flags=re.MULTILINE)
 
 
 def _sanitise_solid_name(raw: str, index: int) -> str:
@@ -57,8 +101,8 @@ def _sanitise_solid_name(raw: str, index: int) -> str:
     return name
 
 
-def read_stl(path: str | Path, length_unit: str = "m", default_name: str = "body") -> Surface:
-    """Read a binary or ASCII STL file into a :class:`Surface` (m, body frame).
+def read_stl(path: str | Path, length_unit: str = "m", default_name: str = "body") -> TriSurface:
+    """Read a binary or ASCII STL file into a :class:`TriSurface` (m, body frame).
 
     Binary files hold one solid named ``default_name``. ASCII files may hold
     several ``solid NAME … endsolid`` blocks; each becomes a patch named NAME
@@ -73,18 +117,17 @@ def read_stl(path: str | Path, length_unit: str = "m", default_name: str = "body
         raise UserError(expected="an existing STL file", got=str(p), fix="check the path (relative paths are relative to the config file)")
     data = p.read_bytes()
     scale = LENGTH_UNITS[length_unit]
-    tris, solid, names = None, None, None
-    if len(data) >= 84:
-        n = int(np.frombuffer(data, dtype="<u4", count=1, offset=80)[0])
-        if len(data) == 84 + 50 * n and n > 0:
-            rec = np.frombuffer(data, dtype=_BIN_DTYPE, count=n, offset=84)
-            tris = rec["v"].astype(np.float64)
-            solid = np.zeros(n, dtype=int)
-            names = (default_name,)
-    if tris is None:
-        if not data.lstrip().startswith(b"solid"):
-            raise UserError(expected="a binary or ASCII STL file", got="a file of another format", file=str(p),
-                            fix="export the geometry as STL")
+    kind = stl_kind(data)
+    if kind == "binary":
+        n = _binary_count(data)
+        rec = np.frombuffer(data, dtype=_BIN_DTYPE, count=n, offset=84)
+        tris = rec["v"].astype(np.float64)
+        solid = np.zeros(n, dtype=int)
+        names = (default_name,)
+    elif kind is None:
+        raise UserError(expected="a binary or ASCII STL file", got="a file of another format", file=str(p),
+                        fix="export the geometry as STL")
+    else:
         blocks = list(_SOLID_RE.finditer(data))
         if not blocks:
             raise UserError(expected="an ASCII STL with 'solid … endsolid' blocks", got="none", file=str(p))
@@ -112,7 +155,7 @@ def read_stl(path: str | Path, length_unit: str = "m", default_name: str = "body
         raise UserError(expected="at least one triangle", got="an empty STL", file=str(p))
     if not np.all(np.isfinite(tris)):
         raise UserError(expected="finite coordinates", got="NaN or infinite values", file=str(p))
-    return Surface(tris * scale, solid, names, str(p))
+    return TriSurface(tris * scale, solid, names, str(p))
 
 
 def stl_binary_bytes(triangles: np.ndarray) -> bytes:
@@ -129,12 +172,9 @@ def stl_binary_bytes(triangles: np.ndarray) -> bytes:
     return header + np.uint32(len(t)).tobytes() + rec.tobytes()
 
 
-def write_stl_ascii(path: str | Path | None, solids: list[tuple[str, np.ndarray]]) -> str:
-    """ASCII STL text for ``solids`` = [(name, (M,3,3) triangles in m)], and
-    write it atomically to ``path`` (None: only return it). Normals are
-    computed from the vertex order (right-hand rule). Returns the text."""
-    from caseprep.contract.atomicio import write_text_atomic
-
+def stl_ascii_text(solids: list[tuple[str, np.ndarray]]) -> str:
+    """ASCII STL text for ``solids`` = [(name, (M,3,3) triangles in m)].
+    Normals are computed from the vertex order (right-hand rule)."""
     lines = []
     for name, tris in solids:
         t = np.asarray(tris, dtype=float)
@@ -150,7 +190,33 @@ def write_stl_ascii(path: str | Path | None, solids: list[tuple[str, np.ndarray]
             lines.append("    endloop")
             lines.append("  endfacet")
         lines.append(f"endsolid {name}")
-    text = "\n".join(lines) + "\n"
-    if path is not None:
-        write_text_atomic(path, text)
+    return "\n".join(lines) + "\n"
+
+
+def write_stl_ascii(path: str | Path, solids: list[tuple[str, np.ndarray]]) -> str:
+    """:func:`stl_ascii_text` of ``solids``, written atomically to ``path``;
+    returns the text."""
+    from caseprep.contract.atomicio import write_text_atomic
+
+    text = stl_ascii_text(solids)
+    write_text_atomic(path, text)
     return text
+
+
+def convert_to_stl(src: Path, solid: str, scale: float) -> bytes:
+    """Read a non-STL surface (OBJ, PLY, VTK, … via meshio) and return it as
+    an ASCII STL (:func:`stl_ascii_text`) with one solid ``solid``;
+    coordinates × ``scale``."""
+    import meshio
+
+    try:
+        m = meshio.read(src)
+    except Exception as exc:  # meshio raises many types for unreadable files
+        raise UserError(expected="a surface file meshio can read (STL, OBJ, PLY, VTK …)", got=f"{src.name}: {exc}",
+                        file=str(src), fix="export the surface as STL") from None
+    pts = np.asarray(m.points, dtype=float)[:, :3] * scale
+    tris = [c.data for c in m.cells if c.type == "triangle"]
+    if not tris:
+        raise UserError(expected="a triangulated surface", got="no triangles", file=str(src),
+                        fix="triangulate the surface before export")
+    return stl_ascii_text([(solid, pts[np.concatenate(tris)])]).encode()

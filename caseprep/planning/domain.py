@@ -59,7 +59,7 @@ diffuser.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Callable
 
 import numpy as np
@@ -360,90 +360,233 @@ def underbody_slabs(underside: Underside, placement: Placement, margin: float, n
     return slabs, axes, g0
 
 
-def plan_domain(*, extent_points: np.ndarray, placement: Placement, ground: str, body_length: float,
-                body_area: float, frontal_area: float, min_clearance: float | None, ride_heights: tuple[float, float] | None,
-                settings: MeshSettings, mesh_level: int, air_speed: float, nu: float, local_speed: float | None = None,
-                underside: Underside | None = None,
-                upstream: float = 5.0, downstream: float = 10.0, width: float | None = None, height: float | None = None,
-                target_blockage: float = 0.01, max_blockage: float = 0.05,
-                extent_range: Callable[[np.ndarray], tuple[np.ndarray, np.ndarray]] | None = None) -> DomainPlan:
-    """Size the domain and the mesh of one case.
-
-    ``extent_points`` (N,3): body (and wheel) points in the body frame, m
-    (hull vertices suffice); ``placement`` the body → ground transform;
-    ``ground`` "moving" | "stationary" | "none"; ``body_length`` L (m);
-    ``body_area`` surface area (m²); ``frontal_area`` shadow normal to the
+@dataclass(frozen=True)
+class BodyExtent:
+    """What sizing needs of the placed body: ``points`` (N,3) body (and
+    wheel) points in the body frame, m (hull vertices suffice); ``length`` L
+    (m); ``area`` surface area (m²); ``frontal_area`` shadow normal to the
     wind (m²); ``min_clearance`` smallest ground clearance (m, None without a
-    ground); ``ride_heights`` (front, rear) m; ``air_speed`` m/s;
-    ``local_speed`` (m/s) the speed for the first-cell height (default the
-    air speed; the planner passes the underfloor speed); ``nu`` m²/s;
-    ``underside`` the body's underside map (body frame) for the underbody
-    region; ``upstream``/``downstream`` in body lengths; ``width``/``height``
-    (m) fix the section instead of sizing it for ``target_blockage``;
-    ``extent_range(axes)`` (optional) returns the (min, max) of
-    ``extent_points @ axes.T`` — a caller planning many cases passes a cached
-    version (the range depends on the rotation only).
-    """
-    warnings: list[str] = []
-    problems: list[tuple[str, str]] = []
-    axes = wind_axes(placement)
-    g0 = placement.ground_point_body if ground != "none" else np.zeros(3)
-    if extent_range is None:
-        q = np.asarray(extent_points, float) @ axes.T  # coordinates along e1, e2, e3
+    ground); ``ride_heights`` (front, rear) m or None; ``extent_range(axes)``
+    (optional) the (min, max) of ``points @ axes.T`` — a caller planning many
+    cases passes a cached version (the range depends on the rotation only);
+    ``underside`` the body's underside map (body frame, None: a single
+    underbody box)."""
+
+    points: np.ndarray
+    length: float
+    area: float
+    frontal_area: float
+    min_clearance: float | None = None
+    ride_heights: tuple[float, float] | None = None
+    extent_range: Callable[[np.ndarray], tuple[np.ndarray, np.ndarray]] | None = None
+    underside: Underside | None = None
+
+
+@dataclass(frozen=True)
+class DomainSizing:
+    """The config's domain table (defaults in :mod:`caseprep.config.keys`):
+    ``upstream``/``downstream`` in body lengths; ``width``/``height`` (m) fix the section instead of sizing it for
+    ``target_blockage``; cases above ``max_blockage`` are refused."""
+
+    upstream: float
+    downstream: float
+    width: float | None
+    height: float | None
+    target_blockage: float
+    max_blockage: float
+
+
+def _wind_extent(body: BodyExtent, axes: np.ndarray, g0: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """(min, max) of the body along the wind axes e1, e2, e3, measured from the ground point g0 (m)."""
+    if body.extent_range is None:
+        q = np.asarray(body.points, float) @ axes.T  # coordinates along e1, e2, e3
         lo, hi = q.min(axis=0), q.max(axis=0)
     else:
-        lo, hi = extent_range(axes)
-    off = g0 @ axes.T  # measured from the ground point
-    lo, hi = lo - off, hi - off
-    L = body_length
+        lo, hi = body.extent_range(axes)
+    off = g0 @ axes.T
+    return lo - off, hi - off
+
+
+@dataclass(frozen=True)
+class _Section:
+    """The background box: origin and lengths along the wind axes (m, from
+    the ground point), cells per direction, and the refused-case problems
+    and warnings of its size."""
+
+    origin: np.ndarray
+    lens: np.ndarray
+    n: tuple[int, int, int]
+    domain: Domain
+    problems: tuple[tuple[str, str], ...]
+    warnings: tuple[str, ...]
+
+
+def _section(body: BodyExtent, lo, hi, axes, g0, ground: str, sz: DomainSizing, d0: float) -> _Section:
+    """Size the background box for blockage (or as fixed by the config) in
+    whole cubic cells of ``d0`` (m) and check the blockage."""
+    L = body.length
     bw, bh = hi[1] - lo[1], hi[2] - lo[2]
-    d0 = base_cell_size(settings, L, mesh_level)
-    base0 = base_cell_size(settings, L, 0)
-    scale = LEVEL_FACTOR**mesh_level  # every mesh length of this level = level-0 length / scale
-    A_box = frontal_area / target_blockage
+    A_box = body.frontal_area / sz.target_blockage
     if ground != "none":
-        H = height if height is not None else max(math.sqrt(A_box / 2.0), hi[2] + 2.0 * bh)
-        W = width if width is not None else max(2.0 * H, bw + 4.0 * bh)
-        z0 = 0.0
+        H = sz.height if sz.height is not None else max(math.sqrt(A_box / 2.0), hi[2] + 2.0 * bh)
+        W = sz.width if sz.width is not None else max(2.0 * H, bw + 4.0 * bh)
     else:
         S = math.sqrt(A_box)
-        H = height if height is not None else max(S, bh + 4.0 * bh)
-        W = width if width is not None else max(S, bw + 4.0 * bw)
-        z0 = 0.5 * (lo[2] + hi[2]) - 0.5 * H
-    x0 = lo[0] - upstream * L
-    Lx = (hi[0] - lo[0]) + (upstream + downstream) * L
+        H = sz.height if sz.height is not None else max(S, bh + 4.0 * bh)
+        W = sz.width if sz.width is not None else max(S, bw + 4.0 * bw)
+    x0 = lo[0] - sz.upstream * L
+    Lx = (hi[0] - lo[0]) + (sz.upstream + sz.downstream) * L
     n = [max(1, math.ceil(Lx / d0 - 1e-9)), max(1, math.ceil(W / d0 - 1e-9)), max(1, math.ceil(H / d0 - 1e-9))]
-    if width is None:
+    if sz.width is None:
         n[1] += n[1] % 2  # keep the body centred on a cell face line
     # cubic background cells: lengths rounded up to whole cells (fixed sizes kept)
-    lens = np.array([n[0] * d0, n[1] * d0 if width is None else W, n[2] * d0 if height is None else H])
+    lens = np.array([n[0] * d0, n[1] * d0 if sz.width is None else W, n[2] * d0 if sz.height is None else H])
     y0 = 0.5 * (lo[1] + hi[1]) - 0.5 * lens[1]
-    if ground == "none":
-        z0 = 0.5 * (lo[2] + hi[2]) - 0.5 * lens[2]
-    if width is not None and (lo[1] < y0 or hi[1] > y0 + lens[1]):
+    z0 = 0.0 if ground != "none" else 0.5 * (lo[2] + hi[2]) - 0.5 * lens[2]
+    problems, warnings = [], []
+    if sz.width is not None and (lo[1] < y0 or hi[1] > y0 + lens[1]):
         problems.append((f"the body ({bw:.4g} m wide across the wind) does not fit in domain.width = {W} m",
                          "enlarge domain.width or leave it out (automatic size)"))
-    if height is not None and hi[2] > z0 + lens[2]:
+    if sz.height is not None and hi[2] > z0 + lens[2]:
         problems.append((f"the body (top at {hi[2]:.4g} m) does not fit under domain.height = {H} m",
                          "enlarge domain.height or leave it out (automatic size)"))
     origin = np.array([x0, y0, z0])
-    box = _box("domain", g0, axes, origin, origin + lens)
-    blockage = frontal_area / float(lens[1] * lens[2])
-    if blockage > max_blockage:
-        problems.append((f"blockage {100 * blockage:.2f} % is above the limit of {100 * max_blockage:.2f} % (frontal area "
-                         f"{frontal_area:.4g} m², inlet {lens[1]:.4g} m × {lens[2]:.4g} m)",
+    blockage = body.frontal_area / float(lens[1] * lens[2])
+    if blockage > sz.max_blockage:
+        problems.append((f"blockage {100 * blockage:.2f} % is above the limit of {100 * sz.max_blockage:.2f} % (frontal "
+                         f"area {body.frontal_area:.4g} m², inlet {lens[1]:.4g} m × {lens[2]:.4g} m)",
                          "enlarge domain.width/height, or raise domain.max_blockage to accept the blockage knowingly"))
     elif blockage > WARN_BLOCKAGE:
         warnings.append(f"blockage {100 * blockage:.2f} % is above 1 % (common-practice limit); results carry a blockage effect")
+    domain = Domain(box=_box("domain", g0, axes, origin, origin + lens), cells=(int(n[0]), int(n[1]), int(n[2])),
+                    ground=ground, blockage=float(blockage))
+    return _Section(origin, lens, (int(n[0]), int(n[1]), int(n[2])), domain, tuple(problems), tuple(warnings))
 
-    # prism layers: decided at mesh level 0, every height scaled with the level
-    lp = plan_layers(settings, local_speed if local_speed is not None else air_speed, L, nu)
-    if lp is not None and ground == "none":
-        lp = LayerPlan(lp.n_layers, lp.first_height, lp.expansion, lp.centre_yplus, lp.thickness, lp.treatment, False)
-    layers = None
+
+def _ground_rectangle(sec: _Section, lo, hi, L: float) -> tuple[int, int, int, int] | None:
+    """Background cell indices (i1, i2, j1, j2) along e1 and e2 of the ground
+    rectangle that gets prism layers: the body's footprint from 0.1 L ahead
+    of it to 0.5 L behind it (its near wake on the ground) and 0.1 L to each
+    side, rounded outwards to whole background cells and kept one cell
+    inside the domain (common practice, no source). None for a domain too
+    small to split."""
+    n, lens, origin = sec.n, sec.lens, sec.origin
+    if n[0] < 3 or n[1] < 3:
+        return None
+    d1, d2 = lens[0] / n[0], lens[1] / n[1]
+    a, b = lo[0] - 0.1 * L - origin[0], hi[0] + 0.5 * L - origin[0]
+    c, e = lo[1] - 0.1 * L - origin[1], hi[1] + 0.1 * L - origin[1]
+    i1 = min(max(1, math.floor(a / d1)), n[0] - 2)
+    i2 = max(min(n[0] - 1, math.ceil(b / d1)), i1 + 1)
+    j1 = min(max(1, math.floor(c / d2)), n[1] - 2)
+    j2 = max(min(n[1] - 1, math.ceil(e / d2)), j1 + 1)
+    return (int(i1), int(i2), int(j1), int(j2))
+
+
+@dataclass(frozen=True)
+class _Regions:
+    """The refinement regions, the gap plan and its facts, and the problems
+    and warnings of the underbody resolution."""
+
+    regions: list[RefinementRegion]
+    gap: GapPlan | None
+    info: dict
+    problems: list[tuple[str, str]]
+    warnings: list[str]
+
+
+def _underbody(body: BodyExtent, lo, hi, placement: Placement, axes, g0, settings: MeshSettings, base0: float,
+               lp: LayerPlan | None, scale: float) -> _Regions:
+    """Underbody slabs and the wake behind the diffuser with their gap plan
+    (module docstring "The gap"); every box and level is decided at mesh
+    level 0 (``base0`` m) so the levels of a point stay similar."""
+    L = body.length
+    smax = settings.surface_levels[1]
+    wl = settings.preset.wake_level
+    margin = 0.02 * L
+    c_ref = float(min(body.ride_heights))
+    regions, problems, warnings = [], [], []
+    slabs, sax, sg0 = ([], None, None)
+    if body.underside is not None:
+        slabs, sax, sg0 = underbody_slabs(body.underside, placement, base0 / 2**smax)
+    gp = plan_gap(c_ref, [s.clearance for s in slabs], base0, settings, lp)
+    if isinstance(gp, tuple):
+        return _Regions([], None, {}, [gp], [])
+    if slabs:  # boxes again with a margin of one gap cell (level 0: the same boxes at every mesh level)
+        dg0 = base0 / 2**gp.level
+        slabs, sax, sg0 = underbody_slabs(body.underside, placement, dg0)
+        for i, (sl, k) in enumerate(zip(slabs, gp.z_splits)):
+            regions.append(RefinementRegion(_box(f"underbody{i}", sg0, sax, sl.lo, sl.hi), gp.level, int(k),
+                                            fluid_volume=sl.fluid_volume))
+        # behind the diffuser: from a quarter length ahead of the tail to one length behind it,
+        # up to 1.25 × the exit height (the last slab's underside) and two cells of its level
+        tail = max(sl.hi[0] for sl in slabs)
+        lw = max(wl, min(gp.level - 1, smax))
+        t0, t1 = min(sl.lo[1] for sl in slabs), max(sl.hi[1] for sl in slabs)
+        regions.append(RefinementRegion(
+            _box("diffuser_wake", sg0, sax, np.array([tail - 0.25 * L, t0, -dg0]),
+                 np.array([tail + 1.0 * L, t1, 1.25 * slabs[-1].top + 2.0 * base0 / 2**lw])), lw))
+    else:  # no underside map: one box under the whole body
+        top = 1.5 * max(max(body.ride_heights), body.min_clearance)
+        regions.append(RefinementRegion(_box("underbody", g0, axes, np.array([lo[0] - margin, lo[1] - margin, -margin]),
+                                             np.array([hi[0] + margin, hi[1] + margin, top])), gp.level, max(gp.z_splits)))
+    info = {"reference_clearance": c_ref, "gap_level": gp.level, "gap_cell": base0 / 2**gp.level / scale,
+            "z_splits": list(gp.z_splits), "gap_cells_reference": round(gp.cells_across, 2),
+            "gap_cells_min": round(gp.cells_min, 2)}
+    if body.min_clearance < c_ref and gp.cells_min < settings.gap_cells - 1.0:  # more than a cell short
+        warnings.append(f"the smallest clearance ({body.min_clearance * 1e3:.3f} mm) is below the reference clearance "
+                        f"({c_ref * 1e3:.3f} mm): {gp.cells_min:.1f} cells across it")
     if lp is not None:
-        layers = Layers(n_layers=lp.n_layers, first_cell_height=lp.first_height / scale, expansion=lp.expansion,
-                        target_yplus=lp.centre_yplus / scale, ground=lp.ground, treatment=lp.treatment)
+        stacks = (2 if lp.ground else 1) * lp.thickness
+        if stacks > MAX_STACK_SHARE * c_ref:
+            what = (f"the prism layers ({lp.n_layers} × {lp.first_height * 1e3:.4f} mm growing by {lp.expansion:g}, "
+                    f"{lp.thickness * 1e3:.3f} mm per stack, {'floor and ground' if lp.ground else 'floor'}) fill "
+                    f"{100 * stacks / c_ref:.0f} % of the reference clearance {c_ref * 1e3:.3f} mm (at most "
+                    f"{100 * MAX_STACK_SHARE:.0f} %)")
+            if lp.treatment == "low-re":
+                problems.append((what + ": the gap cannot hold the low-Re layers",
+                                 'raise the ride height, raise mesh.layer_expansion, or use mesh.wall_treatment = "wall-function"'))
+            else:
+                warnings.append(what + "; the mesher may squash them")
+    return _Regions(regions, gp, info, problems, warnings)
+
+
+def _regions(body: BodyExtent, lo, hi, placement: Placement, axes, g0, ground: str, z0: float, settings: MeshSettings,
+             base0: float, lp: LayerPlan | None, scale: float) -> _Regions:
+    """Refinement regions: the wake; with a ground the underbody slabs and
+    the wake behind the diffuser (:func:`_underbody`), else a near-body box."""
+    L = body.length
+    bw, bh = hi[1] - lo[1], hi[2] - lo[2]
+    smin = settings.surface_levels[0]
+    wl = settings.preset.wake_level
+    margin = 0.02 * L
+    wake = RefinementRegion(_box(
+        "wake", g0, axes, np.array([lo[0] - 0.1 * L, lo[1] - 0.2 * bw, max(z0, lo[2] - 0.3 * bh) if ground == "none" else -margin]),
+        np.array([hi[0] + settings.preset.wake_length * L, hi[1] + 0.2 * bw, hi[2] + 0.3 * bh])), wl)
+    if ground != "none" and body.min_clearance is not None and body.ride_heights is not None:
+        r = _underbody(body, lo, hi, placement, axes, g0, settings, base0, lp, scale)
+        regions = [wake] + r.regions
+    else:
+        r = _Regions([], None, {}, [], [])
+        regions = [wake, RefinementRegion(_box("near", g0, axes, np.array([lo[0] - 0.2 * L, lo[1] - 0.2 * bw, lo[2] - 0.2 * bh]),
+                                              np.array([hi[0] + 0.5 * L, hi[1] + 0.2 * bw, hi[2] + 0.2 * bh])),
+                                         max(wl, smin))]
+    regions.sort(key=lambda x: x.level)
+    return _Regions(regions, r.gap, r.info, r.problems, r.warnings)
+
+
+def _layers(lp: LayerPlan | None, settings: MeshSettings, mesh_level: int, d0: float) -> tuple[Layers | None, list[tuple[str, str]], list[str]]:
+    """The prism layers of this mesh level (every height of the level-0
+    plan ``lp`` scaled by 1/√2ᵐ), the problem of a level whose first-cell y+
+    leaves the wall treatment's band or of too many layers, and a warning
+    when the stack is thicker than the finest surface cell."""
+    if lp is None:
+        return None, [], []
+    scale = LEVEL_FACTOR**mesh_level
+    layers = Layers(n_layers=lp.n_layers, first_cell_height=lp.first_height / scale, expansion=lp.expansion,
+                    target_yplus=lp.centre_yplus / scale, ground=lp.ground, treatment=lp.treatment)
+    problems, warnings = [], []
+    if lp.treatment != "laminar":
         band = WALL_TREATMENTS[lp.treatment].band
         if not band[0] <= layers.target_yplus <= band[1]:
             problems.append((f"mesh level {mesh_level} puts the first cell centre at y+ {layers.target_yplus:.3g} (y+ "
@@ -451,113 +594,62 @@ def plan_domain(*, extent_points: np.ndarray, placement: Placement, ground: str,
                              f"outside the {lp.treatment} band {band[0]:g}–{band[1]:g}: the mesh levels cannot be similar "
                              "and keep the wall treatment",
                              "use fewer or lower mesh levels, or set mesh.target_yplus so that every level stays in the band"))
-        if lp.n_layers > 40:
-            problems.append((f"the {lp.treatment} treatment needs {lp.n_layers} prism layers (first layer "
-                             f"{lp.first_height * 1e3:.4f} mm growing by {lp.expansion:g})",
-                             "raise mesh.layer_expansion or use wall functions"))
+    if lp.n_layers > 40:
+        problems.append((f"the {lp.treatment} treatment needs {lp.n_layers} prism layers (first layer "
+                         f"{lp.first_height * 1e3:.4f} mm growing by {lp.expansion:g})",
+                         "raise mesh.layer_expansion or use wall functions"))
+    ds = d0 / 2**settings.surface_levels[1]
+    T = lp.thickness / scale
+    if T > ds:
+        warnings.append(f"the prism-layer stack ({T * 1e3:.3f} mm) is thicker than the finest surface cell "
+                        f"({ds * 1e3:.3f} mm); the mesher may collapse layers (raise target_yplus or lower layers)")
+    return layers, problems, warnings
 
-    # ground rectangle with prism layers (background cells under the body and its near wake)
-    ground_rect = None
+
+def plan_domain(body: BodyExtent, placement: Placement, ground: str, sizing: DomainSizing, settings: MeshSettings,
+                mesh_level: int, air_speed: float, nu: float, local_speed: float | None = None) -> DomainPlan:
+    """Size the domain and the mesh of one case: the background box
+    (:func:`_section`), the prism layers (:func:`plan_layers`, decided at
+    mesh level 0 and scaled: :func:`_layers`), the ground rectangle with
+    layers (:func:`_ground_rectangle`), the refinement regions and the gap
+    plan (:func:`_regions`) and the point that marks the fluid.
+
+    ``placement`` the body → ground transform; ``ground`` "moving" |
+    "stationary" | "none"; ``mesh_level`` of the sweep point; ``air_speed``
+    m/s, ``local_speed`` (m/s, default the air speed: the planner passes the
+    underfloor speed) and ``nu`` m²/s for the first-cell height.
+    """
+    axes = wind_axes(placement)
+    g0 = placement.ground_point_body if ground != "none" else np.zeros(3)
+    lo, hi = _wind_extent(body, axes, g0)
+    d0 = base_cell_size(settings, body.length, mesh_level)
+    base0 = base_cell_size(settings, body.length, 0)
+    scale = LEVEL_FACTOR**mesh_level
+    sec = _section(body, lo, hi, axes, g0, ground, sizing, d0)
+    lp = plan_layers(settings, local_speed if local_speed is not None else air_speed, body.length, nu)
+    if lp is not None and ground == "none":
+        lp = replace(lp, ground=False)
+    layers, layer_problems, layer_warnings = _layers(lp, settings, mesh_level, d0)
+    domain = sec.domain
     if lp is not None and lp.ground and ground != "none":
-        d1, d2 = lens[0] / n[0], lens[1] / n[1]
-        a, b = lo[0] - 0.1 * L - x0, hi[0] + 0.5 * L - x0
-        c, e = lo[1] - 0.1 * L - y0, hi[1] + 0.1 * L - y0
-        i1 = min(max(1, math.floor(a / d1)), n[0] - 2)
-        i2 = max(min(n[0] - 1, math.ceil(b / d1)), i1 + 1)
-        j1 = min(max(1, math.floor(c / d2)), n[1] - 2)
-        j2 = max(min(n[1] - 1, math.ceil(e / d2)), j1 + 1)
-        if n[0] >= 3 and n[1] >= 3:
-            ground_rect = (int(i1), int(i2), int(j1), int(j2))
-    domain = Domain(box=box, cells=(int(n[0]), int(n[1]), int(n[2])), ground=ground, blockage=float(blockage),
-                    ground_layer_cells=ground_rect)
-
-    smin, smax = settings.surface_levels
-    regions: list[RefinementRegion] = []
-    gap_level = None
-    gap = None
-    info: dict = {}
-    margin = 0.02 * L
-    wake = settings.preset.wake_length
-    wl = settings.preset.wake_level
-    regions.append(RefinementRegion(_box("wake", g0, axes,
-                                         np.array([lo[0] - 0.1 * L, lo[1] - 0.2 * bw, max(z0, lo[2] - 0.3 * bh) if ground == "none" else -margin]),
-                                         np.array([hi[0] + wake * L, hi[1] + 0.2 * bw, hi[2] + 0.3 * bh])), wl))
-    if ground != "none" and min_clearance is not None and ride_heights is not None:
-        c_ref = float(min(ride_heights))
-        slabs, sax, sg0 = ([], None, None)
-        if underside is not None:
-            slabs, sax, sg0 = underbody_slabs(underside, placement, base0 / 2**smax)
-        gp = plan_gap(c_ref, [s.clearance for s in slabs], base0, settings, lp)
-        if isinstance(gp, tuple):
-            problems.append(gp)
-        else:
-            gap = gp
-            gap_level = gp.level
-            if slabs:  # boxes again with a margin of one gap cell (level 0: the same boxes at every mesh level)
-                dg0 = base0 / 2**gp.level
-                slabs, sax, sg0 = underbody_slabs(underside, placement, dg0)
-                for i, (sl, k) in enumerate(zip(slabs, gp.z_splits)):
-                    regions.append(RefinementRegion(_box(f"underbody{i}", sg0, sax, sl.lo, sl.hi), gp.level, int(k),
-                                                    fluid_volume=sl.fluid_volume))
-                # behind the diffuser: from a quarter length ahead of the tail to one length behind it,
-                # up to 1.25 × the exit height (the last slab's underside) and two cells of its level
-                tail = max(sl.hi[0] for sl in slabs)
-                exit_h = slabs[-1].top
-                lw = max(wl, min(gp.level - 1, smax))
-                t0, t1 = min(sl.lo[1] for sl in slabs), max(sl.hi[1] for sl in slabs)
-                regions.append(RefinementRegion(
-                    _box("diffuser_wake", sg0, sax, np.array([tail - 0.25 * L, t0, -dg0]),
-                         np.array([tail + 1.0 * L, t1, 1.25 * exit_h + 2.0 * base0 / 2**lw])), lw))
-            else:  # no underside map: one box under the whole body
-                top = 1.5 * max(max(ride_heights), min_clearance)
-                regions.append(RefinementRegion(_box("underbody", g0, axes, np.array([lo[0] - margin, lo[1] - margin, -margin]),
-                                                     np.array([hi[0] + margin, hi[1] + margin, top])), gp.level,
-                                                max(gp.z_splits)))
-            info = {"reference_clearance": c_ref, "gap_level": gp.level, "gap_cell": base0 / 2**gp.level / scale,
-                    "z_splits": list(gp.z_splits), "gap_cells_reference": round(gp.cells_across, 2),
-                    "gap_cells_min": round(gp.cells_min, 2)}
-            if min_clearance < c_ref and gp.cells_min < settings.gap_cells - 1.0:  # more than a cell short
-                warnings.append(f"the smallest clearance ({min_clearance * 1e3:.3f} mm) is below the reference clearance "
-                                f"({c_ref * 1e3:.3f} mm): {gp.cells_min:.1f} cells across it")
-        if lp is not None:
-            stacks = (2 if lp.ground else 1) * lp.thickness
-            if stacks > MAX_STACK_SHARE * c_ref:
-                what = (f"the prism layers ({lp.n_layers} × {lp.first_height * 1e3:.4f} mm growing by {lp.expansion:g}, "
-                        f"{lp.thickness * 1e3:.3f} mm per stack, {'floor and ground' if lp.ground else 'floor'}) fill "
-                        f"{100 * stacks / c_ref:.0f} % of the reference clearance {c_ref * 1e3:.3f} mm (at most "
-                        f"{100 * MAX_STACK_SHARE:.0f} %)")
-                if lp.treatment == "low-re":
-                    problems.append((what + ": the gap cannot hold the low-Re layers",
-                                     "raise the ride height, raise mesh.layer_expansion, or use mesh.wall_treatment = \"wall-function\""))
-                else:
-                    warnings.append(what + "; the mesher may squash them")
-    else:
-        regions.append(RefinementRegion(_box("near", g0, axes, np.array([lo[0] - 0.2 * L, lo[1] - 0.2 * bw, lo[2] - 0.2 * bh]),
-                                             np.array([hi[0] + 0.5 * L, hi[1] + 0.2 * bw, hi[2] + 0.2 * bh])), max(wl, smin)))
-    regions.sort(key=lambda r: r.level)
-
-    if lp is not None:
-        ds = d0 / 2**smax
-        T = lp.thickness / scale
-        if T > ds:
-            warnings.append(f"the prism-layer stack ({T * 1e3:.3f} mm) is thicker than the finest surface cell "
-                            f"({ds * 1e3:.3f} mm); the mesher may collapse layers (raise target_yplus or lower layers)")
-
+        domain = replace(domain, ground_layer_cells=_ground_rectangle(sec, lo, hi, body.length))
+    reg = _regions(body, lo, hi, placement, axes, g0, ground, sec.origin[2], settings, base0, lp, scale)
     # location in mesh: upstream of the body, at a fraction of a cell no refinement level puts on a face
     frac = 0.4371
-    k1 = max(0, min(n[0] - 1, int(0.3 * upstream * L / d0)))
-    k2 = n[1] // 2
-    k3 = n[2] // 2
-    cc = np.array([(k1 + frac) * d0, (k2 + frac) * lens[1] / n[1], (k3 + frac) * lens[2] / n[2]])
-    lim = g0 + (origin + cc) @ axes
+    n = sec.n
+    k1 = max(0, min(n[0] - 1, int(0.3 * sizing.upstream * body.length / d0)))
+    c = np.array([(k1 + frac) * d0, (n[1] // 2 + frac) * sec.lens[1] / n[1], (n[2] // 2 + frac) * sec.lens[2] / n[2]])
+    lim = g0 + (sec.origin + c) @ axes
+    smin, smax = settings.surface_levels
     mesh = MeshSpec(base_cell=float(d0), surface_levels=(int(smin), int(smax)), feature_level=int(settings.feature_level),
-                    regions=tuple(regions), layers=layers, location_in_mesh=tuple(float(v) for v in lim))
+                    regions=tuple(reg.regions), layers=layers, location_in_mesh=tuple(float(v) for v in lim))
     footprint = None
-    if underside is not None and ground_rect is not None:
-        footprint = float(np.count_nonzero(np.isfinite(underside.z))) * underside.cell_area
-    est = estimate_cells(domain, mesh, body_area, ground_layer_area=footprint)
-    return DomainPlan(domain=domain, mesh=mesh, base_cell=float(d0), gap_level=gap_level, estimated_cells=est,
-                      warnings=tuple(warnings), problems=tuple(problems), gap=gap, info=info)
+    if body.underside is not None and domain.ground_layer_cells is not None:
+        footprint = float(np.count_nonzero(np.isfinite(body.underside.z))) * body.underside.cell_area
+    return DomainPlan(domain=domain, mesh=mesh, base_cell=float(d0), gap_level=None if reg.gap is None else reg.gap.level,
+                      estimated_cells=estimate_cells(domain, mesh, body.area, ground_layer_area=footprint),
+                      warnings=sec.warnings + tuple(reg.warnings) + tuple(layer_warnings),
+                      problems=sec.problems + tuple(layer_problems) + tuple(reg.problems), gap=reg.gap, info=reg.info)
 
 
 def ground_grading(height: float, first_cell: float, top_cell: float) -> tuple[int, float, float]:

@@ -24,9 +24,11 @@ from pathlib import Path
 
 import numpy as np
 
-from caseprep.config.schema import EMPTY_GEOMETRY, Config, load_config
-from caseprep.planning.domain import LEVEL_FACTOR, mesh_settings, plan_domain, plan_empty_section, decomposition_split
+from caseprep.config.load import load_config
+from caseprep.config.schema import EMPTY_GEOMETRY, Config
 from caseprep.contract.walls import WALL_TREATMENTS
+from caseprep.planning.domain import (LEVEL_FACTOR, BodyExtent, DomainSizing, decomposition_split, mesh_settings,
+                                      plan_domain, plan_empty_section)
 from caseprep.contract.errors import UserError, UserErrors
 from caseprep.contract.frames import (Placement, air_speed, body_to_ground_rotation, ground_velocity_ground, place_body,
                      wind_direction_ground)
@@ -310,7 +312,7 @@ def similarity_problems(cfg: Config, cases: list[CaseSpec], rel_tol: float = 1e-
                     key = "domain.width" if name.endswith("e2") and cfg.domain.width is not None else (
                         "domain.height" if name.endswith("e3") and cfg.domain.height is not None else "sweep.mesh_level")
                     errs.append(UserError(
-                        expected=f"mesh levels of one point that are geometrically similar (every length × 1/√2 per level)",
+                        expected="mesh levels of one point that are geometrically similar (every length × 1/√2 per level)",
                         got=f"{name} of case {c.case_id} (level {m}) = {v if v is None else f'{v:.6g}'} m, similarity needs "
                             f"{want:.6g} m from case {c0.case_id} (level {m0})",
                         file=cfg.file, key=key,
@@ -354,6 +356,71 @@ class _RotationCache:
         if k not in self._d:
             self._d[k] = compute()
         return self._d[k]
+
+
+def _wind(cfg: Config, pt: SweepPoint, P: Placement) -> tuple[float, np.ndarray, np.ndarray]:
+    """(resultant air speed m/s, relative-wind direction (unit) and ground
+    velocity (m/s, zero unless the ground moves), both in body axes) of a
+    point placed by ``P``."""
+    beta, mode = float(np.radians(pt.yaw_deg)), cfg.sweep.yaw_mode
+    U = air_speed(pt.speed, beta, mode)
+    w_body = P.vector_to_body(wind_direction_ground(beta, mode))
+    vg_body = P.vector_to_body(ground_velocity_ground(pt.speed, beta, mode)) if cfg.ground.mode == "moving" else np.zeros(3)
+    return U, w_body, vg_body
+
+
+def _flow(cfg: Config, air: Air, U: float, w_body: np.ndarray, vg_body: np.ndarray, turb) -> Flow:
+    """The case's flow: inlet velocity U·w (m/s), ground velocity, air, model
+    and the free-stream turbulence ``turb`` (:func:`flow_turbulence`: inlet
+    k, ω, ν_t that decay to the requested values at the model)."""
+    return Flow(inlet_velocity=_vec(U * w_body), ground_velocity=_vec(vg_body), air_speed=float(U), rho=air.rho,
+                nu=air.nu, p_ref=0.0, model=cfg.solver.turbulence_model, intensity=turb.intensity_model,
+                length_scale=turb.length_scale_model, k=turb.k_inlet, omega=turb.omega_inlet, nut=turb.nut_inlet,
+                turbulence=turb.to_dict())
+
+
+def _solver(cfg: Config, domain, preset_iterations: int) -> SolverSpec:
+    """Iterations (the config's, else the preset's), write interval and the
+    rank split of the domain box."""
+    iters = cfg.solver.iterations or preset_iterations
+    corners = domain.box.corners()
+    split = decomposition_split(cfg.solver.ranks, corners.max(axis=0) - corners.min(axis=0))
+    return SolverSpec(n_iterations=int(iters), write_interval=int(cfg.solver.write_interval or iters),
+                      n_procs=int(cfg.solver.ranks), split=split)
+
+
+def _place(cfg: Config, pt: SweepPoint, g: BodyGeometry, cache: _RotationCache):
+    """(placement, smallest clearance m, its body point, its % of the length
+    from the nose, a description) of a point; with a ground the body stands
+    on its ride heights (refused when it touches the ground), without one it
+    is centred and pitched about its middle (clearance None)."""
+    mode = cfg.sweep.yaw_mode
+    beta = float(np.radians(pt.yaw_deg))
+    if cfg.ground.mode == "none":
+        th = float(np.radians(pt.pitch_deg))
+        R = body_to_ground_rotation(th, beta, mode)
+        c = 0.5 * (np.asarray(g.bounds[0]) + np.asarray(g.bounds[1]))
+        return Placement(rotation=R, translation=-R @ c, pitch=th, beta=beta, yaw_mode=mode), None, None, None, ""
+    P = place_body(np.asarray(cfg.body.ride_height_point_front, float), np.asarray(cfg.body.ride_height_point_rear, float),
+                   pt.ride_height_front, pt.ride_height_rear, beta, mode)
+    nz = P.rotation[2]
+
+    def lowest():
+        X = cache.columns(pt.variant + "/hull", g.hull)
+        h = X[0] * nz[0] + X[1] * nz[1] + X[2] * nz[2]  # no BLAS: see _RotationCache
+        j = int(np.argmin(h))
+        return j, float(h[j])
+
+    i, h_min = cache.get("lowest", pt.variant, nz, lowest)
+    clearance = h_min + float(P.translation[2])
+    at = g.hull[i]
+    pct = float(100.0 * (at[0] - g.bounds[0][0]) / g.length)
+    where = f"body point ({at[0]:.4f}, {at[1]:.4f}, {at[2]:.4f}) m, {pct:.0f} % of the length from the nose"
+    if clearance <= 0.0:
+        raise UserError(expected="a body clear of the ground",
+                        got=f"clearance {clearance * 1e3:.3f} mm at {where} in case {pt.case_id}", file=cfg.file,
+                        key=pt.source, fix="the body touches or penetrates the ground: raise the ride height or reduce the pitch")
+    return P, clearance, at, pct, where
 
 
 def plan_wheels(cfg: Config, pt: SweepPoint, vg: "VariantGeometry", P: Placement, vg_body: np.ndarray,
@@ -431,39 +498,10 @@ def plan_case(cfg: Config, pt: SweepPoint, geoms: dict[str, VariantGeometry], ai
     g = vg.body
     ground = cfg.ground.mode
     mode = cfg.sweep.yaw_mode
-    beta = float(np.radians(pt.yaw_deg))
     cid = pt.case_id
     notes: list[str] = []
-    if ground != "none":
-        P = place_body(np.asarray(cfg.body.ride_height_point_front, float), np.asarray(cfg.body.ride_height_point_rear, float),
-                       pt.ride_height_front, pt.ride_height_rear, beta, mode)
-        nz = P.rotation[2]
-
-        def lowest():
-            X = cache.columns(pt.variant + "/hull", g.hull)
-            h = X[0] * nz[0] + X[1] * nz[1] + X[2] * nz[2]  # no BLAS: see _RotationCache
-            j = int(np.argmin(h))
-            return j, float(h[j])
-
-        i, h_min = cache.get("lowest", pt.variant, nz, lowest)
-        clearance = h_min + float(P.translation[2])
-        at = g.hull[i]
-        pct = float(100.0 * (at[0] - g.bounds[0][0]) / g.length)
-        where = f"body point ({at[0]:.4f}, {at[1]:.4f}, {at[2]:.4f}) m, {pct:.0f} % of the length from the nose"
-        if clearance <= 0.0:
-            raise UserError(expected="a body clear of the ground", got=f"clearance {clearance * 1e3:.3f} mm at {where} in case {cid}",
-                            file=cfg.file, key=pt.source,
-                            fix="the body touches or penetrates the ground: raise the ride height or reduce the pitch")
-    else:
-        th = float(np.radians(pt.pitch_deg))
-        R = body_to_ground_rotation(th, beta, mode)
-        c = 0.5 * (np.asarray(g.bounds[0]) + np.asarray(g.bounds[1]))
-        P = Placement(rotation=R, translation=-R @ c, pitch=th, beta=beta, yaw_mode=mode)
-        clearance, at, pct, where = None, None, None, ""
-    V = pt.speed
-    U = air_speed(V, beta, mode)
-    w_body = P.vector_to_body(wind_direction_ground(beta, mode))
-    vg_body = P.vector_to_body(ground_velocity_ground(V, beta, mode)) if ground == "moving" else np.zeros(3)
+    P, clearance, at, pct, where = _place(cfg, pt, g, cache)
+    U, w_body, vg_body = _wind(cfg, pt, P)
     frontal_wind = cache.get("frontal", pt.variant, w_body, lambda: hull_projected_area(vg.extent_hull, w_body))
 
     def extent_range(axes: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -473,14 +511,15 @@ def plan_case(cfg: Config, pt: SweepPoint, geoms: dict[str, VariantGeometry], ai
             return np.array([v.min() for v in q]), np.array([v.max() for v in q])
         return cache.get("extent", pt.variant, axes, compute)
 
-    dp = plan_domain(extent_points=vg.extent_hull, placement=P, ground=ground, body_length=g.length, body_area=g.area,
-                     frontal_area=frontal_wind, min_clearance=clearance,
-                     ride_heights=(pt.ride_height_front, pt.ride_height_rear) if ground != "none" else None,
-                     settings=settings, mesh_level=pt.mesh_level, air_speed=U, nu=air.nu,
-                     local_speed=cfg.air.underfloor_speed_factor * U, underside=g.underside if ground != "none" else None,
-                     upstream=cfg.domain.upstream, downstream=cfg.domain.downstream, width=cfg.domain.width,
-                     height=cfg.domain.height, target_blockage=cfg.domain.target_blockage, max_blockage=cfg.domain.max_blockage,
-                     extent_range=extent_range)
+    body = BodyExtent(points=vg.extent_hull, length=g.length, area=g.area, frontal_area=frontal_wind,
+                      min_clearance=clearance,
+                      ride_heights=(pt.ride_height_front, pt.ride_height_rear) if ground != "none" else None,
+                      extent_range=extent_range, underside=g.underside if ground != "none" else None)
+    d = cfg.domain
+    sizing = DomainSizing(upstream=d.upstream, downstream=d.downstream, width=d.width, height=d.height,
+                          target_blockage=d.target_blockage, max_blockage=d.max_blockage)
+    dp = plan_domain(body, P, ground, sizing, settings, pt.mesh_level, U, air.nu,
+                     local_speed=cfg.air.underfloor_speed_factor * U)
     if dp.problems:
         extra = f" (at {where})" if where else ""
         msgs = [UserError(f"case {cid} ({cfg.file} at {pt.source}): {what}{extra if 'clearance' in what else ''}", fix=fix,
@@ -497,16 +536,9 @@ def plan_case(cfg: Config, pt: SweepPoint, geoms: dict[str, VariantGeometry], ai
         notes.append(f"the free-stream turbulence decays strongly before the model (k at the inlet "
                      f"{turb.k_inlet / turb.k_model:.1f} × that at the model): the values at the model depend on the "
                      "model's decay constants; a larger solver.turbulence_length_scale decays less")
-    flow = Flow(inlet_velocity=_vec(U * w_body), ground_velocity=_vec(vg_body), air_speed=float(U), rho=air.rho, nu=air.nu,
-                p_ref=0.0, model=cfg.solver.turbulence_model, intensity=turb.intensity_model,
-                length_scale=turb.length_scale_model, k=turb.k_inlet, omega=turb.omega_inlet, nut=turb.nut_inlet,
-                turbulence=turb.to_dict())
+    flow = _flow(cfg, air, U, w_body, vg_body, turb)
     wheels, wheel_facts, recipes = plan_wheels(cfg, pt, vg, P, vg_body, notes)
-    iters = cfg.solver.iterations or settings.preset.iterations
-    corners = dp.domain.box.corners()
-    split = decomposition_split(cfg.solver.ranks, corners.max(axis=0) - corners.min(axis=0))
-    solver = SolverSpec(n_iterations=int(iters), write_interval=int(cfg.solver.write_interval or iters),
-                        n_procs=int(cfg.solver.ranks), split=split)
+    solver = _solver(cfg, dp.domain, settings.preset.iterations)
     area = reference_area(cfg, pt.variant, geoms)
     ref = Reference(area=area, length=lref, wheelbase=wb, front_axle=fa, rear_axle=ra, moment_point=mp, rho=air.rho,
                     nu=air.nu, speed=float(U), p_ref=0.0,
@@ -563,22 +595,12 @@ def plan_empty_case(cfg: Config, pt: SweepPoint, air: Air) -> tuple[CaseSpec, li
     dp = plan_empty_section(placement=P, length=d.length, width=d.width, height=d.height, base_cell=m.base_cell,
                             mesh_level=pt.mesh_level, ground=cfg.ground.mode, first_cell=m.ground_first_cell,
                             lead_in=float(d.lead_in or 0.0))
-    V = pt.speed
-    U = air_speed(V, beta, mode)
-    w_body = P.vector_to_body(wind_direction_ground(beta, mode))
-    vg_body = P.vector_to_body(ground_velocity_ground(V, beta, mode)) if cfg.ground.mode == "moving" else np.zeros(3)
+    U, w_body, vg_body = _wind(cfg, pt, P)
     lref = cfg.body.reference_length if cfg.body.reference_length is not None else float(d.length)
     # without a body the "model" is the middle of the section
     turb = flow_turbulence(cfg, U, float(d.length), 0.5 * float(d.length))
-    flow = Flow(inlet_velocity=_vec(U * w_body), ground_velocity=_vec(vg_body), air_speed=float(U), rho=air.rho, nu=air.nu,
-                p_ref=0.0, model=cfg.solver.turbulence_model, intensity=turb.intensity_model,
-                length_scale=turb.length_scale_model, k=turb.k_inlet, omega=turb.omega_inlet, nut=turb.nut_inlet,
-                turbulence=turb.to_dict())
-    iters = cfg.solver.iterations or mesh_settings(m.fidelity).preset.iterations
-    corners = dp.domain.box.corners()
-    split = decomposition_split(cfg.solver.ranks, corners.max(axis=0) - corners.min(axis=0))
-    solver = SolverSpec(n_iterations=int(iters), write_interval=int(cfg.solver.write_interval or iters),
-                        n_procs=int(cfg.solver.ranks), split=split)
+    flow = _flow(cfg, air, U, w_body, vg_body, turb)
+    solver = _solver(cfg, dp.domain, mesh_settings(m.fidelity).preset.iterations)
     ra = cfg.body.reference_area
     area = float(ra) if not isinstance(ra, str) else float(d.width * d.height)
     origin = _vec(P.ground_point_body)

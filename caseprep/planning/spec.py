@@ -18,7 +18,7 @@ from typing import Any
 import numpy as np
 
 from caseprep.contract.frames import Placement
-from caseprep.contract.manifest import CaseRecord, Reference
+from caseprep.contract.manifest import INFO_FIELDS, CaseRecord, Reference
 
 Vec3 = tuple[float, float, float]
 
@@ -195,7 +195,7 @@ class SolverSpec:
     """Solver controls: iteration budget, output interval, parallel ranks,
     the decomposition split (product = n_procs) and relaxation (the momentum
     relaxation and the non-orthogonal correctors follow the mesh: see
-    :data:`caseprep.render.MESH_NUMERICS`)."""
+    :data:`caseprep.casefiles.render.MESH_NUMERICS`)."""
 
     n_iterations: int
     write_interval: int
@@ -260,9 +260,9 @@ class CaseSpec:
             min_clearance=self.min_clearance,
             min_clearance_at=self.min_clearance_at,
             estimated_cells=self.estimated_cells,
-            extra={
-                **dict(self.extra),
-                "turbulence_model": self.flow.model,
-                "target_yplus": self.mesh.layers.target_yplus if self.mesh.layers is not None else None,
-            },
+            turbulence_model=self.flow.model,
+            target_yplus=self.mesh.layers.target_yplus if self.mesh.layers is not None else None,
+            wall_treatment=self.extra.get("wall_treatment"),
+            fluid_volume=self.extra.get("fluid_volume"),
+            info={k: v for k, v in self.extra.items() if k in INFO_FIELDS},
         )

@@ -160,6 +160,9 @@ def summarize_logs(case_dir: Path, valid_stages: Sequence[str], options: RunOpti
                        max_non_orthogonality=c.max_non_orthogonality, max_skewness=c.max_skewness)
             if c.mesh_ok is False:
                 flags.append(Flag.MESH_CHECKS_FAILED)
+        numerics = _read(case_dir / "system" / "meshNumerics")
+        if numerics is not None:
+            out["numerics"] = sl.parse_mesh_numerics(numerics)
         out["cells"] = cells
     if "solve" in valid_stages:
         so = _read(logs / "simpleFoam.log")
@@ -271,12 +274,54 @@ def run_sweep(
         raise UserError(expected="a number of parallel cases ≥ 1", got=jobs, key="jobs", fix="use -j 1 or more")
     if ranks < 1:
         raise UserError(expected="a number of MPI ranks ≥ 1", got=ranks, key="ranks", fix="use --ranks 1 or more")
+    stages = _checked_stages(stages)
+    selected = _selected_cases(root, manifest, only)
+    env = _environment(ranks)
+    emit = progress or (lambda ev: None)
+    total = len(selected)
+    records: dict[str, CaseRunRecord] = {}
+    pending = _pending_jobs(manifest, selected, stages, force, ranks, options, records, emit)
+    running: list[_Job] = []
+    try:
+        while pending or running:
+            while pending and len(running) < jobs:
+                job = pending.pop(0)
+                job.t0 = time.monotonic()
+                job.started_utc = _utc()
+                running.append(job)  # before starting: an interrupt must find its process
+                emit(Progress(job.rec.case_id, job.index, total, "case-start", message=" ".join(job.to_run)))
+                _start_stage(job, env, emit, total)
+            time.sleep(options.poll)
+            for job in list(running):
+                rec = _poll(job, env, emit, total, ranks, options)
+                if rec is None:
+                    continue
+                running.remove(job)
+                records[job.rec.case_id] = rec
+                _write_record(job.dir, rec)
+                _write_summary(root, manifest, records, ranks)
+                emit(Progress(job.rec.case_id, job.index, total, "case-done", None, rec.wall_time, 0.0,
+                              rec.message, rec))
+    except KeyboardInterrupt:
+        _interrupt(running, records, emit, total, ranks, options)
+        _write_summary(root, manifest, records, ranks)
+        raise SweepInterrupted([records[c.case_id] for c in selected if c.case_id in records]) from None
+    _write_summary(root, manifest, records, ranks)
+    return [records[c.case_id] for c in selected]
+
+
+def _checked_stages(stages: Sequence[str] | None) -> list[str]:
+    """The requested stages in run order (all when none are given)."""
     stages = list(STAGES) if not stages else list(stages)
     for s in stages:
         if s not in STAGES:
             raise UserError(expected=f"a stage among {', '.join(STAGES)}", got=s, key="stage",
                             fix="pick one of those." + did_you_mean(s, STAGES))
-    stages = [s for s in STAGES if s in stages]
+    return [s for s in STAGES if s in stages]
+
+
+def _selected_cases(root: Path, manifest, only: Sequence[str] | None) -> list[CaseRecord]:
+    """The manifest's cases to run (``only`` those ids), each with an executable run.sh."""
     ids = [c.case_id for c in manifest.cases]
     if only:
         unknown = [i for i in only if i not in ids]
@@ -296,7 +341,12 @@ def run_sweep(
         raise UserError(expected="an executable run.sh in every case folder", got=str(manifest.case_dir(bad[0]) / "run.sh"),
                         key=f"cases[{bad[0].case_id}]",
                         fix=f"{len(bad)} case folder(s) lack it; rewrite the sweep with `caseprep write --force`")
+    return selected
 
+
+def _environment(ranks: int) -> dict[str, str]:
+    """The environment of run.sh: ``UF_RANKS``, the solver's install folder
+    when unset, and what the MPI launcher needs to run as root."""
     env = dict(os.environ)
     env["UF_RANKS"] = str(ranks)
     if "WM_PROJECT_DIR" not in env and Path("/usr/share/openfoam/etc").is_dir():
@@ -304,11 +354,15 @@ def run_sweep(
     if hasattr(os, "geteuid") and os.geteuid() == 0:  # the MPI launcher refuses root without these
         env.setdefault("OMPI_ALLOW_RUN_AS_ROOT", "1")
         env.setdefault("OMPI_ALLOW_RUN_AS_ROOT_CONFIRM", "1")
+    return env
 
-    emit = progress or (lambda ev: None)
-    total = len(selected)
-    records: dict[str, CaseRunRecord] = {}
+
+def _pending_jobs(manifest, selected: list[CaseRecord], stages: list[str], force: bool, ranks: int,
+                  options: RunOptions, records: dict[str, CaseRunRecord], emit) -> list[_Job]:
+    """The jobs to run; cases that cannot start (``not-ready``) or have
+    nothing to do (``skipped``) are recorded in ``records`` at once."""
     pending: list[_Job] = []
+    total = len(selected)
     for i, c in enumerate(selected, 1):
         cdir = manifest.case_dir(c)
         prev = read_case_record(cdir)
@@ -325,75 +379,60 @@ def run_sweep(
             emit(Progress(c.case_id, i, total, "skipped", message="done before; use --force to run again", record=rec))
         else:
             pending.append(_Job(i, c, cdir, to_run, plan, prev))
+    return pending
 
-    running: list[_Job] = []
-    try:
-        while pending or running:
-            while pending and len(running) < jobs:
-                job = pending.pop(0)
-                job.t0 = time.monotonic()
-                job.started_utc = _utc()
-                running.append(job)  # before starting: an interrupt must find its process
-                emit(Progress(job.rec.case_id, job.index, total, "case-start", message=" ".join(job.to_run)))
-                _start_stage(job, env, emit, total)
-            time.sleep(options.poll)
-            now = time.monotonic()
-            for job in list(running):
-                rc = job.proc.poll()
-                if rc is None:
-                    if now - job.last_beat >= options.heartbeat:
-                        job.last_beat = now
-                        emit(Progress(job.rec.case_id, job.index, total, "running", job.stage, now - job.t0,
-                                      now - job.stage_t0))
-                    continue
-                job.out.close()
-                stage = job.stage
-                dt = now - job.stage_t0
-                marker = job.dir / "logs" / f"{stage}.done"
-                if rc == 0 and marker.exists():
-                    job.results[stage] = StageRun(stage, "ok", round(dt, 3), rc)
-                    emit(Progress(job.rec.case_id, job.index, total, "stage-done", stage, now - job.t0, dt))
-                    if job.to_run:
-                        _start_stage(job, env, emit, total)
-                        continue
-                    rec = _finish_record(job, Status.OK, "", ranks, options)
-                else:
-                    job.results[stage] = StageRun(stage, "failed", round(dt, 3), rc)
-                    tool, log = _failing_tool(job.dir, stage, job.stage_wall0)
-                    out_log = job.dir / "logs" / f"underfloor-{stage}.out"
-                    if rc == 0:
-                        why = f"run.sh {stage} exited 0 but did not leave logs/{stage}.done"
-                    else:
-                        err = sl.fatal_error(_read(log) or "") if log else None
-                        why = f"{tool or 'run.sh'} failed (exit {rc})" + (f": {err}" if err else "")
-                    tail = _tail(log, options.tail_lines) if log else ""
-                    out_tail = _tail(out_log, 8)
-                    if out_tail:
-                        tail = (tail + "\n--- run.sh output ---\n" if tail else "") + out_tail
-                    emit(Progress(job.rec.case_id, job.index, total, "stage-failed", stage, now - job.t0, dt, why))
-                    rec = _finish_record(job, FAILED_STATUS[stage], why, ranks, options, failed_tool=tool,
-                                         log_tail=tail)
-                running.remove(job)
-                records[job.rec.case_id] = rec
-                _write_record(job.dir, rec)
-                _write_summary(root, manifest, records, ranks)
-                emit(Progress(job.rec.case_id, job.index, total, "case-done", None, rec.wall_time, 0.0,
-                              rec.message, rec))
-    except KeyboardInterrupt:
-        _stop(running, options.kill_grace)
-        now = time.monotonic()
-        for job in running:
-            if job.stage is None or job.proc is None:
-                continue
-            job.results[job.stage] = StageRun(job.stage, "interrupted", round(now - job.stage_t0, 3), None)
-            rec = _finish_record(job, Status.INTERRUPTED, f"interrupted during {job.stage}", ranks, options)
-            records[job.rec.case_id] = rec
-            _write_record(job.dir, rec)
-            emit(Progress(job.rec.case_id, job.index, total, "interrupted", job.stage, now - job.t0))
-        _write_summary(root, manifest, records, ranks)
-        raise SweepInterrupted([records[c.case_id] for c in selected if c.case_id in records]) from None
-    _write_summary(root, manifest, records, ranks)
-    return [records[c.case_id] for c in selected]
+
+def _poll(job: _Job, env: dict[str, str], emit, total: int, ranks: int, options: RunOptions) -> CaseRunRecord | None:
+    """Check a running job: a heartbeat while its stage runs, the next stage
+    when it finished, the case's record when it is done or failed (None while
+    it runs on)."""
+    now = time.monotonic()
+    rc = job.proc.poll()
+    if rc is None:
+        if now - job.last_beat >= options.heartbeat:
+            job.last_beat = now
+            emit(Progress(job.rec.case_id, job.index, total, "running", job.stage, now - job.t0, now - job.stage_t0))
+        return None
+    job.out.close()
+    stage = job.stage
+    dt = now - job.stage_t0
+    marker = job.dir / "logs" / f"{stage}.done"
+    if rc == 0 and marker.exists():
+        job.results[stage] = StageRun(stage, "ok", round(dt, 3), rc)
+        emit(Progress(job.rec.case_id, job.index, total, "stage-done", stage, now - job.t0, dt))
+        if job.to_run:
+            _start_stage(job, env, emit, total)
+            return None
+        return _finish_record(job, Status.OK, "", ranks, options)
+    job.results[stage] = StageRun(stage, "failed", round(dt, 3), rc)
+    tool, log = _failing_tool(job.dir, stage, job.stage_wall0)
+    out_log = job.dir / "logs" / f"underfloor-{stage}.out"
+    if rc == 0:
+        why = f"run.sh {stage} exited 0 but did not leave logs/{stage}.done"
+    else:
+        err = sl.fatal_error(_read(log) or "") if log else None
+        why = f"{tool or 'run.sh'} failed (exit {rc})" + (f": {err}" if err else "")
+    tail = _tail(log, options.tail_lines) if log else ""
+    out_tail = _tail(out_log, 8)
+    if out_tail:
+        tail = (tail + "\n--- run.sh output ---\n" if tail else "") + out_tail
+    emit(Progress(job.rec.case_id, job.index, total, "stage-failed", stage, now - job.t0, dt, why))
+    return _finish_record(job, FAILED_STATUS[stage], why, ranks, options, failed_tool=tool, log_tail=tail)
+
+
+def _interrupt(running: list[_Job], records: dict[str, CaseRunRecord], emit, total: int, ranks: int,
+               options: RunOptions) -> None:
+    """Ctrl-C: stop the running cases and record them as interrupted."""
+    _stop(running, options.kill_grace)
+    now = time.monotonic()
+    for job in running:
+        if job.stage is None or job.proc is None:
+            continue
+        job.results[job.stage] = StageRun(job.stage, "interrupted", round(now - job.stage_t0, 3), None)
+        rec = _finish_record(job, Status.INTERRUPTED, f"interrupted during {job.stage}", ranks, options)
+        records[job.rec.case_id] = rec
+        _write_record(job.dir, rec)
+        emit(Progress(job.rec.case_id, job.index, total, "interrupted", job.stage, now - job.t0))
 
 
 def _start_stage(job: _Job, env: dict[str, str], emit, total: int) -> None:

@@ -494,6 +494,17 @@ PARSERS = {
 }
 
 
+def parse_mesh_numerics(text: str) -> dict[str, float | int] | None:
+    """The numerics ``run.sh`` chose from the mesh (``system/meshNumerics``):
+    ``{"non_orthogonal_correctors": n, "momentum_relaxation": x}``, or None
+    when the text does not hold both entries."""
+    n = re.search(r"nNonOrthogonalCorrectors\s+(\d+)\s*;", text)
+    u = re.search(rf"(?m)^\s*U\s+({_NUM})\s*;", text)
+    if n is None or u is None:
+        return None
+    return {"non_orthogonal_correctors": int(n.group(1)), "momentum_relaxation": _float(u.group(1))}
+
+
 def parse_log(tool: str, text: str):
     """Parse the log of ``tool`` (one of :data:`PARSERS`' keys)."""
     try:

@@ -7,7 +7,7 @@ per patch), a bare ``.vtu`` internal mesh, or a case folder (the newest
 ``VTK/*.vtm``). Hands the kernels plain numpy arrays: topology
 (:class:`postproc.kernels.gradients.CellTopology`), cell centres, cell data, plane
 sections (:class:`postproc.kernels.sections.PlaneSection`) and surface patches
-(:class:`postproc.kernels.sections.Surface`).
+(:class:`postproc.kernels.sections.SurfacePatch`).
 
 Axes: the mesh frame, which for underfloor cases is the body frame (x
 rearward, y right, z up, m). Pressure arrays from the incompressible solver
@@ -25,18 +25,18 @@ from caseprep.contract.manifest import CaseRecord, find_case_manifest
 from postproc.io.exports import latest_export, time_from_name
 
 from postproc.kernels.meshtopo import VOLUME_CELL_TYPES, VTK_POLYHEDRON, CellTopology
-from postproc.kernels.sections import PlaneSection, Surface
+from postproc.kernels.sections import PlaneSection, SurfacePatch
 
 
 
 @dataclass
 class FlowCase:
     """A loaded result: internal mesh (pyvista grid, kept private to the I/O
-    layer), boundary patches as :class:`Surface`, the case record from the
+    layer), boundary patches as :class:`SurfacePatch`, the case record from the
     sweep manifest when there is one, and where it came from."""
 
     grid: object
-    patches: dict[str, Surface]
+    patches: dict[str, SurfacePatch]
     source: Path
     record: CaseRecord | None = None
     time: float | None = None
@@ -80,7 +80,7 @@ def resolve_result(path: str | Path) -> tuple[Path, Path | None]:
     return p, case_dir
 
 
-def _surface_from_polydata(pd, name: str) -> Surface:
+def _surface_from_polydata(pd, name: str) -> SurfacePatch:
     import pyvista as pv
 
     if not isinstance(pd, pv.PolyData):
@@ -91,7 +91,7 @@ def _surface_from_polydata(pd, name: str) -> Surface:
     cd = {k: np.asarray(pd.cell_data[k]) for k in pd.cell_data.keys()}
     pdd = {k: np.asarray(pd.point_data[k]) for k in pd.point_data.keys()}
     del faces
-    return Surface(name=name, points=pts, offsets=off, connectivity=conn, cell_data=cd, point_data=pdd)
+    return SurfacePatch(name=name, points=pts, offsets=off, connectivity=conn, cell_data=cd, point_data=pdd)
 
 
 def _polys_offsets(pd) -> tuple[np.ndarray, np.ndarray]:
@@ -165,19 +165,19 @@ def read_flow(path: str | Path, *, need_volume: bool = True) -> FlowCase:
     return FlowCase(grid=grid, patches=patches, source=f, record=record, time=time_from_name(f))
 
 
-def flow_case_from_grid(grid, patches: dict[str, Surface] | None = None, source: str = "<memory>",
+def flow_case_from_grid(grid, patches: dict[str, SurfacePatch] | None = None, source: str = "<memory>",
                         record: CaseRecord | None = None) -> FlowCase:
     """Wrap an in-memory grid as a :class:`FlowCase` (tests, API users)."""
     return FlowCase(grid=grid, patches=dict(patches or {}), source=Path(source), record=record)
 
 
-def surface_from_polydata(pd, name: str = "surface") -> Surface:
-    """A pyvista PolyData as a plain-array :class:`Surface`."""
+def surface_from_polydata(pd, name: str = "surface") -> SurfacePatch:
+    """A pyvista PolyData as a plain-array :class:`SurfacePatch`."""
     return _surface_from_polydata(pd, name)
 
 
-def surface_to_polydata(surface: Surface):
-    """A :class:`Surface` as pyvista PolyData (with its cell and point data)."""
+def surface_to_polydata(surface: SurfacePatch):
+    """A :class:`SurfacePatch` as pyvista PolyData (with its cell and point data)."""
     import pyvista as pv
 
     counts = np.diff(surface.offsets)
@@ -400,7 +400,7 @@ def slice_stations(grid, xs, arrays: dict[str, np.ndarray], *, axis: int = 0) ->
     return sections
 
 
-def slice_surface(surface: Surface, axis: int, value: float) -> tuple[np.ndarray, np.ndarray, dict[str, np.ndarray]]:
+def slice_surface(surface: SurfacePatch, axis: int, value: float) -> tuple[np.ndarray, np.ndarray, dict[str, np.ndarray]]:
     """Cut a surface patch by the plane x_axis = value.
 
     Returns (segments (S, 2, 3) m, source polygon ids (S,), cell data of the

@@ -1,6 +1,6 @@
 """Readers of the solver's VTK export and of plain VTK surfaces (I/O layer).
 
-A registry keyed by file extension turns a file into a :class:`Surface`
+A registry keyed by file extension turns a file into a :class:`SurfaceMesh`
 (polygonal faces, face data, part ids). Known formats:
 
 ``.vtm``  XML multiblock as the solver's converter writes it:
@@ -36,7 +36,7 @@ _SURFACE_TYPES = _POLY_TYPES | {8}  # plus VTK_PIXEL (reordered below)
 
 
 @dataclass(frozen=True)
-class Surface:
+class SurfaceMesh:
     """Polygonal faces with face (cell) data.
 
     points (N, 3) m; offsets (M+1,) and connectivity: VTK ≥ 9 polygon layout;
@@ -234,13 +234,13 @@ def _validate(name: str, piece: tuple, source: str) -> None:
                         file=source, key=name, fix="the file may be truncated; re-export it")
 
 
-def _merge(pieces: Sequence[tuple[str, tuple]], source: str, time: float | None = None) -> Surface:
+def _merge(pieces: Sequence[tuple[str, tuple]], source: str, time: float | None = None) -> SurfaceMesh:
     """Concatenate parts (name, (points, offsets, conn, cells, point_names, face_array_names))."""
     for name, piece in pieces:
         _validate(name, piece, source)
     if len(pieces) == 1:
         name, (P, off, conn, cells, pts, names) = pieces[0]
-        return Surface(points=P, offsets=off, connectivity=conn, cell_data=cells, point_arrays=pts,
+        return SurfaceMesh(points=P, offsets=off, connectivity=conn, cell_data=cells, point_arrays=pts,
                        part_ids=np.zeros(off.size - 1, np.int64), part_names=(name,), source=source, time=time,
                        cell_arrays=tuple(names))
     common = set.intersection(*(set(p[1][3]) for p in pieces))
@@ -258,7 +258,7 @@ def _merge(pieces: Sequence[tuple[str, tuple]], source: str, time: float | None 
     pts = tuple(sorted(set.intersection(*(set(p[1][4]) for p in pieces))))
     missing = sorted(set.union(*(set(p[1][3]) for p in pieces)) - common)
     notes = (f"face arrays present on only some patches were dropped: {', '.join(missing)}",) if missing else ()
-    return Surface(points=np.concatenate(Ps), offsets=np.concatenate(offs), connectivity=np.concatenate(conns),
+    return SurfaceMesh(points=np.concatenate(Ps), offsets=np.concatenate(offs), connectivity=np.concatenate(conns),
                    cell_data=cells, point_arrays=pts, part_ids=np.concatenate(ids),
                    part_names=tuple(p[0] for p in pieces), source=source, time=time, notes=notes,
                    cell_arrays=tuple(sorted(set.intersection(*(set(p[1][5]) for p in pieces)))))
@@ -288,8 +288,8 @@ def select_patches(available: Sequence[str], patterns: Iterable[str] | None, sou
 
 # --------------------------------------------------------------------------- formats
 
-def _read_single(reader_factory: Callable[[], object]) -> Callable[..., Surface]:
-    def read(path: Path, patterns: Sequence[str] | None = None, arrays: Sequence[str] | None = None) -> Surface:
+def _read_single(reader_factory: Callable[[], object]) -> Callable[..., SurfaceMesh]:
+    def read(path: Path, patterns: Sequence[str] | None = None, arrays: Sequence[str] | None = None) -> SurfaceMesh:
         _check_file(path)
         ds, names = _run_reader(reader_factory(), path, arrays)
         P, off, conn, cells, pts = _dataset_to_parts(ds, path)
@@ -368,7 +368,7 @@ def vtm_blocks(path: Path) -> tuple[list[tuple[str, Path]], float | None]:
     return out, time
 
 
-def read_vtm(path: Path, patterns: Sequence[str] | None = None, arrays: Sequence[str] | None = None) -> Surface:
+def read_vtm(path: Path, patterns: Sequence[str] | None = None, arrays: Sequence[str] | None = None) -> SurfaceMesh:
     """Read the selected patches of an XML multiblock file (see module doc)."""
     blocks, time = vtm_blocks(path)
     surfaces = [(n, f) for n, f in blocks if f.suffix != ".vtu" or n != "internal"]
@@ -396,7 +396,7 @@ def read_vtm(path: Path, patterns: Sequence[str] | None = None, arrays: Sequence
     return _merge(pieces, str(path), time)
 
 
-_READERS: dict[str, Callable[..., Surface]] = {
+_READERS: dict[str, Callable[..., SurfaceMesh]] = {
     ".vtm": read_vtm,
     ".vtp": _read_single(_vtp_reader),
     ".vtu": _read_single(_vtu_reader),
@@ -409,13 +409,13 @@ def known_extensions() -> tuple[str, ...]:
 
 
 def read_surface(path: str | os.PathLike, patches: Sequence[str] | None = None,
-                 arrays: Sequence[str] | None = None) -> Surface:
-    """Read a VTK surface or multiblock into a :class:`Surface` (by extension).
+                 arrays: Sequence[str] | None = None) -> SurfaceMesh:
+    """Read a VTK surface or multiblock into a :class:`SurfaceMesh` (by extension).
 
     ``patches``: names or globs (multiblocks: required; single files: matched
     against the file's stem, the one part name). ``arrays``: the face arrays
     to load (None: all); the names of the others stay listed in
-    ``Surface.cell_arrays``. Point data are not loaded (names only)."""
+    ``SurfaceMesh.cell_arrays``. Point data are not loaded (names only)."""
     p = Path(path)
     reader = _READERS.get(p.suffix.lower())
     if reader is None:

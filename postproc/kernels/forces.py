@@ -63,12 +63,12 @@ from typing import Literal, Sequence
 import numpy as np
 
 from caseprep.contract.errors import UserError
+from postproc.kernels.polygons import CHUNK, _coords, _Faces, _polygons
 
 Normals = Literal["into_body", "out_of_body"]
 NORMALS: tuple[str, ...] = ("into_body", "out_of_body")
 SHEAR_ON: tuple[str, ...] = ("fluid", "wall")
 
-CHUNK = 32_768  # faces per chunk: its temporaries (~50 arrays of CHUNK float64) stay in the CPU cache
 
 #: A face whose area is below this fraction of the squared bounding-box
 #: diagonal is degenerate (1e-14: a 5 m body's faces below ~0.5 µm × 0.5 µm).
@@ -131,206 +131,6 @@ class ForceResult:
         if self.parts:
             d["parts"] = {k: {kk: vv for kk, vv in v.to_dict().items() if kk != "parts"} for k, v in self.parts.items()}
         return d
-
-
-# --------------------------------------------------------------------------- faces
-
-class _Faces:
-    """Faces grouped by vertex count.
-
-    ``groups``: list of ``(k, n, index, block, starts)``: n faces of k
-    vertices; ``index`` their positions in the input (None: all faces, in
-    order); their vertex indices are the rows of ``block`` (n, k) or
-    ``conn[starts + j]``, j = 0 … k−1.
-    """
-
-    def __init__(self, faces) -> None:
-        self.conn: np.ndarray | None = None
-        self.off: np.ndarray | None = None
-        self.block: np.ndarray | None = None
-        if isinstance(faces, tuple) and len(faces) == 2:
-            off = np.asarray(faces[0])
-            conn = np.asarray(faces[1])
-            if off.ndim != 1 or off.size < 1:
-                raise ValueError("expected offsets as a 1-D array of M+1 entries")
-            self.off, self.conn = off, conn
-            m = off.size - 1
-            self.m = m
-            self.groups: list[tuple] = []
-            if m == 0:
-                return
-            sizes = np.diff(off)
-            small = sizes < 3
-            if small.any():
-                bad = int(np.flatnonzero(small)[0])
-                raise UserError(
-                    expected="faces with at least 3 vertices",
-                    got=f"{int(small.sum())} face(s) with fewer (first: face {bad})",
-                    key="faces", fix="give a polygonal surface (lines and points carry no area)")
-            k = int(sizes[0])
-            if np.all(sizes == k):
-                if off[0] == 0 and conn.size == m * k:
-                    self.block = conn.reshape(m, k)
-                    self.groups = [(k, m, None, self.block, None)]
-                else:
-                    self.groups = [(k, m, None, None, off[:-1])]
-            else:
-                for k in np.unique(sizes):
-                    idx = np.flatnonzero(sizes == k)
-                    self.groups.append((int(k), idx.size, idx, None, off[:-1][idx]))
-            return
-        arr = np.asarray(faces)
-        if arr.ndim != 2:
-            raise ValueError("expected faces as an (M, k) array or an (offsets, connectivity) pair")
-        self.m = arr.shape[0]
-        if arr.shape[1] < 3 and self.m:
-            raise UserError(expected="faces with at least 3 vertices", got=f"{arr.shape[1]}-vertex faces",
-                            key="faces", fix="give a polygonal surface (lines and points carry no area)")
-        self.block = arr
-        self.groups = [(arr.shape[1], self.m, None, arr, None)] if self.m else []
-
-    def rows(self, group: tuple, lo: int, hi: int) -> np.ndarray:
-        """Vertex indices (n, k) of faces lo…hi−1 of a group."""
-        k, _, _, block, starts = group
-        if block is not None:
-            return block[lo:hi]
-        return self.conn.take(starts[lo:hi, None] + np.arange(k))
-
-    def face_rows(self, i: int) -> np.ndarray:
-        """Vertex indices (1, k) of face i alone."""
-        if self.block is not None:
-            return self.block[i:i + 1]
-        return self.conn[None, self.off[i]:self.off[i + 1]]
-
-
-def _coords(points: np.ndarray, shift: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """x, y, z of the points minus ``shift`` as contiguous float64 arrays (new arrays)."""
-    P = np.asarray(points)
-    if P.size == 0:
-        return tuple(np.zeros(0) for _ in range(3))  # type: ignore[return-value]
-    return tuple(np.subtract(P[:, i], shift[i], dtype=np.float64) for i in range(3))  # type: ignore[return-value]
-
-
-def _polygons(X: np.ndarray, Y: np.ndarray, Z: np.ndarray, rows: np.ndarray) -> tuple[np.ndarray, ...]:
-    """Area vectors, centroids and squared areas of polygons of k vertices.
-
-    ``rows``: (n, k) vertex indices into the coordinate arrays X, Y, Z
-    (float64, m). Returns (Sx, Sy, Sz, cx, cy, cz, W) as 1-D float64 arrays,
-    W = |S|² (m⁴). Exact vector area S = ½ Σ p_i × p_{i+1}; centroid of the
-    fan triangles (p_0, p_j, p_{j+1}) weighted by their area projected on S
-    (exact for planar faces); a zero-area face gets its vertex average.
-    Triangles: S = ½ (p1 − p0) × (p2 − p0), c = (p0 + p1 + p2)/3. Quads:
-    S = ½ (p2 − p0) × (p3 − p1); triangles (p0 p1 p2), (p0 p2 p3).
-    Component arithmetic on contiguous arrays (faster than N×3 cross products).
-    """
-    k = rows.shape[1]
-    xb, yb, zb = X.take(rows), Y.take(rows), Z.take(rows)  # (n, k) each
-    x = [xb[:, j] for j in range(k)]
-    y = [yb[:, j] for j in range(k)]
-    z = [zb[:, j] for j in range(k)]
-    x0, y0, z0 = x[0], y[0], z[0]
-    if k == 3:
-        ax, ay, az = x[1] - x0, y[1] - y0, z[1] - z0
-        bx, by, bz = x[2] - x0, y[2] - y0, z[2] - z0
-        Sx = 0.5 * (ay * bz - az * by)
-        Sy = 0.5 * (az * bx - ax * bz)
-        Sz = 0.5 * (ax * by - ay * bx)
-        W = Sx * Sx + Sy * Sy + Sz * Sz
-        cx = (x0 + x[1] + x[2]) / 3.0
-        cy = (y0 + y[1] + y[2]) / 3.0
-        cz = (z0 + z[1] + z[2]) / 3.0
-        return Sx, Sy, Sz, cx, cy, cz, W
-    if k == 4:
-        x1, y1, z1, x2, y2, z2, x3, y3, z3 = x[1], y[1], z[1], x[2], y[2], z[2], x[3], y[3], z[3]
-        ax, ay, az = x2 - x0, y2 - y0, z2 - z0
-        bx, by, bz = x3 - x1, y3 - y1, z3 - z1
-        Sx = 0.5 * (ay * bz - az * by)
-        Sy = 0.5 * (az * bx - ax * bz)
-        Sz = 0.5 * (ax * by - ay * bx)
-        W = Sx * Sx + Sy * Sy + Sz * Sz
-        ex, ey, ez = x1 - x0, y1 - y0, z1 - z0  # A1 = ½ (p1 − p0) × (p2 − p0): triangle (p0 p1 p2)
-        w1 = 0.5 * ((ey * az - ez * ay) * Sx + (ez * ax - ex * az) * Sy + (ex * ay - ey * ax) * Sz)
-        with np.errstate(invalid="ignore", divide="ignore"):
-            f1 = w1 / W  # share of triangle (p0 p1 p2); (p0 p2 p3) has 1 − f1
-        bad = ~np.isfinite(f1)
-        anybad = bool(bad.any())
-        if anybad:
-            f1[bad] = 0.5
-        # c = [(p0 + p1 + p2) f1 + (p0 + p2 + p3)(1 − f1)] / 3
-        cx = (x0 + x2 + x3 + f1 * (x1 - x3)) / 3.0
-        cy = (y0 + y2 + y3 + f1 * (y1 - y3)) / 3.0
-        cz = (z0 + z2 + z3 + f1 * (z1 - z3)) / 3.0
-        if anybad:  # zero-area faces: vertex average
-            for c, v in ((cx, x), (cy, y), (cz, z)):
-                c[bad] = 0.25 * (v[0][bad] + v[1][bad] + v[2][bad] + v[3][bad])
-        return Sx, Sy, Sz, cx, cy, cz, W
-    Sx, Sy, Sz = np.zeros(x0.size), np.zeros(x0.size), np.zeros(x0.size)
-    tris = []
-    for j in range(1, k - 1):
-        ax, ay, az = x[j] - x0, y[j] - y0, z[j] - z0
-        bx, by, bz = x[j + 1] - x0, y[j + 1] - y0, z[j + 1] - z0
-        tx = 0.5 * (ay * bz - az * by)
-        ty = 0.5 * (az * bx - ax * bz)
-        tz = 0.5 * (ax * by - ay * bx)
-        Sx += tx
-        Sy += ty
-        Sz += tz
-        tris.append((tx, ty, tz, j))
-    W = Sx * Sx + Sy * Sy + Sz * Sz
-    wsum = np.zeros(x0.size)
-    cx, cy, cz = np.zeros(x0.size), np.zeros(x0.size), np.zeros(x0.size)
-    for tx, ty, tz, j in tris:
-        w = tx * Sx + ty * Sy + tz * Sz  # triangle area projected on S, times |S|
-        wsum += w
-        cx += w * (x0 + x[j] + x[j + 1])
-        cy += w * (y0 + y[j] + y[j + 1])
-        cz += w * (z0 + z[j] + z[j + 1])
-    wsum *= 3.0
-    with np.errstate(invalid="ignore", divide="ignore"):
-        cx /= wsum
-        cy /= wsum
-        cz /= wsum
-    bad = ~(np.isfinite(cx) & np.isfinite(cy) & np.isfinite(cz))
-    if bad.any():  # zero-area faces: vertex average
-        for c, v in ((cx, x), (cy, y), (cz, z)):
-            c[bad] = sum(vv[bad] for vv in v) / k
-    return Sx, Sy, Sz, cx, cy, cz, W
-
-
-def face_geometry(points: np.ndarray, faces) -> tuple[np.ndarray, np.ndarray]:
-    """Area vectors (M×3, m², orientation from the vertex order by the
-    right-hand rule) and centroids (M×3, m) of polygonal faces, float64.
-
-    ``faces``: (M, k) vertex indices or ``(offsets, connectivity)``.
-    The area vector is exact for any polygon (½ Σ p_i × p_{i+1}); the centroid
-    is exact for planar polygons.
-    """
-    fc = _Faces(faces)
-    if fc.block is not None and fc.block.shape[1] < 3:
-        raise UserError(expected="faces with at least 3 vertices", got=f"{fc.block.shape[1]}-vertex faces", key="faces",
-                        fix="give a polygonal surface (lines and points carry no area)")
-    X, Y, Z = _coords(points, np.zeros(3))
-    S = np.empty((fc.m, 3))
-    C = np.empty((fc.m, 3))
-    for g in fc.groups:
-        n, index = g[1], g[2]
-        for lo in range(0, n, CHUNK):
-            hi = min(lo + CHUNK, n)
-            sel = slice(lo, hi) if index is None else index[lo:hi]
-            Sx, Sy, Sz, cx, cy, cz, _ = _polygons(X, Y, Z, fc.rows(g, lo, hi))
-            S[sel, 0], S[sel, 1], S[sel, 2] = Sx, Sy, Sz
-            C[sel, 0], C[sel, 1], C[sel, 2] = cx, cy, cz
-    return S, C
-
-
-def closure(area_vectors: np.ndarray) -> float:
-    """How open a surface is: |Σ S| / Σ |S| (dimensionless, 0 for a closed
-    surface, up to 1 for a flat patch). A closed surface's integral of a
-    uniform pressure vanishes (Gauss's divergence theorem)."""
-    S = np.asarray(area_vectors, dtype=np.float64)
-    tot = float(np.linalg.norm(S, axis=1).sum())
-    return float(np.linalg.norm(S.sum(axis=0)) / tot) if tot > 0 else 1.0
-
 
 
 # --------------------------------------------------------------------------- checks
@@ -411,79 +211,80 @@ def _sums_by_part(pa, n_parts, Sx, Sy, Sz, cx, cy, cz, mag, pc, T) -> np.ndarray
     return out
 
 
-def integrate_forces(
-    points: np.ndarray | None = None,
-    faces=None,
-    pressure: np.ndarray | None = None,
-    shear: np.ndarray | None = None,
-    *,
-    area_vectors: np.ndarray | None = None,
-    centroids: np.ndarray | None = None,
-    rho: float = 1.0,
-    p_ref: float = 0.0,
-    about: Sequence[float] = (0.0, 0.0, 0.0),
-    normals: str = "into_body",
-    shear_on: str = "fluid",
-    kinematic: bool = True,
-    part_ids: np.ndarray | None = None,
-    part_names: Sequence[str] | None = None,
-    allow_nonfinite: bool = False,
-    allow_degenerate: bool = False,
-) -> ForceResult:
-    """Force and moment on a body from face pressure and wall shear stress.
+@dataclass(frozen=True)
+class ForceSettings:
+    """How the face values are to be read (see the module doc).
 
-    Parameters
-    ----------
-    points : (N, 3) vertex coordinates, m (any float dtype).
-    faces : (M, k) vertex indices or ``(offsets, connectivity)``; the vertex
-        order gives each face's area vector by the right-hand rule. Instead of
-        ``points``/``faces``, give ``area_vectors`` (M, 3, m²) and
-        ``centroids`` (M, 3, m).
-    pressure : (M,) face pressure: kinematic p/ρ (m²/s²) when ``kinematic``,
-        else static (Pa). Face (cell) data, not point data.
-    shear : (M, 3) face wall shear stress, same form as the pressure, or None
-        (inviscid: no viscous force).
-    rho : density ρ, kg/m³ (used only when ``kinematic``).
-    p_ref : reference pressure (Pa, static) subtracted before integration.
-    about : moment reference point r_0, m.
-    normals : ``"into_body"`` (the solver's) or ``"out_of_body"``: where the
-        area vectors point.
-    shear_on : ``"fluid"`` (the solver's ``wallShearStress``) or ``"wall"``.
-    kinematic : whether ``pressure`` and ``shear`` are divided by ρ.
-    part_ids : (M,) non-negative ints; per-part results are returned under
-        the names ``part_names`` (default ``part0``, ``part1`` …).
-    allow_nonfinite : skip faces whose values are NaN/inf instead of refusing.
-    allow_degenerate : accept zero-area faces (they carry no load).
+    ``rho``: density ρ, kg/m³ (used only when ``kinematic``); ``p_ref``:
+    reference pressure (Pa, static) subtracted before integration; ``about``:
+    moment reference point r_0, m; ``normals``: ``"into_body"`` (the
+    solver's) or ``"out_of_body"``, where the area vectors point;
+    ``shear_on``: ``"fluid"`` (the solver's ``wallShearStress``) or
+    ``"wall"``; ``kinematic``: whether pressure and shear are divided by ρ;
+    ``allow_nonfinite``: skip faces whose values are NaN/inf instead of
+    refusing; ``allow_degenerate``: accept zero-area faces (they carry no
+    load)."""
 
-    Returns
-    -------
-    ForceResult, forces in N and moments in N·m about ``about``, in the axes
-    of ``points``. Moments use the face centroids (second-order accurate).
+    rho: float = 1.0
+    p_ref: float = 0.0
+    about: Sequence[float] = (0.0, 0.0, 0.0)
+    normals: str = "into_body"
+    shear_on: str = "fluid"
+    kinematic: bool = True
+    allow_nonfinite: bool = False
+    allow_degenerate: bool = False
 
-    Formula: F = Σ_f [−(p_f − p_ref) n̂_out,f + τ_wall,f] |S_f|,
-    M = Σ_f (c_f − r_0) × dF_f (midpoint rule on the faces). Valid for any
-    polygonal surface; closed or open (see the module notes on p_ref).
-    Faces are processed grouped by vertex count (triangles, quads, then each
-    larger polygon size) in cache-sized chunks; sums are float64.
-    """
-    if normals not in NORMALS:
-        raise UserError(expected=f"normals one of {NORMALS}", got=normals, key="normals")
-    if shear_on not in SHEAR_ON:
-        raise UserError(expected=f"shear_on one of {SHEAR_ON}", got=shear_on, key="shear_on")
-    if pressure is None:
-        raise UserError(expected="a face pressure array", got=None, key="pressure")
-    r0 = np.asarray(about, dtype=np.float64).reshape(3)
+    def __post_init__(self) -> None:
+        if self.normals not in NORMALS:
+            raise UserError(expected=f"normals one of {NORMALS}", got=self.normals, key="normals")
+        if self.shear_on not in SHEAR_ON:
+            raise UserError(expected=f"shear_on one of {SHEAR_ON}", got=self.shear_on, key="shear_on")
+
+
+@dataclass
+class _Source:
+    """The faces to integrate, from points and faces or from area vectors and
+    centroids: their count, their groups, each chunk's geometry relative to
+    the moment point (``geometry(group, lo, hi)`` → Sx, Sy, Sz, cx, cy, cz,
+    |S|²), one face's centroid (``centroid_of(i)``, m) and the bounding box
+    sides (m)."""
+
+    m: int
+    groups: list
+    geometry: object
+    centroid_of: object
+    bb: np.ndarray
+
+
+def _source(points, faces, area_vectors, centroids, r0: np.ndarray) -> _Source:
     if area_vectors is None:
         if points is None or faces is None:
             raise UserError(expected="points and faces, or area_vectors and centroids", got="neither", key="faces")
         fc = _Faces(faces)
-        m = fc.m
-    else:
-        S = np.asarray(area_vectors, dtype=np.float64)
-        if centroids is None:
-            raise UserError(expected="centroids together with area_vectors", got=None, key="centroids")
-        C = np.asarray(centroids, dtype=np.float64)
-        m = S.shape[0]
+        P = np.asarray(points)
+        X, Y, Z = _coords(P, r0)  # coordinates relative to the moment point
+        bb = np.array([v.max() - v.min() for v in (X, Y, Z)]) if P.size and fc.m else np.zeros(3)
+        return _Source(fc.m, fc.groups, lambda g, lo, hi: _polygons(X, Y, Z, fc.rows(g, lo, hi)),
+                       lambda i: np.array(_polygons(X, Y, Z, fc.face_rows(i))[3:6]).ravel() + r0, bb)
+    S = np.asarray(area_vectors, dtype=np.float64)
+    if centroids is None:
+        raise UserError(expected="centroids together with area_vectors", got=None, key="centroids")
+    C = np.asarray(centroids, dtype=np.float64)
+    m = S.shape[0]
+
+    def geometry(g, lo, hi):
+        s, c = S[lo:hi], C[lo:hi]
+        Sx, Sy, Sz = (np.ascontiguousarray(s[:, i]) for i in range(3))
+        return Sx, Sy, Sz, c[:, 0] - r0[0], c[:, 1] - r0[1], c[:, 2] - r0[2], Sx * Sx + Sy * Sy + Sz * Sz
+
+    bb = C.max(axis=0) - C.min(axis=0) if m else np.zeros(3)
+    return _Source(m, [(0, m, None, None, None)], geometry, lambda i: C[i], bb)
+
+
+def _face_values(pressure, shear, m: int) -> tuple[np.ndarray, np.ndarray | None]:
+    """The pressure (M,) and shear (M, 3) arrays, checked against the face count."""
+    if pressure is None:
+        raise UserError(expected="a face pressure array", got=None, key="pressure")
     p = np.asarray(pressure)
     if p.shape != (m,):
         raise UserError(expected=f"one pressure value per face ({m},)", got=f"shape {p.shape}", key="pressure",
@@ -495,66 +296,42 @@ def integrate_forces(
     if m == 0:
         raise UserError(expected="at least one face", got="an empty surface", key="faces",
                         fix="check the patch selection")
+    return p, tau
 
-    if area_vectors is None:
-        P = np.asarray(points)
-        X, Y, Z = _coords(P, r0)  # coordinates relative to the moment point
-        bb = np.array([v.max() - v.min() for v in (X, Y, Z)]) if P.size else np.zeros(3)
-        groups = fc.groups
 
-        def geometry(g, lo, hi):
-            return _polygons(X, Y, Z, fc.rows(g, lo, hi))
+def _parts(part_ids, part_names, m: int) -> tuple[np.ndarray | None, int, list[str]]:
+    """(part id per face or None, number of parts, their names)."""
+    if part_ids is None:
+        return None, 1, []
+    part = np.asarray(part_ids).astype(np.int64, copy=False)
+    if part.shape != (m,) or (part.size and part.min() < 0):
+        raise UserError(expected=f"non-negative part ids, one per face ({m},)", got=f"shape {part.shape}", key="part_ids")
+    n_parts = int(part.max()) + 1 if part.size else 0
+    names = list(part_names) if part_names is not None else [f"part{i}" for i in range(n_parts)]
+    return part, max(n_parts, len(names)), names
 
-        def centroid_of(i):
-            return np.array(_polygons(X, Y, Z, fc.face_rows(i))[3:6]).ravel() + r0
-    else:
-        bb = C.max(axis=0) - C.min(axis=0) if m else np.zeros(3)
-        groups = [(0, m, None, None, None)]
 
-        def geometry(g, lo, hi):
-            s, c = S[lo:hi], C[lo:hi]
-            Sx, Sy, Sz = (np.ascontiguousarray(s[:, i]) for i in range(3))
-            return Sx, Sy, Sz, c[:, 0] - r0[0], c[:, 1] - r0[1], c[:, 2] - r0[2], Sx * Sx + Sy * Sy + Sz * Sz
-
-        def centroid_of(i):
-            return C[i]
-    tiny_area = DEGENERATE_REL_AREA * float(bb @ bb)
-
-    skip = _check_finite("pressure", p, centroid_of, allow_nonfinite)
-    if tau is not None:
-        s2 = _check_finite("shear", tau, centroid_of, allow_nonfinite)
-        skip = s2 if skip is None else (skip | s2 if s2 is not None else skip)
-
-    scale = float(rho) if kinematic else 1.0
-    sgn_n = 1.0 if normals == "into_body" else -1.0   # S·sgn_n points into the body
-    sgn_t = -1.0 if shear_on == "fluid" else 1.0       # τ·sgn_t acts on the wall
-
-    if part_ids is not None:
-        part = np.asarray(part_ids).astype(np.int64, copy=False)
-        if part.shape != (m,) or (part.size and part.min() < 0):
-            raise UserError(expected=f"non-negative part ids, one per face ({m},)", got=f"shape {part.shape}", key="part_ids")
-        n_parts = int(part.max()) + 1 if part.size else 0
-        names = list(part_names) if part_names is not None else [f"part{i}" for i in range(n_parts)]
-        n_parts = max(n_parts, len(names))
-    else:
-        part, n_parts, names = None, 1, []
+def _accumulate(src: _Source, p, tau, skip, part, n_parts: int, scale: float, p_ref: float,
+                tiny_area: float) -> tuple[np.ndarray, int, tuple | None]:
+    """The (n_parts, _NSUM) sums over every face, chunk by chunk (float64),
+    with the count of degenerate faces and the first one (index, centroid
+    relative to the moment point)."""
     split = part is not None and n_parts > 1  # else every face is in part 0
-
     acc = np.zeros((n_parts, _NSUM))
     n_degenerate, first_degenerate = 0, None
-    for g in groups:
+    for g in src.groups:
         n, index = g[1], g[2]
         for lo in range(0, n, CHUNK):
             hi = min(lo + CHUNK, n)
             sel = slice(lo, hi) if index is None else index[lo:hi]
-            Sx, Sy, Sz, cx, cy, cz, W = geometry(g, lo, hi)
+            Sx, Sy, Sz, cx, cy, cz, W = src.geometry(g, lo, hi)
             mag = np.sqrt(W)
             deg = mag <= tiny_area
             if deg.any():
                 i = int(np.flatnonzero(deg)[0])
                 i_in = lo + i if index is None else int(index[lo + i])
                 if first_degenerate is None or i_in < first_degenerate[0]:
-                    first_degenerate = (i_in, np.array([cx[i], cy[i], cz[i]]) + r0)
+                    first_degenerate = (i_in, np.array([cx[i], cy[i], cz[i]]))
                 n_degenerate += int(deg.sum())
             pc = p[sel].astype(np.float64) * scale - p_ref  # gauge pressure, Pa (a new array)
             # τ as a new contiguous (3, n) float64 array
@@ -576,14 +353,73 @@ def integrate_forces(
                     acc[pa[a]] += _sums(*(None if v is None else v[..., a:b] for v in args))
             else:
                 acc += _sums_by_part(pa, n_parts, *args)
-    if n_degenerate and not allow_degenerate:
+    return acc, n_degenerate, first_degenerate
+
+
+def integrate_forces(
+    points: np.ndarray | None = None,
+    faces=None,
+    pressure: np.ndarray | None = None,
+    shear: np.ndarray | None = None,
+    settings: ForceSettings = ForceSettings(),
+    *,
+    area_vectors: np.ndarray | None = None,
+    centroids: np.ndarray | None = None,
+    part_ids: np.ndarray | None = None,
+    part_names: Sequence[str] | None = None,
+) -> ForceResult:
+    """Force and moment on a body from face pressure and wall shear stress.
+
+    Parameters
+    ----------
+    points : (N, 3) vertex coordinates, m (any float dtype).
+    faces : (M, k) vertex indices or ``(offsets, connectivity)``; the vertex
+        order gives each face's area vector by the right-hand rule. Instead of
+        ``points``/``faces``, give ``area_vectors`` (M, 3, m²) and
+        ``centroids`` (M, 3, m).
+    pressure : (M,) face pressure: kinematic p/ρ (m²/s²) when
+        ``settings.kinematic``, else static (Pa). Face (cell) data, not point data.
+    shear : (M, 3) face wall shear stress, same form as the pressure, or None
+        (inviscid: no viscous force).
+    settings : :class:`ForceSettings` (density, reference pressure, moment
+        point, orientation conventions, what to accept).
+    part_ids : (M,) non-negative ints; per-part results are returned under
+        the names ``part_names`` (default ``part0``, ``part1`` …).
+
+    Returns
+    -------
+    ForceResult, forces in N and moments in N·m about ``settings.about``, in
+    the axes of ``points``. Moments use the face centroids (second-order
+    accurate).
+
+    Formula: F = Σ_f [−(p_f − p_ref) n̂_out,f + τ_wall,f] |S_f|,
+    M = Σ_f (c_f − r_0) × dF_f (midpoint rule on the faces). Valid for any
+    polygonal surface; closed or open (see the module notes on p_ref).
+    Faces are processed grouped by vertex count (triangles, quads, then each
+    larger polygon size) in cache-sized chunks; sums are float64.
+    """
+    st = settings
+    r0 = np.asarray(st.about, dtype=np.float64).reshape(3)
+    src = _source(points, faces, area_vectors, centroids, r0)
+    m = src.m
+    p, tau = _face_values(pressure, shear, m)
+    skip = _check_finite("pressure", p, src.centroid_of, st.allow_nonfinite)
+    if tau is not None:
+        s2 = _check_finite("shear", tau, src.centroid_of, st.allow_nonfinite)
+        skip = s2 if skip is None else (skip | s2 if s2 is not None else skip)
+    part, n_parts, names = _parts(part_ids, part_names, m)
+    scale = float(st.rho) if st.kinematic else 1.0
+    acc, n_degenerate, first_degenerate = _accumulate(src, p, tau, skip, part, n_parts, scale, st.p_ref,
+                                                      DEGENERATE_REL_AREA * float(src.bb @ src.bb))
+    if n_degenerate and not st.allow_degenerate:
         i, ci = first_degenerate
+        ci = ci + r0
         raise UserError(
             expected="faces of non-zero area", got=f"{n_degenerate} zero-area (degenerate) face(s) of {m}; "
             f"first at face {i}, centroid ({ci[0]:.6g}, {ci[1]:.6g}, {ci[2]:.6g}) m",
             key="faces", fix="clean the surface (merge duplicate points, drop collapsed faces) before integrating")
-    acc[:, 0:6] *= sgn_n
-    acc[:, 6:12] *= scale * sgn_t
+    acc[:, 0:6] *= 1.0 if st.normals == "into_body" else -1.0   # S·sgn points into the body
+    acc[:, 6:12] *= scale * (-1.0 if st.shear_on == "fluid" else 1.0)  # τ·sgn acts on the wall
     Fp, Mp, Fv, Mv, A = acc[:, 0:3], acc[:, 3:6], acc[:, 6:9], acc[:, 9:12], acc[:, 12]
     total_area = float(np.sum(A))
     opening = float(np.linalg.norm(acc[:, 13:16].sum(axis=0)) / total_area) if total_area > 0 else 1.0

@@ -310,6 +310,12 @@ def lsq_gradient_operator(
     """Assemble the weighted least-squares gradient operator (see module
     docstring for the formula, exactness for linear fields and citations).
 
+    Long because: the assembly is one pass over memory-bounded row blocks
+    (stencil, widening of ill-posed stencils, splicing of the wider rows,
+    coefficients) whose intermediate arrays are shared between the steps;
+    cut into functions they would have to be handed over whole, doubling
+    the peak memory on large meshes. Each step is a helper above.
+
     Parameters
     ----------
     centres : (N, 3) cell centres (m, mesh frame; the points where the cell

@@ -1,5 +1,6 @@
 """Plain-array plane sections and surface patches, with their geometry
-(polygon areas, centroids, normals) and connectivity. Pure numpy/scipy.
+(polygon areas, centroids, normals: :func:`postproc.kernels.polygons.face_geometry`)
+and connectivity. Pure numpy/scipy.
 
 Axes: the mesh frame (underfloor: body frame, x rearward, y right, z up, m).
 A station is the plane ``x_axis = value``; its polygons are the cut cells,
@@ -13,43 +14,7 @@ import numpy as np
 import scipy.sparse as sp
 from scipy.sparse.csgraph import connected_components
 
-
-def _fan(points: np.ndarray, offsets: np.ndarray, conn: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Area vectors (M, 3) and area-weighted centroids (M, 3) of polygons by
-    fan triangulation from the first vertex (exact for planar polygons,
-    convex or not, when the first vertex sees all edges; the solver's cut
-    polygons and patch faces are convex)."""
-    m = offsets.size - 1
-    counts = np.diff(offsets)
-    avec = np.zeros((m, 3))
-    cen = np.zeros((m, 3))
-    if m == 0:
-        return avec, cen
-    p0 = points[conn[offsets[:-1]]]
-    for c in np.unique(counts):
-        if c < 3:
-            continue
-        rows = np.flatnonzero(counts == c)
-        base = offsets[rows]
-        a0 = p0[rows]
-        acc = np.zeros((rows.size, 3))
-        cacc = np.zeros((rows.size, 3))
-        for s in range(1, c - 1):
-            b = points[conn[base + s]]
-            d = points[conn[base + s + 1]]
-            tri = 0.5 * np.cross(b - a0, d - a0)
-            acc += tri
-            w = np.linalg.norm(tri, axis=1)
-            cacc += w[:, None] * (a0 + b + d) / 3.0
-        avec[rows] = acc
-        tot = np.zeros(rows.size)
-        for s in range(1, c - 1):
-            b = points[conn[base + s]]
-            d = points[conn[base + s + 1]]
-            tot += 0.5 * np.linalg.norm(np.cross(b - a0, d - a0), axis=1)
-        with np.errstate(invalid="ignore", divide="ignore"):
-            cen[rows] = np.where(tot[:, None] > 0, cacc / tot[:, None], a0)
-    return avec, cen
+from postproc.kernels.polygons import face_geometry
 
 
 def polygon_components(offsets: np.ndarray, conn: np.ndarray, mask: np.ndarray, n_points: int) -> tuple[int, np.ndarray]:
@@ -94,7 +59,7 @@ class PlaneSection:
     centroids: np.ndarray = field(init=False)
 
     def __post_init__(self) -> None:
-        avec, cen = _fan(self.points, self.offsets, self.connectivity)
+        avec, cen = face_geometry(self.points, (self.offsets, self.connectivity))
         self.areas = np.abs(avec[:, self.axis]) if avec.size else np.zeros(0)
         self.centroids = cen
 
@@ -135,7 +100,7 @@ class PlaneSection:
 
 
 @dataclass
-class Surface:
+class SurfacePatch:
     """A boundary patch as plain arrays: points (P, 3) m, polygons (VTK
     layout), cell data and point data by name. ``areas`` (m²), ``normals``
     (unit, polygon winding orientation) and ``centroids`` (m) are computed on
@@ -152,7 +117,7 @@ class Surface:
     centroids: np.ndarray = field(init=False)
 
     def __post_init__(self) -> None:
-        avec, cen = _fan(self.points, self.offsets, self.connectivity)
+        avec, cen = face_geometry(self.points, (self.offsets, self.connectivity))
         a = np.linalg.norm(avec, axis=1)
         self.areas = a
         with np.errstate(invalid="ignore", divide="ignore"):

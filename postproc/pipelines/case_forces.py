@@ -1,51 +1,126 @@
-"""One case or surface file → the forces report (loads, coefficients,
-balance, convergence) as a JSON-ready dict.
+"""One case or surface file → its forces report (loads, coefficients,
+balance, convergence) as a frozen :class:`ForcesReport`.
 
 Glue between the readers (I/O), the force kernel, the coefficient and balance
-reductions and the runtime-monitor convergence check; used by the
-``postproc forces`` command and by the sweep post-processing. Loads are in
-the case's mesh frame (the body frame: x rearward, y right, z up), N and
-N·m; coefficients as in :mod:`postproc.kernels.coefficients`.
+reductions and the one convergence rule; used by the ``postproc forces``
+command and by the sweep post-processing. What to read and how is one
+:class:`ForcesOptions`. Loads are in the case's mesh frame (the body frame:
+x rearward, y right, z up), N and N·m; coefficients as in
+:mod:`postproc.kernels.coefficients`.
 """
 from __future__ import annotations
 
-from caseprep.contract.convergence import DEFAULT_OPTIONS, ConvergenceOptions, assess_force_monitor
+from dataclasses import dataclass, field, replace
+from pathlib import Path
+from typing import Any
+
+from caseprep.contract.convergence import DEFAULT_OPTIONS, Assessment, ConvergenceOptions, assess_force_monitor
 from caseprep.contract.errors import UserError
+from caseprep.contract.frames import axes_rotations, axle_axes
+from caseprep.contract.manifest import CaseRecord, find_case_manifest
+from postproc.io.exports import latest_export
+from postproc.io.surfaces import SurfaceMesh, read_surface
+from postproc.kernels import coefficients as co
+from postproc.kernels.forces import ForceResult, ForceSettings, integrate_forces
+
+Vec3 = tuple[float, float, float]
 
 
-def _vec3(v) -> tuple[float, float, float] | None:
-    return None if v is None or len(v) == 0 else tuple(float(x) for x in v)
+@dataclass(frozen=True)
+class ForcesOptions:
+    """How to read and reduce a surface (the options of ``postproc forces``).
+
+    ``patches``: names or globs of the body patches (default: the manifest's
+    body and wheel patches, or every part of a file). ``rho`` kg/m³ (default
+    the manifest's); ``kinematic``: pressure and shear stored as p/ρ (m²/s²);
+    ``normals``: ``into_body`` or ``out_of_body``; ``shear_on``: ``fluid`` or
+    ``wall``; ``p_ref`` Pa subtracted (default the manifest's, else 0);
+    ``about``: moment point, m, body frame (default the manifest's, else the
+    origin); field names; ``no_shear``: pressure only; ``allow_nonfinite``
+    and ``allow_open`` accept what is otherwise refused. Reference values
+    (m², m, m/s, m; points body frame, m) override the manifest's.
+    ``window``: monitor samples judged (default the settling window);
+    ``convergence``: the thresholds of the one convergence rule.
+    """
+
+    patches: tuple[str, ...] = ()
+    rho: float | None = None
+    kinematic: bool = True
+    normals: str = "into_body"
+    shear_on: str = "fluid"
+    p_ref: float | None = None
+    about: Vec3 | None = None
+    pressure_field: str = "p"
+    shear_field: str = "wallShearStress"
+    no_shear: bool = False
+    allow_nonfinite: bool = False
+    allow_open: bool = False
+    area: float | None = None
+    length: float | None = None
+    speed: float | None = None
+    wheelbase: float | None = None
+    front_axle: Vec3 | None = None
+    rear_axle: Vec3 | None = None
+    cog: Vec3 | None = None
+    window: int | None = None
+    convergence: ConvergenceOptions = DEFAULT_OPTIONS
 
 
-def forces_report(target: str, patches: tuple[str, ...] = (), rho: float | None = None, kinematic: bool = True,
-               normals: str = "into_body", shear_on: str = "fluid", p_ref: float | None = None,
-               about: tuple[float, float, float] | None = None, pressure_field: str = "p",
-               shear_field: str = "wallShearStress", no_shear: bool = False, allow_nonfinite: bool = False,
-               allow_open: bool = False, area: float | None = None, length: float | None = None,
-               speed: float | None = None, wheelbase: float | None = None, front_axle=None, rear_axle=None,
-               cog=None, window: int | None = None, convergence: ConvergenceOptions = DEFAULT_OPTIONS) -> dict:
-    """Read, integrate and reduce one surface or case; returns the JSON-ready
-    report (see ``postproc forces --help``). Raises UserError on bad input.
+@dataclass(frozen=True)
+class ForcesReport:
+    """The forces of one case or file: where they come from (``source``,
+    ``time``, ``patches``, ``settings`` as used), the integrated loads
+    (``result``, N and N·m about ``result.about``, body frame), the open
+    fraction |ΣS|/Σ|S| (``closure``), and — when reference values are known —
+    the ``reference`` values, ``coefficients`` and ``balance``; the verdict of
+    the runtime force monitor (``convergence``) for a case folder; ``notes``."""
 
-    The runtime force monitor is judged by the one convergence rule
-    (:func:`caseprep.contract.convergence.assess_force_monitor` with
-    ``convergence``, over ``window`` samples, default its settling window),
-    as the runner and the sweep judge it."""
-    from pathlib import Path
+    source: str
+    time: float | None
+    patches: tuple[str, ...]
+    settings: dict[str, Any]
+    result: ForceResult
+    closure: float
+    notes: tuple[str, ...] = ()
+    show_parts: bool = True
+    reference: co.ReferenceValues | None = None
+    coefficients: co.Coefficients | None = None
+    balance: co.Balance | None = None
+    convergence: Assessment | None = None
 
-    from caseprep.contract.frames import axes_rotations, axle_axes
-    from caseprep.contract.manifest import find_case_manifest
+    def to_dict(self) -> dict[str, Any]:
+        """The JSON form (``postproc forces --json``, ``results/<case>.json``)."""
+        out = {"source": self.source, "time": self.time, "patches": list(self.patches), "settings": dict(self.settings),
+               **self.result.to_dict(), "closure": self.closure, "notes": list(self.notes)}
+        if not self.show_parts:
+            out.pop("parts", None)
+        if self.reference is not None:
+            rv = self.reference
+            out["reference"] = {"area": rv.area, "length": rv.length, "rho": rv.rho, "speed": rv.speed, "q": rv.q,
+                                "moment_point": list(rv.moment_point)}
+            out["coefficients"] = self.coefficients.to_dict()
+        if self.balance is not None:
+            out["balance"] = self.balance.to_dict()
+        if self.convergence is not None:
+            out["convergence"] = self.convergence.to_dict()
+        return out
 
-    from postproc.kernels import coefficients as co
-    from postproc.kernels.forces import integrate_forces
-    from postproc.io.exports import latest_export
-    from postproc.io.surfaces import read_surface
 
+@dataclass(frozen=True)
+class _Source:
+    """What a target resolves to: the VTK file, the case folder and its manifest record."""
+
+    vtk_file: Path
+    case_dir: Path | None = None
+    record: CaseRecord | None = None
+    patches: tuple[str, ...] = field(default=())
+
+
+def _locate(target: str, patches: tuple[str, ...]) -> _Source:
+    """A case folder (its newest export; the manifest's body and wheel
+    patches unless ``patches`` are given) or a VTK file."""
     path = Path(target)
-    record = None
-    case_dir = None
     if path.is_dir():
-        case_dir = path
         found = find_case_manifest(path)
         record = found[1] if found else None
         vtk_file = latest_export(path)
@@ -55,78 +130,105 @@ def forces_report(target: str, patches: tuple[str, ...] = (), rho: float | None 
                 raise UserError(expected="body patches listed in the manifest", got="an empty list",
                                 key=f"cases[{record.case_id}].patches", fix="give --patches")
             patches = tuple(names)
+        src = _Source(vtk_file, path, record, patches)
     elif path.exists():
-        vtk_file = path
+        src = _Source(path, patches=patches)
     else:
         raise UserError(expected="a VTK file or a case folder", got=str(path), fix="check the path")
-    if patches is not None and any(not p.strip() for p in patches):
+    if any(not p.strip() for p in src.patches):
         raise UserError(expected="non-empty patch names or patterns", got="an empty --patches value", key="--patches")
-    wanted = [pressure_field] + ([] if no_shear else [shear_field])
-    surf = read_surface(vtk_file, list(patches) or None, arrays=wanted)  # only the arrays used
-    ref = record.reference if record is not None else None
-    if rho is None and ref is not None:
-        rho = ref.rho
-    if kinematic and rho is None:
-        raise UserError(expected="a density for kinematic pressure (p/ρ, m²/s²)", got="none", key="--rho",
-                        fix="give --rho (kg/m³), or --static when the file holds pressure in Pa")
-    if p_ref is None:
-        p_ref = ref.p_ref if ref is not None else 0.0
-    if about is None:
-        about = tuple(ref.moment_point) if ref is not None else (0.0, 0.0, 0.0)
-    p = surf.array(pressure_field)
-    tau = None if no_shear else surf.array(shear_field)
+    return src
+
+
+def _integrate(surf: SurfaceMesh, opt: ForcesOptions) -> ForceResult:
+    """The loads on ``surf``; refuses an open surface with a non-zero p_ref
+    unless ``allow_open`` (its force would depend on p_ref)."""
+    p = surf.array(opt.pressure_field)
+    tau = None if opt.no_shear else surf.array(opt.shear_field)
     try:
-        res = integrate_forces(surf.points, surf.faces, p, tau, rho=rho or 1.0, p_ref=p_ref,
-                               about=about, normals=normals, shear_on=shear_on, kinematic=kinematic,
-                               part_ids=surf.part_ids, part_names=surf.part_names, allow_nonfinite=allow_nonfinite)
+        settings = ForceSettings(rho=opt.rho or 1.0, p_ref=opt.p_ref, about=opt.about, normals=opt.normals,
+                                 shear_on=opt.shear_on, kinematic=opt.kinematic, allow_nonfinite=opt.allow_nonfinite)
+        res = integrate_forces(surf.points, surf.faces, p, tau, settings, part_ids=surf.part_ids,
+                               part_names=surf.part_names)
         opening = res.open_fraction
-        if p_ref != 0.0 and opening > 1e-9 and not allow_open:
+        if opt.p_ref != 0.0 and opening > 1e-9 and not opt.allow_open:
             raise UserError(
                 expected="a closed surface when a non-zero reference pressure is subtracted",
-                got=f"an open surface (|ΣS|/Σ|S| = {opening:.3g}) with p_ref = {p_ref:g} Pa",
+                got=f"an open surface (|ΣS|/Σ|S| = {opening:.3g}) with p_ref = {opt.p_ref:g} Pa",
                 key="--p-ref", fix="an open patch's force depends on p_ref; use --p-ref 0 (the solver's gauge), "
                 "select the whole closed body, or accept it with --allow-open")
     except UserError as exc:
         raise UserError(f"{surf.source}: {exc}") from None
-    out = {
-        "source": str(vtk_file), "time": surf.time, "patches": list(surf.part_names),
-        "settings": {"rho": rho, "kinematic": kinematic, "normals": normals, "shear_on": shear_on, "p_ref": p_ref,
-                     "pressure_field": pressure_field, "shear_field": None if no_shear else shear_field,
-                     "frame": "body (mesh frame)" if record is not None else "file frame"},
-        **res.to_dict(), "closure": opening, "notes": list(surf.notes),
-    }
-    if record is None and len(surf.part_names) == 1:
-        out.pop("parts", None)
-    # reference values: manifest, overridden by options
-    rv = None
-    if ref is not None or (area and length and speed):
-        base = co.ReferenceValues.from_reference(ref) if ref is not None else None
-        kw = dict(base.__dict__) if base is not None else {"moment_point": tuple(about)}
-        for k, v in (("area", area), ("length", length), ("speed", speed), ("wheelbase", wheelbase),
-                     ("front_axle", _vec3(front_axle)), ("rear_axle", _vec3(rear_axle)), ("cog", _vec3(cog))):
-            if v is not None:
-                kw[k] = v
-        if kw.get("rho") is None:
-            kw["rho"] = rho
-        if kw.get("rho") is None:
-            raise UserError(expected="a density for the dynamic pressure", got="none", key="--rho",
-                            fix="give --rho (kg/m³) with --area/--length/--speed")
-        if "area" in kw and "length" in kw and "speed" in kw:
-            rv = co.ReferenceValues(**kw)
+    return res
+
+
+def _reference_values(ref, opt: ForcesOptions) -> co.ReferenceValues | None:
+    """The manifest's reference values overridden by the options; None
+    without an area, length and speed."""
+    if ref is None and not (opt.area and opt.length and opt.speed):
+        return None
+    base = co.ReferenceValues.from_reference(ref) if ref is not None else None
+    kw = dict(base.__dict__) if base is not None else {"moment_point": tuple(opt.about)}
+    for k in ("area", "length", "speed", "wheelbase"):
+        if getattr(opt, k) is not None:
+            kw[k] = getattr(opt, k)
+    for k in ("front_axle", "rear_axle", "cog"):
+        if getattr(opt, k):
+            kw[k] = tuple(float(x) for x in getattr(opt, k))
+    if kw.get("rho") is None:
+        kw["rho"] = opt.rho
+    if kw.get("rho") is None:
+        raise UserError(expected="a density for the dynamic pressure", got="none", key="--rho",
+                        fix="give --rho (kg/m³) with --area/--length/--speed")
+    return co.ReferenceValues(**kw) if "area" in kw and "length" in kw and "speed" in kw else None
+
+
+def forces_report(target: str, options: ForcesOptions = ForcesOptions()) -> ForcesReport:
+    """Read, integrate and reduce one surface file or case folder
+    (``target``) as ``options`` say; returns the :class:`ForcesReport`.
+    Raises UserError on bad input.
+
+    The runtime force monitor of a case folder is judged by the one
+    convergence rule (:func:`caseprep.contract.convergence.assess_force_monitor`
+    with ``options.convergence`` over ``options.window`` samples, default its
+    settling window), as the runner and the sweep judge it."""
+    src = _locate(target, tuple(options.patches))
+    record = src.record
+    ref = record.reference if record is not None else None
+    opt = options
+    wanted = [opt.pressure_field] + ([] if opt.no_shear else [opt.shear_field])
+    surf = read_surface(src.vtk_file, list(src.patches) or None, arrays=wanted)  # only the arrays used
+    rho = opt.rho if opt.rho is not None or ref is None else ref.rho
+    if opt.kinematic and rho is None:
+        raise UserError(expected="a density for kinematic pressure (p/ρ, m²/s²)", got="none", key="--rho",
+                        fix="give --rho (kg/m³), or --static when the file holds pressure in Pa")
+    p_ref = opt.p_ref if opt.p_ref is not None else (ref.p_ref if ref is not None else 0.0)
+    about = opt.about if opt.about is not None else (tuple(ref.moment_point) if ref is not None else (0.0, 0.0, 0.0))
+    opt = replace(opt, rho=rho, p_ref=p_ref, about=tuple(about))
+    res = _integrate(surf, opt)
+    notes = list(surf.notes)
+    settings = {"rho": rho, "kinematic": opt.kinematic, "normals": opt.normals, "shear_on": opt.shear_on,
+                "p_ref": p_ref, "pressure_field": opt.pressure_field,
+                "shear_field": None if opt.no_shear else opt.shear_field,
+                "frame": "body (mesh frame)" if record is not None else "file frame"}
+    rv = _reference_values(ref, opt)
+    coefficients = balance = None
     if rv is not None:
         placement = record.placement if record is not None else None
         wind = record.wind_direction_body if record is not None else None
-        out["reference"] = {"area": rv.area, "length": rv.length, "rho": rv.rho, "speed": rv.speed, "q": rv.q,
-                            "moment_point": list(rv.moment_point)}
-        out["coefficients"] = co.coefficients(res, rv, axes_rotations(placement, wind)).to_dict()
+        coefficients = co.coefficients(res, rv, axes_rotations(placement, wind))
         if record is not None and record.ground == "none":
             # far field: no ground, no axles on it (the manifest's axles are placeholders)
-            out["notes"].append("no ground (far field): axle loads, aero balance and centres of pressure not computed")
+            notes.append("no ground (far field): axle loads, aero balance and centres of pressure not computed")
         elif rv.front_axle is not None and rv.rear_axle is not None:
-            out["balance"] = co.balance(res, rv, axle_axes(placement)).to_dict()
-    if case_dir is not None and (case_dir / "postProcessing").is_dir():
+            balance = co.balance(res, rv, axle_axes(placement))
+    verdict = None
+    if src.case_dir is not None and (src.case_dir / "postProcessing").is_dir():
         try:
-            out["convergence"] = assess_force_monitor(case_dir, window=window, options=convergence).to_dict()
+            verdict = assess_force_monitor(src.case_dir, window=opt.window, options=opt.convergence)
         except UserError as exc:
-            out["notes"].append(f"convergence not assessed: {exc}")
-    return out
+            notes.append(f"convergence not assessed: {exc}")
+    return ForcesReport(source=str(src.vtk_file), time=surf.time, patches=tuple(surf.part_names), settings=settings,
+                        result=res, closure=res.open_fraction, notes=tuple(notes),
+                        show_parts=record is not None or len(surf.part_names) != 1, reference=rv,
+                        coefficients=coefficients, balance=balance, convergence=verdict)

@@ -48,17 +48,19 @@ from postproc.io.exports import latest_export
 from postproc.io.surfaces import read_surface
 from postproc.kernels import wallchecks as wc
 from postproc.kernels.aeromap import fit_response_surface, map_grid
-from postproc.kernels.forces import face_geometry
+from postproc.kernels.polygons import face_geometry
 from postproc.kernels.meshstudy import grid_convergence, representative_cell_size
 from postproc.kernels.ranking import CaseResult, VariantScore, rank_variants
-from postproc.pipelines.case_forces import forces_report
+from postproc.pipelines.case_forces import ForcesReport, forces_report
 
 RESULTS_DIR = "results"
 
 @dataclass(frozen=True)
 class CaseOutcome:
-    """One case of the sweep after post-processing: the ranking row, the run
-    status, the flags' explanations and any note."""
+    """One row of the sweep's results: the case's ranking row (``result``),
+    its run status, cell and iteration counts, the monitor's verdict, the
+    prism-layer coverage, notes, the full forces report and the y+
+    statistics per patch. :meth:`row` is its flat form in the tables."""
 
     result: CaseResult
     status: str
@@ -67,9 +69,23 @@ class CaseOutcome:
     convergence: str | None
     layers: str | None = None  # e.g. "body 85 %, strake_left 38 %" (share of the target layer thickness)
     notes: tuple[str, ...] = ()
-    report: dict[str, Any] | None = field(default=None, repr=False)
+    report: ForcesReport | None = field(default=None, repr=False)
     yplus: dict[str, dict] = field(default_factory=dict)
     cell_size: float | None = None  # h = (V/N)^(1/3), m, from the real cell count
+
+    def row(self) -> dict[str, Any]:
+        """The case as one flat row of the results tables (CSV and JSON)."""
+        r = asdict(self.result)
+        r["flags"] = " ".join(self.result.flags)
+        r["downforce_coefficient"] = -self.result.cl if math.isfinite(self.result.cl) else None
+        r.update(status=self.status, cells=self.cells, cell_size_h=self.cell_size, iterations=self.iterations,
+                 convergence=self.convergence, layers=self.layers)
+        if self.yplus:
+            a = self.yplus[ALL_WALLS]  # all body and wheel faces together
+            r.update(yplus_median=a["median"], yplus_p95=a["p95"], yplus_max=a["max"],
+                     yplus_share_in_range=a["share_in_target"], yplus_range="{:g}-{:g}".format(*a["target"]))
+        r["notes"] = "; ".join(self.notes)
+        return r
 
 
 ALL_WALLS = "all body and wheel patches"
@@ -80,11 +96,10 @@ def case_yplus_band(case: CaseRecord) -> tuple[float, float]:
     manifest record names (:data:`caseprep.contract.walls.WALL_TREATMENTS`,
     the table the planner sized the first cell by); records without one get
     their turbulence model's default treatment."""
-    name = case.extra.get("wall_treatment")
     try:
-        return walls.wall_treatment(None if name is None else str(name), case.extra.get("turbulence_model")).band
+        return walls.wall_treatment(case.wall_treatment, case.turbulence_model).band
     except ValueError:
-        return walls.wall_treatment(None, case.extra.get("turbulence_model")).band
+        return walls.wall_treatment(None, case.turbulence_model).band
 
 
 def wall_yplus(case_dir: Path, case: CaseRecord) -> tuple[dict[str, dict], str | None]:
@@ -150,25 +165,24 @@ def process_case(manifest: Manifest, case: CaseRecord) -> CaseOutcome:
     cl = cd = cs = nan
     clf = clr = bal = margin = None
     if report is not None:
-        c = report.get("coefficients")
-        if c:
-            cl, cd, cs = float(c["lift"]), float(c["drag"]), float(c["side"])
+        c = report.coefficients
+        if c is not None:
+            cl, cd, cs = float(c.lift), float(c.drag), float(c.side)
         else:
             flags.append(Flag.FORCES_FAILED)
             notes.append("no reference values in the manifest: coefficients not computed")
-        b = report.get("balance")
-        if b:
-            clf, clr = b.get("c_lift_front"), b.get("c_lift_rear")
-            bal, margin = b.get("balance_front"), b.get("stability_margin")
+        b = report.balance
+        if b is not None:
+            clf, clr = b.c_lift_front, b.c_lift_rear
+            bal, margin = b.balance_front, b.stability_margin
             if abs(base["yaw_deg"]) < 1e-9 and margin is not None:
                 # at zero yaw the side force is numerical noise about zero and its
                 # centre of pressure is meaningless: report no margin
                 margin = None
                 notes.append("zero yaw: no side force to place, stability margin not reported")
-            notes.extend(b.get("notes", []))
-        conv = report.get("convergence")
-        if conv is not None:
-            verdict = conv["verdict"]
+            notes.extend(b.notes)
+        if report.convergence is not None:
+            verdict = report.convergence.verdict
             if verdict == "diverging":
                 flags.append(Flag.FORCES_DRIFTING)
         else:
@@ -190,21 +204,6 @@ def process_case(manifest: Manifest, case: CaseRecord) -> CaseOutcome:
                        notes=tuple(notes), report=report, yplus=yplus, layers=layers)
 
 
-def outcome_row(o: CaseOutcome) -> dict[str, Any]:
-    """A flat dict of one case for the CSV/JSON tables."""
-    r = asdict(o.result)
-    r["flags"] = " ".join(o.result.flags)
-    r["downforce_coefficient"] = -o.result.cl if math.isfinite(o.result.cl) else None
-    r.update(status=o.status, cells=o.cells, cell_size_h=o.cell_size, iterations=o.iterations, convergence=o.convergence,
-             layers=o.layers)
-    if o.yplus:
-        a = o.yplus[ALL_WALLS]  # all body and wheel faces together
-        r.update(yplus_median=a["median"], yplus_p95=a["p95"], yplus_max=a["max"],
-                 yplus_share_in_range=a["share_in_target"], yplus_range="{:g}-{:g}".format(*a["target"]))
-    r["notes"] = "; ".join(o.notes)
-    return r
-
-
 #: nominal cell size of mesh level m relative to level 0: each level scales
 #: every mesh length by 1/√2 (caseprep.planning.domain), so h_m = 2^(−m/2);
 #: used only when a case's real cell count is not known
@@ -216,7 +215,7 @@ def case_cell_size(case: CaseRecord, cells: int | None) -> float | None:
     """h = (V/N)^(1/3) (m) of a case: V the fluid volume its manifest record
     gives (``fluid_volume``, m³), N its real cell count from the run record;
     None when either is missing."""
-    V = case.extra.get("fluid_volume")
+    V = case.fluid_volume
     try:
         return representative_cell_size(float(V), int(cells)) if V is not None and cells else None
     except (TypeError, ValueError):
@@ -375,10 +374,10 @@ def postprocess_sweep(
         outcomes.append(o)
         if o.report is not None:
             write_json_atomic(out / RESULTS_DIR / f"{case.case_id}.json",
-                              json_ready({**o.report, "yplus": o.yplus, "flags": list(o.result.flags)}))
+                              json_ready({**o.report.to_dict(), "yplus": o.yplus, "flags": list(o.result.flags)}))
         if progress is not None:
             progress(i + 1, n, o)
-    rows = [outcome_row(o) for o in outcomes]
+    rows = [o.row() for o in outcomes]
     paths = {
         "csv": out / "results.csv",
         "json": out / "results.json",

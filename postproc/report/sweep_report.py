@@ -162,18 +162,10 @@ def _fmt(x, nd: int = 3) -> str:
     return f"{x:.{nd}f}"
 
 
-def build_context(analysis) -> dict:
-    """Everything the report template needs, as plain strings/lists, from a
-    sweep's analysis data (:class:`postproc.pipelines.sweep.SweepAnalysis`:
-    ``results`` rows, ``ranking``, ``aero_maps``, ``mesh_study``, ``notes``,
-    ``checks`` — per-case run and mesh facts with keys case_id, status,
-    cells, iterations, convergence, yplus_median, yplus_p95,
-    yplus_share_in_range, yplus_range — ``title`` and ``study``). Computes
-    nothing but the layout: no fitting, no ranking."""
-    results = list(analysis.results)
-    scores = list(analysis.ranking)
-    variants = [s.variant for s in scores]
-    ok = [r for r in results if not r.flags]
+def _charts(ok: list, variants: list[str]) -> list[tuple[str, str]]:
+    """(title, inline SVG) of the downforce, drag and balance against mean
+    ride height at the smallest |yaw| and, when several yaw angles were run,
+    of the downforce against yaw, for the unflagged rows ``ok``."""
     charts = []
     # Downforce and balance against mean ride height at zero (smallest |yaw|) per variant
     ymin = min((abs(r.yaw_deg) for r in ok), default=0.0)
@@ -202,6 +194,22 @@ def build_context(analysis) -> dict:
                 by.setdefault(r.yaw_deg, []).append(-r.cl)
             ys.append((v, list(by), [float(np.mean(b)) for b in by.values()]))
         charts.append(("Downforce coefficient against yaw (mean over ride heights)", svg_chart(ys, "yaw β (deg)", "−C_L")))
+    return charts
+
+
+def build_context(analysis) -> dict:
+    """Everything the report template needs, as plain strings/lists, from a
+    sweep's analysis data (:class:`postproc.pipelines.sweep.SweepAnalysis`:
+    ``results`` rows, ``ranking``, ``aero_maps``, ``mesh_study``, ``notes``,
+    ``checks`` — per-case run and mesh facts with keys case_id, status,
+    cells, iterations, convergence, yplus_median, yplus_p95,
+    yplus_share_in_range, yplus_range — ``title`` and ``study``). Computes
+    nothing but the layout: no fitting, no ranking."""
+    results = list(analysis.results)
+    scores = list(analysis.ranking)
+    variants = [s.variant for s in scores]
+    ok = [r for r in results if not r.flags]
+    charts = _charts(ok, variants)
     maps = []
     for m in analysis.aero_maps:
         g = m["grid"]

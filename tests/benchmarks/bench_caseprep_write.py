@@ -24,7 +24,7 @@ sys.path.insert(0, str(HERE.parent.parent))   # repository root
 
 import numpy as np  # noqa: E402
 
-from caseprep.config.schema import load_config  # noqa: E402
+from caseprep.config.load import load_config  # noqa: E402
 from caseprep.planning.planner import plan  # noqa: E402
 from caseprep.casefiles.writer import write_sweep  # noqa: E402
 

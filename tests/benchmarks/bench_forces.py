@@ -25,8 +25,8 @@ import numpy as np
 ROOT = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(ROOT))
 
-from postproc.pipelines.case_forces import forces_report as run_forces  # noqa: E402
-from postproc.kernels.forces import integrate_forces  # noqa: E402
+from postproc.pipelines.case_forces import ForcesOptions, forces_report  # noqa: E402
+from postproc.kernels.forces import ForceSettings, integrate_forces  # noqa: E402
 from postproc.io.surfaces import read_surface  # noqa: E402
 
 
@@ -143,7 +143,7 @@ def main() -> None:
         s = read_surface(f)
         t_vtk, t_ours, (F_vtk, M_vtk), r = interleaved(
             lambda: vtk_route(pd, 1.2),
-            lambda: integrate_forces(s.points, s.faces, s.array("p"), s.array("wallShearStress"), rho=1.2))
+            lambda: integrate_forces(s.points, s.faces, s.array("p"), s.array("wallShearStress"), ForceSettings(rho=1.2)))
         err = np.abs(r.force - F_vtk).max() / np.abs(F_vtk).max()
         err_m = np.abs(r.moment - M_vtk).max() / np.abs(M_vtk).max()
         print(f"faces: {m}")
@@ -151,13 +151,13 @@ def main() -> None:
               f"VTK filters {np.median(t_vtk):.3f} s (min {t_vtk.min():.3f}), "
               f"speed-up {np.median(t_vtk) / np.median(t_ours):.2f}x (target >= 3); "
               f"max rel. difference of the force {err:.1e}, of the moment {err_m:.1e}")
-        t_read, t_cmd, _, _ = interleaved(lambda: read_surface(f), lambda: run_forces(str(f), rho=1.2))
+        t_read, t_cmd, _, _ = interleaved(lambda: read_surface(f), lambda: forces_report(str(f), ForcesOptions(rho=1.2)))
         print(f"whole command (median of 3, interleaved): {np.median(t_cmd):.3f} s (min {t_cmd.min():.3f}), "
               f"read only {np.median(t_read):.3f} s (min {t_read.min():.3f}), "
               f"ratio {np.median(t_cmd) / np.median(t_read):.2f} (target <= 1.3)")
         loaded = sum(a.nbytes for a in (s.points, s.offsets, s.connectivity, s.array("p"), s.array("wallShearStress")))
         tracemalloc.start()
-        integrate_forces(s.points, s.faces, s.array("p"), s.array("wallShearStress"), rho=1.2)
+        integrate_forces(s.points, s.faces, s.array("p"), s.array("wallShearStress"), ForceSettings(rho=1.2))
         _, peak = tracemalloc.get_traced_memory()
         tracemalloc.stop()
         print(f"peak memory of the integration {peak / 1e6:.0f} MB, loaded arrays {loaded / 1e6:.0f} MB, "

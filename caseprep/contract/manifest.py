@@ -48,7 +48,7 @@ CaseRecord::
       "turbulence_model": "kOmegaSST",        # or "laminar"
       "target_yplus": 50.0 | null,            # at the first prism layer's centre; null without layers
       "wall_treatment": "wall-function",      # or "low-re", "laminar" (caseprep.contract.walls): its y+ band
-      "fluid_volume": 259.5,                  # m³: the domain box less the body, for h = (V/N)^(1/3)
+      "fluid_volume": 259.5,                  # m³: the sizing rule's domain box less the body, for h = (V/N)^(1/3)
       "outputs": {"forces": "postProcessing/uf_forces/0/force.dat", …}  # where the run's outputs land
     }
 

@@ -304,8 +304,9 @@ def _box(name: str, origin_b: np.ndarray, axes: np.ndarray, lo: np.ndarray, hi: 
 @dataclass(frozen=True)
 class DomainPlan:
     """Domain, mesh and estimate of one case, plus notes (warnings) and
-    problems (messages for refused cases, without file/key), the gap plan
-    and the underbody facts (``info``: JSON-ready)."""
+    problems (messages for refused cases: what, fix and optionally the
+    config key at fault; without it the point's own key), the gap plan and
+    the underbody facts (``info``: JSON-ready)."""
 
     domain: Domain
     mesh: MeshSpec
@@ -313,9 +314,10 @@ class DomainPlan:
     gap_level: int | None
     estimated_cells: int
     warnings: tuple[str, ...]
-    problems: tuple[tuple[str, str], ...]  # (what is wrong, how to fix it)
+    problems: tuple[tuple[str, ...], ...]  # (what is wrong, how to fix it[, the config key at fault])
     gap: GapPlan | None = None
     info: dict = field(default_factory=dict)
+    nominal_volume: float | None = None  # m³, the domain box of the sizing rule before rounding to whole cells
 
 
 @dataclass(frozen=True)
@@ -419,6 +421,7 @@ class _Section:
     domain: Domain
     problems: tuple[tuple[str, str], ...]
     warnings: tuple[str, ...]
+    nominal_volume: float = 0.0  # m³: the sizing rule's box before rounding to whole cells (the same at every level)
 
 
 def _section(body: BodyExtent, lo, hi, axes, g0, ground: str, sz: DomainSizing, d0: float) -> _Section:
@@ -460,7 +463,8 @@ def _section(body: BodyExtent, lo, hi, axes, g0, ground: str, sz: DomainSizing, 
         warnings.append(f"blockage {100 * blockage:.2f} % is above 1 % (common-practice limit); results carry a blockage effect")
     domain = Domain(box=_box("domain", g0, axes, origin, origin + lens), cells=(int(n[0]), int(n[1]), int(n[2])),
                     ground=ground, blockage=float(blockage))
-    return _Section(origin, lens, (int(n[0]), int(n[1]), int(n[2])), domain, tuple(problems), tuple(warnings))
+    return _Section(origin, lens, (int(n[0]), int(n[1]), int(n[2])), domain, tuple(problems), tuple(warnings),
+                    float(Lx * W * H))
 
 
 def _ground_rectangle(sec: _Section, lo, hi, L: float) -> tuple[int, int, int, int] | None:
@@ -545,7 +549,8 @@ def _underbody(body: BodyExtent, lo, hi, placement: Placement, axes, g0, setting
                     f"{100 * MAX_STACK_SHARE:.0f} %)")
             if lp.treatment == "low-re":
                 problems.append((what + ": the gap cannot hold the low-Re layers",
-                                 'raise the ride height, raise mesh.layer_expansion, or use mesh.wall_treatment = "wall-function"'))
+                                 'raise the ride height, raise mesh.layer_expansion, or use mesh.wall_treatment = "wall-function"',
+                                 "mesh.wall_treatment"))
             else:
                 warnings.append(what + "; the mesher may squash them")
     return _Regions(regions, gp, info, problems, warnings)
@@ -593,11 +598,12 @@ def _layers(lp: LayerPlan | None, settings: MeshSettings, mesh_level: int, d0: f
                              f"{lp.centre_yplus:.3g} at level 0, scaled by 1/√2 per level with every other mesh length), "
                              f"outside the {lp.treatment} band {band[0]:g}–{band[1]:g}: the mesh levels cannot be similar "
                              "and keep the wall treatment",
-                             "use fewer or lower mesh levels, or set mesh.target_yplus so that every level stays in the band"))
+                             "use fewer or lower mesh levels, or set mesh.target_yplus so that every level stays in the band",
+                             "sweep.mesh_level"))
     if lp.n_layers > 40:
         problems.append((f"the {lp.treatment} treatment needs {lp.n_layers} prism layers (first layer "
                          f"{lp.first_height * 1e3:.4f} mm growing by {lp.expansion:g})",
-                         "raise mesh.layer_expansion or use wall functions"))
+                         "raise mesh.layer_expansion or use wall functions", "mesh.layer_expansion"))
     ds = d0 / 2**settings.surface_levels[1]
     T = lp.thickness / scale
     if T > ds:
@@ -649,7 +655,8 @@ def plan_domain(body: BodyExtent, placement: Placement, ground: str, sizing: Dom
     return DomainPlan(domain=domain, mesh=mesh, base_cell=float(d0), gap_level=None if reg.gap is None else reg.gap.level,
                       estimated_cells=estimate_cells(domain, mesh, body.area, ground_layer_area=footprint),
                       warnings=sec.warnings + tuple(reg.warnings) + tuple(layer_warnings),
-                      problems=sec.problems + tuple(layer_problems) + tuple(reg.problems), gap=reg.gap, info=reg.info)
+                      problems=sec.problems + tuple(layer_problems) + tuple(reg.problems), gap=reg.gap, info=reg.info,
+                      nominal_volume=sec.nominal_volume)
 
 
 def ground_grading(height: float, first_cell: float, top_cell: float) -> tuple[int, float, float]:

@@ -470,12 +470,17 @@ def mesh_facts(cfg: Config, dp, body_volume: float, speed: float) -> dict:
     """What a case's mesh is meant to be, for the manifest and ``caseprep
     plan --json``: wall treatment and its y+ band, first-cell height (m) and
     the flat-plate y+ at its centre at this mesh level, the underfloor speed
-    (m/s) it was sized for, the gap plan, and the fluid volume V (m³, the
-    domain box less the body) from which the representative cell size
-    h = (V/N)^(1/3) follows once the cell count N is known."""
+    (m/s) it was sized for, the gap plan, and the fluid volume V (m³) from
+    which the representative cell size h = (V/N)^(1/3) follows once the
+    cell count N is known: the domain box of the sizing rule before its
+    rounding to whole background cells, less the body. That box is the same
+    at every mesh level of a point, so h follows the cell count alone; the
+    meshed box differs from it by less than one background cell per side,
+    whose few large cells bias h by about 0.1 %."""
     L = dp.mesh.layers
     tr = WALL_TREATMENTS[wall_treatment_name(cfg)]
-    V = float(np.prod(dp.domain.box.lengths)) - max(body_volume, 0.0)
+    box = dp.nominal_volume if dp.nominal_volume else float(np.prod(dp.domain.box.lengths))
+    V = float(box) - max(body_volume, 0.0)
     return {
         "wall_treatment": tr.name,
         "yplus_band": list(tr.band),
@@ -522,9 +527,11 @@ def plan_case(cfg: Config, pt: SweepPoint, geoms: dict[str, VariantGeometry], ai
                      local_speed=cfg.air.underfloor_speed_factor * U)
     if dp.problems:
         extra = f" (at {where})" if where else ""
-        msgs = [UserError(f"case {cid} ({cfg.file} at {pt.source}): {what}{extra if 'clearance' in what else ''}", fix=fix,
-                          file=cfg.file, key=pt.source)
-                for what, fix in dp.problems]
+        msgs = []
+        for what, fix, *key in dp.problems:
+            k = key[0] if key else pt.source
+            msgs.append(UserError(f"case {cid} ({cfg.file} at {k}): {what}{extra if 'clearance' in what else ''}", fix=fix,
+                                  file=cfg.file, key=k))
         raise msgs[0] if len(msgs) == 1 else UserErrors(msgs)
     notes.extend(dp.warnings)
     mach, why = mach_note(cfg, air, U)

@@ -38,7 +38,7 @@ from caseprep.contract.errors import UserError  # noqa: E402
 from caseprep.contract.manifest import read_manifest  # noqa: E402
 from caseprep.contract.records import SUMMARY_NAME  # noqa: E402
 from postproc.pipelines.sweep import postprocess_sweep  # noqa: E402
-from postproc.report.sweep_report import write_report  # noqa: E402
+from postproc.report import write_report  # noqa: E402
 
 DEFAULT_CONFIG = HERE / "floor_study" / "sweep.toml"
 SAFETY = ("CFD is an approximation: the numbers depend on the mesh, the turbulence model and the set-up. "
@@ -130,7 +130,7 @@ def main(argv: list[str] | None = None) -> int:
     except UserError as exc:
         return _stop(str(exc), 2)
 
-    say("post-processing every case (forces, coefficients, balance, convergence) …")
+    say("post-processing every case (forces, coefficients, balance, convergence, flow numbers) and the report …")
 
     def post_progress(i, n, o):
         r = o.result
@@ -138,10 +138,12 @@ def main(argv: list[str] | None = None) -> int:
         say(f"  [{i}/{n}] {r.case_id}: {what}" + (f" — flags: {', '.join(r.flags)}" if r.flags else ""))
 
     try:
+        t_post = time.monotonic()
         analysis = postprocess_sweep(sweep_dir, out_dir=out, force=True, progress=post_progress,
                                      title="underfloor demo — example floor study (DEMO data, smoke meshes)")
         paths = analysis.paths
-        write_report(analysis, paths["report"])
+        _, info = write_report(analysis, paths["report"])
+        t_post = time.monotonic() - t_post
     except UserError as exc:
         return _stop(str(exc), 2)
     elapsed = time.monotonic() - t0
@@ -149,8 +151,10 @@ def main(argv: list[str] | None = None) -> int:
     say(runner.format_summary_table(recs))
     failed = [r for r in recs if r.failed]
     say("")
-    say(f"report: {paths['report']}; tables: {paths['csv']}, {paths['json']}; run records: "
-        f"{sweep_dir / SUMMARY_NAME}")
+    say(f"report: {paths['report']} ({info.size / 1e6:.2f} MB; post-processing and report "
+        f"{runner.format_duration(t_post)}, pictures {info.seconds.get('pictures', 0.0):.1f} s"
+        f"{'' if info.backend else ', no pictures: see the report'}); tables: {paths['csv']}, {paths['json']}; "
+        f"run records: {sweep_dir / SUMMARY_NAME}")
     say(f"demo took {runner.format_duration(elapsed)}; {len(recs) - len(failed)} of {len(recs)} case(s) ran"
         + (f", {len(failed)} failed (see above)" if failed else ""))
     say("Caution: " + SAFETY)

@@ -122,18 +122,27 @@ def forces_cmd(target, patches, rho, kinematic, normals, shear_on, p_ref, about,
 @click.option("-o", "--out", "out_dir", type=click.Path(file_okay=False),
               help="Where to write results.csv, results.json, report.html and results/ (default: the sweep folder).")
 @click.option("--title", help="Report title (default from the study name).")
+@click.option("--baseline", help="Variant the pressure-difference pictures compare against (default: the first).")
+@click.option("--picture-ride-height", type=float,
+              help="Front ride height (m) of the pictured point (default: the sweep's median).")
+@click.option("--picture-yaw", type=float, help="Yaw (deg) of the pictured point (default: the smallest |yaw|).")
+@click.option("--no-pictures", is_flag=True, help="No flow pictures (very large sweeps; flow numbers still computed).")
 @click.option("--force", is_flag=True, help="Replace earlier results in the output folder.")
 @click.option("-q", "--quiet", is_flag=True, help="No per-case progress lines.")
-def sweep_cmd(sweep_dir: str, out_dir: str | None, title: str | None, force: bool, quiet: bool) -> None:
+def sweep_cmd(sweep_dir: str, out_dir: str | None, title: str | None, baseline: str | None,
+              picture_ride_height: float | None, picture_yaw: float | None, no_pictures: bool, force: bool,
+              quiet: bool) -> None:
     """Post-process every case of SWEEP_DIR (written by `caseprep write`, run
-    by `caseprep run`): forces, coefficients, aero balance, convergence and
-    the runner's flags → results table, variant ranking and an HTML report.
+    by `caseprep run`): forces, coefficients, aero balance, convergence, the
+    runner's flags and each case's flow numbers → results table, variant
+    ranking and a self-contained HTML report with flow pictures and plots.
 
     Flagged cases (mesh failed, layers collapsed, not converged, not run…)
     are listed and never ranked.
     """
+    from postproc.pipelines.report_data import ReportOptions
     from postproc.pipelines.sweep import postprocess_sweep
-    from postproc.report.sweep_report import write_report
+    from postproc.report import write_report
 
     def progress(i, n, o):
         if quiet:
@@ -142,12 +151,14 @@ def sweep_cmd(sweep_dir: str, out_dir: str | None, title: str | None, force: boo
         what = (f"C_L {r.cl:+.4f}  C_D {r.cd:.4f}" if r.cl == r.cl else "no coefficients")
         click.echo(f"[{i}/{n}] {r.case_id}: {o.status}; {what}" + (f"; flags: {', '.join(r.flags)}" if r.flags else ""))
 
-    analysis = postprocess_sweep(sweep_dir, out_dir, title=title, progress=progress, force=force)
+    opts = ReportOptions(title=title, baseline=baseline, reference_ride_height=picture_ride_height,
+                         reference_yaw_deg=picture_yaw, pictures=not no_pictures)
+    analysis = postprocess_sweep(sweep_dir, out_dir, title=title, progress=progress, force=force, options=opts)
     outcomes, paths = analysis.outcomes, analysis.paths
-    write_report(analysis, paths["report"])
+    _, info = write_report(analysis, paths["report"])
     n_flag = sum(bool(o.result.flags) for o in outcomes)
     click.echo(f"{len(outcomes)} case(s), {n_flag} flagged (not ranked).")
-    click.echo(f"results: {paths['csv']}, {paths['json']}; report: {paths['report']}")
+    click.echo(f"results: {paths['csv']}, {paths['json']}; report: {paths['report']} ({info.size / 1e6:.2f} MB)")
     click.echo("Caution: CFD is an approximation — validate by physical test; run vehicles only where permitted "
                "and safe; defer to local rules and qualified engineers.")
 
@@ -230,26 +241,33 @@ def _print_vortices(d: dict) -> None:
 @main.command("vortices")
 @click.argument("source", type=click.Path())
 @click.option("--stations", help="Comma-separated x stations (m, body frame, x rearward). Default: every 5 % of the reference length from the nose to half a length behind the tail.")
-@click.option("--threshold", "q_star", type=float, default=100.0, show_default=True,
-              help="Core threshold on Q* = Q/(V/L)^2.")
+@click.option("--threshold", "q_star", type=float,
+              help="Core threshold on Q/(V/l)^2 (default 0.01 with the gap scale, 100 with the reference length).")
+@click.option("--q-scale", type=click.Choice(["auto", "gap", "length"]), default="auto", show_default=True,
+              help="Length l normalising Q: the ride height (gap; 'auto' when the manifest gives it) or the "
+                   "reference length L.")
+@click.option("--gap", type=float, help="Gap scale h (m) when there is no sweep manifest.")
 @click.option("--speed", type=float, help="Reference speed V (m/s) when there is no sweep manifest.")
 @click.option("--length", type=float, help="Reference length L (m) when there is no sweep manifest.")
 @click.option("--max-jump", type=float, help="Largest core displacement (m) between stations when linking tracks (default: two station spacings).")
 @click.option("--velocity", default="U", show_default=True, help="Name of the cell velocity array.")
 @click.option("--no-regions", is_flag=True, help="Skip the connected 3D Q-regions.")
 @_with_common
-def vortices_cmd(source, stations, q_star, speed, length, max_jump, velocity, no_regions, as_json, output, force):
+def vortices_cmd(source, stations, q_star, q_scale, gap, speed, length, max_jump, velocity, no_regions, as_json,
+                 output, force):
     """Vortex cores on cross-stream stations (Q-criterion), tracks and 3D Q-regions.
 
     SOURCE: a case folder, VTK/<case>_<time>.vtm or an internal .vtu. Per core:
     centre [x, y, z] (m), sense (+1/-1 about +x), circulation (m^2/s),
     radius (m), peak_q (1/s^2), axial velocity excess.
     """
-    from postproc.pipelines.case_flow import analyse_vortices
+    from postproc.pipelines.case_flow import Q_STAR_DEFAULTS, analyse_vortices, q_normalisation
 
     case = _load(source)
-    res = analyse_vortices(case, stations=_floats(stations, "--stations"), q_star=q_star, speed=speed,
-                           length=length, max_jump=max_jump, regions=not no_regions, velocity=velocity)
+    kind, h = q_normalisation(case, q_scale, gap)
+    res = analyse_vortices(case, stations=_floats(stations, "--stations"),
+                           q_star=q_star if q_star is not None else Q_STAR_DEFAULTS[kind], speed=speed,
+                           length=length, max_jump=max_jump, regions=not no_regions, velocity=velocity, q_length=h)
     payload = {"source": str(case.source), "case_id": case.record.case_id if case.record else None, **res.to_dict()}
     _emit(payload, as_json, output, force, _print_vortices)
 
@@ -360,32 +378,26 @@ def walls_cmd(source, treatment, yplus_range, nu, speed, lines, as_json, output,
 
 @main.command("flow")
 @click.argument("source", type=click.Path())
-@click.option("--threshold", "q_star", type=float, default=100.0, show_default=True, help="Core threshold on Q*.")
+@click.option("--threshold", "q_star", type=float,
+              help="Core threshold on Q/(V/l)^2 (default 0.01 with the gap scale, 100 with the reference length).")
+@click.option("--q-scale", type=click.Choice(["auto", "gap", "length"]), default="auto", show_default=True,
+              help="Length l normalising Q: the ride height (gap; 'auto' when the manifest gives it) or the "
+                   "reference length.")
+@click.option("--gap", type=float, help="Gap scale h (m) when there is no sweep manifest.")
 @click.option("--treatment", type=click.Choice(["wall-function", "low-re", "laminar"]),
               default="wall-function", show_default=True,
               help="Intended wall treatment (its y+ band: wall-function 30-150, low-re and laminar 0-5).")
 @_with_common
-def flow_cmd(source, q_star, treatment, as_json, output, force):
+def flow_cmd(source, q_star, q_scale, gap, treatment, as_json, output, force):
     """All flow-structure results of one case in one JSON: vortices, diffuser
-    (stations found from the floor), underbody Cp and wall checks. A part that
-    cannot be computed is reported with its reason instead."""
-    from caseprep.contract.errors import UserError
-
-    from postproc.pipelines.case_flow import analyse_diffuser, analyse_underbody, analyse_vortices, analyse_walls
+    (stations found from the floor), underbody Cp and wall checks — the same
+    numbers `postproc sweep` puts in its flow columns. A part that cannot be
+    computed is reported with its reason instead."""
+    from postproc.pipelines.case_flow import flow_payload
 
     case = _load(source)
-    payload = {"source": str(case.source), "case_id": case.record.case_id if case.record else None}
-    parts = {
-        "vortices": lambda: analyse_vortices(case, q_star=q_star).to_dict(),
-        "diffuser": lambda: analyse_diffuser(case).to_dict(),
-        "underbody": lambda: analyse_underbody(case),
-        "walls": lambda: analyse_walls(case, target=_yplus_target(treatment, None)),
-    }
-    for name, fn in parts.items():
-        try:
-            payload[name] = fn()
-        except UserError as exc:
-            payload[name] = {"error": str(exc)}
+    payload, _ = flow_payload(case, q_star=q_star, q_scale=q_scale, gap=gap, target=_yplus_target(treatment, None))
+    parts = ("vortices", "diffuser", "underbody", "walls")
 
     def summary(d):
         for name in parts:

@@ -62,7 +62,7 @@ def test_wrong_vector_length(tmp_path):
 
 def test_negative_ride_height(tmp_path):
     msg = _err(tmp_path, BASE_TOML.replace("ride_height = [0.05]", "ride_height = [0.05, -0.01]"))
-    assert "expected a positive number (m), got -0.01" in msg
+    assert "expected a positive number (m) up to 10000, got -0.01" in msg
     assert "sweep.ride_height[1]" in msg and "measured upwards from the ground" in msg
 
 
@@ -188,3 +188,13 @@ def test_every_model_field_is_a_declared_key_and_back():
     for key, f in found.items():  # a default in a model is the declared one
         if not f.is_required() and f.default is not None:
             assert KEYS[key].value is not NO_DEFAULT and f.default == KEYS[key].value, key
+
+
+def test_report_section_baseline_and_picture_point(tmp_path):
+    c = load_config(write_config(tmp_path, BASE_TOML + '\n[report]\nbaseline = "base"\npicture_ride_height = 0.05\n'))
+    assert c.report.baseline == "base" and c.report.picture_ride_height == 0.05 and c.report.picture_yaw_deg is None
+    msg = _err(tmp_path, BASE_TOML + '\n[report]\nbaseline = "bsae"\npicture_ride_height = -0.02\n')
+    assert "report.baseline" in msg and "Did you mean 'base'" in msg and "name one of: base" in msg
+    assert "report.picture_ride_height" in msg
+    msg = _err(tmp_path, BASE_TOML + '\n[report]\nbaselin = "base"\n')
+    assert "report.baselin" in msg and "Did you mean 'baseline'" in msg

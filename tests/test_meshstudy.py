@@ -51,7 +51,7 @@ def test_sweep_mesh_study_and_ranking_on_the_finest_level(tmp_path):
     # three mesh levels of one operating point, values on an exact second-order
     # law in the level cell size h_m = 2^(-m/2) (Richardson 1911: exact recovery)
     from postproc.kernels.ranking import CaseResult, rank_variants
-    from postproc.report.sweep_report import write_report
+    from postproc.report import write_report
     from postproc.pipelines.sweep import analyse_results, level_cell_size, mesh_study
 
     rows = []
@@ -71,5 +71,5 @@ def test_sweep_mesh_study_and_ranking_on_the_finest_level(tmp_path):
     scores = {s.variant: s for s in rank_variants(rows)}
     assert scores["a"].metrics["downforce"] == pytest.approx(1.2 - 0.3 * 0.25)
     assert scores["a"].n_cases == 1
-    text = write_report(analyse_results(rows, mesh=study), tmp_path / "r.html").read_text()
+    text = write_report(analyse_results(rows, mesh=study), tmp_path / "r.html")[0].read_text()
     assert "Mesh dependence" in text and "Celik" in text

@@ -57,6 +57,10 @@ def test_demo_on_tiny_sweep_resumes(tmp_path):
     rows = {r["case_id"]: r for r in csv.DictReader((out / "results.csv").open())}
     assert rows["tiny_ok"]["status"] == "ok" and rows["tiny_ok"]["iterations"] == "10"
     assert rows["tiny_crash"]["status"] == "solve-failed" and "solve-failed" in rows["tiny_crash"]["flags"]
-    assert "permitted and safe" in (out / "report.html").read_text()
+    report = (out / "report.html").read_text()
+    assert "permitted and safe" in report
+    # the report's size limit (README, "The report"): the demo's report stays under 5 MB
+    assert (out / "report.html").stat().st_size < 5_000_000
+    assert "Under the floor" in report or "pictures not drawn" in report
     p2 = run(["--out", str(out), "--config", str(cfg)])
     assert "tiny_ok: done in an earlier run, skipped" in p2.stdout

@@ -11,7 +11,7 @@ from caseprep.run import runner
 from postproc.pipelines.case_forces import forces_report
 from postproc.cli import main as postproc_main
 from postproc.pipelines.sweep import postprocess_sweep
-from postproc.report.sweep_report import write_report
+from postproc.report import write_report
 
 import numpy as np
 

@@ -9,7 +9,8 @@ from __future__ import annotations
 from pathlib import Path
 
 from caseprep.config.keys import KEYS
-from caseprep.config.schema import EMPTY_GEOMETRY, NAME_RE, NAME_RULE, Config
+from caseprep.config.schema import EMPTY_GEOMETRY, NAME_RULE, Config
+from caseprep.contract.limits import is_name
 from caseprep.contract.errors import UserError, did_you_mean
 
 
@@ -45,6 +46,7 @@ def problems(cfg: Config, base: Path, file: str) -> list[UserError]:
     _mesh(cfg, errs)
     _domain(cfg, errs)
     _solver(cfg, errs)
+    _report(cfg, errs)
     return list(errs)
 
 
@@ -70,7 +72,7 @@ def _variants(cfg: Config, base: Path, errs: _Problems) -> None:
         errs.add(expected="at least one [variants.NAME] table", got="none", key="variants",
                  fix='add e.g. [variants.baseline] with geometry = "baseline.stl"')
     for name, v in cfg.variants.items():
-        if not NAME_RE.match(name):
+        if not is_name(name):
             errs.add(expected=NAME_RULE + " (it becomes a folder, a patch and a shell word)", got=name,
                      key=f"variants.{name}", fix="rename the variant, e.g. 'diffuser_8deg'")
         p = base / v.geometry
@@ -251,6 +253,16 @@ def _domain(cfg: Config, errs: _Problems) -> None:
 def _solver(cfg: Config, errs: _Problems) -> None:
     for k in ("iterations", "write_interval", "ranks", "turbulence_intensity", "turbulence_length_scale"):
         errs.check(f"solver.{k}", getattr(cfg.solver, k))
+
+
+def _report(cfg: Config, errs: _Problems) -> None:
+    r = cfg.report
+    known = list(cfg.variants)
+    if r.baseline is not None and r.baseline not in cfg.variants:
+        errs.add(expected="a variant defined under [variants]", got=r.baseline, key="report.baseline",
+                 fix="name one of: " + ", ".join(known) + "." + did_you_mean(r.baseline, known))
+    errs.check("report.picture_ride_height", r.picture_ride_height)
+    errs.check("report.picture_yaw_deg", r.picture_yaw_deg)
 
 
 def _empty_section_problems(cfg: Config, file: str) -> list[UserError]:

@@ -14,6 +14,8 @@ import math
 from dataclasses import dataclass
 from typing import Any
 
+from caseprep.contract.limits import MAX_DOMAIN_LENGTHS, MAX_ITERATIONS, MAX_LENGTH, MAX_RANKS
+
 NO_DEFAULT = object()  # the key has no Python default (required, or derived at planning)
 
 
@@ -69,6 +71,26 @@ def _at_least_one(what: str) -> Range:
     return Range(lo=1, expected=what)
 
 
+def _within(lo: float, hi: float, unit: str, fix: str | None = None) -> Range:
+    """lo < x ≤ hi for lo = 0 (a positive number with an upper bound), else lo ≤ x ≤ hi."""
+    if lo == 0:
+        return Range(lo=0.0, hi=hi, open_lo=True, expected="a positive number ({unit}) up to {hi}".replace("{unit}", unit),
+                     fix=fix or "use a value > 0; check the unit")
+    return Range(lo=lo, hi=hi, expected="a value from {lo} to {hi} ({unit})".replace("{unit}", unit),
+                 fix=fix or "check the unit and the value")
+
+
+def _count(what: str, limit) -> Range:
+    return Range(lo=1, hi=int(limit.value), expected=f"{what} from {{lo}} to {{hi}}", fix=limit.why)
+
+
+#: Upper bound of every length, ride height and coordinate (contract.limits.MAX_LENGTH).
+_L = float(MAX_LENGTH.value)
+_POINT = Range(hi=_L, magnitude=True, expected="a coordinate within ±{hi} m (body frame)",
+               fix="points are in metres, whatever the geometry's length_unit")
+_SPEED = _within(0.1, 150.0, "m/s", "the solver is incompressible (Mach < 0.45); speeds are in m/s")
+
+
 @dataclass(frozen=True)
 class Key:
     """One config key: ``unit`` (— when dimensionless), ``meaning``, the
@@ -107,12 +129,12 @@ _PITCH = Range(hi=20.0, open_hi=True, magnitude=True, expected="a pitch angle wi
                fix="angles are in degrees")
 _MESH_LEVEL = Range(lo=0, hi=6, expected="a mesh level from {lo} to {hi}")
 _LEVEL = Range(lo=0, hi=12, expected="a level from {lo} to {hi}")
-_RIDE_HEIGHT = _positive("m", RIDE_HEIGHT_FIX)
+_RIDE_HEIGHT = _within(0.0, _L, "m", RIDE_HEIGHT_FIX)
 
 KEYS: dict[str, Key] = {
     "study.name": Key("—", "study name (manifest, sweep folder)", default="required"),
     "study.description": Key("—", "free text", ""),
-    "air.speed": Key("m/s", "road speed V (the sweep's default speed)", default="required", range=_positive("m/s")),
+    "air.speed": Key("m/s", "road speed V (the sweep's default speed)", default="required", range=_SPEED),
     "air.temperature": Key("K", "static temperature", default="288.15 (or from altitude)",
                            range=Range(150.0, 400.0, expected="a temperature in K between {lo} and {hi}",
                                        fix="temperatures are absolute, in kelvin (20 °C = 293.15 K)"),
@@ -124,12 +146,12 @@ KEYS: dict[str, Key] = {
     "air.altitude": Key("m", "ISO 2533 troposphere altitude for temperature and pressure", default="0",
                         range=Range(-2000.0, 11000.0,
                                     expected="an altitude in m between {lo} and {hi} (ISO 2533 troposphere)")),
-    "air.density": Key("kg/m³", "density", default="p/(R T)", range=_positive("kg/m³"),
+    "air.density": Key("kg/m³", "density", default="p/(R T)", range=_within(1e-3, 1e3, "kg/m³"),
         source="ideal gas, ISO 2533:1975 gas constant"),
-    "air.viscosity": Key("Pa s", "dynamic viscosity", default="Sutherland's law", range=_positive("Pa s"),
+    "air.viscosity": Key("Pa s", "dynamic viscosity", default="Sutherland's law", range=_within(1e-7, 0.1, "Pa s"),
         source="Sutherland (1893), ISO 2533:1975 constants"),
     "air.kinematic_viscosity": Key("m²/s", "kinematic viscosity (overrides viscosity/density)", default="μ/ρ",
-                                   range=_positive("m²/s")),
+                                   range=_within(1e-8, 0.1, "m²/s")),
     "air.underfloor_speed_factor": Key("—", "peak speed under the floor / air speed: sizes the first cell and the Mach check",
                                        1.4, range=Range(1.0, 3.0, expected="an underfloor speed factor from {lo} to {hi}",
                                                         fix="1.3–1.5 is typical of a ground-effect floor"),
@@ -139,27 +161,27 @@ KEYS: dict[str, Key] = {
         source="the road moves under a car: a moving ground (common practice for ground-effect cars)"),
     "body.length_unit": Key("—", "unit of the geometry files", "m", choices=("m", "mm", "in")),
     "body.reference_area": Key("m²", 'reference area, or "auto" (frontal area of the first variant)', "auto",
-                               range=_positive("m²"),
+                               range=_within(1e-6, 1e4, "m²"),
         source="frontal area: SAE J1594 (from memory)"),
     "body.reference_length": Key("m", "reference length for moment coefficients", default="wheelbase",
-                                 range=_positive("m")),
-    "body.wheelbase": Key("m", "wheelbase", default="rear_axle.x − front_axle.x", range=_positive("m")),
-    "body.front_axle": Key("m", "front axle centre (body frame)", default="required with a ground"),
-    "body.rear_axle": Key("m", "rear axle centre (body frame)", default="required with a ground"),
+                                 range=_within(1e-4, _L, "m")),
+    "body.wheelbase": Key("m", "wheelbase", default="rear_axle.x − front_axle.x", range=_within(1e-4, _L, "m")),
+    "body.front_axle": Key("m", "front axle centre (body frame)", default="required with a ground", range=_POINT),
+    "body.rear_axle": Key("m", "rear axle centre (body frame)", default="required with a ground", range=_POINT),
     "body.ride_height_point_front": Key("m", "front ride-height reference point on the underside",
-                                        default="required with a ground"),
+                                        default="required with a ground", range=_POINT),
     "body.ride_height_point_rear": Key("m", "rear ride-height reference point on the underside",
-                                       default="required with a ground"),
+                                       default="required with a ground", range=_POINT),
     "body.pitch_pivot": Key("m", "point about which pitch is applied; `ride_height` is its height",
-                            default="ride_height_point_front"),
-    "body.moment_point": Key("m", "moment reference point", default="mid-point of the axles"),
-    "body.centre_of_gravity": Key("m", "centre of gravity (optional)", default="none"),
+                            default="ride_height_point_front", range=_POINT),
+    "body.moment_point": Key("m", "moment reference point", default="mid-point of the axles", range=_POINT),
+    "body.centre_of_gravity": Key("m", "centre of gravity (optional)", default="none", range=_POINT),
     "body.wheels[].name": Key("—", "wheel name (patch name)", default="required"),
-    "body.wheels[].centre": Key("m", "wheel centre (body frame)", default="required"),
+    "body.wheels[].centre": Key("m", "wheel centre (body frame)", default="required", range=_POINT),
     "body.wheels[].axis": Key("—", "rotation axis (body frame)", (0.0, 1.0, 0.0),
         source="an axle along the body y axis"),
     "body.wheels[].radius": Key("m", "unloaded radius; the wheel stands at the loaded radius r (1 − flattening)",
-                                default="required", range=_positive("m")),
+                                default="required", range=_within(1e-4, _L, "m")),
     "body.wheels[].geometry": Key("—", "STL file of the wheel (same length_unit), drawn at its centre", default="none"),
     "body.wheels[].solid": Key("—", "or: name of the wheel's solid in the body STL", default="none"),
     "body.wheels[].steering_deg": Key("deg", "steering angle about the ground normal (+: front of the wheel to the "
@@ -177,13 +199,13 @@ KEYS: dict[str, Key] = {
     "body.wheels[].rotation": Key("—", "rotating wall, or also a rotating reference zone (spoked wheels)", "wall",
                                   choices=("wall", "zone"), source="axisymmetric wheels"),
     "body.wheels[].zone_radius": Key("m", 'radius of the rotating reference zone (rotation = "zone")',
-                                     default="0.75 × radius", range=_positive("m"), source=_COMMON + " (a rim's radius)"),
+                                     default="0.75 × radius", range=_within(1e-4, _L, "m"), source=_COMMON + " (a rim's radius)"),
     "variants.<name>.geometry": Key("—", 'STL file of this variant (relative to the config), or `"none"` '
                                          "(empty test section)", default="required"),
     "variants.<name>.length_unit": Key("—", "overrides body.length_unit", default="body.length_unit",
                                        choices=("m", "mm", "in")),
     "variants.<name>.reference_area": Key("m²", "overrides body.reference_area", default="body.reference_area",
-                                          range=_positive("m²")),
+                                          range=_within(1e-6, 1e4, "m²")),
     "variants.<name>.description": Key("—", "free text", ""),
     "sweep.yaw_mode": Key("—", "how yaw is set up (see \"Yaw modes\")", "crosswind",
                           choices=("crosswind", "yawed-model"),
@@ -195,7 +217,7 @@ KEYS: dict[str, Key] = {
     "sweep.ride_heights_front_rear": Key("m", "[front, rear] ride-height pairs (instead of ride_height × pitch)",
                                          default="—", range=_RIDE_HEIGHT),
     "sweep.yaw_deg": Key("deg", "yaw angles β", (0.0,), range=_YAW),
-    "sweep.speed": Key("m/s", "road speeds", default="[air.speed]", range=_positive("m/s")),
+    "sweep.speed": Key("m/s", "road speeds", default="[air.speed]", range=_SPEED),
     "sweep.mesh_level": Key("—", "mesh levels (each refines the base cell by √2)", (0,), range=_MESH_LEVEL,
         source="one mesh; add levels for a mesh study"),
     "sweep.points": Key("—", "explicit list of points instead of the axes", default="—"),
@@ -206,21 +228,21 @@ KEYS: dict[str, Key] = {
                                             range=_RIDE_HEIGHT),
     "sweep.points[].ride_height_rear": Key("m", "rear ride height", default="—", range=_RIDE_HEIGHT),
     "sweep.points[].yaw_deg": Key("deg", "yaw angle β", 0.0, range=_YAW),
-    "sweep.points[].speed": Key("m/s", "road speed", default="air.speed", range=_positive("m/s")),
+    "sweep.points[].speed": Key("m/s", "road speed", default="air.speed", range=_SPEED),
     "sweep.points[].mesh_level": Key("—", "mesh level", 0, range=_MESH_LEVEL),
     "mesh.fidelity": Key("—", "mesh fidelity preset (see \"Fidelity presets\")", "coarse",
                          choices=("smoke", "coarse", "production"),
         source="the lightest preset that resolves the gap and the near-wall flow (README presets)"),
     "mesh.base_cell": Key("m", "background cell size at mesh level 0", default="preset × body length",
-                          range=_positive("m")),
+                          range=_within(1e-5, _L, "m", "below 10 µm the cell counts overflow (m, not mm?)")),
     "mesh.surface_levels": Key("—", "[min, max] refinement levels on the body", default="preset",
                                range=Range(0, 12, expected="[min, max] levels with {lo} ≤ min ≤ max ≤ {hi}")),
     "mesh.feature_level": Key("—", "refinement level of feature edges", default="preset", range=_LEVEL),
     "mesh.max_level": Key("—", "finest level allowed (underbody gap)", default="preset", range=_LEVEL),
     "mesh.gap_cells": Key("—", "cells across the reference clearance (the lower ride height): prism layers and core "
-                               "cells", default="preset", range=_positive("cells"), source=_COMMON),
+                               "cells", default="preset", range=_within(0.0, 100.0, "cells"), source=_COMMON),
     "mesh.target_yplus": Key("—", "y+ at the first cell centre at mesh level 0 (flat plate at the underfloor speed)",
-                             default="preset", range=_positive("dimensionless"),
+                             default="preset", range=_within(0.01, 1000.0, "dimensionless"),
                              source="inside the wall treatment's band (caseprep/contract/walls.py)"),
     "mesh.wall_treatment": Key("—", "wall functions, or the viscous sublayer resolved (y+ ≈ 1)", "wall-function",
                                choices=("wall-function", "low-re"), source=_COMMON),
@@ -229,34 +251,41 @@ KEYS: dict[str, Key] = {
     "mesh.layer_expansion": Key("—", "layer growth ratio", default="preset",
                                 range=Range(1.0, 2.0, expected="a layer expansion ratio from {lo} to {hi}")),
     "mesh.ground_first_cell": Key("m", "empty test section: first background cell on the ground, cells graded upwards",
-                                  default="uniform cells", range=_positive("m")),
+                                  default="uniform cells", range=_within(1e-7, _L, "m")),
     "domain.length": Key("m", "empty test section: inlet to outlet", default='required with `geometry = "none"`',
-                         range=_positive("m")),
+                         range=_within(0.0, _L, "m")),
     "domain.lead_in": Key("m", "empty test section: slip floor from the inlet to the ground's leading edge "
-                               "(part of `length`)", default="0", range=Range(lo=0.0, expected="a lead-in length ≥ {lo} (m)")),
-    "domain.upstream": Key("body lengths", "inlet distance ahead of the body", 5.0, range=_positive("body lengths"),
-                           source=_COMMON),
-    "domain.downstream": Key("body lengths", "outlet distance behind the body", 10.0, range=_positive("body lengths"),
-                             source=_COMMON),
-    "domain.width": Key("m", "domain width (default: sized for blockage)", default="auto", range=_positive("m")),
-    "domain.height": Key("m", "domain height (default: sized for blockage)", default="auto", range=_positive("m")),
+                               "(part of `length`)", default="0", range=Range(lo=0.0, hi=_L, expected="a lead-in length from {lo} to {hi} (m)")),
+    "domain.upstream": Key("body lengths", "inlet distance ahead of the body", 5.0,
+                           range=_within(0.0, float(MAX_DOMAIN_LENGTHS.value), "body lengths"), source=_COMMON),
+    "domain.downstream": Key("body lengths", "outlet distance behind the body", 10.0,
+                             range=_within(0.0, float(MAX_DOMAIN_LENGTHS.value), "body lengths"), source=_COMMON),
+    "domain.width": Key("m", "domain width (default: sized for blockage)", default="auto", range=_within(0.0, _L, "m")),
+    "domain.height": Key("m", "domain height (default: sized for blockage)", default="auto", range=_within(0.0, _L, "m")),
     "domain.target_blockage": Key("—", "blockage the automatic size aims at (fraction)", 0.01, source=_COMMON),
     "domain.max_blockage": Key("—", "blockage above which a case is refused (fraction)", 0.05, source=_COMMON),
     "solver.turbulence_model": Key("—", "turbulence model of the steady solver", "kOmegaSST",
                                    choices=("kOmegaSST", "laminar"),
         source="k-ω SST, Menter (1994) AIAA J. 32(8) 1598–1605: common practice for external vehicle flows"),
-    "solver.iterations": Key("—", "iterations", default="preset", range=_at_least_one("a positive number of iterations")),
+    "solver.iterations": Key("—", "iterations", default="preset", range=_count("a number of iterations", MAX_ITERATIONS)),
     "solver.write_interval": Key("—", "iterations between result writes", default="iterations",
-                                 range=_at_least_one("a positive write interval")),
-    "solver.ranks": Key("—", "parallel ranks (MPI processes)", 1, range=_at_least_one("at least 1 rank"),
+                                 range=_count("a write interval", MAX_ITERATIONS)),
+    "solver.ranks": Key("—", "parallel ranks (MPI processes)", 1, range=_count("a number of ranks", MAX_RANKS),
         source="serial"),
     "solver.turbulence_intensity": Key("—", "free-stream turbulence intensity at the model (fraction)", 0.005,
                                        range=Range(0.0, 0.2, open_lo=True,
                                                    expected="a turbulence intensity fraction in ({lo}, {hi}] (0.01 = 1 %)"),
                                        source=_COMMON + " (a low-turbulence tunnel)"),
     "solver.turbulence_length_scale": Key("m", "free-stream turbulence length scale at the model",
-                                          default="0.02 × body length", range=_positive("m"),
+                                          default="0.02 × body length", range=_within(1e-6, _L, "m"),
                                           source=_COMMON + " (decays mildly over 5 body lengths)"),
+    "report.baseline": Key("—", "variant the report's pressure-difference pictures compare against "
+                                "(`postproc sweep --baseline` overrides)", default="the first variant"),
+    "report.picture_ride_height": Key("m", "front ride height of the operating point pictured for every variant "
+                                           "(`--picture-ride-height`)", default="median of the sweep",
+                                      range=_RIDE_HEIGHT),
+    "report.picture_yaw_deg": Key("deg", "yaw of the pictured operating point (`--picture-yaw`)",
+                                  default="smallest yaw", range=_YAW),
 }
 
 
@@ -286,5 +315,6 @@ def markdown_table() -> str:
     rows = ["| key | unit | meaning | default | valid values | source of the default |", "|---|---|---|---|---|---|"]
     for name, k in KEYS.items():
         valid = (" / ".join(k.choices) if k.choices else k.range.table_text() if k.range else "")
+        valid = valid.replace("|", "\\|")  # a bar inside a cell would split it
         rows.append(f"| `{name}` | {k.unit} | {k.meaning} | {k.default_text()} | {valid} | {k.source} |")
     return "\n".join(rows) + "\n"

@@ -19,9 +19,9 @@ from pydantic_core import PydanticCustomError
 
 from caseprep.config.keys import KEYS, choices, default
 from caseprep.contract.errors import UserError, did_you_mean
+from caseprep.contract.limits import MAX_NAME_LENGTH, NAME_RE, NAME_RULE as _RULE, is_name  # noqa: F401 (NAME_RE re-exported)
 
-NAME_RE = re.compile(r"^[A-Za-z][A-Za-z0-9_-]*$")
-NAME_RULE = "a name made of letters, digits, '_' and '-', starting with a letter"
+NAME_RULE = f"{_RULE}, at most {int(MAX_NAME_LENGTH.value)} characters"
 # allowed values, from the one declaration of the keys (caseprep.config.keys)
 FIDELITIES = choices("mesh.fidelity")
 GROUND_MODES = choices("ground.mode")
@@ -36,13 +36,14 @@ Vec3 = tuple[float, float, float]
 
 
 def _check_name(v: str) -> str:
-    if not NAME_RE.match(v):
+    if not is_name(v):
         raise PydanticCustomError("uf_name", "name", {"expected": NAME_RULE, "fix": "rename it, e.g. 'diffuser_8deg'"})
     return v
 
 
 class _M(BaseModel):
-    model_config = ConfigDict(frozen=True, extra="forbid", strict=True)
+    # every number finite: NaN and ±inf are refused at their key
+    model_config = ConfigDict(frozen=True, extra="forbid", strict=True, allow_inf_nan=False)
 
 
 class StudyCfg(_M):
@@ -168,6 +169,14 @@ class SolverCfg(_M):
     turbulence_length_scale: float | None = None
 
 
+class ReportCfg(_M):
+    """What the sweep report pictures (``postproc sweep`` reads it from the manifest)."""
+
+    baseline: str | None = None
+    picture_ride_height: float | None = None
+    picture_yaw_deg: float | None = None
+
+
 class Config(_M):
     """The whole validated config. Geometry paths are absolute after loading;
     :attr:`file` is the config file's path (for messages)."""
@@ -181,6 +190,7 @@ class Config(_M):
     mesh: MeshCfg = MeshCfg()
     domain: DomainCfg = DomainCfg()
     solver: SolverCfg = SolverCfg()
+    report: ReportCfg = ReportCfg()
     _file: str = PrivateAttr(default="config.toml")
 
     @property
@@ -209,7 +219,7 @@ class Config(_M):
 _MODELS: dict[str, type[BaseModel]] = {
     "": Config, "study": StudyCfg, "air": AirCfg, "ground": GroundCfg, "body": BodyCfg, "wheels": WheelCfg,
     "variants": VariantCfg, "sweep": SweepCfg, "points": PointCfg, "mesh": MeshCfg, "domain": DomainCfg,
-    "solver": SolverCfg,
+    "solver": SolverCfg, "report": ReportCfg,
 }
 
 
@@ -286,7 +296,7 @@ def _fixed_len(loc: tuple) -> int | None:
 _TYPE_WORDS = {
     "float_type": "a number", "int_type": "a whole number", "string_type": "a text string (in quotes)",
     "bool_type": "true or false", "tuple_type": "a list", "dict_type": "a table", "model_type": "a table",
-    "list_type": "a list",
+    "list_type": "a list", "finite_number": "a finite number (not nan or inf)",
 }
 
 

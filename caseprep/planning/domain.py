@@ -65,6 +65,7 @@ from typing import Callable
 import numpy as np
 
 from caseprep.contract.frames import Placement, axle_axes, ground_to_wind_rotation, wind_direction_ground
+from caseprep.contract.limits import MAX_CELLS, MAX_RANKS
 from caseprep.contract.walls import LOW_RE_TARGET_YPLUS, WALL_TREATMENTS
 from caseprep.geometry.underside import Underside
 from caseprep.planning.physics import first_cell_height, layer_stack_thickness
@@ -652,11 +653,20 @@ def plan_domain(body: BodyExtent, placement: Placement, ground: str, sizing: Dom
     footprint = None
     if body.underside is not None and domain.ground_layer_cells is not None:
         footprint = float(np.count_nonzero(np.isfinite(body.underside.z))) * body.underside.cell_area
+    est = estimate_cells(domain, mesh, body.area, ground_layer_area=footprint)
     return DomainPlan(domain=domain, mesh=mesh, base_cell=float(d0), gap_level=None if reg.gap is None else reg.gap.level,
-                      estimated_cells=estimate_cells(domain, mesh, body.area, ground_layer_area=footprint),
-                      warnings=sec.warnings + tuple(reg.warnings) + tuple(layer_warnings),
-                      problems=sec.problems + tuple(layer_problems) + tuple(reg.problems), gap=reg.gap, info=reg.info,
-                      nominal_volume=sec.nominal_volume)
+                      estimated_cells=est, warnings=sec.warnings + tuple(reg.warnings) + tuple(layer_warnings),
+                      problems=sec.problems + tuple(layer_problems) + tuple(reg.problems) + tuple(cell_limit_problems(est)),
+                      gap=reg.gap, info=reg.info, nominal_volume=sec.nominal_volume)
+
+
+def cell_limit_problems(estimated_cells: int) -> list[tuple[str, str]]:
+    """(what, fix) when a case's estimated cells exceed :data:`MAX_CELLS`."""
+    if estimated_cells <= MAX_CELLS.value:
+        return []
+    return [(f"an estimated {estimated_cells:.3g} cells, above the limit of {MAX_CELLS.value:.3g} cells per case "
+             f"({MAX_CELLS.why})",
+             "raise mesh.base_cell (m, not mm?), lower the fidelity, mesh levels or refinement levels, or shrink the domain")]
 
 
 def ground_grading(height: float, first_cell: float, top_cell: float) -> tuple[int, float, float]:
@@ -725,7 +735,7 @@ def plan_empty_section(*, placement: Placement, length: float, width: float, hei
     mesh = MeshSpec(base_cell=float(d0), surface_levels=(0, 0), feature_level=0, regions=(), layers=None,
                     location_in_mesh=tuple(float(v) for v in g0 + (lo + c) @ axes))
     return DomainPlan(domain=domain, mesh=mesh, base_cell=float(d0), gap_level=None, estimated_cells=int(n1 * n2 * n3),
-                      warnings=(), problems=())
+                      warnings=(), problems=tuple(cell_limit_problems(int(n1 * n2 * n3))))
 
 
 def estimate_cells(domain: Domain, mesh: MeshSpec, body_area: float, ground_layer_area: float | None = None) -> int:
@@ -742,7 +752,7 @@ def estimate_cells(domain: Domain, mesh: MeshSpec, body_area: float, ground_laye
     base_cell / 2ⁿ (m); ``body_area`` m².
     """
     d0 = mesh.base_cell
-    total = float(np.prod(domain.cells))
+    total = float(np.prod(np.asarray(domain.cells, dtype=float)))  # float: no integer overflow
     levels = sorted({r.level for r in mesh.regions})
     coarser = {lv: (d0 / 2**levels[i - 1] if i > 0 else d0) for i, lv in enumerate(levels)}
     for r in mesh.regions:
@@ -765,8 +775,8 @@ def decomposition_split(n_procs: int, extent: np.ndarray) -> tuple[int, int, int
     product = n_procs, giving more pieces to the longer ``extent`` (m, the
     domain's bounding-box size along mesh x, y, z): the prime factors are
     handed out largest first to the axis with the largest length per piece."""
-    if n_procs < 1:
-        raise ValueError("expected at least one rank")
+    if not 1 <= n_procs <= MAX_RANKS.value:
+        raise ValueError(f"expected 1 to {int(MAX_RANKS.value)} ranks, got {n_procs}")
     f, k, m = [], 2, n_procs
     while k * k <= m:
         while m % k == 0:

@@ -42,7 +42,7 @@ from caseprep.planning.physics import (air_density, isa_troposphere, isentropic_
                                       sutherland_viscosity, turbulence_at_model)
 from caseprep.planning.spec import CaseSpec, Flow, SolverSpec, Wheel
 from caseprep.planning.wheels import place_wheel, rolling_omega
-from caseprep.planning.points import SweepPoint, expand_collect
+from caseprep.planning.points import SweepPoint, check_case_count, expand_collect
 
 
 @dataclass(frozen=True)
@@ -233,6 +233,9 @@ def plan_all(cfg: Config) -> PlanResult:
     """Plan every case, collecting problems instead of stopping at the first."""
     problems: list[UserError] = []
     warnings: list[str] = []
+    too_many = check_case_count(cfg)  # before reading anything or making any point
+    if too_many is not None:
+        return PlanResult((), (too_many,), ())
     geoms, _, gerrs = load_geometries(cfg)
     problems.extend(gerrs)
     points, perrs = expand_collect(cfg)
@@ -420,6 +423,12 @@ def _place(cfg: Config, pt: SweepPoint, g: BodyGeometry, cache: _RotationCache):
         raise UserError(expected="a body clear of the ground",
                         got=f"clearance {clearance * 1e3:.3f} mm at {where} in case {pt.case_id}", file=cfg.file,
                         key=pt.source, fix="the body touches or penetrates the ground: raise the ride height or reduce the pitch")
+    h_max = max(pt.ride_height_front, pt.ride_height_rear)
+    if h_max > g.length:
+        raise UserError(expected="ride heights up to one body length (the ground effect this tool studies)",
+                        got=f"{h_max:g} m for a body {g.length:.4g} m long in case {pt.case_id}", file=cfg.file,
+                        key=pt.source,
+                        fix='ride heights are in m (not mm); for a body far from any ground use ground.mode = "none"')
     return P, clearance, at, pct, where
 
 
@@ -569,6 +578,8 @@ def plan_case(cfg: Config, pt: SweepPoint, geoms: dict[str, VariantGeometry], ai
         "local_mach": mach,
         "turbulence": turb.to_dict(),
         "warnings": list(notes),
+        # what the sweep report pictures ([report]; postproc reads it from the manifest)
+        "report": cfg.report.model_dump(exclude_none=True),
     }
     spec = CaseSpec(
         case_id=cid, variant=pt.variant, params=pt.params(), yaw_mode=mode, placement=P, geometry=f"{pt.variant}.stl",

@@ -35,10 +35,12 @@ from pathlib import Path
 from typing import Any, Callable, Iterable, Sequence
 
 from caseprep.run import solverlogs as sl
-from caseprep.contract.atomicio import write_json_atomic
+from caseprep.contract.atomicio import open_folder, write_json_atomic
 from caseprep.contract.convergence import DEFAULT_OPTIONS, ConvergenceOptions, force_settling, judge_convergence
 from caseprep.contract.errors import UserError, did_you_mean
-from caseprep.contract.manifest import CaseRecord, read_manifest
+from caseprep.contract.limits import MAX_RANKS
+from caseprep.contract.locking import refuse_interrupted, sweep_lock
+from caseprep.contract.manifest import MANIFEST_NAME, CaseRecord, read_manifest
 from caseprep.contract.records import (RECORD_NAME, RUN_FLAGS, SUMMARY_NAME, SUMMARY_SCHEMA, CaseRunRecord, Flag,
                                        StageRun, Status, effective_status, read_case_record)
 
@@ -269,11 +271,22 @@ def run_sweep(
     """
     # absolute: run.sh is started with the case folder as working directory
     root = Path(sweep_dir).resolve()
-    manifest = read_manifest(root)
-    if jobs < 1:
-        raise UserError(expected="a number of parallel cases ≥ 1", got=jobs, key="jobs", fix="use -j 1 or more")
-    if ranks < 1:
-        raise UserError(expected="a number of MPI ranks ≥ 1", got=ranks, key="ranks", fix="use --ranks 1 or more")
+    if not (root / MANIFEST_NAME).is_file():
+        read_manifest(root)  # not a sweep: refused before anything is created in the folder
+    with sweep_lock(root, "caseprep run"):  # one command at a time in a sweep folder
+        refuse_interrupted(root, "caseprep run")
+        return _run_locked(root, read_manifest(root), jobs, ranks, stages, only, force, progress, options)
+
+
+def _run_locked(root: Path, manifest, jobs: int, ranks: int, stages, only, force: bool, progress,
+                options: RunOptions) -> list[CaseRunRecord]:
+    """:func:`run_sweep` holding the sweep's lock."""
+    if not 1 <= jobs <= MAX_RANKS.value:
+        raise UserError(expected=f"a number of parallel cases from 1 to {int(MAX_RANKS.value)}", got=jobs, key="--jobs",
+                        fix="use -j 1 or more, at most the number of cores")
+    if not 1 <= ranks <= MAX_RANKS.value:
+        raise UserError(expected=f"a number of MPI ranks from 1 to {int(MAX_RANKS.value)}", got=ranks, key="--ranks",
+                        fix="use --ranks 1 or more, at most the number of cores")
     stages = _checked_stages(stages)
     selected = _selected_cases(root, manifest, only)
     env = _environment(ranks)
@@ -437,19 +450,22 @@ def _interrupt(running: list[_Job], records: dict[str, CaseRunRecord], emit, tot
 
 def _start_stage(job: _Job, env: dict[str, str], emit, total: int) -> None:
     stage = job.to_run.pop(0)
-    logs = job.dir / "logs"
-    logs.mkdir(exist_ok=True)
-    # This stage's results make the later stages' results stale.
-    for later in STAGES[STAGES.index(stage):]:
-        try:
-            (logs / f"{later}.done").unlink()
-        except FileNotFoundError:
-            pass
+    dfd = open_folder(job.dir, ["logs"])  # no link followed below the case folder
+    try:
+        # This stage's results make the later stages' results stale.
+        for later in STAGES[STAGES.index(stage):]:
+            try:
+                os.unlink(f"{later}.done", dir_fd=dfd)
+            except FileNotFoundError:
+                pass
+        fd = os.open(f"underfloor-{stage}.out", os.O_WRONLY | os.O_CREAT | os.O_TRUNC | os.O_NOFOLLOW, 0o644, dir_fd=dfd)
+    finally:
+        os.close(dfd)
     job.stage = stage
     job.stage_t0 = time.monotonic()
     job.stage_wall0 = time.time()
     job.last_beat = job.stage_t0
-    job.out = open(logs / f"underfloor-{stage}.out", "w")
+    job.out = os.fdopen(fd, "w")
     job.proc = subprocess.Popen([str(job.dir / "run.sh"), stage], cwd=job.dir, env=env, stdout=job.out,
                                 stderr=subprocess.STDOUT, stdin=subprocess.DEVNULL, start_new_session=True)
     emit(Progress(job.rec.case_id, job.index, total, "stage-start", stage, job.stage_t0 - job.t0))
@@ -510,7 +526,8 @@ def _finish_record(job: _Job, status: str, message: str, ranks: int, options: Ru
 
 
 def _write_record(case_dir: Path, rec: CaseRunRecord) -> None:
-    write_json_atomic(case_dir / RECORD_NAME, rec.to_dict())
+    # the case folder was checked to lie inside the sweep; nothing below it is followed
+    write_json_atomic(case_dir / RECORD_NAME, rec.to_dict(), root=case_dir)
 
 
 def _write_summary(root: Path, manifest, records: dict[str, CaseRunRecord], ranks: int) -> None:
@@ -525,7 +542,7 @@ def _write_summary(root: Path, manifest, records: dict[str, CaseRunRecord], rank
     counts: dict[str, int] = {}
     for r in rows:
         counts[r["status"]] = counts.get(r["status"], 0) + 1
-    write_json_atomic(root / SUMMARY_NAME, {
+    write_json_atomic(root / SUMMARY_NAME, root=root, obj={
         "schema": SUMMARY_SCHEMA, "schema_version": 1, "written_utc": _utc(), "ranks": ranks,
         "counts": counts, "flag_meanings": {f: f.meaning for f in RUN_FLAGS}, "cases": rows,
     })

@@ -115,6 +115,10 @@ def read_flow(path: str | Path, *, need_volume: bool = True) -> FlowCase:
     import pyvista as pv
 
     f, case_dir = resolve_result(path)
+    if f.suffix.lower() == ".vtm":
+        from postproc.io.surfaces import vtm_blocks
+
+        vtm_blocks(f)  # every block must stay inside the export's folder (raises naming the block)
     try:
         data = pv.read(str(f))
     except Exception as exc:  # VTK reader errors
@@ -446,3 +450,29 @@ def slice_surface(surface: SurfacePatch, axis: int, value: float) -> tuple[np.nd
     segs = np.stack([pts[a], pts[b]], axis=1)
     cd = {k: np.asarray(out.cell_data[k])[own] for k in out.cell_data.keys() if k != "__cell"}
     return segs, np.asarray(out.cell_data["__cell"])[own], cd
+
+
+def q_isosurface(grid, q_norm: np.ndarray, vorticity_x: np.ndarray, level: float,
+                 cell_ids: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray] | None:
+    """Iso-surface Q_norm = level through the cells ``cell_ids`` (and their
+    values interpolated to the points), with the sign of ω_x per face:
+    (points (N, 3) m, offsets, connectivity (triangles), sense (F,) ±1), or
+    None when the level is not crossed. ``q_norm`` and ``vorticity_x`` are
+    cell values of the whole ``grid`` (VTK's contour filter on the point
+    values averaged from the cells)."""
+    if cell_ids.size == 0:
+        return None
+    sub = grid.extract_cells(cell_ids)
+    sub.clear_data()
+    sub.cell_data["q"] = np.asarray(q_norm, dtype=float)[cell_ids]
+    sub.cell_data["wx"] = np.asarray(vorticity_x, dtype=float)[cell_ids]
+    pts = sub.cell_data_to_point_data()
+    iso = pts.contour([level], scalars="q")
+    if iso.n_cells == 0:
+        return None
+    iso = iso.triangulate()
+    wx = iso.point_data["wx"]
+    faces = iso.faces.reshape(-1, 4)[:, 1:]
+    sense = np.where(wx[faces].mean(axis=1) >= 0, 1.0, -1.0)
+    off = np.arange(0, 3 * faces.shape[0] + 1, 3, dtype=np.int64)
+    return np.asarray(iso.points, dtype=float), off, faces.ravel().astype(np.int64), sense

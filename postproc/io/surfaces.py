@@ -30,6 +30,8 @@ from typing import Callable, Iterable, Sequence
 import numpy as np
 
 from caseprep.contract.errors import UserError, did_you_mean
+from caseprep.contract.limits import MAX_JSON_BYTES, MAX_VTM_BLOCKS
+from caseprep.contract.untrusted import confined
 
 _POLY_TYPES = {5, 7, 9}  # VTK_TRIANGLE, VTK_POLYGON, VTK_QUAD
 _SURFACE_TYPES = _POLY_TYPES | {8}  # plus VTK_PIXEL (reordered below)
@@ -336,8 +338,13 @@ def vtm_blocks(path: Path) -> tuple[list[tuple[str, Path]], float | None]:
 
     Blocks under ``boundary`` keep their patch name; other leaves (the
     ``internal`` volume) keep theirs. Nested blocks elsewhere are named
-    ``outer/inner``."""
+    ``outer/inner``. Each block's ``file`` must be a relative path that stays
+    inside the multiblock's folder (links followed); anything else is a
+    UserError naming the block, and is never opened."""
     _check_file(path)
+    if path.stat().st_size > MAX_JSON_BYTES.value:
+        raise UserError(expected=f"a multiblock index of at most {int(MAX_JSON_BYTES.value):,} bytes",
+                        got=f"{path.stat().st_size:,} bytes", file=str(path), fix="re-export with foamToVTK")
     try:
         root = ET.parse(path).getroot()
     except ET.ParseError as exc:
@@ -347,19 +354,27 @@ def vtm_blocks(path: Path) -> tuple[list[tuple[str, Path]], float | None]:
         raise UserError(expected="a VTKFile of type vtkMultiBlockDataSet", got=root.tag, file=str(path))
     out: list[tuple[str, Path]] = []
 
-    def walk(node, prefix: str) -> None:
-        for child in node:
-            name = child.get("name") or child.get("index") or "?"
-            if child.tag == "DataSet":
-                f = child.get("file")
-                if f:
-                    out.append((name if prefix in ("", "boundary") else f"{prefix}/{name}", path.parent / f))
-            elif child.tag == "Block":
-                walk(child, name if prefix == "" else f"{prefix}/{name}")
-
-    walk(root.find("vtkMultiBlockDataSet"), "")
+    stack = [(iter(root.find("vtkMultiBlockDataSet")), "")]
+    while stack:  # document order, without recursion (a hostile file may nest deeply)
+        it, prefix = stack[-1]
+        child = next(it, None)
+        if child is None:
+            stack.pop()
+            continue
+        name = child.get("name") or child.get("index") or "?"
+        if child.tag == "Block":
+            stack.append((iter(child), name if prefix == "" else f"{prefix}/{name}"))
+        elif child.tag == "DataSet" and child.get("file"):
+            full = name if prefix in ("", "boundary") else f"{prefix}/{name}"
+            out.append((full, confined(path.parent, child.get("file"), file=str(path), key=f"block {full[:80]!r} file",
+                                       what="a block file")))
+            if len(out) > MAX_VTM_BLOCKS.value:
+                raise UserError(expected=f"at most {int(MAX_VTM_BLOCKS.value):,} blocks", got="more",
+                                file=str(path), fix="re-export with foamToVTK")
     time = None
-    m = re.search(r"time='([^']+)'", path.read_text(encoding="utf-8", errors="replace")[:400])
+    with open(path, "rb") as fh:
+        head = fh.read(400).decode("utf-8", errors="replace")
+    m = re.search(r"time='([^']+)'", head)
     if m:
         try:
             time = float(m.group(1))

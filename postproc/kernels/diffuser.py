@@ -17,7 +17,24 @@ recovery coefficient
 and the diffuser effectiveness C_pr / C_pr,ideal (1 for a loss-free,
 uniform flow; lower with total-pressure loss, separation or non-uniform
 profiles). Valid for incompressible flow (Mach < 0.3) through a section
-without reversed flow at the throat.
+without reversed flow at the throat. The same ideal value and
+effectiveness are the axes of the diffuser performance maps of Sovran &
+Klomp (1967), "Experimentally determined optimum geometries for
+rectilinear diffusers with rectangular, conical or annular cross-section",
+in *Fluid Mechanics of Internal Flow*, ed. G. Sovran, Elsevier, pp. 270–319.
+
+An underbody diffuser is no closed duct: it is open at the sides and runs
+over a moving ground, so air enters between throat and exit and the area
+ratio overstates the deceleration. Two further numbers describe it:
+
+    C_pr,ideal,bulk = 1 − (ū_exit/ū_throat)²
+
+(Bernoulli between the actual bulk velocities ū = ṁ/(ρA), the loss-free
+recovery of the deceleration that really happens) and the side inflow
+(ṁ_exit − ṁ_throat)/ṁ_throat (the mass entering through the open sides).
+The throat pressure against the free stream, C_p,throat = (p̄_throat −
+p_ref)/(½ρV²), is what the recovery buys: the lower it is, the more
+downforce the floor makes.
 """
 from __future__ import annotations
 
@@ -98,7 +115,11 @@ class DiffuserResult:
     throat's bulk velocity; ``cpr_mass`` the same with mass-flow-weighted p̄;
     ``cpr_ideal`` = 1 − (A_throat/A_exit)²; ``effectiveness`` = cpr/cpr_ideal;
     ``area_ratio`` = A_exit/A_throat; ``mass_flow`` (throat, exit) kg/s;
-    ``mass_imbalance`` = (ṁ_exit − ṁ_throat)/ṁ_throat.
+    ``mass_imbalance`` = (ṁ_exit − ṁ_throat)/ṁ_throat (the side inflow);
+    ``cpr_ideal_bulk`` = 1 − (ū_exit/ū_throat)² and ``effectiveness_bulk``
+    = cpr/cpr_ideal_bulk; ``cp_throat`` and ``cp_exit`` the area-weighted
+    station pressures as Cp against the free stream (None without a
+    reference speed).
     """
 
     throat: StationAverage
@@ -110,20 +131,30 @@ class DiffuserResult:
     area_ratio: float
     mass_flow: tuple[float, float]
     mass_imbalance: float
+    cpr_ideal_bulk: float = float("nan")
+    effectiveness_bulk: float = float("nan")
+    cp_throat: float | None = None
+    cp_exit: float | None = None
 
     def to_dict(self) -> dict:
         return {
             "throat_x": self.throat.x, "exit_x": self.exit.x,
             "cpr": self.cpr, "cpr_mass": self.cpr_mass, "cpr_ideal": self.cpr_ideal,
             "effectiveness": self.effectiveness, "area_ratio": self.area_ratio,
+            "cpr_ideal_bulk": self.cpr_ideal_bulk, "effectiveness_bulk": self.effectiveness_bulk,
+            "side_inflow": self.mass_imbalance, "cp_throat": self.cp_throat, "cp_exit": self.cp_exit,
             "mass_flow": list(self.mass_flow), "mass_imbalance": self.mass_imbalance,
             "throat": self.throat.to_dict(), "exit": self.exit.to_dict(),
         }
 
 
-def pressure_recovery(throat: StationAverage, exit: StationAverage, rho: float) -> DiffuserResult:
-    """Pressure recovery coefficient, its ideal value and the effectiveness
-    (formulas and citation in the module docstring). ``rho`` kg/m³."""
+def pressure_recovery(throat: StationAverage, exit: StationAverage, rho: float, *,
+                      p_ref: float | None = None, speed: float | None = None) -> DiffuserResult:
+    """Pressure recovery coefficient, its ideal values (area ratio and bulk
+    velocities), the effectiveness and the side inflow (formulas and
+    citations in the module docstring). ``rho`` kg/m³; with the free-stream
+    reference pressure ``p_ref`` (Pa) and ``speed`` (m/s) also the station
+    pressures as Cp."""
     q1 = 0.5 * rho * throat.u_bulk**2
     if not q1 > 0:
         raise UserError(expected="a positive flow through the throat section", got=f"bulk velocity {throat.u_bulk:.4g} m/s",
@@ -133,10 +164,17 @@ def pressure_recovery(throat: StationAverage, exit: StationAverage, rho: float) 
     cpr = (exit.p_area - throat.p_area) / q1
     cpr_m = (exit.p_mass - throat.p_mass) / q1
     eff = cpr / ideal if ideal != 0 else float("nan")
+    ideal_b = 1.0 - (exit.u_bulk / throat.u_bulk) ** 2
+    eff_b = cpr / ideal_b if ideal_b != 0 else float("nan")
+    cpt = cpe = None
+    if p_ref is not None and speed:
+        q_inf = 0.5 * rho * speed**2
+        cpt, cpe = float((throat.p_area - p_ref) / q_inf), float((exit.p_area - p_ref) / q_inf)
     return DiffuserResult(throat=throat, exit=exit, cpr=float(cpr), cpr_mass=float(cpr_m), cpr_ideal=float(ideal),
                           effectiveness=float(eff), area_ratio=float(ar),
                           mass_flow=(throat.mass_flow, exit.mass_flow),
-                          mass_imbalance=float((exit.mass_flow - throat.mass_flow) / throat.mass_flow))
+                          mass_imbalance=float((exit.mass_flow - throat.mass_flow) / throat.mass_flow),
+                          cpr_ideal_bulk=float(ideal_b), effectiveness_bulk=float(eff_b), cp_throat=cpt, cp_exit=cpe)
 
 
 def floor_heights(segments: np.ndarray, y: np.ndarray, ground_point: np.ndarray, ground_normal: np.ndarray,

@@ -132,3 +132,37 @@ def ground_footprint(centroids: np.ndarray, areas: np.ndarray, cp: np.ndarray,
                            cp_area_integral=float(np.dot(a, p)), suction_area=float(a[p < suction_level].sum()),
                            suction_level=suction_level, window=(float(x0), float(x1), float(y0), float(y1)),
                            x_edges=xe, y_edges=ye, cp_map=cmap)
+
+
+@dataclass(frozen=True)
+class UndersideIntegrals:
+    """Cp over the underside seen from below (plan projection, body frame).
+
+    ``plan_area`` the area covered (m²); ``cp_area_integral`` = ∫ Cp dA
+    (m²); ``suction_area_integral`` = −∫ min(Cp, 0) dA (m², ≥ 0: the
+    floor's suction integral); ``cp_mean`` = ∫ Cp dA / plan_area;
+    ``spacing`` the plan grid's cell size (m).
+    """
+
+    plan_area: float
+    cp_area_integral: float
+    suction_area_integral: float
+    cp_mean: float
+    spacing: float
+
+    def to_dict(self) -> dict:
+        return dict(self.__dict__)
+
+
+def underside_integrals(cp_plan: np.ndarray, spacing: float) -> UndersideIntegrals:
+    """Area integrals of Cp on a plan grid of square cells of ``spacing`` m
+    (NaN: no underside above the cell), midpoint rule: the error is of the
+    order of the grid cell over the length of the Cp variations."""
+    c = np.asarray(cp_plan, dtype=np.float64)
+    ok = np.isfinite(c)
+    a = spacing**2
+    area = float(ok.sum() * a)
+    integ = float(c[ok].sum() * a)
+    suction = float(-np.minimum(c[ok], 0.0).sum() * a)
+    return UndersideIntegrals(plan_area=area, cp_area_integral=integ, suction_area_integral=suction,
+                              cp_mean=integ / area if area > 0 else float("nan"), spacing=float(spacing))

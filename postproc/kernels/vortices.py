@@ -22,6 +22,7 @@ vertex). Per core:
 """
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -317,11 +318,14 @@ def q_regions(adjacency: sp.csr_matrix, q: np.ndarray, q_threshold: float, centr
 
 
 def default_stations(x_front: float, length: float, x_min: float, x_max: float, step: float = 0.05,
-                     wake: float = 0.5) -> np.ndarray:
+                     wake: float = 0.5, x_tail: float | None = None) -> np.ndarray:
     """Stations every ``step`` × length (m) from the nose (exclusive) to
     ``wake`` × length behind the tail (body frame, x rearward), clipped to
-    the domain [x_min, x_max] (m)."""
-    k = np.arange(1, int(round((1.0 + wake) / step)) + 1)
+    the domain [x_min, x_max] (m). ``x_tail`` (m): the tail, when the body
+    is longer or shorter than ``length`` (a wheelbase); default the nose +
+    length."""
+    tail = x_front + length if x_tail is None else x_tail
+    k = np.arange(1, int(math.floor((tail - x_front + wake * length) / (step * length) + 1e-9)) + 1)
     xs = x_front + k * step * length
     inside = (xs > x_min) & (xs < x_max)
     return xs[inside]
@@ -355,10 +359,12 @@ class VortexResult:
     q_scale: float | None = None
     wall_cells_excluded: int = 0
     wall_rotation_min: float | None = None
+    q_length: float | None = None
 
     def to_dict(self) -> dict:
         return {
             "q_threshold": self.q_threshold,
+            "q_length": self.q_length,
             "q_star_threshold": self.q_threshold / self.q_scale if self.q_scale else None,
             "q_scale": self.q_scale,
             "wall_rotation_min": self.wall_rotation_min,

@@ -10,19 +10,25 @@ Axes: body frame (x rearward, y right, z up, m).
 """
 from __future__ import annotations
 
-from dataclasses import dataclass
+import math
+import time
+from dataclasses import dataclass, field
+from pathlib import Path
 
 import numpy as np
 
 from caseprep.contract.errors import UserError
 
-from postproc.kernels import diffuser as dif
 from postproc.io import flow as flowio
+from postproc.kernels import diffuser as dif
 from postproc.kernels import gradients as grad
 from postproc.kernels import meshtopo
 from postproc.kernels import underbody as ub
 from postproc.kernels import vortices as vx
 from postproc.kernels import wallchecks as wc
+from postproc.kernels.planview import PlanGrid, rasterise_lowest
+from postproc.pipelines.case_scene import build_scene, gap_scale, plan_spacing
+
 
 DOMAIN_PATCH_WORDS = ("ground", "inlet", "outlet", "top", "side", "left", "right", "front", "back", "symmetry",
                       "farfield", "wall_domain", "lowerwall", "upperwall", "empty")
@@ -166,12 +172,15 @@ def body_extent(case: flowio.FlowCase, refs: Refs) -> tuple[float, float] | None
 def analyse_vortices(case: flowio.FlowCase, *, stations=None, q_star: float = 100.0, speed: float | None = None,
                      length: float | None = None, max_jump: float | None = None, regions: bool = True,
                      velocity: str = "U", gd: GradientData | None = None,
-                     wall_rotation_min: float | None = 1.5) -> vx.VortexResult:
+                     wall_rotation_min: float | None = 1.5, q_length: float | None = None) -> vx.VortexResult:
     """Vortex cores per station, tracks and 3D Q-regions of a case.
 
     ``stations``: x positions (m, body frame) or None for every 5 % of the
-    reference length from the nose to half a length behind the tail.
-    ``q_star``: threshold on Q* = Q/(V/L)². ``max_jump``: track linking limit
+    reference length from the nose to half a reference length behind the
+    tail (the body patches' x extent).
+    ``q_star``: threshold on Q* = Q/(V/ℓ)² with ℓ = ``q_length`` (m; default
+    the reference length L; :func:`q_length` gives the gap scale, the ride
+    height, for underbody cores). ``max_jump``: track linking limit
     (m), default 2 station spacings. ``wall_rotation_min``: cells on the
     boundary where ‖Ω‖ < this × ‖S‖ (boundary-layer shear, not a vortex:
     :func:`postproc.kernels.vortices.wall_shear_cells`) do not count as core cells;
@@ -182,14 +191,15 @@ def analyse_vortices(case: flowio.FlowCase, *, stations=None, q_star: float = 10
         raise UserError(expected="a reference speed and length for Q* = Q/(V/L)²", got="none",
                         file=str(case.source), key="reference",
                         fix="run on a case of a caseprep sweep (manifest.json), or pass --speed and --length")
-    q_scale = (refs.speed / refs.length) ** 2
+    ql = float(q_length) if q_length else refs.length
+    q_scale = (refs.speed / ql) ** 2
     gd = gd or gradient_data(case, velocity, with_lambda2=False, speed=refs.speed, length=refs.length)
     b = case.grid.bounds
     if stations is None:
         ext = body_extent(case, refs)
         x_front = ext[0] if ext else b[0]
         L = refs.length
-        xs = vx.default_stations(x_front, L, b[0], b[1])
+        xs = vx.default_stations(x_front, L, b[0], b[1], x_tail=ext[1] if ext else None)
         if xs.size == 0:
             xs = np.linspace(b[0], b[1], 22)[1:-1]
     else:
@@ -217,7 +227,7 @@ def analyse_vortices(case: flowio.FlowCase, *, stations=None, q_star: float = 10
             vol = gd.volumes[ids] if gd.volumes is not None else flowio.cell_volumes(case.grid, ids)
             regs = vx.q_regions(gd.adjacency, q, thr, gd.centres, vol, gd.fields.vorticity)
     return vx.VortexResult(stations=xs, cores=cores, tracks=tracks, regions=regs, q_threshold=thr, q_scale=q_scale,
-                           wall_cells_excluded=n_excl, wall_rotation_min=wall_rotation_min)
+                           wall_cells_excluded=n_excl, wall_rotation_min=wall_rotation_min, q_length=ql)
 
 
 def _station_section(case, refs, x, y_range, pressure, velocity, use_floor: bool):
@@ -295,7 +305,8 @@ def analyse_diffuser(case: flowio.FlowCase, *, throat: float | None = None, exit
             raise UserError(expected="finite pressure and velocity on the station", got="NaN/inf",
                             file=str(case.source), key=f"x = {x}", fix="the run diverged; check the solver log")
         results.append(dif.station_average(x, s.areas[m], p, u, refs.rho))
-    return dif.pressure_recovery(results[0], results[1], refs.rho)
+    return dif.pressure_recovery(results[0], results[1], refs.rho, p_ref=refs.p_ref if refs.speed else None,
+                                 speed=refs.speed)
 
 
 def analyse_underbody(case: flowio.FlowCase, *, lines=(0.0,), speed: float | None = None,
@@ -338,6 +349,23 @@ def analyse_underbody(case: flowio.FlowCase, *, lines=(0.0,), speed: float | Non
                                                     ub.pressure_coefficient(pv, refs.speed, p_ref_k), win).to_dict()
             except ValueError:
                 out["ground"] = None
+    # the whole underside seen from below on a plan grid: area integrals of Cp
+    parts = [case.patches[n] for n in refs.body_patches if n in case.patches]
+    if parts and all(s.cell_values(pressure) is not None for s in parts):
+        pts, offs, conn, cps = [], [np.zeros(1, dtype=np.int64)], [], []
+        bp = bc = 0
+        for s in parts:
+            pts.append(np.asarray(s.points, dtype=float))
+            offs.append(np.asarray(s.offsets[1:], dtype=np.int64) + bc)
+            conn.append(np.asarray(s.connectivity, dtype=np.int64) + bp)
+            cps.append(ub.pressure_coefficient(s.cell_values(pressure), refs.speed, p_ref_k))
+            bp += pts[-1].shape[0]
+            bc += int(s.offsets[-1])
+        P = np.concatenate(pts)
+        lo, hi = P.min(axis=0), P.max(axis=0)
+        grid = PlanGrid.covering(lo[0], hi[0], lo[1], hi[1], plan_spacing(refs, hi[0] - lo[0]))
+        r = rasterise_lowest(P, np.concatenate(offs), np.concatenate(conn), grid, {"cp": np.concatenate(cps)})
+        out["underside"] = ub.underside_integrals(r.values["cp"], grid.spacing).to_dict()
     out["notes"] = list(refs.notes)
     return out
 
@@ -407,3 +435,309 @@ def analyse_walls(case: flowio.FlowCase, *, target: tuple[float, float] = (30.0,
             upper = 5.0 * 0.5 * refs.speed**2
         flags.append(wc.field_flags(name, arr, X, lower=lower, upper=upper).to_dict())
     return {"yplus": patches, "shear_reversals": reversals, "field_flags": flags, "notes": notes}
+
+
+#: Default core thresholds on Q/(V/ℓ)² by the length ℓ in the normalisation:
+#: the reference length L ("length", the wheelbase for a car) or the gap
+#: scale h ("gap", the ride height). Our choice, no source: see the README
+#: ("postproc: vortices …") for what they give on the demo floors.
+Q_STAR_DEFAULTS = {"length": 100.0, "gap": 0.01}
+
+
+def q_normalisation(case: flowio.FlowCase, q_scale: str = "auto", gap: float | None = None) -> tuple[str, float | None]:
+    """Which length normalises Q: ("gap", h) with h = ``gap`` or the case's
+    ride height (:func:`gap_scale`), or ("length", None) for the reference
+    length. ``q_scale`` "auto" takes the gap when one is known."""
+    if q_scale not in ("auto", "gap", "length"):
+        raise UserError(expected="a Q scale 'auto', 'gap' or 'length'", got=q_scale, key="--q-scale",
+                        fix="use --q-scale gap (ride height) or --q-scale length (reference length)")
+    h = gap if gap is not None else gap_scale(case.record)
+    if gap is not None and not gap > 0:
+        raise UserError(expected="a positive gap scale (m)", got=gap, key="--gap", fix="give the ride height in m")
+    if q_scale == "length" or (q_scale == "auto" and h is None):
+        return "length", None
+    if h is None:
+        raise UserError(expected="a ride height for the gap scale (V/h)²", got="none (no sweep manifest)",
+                        file=str(case.source), key="--q-scale gap",
+                        fix="pass --gap H (m), or --q-scale length to normalise by the reference length")
+    return "gap", h
+
+
+def flow_payload(case: flowio.FlowCase, *, q_star: float | None = None, q_scale: str = "auto",
+                 gap: float | None = None, target: tuple[float, float] = (30.0, 300.0),
+                 gd: GradientData | None = None) -> tuple[dict, GradientData | None]:
+    """All flow-structure results of one case (vortices, diffuser,
+    underbody, walls) as one JSON-ready dict, each part replaced by
+    ``{"error": message}`` when it cannot be computed — what ``postproc
+    flow`` prints and what the sweep reduces to its flow columns
+    (:mod:`postproc.caseflow`). Also returns the gradient data it used (None
+    when the velocity is unusable) so that a caller can reuse it.
+
+    ``q_scale``/``gap``: the normalisation of Q (:func:`q_normalisation`);
+    ``q_star``: the core threshold (default :data:`Q_STAR_DEFAULTS`).
+    """
+    payload: dict = {"source": str(case.source), "case_id": case.record.case_id if case.record else None}
+    errors: dict[str, str] = {}
+    r0 = references(case)
+    ext = body_extent(case, r0)
+    payload["frame"] = {"axes": "body frame: x rearward, y right, z up, m",
+                        "body_x": list(ext) if ext is not None else None,
+                        "ground_point": r0.ground_point.tolist(), "ground_normal": r0.ground_normal.tolist()}
+    try:
+        kind, h = q_normalisation(case, q_scale, gap)
+        thr = float(q_star) if q_star is not None else Q_STAR_DEFAULTS[kind]
+        payload["q_normalisation"] = {"scale": kind, "gap": h, "threshold": thr}
+    except UserError as exc:
+        kind, h, thr = None, None, None
+        errors["vortices"] = str(exc)
+    centres = None
+    if gd is None and kind is not None:
+        try:
+            gd = gradient_data(case, with_lambda2=False, speed=r0.speed, length=r0.length)
+        except UserError as exc:
+            errors["vortices"] = str(exc)
+    if gd is not None:
+        centres = gd.centres
+    parts = {
+        "vortices": lambda: analyse_vortices(case, q_star=thr, q_length=h, gd=gd).to_dict(),
+        "diffuser": lambda: analyse_diffuser(case).to_dict(),
+        "underbody": lambda: analyse_underbody(case),
+        "walls": lambda: analyse_walls(case, target=target, centres=centres),
+    }
+    for name, fn in parts.items():
+        if name in errors:
+            payload[name] = {"error": errors[name]}
+            continue
+        try:
+            payload[name] = fn()
+        except UserError as exc:
+            payload[name] = {"error": str(exc)}
+    return payload, gd
+
+
+# --------------------------------------------------------------------------- the sweep's flow columns
+
+# Per-case flow metrics for the sweep table, and the picture scene of a
+# case: one pass over the case's volume result.
+#
+# The metrics are a reduction of exactly the payload ``postproc flow`` prints
+# (:func:`flow_payload`, same defaults), so that a number
+# in the sweep table equals the one ``postproc flow`` gives for the same case.
+#
+# Columns (all SI or dimensionless; body frame x rearward, y right, z up):
+#
+# ``diffuser_cpr``            C_pr = (p̄_exit − p̄_throat)/(½ρū_throat²)
+# ``diffuser_cpr_ideal``      1 − (A_throat/A_exit)² (closed-duct ideal)
+# ``diffuser_cpr_ideal_bulk`` 1 − (ū_exit/ū_throat)² (ideal of the actual bulk
+#                             deceleration; open sides, moving ground)
+# ``diffuser_effectiveness``  C_pr / C_pr,ideal; ``..._bulk`` against the bulk ideal
+# ``diffuser_side_inflow``    (ṁ_exit − ṁ_throat)/ṁ_throat
+# ``diffuser_cp_throat``      (p̄_throat − p_ref)/(½ρV²)
+# ``diffuser_throat_x``, ``diffuser_exit_x``  stations (m)
+# ``vortex_<s>_circulation``  main pair at station s (s = % of the floor length
+#                             from its leading edge): mean |Γ| of the strongest
+#                             core of each sense (m²/s)
+# ``vortex_<s>_y``            half the spanwise distance between the pair's
+#                             centres (m); ``vortex_<s>_height`` their mean height
+#                             above the ground (m); ``vortex_<s>_x`` the station used
+# ``separation_x``            first separation (streamwise wall shear changing
+#                             from the attached sign) on the centreline between
+#                             throat and exit (m; None: attached on the ramp;
+#                             without a diffuser: on the rear half of the floor);
+#                             ``separation_fraction`` its position from throat (0)
+#                             to exit (1)
+# ``floor_suction_line``      −∫ min(Cp, 0) dx along the centreline (m)
+# ``floor_suction_area``      −∫ min(Cp, 0) dA over the underside seen from below (m²)
+# ``floor_cp_mean``           ∫ Cp dA / plan area of the underside
+
+#: main-pair stations, as fractions of the floor length from its leading edge
+PAIR_STATIONS = (0.70, 0.85, 1.00)
+#: a pair is taken from the station nearest each of them that holds one, within this fraction of the floor length
+PAIR_WINDOW = 0.05
+
+
+@dataclass(frozen=True)
+class FlowOptions:
+    """Settings of the per-case flow pass (one object instead of a long
+    argument list). ``q_scale``/``q_star``/``gap`` as for ``postproc flow``;
+    ``target`` the y+ range of the wall treatment; ``pair_stations`` where
+    the main vortex pair is reported; ``scene`` whether the picture scene is
+    built; ``plan_cells`` plan-grid cells along the body for the pictures."""
+
+    q_scale: str = "auto"
+    q_star: float | None = None
+    gap: float | None = None
+    target: tuple[float, float] = (30.0, 300.0)
+    pair_stations: tuple[float, ...] = PAIR_STATIONS
+    scene: bool = False
+    plan_cells: int = 320
+
+
+@dataclass(frozen=True)
+class FlowMetrics:
+    """The flow columns of one case (see the module docstring) and why any
+    part is missing."""
+
+    columns: dict
+    notes: tuple[str, ...] = ()
+
+    def to_dict(self) -> dict:
+        return {**self.columns, "flow_notes": "; ".join(self.notes)}
+
+
+def _num(v):
+    return float(v) if v is not None and isinstance(v, (int, float)) and math.isfinite(v) else None
+
+
+def station_label(frac: float) -> str:
+    return f"{round(100 * frac):d}"
+
+
+def flow_metrics(payload: dict, options: FlowOptions = FlowOptions()) -> FlowMetrics:
+    """Reduce a ``postproc flow`` payload to the sweep's flow columns."""
+    cols: dict = {}
+    notes: list[str] = []
+    d = payload.get("diffuser") or {}
+    keys = ("cpr", "cpr_ideal", "cpr_ideal_bulk", "effectiveness", "effectiveness_bulk", "side_inflow", "cp_throat",
+            "throat_x", "exit_x", "area_ratio")
+    if "error" in d:
+        notes.append("diffuser: " + d["error"].splitlines()[0])
+    for k in keys:
+        cols[f"diffuser_{k}"] = None if "error" in d else _num(d.get(k))
+    # main vortex pair at the fixed stations
+    v = payload.get("vortices") or {}
+    frame = payload.get("frame") or {}
+    ub = payload.get("underbody") or {}
+    line0 = next((ln for ln in ub.get("lines", []) if not ln.get("missing") and abs(ln.get("y", 1.0)) < 1e-12), None)
+    floor_x = None
+    if line0 is not None and line0.get("x"):
+        floor_x = (min(line0["x"]), max(line0["x"]))
+    elif frame.get("body_x"):
+        floor_x = tuple(frame["body_x"])
+    gp = np.asarray(frame.get("ground_point", [0, 0, 0]), float)
+    gn = np.asarray(frame.get("ground_normal", [0, 0, 1]), float)
+    stations = v.get("stations", []) if "error" not in v else []
+    if "error" in v:
+        notes.append("vortices: " + v["error"].splitlines()[0])
+    for frac in options.pair_stations:
+        lab = station_label(frac)
+        out = {"x": None, "circulation": None, "y": None, "height": None}
+        if stations and floor_x is not None:
+            span = floor_x[1] - floor_x[0]
+            xt = floor_x[0] + frac * span
+            # the station nearest the fixed position that holds a pair, within ±PAIR_WINDOW of the floor length
+            near = sorted((st for st in stations if abs(st["x"] - xt) <= PAIR_WINDOW * span),
+                          key=lambda st: abs(st["x"] - xt))
+            for st in near:
+                best = {}
+                for c in st["cores"]:
+                    sn = int(c["sense"])
+                    if sn not in best or abs(c["circulation"]) > abs(best[sn]["circulation"]):
+                        best[sn] = c
+                if +1 in best and -1 in best:
+                    a, b = best[+1], best[-1]
+                    out["x"] = float(st["x"])
+                    out["circulation"] = 0.5 * (abs(a["circulation"]) + abs(b["circulation"]))
+                    out["y"] = 0.5 * abs(a["centre"][1] - b["centre"][1])
+                    out["height"] = float(np.mean([(np.asarray(c["centre"]) - gp) @ gn for c in (a, b)]))
+                    break
+        for k, val in out.items():
+            cols[f"vortex_{lab}_{k}"] = _num(val)
+    # separation on the ramp (centreline)
+    w = payload.get("walls") or {}
+    sep = None
+    if "error" in w:
+        notes.append("walls: " + w["error"].splitlines()[0])
+    else:
+        # on the ramp: from the throat to the exit (without a diffuser: the rear half of the floor)
+        tx, ex = cols.get("diffuser_throat_x"), cols.get("diffuser_exit_x")
+        if tx is not None and ex is not None:
+            x_from, x_to = tx, ex
+        elif floor_x is not None:
+            x_from, x_to = floor_x[0] + 0.5 * (floor_x[1] - floor_x[0]), floor_x[1]
+        else:
+            x_from, x_to = -math.inf, math.inf
+        for rv in w.get("shear_reversals", []):
+            if abs(rv.get("y", 1.0)) > 1e-12:
+                continue
+            for r in rv.get("reversals", []):
+                if r["kind"] == "separation" and x_from <= r["x"] <= x_to and (sep is None or r["x"] < sep):
+                    sep = r["x"]
+    cols["separation_x"] = _num(sep)
+    tx, ex = cols.get("diffuser_throat_x"), cols.get("diffuser_exit_x")
+    cols["separation_fraction"] = (_num((sep - tx) / (ex - tx)) if sep is not None and tx is not None
+                                   and ex is not None and ex > tx else None)
+    # floor suction
+    if "error" in ub:
+        notes.append("underbody: " + ub["error"].splitlines()[0])
+    cols["floor_suction_line"] = _num(line0.get("suction_integral")) if line0 else None
+    u = ub.get("underside") or {}
+    cols["floor_suction_area"] = _num(u.get("suction_area_integral"))
+    cols["floor_cp_mean"] = _num(u.get("cp_mean"))
+    return FlowMetrics(cols, tuple(notes))
+
+
+@dataclass(frozen=True, eq=False)
+class CaseFlow:
+    """The flow pass of one case: its metrics, the ``postproc flow``
+    payload, the picture scene (None unless asked for) and the time taken."""
+
+    metrics: FlowMetrics
+    payload: dict
+    scene: object | None = None
+    seconds: dict = field(default_factory=dict)
+    scene_error: str | None = None
+
+
+def analyse_case_flow(source, options: FlowOptions = FlowOptions(), *, label: str | None = None) -> CaseFlow:
+    """Read a case (folder, .vtm or .vtu) once and compute its flow payload,
+    its flow columns and, with ``options.scene``, its picture scene.
+    Raises UserError when the case has no readable volume result."""
+    t0 = time.perf_counter()
+    case = source if isinstance(source, flowio.FlowCase) else flowio.read_flow(Path(source))
+    t1 = time.perf_counter()
+    payload, gd = flow_payload(case, q_star=options.q_star, q_scale=options.q_scale, gap=options.gap,
+                                  target=options.target)
+    t2 = time.perf_counter()
+    metrics = flow_metrics(payload, options)
+    scene = None
+    scene_error = None
+    if options.scene:
+        refs = references(case)
+        qn = payload.get("q_normalisation") or {}
+        v = payload.get("vortices") or {}
+        vres = None
+        if gd is not None and "error" not in v:
+            vres = _tracks_only(v)
+        rec = case.record
+        q_scale = v.get("q_scale") if "error" not in v else None
+        try:
+            scene = build_scene(case, refs, label=label or (rec.case_id if rec else str(case.source)),
+                                variant=rec.variant if rec else "", case_id=rec.case_id if rec else str(case.source),
+                                gd=gd, vortices=vres, q_scale=q_scale, q_level=qn.get("threshold"),
+                                spacing=None)
+        except UserError as exc:
+            scene_error = str(exc).splitlines()[0]
+    t3 = time.perf_counter()
+    return CaseFlow(metrics, payload, scene, {"read": t1 - t0, "flow": t2 - t1, "scene": t3 - t2}, scene_error)
+
+
+@dataclass(frozen=True)
+class _Track:
+    centres: np.ndarray
+    sense: int
+    members: tuple
+
+
+@dataclass(frozen=True)
+class _Tracks:
+    tracks: tuple
+    wall_rotation_min: float | None
+
+
+def _tracks_only(v: dict) -> _Tracks:
+    """The tracks of a vortices payload in the shape the scene builder reads."""
+    tr = tuple(_Track(np.asarray(t["centres"], float), int(t["sense"]), tuple(t["stations"])) for t in v["tracks"])
+    return _Tracks(tr, v.get("wall_rotation_min"))
+
+

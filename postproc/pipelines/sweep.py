@@ -12,8 +12,12 @@ Outputs (in the sweep folder unless told otherwise, atomic writes):
 * ``results.csv`` and ``results.json`` — one row per case (``results.json``
   also holds the ranking, the mesh study and the fitted aero maps).
 
-The HTML report (``report.html``, :mod:`postproc.report.sweep_report`) is
-rendered from the returned :class:`SweepAnalysis`.
+Besides the forces, each case with a volume result gets its flow columns
+(:mod:`postproc.pipelines.case_flow`: diffuser recovery, main vortex pair,
+ramp separation, floor suction — the numbers ``postproc flow`` gives), and
+one case per variant (the same operating point for all) its picture scene.
+The HTML report (``report.html``, :mod:`postproc.report`) is rendered from
+the returned :class:`SweepAnalysis` (its ``report_data``).
 
 Coefficients are in the wind axes of caseprep.contract.frames (C_L positive up,
 downforce = −C_L; C_D along the relative wind; C_S along +y_W), on the
@@ -29,8 +33,10 @@ max(|its mean|, the resultant force), drift and std tolerance 1 %;
 """
 from __future__ import annotations
 
+import contextlib
 import csv
 import io
+import json
 import math
 import os
 from dataclasses import asdict, dataclass, field, replace
@@ -41,9 +47,12 @@ import numpy as np
 
 from caseprep.contract import walls
 from caseprep.contract.atomicio import json_ready, write_json_atomic, write_text_atomic
+from caseprep.contract.convergence import settle_window
+from caseprep.contract.monitor import read_monitor
 from caseprep.contract.errors import UserError
+from caseprep.contract.locking import refuse_interrupted, sweep_lock
 from caseprep.contract.manifest import CaseRecord, Manifest, read_manifest
-from caseprep.contract.records import Flag, Status, as_flag, effective_status, flag_meaning, read_case_record
+from caseprep.contract.records import Flag, Status, as_flag, effective_status, flag_meaning, load_case_record, read_case_record
 from postproc.io.exports import latest_export
 from postproc.io.surfaces import read_surface
 from postproc.kernels import wallchecks as wc
@@ -51,7 +60,11 @@ from postproc.kernels.aeromap import fit_response_surface, map_grid
 from postproc.kernels.polygons import face_geometry
 from postproc.kernels.meshstudy import grid_convergence, representative_cell_size
 from postproc.kernels.ranking import CaseResult, VariantScore, rank_variants
+from postproc.pipelines.case_flow import FlowOptions, analyse_case_flow
 from postproc.pipelines.case_forces import ForcesReport, forces_report
+from postproc.pipelines.case_scene import scene_difference
+from postproc.pipelines.report_data import (ReportOptions, assemble, check_baseline, choose_picture_cases,
+                                            history_from_monitor)
 
 RESULTS_DIR = "results"
 
@@ -71,6 +84,10 @@ class CaseOutcome:
     notes: tuple[str, ...] = ()
     report: ForcesReport | None = field(default=None, repr=False)
     yplus: dict[str, dict] = field(default_factory=dict)
+    flow: dict[str, Any] = field(default_factory=dict)
+    scene: Any = field(default=None, repr=False)
+    history: Any = field(default=None, repr=False)
+    seconds: dict[str, float] = field(default_factory=dict)
     cell_size: float | None = None  # h = (V/N)^(1/3), m, from the real cell count
 
     def row(self) -> dict[str, Any]:
@@ -84,6 +101,7 @@ class CaseOutcome:
             a = self.yplus[ALL_WALLS]  # all body and wheel faces together
             r.update(yplus_median=a["median"], yplus_p95=a["p95"], yplus_max=a["max"],
                      yplus_share_in_range=a["share_in_target"], yplus_range="{:g}-{:g}".format(*a["target"]))
+        r.update(self.flow)
         r["notes"] = "; ".join(self.notes)
         return r
 
@@ -128,14 +146,26 @@ def wall_yplus(case_dir: Path, case: CaseRecord) -> tuple[dict[str, dict], str |
     return out, None
 
 
-def process_case(manifest: Manifest, case: CaseRecord) -> CaseOutcome:
+def process_case(manifest: Manifest, case: CaseRecord, flow: FlowOptions | None = None) -> CaseOutcome:
     """Post-process one case of ``manifest``: its run record, its forces
-    report (when its export exists) and its :class:`CaseResult` row."""
+    report (when its export exists), its :class:`CaseResult` row, its force
+    history and, with ``flow``, its flow columns (and its picture scene when
+    ``flow.scene``)."""
+    import time
+
+    t_start = time.perf_counter()
     case_dir = manifest.case_dir(case)
-    rec = read_case_record(case_dir)
-    flags: list[str] = list(rec.flags) if rec is not None else []
-    status = effective_status(rec) if rec is not None else Status.NOT_RUN
     notes: list[str] = []
+    try:
+        rec = load_case_record(case_dir)
+        unreadable_record = False
+    except UserError as exc:
+        rec, unreadable_record = None, True
+        notes.append(f"run record: {exc}".replace("\n", " "))
+    flags: list[str] = list(rec.flags) if rec is not None else []
+    if unreadable_record:
+        flags.append(Flag.RECORD_UNREADABLE)
+    status = effective_status(rec) if rec is not None else Status.NOT_RUN
     p = case.params
     base = dict(
         case_id=case.case_id,
@@ -198,10 +228,32 @@ def process_case(manifest: Manifest, case: CaseRecord) -> CaseOutcome:
     if rec is not None and rec.layers:
         layers = ", ".join(f"{d.get('patch')} {d.get('thickness_percent'):.0f} %" for d in rec.layers
                            if d.get("thickness_percent") is not None) or None
+    t_forces = time.perf_counter()
+    flow_cols: dict[str, Any] = {}
+    scene = None
+    if flow is not None and exported:
+        try:
+            cf = analyse_case_flow(case_dir, flow, label=case.case_id)
+            flow_cols = cf.metrics.to_dict()
+            scene = cf.scene
+            if cf.scene_error:
+                notes.append("picture: " + cf.scene_error)
+        except UserError as exc:
+            notes.append("flow: " + str(exc).splitlines()[0])
+    history = None
+    if report is not None:
+        try:
+            mon = read_monitor(case_dir)
+            n = len(mon.get("Time", ()))
+            history = history_from_monitor(case.case_id, mon, settle_window(n), verdict or "", bool(result.flags))
+        except UserError:
+            pass
     return CaseOutcome(result=result, status=status, cells=rec.cells if rec else None,
                        cell_size=case_cell_size(case, rec.cells if rec else None),
                        iterations=rec.iterations if rec else None, convergence=verdict,
-                       notes=tuple(notes), report=report, yplus=yplus, layers=layers)
+                       notes=tuple(notes), report=report, yplus=yplus, layers=layers, flow=flow_cols, scene=scene,
+                       history=history, seconds={"forces": t_forces - t_start,
+                                                 "flow": time.perf_counter() - t_forces})
 
 
 #: nominal cell size of mesh level m relative to level 0: each level scales
@@ -259,16 +311,33 @@ def mesh_study(results: list[CaseResult], cell_sizes: dict[str, float | None] | 
     return out
 
 
+#: First characters that make a spreadsheet evaluate a cell as a formula (or
+#: a command) when a CSV file is opened: OWASP, "CSV Injection" (common
+#: practice). A text cell starting with one of them gets a leading apostrophe.
+FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
+
+
+def spreadsheet_safe(value: object) -> object:
+    """``value`` for a CSV cell: text that a spreadsheet would evaluate
+    (starting with one of :data:`FORMULA_START`) is prefixed with ``'`` so it
+    stays text; numbers are left alone (they are written by us)."""
+    if isinstance(value, str) and value.startswith(FORMULA_START):
+        return "'" + value
+    return value
+
+
 def _csv(rows: list[dict[str, Any]]) -> str:
+    """The rows as CSV: floats with 6 significant digits, NaN/inf and None
+    empty, text cells neutralised for spreadsheets (:func:`spreadsheet_safe`)."""
     cols: list[str] = []
     for r in rows:
         cols += [k for k in r if k not in cols]
     buf = io.StringIO()
     w = csv.writer(buf, lineterminator="\n")
-    w.writerow(cols)
+    w.writerow([spreadsheet_safe(c) for c in cols])
     for r in rows:
         w.writerow(["" if r.get(k) is None or (isinstance(r.get(k), float) and not math.isfinite(r[k]))
-                    else (f"{r[k]:.6g}" if isinstance(r.get(k), float) else r[k]) for k in cols])
+                    else (f"{r[k]:.6g}" if isinstance(r.get(k), float) else spreadsheet_safe(r[k])) for k in cols])
     return buf.getvalue()
 
 
@@ -302,10 +371,13 @@ def aero_maps(results: list[CaseResult]) -> list[dict[str, Any]]:
         if len(set(hf)) > 1 and len(set(hr)) > 1:
             front, rear, values = map_grid(fit, hf, hr, MAP_GRID_POINTS)
             grid = {"front": front, "rear": rear, "values": values}
+        measured = [-r.cl for r in rows]
         out.append({"variant": v, "coefficient": "downforce", "label": "−C_L", "degree": fit.degree,
                     "n_points": fit.n_points, "r2": fit.r2, "rms": fit.rms,
                     "d_front_per_mm": float(g[0]) / 1000.0, "d_rear_per_mm": float(g[1]) / 1000.0,
-                    "points": {"front": hf, "rear": hr}, "grid": grid})
+                    "points": {"front": hf, "rear": hr, "value": measured,
+                               "error": [float(fit(a, b)) - m for a, b, m in zip(hf, hr, measured)]},
+                    "grid": grid})
     return out
 
 
@@ -328,6 +400,7 @@ class SweepAnalysis:
     checks: tuple[dict[str, Any], ...] = ()
     outcomes: tuple[CaseOutcome, ...] = ()
     paths: dict[str, Path] = field(default_factory=dict)
+    report_data: Any = field(default=None, repr=False)
 
 
 def analyse_results(results: list[CaseResult], title: str = "Sweep report", study: str = "",
@@ -335,14 +408,57 @@ def analyse_results(results: list[CaseResult], title: str = "Sweep report", stud
                     mesh: list[dict] | None = None, cell_sizes: dict[str, float | None] | None = None) -> SweepAnalysis:
     """Rank the variants, fit the aero maps and (unless ``mesh`` is given)
     run the mesh study over ``results`` (``cell_sizes``: case id → h, m);
-    returns the :class:`SweepAnalysis`."""
-    return SweepAnalysis(title=title, study=study, results=tuple(results), ranking=tuple(rank_variants(results)),
-                         aero_maps=tuple(aero_maps(results)),
-                         mesh_study=tuple(mesh_study(results, cell_sizes) if mesh is None else mesh),
-                         notes=tuple(notes or ()), checks=tuple(checks or ()))
+    returns the :class:`SweepAnalysis` with its report data (no flow
+    numbers, pictures or histories: those need the cases' files,
+    :func:`postprocess_sweep`)."""
+    ranking = tuple(rank_variants(results))
+    maps = tuple(aero_maps(results))
+    study_rows = tuple(mesh_study(results, cell_sizes) if mesh is None else mesh)
+    data = assemble(results, title=title, study=study, notes=notes or (), checks=checks or (),
+                    mesh_study=list(study_rows), aero_maps=list(maps), ranking=list(ranking),
+                    options=ReportOptions(pictures=False))
+    return SweepAnalysis(title=title, study=study, results=tuple(results), ranking=ranking, aero_maps=maps,
+                         mesh_study=study_rows, notes=tuple(notes or ()), checks=tuple(checks or ()),
+                         report_data=data)
 
 
 REPORT_NAME = "report.html"
+
+
+def _iterative_spread(outcomes: list[CaseOutcome]) -> dict[str, tuple[float, float]]:
+    """Per variant: the RMS over its unflagged cases of the runtime force
+    monitor's standard deviation over the settling window, as coefficient
+    half-widths (−C_L, C_D): the std of the body-axes force over qA (body
+    and wind axes differ by the pitch and yaw angles, a few degrees: cos 4°
+    = 0.998). Variants without monitor statistics are left out."""
+    acc: dict[str, list[tuple[float, float]]] = {}
+    for o in outcomes:
+        rep = o.report
+        if o.result.flags or rep is None or rep.convergence is None or rep.reference is None:
+            continue
+        stats = rep.convergence.series
+        fz, fx = stats.get("force.total_z"), stats.get("force.total_x")
+        qa = float(rep.reference.q) * float(rep.reference.area)
+        if fz is not None and fx is not None and qa > 0 and math.isfinite(fz.std) and math.isfinite(fx.std):
+            acc.setdefault(o.result.variant, []).append((float(fz.std) / qa, float(fx.std) / qa))
+    return {v: (float(np.sqrt(np.mean([a * a for a, _ in xs]))), float(np.sqrt(np.mean([b * b for _, b in xs]))))
+            for v, xs in acc.items()}
+
+
+def _planned_rows(manifest: Manifest) -> list[CaseResult]:
+    """The sweep's points with the runner's flags, before any forces (to
+    choose the pictured cases while the cases are read the first time)."""
+    rows = []
+    for c in manifest.cases:
+        rec = read_case_record(manifest.case_dir(c))
+        p = c.params
+        rows.append(CaseResult(case_id=c.case_id, variant=c.variant,
+                               ride_height_front=float(p.get("ride_height_front", math.nan)),
+                               ride_height_rear=float(p.get("ride_height_rear", math.nan)),
+                               pitch_deg=float(p.get("pitch_deg", 0.0)), yaw_deg=float(p.get("yaw_deg", 0.0)),
+                               cl=0.0, cd=0.0, mesh_level=int(p.get("mesh_level", 0)),
+                               flags=tuple(rec.flags) if rec is not None else (Flag.NOT_RUN,)))
+    return rows
 
 
 def postprocess_sweep(
@@ -351,30 +467,68 @@ def postprocess_sweep(
     title: str | None = None,
     progress: Callable[[int, int, CaseOutcome], None] | None = None,
     force: bool = False,
+    options: ReportOptions = ReportOptions(),
+    flow: FlowOptions | None = None,
 ) -> SweepAnalysis:
     """Post-process every case of a sweep and write the tables.
 
     ``out_dir`` defaults to the sweep folder. ``progress(i, n, outcome)`` is
     called after each case. Existing results (tables or report) are not
-    replaced unless ``force`` (UserError naming the file). Returns the
-    :class:`SweepAnalysis` with the outcomes and the paths (keys ``csv``,
-    ``json``, ``cases`` written; ``report`` where the report belongs).
-    Raises UserError for a folder that is not a sweep.
+    replaced unless ``force`` (UserError naming the file). ``options``
+    choose the pictured operating point and the baseline of the difference
+    pictures (a baseline that is not a variant of the sweep is a UserError
+    naming the available ones) and whether pictures are wanted; ``flow``
+    the per-case flow pass (default :class:`FlowOptions`). Returns the
+    :class:`SweepAnalysis` with the outcomes, the paths (keys ``csv``,
+    ``json``, ``cases`` written; ``report`` where the report belongs) and
+    ``report_data`` (:class:`postproc.pipelines.report_data.ReportData`),
+    what the report renders. Raises UserError for a folder that is not a
+    sweep.
     """
-    manifest = read_manifest(sweep_dir)
-    out = Path(out_dir) if out_dir is not None else Path(manifest.root or sweep_dir)
+    flow = flow or FlowOptions()
+    root = Path(read_manifest(sweep_dir).root or sweep_dir)  # not a sweep: refused before anything is created
+    out = Path(out_dir) if out_dir is not None else root
+    with contextlib.ExitStack() as locks:  # one command at a time in the sweep (and the output) folder
+        locks.enter_context(sweep_lock(root, "postproc sweep"))
+        if out.resolve() != root.resolve():
+            locks.enter_context(sweep_lock(out, "postproc sweep"))
+        refuse_interrupted(root, "postproc sweep")
+        return _postprocess_locked(read_manifest(root), out, title, progress, force, options, flow)
+
+
+def _postprocess_locked(manifest: Manifest, out: Path, title, progress, force: bool, options: ReportOptions,
+                        flow: FlowOptions) -> SweepAnalysis:
+    """:func:`postprocess_sweep` holding the locks."""
+    sweep_dir = manifest.root
     existing = [p for p in (out / "results.csv", out / "results.json", out / REPORT_NAME) if p.exists()]
     if existing and not force:
         raise UserError(expected="no earlier results in the output folder", got=", ".join(str(p) for p in existing),
                         fix="pass --force to replace them, or -o to write somewhere else")
+    variants = list(dict.fromkeys(c.variant for c in manifest.cases))
+    # the config's [report] settings (carried by the manifest records) unless given here
+    cfg = next((dict(c.info["report"]) for c in manifest.cases if isinstance(c.info.get("report"), dict)), {})
+    options = replace(
+        options,
+        baseline=options.baseline if options.baseline is not None else cfg.get("baseline"),
+        reference_ride_height=(options.reference_ride_height if options.reference_ride_height is not None
+                               else cfg.get("picture_ride_height")),
+        reference_yaw_deg=options.reference_yaw_deg if options.reference_yaw_deg is not None else cfg.get("picture_yaw_deg"))
+    baseline = check_baseline(options.baseline, variants,
+                              "--baseline" if options.baseline is None or "baseline" not in cfg
+                              else "report.baseline (config, in the manifest)")
+    # the pictured cases, from the plan and the runner's flags (forces may add flags: checked below)
+    want_scene = ({pc.case_id for pc in choose_picture_cases(_planned_rows(manifest), variants, options)}
+                  if options.pictures else set())
     outcomes = []
     n = len(manifest.cases)
     for i, case in enumerate(manifest.cases):
-        o = process_case(manifest, case)
+        o = process_case(manifest, case, replace(flow, scene=case.case_id in want_scene))
         outcomes.append(o)
         if o.report is not None:
-            write_json_atomic(out / RESULTS_DIR / f"{case.case_id}.json",
-                              json_ready({**o.report.to_dict(), "yplus": o.yplus, "flags": list(o.result.flags)}))
+            write_json_atomic(out / RESULTS_DIR / f"{case.case_id}.json",  # case ids are checked names
+                              json_ready({**o.report.to_dict(), "yplus": o.yplus, "flow": o.flow,
+                                          "flags": list(o.result.flags)}),
+                              root=out)
         if progress is not None:
             progress(i + 1, n, o)
     rows = [o.row() for o in outcomes]
@@ -384,7 +538,7 @@ def postprocess_sweep(
         "report": out / REPORT_NAME,
         "cases": out / RESULTS_DIR,
     }
-    write_text_atomic(paths["csv"], _csv(rows))
+    write_text_atomic(paths["csv"], _csv(rows), root=out)
     notes = []
     flags = sorted({f for o in outcomes for f in o.result.flags})
     for f in flags:
@@ -393,11 +547,10 @@ def postprocess_sweep(
     check_keys = ("case_id", "status", "cells", "layers", "iterations", "convergence", "yplus_median", "yplus_p95",
                   "yplus_share_in_range", "yplus_range")
     checks = [{k: r.get(k) for k in check_keys} for r in rows]
-    analysis = analyse_results([o.result for o in outcomes],
-                               title=title or f"Sweep report — {manifest.study or Path(sweep_dir).name}",
-                               study=manifest.study, notes=notes, checks=checks,
-                               cell_sizes={o.result.case_id: o.cell_size for o in outcomes})
-    write_json_atomic(paths["json"], json_ready({
+    title = title or options.title or f"Sweep report — {manifest.study or Path(sweep_dir).name}"
+    analysis = analyse_results([o.result for o in outcomes], title=title, study=manifest.study, notes=notes,
+                               checks=checks, cell_sizes={o.result.case_id: o.cell_size for o in outcomes})
+    write_json_atomic(paths["json"], root=out, obj=json_ready({
         "study": manifest.study,
         "axes": "wind axes of caseprep.contract.frames: C_L positive up (downforce = -C_L), C_D along the relative wind, "
                 "C_S along +y_W; balance = front share of downforce; ride heights m; angles deg",
@@ -407,4 +560,51 @@ def postprocess_sweep(
         "mesh_study": list(analysis.mesh_study),
         "aero_maps": list(analysis.aero_maps),
     }))
-    return replace(analysis, outcomes=tuple(outcomes), paths=paths)
+    # the pictured cases again, now with every flag known; a scene still missing is built now
+    results = [o.result for o in outcomes]
+    skipped: list[tuple[str, str]] = []
+    pcs = choose_picture_cases(results, variants, options) if options.pictures else []
+    by_id = {o.result.case_id: o for o in outcomes}
+    scenes = []
+    for pc in pcs:
+        sc = by_id[pc.case_id].scene
+        tried = next((n for n in by_id[pc.case_id].notes if n.startswith(("picture: ", "flow: "))), None)
+        if sc is None and pc.case_id in want_scene and tried:
+            skipped.append((pc.case_id, tried.split(": ", 1)[1]))
+        elif sc is None:
+            try:
+                cf = analyse_case_flow(manifest.case_dir(manifest.case(pc.case_id)), replace(flow, scene=True),
+                                       label=pc.case_id)
+                sc = cf.scene
+                if sc is None:
+                    skipped.append((pc.case_id, cf.scene_error or "no picture scene"))
+            except UserError as exc:
+                skipped.append((pc.case_id, str(exc).splitlines()[0]))
+        if sc is not None:
+            scenes.append(sc)
+    if options.pictures:
+        for v in variants:
+            if v not in {pc.variant for pc in pcs}:
+                skipped.append((v, "no usable case with a volume result to picture"))
+    base = next((sc for sc in scenes if sc.variant == baseline), None)
+    scenes = [scene_difference(sc, base) for sc in scenes]
+    flow_rows = {o.result.case_id: {"variant": o.result.variant, **o.flow} for o in outcomes if o.flow}
+    # analysis results beside the tables (ties, peak/stall, platform), when present: optional report sections
+    extra_notes = []
+    analysis_doc = None
+    apath = out / "analysis.json"
+    if apath.is_file():
+        try:
+            analysis_doc = json.loads(apath.read_text(encoding="utf-8"))
+            if not isinstance(analysis_doc, dict):
+                raise ValueError("not a JSON object")
+        except (ValueError, UnicodeDecodeError) as exc:
+            analysis_doc = None
+            extra_notes.append(f"{apath} not used: {exc}")
+    data = assemble(results, title=title, study=manifest.study, notes=notes + extra_notes, checks=checks,
+                    mesh_study=list(analysis.mesh_study), aero_maps=list(analysis.aero_maps), flow_rows=flow_rows,
+                    scenes=scenes, picture_cases=pcs, pictures_skipped=skipped,
+                    histories=[o.history for o in outcomes if o.history is not None],
+                    spread=_iterative_spread(outcomes), options=replace(options, baseline=baseline),
+                    ranking=list(analysis.ranking), analysis=analysis_doc)
+    return replace(analysis, outcomes=tuple(outcomes), paths=paths, report_data=data)

@@ -328,6 +328,8 @@ class _Slab:
     clearance: float    # smallest underside height above the ground in the slab (m)
     top: float          # 95th percentile of the underside height in the slab (m)
     fluid_volume: float  # m³ above the ground and below the underside, inside the box
+    inboard: tuple[float, float]  # t-range of the flat cells: the covered cells less the edge (m)
+    inboard_share: float  # share of the fluid volume between the inboard bounds
 
 
 def underbody_slabs(underside: Underside, placement: Placement, margin: float, n_slabs: int = UNDERBODY_SLABS) -> tuple[
@@ -339,7 +341,11 @@ def underbody_slabs(underside: Underside, placement: Placement, margin: float, n
     (m) below the ground to the 95th percentile of the underside height over
     the slab plus ``2 margin`` (the few highest cells at the body's rounded
     sides are left out), and sideways over the slab's covered cells ±
-    ``margin``. Returns (slabs, axes rows x_A, y_A, z_A, ground point)."""
+    ``margin``; its inboard part, four margins inside the covered cells on
+    each side, is where the cells are split along the floor normal (flat
+    cells snapped onto the floor's rounded side edges gave boundary faces of
+    skewness up to 6 on the demo floor). Returns (slabs, axes rows x_A, y_A,
+    z_A, ground point)."""
     xA, yA, zA, g0 = axle_axes(placement)
     axes = np.vstack([xA, yA, zA])
     pts = underside.points()
@@ -358,8 +364,15 @@ def underbody_slabs(underside: Underside, placement: Placement, margin: float, n
         a0 = edges[i] - (margin if i == 0 else 0.0)
         a1 = edges[i + 1] + (margin if i == n_slabs - 1 else 0.0)
         covered = float(np.count_nonzero(sel)) * underside.cell_area
-        vol = float(np.clip(h[sel], 0.0, top).sum()) * underside.cell_area + max((a1 - a0) * (t1 - t0) - covered, 0.0) * top
-        slabs.append(_Slab(np.array([a0, t0, -margin]), np.array([a1, t1, top]), float(h[sel].min()), top95, vol))
+        col = np.clip(h[sel], 0.0, top) * underside.cell_area
+        vol = float(col.sum()) + max((a1 - a0) * (t1 - t0) - covered, 0.0) * top
+        # inboard: the covered span less four margins (gap cells) each side, so the floor's rounded side edges stay
+        # in isotropic cells
+        i0, i1 = t0 + 5.0 * margin, t1 - 5.0 * margin
+        ins = (q[sel, 1] >= i0) & (q[sel, 1] <= i1)
+        share = float(col[ins].sum() / col.sum()) if col.sum() > 0 and i1 > i0 else 0.0
+        slabs.append(_Slab(np.array([a0, t0, -margin]), np.array([a1, t1, top]), float(h[sel].min()), top95, vol,
+                           (float(i0), float(i1)), share))
     return slabs, axes, g0
 
 
@@ -521,8 +534,11 @@ def _underbody(body: BodyExtent, lo, hi, placement: Placement, axes, g0, setting
         dg0 = base0 / 2**gp.level
         slabs, sax, sg0 = underbody_slabs(body.underside, placement, dg0)
         for i, (sl, k) in enumerate(zip(slabs, gp.z_splits)):
-            regions.append(RefinementRegion(_box(f"underbody{i}", sg0, sax, sl.lo, sl.hi), gp.level, int(k),
-                                            fluid_volume=sl.fluid_volume))
+            inb = _box(f"underbody{i}_z", sg0, sax, np.array([sl.lo[0], sl.inboard[0], sl.lo[2]]),
+                       np.array([sl.hi[0], sl.inboard[1], sl.hi[2]])) if sl.inboard[1] > sl.inboard[0] else None
+            regions.append(RefinementRegion(_box(f"underbody{i}", sg0, sax, sl.lo, sl.hi), gp.level,
+                                            int(k) if inb is not None else 0, fluid_volume=sl.fluid_volume,
+                                            split_box=inb, split_fraction=sl.inboard_share if inb is not None else 0.0))
         # behind the diffuser: from a quarter length ahead of the tail to one length behind it,
         # up to 1.25 × the exit height (the last slab's underside) and two cells of its level
         tail = max(sl.hi[0] for sl in slabs)
@@ -741,9 +757,10 @@ def plan_empty_section(*, placement: Placement, length: float, width: float, hei
 def estimate_cells(domain: Domain, mesh: MeshSpec, body_area: float, ground_layer_area: float | None = None) -> int:
     """Rough cell count (±50 %) of the finished mesh.
 
-    Background n1·n2·n3; each refinement region adds V (2ᶻ/Δ_r³ − 1/Δ_c³),
+    Background n1·n2·n3; each refinement region adds V (s/Δ_r³ − 1/Δ_c³),
     V its fluid volume (or its box volume), Δ_r = base_cell/2^level its cell,
-    z its splits along the floor normal and Δ_c the cell of the next coarser
+    s = 1 + f (2ᶻ − 1) for z splits along the floor normal over the share f
+    of its volume in its split box, and Δ_c the cell of the next coarser
     level present (regions of one level are taken as disjoint, regions of
     different levels as nested); the body surface adds three cells thick of
     the finest surface cells, A/Δ_s² × 3, and each prism layer A/Δ_s²; with
@@ -758,7 +775,8 @@ def estimate_cells(domain: Domain, mesh: MeshSpec, body_area: float, ground_laye
     for r in mesh.regions:
         dr = d0 / 2**r.level
         V = float(np.prod(r.box.lengths)) if r.fluid_volume is None else float(r.fluid_volume)
-        total += max(V * (2**r.z_splits / dr**3 - 1.0 / coarser[r.level]**3), 0.0)
+        split = 1.0 + r.split_fraction * (2**r.z_splits - 1)  # the split part of the volume has 2^z times the cells
+        total += max(V * (split / dr**3 - 1.0 / coarser[r.level]**3), 0.0)
     ds = d0 / 2**mesh.surface_levels[1]
     surf = body_area / ds**2
     total += 3.0 * surf

@@ -64,6 +64,11 @@ def _table(r: dict) -> str:
     cv = r.get("convergence")
     if cv:
         lines.append(f"convergence of the runtime monitor (last {cv['window']} samples): {cv['verdict']}")
+    cc = r.get("coefficient_convergence")
+    if cc:
+        worst = ", ".join(f"{k} {s['mean']:.4f} ± {s['std']:.4f} (drift {s['drift']:+.4f}, tol {s['tolerance']:g})"
+                          for k, s in cc["series"].items() if s["verdict"] != "converged")
+        lines.append(f"in coefficient counts (window means ± std): {cc['verdict']}" + (f": {worst}" if worst else ""))
     for n in r.get("notes", []) + ((b or {}).get("notes", []) if b else []):
         lines.append(f"note: {n}")
     return "\n".join(lines)
@@ -129,20 +134,24 @@ def forces_cmd(target, patches, rho, kinematic, normals, shear_on, p_ref, about,
 @click.option("--no-pictures", is_flag=True, help="No flow pictures (very large sweeps; flow numbers still computed).")
 @click.option("--force", is_flag=True, help="Replace earlier results in the output folder.")
 @click.option("-q", "--quiet", is_flag=True, help="No per-case progress lines.")
+@click.option("-c", "--config", "config", type=click.Path(dir_okay=False),
+              help="Analysis settings for analysis.json (default: ANALYSIS.toml in the sweep folder, else the "
+                   "sweep config's [analysis] table, else built-in defaults).")
 def sweep_cmd(sweep_dir: str, out_dir: str | None, title: str | None, baseline: str | None,
               picture_ride_height: float | None, picture_yaw: float | None, no_pictures: bool, force: bool,
-              quiet: bool) -> None:
+              quiet: bool, config: str | None) -> None:
     """Post-process every case of SWEEP_DIR (written by `caseprep write`, run
     by `caseprep run`): forces, coefficients, aero balance, convergence, the
     runner's flags and each case's flow numbers → results table, variant
-    ranking and a self-contained HTML report with flow pictures and plots.
+    ranking, analysis.json (as `postproc analyse`) and a self-contained HTML
+    report with flow pictures and plots.
 
     Flagged cases (mesh failed, layers collapsed, not converged, not run…)
     are listed and never ranked.
     """
     from postproc.pipelines.report_data import ReportOptions
     from postproc.pipelines.sweep import postprocess_sweep
-    from postproc.report import write_report
+    from postproc.report import RenderInfo, write_report
 
     def progress(i, n, o):
         if quiet:
@@ -153,14 +162,78 @@ def sweep_cmd(sweep_dir: str, out_dir: str | None, title: str | None, baseline: 
 
     opts = ReportOptions(title=title, baseline=baseline, reference_ride_height=picture_ride_height,
                          reference_yaw_deg=picture_yaw, pictures=not no_pictures)
-    analysis = postprocess_sweep(sweep_dir, out_dir, title=title, progress=progress, force=force, options=opts)
+    analysis = postprocess_sweep(sweep_dir, out_dir, title=title, progress=progress, force=force, options=opts,
+                                 analysis_config=config)
     outcomes, paths = analysis.outcomes, analysis.paths
-    _, info = write_report(analysis, paths["report"])
+    info = RenderInfo()
+    write_report(analysis, paths["report"], info=info)
     n_flag = sum(bool(o.result.flags) for o in outcomes)
     click.echo(f"{len(outcomes)} case(s), {n_flag} flagged (not ranked).")
     click.echo(f"results: {paths['csv']}, {paths['json']}; report: {paths['report']} ({info.size / 1e6:.2f} MB)")
+    if analysis.analysis is not None:
+        dec = analysis.analysis["ranking"]["decision"]
+        click.echo(f"analysis: {paths['analysis']} (decision: {dec['status']}: {dec['message']})")
+    for n in analysis.notes:
+        if n.startswith("analysis.json not written"):
+            click.echo(n)
     click.echo("Caution: CFD is an approximation — validate by physical test; run vehicles only where permitted "
                "and safe; defer to local rules and qualified engineers.")
+
+
+# --------------------------------------------------------------------------- analyse
+
+def _print_analysis(d: dict, path) -> None:
+    def f(x, nd=4):
+        return "—" if x is None else f"{x:.{nd}g}"
+    r = d["ranking"]
+    dec = r["decision"]
+    click.echo(f"source: {d['source']['path']} ({d['source']['rows']} rows, {d['source']['usable_rows']} usable); "
+               f"basis: {r['basis']}; {len(r['common_points'])} of {len(r['envelope'])} points common to all variants")
+    click.echo(f"decision: {dec['status']}: {dec['message']}")
+    for v in r["variants"]:
+        click.echo(f"  {v['rank'] or '-'}. {v['variant']}: score {f(v['score'], 3)} ± {f(v['score_uncertainty'], 2)}"
+                   f"{'' if v['complete'] else '  INCOMPLETE'}{'' if v['eligible'] else '  violates a constraint'}"
+                   + (f"  tie with {', '.join(v['tie_with'])}" if v["tie_with"] else ""))
+    for m in d["maps"]:
+        c = m["coefficients"]["cl"]
+        click.echo(f"map {m['variant']} yaw {m['yaw_deg']:g} {m['speed']:g} m/s level {m['mesh_level']}: "
+                   + (f"{c['model']}, LOO RMS {f(c['loo_rms'], 2)}" if c["status"] == "ok" else f"refused: {c['reason']}"))
+    for p in d["peaks"]:
+        if p["design_line"] or p["stall"]:
+            click.echo(f"peak {p['variant']} yaw {p['yaw_deg']:g} rake {1000 * p['rake']:.1f} mm: stall {p['stall']}, bracketed "
+                       f"{p['peak_bracketed']}, peak at {f(None if p['peak_h'] is None else 1000 * p['peak_h'], 3)} mm"
+                       + (f", design margin {1000 * p['margin']:+.1f} mm ({p['margin_bound']})" if p["margin"] is not None else ""))
+    for p in d["platform"]:
+        click.echo(f"platform {p['variant']}: " + (f"bottoming {f(p['bottoming_speed'], 3)} m/s ({p['bottoming_mode']}), "
+                   f"stall crossing {p['stall_crossing']}" if p["status"] == "ok" else f"refused: {p['reason']}"))
+    for n in d["notes"]:
+        click.echo(f"note: {n}")
+    click.echo(f"written: {path}")
+    click.echo("Caution: " + d["caution"])
+
+
+@main.command("analyse")
+@click.argument("source", type=click.Path())
+@click.option("-c", "--config", "config", type=click.Path(dir_okay=False),
+              help="Analysis settings (ANALYSIS.toml, or a sweep config with an [analysis] table). "
+                   "Default: ANALYSIS.toml beside SOURCE, else built-in defaults.")
+@click.option("-o", "--out", "out_dir", type=click.Path(file_okay=False),
+              help="Folder for analysis.json (default: the sweep folder, or the CSV's folder).")
+@click.option("--json", "as_json", is_flag=True, help="Print analysis.json to stdout instead of the summary.")
+@click.option("--force", is_flag=True, help="Replace an existing analysis.json.")
+def analyse_cmd(source, config, out_dir, as_json, force) -> None:
+    """Aero maps with error bars, peak and stall, the platform under load and
+    an honest ranking from SOURCE: a sweep folder (after `postproc sweep`)
+    or a results CSV (columns in the README). Writes analysis.json."""
+    import json
+
+    from .pipelines.analysis import run_analysis
+
+    data, path = run_analysis(source, config, out_dir, force)
+    if as_json:
+        click.echo(json.dumps(data, indent=2))
+    else:
+        _print_analysis(data, path)
 
 
 # ---------------------------------------------------------------------------
@@ -213,6 +286,41 @@ def _load(path: str):
     return read_flow(path)
 
 
+def _analysis_payload(kind: str, source: str, kw: dict) -> dict:
+    """Read SOURCE and run the flow analysis ``kind`` on it; the JSON-ready
+    payload the command prints. Runs in a child process (:func:`_analysed`)."""
+    from postproc.pipelines import case_flow as cf
+
+    case = _load(source)
+    head = {"source": str(case.source), "case_id": case.record.case_id if case.record else None}
+    if kind == "flow":
+        return cf.flow_payload(case, **kw)[0]
+    if kind == "vortices":
+        kw = dict(kw)
+        q_kind, h = cf.q_normalisation(case, kw.pop("q_scale"), kw.pop("gap"))
+        q_star = kw.pop("q_star")
+        res = cf.analyse_vortices(case, q_star=q_star if q_star is not None else cf.Q_STAR_DEFAULTS[q_kind],
+                                  q_length=h, **kw)
+        return {**head, **res.to_dict()}
+    if kind == "diffuser":
+        return {**head, **cf.analyse_diffuser(case, **kw).to_dict()}
+    if kind == "underbody":
+        return {**head, **cf.analyse_underbody(case, **kw)}
+    return {**head, **cf.analyse_walls(case, **kw)}
+
+
+def _analysed(kind: str, source: str, **kw) -> dict:
+    """:func:`_analysis_payload` in a child process, so that a result file
+    that crashes the VTK reader ends with a message (exit code 2), not an
+    abort; the analysis may use the machine's memory and up to
+    MAX_ANALYSIS_SECONDS."""
+    from caseprep.contract.limits import MAX_ANALYSIS_SECONDS
+    from postproc.io.isolation import isolated, physical_memory
+
+    return isolated(_analysis_payload, kind, source, kw, what=str(source), memory=physical_memory(),
+                    timeout=float(MAX_ANALYSIS_SECONDS.value))
+
+
 _common = [
     click.option("--json", "as_json", is_flag=True, help="Print the result as JSON."),
     click.option("-o", "--output", type=click.Path(dir_okay=False), help="Also write the JSON to this file."),
@@ -261,14 +369,9 @@ def vortices_cmd(source, stations, q_star, q_scale, gap, speed, length, max_jump
     centre [x, y, z] (m), sense (+1/-1 about +x), circulation (m^2/s),
     radius (m), peak_q (1/s^2), axial velocity excess.
     """
-    from postproc.pipelines.case_flow import Q_STAR_DEFAULTS, analyse_vortices, q_normalisation
-
-    case = _load(source)
-    kind, h = q_normalisation(case, q_scale, gap)
-    res = analyse_vortices(case, stations=_floats(stations, "--stations"),
-                           q_star=q_star if q_star is not None else Q_STAR_DEFAULTS[kind], speed=speed,
-                           length=length, max_jump=max_jump, regions=not no_regions, velocity=velocity, q_length=h)
-    payload = {"source": str(case.source), "case_id": case.record.case_id if case.record else None, **res.to_dict()}
+    payload = _analysed("vortices", source, q_scale=q_scale, gap=gap, q_star=q_star,
+                        stations=_floats(stations, "--stations"), speed=speed, length=length, max_jump=max_jump,
+                        regions=not no_regions, velocity=velocity)
     _emit(payload, as_json, output, force, _print_vortices)
 
 
@@ -295,13 +398,9 @@ def diffuser_cmd(source, throat, exit_, y_range, rho, whole_section, pressure, v
     Cross-sections between the ground and the floor (and --y-range) at the
     throat and exit stations (planes normal to body x).
     """
-    from postproc.pipelines.case_flow import analyse_diffuser
-
-    case = _load(source)
     yr = _floats(y_range, "--y-range", 2)
-    res = analyse_diffuser(case, throat=throat, exit=exit_, y_range=tuple(yr) if yr else None, rho=rho,
-                           pressure=pressure, velocity=velocity, use_floor=not whole_section)
-    payload = {"source": str(case.source), "case_id": case.record.case_id if case.record else None, **res.to_dict()}
+    payload = _analysed("diffuser", source, throat=throat, exit=exit_, y_range=tuple(yr) if yr else None, rho=rho,
+                        pressure=pressure, velocity=velocity, use_floor=not whole_section)
     _emit(payload, as_json, output, force, _print_diffuser)
 
 
@@ -325,11 +424,7 @@ def _print_underbody(d: dict) -> None:
 @_with_common
 def underbody_cmd(source, lines, speed, pressure, as_json, output, force):
     """Cp along the floor (centreline and chosen lines), minimum and suction integral; ground Cp footprint."""
-    from postproc.pipelines.case_flow import analyse_underbody
-
-    case = _load(source)
-    res = analyse_underbody(case, lines=_floats(lines, "--lines"), speed=speed, pressure=pressure)
-    payload = {"source": str(case.source), "case_id": case.record.case_id if case.record else None, **res}
+    payload = _analysed("underbody", source, lines=_floats(lines, "--lines"), speed=speed, pressure=pressure)
     _emit(payload, as_json, output, force, _print_underbody)
 
 
@@ -366,12 +461,8 @@ def _print_walls(d: dict) -> None:
 @_with_common
 def walls_cmd(source, treatment, yplus_range, nu, speed, lines, as_json, output, force):
     """Wall checks: y+ per patch, floor wall-shear reversals (separation lines), suspicious cell values."""
-    from postproc.pipelines.case_flow import analyse_walls
-
-    case = _load(source)
-    res = analyse_walls(case, target=_yplus_target(treatment, yplus_range), nu=nu, speed=speed,
+    payload = _analysed("walls", source, target=_yplus_target(treatment, yplus_range), nu=nu, speed=speed,
                         floor_lines=_floats(lines, "--lines"))
-    payload = {"source": str(case.source), "case_id": case.record.case_id if case.record else None, **res}
     _emit(payload, as_json, output, force, _print_walls)
 
 
@@ -391,10 +482,7 @@ def flow_cmd(source, q_star, q_scale, gap, treatment, as_json, output, force):
     (stations found from the floor), underbody Cp and wall checks — the same
     numbers `postproc sweep` puts in its flow columns. A part that cannot be
     computed is reported with its reason instead."""
-    from postproc.pipelines.case_flow import flow_payload
-
-    case = _load(source)
-    payload, _ = flow_payload(case, q_star=q_star, q_scale=q_scale, gap=gap, target=_yplus_target(treatment, None))
+    payload = _analysed("flow", source, q_star=q_star, q_scale=q_scale, gap=gap, target=_yplus_target(treatment, None))
     parts = ("vortices", "diffuser", "underbody", "walls")
 
     def summary(d):

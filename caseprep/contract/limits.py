@@ -71,13 +71,15 @@ MAX_JSON_DEPTH = Limit("nesting of manifest.json and underfloor-run.json", 32, "
 MAX_VTK_MEMORY = Limit("memory of the process that reads one case's VTK export", 8_000_000_000, "bytes",
                        "a file that declares more than it holds must fail alone, not take the machine")
 MAX_VTM_BLOCKS = Limit("blocks of one .vtm multiblock file", 100_000, "blocks", "one block per patch")
-MAX_VTK_SECONDS = Limit("time to read one case's VTK export", 600, "s",
+MAX_VTK_SECONDS = Limit("time to read one case's VTK surfaces", 600, "s",
                         "a hung reader must not hang the whole sweep")
+MAX_ANALYSIS_SECONDS = Limit("time to read and analyse one case's volume (flow columns, flow commands)", 3600, "s",
+                             "a hung reader must not hang the sweep; a large mesh's vortex analysis takes minutes")
 
 LIMITS: tuple[Limit, ...] = (
     MAX_NAME_LENGTH, MAX_TEXT_LENGTH, MAX_CONFIG_BYTES, MAX_AXIS_VALUES, MAX_VARIANTS, MAX_CASES, MAX_CELLS,
     MAX_RANKS, MAX_ITERATIONS, MAX_DOMAIN_LENGTHS, MAX_LENGTH, MAX_STL_TRIANGLES, MAX_JSON_BYTES, MAX_JSON_DEPTH,
-    MAX_VTK_MEMORY, MAX_VTM_BLOCKS, MAX_VTK_SECONDS,
+    MAX_VTK_MEMORY, MAX_VTM_BLOCKS, MAX_VTK_SECONDS, MAX_ANALYSIS_SECONDS,
 )
 
 

@@ -43,6 +43,15 @@ _ctx = None
 ENABLED = os.environ.get("UNDERFLOOR_READ_IN_PROCESS") != "1"
 
 
+def physical_memory() -> int:
+    """The machine's physical memory (bytes): the memory limit of analyses
+    that may legitimately need a lot (0 when unknown: no limit)."""
+    try:
+        return int(os.sysconf("SC_PAGE_SIZE") * os.sysconf("SC_PHYS_PAGES"))
+    except (ValueError, OSError, AttributeError):
+        return 0
+
+
 def preload(*modules: str) -> None:
     """Modules the child processes should find already imported (call before
     the first read: the server process starts once, with what is listed)."""

@@ -454,6 +454,29 @@ def vtk_inputs() -> list[Hostile]:
             f"flags: {flag}" if flag else "2 case(s), 0 flagged"
         out.append(Hostile(f"vtk-sweep-{name}", "vtk", "postproc", _spoil_sweep(spoil, "sweep"), 0, sweep_frag))
         out.append(Hostile(f"vtk-forces-{name}", "vtk", "postproc", _spoil_sweep(spoil, "forces"), code, frag))
+    def crashing_volume(case: Path) -> None:
+        import re
+
+        from builders import volume_vtu
+
+        v = volume_vtu(case / "VTK" / "a_100" / "internal.vtu")
+        # 48 GB of points declared in 1.5 MB of dense data: more than any machine's memory, whatever the limit
+        v.write_bytes(re.sub(rb'NumberOfPoints="\s*64', b'NumberOfPoints="4000000000', v.read_bytes()) +
+                      np.random.default_rng(3).bytes(1_500_000))
+
+    for cmd in ("vortices", "flow", "walls"):  # the flow commands read the volume in a child process too
+        def build(tmp: Path, cmd=cmd) -> list[str]:
+            from builders import finished_sweep
+
+            root = finished_sweep(tmp / "sw", ["a"])
+            crashing_volume(root / "cases" / "a")
+            return [cmd, str(root / "cases" / "a")]
+        out.append(Hostile(f"vtk-{cmd}-crashing-volume", "vtk", "postproc", build, 2, "crashed the reader"))
+    def sweep_with_flow(tmp: Path) -> list[str]:
+        args = _spoil_sweep(crashing_volume, "sweep")(tmp)
+        return [a for a in args if a != "--no-pictures"]  # the flow columns read each case's volume
+
+    out.append(Hostile("vtk-sweep-crashing-volume", "vtk", "postproc", sweep_with_flow, 0, "flags: unreadable"))
     for name, data, frag in [
         ("legacy-4e9-points", b"# vtk DataFile Version 3.0\nx\nBINARY\nDATASET POLYDATA\nPOINTS 4000000000 float\n" +
          b"\0" * 200, "header declaring"),

@@ -201,6 +201,12 @@ def write_cmd(config: str, out_dir: str, force: bool, fidelity: str | None) -> N
                f"{len(summary.unchanged)} unchanged case(s); manifest {summary.manifest}")
     if summary.geometry_written:
         click.echo("shared geometry written: " + ", ".join(summary.geometry_written))
+    for what in summary.cleaned:
+        click.echo(f"note: {what}")
+    if summary.unlisted:
+        click.echo(f"warning: {len(summary.unlisted)} folder(s) in cases/ have no record and are not listed in the "
+                   f"manifest (not written by caseprep): {', '.join(summary.unlisted[:10])}"
+                   + (" …" if len(summary.unlisted) > 10 else "") + "; move them out of the sweep folder", err=True)
     click.echo(f"run them here: caseprep run {summary.root}   on a SLURM cluster: {summary.root}/submit.sh")
 
 
@@ -258,6 +264,9 @@ def check_cmd(config: str) -> None:
         click.echo(f"warning: {w}", err=True)
     if result.problems:
         raise result.problems[0] if len(result.problems) == 1 else UserErrors(result.problems)
+    from caseprep.casefiles.writer import prepare_sweep
+
+    prepare_sweep(result.cases, config)  # every case file and geometry copy made in memory, as `write` makes them
     click.echo(f"{config}: OK, {len(result.cases)} cases, {len(result.warnings)} warnings")
 
 

@@ -43,7 +43,7 @@ from caseprep.contract.progress import ProgressMeter, format_duration  # noqa: E
 from caseprep.contract.signals import StopRequested  # noqa: E402
 from postproc.pipelines.report_data import ReportOptions  # noqa: E402
 from postproc.pipelines.sweep import SweepOptions, postprocess_sweep  # noqa: E402
-from postproc.report import write_report  # noqa: E402
+from postproc.report import RenderInfo, write_report  # noqa: E402
 
 DEFAULT_CONFIG = HERE / "floor_study" / "sweep.toml"
 SAFETY = ("CFD is an approximation: the numbers depend on the mesh, the turbulence model and the set-up. "
@@ -168,7 +168,8 @@ def main(argv: list[str] | None = None) -> int:
     written = {}
 
     def render(analysis, path):
-        written["info"] = write_report(analysis, path)[1]
+        written["info"] = RenderInfo()
+        write_report(analysis, path, info=written["info"])
 
     try:
         t_post = time.monotonic()

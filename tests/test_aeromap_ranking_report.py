@@ -89,7 +89,7 @@ def test_undefined_balance_is_noted_not_divided():
 
 def test_report_is_self_contained_and_cautions(tmp_path):
     rows = _rows("flat", 1.0, 1.0) + _rows("ramp", 1.3, 2.0, flags_at=2)
-    p, _ = write_report(analyse_results(rows, title="Demo <study>", notes=["a <b> note"]), tmp_path / "report.html")
+    p = write_report(analyse_results(rows, title="Demo <study>", notes=["a <b> note"]), tmp_path / "report.html")
     text = p.read_text()
     assert "validate every decision by physical test" in text.lower()
     assert "qualified engineers" in text
@@ -99,3 +99,20 @@ def test_report_is_self_contained_and_cautions(tmp_path):
     assert "Demo &lt;study&gt;" in text and "a &lt;b&gt; note" in text
     assert "ramp-2" in text and "not-converged" in text
     assert not list(tmp_path.glob(".*.tmp"))
+
+
+def test_aero_map_is_data_before_it_is_a_picture(tmp_path):
+    # four unflagged points of one variant at zero yaw, on the quadratic above: the sweep's analysis
+    # carries the fitted map as numbers (the report only draws them)
+    pts = [(0.02, 0.03), (0.04, 0.03), (0.02, 0.06), (0.04, 0.06), (0.03, 0.045)]
+    rows = [CaseResult(f"m-{i}", "m", hf, hr, -0.3, 0.0, float(-_quadratic(hf, hr)), 0.4) for i, (hf, hr) in enumerate(pts)]
+    a = analyse_results(rows, title="map")
+    (m,) = a.aero_maps
+    assert m["variant"] == "m" and m["n_points"] == 5 and m["grid"] is not None
+    front, rear, values = (np.asarray(m["grid"][k]) for k in ("front", "rear", "values"))
+    assert front[0] == 0.02 and front[-1] == 0.04 and rear[0] == 0.03 and rear[-1] == 0.06
+    fit = fit_response_surface([p[0] for p in pts], [p[1] for p in pts], [_quadratic(*p) for p in pts])
+    F, R = np.meshgrid(front, rear)
+    np.testing.assert_allclose(values, fit(F, R), rtol=1e-12)  # the same fit, evaluated on the grid
+    text = write_report(a, tmp_path / "r.html").read_text()
+    assert "Fitted ride-height maps" in text and "data:image/svg+xml;base64," in text

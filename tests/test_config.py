@@ -62,7 +62,7 @@ def test_wrong_vector_length(tmp_path):
 
 def test_negative_ride_height(tmp_path):
     msg = _err(tmp_path, BASE_TOML.replace("ride_height = [0.05]", "ride_height = [0.05, -0.01]"))
-    assert "expected a positive number (m), got -0.01" in msg
+    assert "expected a positive number (m) up to 10000, got -0.01" in msg
     assert "sweep.ride_height[1]" in msg and "measured upwards from the ground" in msg
 
 

@@ -22,6 +22,7 @@ import pytest
 from click.testing import CliRunner
 
 from caseprep.contract.errors import UserError
+from caseprep.contract.locking import sweep_lock
 from caseprep.contract.manifest import read_manifest
 from caseprep.contract.signals import StopRequested
 from postproc.cli import main as postproc_main
@@ -87,7 +88,7 @@ def test_reuse_stale_and_corrupt(tmp_path):
     assert set(third.computed) == {"case01", "case02", "case03"} and third.reused == ("case00",)
     assert third.reasons["case01"].startswith("stale: inputs changed: underfloor-run.json")
     assert third.reasons["case02"] == "corrupt: checksum does not match the content"
-    assert third.reasons["case03"].startswith("corrupt: not JSON")
+    assert third.reasons["case03"].startswith("corrupt: expected") and "JSON" in third.reasons["case03"]
     assert third.outcomes["case01"].result.flags == ("interrupted",)  # recomputed from the new record
     assert cr.read_case_result(root, "case02", "test").usable  # rewritten whole
     # --recompute ignores what is stored
@@ -181,21 +182,21 @@ def test_two_merges_at_once_never_tear_the_tables(tmp_path):
             errors.append(exc)
 
     threads = [threading.Thread(target=merge) for _ in range(4)]
-    # hold the lock first: every merge has to wait its turn
-    with sh.OutputLock(root, timeout=5):
+    # another command holds the folder first: every merge has to wait its turn
+    with sweep_lock(root, "a test holder"):
         for t in threads:
             t.start()
         time.sleep(0.5)
         assert not (root / "results.csv").exists()
     for t in threads:
-        t.join(60)
-    assert not errors
+        t.join(120)
+    assert not errors, errors
     rows = json.loads((root / "results.json").read_text())["cases"]
     assert len(rows) == 30 and (root / "results.csv").read_text().count("\n") == 31
     assert not list(root.glob(".*.tmp"))
-    # a merge that cannot get the lock in time stops with a clear error
-    with sh.OutputLock(root, timeout=5):
-        with pytest.raises(UserError, match="locked by pid"):
+    # a merge that cannot get the lock in time stops with a clear error naming the holder
+    with sweep_lock(root, "a test holder"):
+        with pytest.raises(UserError, match="in use by another underfloor command.*a test holder"):
             merge_results(root, SweepOptions(force=True, wait=0.3))
 
 
@@ -300,16 +301,18 @@ def smoke_sweep(tmp_path_factory):
 
 @pytest.mark.solver
 def test_parallel_and_sharded_equal_serial_on_real_cases(smoke_sweep, tmp_path, monkeypatch):
-    import postproc.io.surfaces as surfaces
+    import postproc.pipelines.case_forces as case_forces
+    import postproc.pipelines.sweep as sweep_mod
 
     reads = []
-    real = surfaces._READERS[".vtm"]
+    real = sweep_mod.read_surface
 
-    def counting(path, *a, **k):
+    def counting(path, *a, **k):  # every read of a case's surfaces, by the sweep or by the forces report
         reads.append(Path(path).parent.parent.name)
         return real(path, *a, **k)
 
-    monkeypatch.setitem(surfaces._READERS, ".vtm", counting)
+    monkeypatch.setattr(sweep_mod, "read_surface", counting)
+    monkeypatch.setattr(case_forces, "read_surface", counting)
     serial = postprocess_sweep(smoke_sweep, SweepOptions(out_dir=tmp_path / "serial"))
     # each case's body surface read once (forces and y+ from the same read)
     assert sorted(reads) == ["pp-a", "pp-b"]

@@ -11,7 +11,7 @@ import xml.dom.minidom
 
 import pytest
 
-from postproc.report import render_report, write_report
+from postproc.report import RenderInfo, render_report, write_report
 from postproc.report import pictures as pics
 
 from report_fixtures import NASTY_NOTE, NASTY_TITLE, demo_report_data
@@ -24,7 +24,8 @@ def _images(text):
 def test_no_pictures_report_is_self_contained_and_escaped(tmp_path):
     data = demo_report_data(variants=('fl<at', 'ra"mp', "r&x"), title=NASTY_TITLE, notes=[NASTY_NOTE],
                             pictures=False)
-    p, info = write_report(data, tmp_path / "report.html")
+    info = RenderInfo()
+    p = write_report(data, tmp_path / "report.html", info=info)
     text = p.read_text(encoding="utf-8")
     # caution first, then the verdict and the watch list, before any table
     i_caution, i_verdict, i_watch = text.index("Caution."), text.index('id="verdict"'), text.index('id="watch"')
@@ -78,7 +79,8 @@ def test_rendering_unavailable_still_writes_the_report(tmp_path, monkeypatch):
     monkeypatch.setattr(pics, "_STATUS", {})
     monkeypatch.setattr(pics, "_probe", lambda: (None, "no display and no EGL library (libEGL) installed"))
     data = demo_report_data()
-    p, info = write_report(data, tmp_path / "report.html")
+    info = RenderInfo()
+    p = write_report(data, tmp_path / "report.html", info=info)
     text = p.read_text(encoding="utf-8")
     assert "pictures not drawn" in text and "libegl1" in text
     assert 'id="envelope"' in text and info.backend is None

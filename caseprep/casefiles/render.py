@@ -30,6 +30,8 @@ its patch name; it must not also be listed in ``geometry_solid_names``
 """
 from __future__ import annotations
 
+import math
+
 import posixpath
 import re
 from dataclasses import dataclass
@@ -42,6 +44,7 @@ import numpy as np
 from caseprep.casefiles import foamdict
 from caseprep.planning.batch import BatchSettings
 from caseprep.planning.spec import CaseSpec, OrientedBox
+from caseprep.contract.errors import UserError
 from caseprep.contract.monitor import FORCES_NAME
 from caseprep.contract.templating import environment
 
@@ -265,11 +268,18 @@ def background_blocks(spec: CaseSpec) -> tuple[list[np.ndarray], list[dict[str, 
 
 def all_patches(spec: CaseSpec) -> list[str]:
     """Every patch of the final mesh (background faces then surfaces)."""
-    names = [p["name"] for p in domain_patches(spec)]
+    domain = [p["name"] for p in domain_patches(spec)]
+    names = list(domain)
     for s in surfaces(spec):
         names += list(s.patches)
-    if len(set(names)) != len(names):
-        raise ValueError(f"duplicate patch names: {names}")
+    clash = sorted({n for n in names if names.count(n) > 1})
+    if clash:
+        taken = [n for n in clash if n in domain]
+        raise UserError(expected="surface (solid and wheel) names different from each other and from the domain's "
+                                 f"patches ({', '.join(domain)})",
+                        got=", ".join(clash) + (" (a domain patch)" if taken else ""),
+                        key=f"variants.{spec.variant}.geometry",
+                        fix="rename the solid in the STL (or the wheel in body.wheels): every surface becomes its own patch")
     return names
 
 
@@ -407,10 +417,14 @@ def effective_write_interval(n_iterations: int, write_interval: int) -> int:
         raise ValueError(f"expected positive iteration counts, got n_iterations={n}, write_interval={w}")
     if w >= n:
         return n
-    for d in range(w, 0, -1):
+    # the divisors come in pairs (d, n/d) with d ≤ √n: √n steps, whatever the interval
+    best = 1
+    for d in range(1, math.isqrt(n) + 1):
         if n % d == 0:
-            return d if 2 * d >= w else n
-    return n  # pragma: no cover - d = 1 always divides
+            for q in (d, n // d):
+                if best < q <= w:
+                    best = q
+    return best if 2 * best >= w else n
 
 
 def context(spec: CaseSpec) -> dict[str, Any]:
@@ -428,6 +442,7 @@ def context(spec: CaseSpec) -> dict[str, Any]:
     if sv.n_procs < 1 or int(np.prod(sv.split)) != sv.n_procs:
         raise ValueError(f"solver.split {sv.split} does not multiply to n_procs {sv.n_procs}")
     surf = surfaces(spec)
+    all_patches(spec)  # refuse a surface named like another or like a domain patch
     turb = turbulent(spec)
     layers = None
     if m.layers is not None and m.layers.n_layers > 0:

@@ -47,8 +47,10 @@ from caseprep.contract.errors import UserError
 from caseprep.contract.manifest import MANIFEST_NAME, CaseRecord, Manifest, read_manifest, write_manifest
 from caseprep.casefiles.render import (CASES_DIR, GEOMETRY_DIR, CaseFile, outputs_record, render_case, render_sweep_scripts,
                      surfaces)
-from caseprep.contract.atomicio import write_bytes_atomic, write_text_atomic
-from caseprep.geometry.stl import convert_to_stl, scale_stl_bytes, stl_solid_names
+from caseprep.contract.atomicio import open_folder, write_bytes_atomic, write_json_atomic, write_text_atomic
+from caseprep.contract.limits import is_case_id
+from caseprep.contract.locking import JOURNAL_NAME, interrupted_write, sweep_lock
+from caseprep.geometry.stl import convert_to_stl, scale_stl_bytes, stl_solid_names, with_solid_names_as_read
 from caseprep.planning.batch import BatchSettings
 from caseprep.planning.spec import CaseSpec
 
@@ -65,6 +67,8 @@ class WriteSummary:
     geometry_written: tuple[str, ...]
     manifest: Path
     case_bytes: int
+    cleaned: tuple[str, ...] = ()      # what an interrupted earlier write left and this one settled
+    unlisted: tuple[str, ...] = ()     # folders in cases/ with no record (not written by caseprep): not listed
 
     @property
     def n_cases(self) -> int:
@@ -112,7 +116,7 @@ def _prepare_geometry(specs: Sequence[CaseSpec], sources: Mapping, config_dir: P
         src = _resolve_source(name, spec, sources, config_dir)
         is_stl = src.suffix.lower() == ".stl"
         if is_stl:
-            data = src.read_bytes()
+            data = with_solid_names_as_read(src.read_bytes())  # the solids named as the planner read them
             if scale != 1.0:
                 data = scale_stl_bytes(data, scale)
         else:
@@ -277,27 +281,184 @@ def _cases_to_write(cases_dir: Path, specs: Sequence[CaseSpec], rendered: Mappin
     return new, replace, same
 
 
-def _manifest_records(root: Path, specs: Sequence[CaseSpec]) -> tuple[Manifest | None, list[CaseRecord]]:
-    """The existing manifest (None when unreadable) and the records to write:
-    the old records of cases not in this plan whose folder still exists,
-    then one per spec."""
-    old: Manifest | None = None
-    if (root / MANIFEST_NAME).is_file():
+def _old_manifest(root: Path, force: bool) -> Manifest | None:
+    """The sweep's existing manifest (None when there is none). One that
+    cannot be read — malformed, or with a record pointing outside the sweep —
+    is refused (UserError naming the record), or with ``force`` set aside:
+    its records are dropped and the new manifest lists this plan's cases."""
+    p = root / MANIFEST_NAME
+    if not (p.exists() or p.is_symlink()):
+        return None
+    try:
+        return read_manifest(root)
+    except UserError as exc:
+        if force:
+            return None
+        raise UserError(f"the existing manifest cannot be kept: {exc}",
+                        fix="write to a new folder, or re-run with --force to replace the manifest "
+                            "(its unreadable records are dropped)") from None
+
+
+def _planned_records(specs: Sequence[CaseSpec]) -> list[CaseRecord]:
+    """The manifest record of every planned case."""
+    outputs = outputs_record()
+    return [dataclasses.replace(s.record(f"{CASES_DIR}/{s.case_id}"), outputs=outputs) for s in specs]
+
+
+def _fingerprint_files(files: Mapping[str, CaseFile]) -> str:
+    """SHA-256 over a case's files as written (link targets, bytes, executable bit), sorted by path."""
+    h = hashlib.sha256()
+    for rel in sorted(files):
+        f = files[rel]
+        h.update(rel.encode() + b"\0" + (b"L" if f.symlink else b"X" if f.mode & 0o100 else b"F") + b"\0")
+        h.update(f.text.encode("utf-8") + b"\0")
+    return h.hexdigest()
+
+
+def _fingerprint_folder(folder: Path, rels: Sequence[str]) -> str | None:
+    """The :func:`_fingerprint_files` of what ``folder`` holds at ``rels`` (None when unreadable)."""
+    h = hashlib.sha256()
+    try:
+        for rel in sorted(rels):
+            p = folder / rel
+            if p.is_symlink():
+                kind, data = b"L", os.readlink(p).encode("utf-8")
+            else:
+                kind = b"X" if p.stat().st_mode & 0o100 else b"F"
+                data = p.read_bytes()
+            h.update(rel.encode() + b"\0" + kind + b"\0" + data + b"\0")
+    except OSError:
+        return None
+    return h.hexdigest()
+
+
+TEMP_PREFIXES = (".uf-new-", ".uf-old-")
+
+
+def _clean_temporary(cases_dir: Path) -> list[str]:
+    """Remove the temporary folders a killed writer left in ``cases/``: a
+    half-assembled new case (``.uf-new-*``) is deleted; a case moved aside
+    for replacement (``.uf-old-*/case``) goes back to its place when the new
+    one never arrived, else it is deleted. Returns what was done, in words."""
+    done: list[str] = []
+    if not cases_dir.is_dir() or cases_dir.is_symlink():
+        return done
+    for entry in sorted(os.scandir(cases_dir), key=lambda e: e.name):
+        if not entry.name.startswith(TEMP_PREFIXES) or entry.is_symlink() or not entry.is_dir():
+            continue
+        p = Path(entry.path)
+        if entry.name.startswith(".uf-old-"):
+            cid = entry.name[len(".uf-old-"):].rsplit("-", 1)[0]
+            moved = p / "case"
+            if is_case_id(cid) and moved.is_dir() and not (cases_dir / cid).exists():
+                os.rename(moved, cases_dir / cid)
+                done.append(f"restored {CASES_DIR}/{cid} (its replacement never arrived)")
+        shutil.rmtree(p, ignore_errors=True)
+        done.append(f"removed {CASES_DIR}/{entry.name}")
+    return done
+
+
+def _settle(root: Path, journal: dict, old: Manifest | None, verified: bool) -> tuple[Path, list[str]]:
+    """Write the manifest, cases.txt and the scripts for exactly the case
+    folders present in ``root/cases`` and remove the journal. Each present
+    folder gets the planned record (``journal["planned"]``) when it holds the
+    planned content — a new case that is present, a replaced case whose files
+    match the planned fingerprint (or all of them when ``verified``) — else
+    its record in the old manifest. Folders without any record are not
+    listed and are returned by name."""
+    cases_dir = root / CASES_DIR
+    _clean_temporary(cases_dir)
+    planned = {}
+    for i, d in enumerate(journal.get("planned", [])):
         try:
-            old = read_manifest(root)
+            r = CaseRecord.from_dict(d, source=str(root / JOURNAL_NAME), index=i)
+        except UserError:
+            continue
+        planned[r.case_id] = r
+    new, replace = set(journal.get("new", [])), set(journal.get("replace", []))
+    prints = journal.get("fingerprints", {})
+    old_records = {r.case_id: r for r in (old.cases if old is not None else ())}
+    present = set()
+    if cases_dir.is_dir() and not cases_dir.is_symlink():
+        present = {e.name for e in os.scandir(cases_dir)
+                   if not e.name.startswith(".") and e.is_dir(follow_symlinks=False)}
+    records: list[CaseRecord] = []
+    for cid, r in old_records.items():  # kept cases first, in their order
+        if cid not in planned and cid in present and old is not None and old.case_dir(r).is_dir():
+            records.append(r)
+    for cid, r in planned.items():
+        if cid not in present:
+            continue
+        if cid in replace and not verified:
+            rels = journal.get("rels", {}).get(cid)
+            same = rels is not None and _fingerprint_folder(cases_dir / cid, rels) == prints.get(cid)
+            if not same:
+                if cid in old_records:
+                    records.append(old_records[cid])
+                continue
+        records.append(r)
+    listed = {r.case_id for r in records}
+    unlisted = sorted(present - listed)
+    manifest = Manifest(
+        cases=tuple(records), tool_version=__version__, config_file=str(journal.get("config_file", "")),
+        config_hash=str(journal.get("config_hash", "")),
+        created_utc=_dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ"),
+        study=str(journal.get("study", "")))
+    scripts = render_sweep_scripts([r.case_id for r in records], int(journal.get("n_procs", 1) or 1),
+                                   _journal_batch(journal), str(journal.get("study", "")))
+    for rel, f in scripts.items():
+        write_text_atomic(root / rel, f.text, mode=f.mode, root=root)
+    mpath = write_manifest(manifest, root)
+    try:
+        os.unlink(root / JOURNAL_NAME)
+    except FileNotFoundError:
+        pass
+    return mpath, unlisted
+
+
+def _journal_batch(journal: dict) -> BatchSettings:
+    """The batch settings recorded in a journal (defaults when absent or
+    malformed: the journal is read back from disk)."""
+    try:
+        return BatchSettings(**dict(journal.get("batch") or {}))
+    except (TypeError, ValueError):
+        return BatchSettings()
+
+
+def _settle_interrupted(root: Path) -> tuple[str, ...]:
+    """Complete what a killed earlier write left (call holding the lock):
+    temporary folders cleaned, and when its journal is there, the manifest
+    rewritten for the folders present. Returns what was done, in words."""
+    done = _clean_temporary(root / CASES_DIR)
+    journal = interrupted_write(root)
+    if journal is not None:
+        try:
+            old = read_manifest(root) if (root / MANIFEST_NAME).is_file() else None
         except UserError:
             old = None
-    records: list[CaseRecord] = []
-    current = {s.case_id for s in specs}
-    if old is not None:
-        for r in old.cases:
-            if r.case_id not in current and (root / r.folder).is_dir():
-                records.append(r)
-    outputs = outputs_record()
-    for s in specs:
-        r = s.record(f"{CASES_DIR}/{s.case_id}")
-        records.append(dataclasses.replace(r, outputs=outputs))
-    return old, records
+        _settle(root, journal, old, verified=False)
+        done.append(f"completed the manifest of an interrupted write (pid {journal.get('pid', '?')})")
+    return tuple(done)
+
+
+def prepare_sweep(specs: Sequence[CaseSpec], config_path: os.PathLike | str,
+                  geometry_sources: Mapping[str, os.PathLike | str] | None = None
+                  ) -> tuple[dict[str, dict[str, CaseFile]], dict[str, bytes]]:
+    """Everything :func:`write_sweep` writes, made in memory and checked,
+    nothing written: (case files by case id, shared geometry bytes by file
+    name). ``caseprep check`` runs it too, so a config that passes ``check``
+    is one that ``write`` can write. Raises UserError."""
+    specs = list(specs)
+    cfg = Path(config_path)
+    if not specs:
+        raise UserError(expected="at least one case to write", got="an empty plan", file=str(cfg),
+                        fix="check the sweep ranges in the config")
+    _check_specs(specs)
+    if not cfg.is_file():
+        raise UserError(expected="a config file", got=str(cfg), fix="give the path of the sweep's TOML config")
+    rendered = {s.case_id: render_case(s) for s in specs}
+    geometry = _prepare_geometry(specs, geometry_sources or {}, cfg.resolve().parent)
+    return rendered, geometry
 
 
 def write_sweep(
@@ -329,54 +490,67 @@ def write_sweep(
     for bad geometry sources.
     """
     specs = list(specs)
-    if not specs:
-        raise UserError(expected="at least one case to write", got="an empty plan", file=str(config_path),
-                        fix="check the sweep ranges in the config")
-    _check_specs(specs)
     root = Path(out_dir)
     cfg = Path(config_path)
-    if not cfg.is_file():
-        raise UserError(expected="a config file", got=str(cfg), fix="give the path of the sweep's TOML config")
     if root.exists() and not root.is_dir():
         raise UserError(expected="an output folder", got=f"{root} (a file)", key="-o", fix="choose a folder path")
-    chash = config_hash(cfg)
 
     # 1. render everything (pure) and prepare geometry — nothing written yet
-    rendered = {s.case_id: render_case(s) for s in specs}
-    geometry = _prepare_geometry(specs, geometry_sources or {}, cfg.resolve().parent)
+    rendered, geometry = prepare_sweep(specs, cfg, geometry_sources)
+    chash = config_hash(cfg)
 
+    # 2.-4. one writer at a time; an interrupted earlier write is settled first
+    with sweep_lock(root, "caseprep write"):
+        cleaned = _settle_interrupted(root)
+        return _write_locked(specs, root, cfg, config_path, force, rendered, geometry, chash, study, cleaned, batch)
+
+
+def _write_locked(specs, root: Path, cfg: Path, config_path, force: bool, rendered, geometry, chash: str,
+                  study: str | None, cleaned: tuple[str, ...], batch: BatchSettings) -> WriteSummary:
     # 2. compare with what exists
     cases_dir = root / CASES_DIR
     geo_dir = root / GEOMETRY_DIR
+    for sub in (cases_dir, geo_dir):  # never write through a link or into a file
+        if sub.is_symlink() or (sub.exists() and not sub.is_dir()):
+            raise UserError(expected=f"{sub.name}/ in {root} to be a real folder (or absent)",
+                            got="a symbolic link" if sub.is_symlink() else "a file", file=str(sub),
+                            fix="remove or rename it: underfloor writes only inside the output folder, never through links")
+    old = _old_manifest(root, force)
     geo_todo = _geometry_to_write(root, geometry, force)
     new, replace, same = _cases_to_write(cases_dir, specs, rendered, force)
+    planned = _planned_records(specs)
+    journal = {
+        "pid": os.getpid(), "command": "caseprep write", "config_file": str(config_path),
+        "started_utc": _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ"),
+        "study": study or (old.study if old is not None and old.study else cfg.stem),
+        "config_hash": chash, "n_procs": max(s.solver.n_procs for s in specs), "batch": dataclasses.asdict(batch),
+        "new": new, "replace": replace,
+        "fingerprints": {cid: _fingerprint_files(rendered[cid]) for cid in replace},
+        "rels": {cid: sorted(rendered[cid]) for cid in replace},
+        "planned": [r.to_dict() for r in planned],
+    }
 
-    # 3. write
-    cases_dir.mkdir(parents=True, exist_ok=True)
-    for name in geo_todo:
-        write_bytes_atomic(geo_dir / name, geometry[name], mode=0o644)
-    umask = _current_umask()
-    jobs = [(cid, False) for cid in new] + [(cid, True) for cid in replace]
-    # File creation is metadata-bound (system calls release the GIL): a few
-    # threads, each assembling whole case folders, overlap that waiting.
-    with ThreadPoolExecutor(max_workers=min(8, max(1, len(jobs)))) as pool:
-        sizes = list(pool.map(lambda j: _place_case(cases_dir, j[0], rendered[j[0]], replace=j[1], umask=umask), jobs))
-    nbytes = sum(sizes)
+    # 3. write: the journal first, so that an interrupted write can be completed
+    os.close(open_folder(root, [CASES_DIR]))  # created without following links
+    write_json_atomic(root / JOURNAL_NAME, journal, root=root)
+    try:
+        for name in geo_todo:
+            write_bytes_atomic(geo_dir / name, geometry[name], mode=0o644, root=root)
+        umask = _current_umask()
+        jobs = [(cid, False) for cid in new] + [(cid, True) for cid in replace]
+        # File creation is metadata-bound (system calls release the GIL): a few
+        # threads, each assembling whole case folders, overlap that waiting.
+        with ThreadPoolExecutor(max_workers=min(8, max(1, len(jobs)))) as pool:
+            sizes = list(pool.map(lambda j: _place_case(cases_dir, j[0], rendered[j[0]], replace=j[1], umask=umask),
+                                  jobs))
+        nbytes = sum(sizes)
+    except BaseException:
+        # interrupted (Ctrl-C, a full disk…): list exactly the folders now present, then re-raise
+        _settle(root, journal, old, verified=False)
+        raise
 
-    # 4. manifest (existing records of cases not in this plan are kept while their folder exists)
-    old, records = _manifest_records(root, specs)
-    manifest = Manifest(
-        cases=tuple(records),
-        tool_version=__version__,
-        config_file=str(config_path),
-        config_hash=chash,
-        created_utc=_dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ"),
-        study=study or (old.study if old is not None and old.study else cfg.stem),
-    )
-    kept_ids = [r.case_id for r in records]
-    scripts = render_sweep_scripts(kept_ids, max(s.solver.n_procs for s in specs), batch, manifest.study)
-    for rel, f in scripts.items():
-        write_text_atomic(root / rel, f.text, mode=f.mode)
-    mpath = write_manifest(manifest, root)
+    # 4. manifest and scripts: exactly the case folders present
+    mpath, unlisted = _settle(root, journal, old, verified=True)
     return WriteSummary(root=root, written=tuple(new), replaced=tuple(replace), unchanged=tuple(same),
-                        geometry_written=tuple(geo_todo), manifest=mpath, case_bytes=nbytes)
+                        geometry_written=tuple(geo_todo), manifest=mpath, case_bytes=nbytes, cleaned=cleaned,
+                        unlisted=tuple(unlisted))

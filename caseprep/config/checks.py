@@ -9,7 +9,8 @@ from __future__ import annotations
 from pathlib import Path
 
 from caseprep.config.keys import KEYS
-from caseprep.config.schema import EMPTY_GEOMETRY, NAME_RE, NAME_RULE, Config
+from caseprep.config.schema import EMPTY_GEOMETRY, NAME_RULE, Config
+from caseprep.contract.limits import is_name
 from caseprep.contract.errors import UserError, did_you_mean
 
 
@@ -84,7 +85,7 @@ def _variants(cfg: Config, base: Path, errs: _Problems) -> None:
         errs.add(expected="at least one [variants.NAME] table", got="none", key="variants",
                  fix='add e.g. [variants.baseline] with geometry = "baseline.stl"')
     for name, v in cfg.variants.items():
-        if not NAME_RE.match(name):
+        if not is_name(name):
             errs.add(expected=NAME_RULE + " (it becomes a folder, a patch and a shell word)", got=name,
                      key=f"variants.{name}", fix="rename the variant, e.g. 'diffuser_8deg'")
         p = base / v.geometry

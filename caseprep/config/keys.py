@@ -15,6 +15,8 @@ import re
 from dataclasses import dataclass
 from typing import Any
 
+from caseprep.contract.limits import MAX_DOMAIN_LENGTHS, MAX_ITERATIONS, MAX_LENGTH, MAX_RANKS
+
 NO_DEFAULT = object()  # the key has no Python default (required, or derived at planning)
 
 
@@ -70,6 +72,26 @@ def _at_least_one(what: str) -> Range:
     return Range(lo=1, expected=what)
 
 
+def _within(lo: float, hi: float, unit: str, fix: str | None = None) -> Range:
+    """lo < x ≤ hi for lo = 0 (a positive number with an upper bound), else lo ≤ x ≤ hi."""
+    if lo == 0:
+        return Range(lo=0.0, hi=hi, open_lo=True, expected="a positive number ({unit}) up to {hi}".replace("{unit}", unit),
+                     fix=fix or "use a value > 0; check the unit")
+    return Range(lo=lo, hi=hi, expected="a value from {lo} to {hi} ({unit})".replace("{unit}", unit),
+                 fix=fix or "check the unit and the value")
+
+
+def _count(what: str, limit) -> Range:
+    return Range(lo=1, hi=int(limit.value), expected=f"{what} from {{lo}} to {{hi}}", fix=limit.why)
+
+
+#: Upper bound of every length, ride height and coordinate (contract.limits.MAX_LENGTH).
+_L = float(MAX_LENGTH.value)
+_POINT = Range(hi=_L, magnitude=True, expected="a coordinate within ±{hi} m (body frame)",
+               fix="points are in metres, whatever the geometry's length_unit")
+_SPEED = _within(0.1, 150.0, "m/s", "the solver is incompressible (Mach < 0.45); speeds are in m/s")
+
+
 @dataclass(frozen=True)
 class Pattern:
     """Valid text values: the whole value matches ``regex``; ``expected`` is
@@ -119,7 +141,7 @@ _PITCH = Range(hi=20.0, open_hi=True, magnitude=True, expected="a pitch angle wi
                fix="angles are in degrees")
 _MESH_LEVEL = Range(lo=0, hi=6, expected="a mesh level from {lo} to {hi}")
 _LEVEL = Range(lo=0, hi=12, expected="a level from {lo} to {hi}")
-_RIDE_HEIGHT = _positive("m", RIDE_HEIGHT_FIX)
+_RIDE_HEIGHT = _within(0.0, _L, "m", RIDE_HEIGHT_FIX)
 # the batch system's formats (SLURM's sbatch syntax); the values are written into #SBATCH lines
 _BATCH_TIME = Pattern(r"\d+|\d+:\d{2}(:\d{2})?|\d+-\d+(:\d{2}){0,2}",
                       "a time limit: minutes, HH:MM:SS or D-HH:MM:SS", "e.g. \"04:00:00\" or \"1-12:00:00\"")
@@ -131,7 +153,7 @@ _BATCH_NAME = Pattern(r"[A-Za-z0-9_.,+-]*", "a name of letters, digits and . , _
 KEYS: dict[str, Key] = {
     "study.name": Key("—", "study name (manifest, sweep folder)", default="required"),
     "study.description": Key("—", "free text", ""),
-    "air.speed": Key("m/s", "road speed V (the sweep's default speed)", default="required", range=_positive("m/s")),
+    "air.speed": Key("m/s", "road speed V (the sweep's default speed)", default="required", range=_SPEED),
     "air.temperature": Key("K", "static temperature", default="288.15 (or from altitude)",
                            range=Range(150.0, 400.0, expected="a temperature in K between {lo} and {hi}",
                                        fix="temperatures are absolute, in kelvin (20 °C = 293.15 K)")),
@@ -141,32 +163,32 @@ KEYS: dict[str, Key] = {
     "air.altitude": Key("m", "ISO 2533 troposphere altitude for temperature and pressure", default="0",
                         range=Range(-2000.0, 11000.0,
                                     expected="an altitude in m between {lo} and {hi} (ISO 2533 troposphere)")),
-    "air.density": Key("kg/m³", "density", default="p/(R T)", range=_positive("kg/m³")),
-    "air.viscosity": Key("Pa s", "dynamic viscosity", default="Sutherland's law", range=_positive("Pa s")),
+    "air.density": Key("kg/m³", "density", default="p/(R T)", range=_within(1e-3, 1e3, "kg/m³")),
+    "air.viscosity": Key("Pa s", "dynamic viscosity", default="Sutherland's law", range=_within(1e-7, 0.1, "Pa s")),
     "air.kinematic_viscosity": Key("m²/s", "kinematic viscosity (overrides viscosity/density)", default="μ/ρ",
-                                   range=_positive("m²/s")),
+                                   range=_within(1e-8, 0.1, "m²/s")),
     "ground.mode": Key("—", "how the ground moves; none: far field, no ground", "moving",
                        choices=("moving", "stationary", "none")),
     "body.length_unit": Key("—", "unit of the geometry files", "m", choices=("m", "mm", "in")),
     "body.reference_area": Key("m²", 'reference area, or "auto" (frontal area of the first variant)', "auto",
-                               range=_positive("m²")),
+                               range=_within(1e-6, 1e4, "m²")),
     "body.reference_length": Key("m", "reference length for moment coefficients", default="wheelbase",
-                                 range=_positive("m")),
-    "body.wheelbase": Key("m", "wheelbase", default="rear_axle.x − front_axle.x", range=_positive("m")),
-    "body.front_axle": Key("m", "front axle centre (body frame)", default="required with a ground"),
-    "body.rear_axle": Key("m", "rear axle centre (body frame)", default="required with a ground"),
+                                 range=_within(1e-4, _L, "m")),
+    "body.wheelbase": Key("m", "wheelbase", default="rear_axle.x − front_axle.x", range=_within(1e-4, _L, "m")),
+    "body.front_axle": Key("m", "front axle centre (body frame)", default="required with a ground", range=_POINT),
+    "body.rear_axle": Key("m", "rear axle centre (body frame)", default="required with a ground", range=_POINT),
     "body.ride_height_point_front": Key("m", "front ride-height reference point on the underside",
-                                        default="required with a ground"),
+                                        default="required with a ground", range=_POINT),
     "body.ride_height_point_rear": Key("m", "rear ride-height reference point on the underside",
-                                       default="required with a ground"),
+                                       default="required with a ground", range=_POINT),
     "body.pitch_pivot": Key("m", "point about which pitch is applied; `ride_height` is its height",
-                            default="ride_height_point_front"),
-    "body.moment_point": Key("m", "moment reference point", default="mid-point of the axles"),
-    "body.centre_of_gravity": Key("m", "centre of gravity (optional)", default="none"),
+                            default="ride_height_point_front", range=_POINT),
+    "body.moment_point": Key("m", "moment reference point", default="mid-point of the axles", range=_POINT),
+    "body.centre_of_gravity": Key("m", "centre of gravity (optional)", default="none", range=_POINT),
     "body.wheels[].name": Key("—", "wheel name (patch name)", default="required"),
-    "body.wheels[].centre": Key("m", "wheel centre (body frame)", default="required"),
+    "body.wheels[].centre": Key("m", "wheel centre (body frame)", default="required", range=_POINT),
     "body.wheels[].axis": Key("—", "rotation axis (body frame)", (0.0, 1.0, 0.0)),
-    "body.wheels[].radius": Key("m", "rolling radius", default="required", range=_positive("m")),
+    "body.wheels[].radius": Key("m", "rolling radius", default="required", range=_within(1e-4, _L, "m")),
     "body.wheels[].geometry": Key("—", "STL file of the wheel (same length_unit)", default="none"),
     "body.wheels[].solid": Key("—", "or: name of the wheel's solid in the body STL", default="none"),
     "variants.<name>.geometry": Key("—", 'STL file of this variant (relative to the config), or `"none"` '
@@ -174,7 +196,7 @@ KEYS: dict[str, Key] = {
     "variants.<name>.length_unit": Key("—", "overrides body.length_unit", default="body.length_unit",
                                        choices=("m", "mm", "in")),
     "variants.<name>.reference_area": Key("m²", "overrides body.reference_area", default="body.reference_area",
-                                          range=_positive("m²")),
+                                          range=_within(1e-6, 1e4, "m²")),
     "variants.<name>.description": Key("—", "free text", ""),
     "sweep.yaw_mode": Key("—", "how yaw is set up (see \"Yaw modes\")", "crosswind",
                           choices=("crosswind", "yawed-model")),
@@ -185,7 +207,7 @@ KEYS: dict[str, Key] = {
     "sweep.ride_heights_front_rear": Key("m", "[front, rear] ride-height pairs (instead of ride_height × pitch)",
                                          default="—", range=_RIDE_HEIGHT),
     "sweep.yaw_deg": Key("deg", "yaw angles β", (0.0,), range=_YAW),
-    "sweep.speed": Key("m/s", "road speeds", default="[air.speed]", range=_positive("m/s")),
+    "sweep.speed": Key("m/s", "road speeds", default="[air.speed]", range=_SPEED),
     "sweep.mesh_level": Key("—", "mesh levels (each refines the base cell by √2)", (0,), range=_MESH_LEVEL),
     "sweep.points": Key("—", "explicit list of points instead of the axes", default="—"),
     "sweep.points[].variant": Key("—", "variant of the point", default="all variants"),
@@ -195,46 +217,48 @@ KEYS: dict[str, Key] = {
                                             range=_RIDE_HEIGHT),
     "sweep.points[].ride_height_rear": Key("m", "rear ride height", default="—", range=_RIDE_HEIGHT),
     "sweep.points[].yaw_deg": Key("deg", "yaw angle β", 0.0, range=_YAW),
-    "sweep.points[].speed": Key("m/s", "road speed", default="air.speed", range=_positive("m/s")),
+    "sweep.points[].speed": Key("m/s", "road speed", default="air.speed", range=_SPEED),
     "sweep.points[].mesh_level": Key("—", "mesh level", 0, range=_MESH_LEVEL),
     "mesh.fidelity": Key("—", "mesh fidelity preset (see \"Fidelity presets\")", "coarse",
                          choices=("smoke", "coarse", "production")),
     "mesh.base_cell": Key("m", "background cell size at mesh level 0", default="preset × body length",
-                          range=_positive("m")),
+                          range=_within(1e-5, _L, "m", "below 10 µm the cell counts overflow (m, not mm?)")),
     "mesh.surface_levels": Key("—", "[min, max] refinement levels on the body", default="preset",
                                range=Range(0, 12, expected="[min, max] levels with {lo} ≤ min ≤ max ≤ {hi}")),
     "mesh.feature_level": Key("—", "refinement level of feature edges", default="preset", range=_LEVEL),
     "mesh.max_level": Key("—", "finest level allowed (underbody gap)", default="preset", range=_LEVEL),
     "mesh.gap_cells": Key("—", "cells required across the smallest ground clearance", default="preset",
-                          range=_positive("cells")),
-    "mesh.target_yplus": Key("—", "target y+ of the first cell", default="preset", range=_positive("dimensionless")),
+                          range=_within(0.0, 100.0, "cells")),
+    "mesh.target_yplus": Key("—", "target y+ of the first cell", default="preset", range=_within(0.01, 1000.0, "dimensionless")),
     "mesh.layers": Key("—", "number of prism layers (0: none)", default="preset",
                        range=Range(0, 40, expected="a number of layers from {lo} to {hi}")),
     "mesh.layer_expansion": Key("—", "layer growth ratio", default="preset",
                                 range=Range(1.0, 2.0, expected="a layer expansion ratio from {lo} to {hi}")),
     "mesh.ground_first_cell": Key("m", "empty test section: first background cell on the ground, cells graded upwards",
-                                  default="uniform cells", range=_positive("m")),
+                                  default="uniform cells", range=_within(1e-7, _L, "m")),
     "domain.length": Key("m", "empty test section: inlet to outlet", default='required with `geometry = "none"`',
-                         range=_positive("m")),
+                         range=_within(0.0, _L, "m")),
     "domain.lead_in": Key("m", "empty test section: slip floor from the inlet to the ground's leading edge "
-                               "(part of `length`)", default="0", range=Range(lo=0.0, expected="a lead-in length ≥ {lo} (m)")),
-    "domain.upstream": Key("body lengths", "inlet distance ahead of the body", 3.0, range=_positive("body lengths")),
-    "domain.downstream": Key("body lengths", "outlet distance behind the body", 6.0, range=_positive("body lengths")),
-    "domain.width": Key("m", "domain width (default: sized for blockage)", default="auto", range=_positive("m")),
-    "domain.height": Key("m", "domain height (default: sized for blockage)", default="auto", range=_positive("m")),
+                               "(part of `length`)", default="0", range=Range(lo=0.0, hi=_L, expected="a lead-in length from {lo} to {hi} (m)")),
+    "domain.upstream": Key("body lengths", "inlet distance ahead of the body", 3.0,
+                           range=_within(0.0, float(MAX_DOMAIN_LENGTHS.value), "body lengths")),
+    "domain.downstream": Key("body lengths", "outlet distance behind the body", 6.0,
+                             range=_within(0.0, float(MAX_DOMAIN_LENGTHS.value), "body lengths")),
+    "domain.width": Key("m", "domain width (default: sized for blockage)", default="auto", range=_within(0.0, _L, "m")),
+    "domain.height": Key("m", "domain height (default: sized for blockage)", default="auto", range=_within(0.0, _L, "m")),
     "domain.target_blockage": Key("—", "blockage the automatic size aims at (fraction)", 0.01),
     "domain.max_blockage": Key("—", "blockage above which a case is refused (fraction)", 0.05),
     "solver.turbulence_model": Key("—", "turbulence model of the steady solver", "kOmegaSST",
                                    choices=("kOmegaSST", "laminar")),
-    "solver.iterations": Key("—", "iterations", default="preset", range=_at_least_one("a positive number of iterations")),
+    "solver.iterations": Key("—", "iterations", default="preset", range=_count("a number of iterations", MAX_ITERATIONS)),
     "solver.write_interval": Key("—", "iterations between result writes", default="iterations",
-                                 range=_at_least_one("a positive write interval")),
-    "solver.ranks": Key("—", "parallel ranks (MPI processes)", 1, range=_at_least_one("at least 1 rank")),
+                                 range=_count("a write interval", MAX_ITERATIONS)),
+    "solver.ranks": Key("—", "parallel ranks (MPI processes)", 1, range=_count("a number of ranks", MAX_RANKS)),
     "solver.turbulence_intensity": Key("—", "inlet turbulence intensity (fraction)", 0.005,
                                        range=Range(0.0, 0.2, open_lo=True,
                                                    expected="a turbulence intensity fraction in ({lo}, {hi}] (0.01 = 1 %)")),
     "solver.turbulence_length_scale": Key("m", "inlet turbulence length scale", default="0.001 × reference length",
-                                          range=_positive("m")),
+                                          range=_within(1e-6, _L, "m")),
     "cluster.partition": Key("—", "batch partition (queue) of every job; empty: the cluster's default", "",
                              pattern=_BATCH_NAME),
     "cluster.account": Key("—", "account the jobs are charged to; empty: the user's default", "", pattern=_BATCH_NAME),
@@ -259,6 +283,8 @@ KEYS: dict[str, Key] = {
                                       range=_RIDE_HEIGHT),
     "report.picture_yaw_deg": Key("deg", "yaw of the pictured operating point (`--picture-yaw`)",
                                   default="smallest yaw", range=_YAW),
+    "analysis": Key("—", "settings of `postproc analyse` (its own sections under [analysis]; caseprep only "
+                         "carries them)", default="none"),
 }
 
 
@@ -288,5 +314,6 @@ def markdown_table() -> str:
     for name, k in KEYS.items():
         valid = (" / ".join(k.choices) if k.choices else k.range.table_text() if k.range
                  else k.pattern.expected if k.pattern else "")
+        valid = valid.replace("|", "\\|")  # a bar inside a cell would split it
         rows.append(f"| `{name}` | {k.unit} | {k.meaning} | {k.default_text()} | {valid} |")
     return "\n".join(rows) + "\n"

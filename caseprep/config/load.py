@@ -15,9 +15,11 @@ from typing import Any
 
 from pydantic import ValidationError
 
+from caseprep.config.bounds import empty_problems, point_problems, raw_problems
 from caseprep.config.checks import problems
 from caseprep.config.schema import EMPTY_GEOMETRY, FIDELITIES, Config, translate_errors
 from caseprep.contract.errors import UserError, UserErrors, did_you_mean
+from caseprep.contract.limits import MAX_CONFIG_BYTES
 
 
 def _tuplify(x: Any) -> Any:
@@ -37,13 +39,16 @@ def _resolve_paths(cfg: Config, base: Path) -> Config:
 
 def parse_config(data: dict, file: str = "config.toml", base_dir: str | Path = ".") -> Config:
     """Validate an already-parsed TOML mapping. Raises UserError/UserErrors."""
+    errs = raw_problems(data, file)  # sizes first: nothing large is validated or expanded
+    if errs:
+        raise errs[0] if len(errs) == 1 else UserErrors(errs)
     try:
         cfg = Config.model_validate(_tuplify(data))
     except ValidationError as exc:
         errs = translate_errors(exc, file)
         raise (errs[0] if len(errs) == 1 else UserErrors(errs)) from None
     base = Path(base_dir)
-    errs = problems(cfg, base, file)
+    errs = problems(cfg, base, file) + empty_problems(cfg.sweep, file) + point_problems(cfg.model_dump(), file)
     if errs:
         raise errs[0] if len(errs) == 1 else UserErrors(errs)
     out = _resolve_paths(cfg, base)
@@ -61,12 +66,19 @@ def load_config(path: str | Path) -> Config:
     p = Path(path)
     if not p.is_file():
         raise UserError(expected="an existing config file (TOML)", got=str(p), fix="check the path")
+    size = p.stat().st_size
+    if size > MAX_CONFIG_BYTES.value:
+        raise UserError(expected=f"a config file of at most {int(MAX_CONFIG_BYTES.value):,} bytes", got=f"{size:,} bytes",
+                        file=str(p), fix="a sweep config is a few kilobytes: check that this is the config")
     try:
         data = tomllib.loads(p.read_text(encoding="utf-8"))
     except UnicodeDecodeError:
         raise UserError(expected="a UTF-8 text file", got="binary data", file=str(p)) from None
     except tomllib.TOMLDecodeError as exc:
         raise UserError(f"{p} is not valid TOML: {exc}", fix="fix the syntax at that line (strings in quotes, arrays in [ ])") from None
+    except RecursionError:
+        raise UserError(expected="a TOML config of tables and flat lists", got="lists or tables nested too deep to read",
+                        file=str(p), fix="fix the brackets") from None
     return parse_config(data, file=str(p), base_dir=p.parent)
 
 

@@ -12,16 +12,16 @@ Loading is :func:`caseprep.config.load.load_config`.
 from __future__ import annotations
 
 import re
-from typing import Literal
+from typing import Any, Literal
 
 from pydantic import BaseModel, ConfigDict, PrivateAttr, ValidationError, field_validator
 from pydantic_core import PydanticCustomError
 
 from caseprep.config.keys import KEYS, choices, default
 from caseprep.contract.errors import UserError, did_you_mean
+from caseprep.contract.limits import MAX_NAME_LENGTH, NAME_RE, NAME_RULE as _RULE, is_name  # noqa: F401 (NAME_RE re-exported)
 
-NAME_RE = re.compile(r"^[A-Za-z][A-Za-z0-9_-]*$")
-NAME_RULE = "a name made of letters, digits, '_' and '-', starting with a letter"
+NAME_RULE = f"{_RULE}, at most {int(MAX_NAME_LENGTH.value)} characters"
 # allowed values, from the one declaration of the keys (caseprep.config.keys)
 FIDELITIES = choices("mesh.fidelity")
 GROUND_MODES = choices("ground.mode")
@@ -36,13 +36,14 @@ Vec3 = tuple[float, float, float]
 
 
 def _check_name(v: str) -> str:
-    if not NAME_RE.match(v):
+    if not is_name(v):
         raise PydanticCustomError("uf_name", "name", {"expected": NAME_RULE, "fix": "rename it, e.g. 'diffuser_8deg'"})
     return v
 
 
 class _M(BaseModel):
-    model_config = ConfigDict(frozen=True, extra="forbid", strict=True)
+    # every number finite: NaN and ±inf are refused at their key
+    model_config = ConfigDict(frozen=True, extra="forbid", strict=True, allow_inf_nan=False)
 
 
 class StudyCfg(_M):
@@ -197,6 +198,8 @@ class Config(_M):
     solver: SolverCfg = SolverCfg()
     cluster: ClusterCfg = ClusterCfg()
     report: ReportCfg = ReportCfg()
+    # settings of `postproc analyse` (read by postproc.io.analysis_config; caseprep only carries them)
+    analysis: dict[str, Any] | None = None
     _file: str = PrivateAttr(default="config.toml")
 
     @property
@@ -302,7 +305,7 @@ def _fixed_len(loc: tuple) -> int | None:
 _TYPE_WORDS = {
     "float_type": "a number", "int_type": "a whole number", "string_type": "a text string (in quotes)",
     "bool_type": "true or false", "tuple_type": "a list", "dict_type": "a table", "model_type": "a table",
-    "list_type": "a list",
+    "list_type": "a list", "finite_number": "a finite number (not nan or inf)",
 }
 
 

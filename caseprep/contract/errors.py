@@ -29,6 +29,7 @@ class UserError(Exception):
         key: str | None = None,
         fix: str | None = None,
     ) -> None:
+        file, key = _printable(file), _printable(key)
         if message is None:
             parts = []
             if expected is not None:
@@ -49,6 +50,14 @@ class UserError(Exception):
         self.file = file
         self.key = key
         self.fix = fix
+
+
+def _printable(text: str | None) -> str | None:
+    """``text`` with control characters escaped (a name read from a file must
+    not move the terminal's cursor or split a message line)."""
+    if text is None or str(text).isprintable():
+        return text
+    return "".join(c if c.isprintable() else c.encode("unicode_escape").decode("ascii") for c in str(text))
 
 
 class UserErrors(UserError):

@@ -69,6 +69,9 @@ from typing import Any
 from caseprep.contract.errors import UserError
 from caseprep.contract.frames import Placement
 from caseprep.contract.atomicio import write_json_atomic
+from caseprep.contract.limits import MAX_CASE_ID_LENGTH, MAX_CASES, NAME_RULE, is_case_id
+from caseprep.contract.untrusted import (confined, expect_dict, expect_int, expect_list, expect_number, expect_str,
+                                         expect_vec3, read_json, relative_parts)
 
 SCHEMA = "underfloor-manifest"
 SCHEMA_VERSION = 1
@@ -183,7 +186,8 @@ class CaseRecord:
         return d
 
     @classmethod
-    def from_dict(cls, d: dict[str, Any], source: str = MANIFEST_NAME) -> "CaseRecord":
+    def from_dict(cls, d: dict[str, Any], source: str = MANIFEST_NAME, index: int | None = None) -> "CaseRecord":
+        check_record_dict(d, source, index)
         cid = d.get("case_id", "?")
         try:
             r = d["reference"]
@@ -273,13 +277,96 @@ class Manifest:
         )
 
     def case_dir(self, case: CaseRecord) -> Path:
-        return (self.root or Path(".")) / case.folder
+        """The case's folder: ``root/folder``, refused (UserError naming the
+        record) unless it stays inside the sweep folder, links followed."""
+        root = self.root or Path(".")
+        return confined(root, case.folder, file=str(root / MANIFEST_NAME), key=f"cases[{case.case_id}].folder",
+                        what="a case folder")
+
+
+_FIX = "the manifest is written by `caseprep write`: regenerate the sweep (or restore the file) instead of editing it"
+#: params every case record carries: name -> (whole number?, may be null?)
+_PARAMS = {"ride_height_front": (False, True), "ride_height_rear": (False, True), "pitch_deg": (False, False),
+           "yaw_deg": (False, False), "speed": (False, False), "mesh_level": (True, False)}
+_REFERENCE_NUMBERS = ("area", "length", "wheelbase", "rho", "nu", "speed")
+_REFERENCE_POINTS = ("front_axle", "rear_axle", "moment_point")
+
+
+def check_record_dict(d: object, source: str = MANIFEST_NAME, index: int | None = None) -> None:
+    """Refuse a case record read from disk whose shape or values are wrong
+    (UserError naming the key, e.g. ``cases[3].params.yaw_deg``): the id
+    must follow the name rule, the folder be a relative path, the numbers
+    finite, the lists of the right length."""
+    where = f"cases[{index}]" if index is not None else "cases[?]"
+    expect_dict(d, file=source, key=where, fix=_FIX)
+    cid = d.get("case_id")
+    if not is_case_id(cid):
+        raise UserError(expected=f"a case id: {NAME_RULE}, at most {MAX_CASE_ID_LENGTH} characters", got=cid,
+                        file=source, key=f"{where}.case_id", fix=_FIX)
+    where = f"cases[{index}] ({cid})" if index is not None else f"cases[{cid}]"
+    for k in ("folder", "variant", "yaw_mode", "ground", "mesh_frame", "fidelity"):
+        if k not in d:
+            raise UserError(expected=f"a case record with the key {k!r}", got="a record without it", file=source,
+                            key=where, fix=_FIX)
+        expect_str(d[k], file=source, key=f"{where}.{k}", fix=_FIX)
+    params = expect_dict(d.get("params"), file=source, key=f"{where}.params", fix=_FIX)
+    for k, (whole, nullable) in _PARAMS.items():
+        if k not in params:
+            continue
+        if whole:
+            expect_int(params[k], file=source, key=f"{where}.params.{k}", fix=_FIX, lo=0, hi=100)
+        else:
+            expect_number(params[k], file=source, key=f"{where}.params.{k}", fix=_FIX, none_ok=nullable)
+    ref = expect_dict(d.get("reference"), file=source, key=f"{where}.reference", fix=_FIX)
+    for k in _REFERENCE_NUMBERS:
+        expect_number(ref.get(k), file=source, key=f"{where}.reference.{k}", fix=_FIX)
+    for k in ("area", "length", "rho", "speed"):
+        if not ref[k] > 0:
+            raise UserError(expected="a positive number", got=ref[k], file=source, key=f"{where}.reference.{k}", fix=_FIX)
+    expect_number(ref.get("p_ref", 0.0), file=source, key=f"{where}.reference.p_ref", fix=_FIX)
+    for k in _REFERENCE_POINTS:
+        expect_vec3(ref.get(k), file=source, key=f"{where}.reference.{k}", fix=_FIX)
+    if ref.get("cog") is not None:
+        expect_vec3(ref["cog"], file=source, key=f"{where}.reference.cog", fix=_FIX)
+    expect_vec3(d.get("wind_direction_body"), file=source, key=f"{where}.wind_direction_body", fix=_FIX)
+    frames = expect_dict(d.get("frames"), file=source, key=f"{where}.frames", fix=_FIX)
+    patches = expect_dict(d.get("patches"), file=source, key=f"{where}.patches", fix=_FIX)
+    for k in ("body", "wheels"):
+        if k in patches:
+            for j, n in enumerate(expect_list(patches[k], file=source, key=f"{where}.patches.{k}", fix=_FIX)):
+                expect_str(n, file=source, key=f"{where}.patches.{k}[{j}]", fix=_FIX, max_len=256)
+    for k in ("min_clearance",):
+        expect_number(d.get(k), file=source, key=f"{where}.{k}", fix=_FIX, none_ok=True)
+    if d.get("min_clearance_at") is not None:
+        expect_vec3(d["min_clearance_at"], file=source, key=f"{where}.min_clearance_at", fix=_FIX)
+    expect_int(d.get("estimated_cells"), file=source, key=f"{where}.estimated_cells", fix=_FIX, none_ok=True)
+    if d.get("turbulence_model") is not None:
+        expect_str(d["turbulence_model"], file=source, key=f"{where}.turbulence_model", fix=_FIX, max_len=64)
+    expect_number(d.get("target_yplus"), file=source, key=f"{where}.target_yplus", fix=_FIX, none_ok=True)
+    for k, v in expect_dict(d.get("outputs") or {}, file=source, key=f"{where}.outputs", fix=_FIX).items():
+        relative_parts(v, file=source, key=f"{where}.outputs.{k}", what="an output path")
+    rot = frames.get("rotation_body_to_ground")
+    if not isinstance(rot, list) or len(rot) != 3:
+        raise UserError(expected="a 3 × 3 rotation (three rows of 3 numbers)", got=rot if not isinstance(rot, (dict, list)) else "another shape",
+                        file=source, key=f"{where}.frames.rotation_body_to_ground", fix=_FIX)
+    for j, row in enumerate(rot):
+        expect_vec3(row, file=source, key=f"{where}.frames.rotation_body_to_ground[{j}]", fix=_FIX)
+    expect_vec3(frames.get("translation_body_to_ground"), file=source, key=f"{where}.frames.translation_body_to_ground",
+                fix=_FIX)
+    for k in ("pitch_deg", "yaw_deg"):
+        expect_number(frames.get(k), file=source, key=f"{where}.frames.{k}", fix=_FIX)
+    expect_str(frames.get("yaw_mode"), file=source, key=f"{where}.frames.yaw_mode", fix=_FIX)
+    try:
+        Placement.from_dict(frames)
+    except (KeyError, TypeError, ValueError, IndexError) as exc:
+        raise UserError(expected="a body placement (rotation, translation, pitch, beta, yaw_mode)",
+                        got=f"{type(exc).__name__}: {str(exc)[:120]}", file=source, key=f"{where}.frames", fix=_FIX) from None
 
 
 def write_manifest(manifest: Manifest, root: str | os.PathLike) -> Path:
     """Write ``manifest.json`` into ``root`` atomically; returns its path."""
     path = Path(root) / MANIFEST_NAME
-    write_json_atomic(path, manifest.to_dict())
+    write_json_atomic(path, manifest.to_dict(), root=root)
     return path
 
 
@@ -289,21 +376,37 @@ def read_manifest(path: str | os.PathLike) -> Manifest:
     if p.is_dir():
         p = p / MANIFEST_NAME
     if not p.is_file():
+        from caseprep.contract.locking import refuse_interrupted
+
+        refuse_interrupted(p.parent, "this command")  # a first write killed before its manifest
         raise UserError(
             expected="a sweep folder holding manifest.json (written by `caseprep write`)",
             got=str(path),
             fix="point at the folder given to `caseprep write -o`",
         )
-    try:
-        d = json.loads(p.read_text(encoding="utf-8"))
-    except (json.JSONDecodeError, UnicodeDecodeError) as exc:
-        raise UserError(f"{p} is not valid JSON ({exc})", fix="regenerate it with `caseprep write --force`") from None
+    d = read_json(p, "sweep manifest", fix="regenerate it with `caseprep write --force`")
     if not isinstance(d, dict) or d.get("schema") != SCHEMA:
         raise UserError(expected=f"schema {SCHEMA!r}", got=d.get("schema") if isinstance(d, dict) else type(d).__name__, file=str(p), key="schema")
     if d.get("schema_version") != SCHEMA_VERSION:
         raise UserError(expected=f"schema_version {SCHEMA_VERSION}", got=d.get("schema_version"), file=str(p), key="schema_version",
                         fix="regenerate the sweep with this version of caseprep")
-    cases = tuple(CaseRecord.from_dict(c, source=str(p)) for c in d.get("cases", []))
+    raw = expect_list(d.get("cases", []), file=str(p), key="cases", fix=_FIX)
+    if len(raw) > MAX_CASES.value:
+        raise UserError(expected=f"at most {int(MAX_CASES.value):,} cases", got=f"{len(raw):,}", file=str(p), key="cases",
+                        fix="split the study into several sweep folders")
+    for k in ("tool_version", "config_file", "config_hash", "created_utc", "study"):
+        if k in d:
+            expect_str(d[k], file=str(p), key=k, fix=_FIX)
+    cases = tuple(CaseRecord.from_dict(c, source=str(p), index=i) for i, c in enumerate(raw))
+    seen: dict[str, int] = {}
+    folders: dict[str, int] = {}
+    for i, c in enumerate(cases):
+        for what, value, table in (("case_id", c.case_id, seen), ("folder", c.folder, folders)):
+            if value in table:
+                raise UserError(expected=f"each {what} once", got=f"{value!r} at cases[{table[value]}] and cases[{i}]",
+                                file=str(p), key=f"cases[{i}].{what}", fix=_FIX)
+            table[value] = i
+        confined(p.parent, c.folder, file=str(p), key=f"cases[{i}] ({c.case_id}).folder", what="a case folder")
     return Manifest(
         cases=cases,
         tool_version=str(d.get("tool_version", "")),

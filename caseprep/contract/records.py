@@ -16,6 +16,9 @@ from pathlib import Path
 from typing import Any
 
 from caseprep.contract.atomicio import json_ready
+from caseprep.contract.errors import UserError
+from caseprep.contract.untrusted import (expect_dict, expect_int, expect_list, expect_number, expect_str,
+                                         read_json)
 
 RECORD_NAME = "underfloor-run.json"
 SUMMARY_NAME = "run_summary.json"
@@ -63,6 +66,9 @@ class Flag(StrEnum):
     NOT_READY = "not-ready"
     INTERRUPTED = "interrupted"
     RUNNING = "running"
+    # files of the case that could not be read (the case's notes say why)
+    RECORD_UNREADABLE = "record-unreadable"
+    UNREADABLE = "unreadable"
 
     @property
     def meaning(self) -> str:
@@ -89,6 +95,8 @@ _MEANING = {
     Flag.INTERRUPTED: "the run was interrupted",
     Flag.RUNNING: ("a stage was running when the results were read (or its runner ended without recording the "
                    "outcome: the record's host and pid say where it ran)"),
+    Flag.RECORD_UNREADABLE: "the case's run record (underfloor-run.json) is unreadable or malformed: its run is unknown",
+    Flag.UNREADABLE: "the case's VTK export could not be read (corrupt, truncated or absurd sizes); the notes say why",
 }
 
 #: The flags the runner sets (the rest are set by the post-processing).
@@ -208,12 +216,73 @@ class CaseRunRecord:
         return cls(**d)
 
 
-def read_case_record(case_dir: str | os.PathLike) -> CaseRunRecord | None:
-    """The last record of a case folder, or None."""
+_FIX = "the run record is written by `caseprep run`: run the case again (caseprep run --only ID --force)"
+_TEXT = ("case_id", "folder", "status", "message", "started_utc", "finished_utc", "end_reason", "convergence",
+         "failed_tool", "log_tail")
+_WHOLE = ("ranks", "cells", "background_cells", "failed_checks", "iterations", "export_files")
+_NUMBERS = ("wall_time", "max_non_orthogonality", "max_skewness", "layer_coverage", "continuity_cumulative",
+            "residual_drop")
+
+
+def check_run_record_dict(d: object, source: str) -> None:
+    """Refuse a run record read from disk whose values have the wrong type
+    (UserError naming the key, e.g. ``iterations``). Unknown keys are ignored."""
+    expect_dict(d, file=source, key="(top level)", fix=_FIX)
+    for k in _TEXT:
+        if d.get(k) is not None:
+            expect_str(d[k], file=source, key=k, fix=_FIX, max_len=1_000_000)
+    for k in _WHOLE:
+        expect_int(d.get(k), file=source, key=k, fix=_FIX, none_ok=True, lo=0, hi=10**13)
+    for k in _NUMBERS:
+        expect_number(d.get(k), file=source, key=k, fix=_FIX, none_ok=True)
+    if d.get("mesh_ok") is not None and not isinstance(d["mesh_ok"], bool):
+        raise UserError(expected="true, false or null", got=d["mesh_ok"], file=source, key="mesh_ok", fix=_FIX)
+    for i, st in enumerate(expect_list(d.get("stages", []), file=source, key="stages", fix=_FIX)):
+        expect_dict(st, file=source, key=f"stages[{i}]", fix=_FIX)
+        for k in ("stage", "status"):
+            expect_str(st.get(k), file=source, key=f"stages[{i}].{k}", fix=_FIX, max_len=64)
+        expect_number(st.get("wall_time"), file=source, key=f"stages[{i}].wall_time", fix=_FIX, none_ok=True)
+        expect_int(st.get("returncode"), file=source, key=f"stages[{i}].returncode", fix=_FIX, none_ok=True,
+                   lo=-(2**31), hi=2**31)
+        extra = set(st) - {"stage", "status", "wall_time", "returncode"}
+        if extra:
+            raise UserError(expected="stage keys stage, status, wall_time, returncode", got=sorted(extra)[0],
+                            file=source, key=f"stages[{i}]", fix=_FIX)
+    for i, ly in enumerate(expect_list(d.get("layers", []), file=source, key="layers", fix=_FIX)):
+        expect_dict(ly, file=source, key=f"layers[{i}]", fix=_FIX)
+        if ly.get("patch") is not None:
+            expect_str(ly["patch"], file=source, key=f"layers[{i}].patch", fix=_FIX, max_len=256)
+        for k in ("target_layers", "layers", "coverage", "thickness_percent", "faces"):
+            expect_number(ly.get(k), file=source, key=f"layers[{i}].{k}", fix=_FIX, none_ok=True)
+    for k, v in expect_dict(d.get("final_residuals") or {}, file=source, key="final_residuals", fix=_FIX).items():
+        expect_number(v, file=source, key=f"final_residuals.{k}", fix=_FIX, none_ok=True)
+    for i, f in enumerate(expect_list(d.get("flags", []), file=source, key="flags", fix=_FIX)):
+        expect_str(f, file=source, key=f"flags[{i}]", fix=_FIX, max_len=64)
+    if d.get("force_settling") is not None:
+        expect_dict(d["force_settling"], file=source, key="force_settling", fix=_FIX)
+
+
+def load_case_record(case_dir: str | os.PathLike) -> CaseRunRecord | None:
+    """The last record of a case folder; None when there is none. A record
+    that exists but cannot be read or has wrong values is a UserError naming
+    the file and the key."""
     p = Path(case_dir) / RECORD_NAME
+    if not (p.exists() or p.is_symlink()):
+        return None
+    d = read_json(p, "run record", fix=_FIX)
+    check_run_record_dict(d, str(p))
     try:
-        return CaseRunRecord.from_dict(json.loads(p.read_text()))
-    except (OSError, ValueError, TypeError):
+        return CaseRunRecord.from_dict(d)
+    except (TypeError, ValueError) as exc:  # pragma: no cover - excluded by the checks above
+        raise UserError(expected="a run record", got=str(exc)[:160], file=str(p), fix=_FIX) from None
+
+
+def read_case_record(case_dir: str | os.PathLike) -> CaseRunRecord | None:
+    """The last record of a case folder, or None (also when it is unreadable:
+    the runner then runs the case as if it had no record)."""
+    try:
+        return load_case_record(case_dir)
+    except UserError:
         return None
 
 

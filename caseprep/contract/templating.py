@@ -24,13 +24,21 @@ def template_dir() -> Path:
     return Path(__file__).resolve().parents[2] / "templates"
 
 
+#: Templates whose output is HTML/XML: every value they print is escaped
+#: (autoescape); the solver's dictionaries and the shell scripts are not HTML
+#: (their values are checked and formatted by caseprep.casefiles instead).
+ESCAPED_EXTENSIONS = ("html", "htm", "xml", "svg", "html.j2", "htm.j2", "xml.j2", "svg.j2")
+
+
 def environment() -> jinja2.Environment:
-    """A jinja2 environment over :func:`template_dir` with StrictUndefined."""
+    """A jinja2 environment over :func:`template_dir` with StrictUndefined;
+    HTML templates (:data:`ESCAPED_EXTENSIONS`) render with autoescape on."""
     return jinja2.Environment(
         loader=jinja2.FileSystemLoader(str(template_dir())),
         undefined=jinja2.StrictUndefined,
         keep_trailing_newline=True,
         trim_blocks=True,
         lstrip_blocks=True,
-        autoescape=False,
+        autoescape=jinja2.select_autoescape(enabled_extensions=ESCAPED_EXTENSIONS, default_for_string=False,
+                                            default=False),
     )

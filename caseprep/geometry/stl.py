@@ -15,6 +15,7 @@ from pathlib import Path
 import numpy as np
 
 from caseprep.contract.errors import UserError
+from caseprep.contract.limits import MAX_LENGTH, MAX_STL_TRIANGLES
 
 LENGTH_UNITS = {"m": 1.0, "mm": 1.0e-3, "in": 0.0254}
 
@@ -101,6 +102,38 @@ def _sanitise_solid_name(raw: str, index: int) -> str:
     return name
 
 
+def solid_names_as_read(raw: list[bytes]) -> list[str]:
+    """The patch names :func:`read_stl` gives solids whose ``solid`` lines
+    carry ``raw`` (in file order): characters other than letters, digits and
+    ``_`` become ``_``, a name not starting with a letter gets a prefix, and a
+    repeated name gets its index appended. The one naming rule of solids."""
+    names: list[str] = []
+    for i, r in enumerate(raw):
+        name = _sanitise_solid_name(r.decode("ascii", "replace"), i)
+        if name in names:
+            name = f"{name}_{i}"
+        names.append(name)
+    return names
+
+
+def with_solid_names_as_read(data: bytes) -> bytes:
+    """An ASCII STL's bytes with each ``solid``/``endsolid`` line naming the
+    solid as :func:`read_stl` names it (:func:`solid_names_as_read`), so the
+    mesher's patches are the names the planner checked; a binary STL is
+    returned unchanged."""
+    if stl_kind(data) != "ascii":
+        return data
+    blocks = list(_SOLID_RE.finditer(data))
+    names = solid_names_as_read([b.group(1) for b in blocks])
+    out, pos = [], 0
+    for b, name in zip(blocks, names):
+        out.append(data[pos:b.start()])
+        out.append(b"solid " + name.encode() + b"\n" + b.group(2).lstrip(b"\r\n") + b"endsolid " + name.encode())
+        pos = b.end()
+    out.append(data[pos:])
+    return b"".join(out)
+
+
 def read_stl(path: str | Path, length_unit: str = "m", default_name: str = "body") -> TriSurface:
     """Read a binary or ASCII STL file into a :class:`TriSurface` (m, body frame).
 
@@ -115,6 +148,10 @@ def read_stl(path: str | Path, length_unit: str = "m", default_name: str = "body
         raise UserError(expected="a length unit in " + ", ".join(LENGTH_UNITS), got=length_unit, file=str(p))
     if not p.is_file():
         raise UserError(expected="an existing STL file", got=str(p), fix="check the path (relative paths are relative to the config file)")
+    size = p.stat().st_size
+    if size > 84 + 300 * MAX_STL_TRIANGLES.value:  # 50 bytes per binary triangle, about 250 as ASCII text
+        raise UserError(expected=f"a geometry of at most {int(MAX_STL_TRIANGLES.value):,} triangles",
+                        got=f"a file of {size:,} bytes", file=str(p), fix="decimate the surface")
     data = p.read_bytes()
     scale = LENGTH_UNITS[length_unit]
     kind = stl_kind(data)
@@ -131,7 +168,8 @@ def read_stl(path: str | Path, length_unit: str = "m", default_name: str = "body
         blocks = list(_SOLID_RE.finditer(data))
         if not blocks:
             raise UserError(expected="an ASCII STL with 'solid … endsolid' blocks", got="none", file=str(p))
-        parts, ids, nm = [], [], []
+        parts, ids = [], []
+        nm = solid_names_as_read([b.group(1) for b in blocks])
         for i, b in enumerate(blocks):
             v = _VERTEX_RE.findall(b.group(2))
             try:
@@ -142,12 +180,8 @@ def read_stl(path: str | Path, length_unit: str = "m", default_name: str = "body
             if arr.shape[0] % 3:
                 raise UserError(expected="three vertices per facet", got=f"{arr.shape[0]} vertices", file=str(p),
                                 key=f"solid {i + 1}")
-            name = _sanitise_solid_name(b.group(1).decode("ascii", "replace"), i)
-            if name in nm:
-                name = f"{name}_{i}"
             parts.append(arr.reshape(-1, 3, 3))
             ids.append(np.full(arr.shape[0] // 3, i, dtype=int))
-            nm.append(name)
         tris = np.concatenate(parts) if parts else np.zeros((0, 3, 3))
         solid = np.concatenate(ids) if ids else np.zeros(0, dtype=int)
         names = tuple(nm)
@@ -155,6 +189,13 @@ def read_stl(path: str | Path, length_unit: str = "m", default_name: str = "body
         raise UserError(expected="at least one triangle", got="an empty STL", file=str(p))
     if not np.all(np.isfinite(tris)):
         raise UserError(expected="finite coordinates", got="NaN or infinite values", file=str(p))
+    if tris.shape[0] > MAX_STL_TRIANGLES.value:
+        raise UserError(expected=f"at most {int(MAX_STL_TRIANGLES.value):,} triangles", got=f"{tris.shape[0]:,}", file=str(p),
+                        fix="decimate the surface (the mesher refines it anyway)")
+    reach = float(np.abs(tris).max()) * scale
+    if not reach <= MAX_LENGTH.value:
+        raise UserError(expected=f"coordinates within ±{MAX_LENGTH.value:g} m", got=f"{reach:.3g} m", file=str(p),
+                        fix=f"check body.length_unit ({length_unit!r}) and the export's units")
     return TriSurface(tris * scale, solid, names, str(p))
 
 

@@ -37,6 +37,7 @@ from typing import Callable
 import numpy as np
 
 from caseprep.contract.frames import Placement, ground_to_wind_rotation, wind_direction_ground
+from caseprep.contract.limits import MAX_CELLS, MAX_RANKS
 from caseprep.planning.physics import first_cell_height, layer_stack_thickness
 from caseprep.planning.spec import Domain, Layers, MeshSpec, OrientedBox, RefinementRegion
 
@@ -338,9 +339,19 @@ def plan_domain(body: BodyExtent, placement: Placement, ground: str, sizing: Dom
     smin, smax = settings.surface_levels
     mesh = MeshSpec(base_cell=float(d0), surface_levels=(int(smin), int(smax)), feature_level=int(settings.feature_level),
                     regions=tuple(regions), layers=layers, location_in_mesh=tuple(float(v) for v in lim))
-    return DomainPlan(domain=sec.domain, mesh=mesh, base_cell=float(d0), gap_level=gap_level,
-                      estimated_cells=estimate_cells(sec.domain, mesh, body.area),
-                      warnings=sec.warnings + tuple(layer_warnings), problems=sec.problems + tuple(gap_problems))
+    est = estimate_cells(sec.domain, mesh, body.area)
+    return DomainPlan(domain=sec.domain, mesh=mesh, base_cell=float(d0), gap_level=gap_level, estimated_cells=est,
+                      warnings=sec.warnings + tuple(layer_warnings),
+                      problems=sec.problems + tuple(gap_problems) + tuple(cell_limit_problems(est)))
+
+
+def cell_limit_problems(estimated_cells: int) -> list[tuple[str, str]]:
+    """(what, fix) when a case's estimated cells exceed :data:`MAX_CELLS`."""
+    if estimated_cells <= MAX_CELLS.value:
+        return []
+    return [(f"an estimated {estimated_cells:.3g} cells, above the limit of {MAX_CELLS.value:.3g} cells per case "
+             f"({MAX_CELLS.why})",
+             "raise mesh.base_cell (m, not mm?), lower the fidelity, mesh levels or refinement levels, or shrink the domain")]
 
 
 def ground_grading(height: float, first_cell: float, top_cell: float) -> tuple[int, float, float]:
@@ -409,7 +420,7 @@ def plan_empty_section(*, placement: Placement, length: float, width: float, hei
     mesh = MeshSpec(base_cell=float(d0), surface_levels=(0, 0), feature_level=0, regions=(), layers=None,
                     location_in_mesh=tuple(float(v) for v in g0 + (lo + c) @ axes))
     return DomainPlan(domain=domain, mesh=mesh, base_cell=float(d0), gap_level=None, estimated_cells=int(n1 * n2 * n3),
-                      warnings=(), problems=())
+                      warnings=(), problems=tuple(cell_limit_problems(int(n1 * n2 * n3))))
 
 
 def estimate_cells(domain: Domain, mesh: MeshSpec, body_area: float) -> int:
@@ -421,7 +432,7 @@ def estimate_cells(domain: Domain, mesh: MeshSpec, body_area: float) -> int:
     A/Δ_s². Δ_n = base_cell / 2ⁿ (m); ``body_area`` m².
     """
     d0 = mesh.base_cell
-    total = float(np.prod(domain.cells))
+    total = float(np.prod(np.asarray(domain.cells, dtype=float)))  # float: no integer overflow
     prev = d0
     for r in sorted(mesh.regions, key=lambda r: r.level):
         dr = d0 / 2**r.level
@@ -443,8 +454,8 @@ def decomposition_split(n_procs: int, extent: np.ndarray) -> tuple[int, int, int
     product = n_procs, giving more pieces to the longer ``extent`` (m, the
     domain's bounding-box size along mesh x, y, z): the prime factors are
     handed out largest first to the axis with the largest length per piece."""
-    if n_procs < 1:
-        raise ValueError("expected at least one rank")
+    if not 1 <= n_procs <= MAX_RANKS.value:
+        raise ValueError(f"expected 1 to {int(MAX_RANKS.value)} ranks, got {n_procs}")
     f, k, m = [], 2, n_procs
     while k * k <= m:
         while m % k == 0:

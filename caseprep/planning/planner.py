@@ -36,7 +36,7 @@ from caseprep.geometry.stl import LENGTH_UNITS, read_stl
 from caseprep.contract.manifest import Reference
 from caseprep.planning.physics import air_density, inlet_turbulence, isa_troposphere, sutherland_viscosity
 from caseprep.planning.spec import CaseSpec, Flow, SolverSpec, Wheel
-from caseprep.planning.points import SweepPoint, expand_collect
+from caseprep.planning.points import SweepPoint, check_case_count, expand_collect
 
 
 @dataclass(frozen=True)
@@ -172,6 +172,9 @@ def plan_all(cfg: Config) -> PlanResult:
     """Plan every case, collecting problems instead of stopping at the first."""
     problems: list[UserError] = []
     warnings: list[str] = []
+    too_many = check_case_count(cfg)  # before reading anything or making any point
+    if too_many is not None:
+        return PlanResult((), (too_many,), ())
     geoms, _, gerrs = load_geometries(cfg)
     problems.extend(gerrs)
     points, perrs = expand_collect(cfg)
@@ -301,6 +304,12 @@ def _place(cfg: Config, pt: SweepPoint, g: BodyGeometry, cache: _RotationCache):
         raise UserError(expected="a body clear of the ground",
                         got=f"clearance {clearance * 1e3:.3f} mm at {where} in case {pt.case_id}", file=cfg.file,
                         key=pt.source, fix="the body touches or penetrates the ground: raise the ride height or reduce the pitch")
+    h_max = max(pt.ride_height_front, pt.ride_height_rear)
+    if h_max > g.length:
+        raise UserError(expected="ride heights up to one body length (the ground effect this tool studies)",
+                        got=f"{h_max:g} m for a body {g.length:.4g} m long in case {pt.case_id}", file=cfg.file,
+                        key=pt.source,
+                        fix='ride heights are in m (not mm); for a body far from any ground use ground.mode = "none"')
     return P, clearance, at, pct, where
 
 

@@ -51,6 +51,7 @@ import numpy as np
 from caseprep.config.schema import Config
 from caseprep.contract.errors import UserError, UserErrors
 from caseprep.contract.frames import place_body, rot_y
+from caseprep.contract.limits import MAX_CASES
 
 
 @dataclass(frozen=True)
@@ -143,8 +144,52 @@ def expand(cfg: Config) -> list[SweepPoint]:
     return pts
 
 
+def case_count(cfg: Config) -> tuple[int, list[tuple[str, int]]]:
+    """The number of points :func:`expand` makes (before duplicates are
+    removed), by arithmetic alone, and its factors as (config key, count).
+    Nothing is expanded: this is what bounds the expansion."""
+    s = cfg.sweep
+    has_ground = cfg.ground.mode != "none" and not cfg.empty_section
+    n_var = len(s.variants) if s.variants else len(cfg.variants)
+    var_key = "sweep.variants" if s.variants else "variants"
+    if s.points is not None:
+        n = sum(1 if pt.variant else n_var for pt in s.points)
+        return n, [("sweep.points", len(s.points)), (var_key, n_var)]
+    factors = [(var_key, n_var)]
+    if s.ride_heights_front_rear is not None:
+        factors.append(("sweep.ride_heights_front_rear", len(s.ride_heights_front_rear)))
+    else:
+        if has_ground:
+            factors.append(("sweep.ride_height", len(s.ride_height or ())))
+        factors.append(("sweep.pitch_deg", len(s.pitch_deg or (0.0,))))
+    factors += [("sweep.yaw_deg", len(s.yaw_deg)), ("sweep.speed", len(s.speed) if s.speed is not None else 1),
+                ("sweep.mesh_level", len(s.mesh_level))]
+    n = 1
+    for _, k in factors:
+        n *= k
+    return n, factors
+
+
+def check_case_count(cfg: Config) -> UserError | None:
+    """A UserError when the sweep would have more than :data:`MAX_CASES`
+    cases, naming the count, its factors and the key with the most values."""
+    n, factors = case_count(cfg)
+    if n <= MAX_CASES.value:
+        return None
+    worst = max(factors, key=lambda f: f[1])[0]
+    product = " × ".join(f"{k} {v}" for k, v in factors if v != 1 or k == worst)
+    return UserError(expected=f"at most {int(MAX_CASES.value):,} cases in one sweep", got=f"{n:,} cases ({product})",
+                     file=cfg.file, key=worst,
+                     fix="fewer values per axis, or split the study into several sweep folders "
+                         "(see the README: What the tool refuses)")
+
+
 def expand_collect(cfg: Config) -> tuple[list[SweepPoint], list[UserError]]:
-    """As :func:`expand`, returning (valid points, problems) instead of raising."""
+    """As :func:`expand`, returning (valid points, problems) instead of raising.
+    A sweep over :data:`MAX_CASES` is refused before any point is made."""
+    too_many = check_case_count(cfg)
+    if too_many is not None:
+        return [], [too_many]
     s = cfg.sweep
     b = cfg.body
     file = cfg.file

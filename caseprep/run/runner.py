@@ -39,6 +39,7 @@ dimensionless normalised residuals. No axes are involved.
 """
 from __future__ import annotations
 
+import contextlib
 import datetime as _dt
 import os
 import shutil
@@ -51,12 +52,14 @@ from pathlib import Path
 from typing import Any, Callable, Iterable, Sequence
 
 from caseprep.run import solverlogs as sl
-from caseprep.contract.atomicio import write_json_atomic
+from caseprep.contract.atomicio import open_folder, write_json_atomic
 from caseprep.contract.convergence import DEFAULT_OPTIONS, ConvergenceOptions, force_settling, judge_convergence
 from caseprep.contract.errors import UserError, did_you_mean
+from caseprep.contract.limits import MAX_RANKS
+from caseprep.contract.locking import refuse_interrupted, sweep_lock
+from caseprep.contract.manifest import MANIFEST_NAME, CaseRecord, read_manifest
 from caseprep.contract.progress import format_duration
 from caseprep.contract.signals import StopSignals, exit_code, signal_name
-from caseprep.contract.manifest import CaseRecord, read_manifest
 from caseprep.contract.records import (RECORD_NAME, RUN_FLAGS, SUMMARY_NAME, SUMMARY_SCHEMA, CaseRunRecord, Flag,
                                        StageRun, Status, effective_status, read_case_record)
 
@@ -350,11 +353,28 @@ def run_sweep(
     """
     # absolute: run.sh is started with the case folder as working directory
     root = Path(sweep_dir).resolve()
-    manifest = read_manifest(root)
-    if jobs is not None and jobs < 1:
-        raise UserError(expected="a number of parallel cases ≥ 1", got=jobs, key="jobs", fix="use -j 1 or more")
-    if ranks is not None and ranks < 1:
-        raise UserError(expected="a number of MPI ranks ≥ 1", got=ranks, key="ranks", fix="use --ranks 1 or more")
+    if not (root / MANIFEST_NAME).is_file():
+        read_manifest(root)  # not a sweep: refused before anything is created in the folder
+    # One command at a time in a sweep folder; runs of named cases (`--only`, the
+    # batch array's tasks) share the sweep and hold each of their cases alone.
+    shared = bool(only)
+    with sweep_lock(root, "caseprep run", shared=shared):
+        refuse_interrupted(root, "caseprep run")
+        manifest = read_manifest(root)
+        with contextlib.ExitStack() as held:
+            if shared:
+                for c in _selected_cases(root, manifest, only):
+                    held.enter_context(sweep_lock(manifest.case_dir(c), f"caseprep run --only {c.case_id}"))
+            return _run_locked(root, manifest, jobs, ranks, stages, only, force, progress, options)
+
+
+def _run_locked(root: Path, manifest, jobs: int | None, ranks: int | None, stages, only, force: bool, progress,
+                options: RunOptions) -> list[CaseRunRecord]:
+    """:func:`run_sweep` holding the sweep's lock."""
+    for value, what, key in ((jobs, "parallel cases", "--jobs"), (ranks, "MPI ranks", "--ranks")):
+        if value is not None and not 1 <= value <= MAX_RANKS.value:
+            raise UserError(expected=f"a number of {what} from 1 to {int(MAX_RANKS.value)}", got=value, key=key,
+                            fix=f"use {key} 1 or more, at most the number of cores")
     stages = _checked_stages(stages)
     selected = _selected_cases(root, manifest, only)
     emit = progress or (lambda ev: None)
@@ -588,21 +608,24 @@ class _Run:
 
 def _start_stage(job: _Job, env: dict[str, str], emit, total: int) -> None:
     stage = job.to_run.pop(0)
-    logs = job.dir / "logs"
-    logs.mkdir(exist_ok=True)
-    # This stage's results make the later stages' results stale.
-    for later in STAGES[STAGES.index(stage):]:
-        try:
-            (logs / f"{later}.done").unlink()
-        except FileNotFoundError:
-            pass
-        if job.plan.get(later) == "done-before":
-            job.plan[later] = "not-run"
+    dfd = open_folder(job.dir, ["logs"])  # no link followed below the case folder
+    try:
+        # This stage's results make the later stages' results stale.
+        for later in STAGES[STAGES.index(stage):]:
+            try:
+                os.unlink(f"{later}.done", dir_fd=dfd)
+            except FileNotFoundError:
+                pass
+            if job.plan.get(later) == "done-before":
+                job.plan[later] = "not-run"
+        fd = os.open(f"underfloor-{stage}.out", os.O_WRONLY | os.O_CREAT | os.O_TRUNC | os.O_NOFOLLOW, 0o644, dir_fd=dfd)
+    finally:
+        os.close(dfd)
     job.stage = stage
     job.stage_t0 = time.monotonic()
     job.stage_wall0 = time.time()
     job.last_beat = job.stage_t0
-    job.out = open(logs / f"underfloor-{stage}.out", "w")
+    job.out = os.fdopen(fd, "w")
     job.proc = subprocess.Popen([str(job.dir / "run.sh"), stage], cwd=job.dir, env=env, stdout=job.out,
                                 stderr=subprocess.STDOUT, stdin=subprocess.DEVNULL, start_new_session=True)
     emit(Progress(job.rec.case_id, job.index, total, "stage-start", stage, job.stage_t0 - job.t0))
@@ -701,7 +724,8 @@ def _finish_record(job: _Job, status: str, message: str, ranks: int, options: Ru
 
 
 def _write_record(case_dir: Path, rec: CaseRunRecord) -> None:
-    write_json_atomic(case_dir / RECORD_NAME, rec.to_dict())
+    # the case folder was checked to lie inside the sweep; nothing below it is followed
+    write_json_atomic(case_dir / RECORD_NAME, rec.to_dict(), root=case_dir)
 
 
 def _write_summary(root: Path, manifest, records: dict[str, CaseRunRecord], ranks: int) -> None:
@@ -716,7 +740,7 @@ def _write_summary(root: Path, manifest, records: dict[str, CaseRunRecord], rank
     counts: dict[str, int] = {}
     for r in rows:
         counts[r["status"]] = counts.get(r["status"], 0) + 1
-    write_json_atomic(root / SUMMARY_NAME, {
+    write_json_atomic(root / SUMMARY_NAME, root=root, obj={
         "schema": SUMMARY_SCHEMA, "schema_version": 1, "written_utc": _utc(), "ranks": ranks,
         "counts": counts, "flag_meanings": {f: f.meaning for f in RUN_FLAGS}, "cases": rows,
     })

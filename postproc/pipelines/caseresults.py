@@ -41,7 +41,9 @@ from typing import Any
 from caseprep.contract import __version__
 from caseprep.contract.atomicio import json_ready, write_json_atomic
 from caseprep.contract.manifest import CaseRecord
+from caseprep.contract.errors import UserError
 from caseprep.contract.records import RECORD_NAME
+from caseprep.contract.untrusted import read_json
 
 RESULTS_DIR = "results"
 RESULT_SCHEMA = "underfloor-case-result"
@@ -126,7 +128,7 @@ def write_case_result(out_dir: str | os.PathLike, case_id: str, study: str, fp: 
            "fingerprint": fp.to_dict(), **json_ready(payload)}
     doc["checksum"] = _sha256(_canonical(doc, ready=True))
     path = result_path(out_dir, case_id)
-    write_json_atomic(path, doc)
+    write_json_atomic(path, doc, root=Path(out_dir))  # never through a link out of the output folder
     return path
 
 
@@ -151,16 +153,12 @@ def read_case_result(out_dir: str | os.PathLike, case_id: str, study: str,
     inputs' fingerprint now) a result computed from other inputs is
     ``stale``; without, only its integrity and identity are checked."""
     path = result_path(out_dir, case_id)
-    try:
-        raw = path.read_bytes()
-    except FileNotFoundError:
+    if not (path.exists() or path.is_symlink()):
         return StoredResult(None, "missing")
-    except OSError as exc:
-        return StoredResult(None, f"corrupt: unreadable ({exc.strerror})")
-    try:
-        doc = json.loads(raw)
-    except (ValueError, UnicodeDecodeError) as exc:
-        return StoredResult(None, f"corrupt: not JSON ({exc})")
+    try:  # untrusted input: size, encoding, strict JSON and nesting checked
+        doc = read_json(path, "per-case result", fix="")
+    except UserError as exc:
+        return StoredResult(None, "corrupt: " + str(exc).splitlines()[0])
     if not isinstance(doc, dict) or doc.get("schema") != RESULT_SCHEMA:
         return StoredResult(None, "corrupt: not a per-case result")
     if doc.get("schema_version") != RESULT_VERSION:

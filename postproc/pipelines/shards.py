@@ -21,17 +21,14 @@ come; on a stop signal (SIGTERM/SIGINT, :mod:`caseprep.contract.signals`) it
 stops starting cases, terminates the workers (SIGTERM, then SIGKILL after a
 grace period) and raises :class:`~caseprep.contract.signals.StopRequested`.
 
-**The tables' lock.** :class:`OutputLock` (``<out>/.postproc.lock``, an
-exclusive ``flock``) makes two merges of the same output folder take turns:
-the second waits up to its timeout, then stops with a UserError naming the
-holder. Each file is also written atomically, so no reader ever sees a torn
-table.
+Two merges of one folder never write at once: they hold the sweep
+folder's lock (:func:`caseprep.contract.locking.sweep_lock`; the shards hold
+it shared), and every file is written atomically, so no reader ever sees a
+torn table.
 """
 from __future__ import annotations
 
 import datetime as _dt
-import errno
-import fcntl
 import hashlib
 import json
 import multiprocessing
@@ -122,7 +119,7 @@ def write_shard_state(out_dir: Path, manifest: Manifest, shard: Shard, state: st
     counts: dict[str, int] = {}
     for v in cases.values():
         counts[v] = counts.get(v, 0) + 1
-    write_json_atomic(path, {
+    write_json_atomic(path, root=Path(out_dir), obj={
         "schema": SHARD_SCHEMA, "schema_version": 1, "study": manifest.study,
         "manifest": manifest_digest(manifest), "shard": [shard.index, shard.count], "state": state,
         "host": socket.gethostname(), "pid": os.getpid(), "started_utc": started_utc,
@@ -163,62 +160,6 @@ def read_shard_states(out_dir: Path) -> tuple[list[ShardState], list[str]]:
         except (OSError, ValueError, KeyError, TypeError) as exc:
             notes.append(f"unreadable shard state {p.name} ignored ({exc})")
     return states, notes
-
-
-class OutputLock:
-    """Exclusive lock of an output folder's tables (``flock`` on
-    ``<out>/.postproc.lock``). Waits up to ``timeout`` s, then raises
-    UserError naming the holder; ``on_wait(holder)`` is called once when it
-    has to wait."""
-
-    def __init__(self, out_dir: Path, timeout: float = 300.0, on_wait: Callable[[str], None] | None = None):
-        self.path = Path(out_dir) / LOCK_NAME
-        self.timeout = timeout
-        self.on_wait = on_wait
-        self.fd: int | None = None
-
-    def _holder(self) -> str:
-        try:
-            return self.path.read_text().strip() or "another process"
-        except OSError:
-            return "another process"
-
-    def __enter__(self) -> "OutputLock":
-        self.path.parent.mkdir(parents=True, exist_ok=True)
-        fd = os.open(self.path, os.O_RDWR | os.O_CREAT, 0o644)
-        t0 = time.monotonic()
-        waited = False
-        while True:
-            try:
-                fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
-                break
-            except OSError as exc:
-                if exc.errno not in (errno.EAGAIN, errno.EACCES):
-                    os.close(fd)
-                    raise
-            if not waited and self.on_wait is not None:
-                self.on_wait(self._holder())
-            waited = True
-            if time.monotonic() - t0 >= self.timeout:
-                holder = self._holder()
-                os.close(fd)
-                raise UserError(expected="the results folder free of other merges", got=f"locked by {holder}",
-                                file=str(self.path),
-                                fix=f"wait for it to finish (waited {self.timeout:g} s), or raise --wait")
-            time.sleep(0.1)
-        os.ftruncate(fd, 0)
-        os.write(fd, f"pid {os.getpid()} on {socket.gethostname()} since {_utc()}\n".encode())
-        self.fd = fd
-        return self
-
-    def __exit__(self, *exc) -> None:
-        if self.fd is not None:
-            try:
-                os.ftruncate(self.fd, 0)
-            finally:
-                fcntl.flock(self.fd, fcntl.LOCK_UN)
-                os.close(self.fd)
-                self.fd = None
 
 
 # --------------------------------------------------------------------------- workers
@@ -317,5 +258,5 @@ def _end_workers(procs: Iterable, grace: float, stop: StopSignals) -> None:
         p.join()
 
 
-__all__ = ["ALL", "SHARDS_DIR", "Shard", "ShardState", "OutputLock", "WorkerFailed", "manifest_digest",
+__all__ = ["ALL", "SHARDS_DIR", "Shard", "ShardState", "WorkerFailed", "manifest_digest",
            "parse_shard", "read_shard_states", "run_cases", "write_shard_state"]

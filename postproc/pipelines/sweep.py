@@ -14,13 +14,10 @@ Outputs (in the sweep folder unless told otherwise, atomic writes):
 * ``shards/<I>-of-<N>.json`` — the state of each run over a shard
   (:mod:`postproc.pipelines.shards`);
 * ``results.csv`` and ``results.json`` — one row per case (``results.json``
-  also holds the ranking, the mesh study and the fitted aero maps).
-
-The cases are processed by :func:`postprocess_shard` (all of them, or one
-shard ``I/N``; ``jobs`` worker processes), the tables assembled by
-:func:`postprocess_sweep` (after processing every case) or
-:func:`merge_results` (from what the shards stored, computing nothing per
-case but the pictures), under the output folder's lock.
+  also holds the ranking, the mesh study and the fitted aero maps);
+* ``analysis.json`` — the analysis of the results table
+  (:mod:`postproc.pipelines.analysis`, the same as ``postproc analyse``):
+  maps with error bars, peak and stall, the platform, the honest ranking.
 
 Besides the forces, each case with a volume result gets its flow columns
 (:mod:`postproc.pipelines.case_flow`: diffuser recovery, main vortex pair,
@@ -36,13 +33,17 @@ in the manifest. A case is **flagged** (never ranked) when the runner
 flagged it, when it did not finish, when its forces could not be computed,
 or when the runtime force monitor is still drifting at the end of the run.
 The monitor is judged by the one convergence rule
-(:mod:`caseprep.contract.convergence`, as the runner judges it): over the
-last 30 % of the samples (at least 20), each total-force component against
-max(|its mean|, the resultant force), drift and std tolerance 1 %;
-``diverging`` there gives the ``forces-drifting`` flag.
+(:mod:`caseprep.contract.convergence`) over the settling window (the last
+30 % of the samples, at least 20): in coefficient counts when the case has
+reference values (each coefficient and the balance against its own
+tolerance; the reported coefficients are then the window means, with their
+standard deviations as ``u_*``), else each total-force component against
+max(|its mean|, the resultant force), as the runner judges it; ``diverging``
+gives the ``forces-drifting`` flag.
 """
 from __future__ import annotations
 
+import contextlib
 import csv
 import datetime as _dt
 import io
@@ -60,10 +61,12 @@ from caseprep.contract.atomicio import json_ready, write_json_atomic, write_text
 from caseprep.contract.convergence import settle_window
 from caseprep.contract.monitor import read_monitor
 from caseprep.contract.errors import UserError
+from caseprep.contract.locking import refuse_interrupted, sweep_lock
 from caseprep.contract.manifest import CaseRecord, Manifest, read_manifest
-from caseprep.contract.records import Flag, Status, as_flag, effective_status, flag_meaning, read_case_record
+from caseprep.contract.records import Flag, Status, as_flag, effective_status, flag_meaning, load_case_record, read_case_record
 from caseprep.contract.signals import StopRequested
 from postproc.io.exports import latest_export
+from postproc.io.isolation import UnreadableFile, isolated, preload
 from postproc.io.surfaces import read_surface
 from postproc.kernels import wallchecks as wc
 from postproc.kernels.aeromap import fit_response_surface, map_grid
@@ -71,14 +74,20 @@ from postproc.kernels.polygons import face_geometry
 from postproc.kernels.meshstudy import grid_convergence
 from postproc.kernels.ranking import CaseResult, VariantScore, rank_variants
 from postproc.pipelines.case_flow import FlowOptions, analyse_case_flow
+from postproc.io.analysis_config import read_analysis_config
+from postproc.io.results_table import read_sweep_table
+from postproc.pipelines.analysis import OUTPUT_NAME as ANALYSIS_NAME
+from postproc.pipelines.analysis import analyse_table, default_config_path, resolve_options, write_analysis
+from postproc.pipelines.analysis_points import level_cell_size
 from postproc.pipelines.case_forces import ForcesReport, forces_report
 from postproc.pipelines.case_scene import scene_difference
-from postproc.pipelines.caseresults import (RESULTS_DIR, Fingerprint, fingerprint, read_case_result,
-                                            write_case_result)
 from postproc.pipelines.report_data import (ReportOptions, assemble, check_baseline, choose_picture_cases,
                                             history_from_monitor)
-from postproc.pipelines.shards import (ALL, OutputLock, Shard, manifest_digest, read_shard_states, run_cases,
-                                       write_shard_state)
+from postproc.pipelines.caseresults import (RESULTS_DIR, Fingerprint, fingerprint, read_case_result,
+                                            write_case_result)
+from postproc.pipelines.shards import ALL, Shard, manifest_digest, read_shard_states, run_cases, write_shard_state
+# the child processes that read the cases start with these loaded (postproc.io.isolation)
+preload("pyvista", "postproc.pipelines.case_flow", "postproc.pipelines.case_forces")
 
 @dataclass(frozen=True)
 class CaseOutcome:
@@ -136,12 +145,16 @@ class CaseOutcome:
 
     @classmethod
     def from_json(cls, d: dict[str, Any]) -> "CaseOutcome":
-        """Inverse of :meth:`to_json` (None → NaN for the coefficients).
-        Raises ValueError/TypeError/KeyError for content of the wrong shape."""
+        """Inverse of :meth:`to_json` (None → NaN for the number fields that
+        are NaN when unknown). Raises ValueError/TypeError/KeyError for
+        content of the wrong shape."""
+        import dataclasses
+
         r = dict(d["result"])
-        for k in ("cl", "cd", "cs", "ride_height_front", "ride_height_rear", "speed"):
-            r[k] = math.nan if r.get(k) is None else float(r[k])
-        r["flags"] = tuple(as_flag(str(f)) for f in r.get("flags") or ())
+        for f in dataclasses.fields(CaseResult):
+            if r.get(f.name) is None and (f.type == "float" or isinstance(f.default, float)):
+                r[f.name] = math.nan
+        r["flags"] = tuple(as_flag(str(x)) for x in r.get("flags") or ())
         result = CaseResult(**r)
         notes, yplus, flow = d.get("notes") or [], d.get("yplus") or {}, d.get("flow") or {}
         forces = d.get("forces")
@@ -149,7 +162,7 @@ class CaseOutcome:
                 or not (forces is None or isinstance(forces, dict))):
             raise TypeError("per-case result of the wrong shape")
         return cls(result=result, status=str(d["status"]), cells=d.get("cells"), iterations=d.get("iterations"),
-                   convergence=d.get("convergence"), layers=d.get("layers"), notes=tuple(str(n) for n in notes),
+                   convergence=d.get("convergence"), layers=d.get("layers"), notes=tuple(str(x) for x in notes),
                    yplus=yplus, flow=flow, seconds=dict(d.get("seconds") or {}), stored_forces=forces)
 
 
@@ -193,6 +206,52 @@ def wall_yplus(case_dir: Path, case: CaseRecord, surface=None) -> tuple[dict[str
     return out, None
 
 
+def _report_values(report: ForcesReport | None, yaw_deg: float, flags: list, notes: list[str]) -> tuple[dict, str | None]:
+    """The row's coefficients from a case's forces report (keyword arguments
+    of :class:`CaseResult`) and the monitor's verdict. With the rule in
+    coefficient counts the coefficients are its window means, with their
+    spreads as ``u_*``. Appends to ``flags`` and ``notes``."""
+    nan = math.nan
+    if report is None:
+        return {"cl": nan, "cd": nan, "cs": nan}, None
+    v: dict[str, Any] = {"cl": nan, "cd": nan, "cs": nan}
+    c = report.coefficients
+    if c is not None:
+        v.update(cl=float(c.lift), cd=float(c.drag), cs=float(c.side))
+    else:
+        flags.append(Flag.FORCES_FAILED)
+        notes.append("no reference values in the manifest: coefficients not computed")
+    b = report.balance
+    if b is not None:
+        v.update(cl_front=b.c_lift_front, cl_rear=b.c_lift_rear, balance=b.balance_front,
+                 stability_margin=b.stability_margin)
+        if abs(yaw_deg) < 1e-9 and b.stability_margin is not None:
+            # at zero yaw the side force is numerical noise about zero and its
+            # centre of pressure is meaningless: report no margin
+            v["stability_margin"] = None
+            notes.append("zero yaw: no side force to place, stability margin not reported")
+        notes.extend(b.notes)
+    verdict = None
+    counts = report.coefficient_convergence
+    if counts is not None:
+        # the rule in coefficient counts; the reported coefficients are its window means
+        verdict = counts["verdict"]
+        v.update({k: float(x) for k, x in counts["means"].items()
+                  if k in ("cl", "cd", "cs", "cl_front", "cl_rear", "balance") and x is not None and math.isfinite(x)})
+        v.update({f"u_{k}": float(x) for k, x in counts["stds"].items()
+                  if k in ("cl", "cd", "cs", "cl_front", "cl_rear") and x is not None})
+        notes.append(f"coefficients: means over the last {counts['window']} iterations of the monitor")
+    elif report.convergence is not None:
+        verdict = report.convergence.verdict
+    else:
+        notes.append("no runtime force monitor found: convergence not assessed")
+    if verdict == "diverging":
+        flags.append(Flag.FORCES_DRIFTING)
+    if report.reference is not None:
+        v.update(reference_area=float(report.reference.area), air_density=float(report.reference.rho))
+    return v, verdict
+
+
 def _case_params(case: CaseRecord) -> dict[str, Any]:
     """The operating point of a case as :class:`CaseResult` fields."""
     p = case.params
@@ -232,10 +291,17 @@ def process_case(manifest: Manifest, case: CaseRecord, flow: FlowOptions | None 
 
     t_start = time.perf_counter()
     case_dir = manifest.case_dir(case)
-    rec = read_case_record(case_dir)
-    flags: list[str] = list(rec.flags) if rec is not None else []
-    status = effective_status(rec) if rec is not None else Status.NOT_RUN
     notes: list[str] = []
+    try:
+        rec = load_case_record(case_dir)
+        unreadable_record = False
+    except UserError as exc:
+        rec, unreadable_record = None, True
+        notes.append(f"run record: {exc}".replace("\n", " "))
+    flags: list[str] = list(rec.flags) if rec is not None else []
+    if unreadable_record:
+        flags.append(Flag.RECORD_UNREADABLE)
+    status = effective_status(rec) if rec is not None else Status.NOT_RUN
     base = _case_params(case)
     exported = (case_dir / "logs" / "export.done").is_file()
     report = None
@@ -253,42 +319,19 @@ def process_case(manifest: Manifest, case: CaseRecord, flow: FlowOptions | None 
                 surf = read_surface(latest_export(case_dir), names, arrays=list(SURFACE_ARRAYS))
             # the monitor judged by the one convergence rule
             report = forces_report(str(case_dir), surface=surf)
+        except UnreadableFile as exc:  # corrupt, absurd sizes or it crashed the reader: this case only
+            flags.append(Flag.UNREADABLE)
+            notes.append(f"unreadable: {exc}".replace("\n", " "))
         except UserError as exc:
             flags.append(Flag.FORCES_FAILED)
-            notes.append(f"forces: {exc}")
-    nan = math.nan
-    cl = cd = cs = nan
-    clf = clr = bal = margin = None
-    if report is not None:
-        c = report.coefficients
-        if c is not None:
-            cl, cd, cs = float(c.lift), float(c.drag), float(c.side)
-        else:
-            flags.append(Flag.FORCES_FAILED)
-            notes.append("no reference values in the manifest: coefficients not computed")
-        b = report.balance
-        if b is not None:
-            clf, clr = b.c_lift_front, b.c_lift_rear
-            bal, margin = b.balance_front, b.stability_margin
-            if abs(base["yaw_deg"]) < 1e-9 and margin is not None:
-                # at zero yaw the side force is numerical noise about zero and its
-                # centre of pressure is meaningless: report no margin
-                margin = None
-                notes.append("zero yaw: no side force to place, stability margin not reported")
-            notes.extend(b.notes)
-        if report.convergence is not None:
-            verdict = report.convergence.verdict
-            if verdict == "diverging":
-                flags.append(Flag.FORCES_DRIFTING)
-        else:
-            notes.append("no runtime force monitor found: convergence not assessed")
+            notes.append(f"forces: {exc}".replace("\n", " "))
+    values, verdict = _report_values(report, base["yaw_deg"], flags, notes)
     yplus: dict[str, dict] = {}
     if report is not None:
         yplus, why = wall_yplus(case_dir, case, surface=surf)
         if why:
             notes.append(why)
-    result = CaseResult(**base, cl=cl, cd=cd, cs=cs, cl_front=clf, cl_rear=clr, balance=bal,
-                        stability_margin=margin, flags=tuple(dict.fromkeys(flags)))
+    result = CaseResult(**base, **values, flags=tuple(dict.fromkeys(flags)))
     layers = None
     if rec is not None and rec.layers:
         layers = ", ".join(f"{d.get('patch')} {d.get('thickness_percent'):.0f} %" for d in rec.layers
@@ -297,12 +340,15 @@ def process_case(manifest: Manifest, case: CaseRecord, flow: FlowOptions | None 
     flow_cols: dict[str, Any] = {}
     scene = None
     if flow is not None and exported:
-        try:
-            cf = analyse_case_flow(case_dir, flow, label=case.case_id)
+        try:  # the volume is read and analysed in a child process: a bad file cannot end the sweep
+            cf = isolated(analyse_case_flow, case_dir, flow, label=case.case_id, what=str(case_dir / "VTK"))
             flow_cols = cf.metrics.to_dict()
             scene = cf.scene
             if cf.scene_error:
                 notes.append("picture: " + cf.scene_error)
+        except UnreadableFile as exc:
+            notes.append("unreadable: " + str(exc).replace("\n", " "))
+            result = replace(result, flags=tuple(dict.fromkeys((*result.flags, Flag.UNREADABLE))))
         except UserError as exc:
             notes.append("flow: " + str(exc).splitlines()[0])
     history = None
@@ -320,10 +366,20 @@ def process_case(manifest: Manifest, case: CaseRecord, flow: FlowOptions | None 
                                                  "flow": time.perf_counter() - t_forces})
 
 
-#: representative cell size of mesh level m relative to level 0: each level
-#: divides the base cell by √2 (caseprep.planning.domain), so h_m = 2^(−m/2)
-def level_cell_size(level: int) -> float:
-    return 2.0 ** (-0.5 * level)
+def outcome_row(o: CaseOutcome) -> dict[str, Any]:
+    """A flat dict of one case for the CSV/JSON tables."""
+    r = asdict(o.result)
+    r["flags"] = " ".join(o.result.flags)
+    r["downforce_coefficient"] = -o.result.cl if math.isfinite(o.result.cl) else None
+    r.update(status=o.status, cells=o.cells, iterations=o.iterations, convergence=o.convergence, layers=o.layers)
+    if o.yplus:
+        a = o.yplus[ALL_WALLS]  # all body and wheel faces together
+        r.update(yplus_median=a["median"], yplus_p95=a["p95"], yplus_max=a["max"],
+                 yplus_share_in_range=a["share_in_target"], yplus_range="{:g}-{:g}".format(*a["target"]))
+    r["notes"] = "; ".join(o.notes)
+    return r
+
+
 
 
 def mesh_study(results: list[CaseResult]) -> list[dict[str, Any]]:
@@ -353,16 +409,33 @@ def mesh_study(results: list[CaseResult]) -> list[dict[str, Any]]:
     return out
 
 
+#: First characters that make a spreadsheet evaluate a cell as a formula (or
+#: a command) when a CSV file is opened: OWASP, "CSV Injection" (common
+#: practice). A text cell starting with one of them gets a leading apostrophe.
+FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
+
+
+def spreadsheet_safe(value: object) -> object:
+    """``value`` for a CSV cell: text that a spreadsheet would evaluate
+    (starting with one of :data:`FORMULA_START`) is prefixed with ``'`` so it
+    stays text; numbers are left alone (they are written by us)."""
+    if isinstance(value, str) and value.startswith(FORMULA_START):
+        return "'" + value
+    return value
+
+
 def _csv(rows: list[dict[str, Any]]) -> str:
+    """The rows as CSV: floats with 6 significant digits, NaN/inf and None
+    empty, text cells neutralised for spreadsheets (:func:`spreadsheet_safe`)."""
     cols: list[str] = []
     for r in rows:
         cols += [k for k in r if k not in cols]
     buf = io.StringIO()
     w = csv.writer(buf, lineterminator="\n")
-    w.writerow(cols)
+    w.writerow([spreadsheet_safe(c) for c in cols])
     for r in rows:
         w.writerow(["" if r.get(k) is None or (isinstance(r.get(k), float) and not math.isfinite(r[k]))
-                    else (f"{r[k]:.6g}" if isinstance(r.get(k), float) else r[k]) for k in cols])
+                    else (f"{r[k]:.6g}" if isinstance(r.get(k), float) else spreadsheet_safe(r[k])) for k in cols])
     return buf.getvalue()
 
 
@@ -426,6 +499,7 @@ class SweepAnalysis:
     outcomes: tuple[CaseOutcome, ...] = ()
     paths: dict[str, Path] = field(default_factory=dict)
     report_data: Any = field(default=None, repr=False)
+    analysis: dict[str, Any] | None = None   # analysis.json (postproc.pipelines.analysis), when written
     #: True when nothing had changed since the tables and the report were
     #: written (they were left as they are; no ranking or report data here)
     up_to_date: bool = False
@@ -502,7 +576,7 @@ def _planned_rows(manifest: Manifest) -> list[CaseResult]:
     return rows
 
 
-TABLE_NAMES = ("results.csv", "results.json", REPORT_NAME)
+TABLE_NAMES = ("results.csv", "results.json", REPORT_NAME, ANALYSIS_NAME)
 
 
 @dataclass(frozen=True)
@@ -519,7 +593,9 @@ class SweepOptions:
     merge, the number of shards the cases were split into (names the missing
     ones; default from the shard states); ``report``: the report's options
     (title, baseline and pictured point, pictures or not); ``flow``: the
-    per-case flow pass (default :class:`FlowOptions`).
+    per-case flow pass (default :class:`FlowOptions`); ``analysis_config``:
+    the settings of ``analysis.json`` (default: ANALYSIS.toml in the sweep
+    folder, else the sweep config's [analysis] table, else built-in).
     """
 
     out_dir: str | os.PathLike | None = None
@@ -531,6 +607,7 @@ class SweepOptions:
     expected_shards: int | None = None
     report: ReportOptions = ReportOptions()
     flow: FlowOptions | None = None
+    analysis_config: str | os.PathLike | None = None
 
 
 @dataclass(frozen=True)
@@ -635,9 +712,26 @@ def postprocess_shard(sweep_dir: str | os.PathLike, options: SweepOptions = Swee
     SIGTERM/SIGINT: the workers are stopped, the shard state records the
     unfinished cases ``interrupted``, :class:`StopRequested` propagates.
     """
-    manifest = read_manifest(sweep_dir)
+    manifest = read_manifest(sweep_dir)  # not a sweep: refused before anything is created
     _check_jobs(options)
-    return _process_shard(manifest, _out_folder(manifest, sweep_dir, options), options, progress, frozenset())
+    out = _out_folder(manifest, sweep_dir, options)
+    # shards of one sweep run side by side (each its own cases): a shared hold;
+    # a whole-sweep command or a write holds the folder alone
+    with _locks(manifest, sweep_dir, out, "postproc sweep --shard", shared=True, wait=None):
+        return _process_shard(read_manifest(sweep_dir), out, options, progress, frozenset())
+
+
+@contextlib.contextmanager
+def _locks(manifest: Manifest, sweep_dir, out: Path, command: str, shared: bool, wait: float | None):
+    """The sweep folder's lock (and the output folder's, when it is another
+    one), then the refusal of a folder an interrupted write left behind."""
+    root = Path(manifest.root or sweep_dir)
+    with contextlib.ExitStack() as locks:
+        locks.enter_context(sweep_lock(root, command, wait=wait, shared=shared))
+        if out.resolve() != root.resolve():
+            locks.enter_context(sweep_lock(out, command, wait=wait, shared=shared))
+        refuse_interrupted(root, command)
+        yield
 
 
 def _process_shard(manifest: Manifest, out: Path, options: SweepOptions,
@@ -733,18 +827,36 @@ def postprocess_sweep(
     ``report_data``, what the report renders. Raises UserError for a
     folder that is not a sweep.
     """
-    manifest = read_manifest(sweep_dir)
+    manifest = read_manifest(sweep_dir)  # not a sweep: refused before anything is created
     out = _out_folder(manifest, sweep_dir, options)
     if options.shard != ALL:
         raise UserError(expected="all cases for the tables", got=f"shard {options.shard}", key="--shard",
                         fix="process shards with postprocess_shard, then merge them")
     _check_jobs(options)
+    analysis_cfg = _analysis_settings(manifest, sweep_dir, options)
+    with _locks(manifest, sweep_dir, out, "postproc sweep", shared=False, wait=None):
+        return _postprocess_locked(read_manifest(sweep_dir), out, options, progress, render, analysis_cfg)
+
+
+def _analysis_settings(manifest: Manifest, sweep_dir, options: SweepOptions):
+    """The settings of analysis.json, checked before anything is created."""
+    root = Path(manifest.root or sweep_dir)
+    path = (options.analysis_config if options.analysis_config is not None
+            else default_config_path(root, manifest.config_file))
+    cfg = read_analysis_config(path)
+    resolve_options(cfg)
+    return cfg
+
+
+def _postprocess_locked(manifest: Manifest, out: Path, options: SweepOptions, progress, render,
+                        analysis_cfg) -> SweepAnalysis:
+    """:func:`postprocess_sweep` holding the locks."""
     ropts, _ = _report_options(manifest, options.report)
     variants = list(dict.fromkeys(c.variant for c in manifest.cases))
     # the pictured cases, from the plan and the runner's flags (forces may add flags: checked at assembly)
     want_scene = (frozenset(pc.case_id for pc in choose_picture_cases(_planned_rows(manifest), variants, ropts))
                   if ropts.pictures else frozenset())
-    digest = _inputs_digest(manifest, out, options, ropts)
+    digest = _inputs_digest(manifest, out, options, ropts, analysis_cfg)
     if not options.recompute:
         same = _unchanged(manifest, out, digest)
         if same is not None:  # nothing to compute and nothing to rewrite
@@ -755,7 +867,7 @@ def postprocess_sweep(
     _refuse_existing_tables(out, options.force)
     run = _process_shard(manifest, out, options, progress, want_scene)
     outcomes = [run.outcomes[c.case_id] for c in manifest.cases]
-    return _assemble(manifest, out, outcomes, options, [], render, digest)
+    return _assemble(manifest, out, outcomes, options, [], render, analysis_cfg, digest)
 
 
 def _table_paths(out: Path) -> dict[str, Path]:
@@ -763,21 +875,18 @@ def _table_paths(out: Path) -> dict[str, Path]:
             "cases": out / RESULTS_DIR}
 
 
-def _inputs_digest(manifest: Manifest, out: Path, options: SweepOptions, ropts: ReportOptions) -> str:
+def _inputs_digest(manifest: Manifest, out: Path, options: SweepOptions, ropts: ReportOptions,
+                   analysis_cfg) -> str:
     """SHA-256 of everything the tables and the report are made from: each
-    case's fingerprint (:mod:`postproc.pipelines.caseresults`), the report
-    and flow options, the analysis results beside the tables, the version."""
+    case's fingerprint (:mod:`postproc.pipelines.caseresults`), the report,
+    flow and analysis settings, the version."""
     import hashlib
 
     from caseprep.contract import __version__
 
-    try:
-        analysis = hashlib.sha256((out / "analysis.json").read_bytes()).hexdigest()
-    except OSError:
-        analysis = None
     doc = {"cases": [[c.case_id, fingerprint(manifest.case_dir(c), c).digest] for c in manifest.cases],
-           "report": asdict(ropts), "flow": asdict(options.flow or FlowOptions()), "analysis": analysis,
-           "version": __version__}
+           "report": asdict(ropts), "flow": asdict(options.flow or FlowOptions()),
+           "analysis": repr(analysis_cfg), "version": __version__}
     return "sha256:" + hashlib.sha256(json.dumps(json_ready(doc), sort_keys=True).encode()).hexdigest()
 
 
@@ -820,8 +929,16 @@ def merge_results(
     UserError for shard states of another study in the output folder (the
     results folder of a different sweep) or existing tables without
     ``options.force``."""
-    manifest = read_manifest(sweep_dir)
+    manifest = read_manifest(sweep_dir)  # not a sweep: refused before anything is created
     out = _out_folder(manifest, sweep_dir, options)
+    analysis_cfg = _analysis_settings(manifest, sweep_dir, options)
+    with _locks(manifest, sweep_dir, out, "postproc merge", shared=False, wait=options.wait):
+        return _merge_locked(read_manifest(sweep_dir), out, options, render, analysis_cfg)
+
+
+def _merge_locked(manifest: Manifest, out: Path, options: SweepOptions, render,
+                  analysis_cfg) -> tuple[SweepAnalysis, MergeGap | None]:
+    """:func:`merge_results` holding the locks."""
     _refuse_existing_tables(out, options.force)
     states, notes = read_shard_states(out)
     foreign = [st for st in states if st.study != manifest.study]
@@ -862,8 +979,8 @@ def merge_results(
         gap = MergeGap(cases=gaps, shards=tuple(shards))
         notes.append(gap.message())
     ropts, _ = _report_options(manifest, options.report)
-    digest = None if gap else _inputs_digest(manifest, out, options, ropts)
-    return _assemble(manifest, out, outcomes, options, notes, render, digest), gap
+    digest = None if gap else _inputs_digest(manifest, out, options, ropts, analysis_cfg)
+    return _assemble(manifest, out, outcomes, options, notes, render, analysis_cfg, digest), gap
 
 
 def _with_history(manifest: Manifest, o: CaseOutcome) -> CaseOutcome:
@@ -881,7 +998,7 @@ def _with_history(manifest: Manifest, o: CaseOutcome) -> CaseOutcome:
 
 
 def _assemble(manifest: Manifest, out: Path, outcomes: list[CaseOutcome], options: SweepOptions,
-              extra_notes: list[str], render, digest: str | None = None) -> SweepAnalysis:
+              extra_notes: list[str], render, analysis_cfg, digest: str | None = None) -> SweepAnalysis:
     """Tables, analysis and report data from the outcomes; results.csv,
     results.json (with ``digest``, what they were made from, see
     :func:`_inputs_digest`) and the report (through ``render``) written
@@ -918,8 +1035,9 @@ def _assemble(manifest: Manifest, out: Path, outcomes: list[CaseOutcome], option
             skipped.append((pc.case_id, tried.split(": ", 1)[1]))
         elif sc is None:
             try:
-                cf = analyse_case_flow(manifest.case_dir(manifest.case(pc.case_id)), replace(flow, scene=True),
-                                       label=pc.case_id)
+                cdir = manifest.case_dir(manifest.case(pc.case_id))
+                cf = isolated(analyse_case_flow, cdir, replace(flow, scene=True), label=pc.case_id,
+                              what=str(cdir / "VTK"))
                 sc = cf.scene
                 if sc is None:
                     skipped.append((pc.case_id, cf.scene_error or "no picture scene"))
@@ -934,40 +1052,33 @@ def _assemble(manifest: Manifest, out: Path, outcomes: list[CaseOutcome], option
     base = next((sc for sc in scenes if sc.variant == baseline), None)
     scenes = [scene_difference(sc, base) for sc in scenes]
     flow_rows = {o.result.case_id: {"variant": o.result.variant, **o.flow} for o in outcomes if o.flow}
-    # analysis results beside the tables (ties, peak/stall, platform), when present: optional report sections
-    extra = []
+    _refuse_existing_tables(out, options.force)
+    write_text_atomic(paths["csv"], _csv(rows), root=out)
+    write_json_atomic(paths["json"], root=out, obj=json_ready({
+        "study": manifest.study,
+        "axes": "wind axes of caseprep.contract.frames: C_L positive up (downforce = -C_L), C_D along the "
+                "relative wind, C_S along +y_W; balance = front share of downforce; ride heights m; angles deg",
+        "flags": {f: flag_meaning(f) for f in flags},
+        "notes": notes,
+        "cases": rows,
+        "ranking": [asdict(s) for s in analysis.ranking],
+        "mesh_study": list(analysis.mesh_study),
+        "aero_maps": list(analysis.aero_maps),
+        "inputs": digest,
+    }))
     analysis_doc = None
-    apath = out / "analysis.json"
-    if apath.is_file():
-        try:
-            analysis_doc = json.loads(apath.read_text(encoding="utf-8"))
-            if not isinstance(analysis_doc, dict):
-                raise ValueError("not a JSON object")
-        except (ValueError, UnicodeDecodeError) as exc:
-            analysis_doc = None
-            extra.append(f"{apath} not used: {exc}")
-    data = assemble(results, title=title, study=manifest.study, notes=notes + extra, checks=checks,
+    try:   # the same analysis as `postproc analyse` on this folder
+        analysis_doc = analyse_table(read_sweep_table(out), analysis_cfg)
+        paths["analysis"] = write_analysis(analysis_doc, out / ANALYSIS_NAME)
+    except UserError as exc:
+        analysis = replace(analysis, notes=analysis.notes + (f"analysis.json not written: {exc}",))
+    data = assemble(results, title=title, study=manifest.study, notes=notes, checks=checks,
                     mesh_study=list(analysis.mesh_study), aero_maps=list(analysis.aero_maps), flow_rows=flow_rows,
                     scenes=scenes, picture_cases=pcs, pictures_skipped=skipped,
                     histories=[o.history for o in outcomes if o.history is not None],
                     spread=_iterative_spread(outcomes), options=replace(ropts, baseline=baseline),
                     ranking=list(analysis.ranking), analysis=analysis_doc)
-    analysis = replace(analysis, outcomes=tuple(outcomes), paths=paths, report_data=data)
-    with OutputLock(out, timeout=options.wait):
-        _refuse_existing_tables(out, options.force)  # another writer may have finished meanwhile
-        write_text_atomic(paths["csv"], _csv(rows))
-        write_json_atomic(paths["json"], json_ready({
-            "study": manifest.study,
-            "axes": "wind axes of caseprep.contract.frames: C_L positive up (downforce = -C_L), C_D along the "
-                    "relative wind, C_S along +y_W; balance = front share of downforce; ride heights m; angles deg",
-            "flags": {f: flag_meaning(f) for f in flags},
-            "notes": notes,
-            "cases": rows,
-            "ranking": [asdict(s) for s in analysis.ranking],
-            "mesh_study": list(analysis.mesh_study),
-            "aero_maps": list(analysis.aero_maps),
-            "inputs": digest,
-        }))
-        if render is not None:
-            render(analysis, paths["report"])
+    analysis = replace(analysis, outcomes=tuple(outcomes), paths=paths, report_data=data, analysis=analysis_doc)
+    if render is not None:
+        render(analysis, paths["report"])
     return analysis

@@ -308,9 +308,13 @@ def render_report(data, options: PictureOptions = PictureOptions()) -> tuple[str
     return text, info
 
 
-def write_report(data, path: str | os.PathLike, options: PictureOptions = PictureOptions()) -> tuple[Path, RenderInfo]:
-    """Render and write the report atomically; returns the path and timings."""
-    text, info = render_report(data, options)
+def write_report(data, path: str | os.PathLike, options: PictureOptions = PictureOptions(),
+                 info: RenderInfo | None = None) -> Path:
+    """Render and write the report atomically; returns the path. ``info``
+    (optional) is filled with what rendering took."""
+    text, got = render_report(data, options)
+    if info is not None:
+        info.__dict__.update(got.__dict__)
     p = Path(path)
     write_text_atomic(p, text)
-    return p, info
+    return p

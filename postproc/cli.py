@@ -154,15 +154,13 @@ def _case_line(ev) -> str:
 @click.option("--picture-yaw", type=float, help="Yaw (deg) of the pictured point (default: the smallest |yaw|).")
 @click.option("--no-pictures", is_flag=True, help="No flow pictures (very large sweeps; flow numbers still computed).")
 @click.option("--force", is_flag=True, help="Replace earlier tables (results.csv/json, report) in the output folder.")
-@click.option("--wait", type=click.FloatRange(min=0.0), default=300.0, show_default=True,
-              help="Seconds to wait for another process writing the same tables.")
 @click.option("-q", "--quiet", is_flag=True, help="No per-case progress lines.")
 @click.option("-c", "--config", "config", type=click.Path(dir_okay=False),
               help="Analysis settings for analysis.json (default: ANALYSIS.toml in the sweep folder, else the "
                    "sweep config's [analysis] table, else built-in defaults).")
 def sweep_cmd(sweep_dir: str, out_dir: str | None, jobs: int, shard: str | None, recompute: bool,
               title: str | None, baseline: str | None, picture_ride_height: float | None,
-              picture_yaw: float | None, no_pictures: bool, force: bool, wait: float, quiet: bool,
+              picture_yaw: float | None, no_pictures: bool, force: bool, quiet: bool,
               config: str | None) -> None:
     """Post-process every case of SWEEP_DIR (written by `caseprep write`, run
     by `caseprep run`): forces, coefficients, aero balance, convergence, the
@@ -186,7 +184,7 @@ def sweep_cmd(sweep_dir: str, out_dir: str | None, jobs: int, shard: str | None,
     sh = parse_shard(shard)
     ropts = ReportOptions(title=title, baseline=baseline, reference_ride_height=picture_ride_height,
                           reference_yaw_deg=picture_yaw, pictures=not no_pictures)
-    opts = SweepOptions(out_dir=out_dir, force=force, jobs=jobs, shard=sh, recompute=recompute, wait=wait,
+    opts = SweepOptions(out_dir=out_dir, force=force, jobs=jobs, shard=sh, recompute=recompute,
                         report=ropts, analysis_config=config)
     shown: list[ProgressDisplay] = []
 

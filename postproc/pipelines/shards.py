@@ -49,7 +49,6 @@ from caseprep.contract.signals import StopRequested, StopSignals
 
 SHARDS_DIR = "shards"
 SHARD_SCHEMA = "underfloor-postproc-shard"
-LOCK_NAME = ".postproc.lock"
 
 T = TypeVar("T")
 R = TypeVar("R")
@@ -89,7 +88,7 @@ def parse_shard(text: str | None, key: str = "--shard") -> Shard:
         return ALL
     m = _SHARD_RE.match(str(text))
     fix = ("give I/N with N ≥ 1 shards and 1 ≤ I ≤ N, e.g. --shard 2/4; in a batch array "
-           "--shard $SLURM_ARRAY_TASK_ID/$SLURM_ARRAY_TASK_COUNT with --array=1-N")
+           "--shard $SLURM_ARRAY_TASK_ID/N with --array=1-N")
     if not m:
         raise UserError(expected="a shard I/N (two whole numbers)", got=text, key=key, fix=fix)
     i, n = int(m.group(1)), int(m.group(2))

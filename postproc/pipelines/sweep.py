@@ -588,8 +588,8 @@ class SweepOptions:
     sweep folder); ``force``: replace earlier tables; ``jobs``: worker
     processes (each case read and reduced in one of them); ``shard``: the
     part of the cases to process (:class:`Shard`; all by default);
-    ``recompute``: ignore reusable per-case results; ``wait``: s to wait for
-    another writer of the tables before giving up; ``expected_shards``: for a
+    ``recompute``: ignore reusable per-case results; ``wait``: s a merge
+    waits for another command holding the folder before giving up; ``expected_shards``: for a
     merge, the number of shards the cases were split into (names the missing
     ones; default from the shard states); ``report``: the report's options
     (title, baseline and pictured point, pictures or not); ``flow``: the

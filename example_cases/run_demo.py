@@ -155,8 +155,8 @@ def main(argv: list[str] | None = None) -> int:
     post_meter: list[ProgressMeter] = []
 
     def post_progress(ev):
-        if not post_meter:
-            post_meter.append(ProgressMeter(ev.total))
+        if not post_meter:  # the run began ev.elapsed s before its first case finished
+            post_meter.append(ProgressMeter(ev.total, start=time.monotonic() - ev.elapsed))
         post_meter[0].finish(worked=not ev.reused)
         r = ev.outcome.result
         what = f"C_L {r.cl:+.4f}, C_D {r.cd:.4f}" if math.isfinite(r.cl) else "no coefficients"

@@ -176,6 +176,8 @@ def sweep_cmd(sweep_dir: str, out_dir: str | None, jobs: int, shard: str | None,
     ranked. Exit code 0, 2 for a usage error, 143/130 when stopped by
     SIGTERM/SIGINT (run again to resume).
     """
+    import time
+
     from caseprep.contract.signals import StopRequested
     from postproc.pipelines.report_data import ReportOptions
     from postproc.pipelines.shards import ALL, parse_shard
@@ -189,8 +191,8 @@ def sweep_cmd(sweep_dir: str, out_dir: str | None, jobs: int, shard: str | None,
     shown: list[ProgressDisplay] = []
 
     def progress(ev) -> None:  # a bar on a terminal, else one line per case with the time left
-        if not shown:
-            shown.append(ProgressDisplay(ev.total))
+        if not shown:  # the run began ev.elapsed s before its first case finished
+            shown.append(ProgressDisplay(ev.total, start=time.monotonic() - ev.elapsed))
         if quiet:
             shown[0].meter.finish(not ev.reused)
             shown[0].draw()

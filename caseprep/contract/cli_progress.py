@@ -19,12 +19,14 @@ from caseprep.contract.progress import ProgressMeter
 
 class ProgressDisplay:
     """Progress of ``total`` items on ``stream`` (default stdout); ``tty``
-    None: decided by ``stream.isatty()``."""
+    None: decided by ``stream.isatty()``; ``start``: when the work began
+    (``time.monotonic()``; default now)."""
 
-    def __init__(self, total: int, tty: bool | None = None, stream: TextIO | None = None):
+    def __init__(self, total: int, tty: bool | None = None, stream: TextIO | None = None,
+                 start: float | None = None):
         self.stream = stream or sys.stdout
         self.tty = self.stream.isatty() if tty is None else tty
-        self.meter = ProgressMeter(total)
+        self.meter = ProgressMeter(total, start=start)
         self.note = ""
         self._drawn = False
 

@@ -164,9 +164,11 @@ def read_shard_states(out_dir: Path) -> tuple[list[ShardState], list[str]]:
 # --------------------------------------------------------------------------- workers
 
 def _worker_init(init: Callable[..., None] | None, args: tuple) -> None:
-    # The parent handles the stop signals and ends the workers itself:
-    # a terminal's Ctrl-C reaches the whole process group, so workers ignore
-    # SIGINT; SIGTERM (the parent's, or a scheduler's) ends a worker at once.
+    # The parent handles the stop signals and ends the workers itself, each
+    # worker with the processes it started (its isolated readers): every
+    # worker leads a process group of its own. SIGINT is ignored (the
+    # parent's to handle); SIGTERM (the parent's, or a scheduler's) ends it.
+    os.setpgrp()
     signal.signal(signal.SIGINT, signal.SIG_IGN)
     signal.signal(signal.SIGTERM, signal.SIG_DFL)
     if init is not None:
@@ -214,7 +216,8 @@ def run_cases(fn: Callable[[T], R], items: Sequence[T], jobs: int, on_result: Ca
     tasks, results = ctx.SimpleQueue(), ctx.Queue()
     n = min(jobs, len(items))
     with StopSignals() as stop:
-        procs = [ctx.Process(target=_worker_loop, args=(tasks, results, fn, init, init_args), daemon=True)
+        # not daemonic: a worker starts processes of its own (the isolated readers); ended in the finally below
+        procs = [ctx.Process(target=_worker_loop, args=(tasks, results, fn, init, init_args), daemon=False)
                  for _ in range(n)]
         for p in procs:
             p.start()
@@ -242,17 +245,28 @@ def run_cases(fn: Callable[[T], R], items: Sequence[T], jobs: int, on_result: Ca
             results.close()
 
 
+def _signal_group(pid: int, sig: int) -> None:
+    try:
+        os.killpg(pid, sig)
+    except (ProcessLookupError, PermissionError):
+        pass
+
+
 def _end_workers(procs: Iterable, grace: float, stop: StopSignals) -> None:
-    procs = [p for p in procs if p.is_alive()]
-    for p in procs:
-        p.terminate()  # SIGTERM
+    """SIGTERM each worker's process group (the worker and the readers it
+    started), SIGKILL what is left after ``grace`` s (at once on a second
+    stop signal), then reap the workers."""
+    procs = list(procs)
+    live = [p for p in procs if p.is_alive()]
+    for p in live:
+        _signal_group(p.pid, signal.SIGTERM)
     seen = stop.count
     deadline = time.monotonic() + grace
-    while procs and time.monotonic() < deadline and stop.count == seen:
+    while live and time.monotonic() < deadline and stop.count == seen:
         time.sleep(0.05)
-        procs = [p for p in procs if p.is_alive()]
-    for p in procs:
-        p.kill()
+        live = [p for p in live if p.is_alive()]
+    for p in live:
+        _signal_group(p.pid, signal.SIGKILL)
     for p in procs:
         p.join()
 

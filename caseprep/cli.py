@@ -12,9 +12,13 @@ import click
 
 from caseprep.contract import __version__
 from caseprep.contract.cli_common import FriendlyGroup
+from caseprep.contract.cli_progress import ProgressDisplay
 from caseprep.contract.convergence import DEFAULT_OPTIONS, ConvergenceOptions
 from caseprep.contract.errors import UserError
 from caseprep.contract.records import flag_meaning
+from caseprep.run.runner import RunOptions
+
+RUN_DEFAULTS = RunOptions()
 
 
 @click.group(cls=FriendlyGroup, context_settings={"help_option_names": ["-h", "--help"]})
@@ -28,40 +32,77 @@ def main() -> None:
     """
 
 
-def _progress_printer(quiet: bool):
-    """A progress callback printing one line per event (stderr-free, stdout)."""
-    from caseprep.run.runner import format_duration
+class _RunProgress:
+    """The progress of `caseprep run` (events of caseprep.run.runner.Progress):
+    a bar on a terminal, else one line per finished case with the count and
+    the estimated time left; stage lines with ``verbose``, fewer with ``quiet``."""
 
-    def show(ev) -> None:
+    def __init__(self, quiet: bool, verbose: bool, tty: bool | None = None):
+        self.quiet, self.verbose, self.tty = quiet, verbose, tty
+        self.display: ProgressDisplay | None = None
+        self.now: dict[str, str] = {}
+
+    def _note(self) -> str:
+        return "; ".join(f"{k}: {v}" for k, v in self.now.items())
+
+    def __call__(self, ev) -> None:
+        from caseprep.contract.progress import format_duration as d
+
+        if self.display is None:
+            self.display = ProgressDisplay(ev.total, tty=self.tty)
+        out = self.display
         head = f"[{ev.index}/{ev.total}] {ev.case_id}"
-        if ev.event == "case-start":
-            click.echo(f"{head}: start ({ev.message})")
-        elif ev.event == "stage-start" and not quiet:
-            click.echo(f"{head}: {ev.stage} …")
-        elif ev.event == "running":
-            click.echo(f"{head}: {ev.stage} running {format_duration(ev.stage_elapsed)} (case {format_duration(ev.elapsed)})")
-        elif ev.event == "stage-done" and not quiet:
-            click.echo(f"{head}: {ev.stage} done in {format_duration(ev.stage_elapsed)}")
+        verbose = self.verbose and not self.quiet
+        if ev.event == "layout":
+            out.message(ev.message)
+        elif ev.event in ("case-start", "stage-start", "running"):
+            if ev.stage:
+                self.now[ev.case_id] = f"{ev.stage} {d(ev.stage_elapsed)}"
+            if ev.event == "stage-start" and verbose:
+                out.message(f"{head}: {ev.stage} …")
+            elif ev.event == "running" and verbose and not out.tty:
+                out.message(f"{head}: {ev.stage} running {d(ev.stage_elapsed)} (case {d(ev.elapsed)})")
+            out.draw(self._note())
+        elif ev.event == "stage-done":
+            if verbose:
+                out.message(f"{head}: {ev.stage} done in {d(ev.stage_elapsed)}")
         elif ev.event == "stage-failed":
-            click.echo(f"{head}: {ev.stage} FAILED after {format_duration(ev.stage_elapsed)}: {ev.message}")
+            out.message(f"{head}: {ev.stage} FAILED after {d(ev.stage_elapsed)}: {ev.message}")
         elif ev.event == "skipped":
-            click.echo(f"{head}: skipped ({ev.message})")
+            if self.quiet:
+                out.meter.finish(worked=False)
+            else:
+                out.item_done(f"{head}: skipped ({ev.message})", worked=False)
         elif ev.event == "interrupted":
-            click.echo(f"{head}: interrupted during {ev.stage}")
+            self.now.pop(ev.case_id, None)
+            out.message(f"{head}: interrupted ({ev.message})")
         elif ev.event == "case-done" and ev.record is not None:
+            self.now.pop(ev.case_id, None)
             r = ev.record
             extra = f" flags: {', '.join(r.flags)}" if r.flags else ""
-            click.echo(f"{head}: {r.status} in {format_duration(r.wall_time)}{extra}")
+            worked = any(s.status in ("ok", "failed") for s in r.stages)
+            if self.quiet and not r.failed:
+                out.meter.finish(worked)
+                out.draw(self._note())
+            else:
+                out.item_done(f"{head}: {r.status} in {d(r.wall_time)}{extra}", worked)
             if r.failed and r.log_tail:
-                click.echo("    " + "\n    ".join(r.log_tail.splitlines()[-12:]))
-    return show
+                out.message("    " + "\n    ".join(r.log_tail.splitlines()[-12:]))
+            out.draw(self._note())
+
+    def close(self) -> None:
+        if self.display is not None:
+            self.display.close()
 
 
 @main.command("run")
 @click.argument("sweep_dir", type=click.Path(file_okay=False, path_type=str))
-@click.option("-j", "--jobs", type=int, default=1, show_default=True, help="Cases run at the same time.")
-@click.option("--ranks", type=int, default=1, show_default=True,
-              help="MPI ranks per case (1 = serial). Keep jobs × ranks ≤ cores.")
+@click.option("-j", "--jobs", type=int, default=None,
+              help="Cases run at the same time (default: one per core when there are at least as many cases to "
+                   "run as cores, else all of them).")
+@click.option("--ranks", type=int, default=None,
+              help="MPI ranks per case (default: 1 when there are at least as many cases to run as cores, else "
+                   "the cores shared out among the cases). Keep jobs × ranks ≤ cores.")
 @click.option("--only", "only", multiple=True, metavar="ID", help="Run only this case id (repeatable).")
 @click.option("--stage", "stages", multiple=True, type=click.Choice(["mesh", "solve", "export"]),
               help="Run only this stage (repeatable); default all three.")
@@ -69,15 +110,21 @@ def _progress_printer(quiet: bool):
 @click.option("--residual-tol", type=float, default=DEFAULT_OPTIONS.residual_tol, show_default=True,
               help="Residual below which a run that used its whole budget counts as converged; above it the "
                    "force monitor must have settled (see the README's convergence rule).")
-@click.option("-q", "--quiet", is_flag=True, help="Print only case starts, failures and results.")
+@click.option("--grace", type=click.FloatRange(min=0.0), default=RUN_DEFAULTS.kill_grace, show_default=True,
+              help="Seconds between SIGTERM and SIGKILL for the running cases when the run is stopped "
+                   "(keep it below the scheduler's own grace, e.g. SLURM's KillWait).")
+@click.option("-q", "--quiet", is_flag=True, help="Print only failures and the final table.")
+@click.option("-v", "--verbose", is_flag=True, help="Also print each stage's start and end.")
 @click.option("--skip-solver-check", is_flag=True, hidden=True)
-def run_cmd(sweep_dir, jobs, ranks, only, stages, force, residual_tol, quiet, skip_solver_check) -> None:
+def run_cmd(sweep_dir, jobs, ranks, only, stages, force, residual_tol, grace, quiet, verbose,
+            skip_solver_check) -> None:
     """Run the solver over the cases of SWEEP_DIR (a folder written by
     `caseprep write`): mesh, solve and export each case, resumably.
 
     Each case's outcome goes to <case>/underfloor-run.json and the sweep's
     run_summary.json. Exit code 0 when every case ran, 1 when any case
-    failed, 2 for a usage error, 130 when interrupted (run again to resume).
+    failed, 2 for a usage error, 143 when stopped by SIGTERM (a scheduler's
+    cancel or time limit), 130 by SIGINT/Ctrl-C (run again to resume).
     """
     import os
     import time
@@ -89,21 +136,27 @@ def run_cmd(sweep_dir, jobs, ranks, only, stages, force, residual_tol, quiet, sk
         if missing:
             raise UserError(expected="the solver's programs on PATH", got=", ".join(missing),
                             fix=f"install them: {runner.INSTALL_HINT}")
-    cores = os.cpu_count() or 1
-    if jobs * ranks > cores:
+    cores = runner.usable_cores()
+    if jobs is not None and ranks is not None and jobs * ranks > cores:
         click.echo(f"note: {jobs} jobs × {ranks} ranks = {jobs * ranks} processes on {cores} cores; "
                    "cases will compete for the processors", err=True)
     t0 = time.monotonic()
-    opts = runner.RunOptions(convergence=ConvergenceOptions(residual_tol=residual_tol))
+    show = _RunProgress(quiet, verbose)
+    tty = sys.stdout.isatty()
+    opts = runner.RunOptions(convergence=ConvergenceOptions(residual_tol=residual_tol), kill_grace=grace,
+                             heartbeat=1.0 if tty else RUN_DEFAULTS.heartbeat)  # a terminal's bar moves on
     try:
-        records = runner.run_sweep(sweep_dir, jobs=jobs, ranks=ranks, stages=list(stages) or None,
-                                   only=list(only) or None, force=force, progress=_progress_printer(quiet),
-                                   options=opts)
+        try:
+            records = runner.run_sweep(sweep_dir, jobs=jobs, ranks=ranks, stages=list(stages) or None,
+                                       only=list(only) or None, force=force, progress=show, options=opts)
+        finally:
+            show.close()
     except runner.SweepInterrupted as exc:
         click.echo("")
         click.echo(runner.format_summary_table(exc.records))
-        click.echo("interrupted: running cases were stopped and recorded; run the same command again to resume.")
-        sys.exit(130)
+        click.echo(f"{exc}: running cases were stopped and recorded 'interrupted'; run the same command again "
+                   "to resume.")
+        sys.exit(exc.exit_code)
     except KeyboardInterrupt:  # before any case started
         click.echo("interrupted before any case started.", err=True)
         sys.exit(130)
@@ -137,12 +190,13 @@ def write_cmd(config: str, out_dir: str, force: bool, fidelity: str | None) -> N
     exists with different content is refused unless --force is given.
     """
     from caseprep.config.load import load_config, with_fidelity  # planning half: loaded only when needed
+    from caseprep.planning.batch import batch_settings
     from caseprep.planning.planner import plan
     from caseprep.casefiles.writer import write_sweep
 
     cfg = with_fidelity(load_config(config), fidelity)
     specs = plan(cfg)
-    summary = write_sweep(specs, out_dir, config, force=force, study=cfg.study.name)
+    summary = write_sweep(specs, out_dir, config, force=force, study=cfg.study.name, batch=batch_settings(cfg))
     click.echo(f"{summary.root}: {len(summary.written)} new, {len(summary.replaced)} replaced, "
                f"{len(summary.unchanged)} unchanged case(s); manifest {summary.manifest}")
     if summary.geometry_written:
@@ -153,7 +207,7 @@ def write_cmd(config: str, out_dir: str, force: bool, fidelity: str | None) -> N
         click.echo(f"warning: {len(summary.unlisted)} folder(s) in cases/ have no record and are not listed in the "
                    f"manifest (not written by caseprep): {', '.join(summary.unlisted[:10])}"
                    + (" …" if len(summary.unlisted) > 10 else "") + "; move them out of the sweep folder", err=True)
-    click.echo(f"run them: {summary.root}/run_all.sh  (or sbatch slurm_array.sh on a cluster)")
+    click.echo(f"run them here: caseprep run {summary.root}   on a SLURM cluster: {summary.root}/submit.sh")
 
 
 def _format_table(rows: list[dict], columns: tuple[str, ...]) -> str:

@@ -8,17 +8,19 @@ Steps
    invented demo scenario) at the ``smoke`` fidelity into OUT/sweep with the
    caseprep Python API. An existing OUT/sweep is reused (``--force`` rewrites
    it), so running the demo again resumes where it stopped.
-2. Run every case with the case runner (1 case at a time, 2 MPI ranks by
-   default), printing progress. A case that fails is reported with the tail
+2. Run every case with the case runner (by default its throughput rule:
+   one serial case per core), printing progress. A case that fails is reported with the tail
    of its log; the others go on.
-3. Post-process every case (postproc.pipelines.sweep: forces, coefficients, aero
-   balance, convergence, the runner's flags) and write OUT/results.csv,
+3. Post-process every case, one worker process per core, reusing the stored
+   result of every case whose inputs are unchanged (postproc.pipelines.sweep:
+   forces, coefficients, aero balance, convergence, the runner's flags) and
+   write OUT/results.csv,
    OUT/results.json, OUT/results/<case>.json and OUT/report.html (the
    self-contained sweep report with the ranking and the safety caution);
    print where they are and how long the demo took.
 
 Exit codes: 0 all cases ran, 1 some case failed, 2 a missing prerequisite
-(example config, solver), 130 interrupted (run again to resume).
+(example config, solver), 143/130 stopped by SIGTERM/SIGINT (run again to resume).
 """
 from __future__ import annotations
 
@@ -37,7 +39,10 @@ from caseprep.run import runner  # noqa: E402
 from caseprep.contract.errors import UserError  # noqa: E402
 from caseprep.contract.manifest import read_manifest  # noqa: E402
 from caseprep.contract.records import SUMMARY_NAME  # noqa: E402
-from postproc.pipelines.sweep import postprocess_sweep  # noqa: E402
+from caseprep.contract.progress import ProgressMeter, format_duration  # noqa: E402
+from caseprep.contract.signals import StopRequested  # noqa: E402
+from postproc.pipelines.report_data import ReportOptions  # noqa: E402
+from postproc.pipelines.sweep import SweepOptions, postprocess_sweep  # noqa: E402
 from postproc.report import RenderInfo, write_report  # noqa: E402
 
 DEFAULT_CONFIG = HERE / "floor_study" / "sweep.toml"
@@ -54,6 +59,7 @@ def write_sweep(config_path: Path, sweep_dir: Path, fidelity: str, force: bool) 
     """Plan and write the sweep with the caseprep Python API."""
     try:
         from caseprep.config.load import load_config, with_fidelity
+        from caseprep.planning.batch import batch_settings
         from caseprep.planning.planner import plan
         from caseprep.casefiles.writer import write_sweep as _write
     except ImportError as exc:
@@ -62,7 +68,7 @@ def write_sweep(config_path: Path, sweep_dir: Path, fidelity: str, force: bool) 
     config = with_fidelity(config, fidelity)
     specs = plan(config)
     say(f"writing {len(specs)} case(s) at fidelity {fidelity!r} into {sweep_dir} …")
-    _write(specs, sweep_dir, config_path, force=force, study=config.study.name)
+    _write(specs, sweep_dir, config_path, force=force, study=config.study.name, batch=batch_settings(config))
 
 
 def _stop(msg: str, code: int) -> int:
@@ -70,24 +76,37 @@ def _stop(msg: str, code: int) -> int:
     return code
 
 
-def progress(ev: runner.Progress) -> None:
-    head = f"  [{ev.index}/{ev.total}] {ev.case_id}"
-    d = runner.format_duration
-    if ev.event == "stage-start":
-        say(f"{head}: {ev.stage} …")
-    elif ev.event == "stage-done":
-        say(f"{head}: {ev.stage} done in {d(ev.stage_elapsed)}")
-    elif ev.event == "running":
-        say(f"{head}: {ev.stage} still running ({d(ev.stage_elapsed)})")
-    elif ev.event == "stage-failed":
-        say(f"{head}: {ev.stage} FAILED: {ev.message}")
-    elif ev.event == "skipped":
-        say(f"{head}: done in an earlier run, skipped")
-    elif ev.event == "case-done" and ev.record is not None:
-        r = ev.record
-        say(f"{head}: {r.status} in {d(r.wall_time)}" + (f" — flags: {', '.join(r.flags)}" if r.flags else ""))
-        if r.failed and r.log_tail:
-            say("      " + "\n      ".join(r.log_tail.splitlines()[-15:]))
+class RunProgress:
+    """Stage lines, and per finished case the count and the estimated time left."""
+
+    def __init__(self) -> None:
+        self.meter: ProgressMeter | None = None
+
+    def __call__(self, ev: runner.Progress) -> None:
+        head = f"  [{ev.index}/{ev.total}] {ev.case_id}"
+        d = format_duration
+        if self.meter is None:
+            self.meter = ProgressMeter(ev.total)
+        if ev.event == "layout":
+            say(f"  {ev.message}")
+        elif ev.event == "stage-start":
+            say(f"{head}: {ev.stage} …")
+        elif ev.event == "stage-done":
+            say(f"{head}: {ev.stage} done in {d(ev.stage_elapsed)}")
+        elif ev.event == "running":
+            say(f"{head}: {ev.stage} still running ({d(ev.stage_elapsed)})")
+        elif ev.event == "stage-failed":
+            say(f"{head}: {ev.stage} FAILED: {ev.message}")
+        elif ev.event == "skipped":
+            self.meter.finish(worked=False)
+            say(f"{head}: done in an earlier run, skipped")
+        elif ev.event == "case-done" and ev.record is not None:
+            r = ev.record
+            self.meter.finish(worked=any(s.status in ("ok", "failed") for s in r.stages))
+            say(f"{head}: {r.status} in {d(r.wall_time)}" + (f" — flags: {', '.join(r.flags)}" if r.flags else "")
+                + f"  [{self.meter.line()}]")
+            if r.failed and r.log_tail:
+                say("      " + "\n      ".join(r.log_tail.splitlines()[-15:]))
 
 
 # ---------------------------------------------------------------- main
@@ -98,8 +117,9 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--out", default="runs/demo", help="output folder (default runs/demo)")
     ap.add_argument("--config", default=str(DEFAULT_CONFIG), help="sweep config (default the bundled example)")
     ap.add_argument("--fidelity", default="smoke", help="mesh fidelity (default smoke)")
-    ap.add_argument("--jobs", type=int, default=1, help="cases at a time (default 1)")
-    ap.add_argument("--ranks", type=int, default=2, help="MPI ranks per case (default 2)")
+    ap.add_argument("--jobs", type=int, default=None,
+                    help="cases at a time (default: the runner's throughput rule, one serial case per core)")
+    ap.add_argument("--ranks", type=int, default=None, help="MPI ranks per case (default: the runner's rule)")
     ap.add_argument("--force", action="store_true", help="rewrite the sweep and re-run every case")
     a = ap.parse_args(argv)
     t0 = time.monotonic()
@@ -121,40 +141,55 @@ def main(argv: list[str] | None = None) -> int:
         else:
             write_sweep(config, sweep_dir, a.fidelity, a.force)
         manifest = read_manifest(sweep_dir)
-        say(f"running {len(manifest.cases)} case(s), {a.jobs} at a time, {a.ranks} rank(s) each …")
+        say(f"running {len(manifest.cases)} case(s) …")
         try:
-            recs = runner.run_sweep(sweep_dir, jobs=a.jobs, ranks=a.ranks, force=a.force, progress=progress)
-        except runner.SweepInterrupted:
-            return _stop("interrupted; the running case was stopped and recorded. Run `make demo` again to resume.",
-                         130)
+            recs = runner.run_sweep(sweep_dir, jobs=a.jobs, ranks=a.ranks, force=a.force, progress=RunProgress())
+        except runner.SweepInterrupted as exc:
+            return _stop(f"{exc}; the running cases were stopped and recorded. Run `make demo` again to resume.",
+                         exc.exit_code)
     except UserError as exc:
         return _stop(str(exc), 2)
 
     say("post-processing every case (forces, coefficients, balance, convergence, flow numbers) and the report …")
 
-    def post_progress(i, n, o):
-        r = o.result
+    post_meter: list[ProgressMeter] = []
+
+    def post_progress(ev):
+        if not post_meter:  # the run began ev.elapsed s before its first case finished
+            post_meter.append(ProgressMeter(ev.total, start=time.monotonic() - ev.elapsed))
+        post_meter[0].finish(worked=not ev.reused)
+        r = ev.outcome.result
         what = f"C_L {r.cl:+.4f}, C_D {r.cd:.4f}" if math.isfinite(r.cl) else "no coefficients"
-        say(f"  [{i}/{n}] {r.case_id}: {what}" + (f" — flags: {', '.join(r.flags)}" if r.flags else ""))
+        say(f"  [{ev.done}/{ev.total}] {r.case_id}: {what}" + (f" — flags: {', '.join(r.flags)}" if r.flags else "")
+            + (" (reused)" if ev.reused else "") + f"  [{post_meter[0].line()}]")
+
+    opts = SweepOptions(out_dir=out, force=True, jobs=runner.usable_cores(), report=ReportOptions(
+        title="underfloor demo — example floor study (DEMO data, smoke meshes)"))
+    written = {}
+
+    def render(analysis, path):
+        written["info"] = RenderInfo()
+        write_report(analysis, path, info=written["info"])
 
     try:
         t_post = time.monotonic()
-        analysis = postprocess_sweep(sweep_dir, out_dir=out, force=True, progress=post_progress,
-                                     title="underfloor demo — example floor study (DEMO data, smoke meshes)")
+        analysis = postprocess_sweep(sweep_dir, opts, progress=post_progress, render=render)
         paths = analysis.paths
-        info = RenderInfo()
-        write_report(analysis, paths["report"], info=info)
+        info = written.get("info")  # None: nothing changed since the report was written
         t_post = time.monotonic() - t_post
     except UserError as exc:
         return _stop(str(exc), 2)
+    except StopRequested as exc:
+        return _stop(f"stopped by {exc}; finished cases are stored. Run `make demo` again to resume.", exc.exit_code)
     elapsed = time.monotonic() - t0
     say("")
     say(runner.format_summary_table(recs))
     failed = [r for r in recs if r.failed]
     say("")
-    say(f"report: {paths['report']} ({info.size / 1e6:.2f} MB; post-processing and report "
-        f"{runner.format_duration(t_post)}, pictures {info.seconds.get('pictures', 0.0):.1f} s"
-        f"{'' if info.backend else ', no pictures: see the report'}); tables: {paths['csv']}, {paths['json']}; "
+    made = ("nothing changed since it was written" if info is None else
+            f"{info.size / 1e6:.2f} MB; post-processing and report {runner.format_duration(t_post)}, pictures "
+            f"{info.seconds.get('pictures', 0.0):.1f} s{'' if info.backend else ', no pictures: see the report'}")
+    say(f"report: {paths['report']} ({made}); tables: {paths['csv']}, {paths['json']}; "
         f"run records: {sweep_dir / SUMMARY_NAME}")
     say(f"demo took {runner.format_duration(elapsed)}; {len(recs) - len(failed)} of {len(recs)} case(s) ran"
         + (f", {len(failed)} failed (see above)" if failed else ""))

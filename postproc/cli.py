@@ -10,6 +10,7 @@ import sys
 import click
 
 from caseprep.contract.cli_common import FriendlyGroup
+from caseprep.contract.cli_progress import ProgressDisplay
 
 from caseprep.contract import __version__
 from postproc.pipelines.case_forces import ForcesOptions, forces_report
@@ -122,62 +123,160 @@ def forces_cmd(target, patches, rho, kinematic, normals, shear_on, p_ref, about,
 
 # --------------------------------------------------------------------------- sweep
 
+CAUTION = ("Caution: CFD is an approximation — validate by physical test; run vehicles only where permitted "
+           "and safe; defer to local rules and qualified engineers.")
+
+
+def _case_line(ev) -> str:
+    """One line for a case done (``postproc.pipelines.sweep.CaseProgress``)."""
+    o = ev.outcome
+    r = o.result
+    what = f"C_L {r.cl:+.4f}  C_D {r.cd:.4f}" if r.cl == r.cl else "no coefficients"
+    return (f"{r.case_id}: {o.status}; {what}" + (f"; flags: {', '.join(r.flags)}" if r.flags else "")
+            + ("  (reused: inputs unchanged)" if ev.reused else ""))
+
+
 @main.command("sweep")
 @click.argument("sweep_dir", type=click.Path(file_okay=False))
 @click.option("-o", "--out", "out_dir", type=click.Path(file_okay=False),
-              help="Where to write results.csv, results.json, report.html and results/ (default: the sweep folder).")
+              help="Where to write results.csv, results.json, report.html, results/ and shards/ "
+                   "(default: the sweep folder).")
+@click.option("-j", "--jobs", type=click.IntRange(min=1), default=1, show_default=True,
+              help="Worker processes: cases post-processed at the same time.")
+@click.option("--shard", "shard", metavar="I/N",
+              help="Process only shard I of N (cases at manifest positions k with k mod N = I-1) and write their "
+                   "per-case results, no tables; then `postproc merge`.")
+@click.option("--recompute", is_flag=True, help="Recompute every case even when its stored result is reusable.")
 @click.option("--title", help="Report title (default from the study name).")
 @click.option("--baseline", help="Variant the pressure-difference pictures compare against (default: the first).")
 @click.option("--picture-ride-height", type=float,
               help="Front ride height (m) of the pictured point (default: the sweep's median).")
 @click.option("--picture-yaw", type=float, help="Yaw (deg) of the pictured point (default: the smallest |yaw|).")
 @click.option("--no-pictures", is_flag=True, help="No flow pictures (very large sweeps; flow numbers still computed).")
-@click.option("--force", is_flag=True, help="Replace earlier results in the output folder.")
+@click.option("--force", is_flag=True, help="Replace earlier tables (results.csv/json, report) in the output folder.")
 @click.option("-q", "--quiet", is_flag=True, help="No per-case progress lines.")
 @click.option("-c", "--config", "config", type=click.Path(dir_okay=False),
               help="Analysis settings for analysis.json (default: ANALYSIS.toml in the sweep folder, else the "
                    "sweep config's [analysis] table, else built-in defaults).")
-def sweep_cmd(sweep_dir: str, out_dir: str | None, title: str | None, baseline: str | None,
-              picture_ride_height: float | None, picture_yaw: float | None, no_pictures: bool, force: bool,
-              quiet: bool, config: str | None) -> None:
+def sweep_cmd(sweep_dir: str, out_dir: str | None, jobs: int, shard: str | None, recompute: bool,
+              title: str | None, baseline: str | None, picture_ride_height: float | None,
+              picture_yaw: float | None, no_pictures: bool, force: bool, quiet: bool,
+              config: str | None) -> None:
     """Post-process every case of SWEEP_DIR (written by `caseprep write`, run
     by `caseprep run`): forces, coefficients, aero balance, convergence, the
     runner's flags and each case's flow numbers → results table, variant
     ranking, analysis.json (as `postproc analyse`) and a self-contained HTML
     report with flow pictures and plots.
 
-    Flagged cases (mesh failed, layers collapsed, not converged, not run…)
-    are listed and never ranked.
+    Each case's result is stored in results/<case>.json and reused while the
+    case's inputs are unchanged (manifest entry; size and modification time
+    of its run record, VTK export and monitor files), so a rerun after a
+    crash, a stop or new cases only does the new work. Flagged cases (mesh
+    failed, layers collapsed, not converged, not run…) are listed and never
+    ranked. Exit code 0, 2 for a usage error, 143/130 when stopped by
+    SIGTERM/SIGINT (run again to resume).
     """
+    import time
+
+    from caseprep.contract.signals import StopRequested
     from postproc.pipelines.report_data import ReportOptions
-    from postproc.pipelines.sweep import postprocess_sweep
-    from postproc.report import RenderInfo, write_report
+    from postproc.pipelines.shards import ALL, parse_shard
+    from postproc.pipelines.sweep import SweepOptions, postprocess_shard, postprocess_sweep
 
-    def progress(i, n, o):
+    sh = parse_shard(shard)
+    ropts = ReportOptions(title=title, baseline=baseline, reference_ride_height=picture_ride_height,
+                          reference_yaw_deg=picture_yaw, pictures=not no_pictures)
+    opts = SweepOptions(out_dir=out_dir, force=force, jobs=jobs, shard=sh, recompute=recompute,
+                        report=ropts, analysis_config=config)
+    shown: list[ProgressDisplay] = []
+
+    def progress(ev) -> None:  # a bar on a terminal, else one line per case with the time left
+        if not shown:  # the run began ev.elapsed s before its first case finished
+            shown.append(ProgressDisplay(ev.total, start=time.monotonic() - ev.elapsed))
         if quiet:
-            return
-        r = o.result
-        what = (f"C_L {r.cl:+.4f}  C_D {r.cd:.4f}" if r.cl == r.cl else "no coefficients")
-        click.echo(f"[{i}/{n}] {r.case_id}: {o.status}; {what}" + (f"; flags: {', '.join(r.flags)}" if r.flags else ""))
+            shown[0].meter.finish(not ev.reused)
+            shown[0].draw()
+        else:
+            shown[0].item_done(f"[{ev.done}/{ev.total}] " + _case_line(ev), worked=not ev.reused)
 
-    opts = ReportOptions(title=title, baseline=baseline, reference_ride_height=picture_ride_height,
-                         reference_yaw_deg=picture_yaw, pictures=not no_pictures)
-    analysis = postprocess_sweep(sweep_dir, out_dir, title=title, progress=progress, force=force, options=opts,
-                                 analysis_config=config)
+    try:
+        if sh != ALL:
+            run = postprocess_shard(sweep_dir, opts, progress=progress)
+            for d in shown:
+                d.close()
+            click.echo(f"shard {sh}: {len(run.outcomes)} case(s), {len(run.computed)} computed, "
+                       f"{len(run.reused)} reused; state {run.state_file}. Assemble the tables with "
+                       f"`postproc merge {sweep_dir}" + (f" -o {out_dir}" if out_dir else "") + "`.")
+            return
+        analysis = postprocess_sweep(sweep_dir, opts, progress=progress, render=_write_report)
+        for d in shown:
+            d.close()
+    except StopRequested as exc:
+        for d in shown:
+            d.close()
+        click.echo(f"stopped by {exc}: finished cases are stored, the others recorded interrupted; no tables "
+                   "written. Run the same command again to resume.", err=True)
+        sys.exit(exc.exit_code)
+    _tables_written(analysis)
+
+
+def _write_report(analysis, path):
+    from postproc.report import write_report
+
+    return write_report(analysis, path)
+
+
+def _tables_written(analysis) -> None:
     outcomes, paths = analysis.outcomes, analysis.paths
-    info = RenderInfo()
-    write_report(analysis, paths["report"], info=info)
+    if analysis.up_to_date:
+        click.echo(f"{len(outcomes)} case(s): nothing changed since the tables and the report were written; "
+                   f"left as they are: {paths['csv']}, {paths['json']}, {paths['report']}")
+        click.echo(CAUTION)
+        return
     n_flag = sum(bool(o.result.flags) for o in outcomes)
+    size = paths["report"].stat().st_size if paths["report"].is_file() else 0
     click.echo(f"{len(outcomes)} case(s), {n_flag} flagged (not ranked).")
-    click.echo(f"results: {paths['csv']}, {paths['json']}; report: {paths['report']} ({info.size / 1e6:.2f} MB)")
+    click.echo(f"results: {paths['csv']}, {paths['json']}; report: {paths['report']} ({size / 1e6:.2f} MB)")
     if analysis.analysis is not None:
         dec = analysis.analysis["ranking"]["decision"]
         click.echo(f"analysis: {paths['analysis']} (decision: {dec['status']}: {dec['message']})")
     for n in analysis.notes:
         if n.startswith("analysis.json not written"):
             click.echo(n)
-    click.echo("Caution: CFD is an approximation — validate by physical test; run vehicles only where permitted "
-               "and safe; defer to local rules and qualified engineers.")
+    click.echo(CAUTION)
+
+
+@main.command("merge")
+@click.argument("sweep_dir", type=click.Path(file_okay=False))
+@click.option("-o", "--out", "out_dir", type=click.Path(file_okay=False),
+              help="The output folder the shards wrote into (default: the sweep folder).")
+@click.option("--shards", "n_shards", type=click.IntRange(min=1),
+              help="Number of shards the cases were split into (names the missing ones; default from shards/).")
+@click.option("--title", help="Report title (default from the study name).")
+@click.option("--force", is_flag=True, help="Replace earlier tables (results.csv/json, report).")
+@click.option("--wait", type=click.FloatRange(min=0.0), default=300.0, show_default=True,
+              help="Seconds to wait for another merge of the same folder before giving up.")
+def merge_cmd(sweep_dir: str, out_dir: str | None, n_shards: int | None, title: str | None, force: bool,
+              wait: float) -> None:
+    """Assemble results.csv, results.json and the report of SWEEP_DIR from
+    the per-case results its shards wrote (`postproc sweep --shard I/N`).
+
+    Computes nothing per case: a case without a usable result is listed,
+    flagged results-missing and its shard named; everything else is
+    written. Exit code 0, 1 when cases are missing (tables still written),
+    2 for a usage error.
+    """
+    from postproc.pipelines.report_data import ReportOptions
+    from postproc.pipelines.sweep import SweepOptions, merge_results
+
+    opts = SweepOptions(out_dir=out_dir, force=force, wait=wait, expected_shards=n_shards,
+                        report=ReportOptions(title=title))
+    analysis, gap = merge_results(sweep_dir, opts, render=_write_report)
+    _tables_written(analysis)
+    if gap is not None:
+        click.echo(f"incomplete: {gap.message()}. Rerun those shards (`postproc sweep {sweep_dir} --shard I/N`), "
+                   "then merge again with --force.", err=True)
+        sys.exit(1)
 
 
 # --------------------------------------------------------------------------- analyse

@@ -23,7 +23,7 @@ from caseprep.contract.manifest import CaseRecord, Manifest, Reference, write_ma
 from postproc.cli import main
 from postproc.io import flow as flowio
 from postproc.pipelines.case_flow import FlowOptions, analyse_case_flow, flow_metrics
-from postproc.pipelines.sweep import postprocess_sweep
+from postproc.pipelines.sweep import SweepOptions, postprocess_sweep
 
 from flow_meshes import box_grid, box_patch, lamb_oseen
 
@@ -179,12 +179,12 @@ def test_missing_baseline_names_the_variants_and_config_sets_it(tmp_path):
     root = tmp_path / "sw"
     write_case(root)
     with pytest.raises(UserError, match="choose one of: chan"):
-        postprocess_sweep(root, options=ReportOptions(baseline="wedge"))
+        postprocess_sweep(root, SweepOptions(report=ReportOptions(baseline="wedge")))
     # the config's [report] section travels in the manifest records
     m = read_manifest(root)
     rec = dc_replace(m.cases[0], info={**m.cases[0].info, "report": {"baseline": "nope"}})
     write_manifest(dc_replace(m, cases=(rec,)), root)
     with pytest.raises(UserError, match="report.baseline"):
-        postprocess_sweep(root, force=True)
-    a = postprocess_sweep(root, force=True, options=ReportOptions(baseline="chan", pictures=False))
+        postprocess_sweep(root, SweepOptions(force=True))
+    a = postprocess_sweep(root, SweepOptions(force=True, report=ReportOptions(baseline="chan", pictures=False)))
     assert a.report_data.baseline == "chan"

@@ -210,7 +210,7 @@ def test_interrupt_stops_cases_cleanly(tmp_path):
 
     t0 = time.monotonic()
     with pytest.raises(runner.SweepInterrupted) as exc:
-        runner.run_sweep(root, progress=on_event, options=runner.RunOptions(kill_grace=5.0))
+        runner.run_sweep(root, jobs=1, progress=on_event, options=runner.RunOptions(kill_grace=5.0))
     assert time.monotonic() - t0 < 30  # did not wait for the 60 s sleep
     (rec,) = exc.value.records
     assert rec.case_id == "slow" and rec.status == "interrupted"
@@ -260,3 +260,37 @@ def test_relative_sweep_path(sweep, monkeypatch):
     monkeypatch.chdir(sweep.parent)
     recs = runner.run_sweep(Path(sweep.name), only=["good"])
     assert recs[0].status == "ok" and calls(sweep, "good") == ["mesh", "solve", "export"]
+
+
+@pytest.mark.parametrize("pending, cores, jobs, ranks, want", [
+    (4, 2, None, None, (2, 1)),     # at least as many cases as cores: one serial case per core
+    (12, 2, None, None, (2, 1)),
+    (2, 2, None, None, (2, 1)),
+    (1, 2, None, None, (1, 2)),     # fewer cases than cores: ranks share the cores out
+    (3, 8, None, None, (3, 2)),
+    (1, 1, None, None, (1, 1)),
+    (4, 2, None, 2, (1, 2)),        # ranks asked: as many cases as fit
+    (4, 8, None, 2, (4, 2)),
+    (1, 8, None, 2, (1, 2)),        # never more at a time than there are cases
+    (4, 2, 1, None, (1, 2)),        # jobs asked: the cores shared among them
+    (4, 8, 3, None, (3, 2)),
+    (4, 2, 1, 2, (1, 2)),           # both asked: as asked
+    (4, 2, 4, 4, (4, 4)),
+])
+def test_throughput_layout(pending, cores, jobs, ranks, want):
+    """The throughput rule (README "Throughput"; the rule is ours, measured
+    there on this project's machine)."""
+    lay = runner.choose_layout(pending, cores, jobs, ranks)
+    assert (lay.jobs, lay.ranks) == want and lay.reason
+
+
+def test_default_layout_packs_the_machine(sweep):
+    events = []
+    recs = runner.run_sweep(sweep, progress=events.append)
+    (lay,) = [e for e in events if e.event == "layout"]
+    cores = runner.usable_cores()
+    want = runner.choose_layout(4, cores)
+    assert lay.message == want.reason
+    # every case of the four ran with the rule's ranks (all 4 cases pending)
+    ranks_seen = {(sweep / "cases" / c / "logs" / "ranks.txt").read_text().strip() for c in ("good", "crash")}
+    assert ranks_seen == {str(want.ranks)} and all(r.ranks == want.ranks for r in recs if r.status != "skipped")

@@ -27,7 +27,11 @@ def test_unrun_sweep_is_all_flagged_and_still_reports(tmp_path):
     data = json.loads(paths["json"].read_text())
     assert data["flags"]["not-run"].startswith("the case has not been run")
     assert "never ranked" in paths["report"].read_text() or "flagged" in paths["report"].read_text()
-    # results are not replaced without force
+    # nothing changed: the tables are left as they are
+    r = CliRunner().invoke(postproc_main, ["sweep", str(root)])
+    assert r.exit_code == 0 and "nothing changed" in r.output, r.output
+    # an input changed: results are not replaced without force
+    (root / "cases" / "a" / "underfloor-run.json").write_text('{"case_id": "a", "folder": "cases/a", "status": "ok"}')
     r = CliRunner().invoke(postproc_main, ["sweep", str(root)])
     assert r.exit_code == 2 and "--force" in r.output and "Traceback" not in r.output
     r = CliRunner().invoke(postproc_main, ["sweep", str(root), "--force", "-q"])

@@ -232,8 +232,10 @@ def test_run_all_skips_finished_and_reports_failures(src, tmp_path):
     r = subprocess.run(["bash", "slurm_array.sh"], cwd=out, capture_output=True, text=True,
                        env=dict(env, SLURM_ARRAY_TASK_ID="1", SLURM_SUBMIT_DIR=str(out)))
     assert r.returncode == 0 and "already exported" in r.stdout
+    # without caseprep on PATH the task runs the case's run.sh itself
     r = subprocess.run(["bash", str(out / "slurm_array.sh")], cwd=tmp_path, capture_output=True, text=True,
-                       env=dict(env, SLURM_ARRAY_TASK_ID="2", SLURM_SUBMIT_DIR=str(out), SLURM_NTASKS="1"))
+                       env=dict(env, SLURM_ARRAY_TASK_ID="2", SLURM_SUBMIT_DIR=str(out), SLURM_NTASKS="1",
+                                UF_CASEPREP="no-such-caseprep"))
     assert r.returncode == 7 and "c-2" in r.stdout
     text = (out / "slurm_array.sh").read_text()
     assert "#SBATCH --array=1-3" in text and "#SBATCH --ntasks=1" in text

@@ -33,6 +33,7 @@ from __future__ import annotations
 import math
 
 import posixpath
+import re
 from dataclasses import dataclass
 from functools import lru_cache
 from typing import Any
@@ -41,6 +42,7 @@ import jinja2
 import numpy as np
 
 from caseprep.casefiles import foamdict
+from caseprep.planning.batch import BatchSettings
 from caseprep.planning.spec import CaseSpec, OrientedBox
 from caseprep.contract.errors import UserError
 from caseprep.contract.monitor import FORCES_NAME
@@ -569,19 +571,32 @@ def render_case(spec: CaseSpec, env: jinja2.Environment | None = None) -> dict[s
     return out
 
 
-def render_sweep_scripts(case_ids: list[str], max_ranks: int,
-                         env: jinja2.Environment | None = None) -> dict[str, CaseFile]:
-    """Sweep-root files: ``cases.txt`` (the ids, one per line), ``run_all.sh``,
-    ``slurm_array.sh`` (one array task per line of cases.txt, ``max_ranks``
-    MPI ranks per task by default)."""
+#: The sweep-root job scripts for a batch system (SLURM), written beside run_all.sh.
+BATCH_SCRIPTS = ("slurm_array.sh", "slurm_post.sh", "slurm_merge.sh", "submit.sh")
+
+
+def render_sweep_scripts(case_ids: list[str], max_ranks: int, batch: BatchSettings = BatchSettings(),
+                         study: str = "", env: jinja2.Environment | None = None) -> dict[str, CaseFile]:
+    """Sweep-root files: ``cases.txt`` (the ids, one per line), ``run_all.sh``
+    and the batch chain (:data:`BATCH_SCRIPTS`): the solver array (one task
+    per line of cases.txt, ``batch.cores_per_case`` or else ``max_ranks`` MPI
+    ranks per task), the post-processing array (``batch.shards(n)`` shards),
+    the merge and report job, and ``submit.sh`` that submits them with
+    ``afterany`` dependencies. ``study`` names the jobs."""
     env = env or _env()
     ids = [_check_component(i, "case id") for i in case_ids]
-    ctx = {"n_cases": len(ids), "max_ranks": max(1, int(max_ranks)), "cases_dir": CASES_DIR}
-    return {
+    cores = batch.cores_per_case or max(1, int(max_ranks))
+    tag = re.sub(r"[^A-Za-z0-9_-]", "", study)[:24] or "sweep"
+    ctx = {"n_cases": len(ids), "max_ranks": max(1, int(max_ranks)), "cases_dir": CASES_DIR, "batch": batch,
+           "case_cores": cores, "shards": batch.shards(len(ids)), "study_tag": tag,
+           "throttle": f"%{batch.max_running}" if batch.max_running else ""}
+    out = {
         "cases.txt": CaseFile("".join(i + "\n" for i in ids)),
         "run_all.sh": CaseFile(env.get_template("sweep/run_all.sh.j2").render(ctx), 0o755),
-        "slurm_array.sh": CaseFile(env.get_template("sweep/slurm_array.sh.j2").render(ctx), 0o755),
     }
+    for name in BATCH_SCRIPTS:
+        out[name] = CaseFile(env.get_template(f"sweep/{name}.j2").render(ctx), 0o755)
+    return out
 
 
 def outputs_record() -> dict[str, str]:

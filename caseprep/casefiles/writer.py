@@ -5,7 +5,10 @@ Layout written under ``out_dir``::
     manifest.json           sweep manifest (caseprep.contract.manifest), one record per case
     cases.txt               one case id per line (run_all.sh, slurm_array.sh read it)
     run_all.sh              workstation runner (N cases at a time)
-    slurm_array.sh          SLURM array job (one task per case)
+    slurm_array.sh          SLURM array job: the solver (one task per case)
+    slurm_post.sh           SLURM array job: the post-processing shards
+    slurm_merge.sh          SLURM job: merge the shards, tables and report
+    submit.sh               submits the three with afterany dependencies
     geometry/<file>         the ONE copy of each surface file (body, wheels)
     cases/<case_id>/        one solver case; constant/triSurface/<file> is a
                             relative symlink to ../../../../geometry/<file>
@@ -48,6 +51,7 @@ from caseprep.contract.atomicio import open_folder, write_bytes_atomic, write_js
 from caseprep.contract.limits import is_case_id
 from caseprep.contract.locking import JOURNAL_NAME, interrupted_write, sweep_lock
 from caseprep.geometry.stl import convert_to_stl, scale_stl_bytes, stl_solid_names, with_solid_names_as_read
+from caseprep.planning.batch import BatchSettings
 from caseprep.planning.spec import CaseSpec
 
 
@@ -400,7 +404,8 @@ def _settle(root: Path, journal: dict, old: Manifest | None, verified: bool) -> 
         config_hash=str(journal.get("config_hash", "")),
         created_utc=_dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ"),
         study=str(journal.get("study", "")))
-    scripts = render_sweep_scripts([r.case_id for r in records], int(journal.get("n_procs", 1) or 1))
+    scripts = render_sweep_scripts([r.case_id for r in records], int(journal.get("n_procs", 1) or 1),
+                                   _journal_batch(journal), str(journal.get("study", "")))
     for rel, f in scripts.items():
         write_text_atomic(root / rel, f.text, mode=f.mode, root=root)
     mpath = write_manifest(manifest, root)
@@ -409,6 +414,15 @@ def _settle(root: Path, journal: dict, old: Manifest | None, verified: bool) -> 
     except FileNotFoundError:
         pass
     return mpath, unlisted
+
+
+def _journal_batch(journal: dict) -> BatchSettings:
+    """The batch settings recorded in a journal (defaults when absent or
+    malformed: the journal is read back from disk)."""
+    try:
+        return BatchSettings(**dict(journal.get("batch") or {}))
+    except (TypeError, ValueError):
+        return BatchSettings()
 
 
 def _settle_interrupted(root: Path) -> tuple[str, ...]:
@@ -455,6 +469,7 @@ def write_sweep(
     *,
     geometry_sources: Mapping[str, os.PathLike | str] | None = None,
     study: str | None = None,
+    batch: BatchSettings = BatchSettings(),
 ) -> WriteSummary:
     """Write the sweep folder ``out_dir`` for ``specs`` (see module docstring).
 
@@ -465,7 +480,9 @@ def write_sweep(
     to the config. ``spec.extra["geometry_scales"][name]`` (else ``spec.extra["geometry_scale"]``,
     default 1) multiplies the
     source coordinates (e.g. 0.001 for a file drawn in mm) when the shared
-    copy is made. ``study``: manifest study name (default: the existing
+    copy is made. ``batch``: the resources of the cluster job scripts
+    (:class:`caseprep.planning.batch.BatchSettings`, from the config's
+    ``[cluster]`` table). ``study``: manifest study name (default: the existing
     manifest's, else the config file's stem).
 
     Returns a :class:`WriteSummary`. Raises :class:`UserError` for a case or
@@ -485,11 +502,11 @@ def write_sweep(
     # 2.-4. one writer at a time; an interrupted earlier write is settled first
     with sweep_lock(root, "caseprep write"):
         cleaned = _settle_interrupted(root)
-        return _write_locked(specs, root, cfg, config_path, force, rendered, geometry, chash, study, cleaned)
+        return _write_locked(specs, root, cfg, config_path, force, rendered, geometry, chash, study, cleaned, batch)
 
 
 def _write_locked(specs, root: Path, cfg: Path, config_path, force: bool, rendered, geometry, chash: str,
-                  study: str | None, cleaned: tuple[str, ...]) -> WriteSummary:
+                  study: str | None, cleaned: tuple[str, ...], batch: BatchSettings) -> WriteSummary:
     # 2. compare with what exists
     cases_dir = root / CASES_DIR
     geo_dir = root / GEOMETRY_DIR
@@ -506,7 +523,7 @@ def _write_locked(specs, root: Path, cfg: Path, config_path, force: bool, render
         "pid": os.getpid(), "command": "caseprep write", "config_file": str(config_path),
         "started_utc": _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ"),
         "study": study or (old.study if old is not None and old.study else cfg.stem),
-        "config_hash": chash, "n_procs": max(s.solver.n_procs for s in specs),
+        "config_hash": chash, "n_procs": max(s.solver.n_procs for s in specs), "batch": dataclasses.asdict(batch),
         "new": new, "replace": replace,
         "fingerprints": {cid: _fingerprint_files(rendered[cid]) for cid in replace},
         "rels": {cid: sorted(rendered[cid]) for cid in replace},

@@ -46,8 +46,22 @@ def problems(cfg: Config, base: Path, file: str) -> list[UserError]:
     _mesh(cfg, errs)
     _domain(cfg, errs)
     _solver(cfg, errs)
+    _cluster(cfg, errs)
     _report(cfg, errs)
     return list(errs)
+
+
+def _cluster(cfg: Config, errs: _Problems) -> None:
+    """The batch settings: numbers in range, texts in the batch system's formats."""
+    for name in type(cfg.cluster).model_fields:
+        key = f"cluster.{name}"
+        value = getattr(cfg.cluster, name)
+        pattern = KEYS[key].pattern
+        if pattern is not None:
+            if not pattern.matches(value):
+                errs.add(expected=pattern.expected, got=value, key=key, fix=pattern.fix)
+        else:
+            errs.check(key, value)
 
 
 def _has_ground(cfg: Config) -> bool:

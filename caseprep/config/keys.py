@@ -11,6 +11,7 @@ common practice, no source: they catch a wrong unit or a typo, not physics.
 from __future__ import annotations
 
 import math
+import re
 from dataclasses import dataclass
 from typing import Any
 
@@ -92,6 +93,20 @@ _SPEED = _within(0.1, 150.0, "m/s", "the solver is incompressible (Mach < 0.45);
 
 
 @dataclass(frozen=True)
+class Pattern:
+    """Valid text values: the whole value matches ``regex``; ``expected`` is
+    the message's "expected …" text (and the README's valid values), ``fix``
+    the message's fix (optional)."""
+
+    regex: str
+    expected: str
+    fix: str | None = None
+
+    def matches(self, value: str) -> bool:
+        return isinstance(value, str) and re.fullmatch(self.regex, value) is not None
+
+
+@dataclass(frozen=True)
 class Key:
     """One config key: ``unit`` (— when dimensionless), ``meaning``, the
     Python ``value`` of its default (:data:`NO_DEFAULT` when it has none) or
@@ -104,6 +119,7 @@ class Key:
     default: str = ""
     choices: tuple[str, ...] | None = None
     range: Range | None = None
+    pattern: Pattern | None = None
 
     def default_text(self) -> str:
         if self.value is NO_DEFAULT:
@@ -126,6 +142,13 @@ _PITCH = Range(hi=20.0, open_hi=True, magnitude=True, expected="a pitch angle wi
 _MESH_LEVEL = Range(lo=0, hi=6, expected="a mesh level from {lo} to {hi}")
 _LEVEL = Range(lo=0, hi=12, expected="a level from {lo} to {hi}")
 _RIDE_HEIGHT = _within(0.0, _L, "m", RIDE_HEIGHT_FIX)
+# the batch system's formats (SLURM's sbatch syntax); the values are written into #SBATCH lines
+_BATCH_TIME = Pattern(r"\d+|\d+:\d{2}(:\d{2})?|\d+-\d+(:\d{2}){0,2}",
+                      "a time limit: minutes, HH:MM:SS or D-HH:MM:SS", "e.g. \"04:00:00\" or \"1-12:00:00\"")
+_BATCH_MEMORY = Pattern(r"\d+[KMGT]?", "an amount of memory: whole MB, or a whole number with K, M, G or T",
+                        "e.g. \"2G\" or \"500M\"")
+_BATCH_NAME = Pattern(r"[A-Za-z0-9_.,+-]*", "a name of letters, digits and . , _ + - (no spaces)",
+                      "use the name the cluster gives (sinfo lists partitions), or \"\" for the default")
 
 KEYS: dict[str, Key] = {
     "study.name": Key("—", "study name (manifest, sweep folder)", default="required"),
@@ -236,6 +259,23 @@ KEYS: dict[str, Key] = {
                                                    expected="a turbulence intensity fraction in ({lo}, {hi}] (0.01 = 1 %)")),
     "solver.turbulence_length_scale": Key("m", "inlet turbulence length scale", default="0.001 × reference length",
                                           range=_within(1e-6, _L, "m")),
+    "cluster.partition": Key("—", "batch partition (queue) of every job; empty: the cluster's default", "",
+                             pattern=_BATCH_NAME),
+    "cluster.account": Key("—", "account the jobs are charged to; empty: the user's default", "", pattern=_BATCH_NAME),
+    "cluster.cores_per_case": Key("cores", "cores (MPI ranks) of one case's job", default="solver.ranks",
+                                  range=_at_least_one("at least 1 core")),
+    "cluster.memory_per_core": Key("—", "memory per core of a case's job", "2G", pattern=_BATCH_MEMORY),
+    "cluster.case_time": Key("—", "time limit of one case (mesh, solve, export)", "04:00:00", pattern=_BATCH_TIME),
+    "cluster.max_running": Key("—", "cases running at once (0: as many as the cluster allows)", 0,
+                               range=Range(lo=0, expected="a number of cases ≥ {lo}")),
+    "cluster.postproc_shards": Key("—", "post-processing array tasks (at most one per case)", 8,
+                                   range=_at_least_one("at least 1 shard")),
+    "cluster.postproc_cores": Key("cores", "worker processes of each post-processing task", 1,
+                                  range=_at_least_one("at least 1 core")),
+    "cluster.postproc_memory": Key("—", "memory of each post-processing task", "4G", pattern=_BATCH_MEMORY),
+    "cluster.postproc_time": Key("—", "time limit of each post-processing task", "01:00:00", pattern=_BATCH_TIME),
+    "cluster.report_memory": Key("—", "memory of the merge and report job", "4G", pattern=_BATCH_MEMORY),
+    "cluster.report_time": Key("—", "time limit of the merge and report job", "00:30:00", pattern=_BATCH_TIME),
     "report.baseline": Key("—", "variant the report's pressure-difference pictures compare against "
                                 "(`postproc sweep --baseline` overrides)", default="the first variant"),
     "report.picture_ride_height": Key("m", "front ride height of the operating point pictured for every variant "
@@ -272,7 +312,8 @@ def markdown_table() -> str:
     """The README's config table: key, unit, meaning, default, valid values."""
     rows = ["| key | unit | meaning | default | valid values |", "|---|---|---|---|---|"]
     for name, k in KEYS.items():
-        valid = (" / ".join(k.choices) if k.choices else k.range.table_text() if k.range else "")
+        valid = (" / ".join(k.choices) if k.choices else k.range.table_text() if k.range
+                 else k.pattern.expected if k.pattern else "")
         valid = valid.replace("|", "\\|")  # a bar inside a cell would split it
         rows.append(f"| `{name}` | {k.unit} | {k.meaning} | {k.default_text()} | {valid} |")
     return "\n".join(rows) + "\n"

@@ -162,6 +162,19 @@ class SolverCfg(_M):
     turbulence_length_scale: float | None = None
 
 
+class ClusterCfg(_M):
+    partition: str = default("cluster.partition")
+    account: str = default("cluster.account")
+    cores_per_case: int | None = None
+    memory_per_core: str = default("cluster.memory_per_core")
+    case_time: str = default("cluster.case_time")
+    max_running: int = default("cluster.max_running")
+    postproc_shards: int = default("cluster.postproc_shards")
+    postproc_cores: int = default("cluster.postproc_cores")
+    postproc_memory: str = default("cluster.postproc_memory")
+    postproc_time: str = default("cluster.postproc_time")
+    report_memory: str = default("cluster.report_memory")
+    report_time: str = default("cluster.report_time")
 class ReportCfg(_M):
     """What the sweep report pictures (``postproc sweep`` reads it from the manifest)."""
 
@@ -183,6 +196,7 @@ class Config(_M):
     mesh: MeshCfg = MeshCfg()
     domain: DomainCfg = DomainCfg()
     solver: SolverCfg = SolverCfg()
+    cluster: ClusterCfg = ClusterCfg()
     report: ReportCfg = ReportCfg()
     # settings of `postproc analyse` (read by postproc.io.analysis_config; caseprep only carries them)
     analysis: dict[str, Any] | None = None
@@ -214,7 +228,7 @@ class Config(_M):
 _MODELS: dict[str, type[BaseModel]] = {
     "": Config, "study": StudyCfg, "air": AirCfg, "ground": GroundCfg, "body": BodyCfg, "wheels": WheelCfg,
     "variants": VariantCfg, "sweep": SweepCfg, "points": PointCfg, "mesh": MeshCfg, "domain": DomainCfg,
-    "solver": SolverCfg, "report": ReportCfg,
+    "solver": SolverCfg, "cluster": ClusterCfg, "report": ReportCfg,
 }
 
 

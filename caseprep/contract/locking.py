@@ -44,11 +44,17 @@ def _holder(fd: int) -> str:
 
 
 @contextlib.contextmanager
-def sweep_lock(folder: str | os.PathLike, command: str, wait: float | None = None) -> Iterator[Path]:
+def sweep_lock(folder: str | os.PathLike, command: str, wait: float | None = None,
+               shared: bool = False) -> Iterator[Path]:
     """Hold the advisory lock of ``folder`` (created when missing) while the
     ``with`` block runs; ``command`` is recorded for whoever waits. Waits up
     to ``wait`` s (default :data:`WAIT_SECONDS`), then raises UserError
-    naming the holder's pid and command."""
+    naming the holder's pid and command.
+
+    ``shared``: hold it together with other shared holders (commands that
+    work on disjoint parts of the sweep side by side — the batch array's
+    tasks, each holding its own cases' locks as well), never together with
+    an exclusive one."""
     folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)
     path = folder / LOCK_NAME
@@ -63,7 +69,7 @@ def sweep_lock(folder: str | os.PathLike, command: str, wait: float | None = Non
     try:
         while True:
             try:
-                fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+                fcntl.flock(fd, (fcntl.LOCK_SH if shared else fcntl.LOCK_EX) | fcntl.LOCK_NB)
                 break
             except OSError as exc:
                 if exc.errno not in (errno.EWOULDBLOCK, errno.EAGAIN, errno.EACCES):
@@ -76,8 +82,8 @@ def sweep_lock(folder: str | os.PathLike, command: str, wait: float | None = Non
                             "at a time writes to a sweep folder") from None
                 time.sleep(0.1)
         stamp = _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ")
-        os.ftruncate(fd, 0)
-        os.pwrite(fd, f"pid {os.getpid()}, `{command}`, since {stamp}\n".encode(), 0)
+        os.ftruncate(fd, 0)  # a shared holder's note may replace another's: it names one of them
+        os.pwrite(fd, f"pid {os.getpid()}, `{command}`{' (shared)' if shared else ''}, since {stamp}\n".encode(), 0)
         try:
             yield folder
         finally:

@@ -33,7 +33,8 @@ class Status(StrEnum):
     SOLVE_FAILED = "solve-failed"
     EXPORT_FAILED = "export-failed"
     SKIPPED = "skipped"          # all requested stages were done before
-    INTERRUPTED = "interrupted"
+    INTERRUPTED = "interrupted"  # stopped by a signal (or Ctrl-C) before it finished
+    RUNNING = "running"          # a stage has started and not finished (host and pid say where)
     NOT_READY = "not-ready"      # a requested stage needs an earlier one first
     NOT_RUN = "not-run"          # in the run summary: the case never ran
 
@@ -58,11 +59,13 @@ class Flag(StrEnum):
     NOT_RUN = "not-run"
     FORCES_FAILED = "forces-failed"
     FORCES_DRIFTING = "forces-drifting"
+    RESULTS_MISSING = "results-missing"
     # a run that stopped early carries its status as a flag in the results
     SOLVE_FAILED = "solve-failed"
     EXPORT_FAILED = "export-failed"
     NOT_READY = "not-ready"
     INTERRUPTED = "interrupted"
+    RUNNING = "running"
     # files of the case that could not be read (the case's notes say why)
     RECORD_UNREADABLE = "record-unreadable"
     UNREADABLE = "unreadable"
@@ -84,10 +87,14 @@ _MEANING = {
     Flag.NOT_RUN: "the case has not been run (or not to the end): no results",
     Flag.FORCES_FAILED: "the forces could not be computed from the case's export",
     Flag.FORCES_DRIFTING: "the runtime force monitor was still drifting at the end of the run (not settled)",
+    Flag.RESULTS_MISSING: ("no usable post-processing result for the case when the tables were merged (its shard "
+                           "did not run or did not finish, or its result was stale or corrupt): rerun its shard"),
     Flag.SOLVE_FAILED: "the solve stage failed",
     Flag.EXPORT_FAILED: "the export stage failed",
     Flag.NOT_READY: "a requested stage needed an earlier stage that was not done",
     Flag.INTERRUPTED: "the run was interrupted",
+    Flag.RUNNING: ("a stage was running when the results were read (or its runner ended without recording the "
+                   "outcome: the record's host and pid say where it ran)"),
     Flag.RECORD_UNREADABLE: "the case's run record (underfloor-run.json) is unreadable or malformed: its run is unknown",
     Flag.UNREADABLE: "the case's VTK export could not be read (corrupt, truncated or absurd sizes); the notes say why",
 }
@@ -116,7 +123,8 @@ def as_flag(value: str) -> Flag | str:
 @dataclass(frozen=True)
 class StageRun:
     """One stage of one case: ``status`` ``ok``, ``failed``, ``done-before``
-    (marker present, not run again), ``interrupted`` or ``not-run``;
+    (marker present, not run again), ``running`` (started, not finished),
+    ``interrupted`` or ``not-run``;
     ``wall_time`` s (for ``done-before``, the time recorded then, if any)."""
 
     stage: str
@@ -137,6 +145,8 @@ class CaseRunRecord:
     ``layers``: per patch ``{patch, target_layers, layers, coverage,
     thickness_percent}``; ``layer_coverage`` the face-weighted mean coverage.
     ``failed_tool`` and ``log_tail`` describe a failure. Times in s.
+    ``host`` and ``pid``: the machine and the process id of the runner that
+    wrote the record (a ``running`` record names where the stage runs).
     ``numerics``: what the mesh stage chose from the mesh's quality
     (``non_orthogonal_correctors``, ``momentum_relaxation``; from
     ``system/meshNumerics``), None before meshing.
@@ -177,6 +187,8 @@ class CaseRunRecord:
     flags: tuple[Flag | str, ...] = ()
     failed_tool: str | None = None
     log_tail: str = ""
+    host: str = ""
+    pid: int | None = None
 
     @property
     def failed(self) -> bool:

@@ -3,7 +3,9 @@
 Each case folder of a sweep (see the case folder contract in the README) has
 an executable ``run.sh`` with three stages: ``mesh``, ``solve`` and
 ``export``. :func:`run_sweep` calls ``run.sh <stage>`` for each stage of each
-case, ``jobs`` cases at a time, with ``UF_RANKS`` MPI ranks per case, and
+case, ``jobs`` cases at a time, with ``UF_RANKS`` MPI ranks per case (by
+default the throughput rule of :func:`choose_layout`: one serial case per
+core while there are at least as many cases to run as cores), and
 after each case reads the solver's logs (:mod:`caseprep.run.solverlogs`) into a
 :class:`CaseRunRecord` written to ``<case>/underfloor-run.json``; the sweep's
 ``run_summary.json`` collects them.
@@ -15,22 +17,37 @@ whose results it makes stale. A case with all requested stages done is
 
 Failure handling: a stage fails when ``run.sh`` exits non-zero or does not
 leave its marker; the case stops there, its record carries the failing
-tool's log tail, and the other cases go on. Ctrl-C terminates the running
-cases' process groups, records them as ``interrupted`` and raises
-:class:`SweepInterrupted`.
+tool's log tail, and the other cases go on.
+
+Records never claim a result that is being replaced: when a stage starts,
+the case's record is rewritten with status ``running`` (the stage, the host
+and the runner's pid) before ``run.sh`` starts, and the sweep summary with
+it when the case starts.
+
+Stopping: SIGTERM (what a batch scheduler sends) and SIGINT (Ctrl-C) are
+handled alike, whatever the parent process ignored
+(:mod:`caseprep.contract.signals`): no new case or stage starts, the running
+cases' process groups get SIGTERM, then SIGKILL after
+:attr:`RunOptions.kill_grace` seconds (at once on a second signal), each
+unfinished case is recorded ``interrupted``, the summary is rewritten
+(atomically, like every record) and :class:`SweepInterrupted` is raised
+(exit code 143 or 130 in the command). Running again resumes: the stopped
+stage has no marker and runs again.
 
 Units: wall times in seconds; cell counts; residuals are the solver's
 dimensionless normalised residuals. No axes are involved.
 """
 from __future__ import annotations
 
+import contextlib
 import datetime as _dt
 import os
 import shutil
 import signal
+import socket
 import subprocess
 import time
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import Any, Callable, Iterable, Sequence
 
@@ -41,6 +58,8 @@ from caseprep.contract.errors import UserError, did_you_mean
 from caseprep.contract.limits import MAX_RANKS
 from caseprep.contract.locking import refuse_interrupted, sweep_lock
 from caseprep.contract.manifest import MANIFEST_NAME, CaseRecord, read_manifest
+from caseprep.contract.progress import format_duration
+from caseprep.contract.signals import StopSignals, exit_code, signal_name
 from caseprep.contract.records import (RECORD_NAME, RUN_FLAGS, SUMMARY_NAME, SUMMARY_SCHEMA, CaseRunRecord, Flag,
                                        StageRun, Status, effective_status, read_case_record)
 
@@ -61,6 +80,58 @@ def missing_solver_binaries(names: Iterable[str] = SOLVER_BINARIES) -> list[str]
     return [n for n in names if shutil.which(n) is None]
 
 
+def usable_cores() -> int:
+    """Cores this process may run on (its CPU affinity: a batch system's or
+    taskset's limit), at least 1."""
+    try:
+        return max(1, len(os.sched_getaffinity(0)))
+    except (AttributeError, OSError):
+        return max(1, os.cpu_count() or 1)
+
+
+@dataclass(frozen=True)
+class Layout:
+    """How a sweep uses the machine: ``jobs`` cases at a time, ``ranks`` MPI
+    ranks each, and why (``reason``, one line for the user)."""
+
+    jobs: int
+    ranks: int
+    reason: str
+
+
+def choose_layout(pending: int, cores: int, jobs: int | None = None, ranks: int | None = None) -> Layout:
+    """The throughput rule: pack the machine with whole cases first.
+
+    * neither given: with at least as many cases to run as ``cores``, one
+      serial case per core (``jobs = cores``, ``ranks = 1``); with fewer, every
+      case at once and the cores shared out as MPI ranks
+      (``ranks = cores // pending``);
+    * only ``ranks`` given: as many cases as fit, ``jobs = cores // ranks``
+      (at least 1, at most the cases to run);
+    * only ``jobs`` given: ``ranks = cores // min(jobs, pending)`` (at least 1);
+    * both given: as given.
+
+    Why serial cases first: parallel ranks of one case add decomposition and
+    reconstruction, exchange data every iteration and, when another process
+    wants a core, wait on each other; independent cases do none of that
+    (measured in the README, "Throughput").
+    """
+    pending = max(1, int(pending))
+    cores = max(1, int(cores))
+    if jobs is not None and ranks is not None:
+        return Layout(jobs, ranks, f"{jobs} at a time, {ranks} rank(s) each, as asked")
+    if ranks is not None:
+        j = max(1, min(pending, cores // ranks))
+        return Layout(j, ranks, f"{ranks} rank(s) per case as asked: {j} case(s) at a time on {cores} core(s)")
+    if jobs is not None:
+        r = max(1, cores // min(jobs, pending))
+        return Layout(jobs, r, f"{jobs} at a time as asked: {r} rank(s) each on {cores} core(s)")
+    if pending >= cores:
+        return Layout(cores, 1, f"{pending} case(s) to run on {cores} core(s): one serial case per core")
+    r = max(1, cores // pending)
+    return Layout(pending, r, f"{pending} case(s) to run on {cores} core(s): all at once, {r} MPI rank(s) each")
+
+
 @dataclass(frozen=True)
 class RunOptions:
     """Thresholds of the flags and the runner's timing.
@@ -72,7 +143,8 @@ class RunOptions:
     ``tail_lines``: lines of the failing log kept in the record.
     ``heartbeat``: seconds between ``running`` progress events.
     ``poll``: seconds between checks of the running processes.
-    ``kill_grace``: seconds between SIGTERM and SIGKILL on interrupt.
+    ``kill_grace``: seconds between SIGTERM and SIGKILL when stopped (keep it
+    below the scheduler's own grace, e.g. SLURM's KillWait, 30 s by default).
     """
 
     convergence: ConvergenceOptions = DEFAULT_OPTIONS
@@ -85,7 +157,9 @@ class RunOptions:
 
 @dataclass(frozen=True)
 class Progress:
-    """One progress event: ``event`` is ``case-start``, ``stage-start``,
+    """One progress event: ``event`` is ``layout`` (once, first: ``message``
+    says how many cases at a time with how many ranks, and why),
+    ``case-start``, ``stage-start``,
     ``stage-done``, ``stage-failed``, ``running`` (heartbeat), ``case-done``,
     ``skipped`` or ``interrupted``; ``elapsed`` s since the case started,
     ``stage_elapsed`` s since the stage started; ``index`` 1-based among
@@ -103,11 +177,15 @@ class Progress:
 
 
 class SweepInterrupted(Exception):
-    """Ctrl-C during :func:`run_sweep`; ``records`` holds what was recorded."""
+    """A stop signal (SIGTERM, SIGINT/Ctrl-C) during :func:`run_sweep`, after
+    the running cases were stopped and recorded ``interrupted``; ``records``
+    holds what was recorded, ``signum`` the signal, ``exit_code`` 128 + it."""
 
-    def __init__(self, records: list[CaseRunRecord]):
-        super().__init__("interrupted")
+    def __init__(self, records: list[CaseRunRecord], signum: int = signal.SIGINT):
+        super().__init__(f"stopped by {signal_name(signum)}")
         self.records = records
+        self.signum = int(signum)
+        self.exit_code = exit_code(signum)
 
 
 def _utc() -> str:
@@ -250,8 +328,8 @@ def _plan(case_dir: Path, stages: Sequence[str], force: bool) -> tuple[list[str]
 
 def run_sweep(
     sweep_dir: str | os.PathLike,
-    jobs: int = 1,
-    ranks: int = 1,
+    jobs: int | None = None,
+    ranks: int | None = None,
     stages: Sequence[str] | None = None,
     only: Sequence[str] | None = None,
     force: bool = False,
@@ -261,65 +339,55 @@ def run_sweep(
     """Run the cases of the sweep in ``sweep_dir``; returns one record per selected case.
 
     ``jobs`` cases at a time, each with ``ranks`` MPI ranks (``UF_RANKS``);
+    either left None is chosen by :func:`choose_layout` from the cases to
+    run and :func:`usable_cores` (a ``layout`` progress event carries the
+    reason before the first case starts);
     ``stages`` a subset of :data:`STAGES` (default all); ``only`` case ids
     to run (default all in the manifest); ``force`` re-runs stages already
     marked done. ``progress`` is called with :class:`Progress` events from
     the calling thread. Raises :class:`UserError` for a folder that is not a
     sweep, unknown ids or stages, or a case folder without an executable
-    ``run.sh``; raises :class:`SweepInterrupted` on Ctrl-C after stopping
-    the running cases.
+    ``run.sh``; raises :class:`SweepInterrupted` on SIGTERM or SIGINT (from
+    the main thread; elsewhere on KeyboardInterrupt) after stopping and
+    recording the running cases.
     """
     # absolute: run.sh is started with the case folder as working directory
     root = Path(sweep_dir).resolve()
     if not (root / MANIFEST_NAME).is_file():
         read_manifest(root)  # not a sweep: refused before anything is created in the folder
-    with sweep_lock(root, "caseprep run"):  # one command at a time in a sweep folder
+    # One command at a time in a sweep folder; runs of named cases (`--only`, the
+    # batch array's tasks) share the sweep and hold each of their cases alone.
+    shared = bool(only)
+    with sweep_lock(root, "caseprep run", shared=shared):
         refuse_interrupted(root, "caseprep run")
-        return _run_locked(root, read_manifest(root), jobs, ranks, stages, only, force, progress, options)
+        manifest = read_manifest(root)
+        with contextlib.ExitStack() as held:
+            if shared:
+                for c in _selected_cases(root, manifest, only):
+                    held.enter_context(sweep_lock(manifest.case_dir(c), f"caseprep run --only {c.case_id}"))
+            return _run_locked(root, manifest, jobs, ranks, stages, only, force, progress, options)
 
 
-def _run_locked(root: Path, manifest, jobs: int, ranks: int, stages, only, force: bool, progress,
+def _run_locked(root: Path, manifest, jobs: int | None, ranks: int | None, stages, only, force: bool, progress,
                 options: RunOptions) -> list[CaseRunRecord]:
     """:func:`run_sweep` holding the sweep's lock."""
-    if not 1 <= jobs <= MAX_RANKS.value:
-        raise UserError(expected=f"a number of parallel cases from 1 to {int(MAX_RANKS.value)}", got=jobs, key="--jobs",
-                        fix="use -j 1 or more, at most the number of cores")
-    if not 1 <= ranks <= MAX_RANKS.value:
-        raise UserError(expected=f"a number of MPI ranks from 1 to {int(MAX_RANKS.value)}", got=ranks, key="--ranks",
-                        fix="use --ranks 1 or more, at most the number of cores")
+    for value, what, key in ((jobs, "parallel cases", "--jobs"), (ranks, "MPI ranks", "--ranks")):
+        if value is not None and not 1 <= value <= MAX_RANKS.value:
+            raise UserError(expected=f"a number of {what} from 1 to {int(MAX_RANKS.value)}", got=value, key=key,
+                            fix=f"use {key} 1 or more, at most the number of cores")
     stages = _checked_stages(stages)
     selected = _selected_cases(root, manifest, only)
-    env = _environment(ranks)
     emit = progress or (lambda ev: None)
-    total = len(selected)
+    plans = [_plan(manifest.case_dir(c), stages, force) for c in selected]
+    n_pending = sum(1 for to_run, _plan_, why in plans if to_run and not why)
+    layout = choose_layout(n_pending, usable_cores(), jobs, ranks)
+    emit(Progress("", 0, len(selected), "layout", message=layout.reason))
     records: dict[str, CaseRunRecord] = {}
-    pending = _pending_jobs(manifest, selected, stages, force, ranks, options, records, emit)
-    running: list[_Job] = []
-    try:
-        while pending or running:
-            while pending and len(running) < jobs:
-                job = pending.pop(0)
-                job.t0 = time.monotonic()
-                job.started_utc = _utc()
-                running.append(job)  # before starting: an interrupt must find its process
-                emit(Progress(job.rec.case_id, job.index, total, "case-start", message=" ".join(job.to_run)))
-                _start_stage(job, env, emit, total)
-            time.sleep(options.poll)
-            for job in list(running):
-                rec = _poll(job, env, emit, total, ranks, options)
-                if rec is None:
-                    continue
-                running.remove(job)
-                records[job.rec.case_id] = rec
-                _write_record(job.dir, rec)
-                _write_summary(root, manifest, records, ranks)
-                emit(Progress(job.rec.case_id, job.index, total, "case-done", None, rec.wall_time, 0.0,
-                              rec.message, rec))
-    except KeyboardInterrupt:
-        _interrupt(running, records, emit, total, ranks, options)
-        _write_summary(root, manifest, records, ranks)
-        raise SweepInterrupted([records[c.case_id] for c in selected if c.case_id in records]) from None
-    _write_summary(root, manifest, records, ranks)
+    pending = _pending_jobs(manifest, selected, stages, force, layout.ranks, options, records, emit)
+    run = _Run(root, manifest, len(selected), layout.ranks, options, emit, _environment(layout.ranks),
+               socket.gethostname(), os.getpid(), records)
+    with StopSignals() as stop:
+        run.loop(pending, layout.jobs, stop)
     return [records[c.case_id] for c in selected]
 
 
@@ -387,7 +455,7 @@ def _pending_jobs(manifest, selected: list[CaseRecord], stages: list[str], force
             emit(Progress(c.case_id, i, total, "case-done", message=why, record=rec))
         elif not to_run:
             rec = _finish_record(_Job(i, c, cdir, [], plan, prev), Status.SKIPPED, "all requested stages done before",
-                                 ranks, options)
+                                 prev.ranks if prev is not None else ranks, options)
             records[c.case_id] = rec
             emit(Progress(c.case_id, i, total, "skipped", message="done before; use --force to run again", record=rec))
         else:
@@ -395,57 +463,147 @@ def _pending_jobs(manifest, selected: list[CaseRecord], stages: list[str], force
     return pending
 
 
-def _poll(job: _Job, env: dict[str, str], emit, total: int, ranks: int, options: RunOptions) -> CaseRunRecord | None:
-    """Check a running job: a heartbeat while its stage runs, the next stage
-    when it finished, the case's record when it is done or failed (None while
-    it runs on)."""
-    now = time.monotonic()
-    rc = job.proc.poll()
-    if rc is None:
-        if now - job.last_beat >= options.heartbeat:
-            job.last_beat = now
-            emit(Progress(job.rec.case_id, job.index, total, "running", job.stage, now - job.t0, now - job.stage_t0))
-        return None
-    job.out.close()
-    stage = job.stage
-    dt = now - job.stage_t0
-    marker = job.dir / "logs" / f"{stage}.done"
-    if rc == 0 and marker.exists():
-        job.results[stage] = StageRun(stage, "ok", round(dt, 3), rc)
-        emit(Progress(job.rec.case_id, job.index, total, "stage-done", stage, now - job.t0, dt))
-        if job.to_run:
-            _start_stage(job, env, emit, total)
-            return None
-        return _finish_record(job, Status.OK, "", ranks, options)
-    job.results[stage] = StageRun(stage, "failed", round(dt, 3), rc)
-    tool, log = _failing_tool(job.dir, stage, job.stage_wall0)
-    out_log = job.dir / "logs" / f"underfloor-{stage}.out"
-    if rc == 0:
-        why = f"run.sh {stage} exited 0 but did not leave logs/{stage}.done"
-    else:
-        err = sl.fatal_error(_read(log) or "") if log else None
-        why = f"{tool or 'run.sh'} failed (exit {rc})" + (f": {err}" if err else "")
-    tail = _tail(log, options.tail_lines) if log else ""
-    out_tail = _tail(out_log, 8)
-    if out_tail:
-        tail = (tail + "\n--- run.sh output ---\n" if tail else "") + out_tail
-    emit(Progress(job.rec.case_id, job.index, total, "stage-failed", stage, now - job.t0, dt, why))
-    return _finish_record(job, FAILED_STATUS[stage], why, ranks, options, failed_tool=tool, log_tail=tail)
+class _Run:
+    """The scheduling loop of one :func:`run_sweep` call and what it records."""
 
+    def __init__(self, root: Path, manifest, total: int, ranks: int, options: RunOptions, emit, env: dict[str, str],
+                 host: str, pid: int, records: dict[str, CaseRunRecord]):
+        self.root, self.manifest, self.total, self.ranks = root, manifest, total, ranks
+        self.options, self.emit, self.env, self.host, self.pid = options, emit, env, host, pid
+        self.records = records
+        self.running: list[_Job] = []
 
-def _interrupt(running: list[_Job], records: dict[str, CaseRunRecord], emit, total: int, ranks: int,
-               options: RunOptions) -> None:
-    """Ctrl-C: stop the running cases and record them as interrupted."""
-    _stop(running, options.kill_grace)
-    now = time.monotonic()
-    for job in running:
-        if job.stage is None or job.proc is None:
-            continue
-        job.results[job.stage] = StageRun(job.stage, "interrupted", round(now - job.stage_t0, 3), None)
-        rec = _finish_record(job, Status.INTERRUPTED, f"interrupted during {job.stage}", ranks, options)
-        records[job.rec.case_id] = rec
+    def loop(self, pending: list[_Job], jobs: int, stop: StopSignals) -> None:
+        """Start cases while fewer than ``jobs`` run, follow them to the end;
+        on a stop signal (or Ctrl-C) stop them and raise SweepInterrupted."""
+        try:
+            while (pending or self.running) and not stop.requested:
+                while pending and len(self.running) < jobs and not stop.requested:
+                    job = pending.pop(0)
+                    job.t0 = time.monotonic()
+                    job.started_utc = _utc()
+                    self.running.append(job)  # before starting: a stop must find its process
+                    self.emit(Progress(job.rec.case_id, job.index, self.total, "case-start",
+                                       message=" ".join(job.to_run)))
+                    self.start_stage(job, summary=True)
+                time.sleep(self.options.poll)
+                if stop.requested:  # what ended meanwhile may have ended by the same signal
+                    break
+                now = time.monotonic()
+                for job in list(self.running):
+                    if job.proc is None:
+                        continue
+                    rc = job.proc.poll()
+                    if rc is None:
+                        if now - job.last_beat >= self.options.heartbeat:
+                            job.last_beat = now
+                            self.emit(Progress(job.rec.case_id, job.index, self.total, "running", job.stage,
+                                               now - job.t0, now - job.stage_t0))
+                        continue
+                    self.stage_ended(job, rc, now, stop)
+        except KeyboardInterrupt:  # only outside the main thread, where no handler is installed
+            stop.note_keyboard_interrupt()
+        if stop.requested:
+            self.interrupt(stop)
+
+    def start_stage(self, job: _Job, summary: bool = False) -> None:
+        """Mark the case ``running`` on disk (record, and the summary when
+        ``summary``), then start its next stage."""
+        stage = job.to_run[0]
+        rec = self.running_record(job, stage)
+        self.records[job.rec.case_id] = rec
         _write_record(job.dir, rec)
-        emit(Progress(job.rec.case_id, job.index, total, "interrupted", job.stage, now - job.t0))
+        if summary:
+            _write_summary(self.root, self.manifest, self.records, self.ranks)
+        _start_stage(job, self.env, self.emit, self.total)
+
+    def running_record(self, job: _Job, stage: str) -> CaseRunRecord:
+        """The record while ``stage`` runs: no result of the stages being redone."""
+        stages = []
+        for s in STAGES:
+            if s in job.results:
+                stages.append(job.results[s])
+            elif s == stage:
+                stages.append(StageRun(s, "running"))
+            elif job.plan.get(s) == "done-before" and STAGES.index(s) < STAGES.index(stage):
+                stages.append(StageRun(s, "done-before", job.previous.stage_time(s) if job.previous else None))
+            else:
+                stages.append(StageRun(s, "not-run"))
+        return CaseRunRecord(case_id=job.rec.case_id, folder=job.rec.folder, status=Status.RUNNING,
+                             message=f"{stage} running on {self.host} (runner pid {self.pid})", ranks=self.ranks,
+                             stages=tuple(stages), started_utc=job.started_utc, host=self.host, pid=self.pid)
+
+    def stage_ended(self, job: _Job, rc: int, now: float, stop: StopSignals) -> None:
+        job.out.close()
+        job.out = None
+        stage = job.stage
+        dt = now - job.stage_t0
+        marker = job.dir / "logs" / f"{stage}.done"
+        case, idx, total = job.rec.case_id, job.index, self.total
+        if rc == 0 and marker.exists():
+            job.results[stage] = StageRun(stage, "ok", round(dt, 3), rc)
+            job.proc = None
+            self.emit(Progress(case, idx, total, "stage-done", stage, now - job.t0, dt))
+            if job.to_run:
+                if not stop.requested:
+                    self.start_stage(job)
+                return  # on a stop, recorded as interrupted before its next stage
+            rec = _finish_record(job, Status.OK, "", self.ranks, self.options)
+        else:
+            if not stop.requested and _killed_by_signal(rc):
+                # a scheduler signals every process of the job at once: the
+                # case's processes may end before our own handler has run
+                _await_stop(stop, STOP_SIGNAL_WAIT)
+            if stop.requested:
+                return  # ended by the stop signal: recorded interrupted, not failed
+            job.results[stage] = StageRun(stage, "failed", round(dt, 3), rc)
+            tool, log = _failing_tool(job.dir, stage, job.stage_wall0)
+            out_log = job.dir / "logs" / f"underfloor-{stage}.out"
+            if rc == 0:
+                why = f"run.sh {stage} exited 0 but did not leave logs/{stage}.done"
+            else:
+                err = sl.fatal_error(_read(log) or "") if log else None
+                why = f"{tool or 'run.sh'} failed (exit {rc})" + (f": {err}" if err else "")
+            tail = _tail(log, self.options.tail_lines) if log else ""
+            out_tail = _tail(out_log, 8)
+            if out_tail:
+                tail = (tail + "\n--- run.sh output ---\n" if tail else "") + out_tail
+            self.emit(Progress(case, idx, total, "stage-failed", stage, now - job.t0, dt, why))
+            rec = _finish_record(job, FAILED_STATUS[stage], why, self.ranks, self.options, failed_tool=tool,
+                                 log_tail=tail)
+        self.running.remove(job)
+        self.finish(job, rec)
+        self.emit(Progress(case, idx, total, "case-done", None, rec.wall_time, 0.0, rec.message, rec))
+
+    def finish(self, job: _Job, rec: CaseRunRecord, summary: bool = True) -> None:
+        rec = replace(rec, host=self.host, pid=self.pid)
+        self.records[job.rec.case_id] = rec
+        _write_record(job.dir, rec)
+        if summary:
+            _write_summary(self.root, self.manifest, self.records, self.ranks)
+
+    def interrupt(self, stop: StopSignals) -> None:
+        """Stop the running cases, record each as ``interrupted``, write the
+        summary, raise :class:`SweepInterrupted`."""
+        _stop(self.running, self.options.kill_grace, stop)
+        now = time.monotonic()
+        why = f"stopped by {signal_name(stop.signum)}"
+        for job in self.running:
+            if job.stage is None:
+                continue
+            if job.stage in job.results:  # its last stage finished; the next one was not started
+                nxt = job.to_run[0] if job.to_run else "the next stage"
+                msg = f"{why} before {nxt}"
+            else:
+                job.results[job.stage] = StageRun(job.stage, "interrupted", round(now - job.stage_t0, 3), None)
+                msg = f"{why} during {job.stage}"
+            rec = _finish_record(job, Status.INTERRUPTED, msg, self.ranks, self.options)
+            self.finish(job, rec, summary=False)
+            self.emit(Progress(job.rec.case_id, job.index, self.total, "interrupted", job.stage, now - job.t0,
+                               message=msg))
+        _write_summary(self.root, self.manifest, self.records, self.ranks)
+        order = [c.case_id for c in self.manifest.cases]
+        raise SweepInterrupted([self.records[c] for c in order if c in self.records], stop.signum)
 
 
 def _start_stage(job: _Job, env: dict[str, str], emit, total: int) -> None:
@@ -458,6 +616,8 @@ def _start_stage(job: _Job, env: dict[str, str], emit, total: int) -> None:
                 os.unlink(f"{later}.done", dir_fd=dfd)
             except FileNotFoundError:
                 pass
+            if job.plan.get(later) == "done-before":
+                job.plan[later] = "not-run"
         fd = os.open(f"underfloor-{stage}.out", os.O_WRONLY | os.O_CREAT | os.O_TRUNC | os.O_NOFOLLOW, 0o644, dir_fd=dfd)
     finally:
         os.close(dfd)
@@ -471,31 +631,69 @@ def _start_stage(job: _Job, env: dict[str, str], emit, total: int) -> None:
     emit(Progress(job.rec.case_id, job.index, total, "stage-start", stage, job.stage_t0 - job.t0))
 
 
-def _stop(running: list[_Job], grace: float) -> None:
-    """SIGTERM the running cases' process groups, then SIGKILL after ``grace`` s."""
-    for job in running:
-        if job.proc and job.proc.poll() is None:
-            try:
-                os.killpg(job.proc.pid, signal.SIGTERM)
-            except ProcessLookupError:
-                pass
+#: Seconds a stage that ended by a stop signal waits for the runner's own
+#: signal before it counts as failed.
+STOP_SIGNAL_WAIT = 2.0
+_STOP_SIGNALS = (signal.SIGTERM, signal.SIGINT, signal.SIGKILL, signal.SIGHUP)
+
+
+def _killed_by_signal(rc: int | None) -> bool:
+    """Whether an exit status says "ended by a stop signal": -N from Python
+    for a direct child, 128 + N from a shell whose child was."""
+    if rc is None:
+        return False
+    return (rc < 0 and -rc in _STOP_SIGNALS) or (rc > 128 and rc - 128 in _STOP_SIGNALS)
+
+
+def _await_stop(stop: StopSignals, seconds: float) -> None:
+    deadline = time.monotonic() + seconds
+    while not stop.requested and time.monotonic() < deadline:
+        time.sleep(0.05)
+
+
+def _stop(running: list[_Job], grace: float, stop: StopSignals | None = None) -> None:
+    """SIGTERM the running cases' process groups (run.sh, the tools, the MPI
+    ranks), wait until every process of them has ended, SIGKILL what is left
+    after ``grace`` s (at once on a second stop signal)."""
+    live = [j for j in running if j.proc is not None and _group_alive(j.proc)]
+    for job in live:
+        _signal_group(job.proc, signal.SIGTERM)
+    seen = stop.count if stop is not None else 0
     deadline = time.monotonic() + grace
+    try:
+        while live and time.monotonic() < deadline and (stop is None or stop.count == seen):
+            time.sleep(0.05)
+            live = [j for j in live if _group_alive(j.proc)]
+    except KeyboardInterrupt:  # a second Ctrl-C outside the main thread: no more grace
+        pass
+    for job in live:
+        _signal_group(job.proc, signal.SIGKILL)
     for job in running:
-        if not job.proc:
-            continue
-        try:
-            job.proc.wait(timeout=max(0.0, deadline - time.monotonic()))
-        except subprocess.TimeoutExpired:
-            try:
-                os.killpg(job.proc.pid, signal.SIGKILL)
-            except ProcessLookupError:
-                pass
-            job.proc.wait()
-        except KeyboardInterrupt:  # a second Ctrl-C: no more grace
-            os.killpg(job.proc.pid, signal.SIGKILL)
+        if job.proc is not None:
             job.proc.wait()
         if job.out:
             job.out.close()
+            job.out = None
+
+
+def _group_alive(proc: subprocess.Popen) -> bool:
+    """Whether any process of the group that ``proc`` leads still exists
+    (the leader is reaped first, so a finished leader does not count)."""
+    proc.poll()
+    try:
+        os.killpg(proc.pid, 0)
+    except ProcessLookupError:
+        return False
+    except PermissionError:
+        return True
+    return True
+
+
+def _signal_group(proc: subprocess.Popen, sig: int) -> None:
+    try:
+        os.killpg(proc.pid, sig)
+    except (ProcessLookupError, PermissionError):
+        pass
 
 
 def _finish_record(job: _Job, status: str, message: str, ranks: int, options: RunOptions,
@@ -546,16 +744,6 @@ def _write_summary(root: Path, manifest, records: dict[str, CaseRunRecord], rank
         "schema": SUMMARY_SCHEMA, "schema_version": 1, "written_utc": _utc(), "ranks": ranks,
         "counts": counts, "flag_meanings": {f: f.meaning for f in RUN_FLAGS}, "cases": rows,
     })
-
-
-def format_duration(t: float | None) -> str:
-    if t is None:
-        return "-"
-    t = float(t)
-    if t < 60:
-        return f"{t:.1f}s"
-    m, sec = divmod(int(round(t)), 60)
-    return f"{m}m{sec:02d}s" if m < 60 else f"{m // 60}h{m % 60:02d}m"
 
 
 def summary_row(rec: CaseRunRecord) -> dict[str, str]:

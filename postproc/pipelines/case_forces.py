@@ -186,7 +186,8 @@ def _reference_values(ref, opt: ForcesOptions) -> co.ReferenceValues | None:
     return co.ReferenceValues(**kw) if "area" in kw and "length" in kw and "speed" in kw else None
 
 
-def forces_report(target: str, options: ForcesOptions = ForcesOptions()) -> ForcesReport:
+def forces_report(target: str, options: ForcesOptions = ForcesOptions(),
+                  surface: SurfaceMesh | None = None) -> ForcesReport:
     """Read, integrate and reduce one surface file or case folder
     (``target``) as ``options`` say; returns the :class:`ForcesReport`.
     Raises UserError on bad input.
@@ -194,13 +195,20 @@ def forces_report(target: str, options: ForcesOptions = ForcesOptions()) -> Forc
     The runtime force monitor of a case folder is judged by the one
     convergence rule (:func:`caseprep.contract.convergence.assess_force_monitor`
     with ``options.convergence`` over ``options.window`` samples, default its
-    settling window), as the runner and the sweep judge it."""
+    settling window), as the runner and the sweep judge it.
+
+    ``surface``: the patches already read from ``target``'s export (with the
+    pressure and shear arrays), so that a caller needing other arrays of the
+    same faces reads the file once; None: read here."""
     src = _locate(target, tuple(options.patches))
     record = src.record
     ref = record.reference if record is not None else None
     opt = options
     wanted = [opt.pressure_field] + ([] if opt.no_shear else [opt.shear_field])
-    surf = read_surface(src.vtk_file, list(src.patches) or None, arrays=wanted)  # only the arrays used
+    if surface is not None:
+        surf = surface
+    else:
+        surf = read_surface(src.vtk_file, list(src.patches) or None, arrays=wanted)  # only the arrays used
     rho = opt.rho if opt.rho is not None or ref is None else ref.rho
     if opt.kinematic and rho is None:
         raise UserError(expected="a density for kinematic pressure (p/ρ, m²/s²)", got="none", key="--rho",

@@ -131,12 +131,12 @@ def bench_case(cells: int) -> None:
 
 
 def bench_sweep(sweep: Path) -> None:
-    from postproc.pipelines.sweep import postprocess_sweep
+    from postproc.pipelines.sweep import SweepOptions, postprocess_sweep
     from postproc.report import RenderInfo, write_report
 
     with tempfile.TemporaryDirectory() as d:
         t0, c0 = time.perf_counter(), time.process_time()
-        analysis = postprocess_sweep(sweep, d, force=True)
+        analysis = postprocess_sweep(sweep, SweepOptions(out_dir=d, force=True))
         t_post = time.perf_counter() - t0
         info = RenderInfo()
         write_report(analysis, Path(d) / "report.html", info=info)

@@ -529,8 +529,6 @@ def context(spec: CaseSpec) -> dict[str, Any]:
     m = spec.mesh
     for r in m.regions:
         _check_box(r.box, "refinement region")
-        if r.split_box is not None:
-            _check_box(r.split_box, "refinement region")
     sv = spec.solver
     if sv.n_procs < 1 or int(np.prod(sv.split)) != sv.n_procs:
         raise ValueError(f"solver.split {sv.split} does not multiply to n_procs {sv.n_procs}")
@@ -574,8 +572,7 @@ def context(spec: CaseSpec) -> dict[str, Any]:
         "surface_max": m.surface_levels[1],
         "feature_level": m.feature_level,
         "feature_angle": foamdict.fmt_scalar(m.feature_angle_deg),
-        "regions": [dict(_box_dict(r.box), level=int(r.level), z_splits=int(r.z_splits),
-                         split=_box_dict(r.split_box if r.split_box is not None else r.box)) for r in m.regions],
+        "regions": [dict(_box_dict(r.box), level=int(r.level), z_splits=int(r.z_splits)) for r in m.regions],
         "location_in_mesh": foamdict.fmt_vector(m.location_in_mesh),
         "layers": layers,
         "layer_patches": layered,

@@ -328,8 +328,6 @@ class _Slab:
     clearance: float    # smallest underside height above the ground in the slab (m)
     top: float          # 95th percentile of the underside height in the slab (m)
     fluid_volume: float  # m³ above the ground and below the underside, inside the box
-    inboard: tuple[float, float]  # t-range of the flat cells: the covered cells less the edge (m)
-    inboard_share: float  # share of the fluid volume between the inboard bounds
 
 
 def underbody_slabs(underside: Underside, placement: Placement, margin: float, n_slabs: int = UNDERBODY_SLABS) -> tuple[
@@ -338,14 +336,10 @@ def underbody_slabs(underside: Underside, placement: Placement, margin: float, n
     ground, in the axle axes (x_A along the body on the ground, z_A the
     ground normal; :func:`caseprep.contract.frames.axle_axes`). The body's
     length is cut into ``n_slabs`` equal slabs; each reaches from ``margin``
-    (m) below the ground to the 95th percentile of the underside height over
-    the slab plus ``2 margin`` (the few highest cells at the body's rounded
-    sides are left out), and sideways over the slab's covered cells ±
-    ``margin``; its inboard part, four margins inside the covered cells on
-    each side, is where the cells are split along the floor normal (flat
-    cells snapped onto the floor's rounded side edges gave boundary faces of
-    skewness up to 6 on the demo floor). Returns (slabs, axes rows x_A, y_A,
-    z_A, ground point)."""
+    (m) below the ground to the highest underside point inboard of the
+    body's rounded side edges (a tenth of the span in from each side) plus
+    ``2 margin``, and sideways over the slab's covered cells ±
+    ``margin``. Returns (slabs, axes rows x_A, y_A, z_A, ground point)."""
     xA, yA, zA, g0 = axle_axes(placement)
     axes = np.vstack([xA, yA, zA])
     pts = underside.points()
@@ -358,21 +352,18 @@ def underbody_slabs(underside: Underside, placement: Placement, margin: float, n
         sel = (q[:, 0] >= edges[i]) & (q[:, 0] <= edges[i + 1]) if i == n_slabs - 1 else (q[:, 0] >= edges[i]) & (q[:, 0] < edges[i + 1])
         if not np.any(sel):
             continue
-        top95 = float(np.percentile(h[sel], 95.0))
-        top = top95 + 2.0 * margin
         t0, t1 = float(q[sel, 1].min()) - 0.5 * underside.dy - margin, float(q[sel, 1].max()) + 0.5 * underside.dy + margin
+        # the highest point of the floor, tunnels and diffuser in the slab: the underside inboard of the body's
+        # rounded side edges (a tenth of the span in from each side), two margins above it
+        span = t1 - t0
+        inner = sel & (q[:, 1] >= t0 + 0.1 * span) & (q[:, 1] <= t1 - 0.1 * span)
+        top95 = float(np.max(h[inner])) if np.any(inner) else float(np.percentile(h[sel], 95.0))
+        top = top95 + 2.0 * margin
         a0 = edges[i] - (margin if i == 0 else 0.0)
         a1 = edges[i + 1] + (margin if i == n_slabs - 1 else 0.0)
         covered = float(np.count_nonzero(sel)) * underside.cell_area
-        col = np.clip(h[sel], 0.0, top) * underside.cell_area
-        vol = float(col.sum()) + max((a1 - a0) * (t1 - t0) - covered, 0.0) * top
-        # inboard: the covered span less four margins (gap cells) each side, so the floor's rounded side edges stay
-        # in isotropic cells
-        i0, i1 = t0 + 5.0 * margin, t1 - 5.0 * margin
-        ins = (q[sel, 1] >= i0) & (q[sel, 1] <= i1)
-        share = float(col[ins].sum() / col.sum()) if col.sum() > 0 and i1 > i0 else 0.0
-        slabs.append(_Slab(np.array([a0, t0, -margin]), np.array([a1, t1, top]), float(h[sel].min()), top95, vol,
-                           (float(i0), float(i1)), share))
+        vol = float(np.clip(h[sel], 0.0, top).sum()) * underside.cell_area + max((a1 - a0) * (t1 - t0) - covered, 0.0) * top
+        slabs.append(_Slab(np.array([a0, t0, -margin]), np.array([a1, t1, top]), float(h[sel].min()), top95, vol))
     return slabs, axes, g0
 
 
@@ -533,12 +524,13 @@ def _underbody(body: BodyExtent, lo, hi, placement: Placement, axes, g0, setting
     if slabs:  # boxes again with a margin of one gap cell (level 0: the same boxes at every mesh level)
         dg0 = base0 / 2**gp.level
         slabs, sax, sg0 = underbody_slabs(body.underside, placement, dg0)
-        for i, (sl, k) in enumerate(zip(slabs, gp.z_splits)):
-            inb = _box(f"underbody{i}_z", sg0, sax, np.array([sl.lo[0], sl.inboard[0], sl.lo[2]]),
-                       np.array([sl.hi[0], sl.inboard[1], sl.hi[2]])) if sl.inboard[1] > sl.inboard[0] else None
-            regions.append(RefinementRegion(_box(f"underbody{i}", sg0, sax, sl.lo, sl.hi), gp.level,
-                                            int(k) if inb is not None else 0, fluid_volume=sl.fluid_volume,
-                                            split_box=inb, split_fraction=sl.inboard_share if inb is not None else 0.0))
+        # one split count under the whole body: a change of the count (or the end of the split cells) where
+        # the floor or the diffuser meets the cells leaves wall faces of skewness up to 6 (measured on the demo
+        # floor's diffuser14 at coarse), so the flat cells end only off the body, in the fluid around the slabs
+        k = max(gp.z_splits)
+        for i, sl in enumerate(slabs):
+            regions.append(RefinementRegion(_box(f"underbody{i}", sg0, sax, sl.lo, sl.hi), gp.level, int(k),
+                                            fluid_volume=sl.fluid_volume))
         # behind the diffuser: from a quarter length ahead of the tail to one length behind it,
         # up to 1.25 × the exit height (the last slab's underside) and two cells of its level
         tail = max(sl.hi[0] for sl in slabs)
@@ -552,8 +544,8 @@ def _underbody(body: BodyExtent, lo, hi, placement: Placement, axes, g0, setting
         regions.append(RefinementRegion(_box("underbody", g0, axes, np.array([lo[0] - margin, lo[1] - margin, -margin]),
                                              np.array([hi[0] + margin, hi[1] + margin, top])), gp.level, max(gp.z_splits)))
     info = {"reference_clearance": c_ref, "gap_level": gp.level, "gap_cell": base0 / 2**gp.level / scale,
-            "z_splits": list(gp.z_splits), "gap_cells_reference": round(gp.cells_across, 2),
-            "gap_cells_min": round(gp.cells_min, 2)}
+            "z_splits": max(gp.z_splits), "z_splits_needed_per_slab": list(gp.z_splits),
+            "gap_cells_reference": round(gp.cells_across, 2), "gap_cells_min": round(gp.cells_min, 2)}
     if body.min_clearance < c_ref and gp.cells_min < settings.gap_cells - 1.0:  # more than a cell short
         warnings.append(f"the smallest clearance ({body.min_clearance * 1e3:.3f} mm) is below the reference clearance "
                         f"({c_ref * 1e3:.3f} mm): {gp.cells_min:.1f} cells across it")
@@ -757,10 +749,9 @@ def plan_empty_section(*, placement: Placement, length: float, width: float, hei
 def estimate_cells(domain: Domain, mesh: MeshSpec, body_area: float, ground_layer_area: float | None = None) -> int:
     """Rough cell count (±50 %) of the finished mesh.
 
-    Background n1·n2·n3; each refinement region adds V (s/Δ_r³ − 1/Δ_c³),
+    Background n1·n2·n3; each refinement region adds V (2ᶻ/Δ_r³ − 1/Δ_c³),
     V its fluid volume (or its box volume), Δ_r = base_cell/2^level its cell,
-    s = 1 + f (2ᶻ − 1) for z splits along the floor normal over the share f
-    of its volume in its split box, and Δ_c the cell of the next coarser
+    z its splits along the floor normal and Δ_c the cell of the next coarser
     level present (regions of one level are taken as disjoint, regions of
     different levels as nested); the body surface adds three cells thick of
     the finest surface cells, A/Δ_s² × 3, and each prism layer A/Δ_s²; with
@@ -775,8 +766,7 @@ def estimate_cells(domain: Domain, mesh: MeshSpec, body_area: float, ground_laye
     for r in mesh.regions:
         dr = d0 / 2**r.level
         V = float(np.prod(r.box.lengths)) if r.fluid_volume is None else float(r.fluid_volume)
-        split = 1.0 + r.split_fraction * (2**r.z_splits - 1)  # the split part of the volume has 2^z times the cells
-        total += max(V * (split / dr**3 - 1.0 / coarser[r.level]**3), 0.0)
+        total += max(V * (2**r.z_splits / dr**3 - 1.0 / coarser[r.level]**3), 0.0)
     ds = d0 / 2**mesh.surface_levels[1]
     surf = body_area / ds**2
     total += 3.0 * surf

@@ -56,17 +56,14 @@ class RefinementRegion:
     """A volume refinement region: cells inside ``box`` refined to ``level``
     (level n = base cell size / 2**n), then split ``z_splits`` more times
     along the mesh frame's z axis (the floor normal: flat cells of
-    base/2**level × base/2**level × base/2**(level + z_splits)) inside
-    ``split_box`` (None: ``box``). ``fluid_volume`` (m³, None: the box
-    volume) is the part of the box the flow occupies and ``split_fraction``
-    the share of it inside the split box, for the cell estimate."""
+    base/2**level × base/2**level × base/2**(level + z_splits)).
+    ``fluid_volume`` (m³, None: the box volume) is the part of the box the
+    flow occupies, for the cell estimate."""
 
     box: OrientedBox
     level: int
     z_splits: int = 0
     fluid_volume: float | None = None
-    split_box: OrientedBox | None = None
-    split_fraction: float = 1.0
 
 
 @dataclass(frozen=True)

@@ -4,6 +4,7 @@ the planner, the writer, caseprep plan --json)."""
 from __future__ import annotations
 
 import json
+import re
 import shutil
 from pathlib import Path
 
@@ -247,3 +248,26 @@ def test_wheel_centre_inside_the_body_is_refused(tmp_path):
     p.write_text(p.read_text().replace("centre = [0.22, -0.3, 0.05]", "centre = [0.6, 0.0, 0.05]", 1))
     msgs = _problems(p)
     assert any("body.wheels[0].centre" in m and "inside the body" in m for m in msgs), msgs
+
+
+@pytest.mark.solver
+def test_wheels_on_the_ground_mesh(tmp_path):
+    # the flattened contact meshes: the example's flat floor on four cylinder wheels at smoke fidelity, the mesher and
+    # the mesh checker of the solver package (a tangent contact would leave a zero-angle wedge of fluid)
+    from caseprep.run import runner
+
+    cfg = config(tmp_path, ride_heights=(0.02,), pitch=(-0.6,), yaws=(0.0,))
+    cases = plan(load_config(cfg))
+    write_sweep(cases, tmp_path / "sweep", cfg)
+    (rec,) = runner.run_sweep(tmp_path / "sweep", stages=["mesh"])
+    assert rec.status == "ok" and rec.mesh_ok, (rec.status, rec.mesh_ok, rec.log_tail)
+    assert "mesh-checks-failed" not in rec.flags and "mesh-illegal-faces" not in rec.flags
+    boundary = (tmp_path / "sweep" / man_folder(tmp_path / "sweep") / "constant" / "polyMesh" / "boundary").read_text()
+    for name, _, _ in WHEELS:
+        # every wheel is a patch of the mesh with faces on it
+        m = re.search(rf"\b{name}\s*\{{[^}}]*nFaces\s+(\d+);", boundary)
+        assert m and int(m.group(1)) > 100, name
+
+
+def man_folder(sweep: Path) -> str:
+    return read_manifest(sweep).cases[0].folder

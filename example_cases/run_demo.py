@@ -38,7 +38,7 @@ from caseprep.contract.errors import UserError  # noqa: E402
 from caseprep.contract.manifest import read_manifest  # noqa: E402
 from caseprep.contract.records import SUMMARY_NAME  # noqa: E402
 from postproc.pipelines.sweep import postprocess_sweep  # noqa: E402
-from postproc.report import write_report  # noqa: E402
+from postproc.report import RenderInfo, write_report  # noqa: E402
 
 DEFAULT_CONFIG = HERE / "floor_study" / "sweep.toml"
 SAFETY = ("CFD is an approximation: the numbers depend on the mesh, the turbulence model and the set-up. "
@@ -142,7 +142,8 @@ def main(argv: list[str] | None = None) -> int:
         analysis = postprocess_sweep(sweep_dir, out_dir=out, force=True, progress=post_progress,
                                      title="underfloor demo — example floor study (DEMO data, smoke meshes)")
         paths = analysis.paths
-        _, info = write_report(analysis, paths["report"])
+        info = RenderInfo()
+        write_report(analysis, paths["report"], info=info)
         t_post = time.monotonic() - t_post
     except UserError as exc:
         return _stop(str(exc), 2)

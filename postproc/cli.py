@@ -64,6 +64,11 @@ def _table(r: dict) -> str:
     cv = r.get("convergence")
     if cv:
         lines.append(f"convergence of the runtime monitor (last {cv['window']} samples): {cv['verdict']}")
+    cc = r.get("coefficient_convergence")
+    if cc:
+        worst = ", ".join(f"{k} {s['mean']:.4f} ± {s['std']:.4f} (drift {s['drift']:+.4f}, tol {s['tolerance']:g})"
+                          for k, s in cc["series"].items() if s["verdict"] != "converged")
+        lines.append(f"in coefficient counts (window means ± std): {cc['verdict']}" + (f": {worst}" if worst else ""))
     for n in r.get("notes", []) + ((b or {}).get("notes", []) if b else []):
         lines.append(f"note: {n}")
     return "\n".join(lines)
@@ -129,20 +134,24 @@ def forces_cmd(target, patches, rho, kinematic, normals, shear_on, p_ref, about,
 @click.option("--no-pictures", is_flag=True, help="No flow pictures (very large sweeps; flow numbers still computed).")
 @click.option("--force", is_flag=True, help="Replace earlier results in the output folder.")
 @click.option("-q", "--quiet", is_flag=True, help="No per-case progress lines.")
+@click.option("-c", "--config", "config", type=click.Path(dir_okay=False),
+              help="Analysis settings for analysis.json (default: ANALYSIS.toml in the sweep folder, else the "
+                   "sweep config's [analysis] table, else built-in defaults).")
 def sweep_cmd(sweep_dir: str, out_dir: str | None, title: str | None, baseline: str | None,
               picture_ride_height: float | None, picture_yaw: float | None, no_pictures: bool, force: bool,
-              quiet: bool) -> None:
+              quiet: bool, config: str | None) -> None:
     """Post-process every case of SWEEP_DIR (written by `caseprep write`, run
     by `caseprep run`): forces, coefficients, aero balance, convergence, the
     runner's flags and each case's flow numbers → results table, variant
-    ranking and a self-contained HTML report with flow pictures and plots.
+    ranking, analysis.json (as `postproc analyse`) and a self-contained HTML
+    report with flow pictures and plots.
 
     Flagged cases (mesh failed, layers collapsed, not converged, not run…)
     are listed and never ranked.
     """
     from postproc.pipelines.report_data import ReportOptions
     from postproc.pipelines.sweep import postprocess_sweep
-    from postproc.report import write_report
+    from postproc.report import RenderInfo, write_report
 
     def progress(i, n, o):
         if quiet:
@@ -153,14 +162,78 @@ def sweep_cmd(sweep_dir: str, out_dir: str | None, title: str | None, baseline: 
 
     opts = ReportOptions(title=title, baseline=baseline, reference_ride_height=picture_ride_height,
                          reference_yaw_deg=picture_yaw, pictures=not no_pictures)
-    analysis = postprocess_sweep(sweep_dir, out_dir, title=title, progress=progress, force=force, options=opts)
+    analysis = postprocess_sweep(sweep_dir, out_dir, title=title, progress=progress, force=force, options=opts,
+                                 analysis_config=config)
     outcomes, paths = analysis.outcomes, analysis.paths
-    _, info = write_report(analysis, paths["report"])
+    info = RenderInfo()
+    write_report(analysis, paths["report"], info=info)
     n_flag = sum(bool(o.result.flags) for o in outcomes)
     click.echo(f"{len(outcomes)} case(s), {n_flag} flagged (not ranked).")
     click.echo(f"results: {paths['csv']}, {paths['json']}; report: {paths['report']} ({info.size / 1e6:.2f} MB)")
+    if analysis.analysis is not None:
+        dec = analysis.analysis["ranking"]["decision"]
+        click.echo(f"analysis: {paths['analysis']} (decision: {dec['status']}: {dec['message']})")
+    for n in analysis.notes:
+        if n.startswith("analysis.json not written"):
+            click.echo(n)
     click.echo("Caution: CFD is an approximation — validate by physical test; run vehicles only where permitted "
                "and safe; defer to local rules and qualified engineers.")
+
+
+# --------------------------------------------------------------------------- analyse
+
+def _print_analysis(d: dict, path) -> None:
+    def f(x, nd=4):
+        return "—" if x is None else f"{x:.{nd}g}"
+    r = d["ranking"]
+    dec = r["decision"]
+    click.echo(f"source: {d['source']['path']} ({d['source']['rows']} rows, {d['source']['usable_rows']} usable); "
+               f"basis: {r['basis']}; {len(r['common_points'])} of {len(r['envelope'])} points common to all variants")
+    click.echo(f"decision: {dec['status']}: {dec['message']}")
+    for v in r["variants"]:
+        click.echo(f"  {v['rank'] or '-'}. {v['variant']}: score {f(v['score'], 3)} ± {f(v['score_uncertainty'], 2)}"
+                   f"{'' if v['complete'] else '  INCOMPLETE'}{'' if v['eligible'] else '  violates a constraint'}"
+                   + (f"  tie with {', '.join(v['tie_with'])}" if v["tie_with"] else ""))
+    for m in d["maps"]:
+        c = m["coefficients"]["cl"]
+        click.echo(f"map {m['variant']} yaw {m['yaw_deg']:g} {m['speed']:g} m/s level {m['mesh_level']}: "
+                   + (f"{c['model']}, LOO RMS {f(c['loo_rms'], 2)}" if c["status"] == "ok" else f"refused: {c['reason']}"))
+    for p in d["peaks"]:
+        if p["design_line"] or p["stall"]:
+            click.echo(f"peak {p['variant']} yaw {p['yaw_deg']:g} rake {1000 * p['rake']:.1f} mm: stall {p['stall']}, bracketed "
+                       f"{p['peak_bracketed']}, peak at {f(None if p['peak_h'] is None else 1000 * p['peak_h'], 3)} mm"
+                       + (f", design margin {1000 * p['margin']:+.1f} mm ({p['margin_bound']})" if p["margin"] is not None else ""))
+    for p in d["platform"]:
+        click.echo(f"platform {p['variant']}: " + (f"bottoming {f(p['bottoming_speed'], 3)} m/s ({p['bottoming_mode']}), "
+                   f"stall crossing {p['stall_crossing']}" if p["status"] == "ok" else f"refused: {p['reason']}"))
+    for n in d["notes"]:
+        click.echo(f"note: {n}")
+    click.echo(f"written: {path}")
+    click.echo("Caution: " + d["caution"])
+
+
+@main.command("analyse")
+@click.argument("source", type=click.Path())
+@click.option("-c", "--config", "config", type=click.Path(dir_okay=False),
+              help="Analysis settings (ANALYSIS.toml, or a sweep config with an [analysis] table). "
+                   "Default: ANALYSIS.toml beside SOURCE, else built-in defaults.")
+@click.option("-o", "--out", "out_dir", type=click.Path(file_okay=False),
+              help="Folder for analysis.json (default: the sweep folder, or the CSV's folder).")
+@click.option("--json", "as_json", is_flag=True, help="Print analysis.json to stdout instead of the summary.")
+@click.option("--force", is_flag=True, help="Replace an existing analysis.json.")
+def analyse_cmd(source, config, out_dir, as_json, force) -> None:
+    """Aero maps with error bars, peak and stall, the platform under load and
+    an honest ranking from SOURCE: a sweep folder (after `postproc sweep`)
+    or a results CSV (columns in the README). Writes analysis.json."""
+    import json
+
+    from .pipelines.analysis import run_analysis
+
+    data, path = run_analysis(source, config, out_dir, force)
+    if as_json:
+        click.echo(json.dumps(data, indent=2))
+    else:
+        _print_analysis(data, path)
 
 
 # ---------------------------------------------------------------------------

@@ -89,7 +89,7 @@ def test_undefined_balance_is_noted_not_divided():
 
 def test_report_is_self_contained_and_cautions(tmp_path):
     rows = _rows("flat", 1.0, 1.0) + _rows("ramp", 1.3, 2.0, flags_at=2)
-    p, _ = write_report(analyse_results(rows, title="Demo <study>", notes=["a <b> note"]), tmp_path / "report.html")
+    p = write_report(analyse_results(rows, title="Demo <study>", notes=["a <b> note"]), tmp_path / "report.html")
     text = p.read_text()
     assert "validate every decision by physical test" in text.lower()
     assert "qualified engineers" in text
@@ -115,4 +115,4 @@ def test_aero_map_is_data_before_it_is_a_picture(tmp_path):
     F, R = np.meshgrid(front, rear)
     np.testing.assert_allclose(values, fit(F, R), rtol=1e-12)  # the same fit, evaluated on the grid
     text = write_report(a, tmp_path / "r.html").read_text()
-    assert "m: fitted downforce coefficient map" in text
+    assert "Fitted ride-height maps" in text and "data:image/svg+xml;base64," in text

@@ -71,5 +71,5 @@ def test_sweep_mesh_study_and_ranking_on_the_finest_level(tmp_path):
     scores = {s.variant: s for s in rank_variants(rows)}
     assert scores["a"].metrics["downforce"] == pytest.approx(1.2 - 0.3 * 0.25)
     assert scores["a"].n_cases == 1
-    text = write_report(analyse_results(rows, mesh=study), tmp_path / "r.html")[0].read_text()
+    text = write_report(analyse_results(rows, mesh=study), tmp_path / "r.html").read_text()
     assert "Mesh dependence" in text and "Celik" in text

@@ -16,7 +16,7 @@ import os
 import numpy as np
 import pytest
 
-from postproc.report import write_report
+from postproc.report import RenderInfo, write_report
 from postproc.report import pictures as pics
 
 from _devtools import Browser, find_browser
@@ -41,7 +41,8 @@ def opened(tmp_path_factory):
     d = tmp_path_factory.mktemp("browser")
     pictures = pics.rendering_problem() is None
     data = demo_report_data(variants=VARIANTS, title=NASTY_TITLE, notes=[NASTY_NOTE], pictures=pictures)
-    path, info = write_report(data, d / "report.html", pics.PictureOptions(width=640, height=260))
+    info = RenderInfo()
+    path = write_report(data, d / "report.html", pics.PictureOptions(width=640, height=260), info=info)
     b = Browser(d / "profile")
     try:
         for domain in ("Page", "Runtime", "Log", "Network"):

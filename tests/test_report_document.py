@@ -11,7 +11,7 @@ import xml.dom.minidom
 
 import pytest
 
-from postproc.report import render_report, write_report
+from postproc.report import RenderInfo, render_report, write_report
 from postproc.report import pictures as pics
 
 from report_fixtures import NASTY_NOTE, NASTY_TITLE, demo_report_data
@@ -24,7 +24,8 @@ def _images(text):
 def test_no_pictures_report_is_self_contained_and_escaped(tmp_path):
     data = demo_report_data(variants=('fl<at', 'ra"mp', "r&x"), title=NASTY_TITLE, notes=[NASTY_NOTE],
                             pictures=False)
-    p, info = write_report(data, tmp_path / "report.html")
+    info = RenderInfo()
+    p = write_report(data, tmp_path / "report.html", info=info)
     text = p.read_text(encoding="utf-8")
     # caution first, then the verdict and the watch list, before any table
     i_caution, i_verdict, i_watch = text.index("Caution."), text.index('id="verdict"'), text.index('id="watch"')
@@ -78,7 +79,53 @@ def test_rendering_unavailable_still_writes_the_report(tmp_path, monkeypatch):
     monkeypatch.setattr(pics, "_STATUS", {})
     monkeypatch.setattr(pics, "_probe", lambda: (None, "no display and no EGL library (libEGL) installed"))
     data = demo_report_data()
-    p, info = write_report(data, tmp_path / "report.html")
+    info = RenderInfo()
+    p = write_report(data, tmp_path / "report.html", info=info)
     text = p.read_text(encoding="utf-8")
     assert "pictures not drawn" in text and "libegl1" in text
     assert 'id="envelope"' in text and info.backend is None
+
+
+def _analysis(status="clear", winner="ramp14", tied=()):
+    """An analysis.json as postproc.pipelines.analysis writes it (the parts the report reads; DEMO values)."""
+    def var(name, rank, score, ties=()):
+        return {"variant": name, "rank": rank, "score": score, "score_uncertainty": 0.01, "complete": True,
+                "tie_with": list(ties), "pareto": rank < 3,
+                "metrics": {"downforce": {"value": 0.3 * (4 - rank), "uncertainty": 0.02},
+                            "drag": {"value": 0.2 + 0.01 * rank, "uncertainty": 0.003}}}
+    return {
+        "ranking": {"variants": [var("ramp14", 1, 0.9, tied), var("ramp8", 2, 0.88, tied), var("flat", 3, 0.1)],
+                    "decision": {"status": status, "winner": winner, "best_complete": winner or "ramp14",
+                                 "tied": list(tied), "message": "the two best scores differ by less than their "
+                                                                "uncertainty" if tied else ""},
+                    "weight_stability": {"stable": True, "top": "ramp14", "checks": []}},
+        "peaks": [{"variant": "ramp14", "yaw_deg": 0.0, "speed": 40.0, "stall": True, "peak_h": 0.022}],
+        "platform": [{"variant": "ramp14", "status": "ok", "bottoming_speed": 61.0, "bottoming_mode": "front",
+                      "states": [{"speed": v, "ride_height_front": 0.03 - 0.004 * v / 20,
+                                  "ride_height_rear": 0.04 - 0.003 * v / 20} for v in (0.0, 20.0, 40.0, 60.0)]}],
+        "maps": [], "points": [],
+    }
+
+
+def test_analysis_results_drive_the_verdict_cautions_and_platform(tmp_path):
+    from dataclasses import replace
+
+    from postproc.pipelines.report_data import assemble
+
+    base = demo_report_data(pictures=False)
+    from report_fixtures import demo_rows
+
+    rows = demo_rows(("flat", "ramp8", "ramp14"))
+    data = assemble(rows, title="DEMO", analysis=_analysis())
+    assert data.recommended == "ramp14" and data.decision["status"] == "clear"
+    kinds = {c.kind for c in data.cautions}
+    assert {"stall-in-envelope", "bottoming"} <= kinds
+    assert [c.style for c in data.platform] == ["front", "rear"]
+    text, _ = render_report(data)
+    assert '<p class="headline">Build ramp14.</p>' in text
+    assert "0.900 ± 0.01" in text and 'id="platform"' in text
+    assert "falls again below it" in text and "reaches the ground at 61 m/s" in text
+    # a tie: no winner is named, the tied variants are
+    tie = assemble(rows, title="DEMO", analysis=_analysis("tie", None, ("ramp8",)))
+    text, _ = render_report(replace(tie, options=base.options))
+    assert "A tie: ramp8 cannot be told apart" in text and "Build" not in text.split('id="watch"')[0]

@@ -61,6 +61,8 @@ def test_demo_on_tiny_sweep_resumes(tmp_path):
     assert "permitted and safe" in report
     # the report's size limit (README, "The report"): the demo's report stays under 5 MB
     assert (out / "report.html").stat().st_size < 5_000_000
-    assert "Under the floor" in report or "pictures not drawn" in report
+    # pictures drawn, or the watch list says why not (here: no case has usable forces, so none is pictured)
+    assert ("Under the floor" in report or "pictures not drawn" in report
+            or "no case could be pictured" in report)
     p2 = run(["--out", str(out), "--config", str(cfg)])
     assert "tiny_ok: done in an earlier run, skipped" in p2.stdout

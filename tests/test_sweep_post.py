@@ -56,10 +56,25 @@ def test_real_smoke_sweep(tmp_path):
     (o,), paths = analysis.outcomes, analysis.paths
     assert o.status == "ok", o
     assert math.isfinite(o.result.cl) and math.isfinite(o.result.cd)
-    # the table carries exactly the per-case forces report's wind-axes coefficients
+    # the table carries the window means of the forces report's coefficient series (the rule in
+    # coefficient counts), with their spreads; the monitor's last sample, reduced the same way,
+    # is the export's wind-axes coefficient (same integral, Float32 storage: 1e-6)
     rep = forces_report(str(root / "cases" / "smoke-a")).to_dict()
-    assert o.result.cd == pytest.approx(rep["coefficients"]["drag"], rel=1e-12)
-    assert o.result.cl == pytest.approx(rep["coefficients"]["lift"], rel=1e-12)
+    counts = rep["coefficient_convergence"]
+    assert o.result.cd == pytest.approx(counts["means"]["cd"], rel=1e-12)
+    assert o.result.cl == pytest.approx(counts["means"]["cl"], rel=1e-12)
+    assert o.result.u_cl == pytest.approx(counts["stds"]["cl"], rel=1e-12)
+    from caseprep.contract.frames import axes_rotations
+    from caseprep.contract.manifest import read_manifest
+    from postproc.kernels import coefficients as co
+    from postproc.pipelines.monitor_coefficients import coefficient_series
+
+    rec = read_manifest(root).cases[0]
+    last = coefficient_series(read_monitor(root / "cases" / "smoke-a"), co.ReferenceValues.from_reference(rec.reference),
+                              axes_rotations(rec.placement, rec.wind_direction_body), window=1)
+    scale = float(np.hypot(rep["coefficients"]["drag"], rep["coefficients"]["lift"]))
+    assert abs(last["cd"][0] - rep["coefficients"]["drag"]) <= 1e-6 * scale
+    assert abs(last["cl"][0] - rep["coefficients"]["lift"]) <= 1e-6 * scale
     # our integral of the exported surface equals the solver's own runtime force monitor at the
     # last iteration (an independent implementation of the same integral); the export stores
     # Float32 (epsilon 1.2e-7), so 1e-6 of the resultant is the justified bound
@@ -78,3 +93,8 @@ def test_real_smoke_sweep(tmp_path):
     # prism-layer coverage per patch from the mesher's log (this spec asks for layers)
     assert row["layers"] and row["layers"].endswith("%")
     assert (paths["cases"] / "smoke-a.json").is_file()
+    # the sweep's analysis.json is the analysis of this table: the point carries the window spread
+    an = json.loads(paths["analysis"].read_text())
+    (pt,) = an["points"]
+    assert pt["cases"] == ["smoke-a"] and pt["usable"] is False       # flagged above: not compared
+    assert an["ranking"]["decision"]["status"] == "no-common-points"

@@ -286,6 +286,8 @@ KEYS: dict[str, Key] = {
                                       range=_RIDE_HEIGHT),
     "report.picture_yaw_deg": Key("deg", "yaw of the pictured operating point (`--picture-yaw`)",
                                   default="smallest yaw", range=_YAW),
+    "analysis": Key("—", "settings of `postproc analyse` (its own sections under [analysis]; caseprep only "
+                         "carries them)", default="none"),
 }
 
 

@@ -12,7 +12,7 @@ Loading is :func:`caseprep.config.load.load_config`.
 from __future__ import annotations
 
 import re
-from typing import Literal
+from typing import Any, Literal
 
 from pydantic import BaseModel, ConfigDict, PrivateAttr, ValidationError, field_validator
 from pydantic_core import PydanticCustomError
@@ -191,6 +191,8 @@ class Config(_M):
     domain: DomainCfg = DomainCfg()
     solver: SolverCfg = SolverCfg()
     report: ReportCfg = ReportCfg()
+    # settings of `postproc analyse` (read by postproc.io.analysis_config; caseprep only carries them)
+    analysis: dict[str, Any] | None = None
     _file: str = PrivateAttr(default="config.toml")
 
     @property

@@ -55,6 +55,20 @@ oscillating by more than 1 %, residuals that did not fall, or no monitor to
 judge by (then only rule 1 can pass). All thresholds are common practice, no
 source; they are fields of :class:`ConvergenceOptions`. Residuals are the
 solver's dimensionless normalised initial residuals.
+
+**The rule in coefficient counts** (:func:`judge_coefficients`; used for
+the coefficients a case reports). A tolerance relative to the resultant
+lets the small components wander: on a diffuser floor (−C_L 1.6, C_D 0.26,
+C_S 0.05) 1 % of the resultant is ±6 % of the drag and ±30 % of the side
+force, and moments are not judged at all. So each coefficient series over
+the settling window — C_L, C_D, C_S, C_LF, C_LR, the per-sample balance
+C_LF/(C_LF + C_LR) and C_N — is judged in its own units against its own
+tolerance (``count_tol_*``: 0.005 lift-type, 0.002 drag, side and yawing
+moment, 0.003 balance; common practice, no source): mean m, standard
+deviation s, drift d = least-squares slope × (N − 1) (absolute), converged
+when |d| ≤ tol and s ≤ tol, diverging when |d| > tol with R² ≥
+``trend_r2``, else oscillating. Reported coefficients are the window means
+m, with s as their iterative spread.
 """
 from __future__ import annotations
 
@@ -86,6 +100,16 @@ class ConvergenceOptions:
     settle_tol: float = 0.01                  # drift and relative std tolerance
     settle_floor: float = 1.0                 # floor of a component's scale, × the resultant force
     trend_r2: float = 0.5                     # R² above which a drift is a trend (diverging)
+    # the rule in coefficient counts (absolute, each coefficient in its own units; see judge_coefficients)
+    count_tol_lift: float = 0.005             # C_L, C_LF, C_LR
+    count_tol_drag_side: float = 0.002        # C_D, C_S, C_N
+    count_tol_balance: float = 0.003          # aero balance C_LF/(C_LF + C_LR), fraction
+
+    def count_tolerances(self) -> dict[str, float]:
+        """Tolerance (coefficient counts) of each coefficient judged by :func:`judge_coefficients`."""
+        return {"cl": self.count_tol_lift, "cl_front": self.count_tol_lift, "cl_rear": self.count_tol_lift,
+                "cd": self.count_tol_drag_side, "cs": self.count_tol_drag_side, "cn": self.count_tol_drag_side,
+                "balance": self.count_tol_balance}
 
 
 DEFAULT_OPTIONS = ConvergenceOptions()
@@ -282,3 +306,88 @@ def judge_convergence(residuals: Mapping[str, Sequence[float]], final: Mapping[s
     return True, (f"force monitor settled over the last {settling.get('window')} iterations "
                   f"(drift {100 * settling['max_drift']:.2g} %, std {100 * settling['max_rel_std']:.2g} %) and "
                   f"residuals fell ≥ {options.min_residual_drop:g} orders (worst {worst})"), drop
+
+
+# --------------------------------------------------------------------------- the rule in coefficient counts
+
+@dataclass(frozen=True)
+class CountStats:
+    """One coefficient over the window, in its own units: mean, std, drift
+    (change of the least-squares line across the window), R², tolerance."""
+
+    name: str
+    n: int
+    mean: float
+    std: float
+    drift: float
+    r2: float
+    tolerance: float
+    verdict: str
+
+    def to_dict(self) -> dict:
+        return dict(self.__dict__)
+
+
+def count_stats(name: str, values: Sequence[float], tolerance: float,
+                options: ConvergenceOptions = DEFAULT_OPTIONS) -> CountStats:
+    """Statistics and verdict of one coefficient series over its window (all
+    samples given, ≥ 3; module doc, "the rule in coefficient counts")."""
+    v = np.asarray(values, dtype=np.float64).ravel()
+    n = v.size
+    if n < 3:
+        raise UserError(expected="at least 3 monitor samples in the window", got=n, key=name,
+                        fix="run more iterations or shorten the window")
+    if not tolerance > 0:
+        raise UserError(expected="a positive tolerance (coefficient counts)", got=tolerance, key=name)
+    if not np.all(np.isfinite(v)):
+        nan = float("nan")
+        return CountStats(name, n, nan, nan, nan, 0.0, float(tolerance), "diverging")
+    mean = float(v.mean())
+    x = np.arange(n, dtype=np.float64) - 0.5 * (n - 1)
+    dev = v - mean
+    slope = float(np.sum(x * dev) / np.sum(x * x))
+    ss = float(np.sum(dev * dev))
+    r2 = float(slope**2 * np.sum(x * x) / ss) if ss > 0 else 0.0
+    drift = slope * (n - 1)
+    std = float(np.sqrt(ss / n))
+    if abs(drift) <= tolerance and std <= tolerance:
+        verdict = "converged"
+    elif abs(drift) > tolerance and r2 >= options.trend_r2:
+        verdict = "diverging"
+    else:
+        verdict = "oscillating"
+    return CountStats(name, n, mean, std, drift, r2, float(tolerance), verdict)
+
+
+def balance_series(cl_front: Sequence[float], cl_rear: Sequence[float]) -> np.ndarray:
+    """Per-sample aero balance C_LF/(C_LF + C_LR) (NaN where the total is ≈ 0)."""
+    f = np.asarray(cl_front, dtype=float)
+    r = np.asarray(cl_rear, dtype=float)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return np.where(np.abs(f + r) > 1e-9, f / (f + r), np.nan)
+
+
+def judge_coefficients(series: Mapping[str, Sequence[float]], options: ConvergenceOptions = DEFAULT_OPTIONS,
+                       tolerances: Mapping[str, float] | None = None) -> dict[str, Any]:
+    """The rule in coefficient counts over the given window samples (module
+    doc). ``series``: coefficient name (``cl``, ``cd``, ``cs``, ``cn``,
+    ``cl_front``, ``cl_rear``; the balance is added when both axle series
+    are given) → samples; ``tolerances`` override
+    :meth:`ConvergenceOptions.count_tolerances` by name. Returns
+    ``{"verdict", "window", "series": {name: CountStats dict}, "means",
+    "stds"}``; raises UserError for a name without a tolerance."""
+    s = dict(series)
+    if "cl_front" in s and "cl_rear" in s and "balance" not in s:
+        s["balance"] = balance_series(s["cl_front"], s["cl_rear"])
+    tol = {**options.count_tolerances(), **dict(tolerances or {})}
+    missing = [k for k in s if k not in tol]
+    if missing:
+        raise UserError(expected="coefficients with a tolerance (" + ", ".join(tol) + ")", got=", ".join(missing),
+                        key="tolerances")
+    if not s:
+        raise UserError(expected="at least one coefficient series", got="none", key="monitor")
+    stats = {k: count_stats(k, v, tol[k], options) for k, v in s.items()}
+    worst = max((x.verdict for x in stats.values()), key=VERDICTS.index)
+    return {"verdict": worst, "window": min(x.n for x in stats.values()),
+            "series": {k: x.to_dict() for k, x in stats.items()},
+            "means": {k: x.mean for k, x in stats.items()}, "stds": {k: x.std for k, x in stats.items()}}

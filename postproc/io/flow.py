@@ -115,10 +115,13 @@ def read_flow(path: str | Path, *, need_volume: bool = True) -> FlowCase:
     import pyvista as pv
 
     f, case_dir = resolve_result(path)
-    if f.suffix.lower() == ".vtm":
-        from postproc.io.surfaces import vtm_blocks
+    from postproc.io.surfaces import check_declared_sizes, vtm_blocks
 
-        vtm_blocks(f)  # every block must stay inside the export's folder (raises naming the block)
+    # every block inside the export's folder (raises naming the block), and no file declaring more data than it
+    # holds (the reader would allocate for it and abort)
+    for _, block in (vtm_blocks(f)[0] if f.suffix.lower() == ".vtm" else [("", f)]):
+        if block.is_file():
+            check_declared_sizes(block)
     try:
         data = pv.read(str(f))
     except Exception as exc:  # VTK reader errors

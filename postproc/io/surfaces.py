@@ -30,6 +30,7 @@ from typing import Callable, Iterable, Sequence
 import numpy as np
 
 from caseprep.contract.errors import UserError, did_you_mean
+from postproc.io.isolation import UnreadableFile, isolated
 from caseprep.contract.limits import MAX_JSON_BYTES, MAX_VTM_BLOCKS
 from caseprep.contract.untrusted import confined
 
@@ -133,7 +134,7 @@ def _run_reader(reader, path: Path, arrays: Sequence[str] | None = None) -> tupl
     out = reader.GetOutputDataObject(0)
     if msgs or out is None:
         first = (msgs[0].strip().splitlines() or ["unreadable"])[-1] if msgs else "no output"
-        raise UserError(
+        raise UnreadableFile(
             expected=f"a readable VTK file ({path.suffix})",
             got=f"a file the VTK reader rejects ({first[:200]})",
             file=str(path),
@@ -231,7 +232,7 @@ def _validate(name: str, piece: tuple, source: str) -> None:
     m = off.size - 1
     bad = [k for k, v in cells.items() if v.shape[0] != m]
     if (conn.size and (conn.min() < 0 or conn.max() >= P.shape[0])) or off[-1] != conn.size or bad:
-        raise UserError(expected="a consistent VTK surface (faces referring to existing points, one value per face)",
+        raise UnreadableFile(expected="a consistent VTK surface (faces referring to existing points, one value per face)",
                         got="inconsistent sizes" + (f" of the arrays {', '.join(bad)}" if bad else ""),
                         file=source, key=name, fix="the file may be truncated; re-export it")
 
@@ -311,7 +312,46 @@ def _check_file(path: Path) -> None:
     if not path.is_file():
         raise UserError(expected="an existing file", got=str(path), fix="check the path")
     if path.stat().st_size == 0:
-        raise UserError(expected="a VTK file", got="an empty file", file=str(path), fix="re-export the results")
+        raise UnreadableFile(expected="a VTK file", got="an empty file", file=str(path), fix="re-export the results")
+    check_declared_sizes(path)
+
+
+#: Largest ratio of declared data to file size a compressed VTK file can
+#: reach (zlib peaks near 1:1032, LZMA on constant data near 1:7000).
+MAX_COMPRESSION = 10_000
+_XML_SIZE_RE = re.compile(rb'NumberOf(Points|Cells|Polys|Verts|Lines|Strips)\s*=\s*"\s*(\d+)\s*"')
+_LEGACY_RE = re.compile(rb"^(POINTS|POLYGONS|CELLS|CELL_TYPES|VERTICES|LINES|TRIANGLE_STRIPS)[ \t]+(\d+)(?:[ \t]+(\d+))?",
+                        re.M)
+
+
+def check_declared_sizes(path: Path) -> None:
+    """Refuse (UnreadableFile) a VTK file whose header declares more data
+    than its size can hold — before a reader allocates for it. Each declared
+    point needs at least 3 bytes and each cell 2 (one-byte values), times
+    :data:`MAX_COMPRESSION` when the file is compressed."""
+    size = path.stat().st_size
+    with open(path, "rb") as fh:
+        head = fh.read(1 << 20)
+    cut = head.find(b"<AppendedData")
+    head = head if cut < 0 else head[:cut]
+    if path.suffix.lower() in (".vtp", ".vtu"):
+        counts: dict[str, int] = {}
+        for m in _XML_SIZE_RE.finditer(head):
+            counts[m.group(1).decode()] = counts.get(m.group(1).decode(), 0) + int(m.group(2))
+        need = 3 * counts.get("Points", 0) + 2 * sum(v for k, v in counts.items() if k != "Points")
+        room = size * (MAX_COMPRESSION if b"compressor=" in head else 1)
+    elif path.suffix.lower() == ".vtk":
+        need = 0
+        for m in _LEGACY_RE.finditer(head):
+            n, total = int(m.group(2)), int(m.group(3) or 0)
+            need += 3 * n if m.group(1) == b"POINTS" else max(n, total)
+        room = size
+    else:
+        return
+    if need > room:
+        raise UnreadableFile(expected=f"a VTK file whose header matches its size ({size:,} bytes)",
+                             got=f"a header declaring at least {need:,} bytes of data", file=str(path),
+                             fix="the file is corrupt or truncated; re-export it with the solver's converter (foamToVTK)")
 
 
 def _vtp_reader():
@@ -430,7 +470,31 @@ def read_surface(path: str | os.PathLike, patches: Sequence[str] | None = None,
     ``patches``: names or globs (multiblocks: required; single files: matched
     against the file's stem, the one part name). ``arrays``: the face arrays
     to load (None: all); the names of the others stay listed in
-    ``SurfaceMesh.cell_arrays``. Point data are not loaded (names only)."""
+    ``SurfaceMesh.cell_arrays``. Point data are not loaded (names only).
+
+    The reading runs in a child process with a memory and a time limit
+    (:func:`postproc.io.isolation.isolated`): a file that crashes the VTK
+    reader raises :class:`~postproc.io.isolation.UnreadableFile` instead of
+    ending this process."""
+    pats = list(patches) if patches is not None else None
+    arrs = list(arrays) if arrays is not None else None
+    try:
+        return isolated(_read_surface_here, path, pats, arrs, what=str(path))
+    except UnreadableFile as whole:
+        if Path(path).suffix.lower() != ".vtm" or "reader" not in str(whole):
+            raise
+        # a block crashed the reader: read the chosen blocks one by one to name it
+        blocks, _ = vtm_blocks(Path(path))
+        chosen = select_patches([n for n, _ in blocks], pats, str(path)) if pats else []
+        for n, f in blocks:
+            if n in chosen and f.suffix.lower() in (".vtp", ".vtu", ".vtk"):
+                isolated(_read_surface_here, f, None, arrs, what=str(f))  # raises naming the block
+        raise
+
+
+def _read_surface_here(path: str | os.PathLike, patches: Sequence[str] | None = None,
+                       arrays: Sequence[str] | None = None) -> SurfaceMesh:
+    """:func:`read_surface` in this process."""
     p = Path(path)
     reader = _READERS.get(p.suffix.lower())
     if reader is None:

@@ -57,6 +57,11 @@ class CaseResult:
     wind, C_S along +y_W); ``balance`` front share of downforce (fraction,
     None when undefined); ``stability_margin`` as a fraction of the wheelbase (None when undefined or
     no CG given); ``flags`` non-empty means the case must not be ranked.
+    ``u_*``: the iterative spread (standard deviation over the settling
+    window, coefficient units; NaN unknown) of each coefficient, whose window
+    mean is the value; ``reference_area`` (m²) and ``air_density`` (kg/m³)
+    of the coefficients. With them a results.csv is a complete input of
+    ``postproc analyse``.
     """
 
     case_id: str
@@ -75,6 +80,13 @@ class CaseResult:
     flags: tuple[str, ...] = ()
     speed: float = float("nan")
     mesh_level: int = 0
+    reference_area: float = float("nan")
+    air_density: float = float("nan")
+    u_cl: float = float("nan")
+    u_cd: float = float("nan")
+    u_cs: float = float("nan")
+    u_cl_front: float = float("nan")
+    u_cl_rear: float = float("nan")
 
 
 @dataclass(frozen=True)

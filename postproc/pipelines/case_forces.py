@@ -87,6 +87,7 @@ class ForcesReport:
     coefficients: co.Coefficients | None = None
     balance: co.Balance | None = None
     convergence: Assessment | None = None
+    coefficient_convergence: dict[str, Any] | None = None   # the rule in coefficient counts, window means
 
     def to_dict(self) -> dict[str, Any]:
         """The JSON form (``postproc forces --json``, ``results/<case>.json``)."""
@@ -103,6 +104,8 @@ class ForcesReport:
             out["balance"] = self.balance.to_dict()
         if self.convergence is not None:
             out["convergence"] = self.convergence.to_dict()
+        if self.coefficient_convergence is not None:
+            out["coefficient_convergence"] = self.coefficient_convergence
         return out
 
 
@@ -222,13 +225,38 @@ def forces_report(target: str, options: ForcesOptions = ForcesOptions()) -> Forc
             notes.append("no ground (far field): axle loads, aero balance and centres of pressure not computed")
         elif rv.front_axle is not None and rv.rear_axle is not None:
             balance = co.balance(res, rv, axle_axes(placement))
-    verdict = None
+    verdict = counts = None
     if src.case_dir is not None and (src.case_dir / "postProcessing").is_dir():
         try:
             verdict = assess_force_monitor(src.case_dir, window=opt.window, options=opt.convergence)
         except UserError as exc:
             notes.append(f"convergence not assessed: {exc}")
+        if rv is not None and verdict is not None:
+            counts = _coefficient_convergence(src.case_dir, rv, axes_rotations(placement, wind),
+                                              axle_axes(placement) if balance is not None else None, opt, notes)
     return ForcesReport(source=str(src.vtk_file), time=surf.time, patches=tuple(surf.part_names), settings=settings,
                         result=res, closure=res.open_fraction, notes=tuple(notes),
                         show_parts=record is not None or len(surf.part_names) != 1, reference=rv,
-                        coefficients=coefficients, balance=balance, convergence=verdict)
+                        coefficients=coefficients, balance=balance, convergence=verdict,
+                        coefficient_convergence=counts)
+
+
+def _coefficient_convergence(case_dir: Path, rv: co.ReferenceValues, rotations, axle, opt: ForcesOptions,
+                             notes: list[str]) -> dict[str, Any] | None:
+    """The monitor's coefficients judged in coefficient counts over the
+    settling window (:func:`caseprep.contract.convergence.judge_coefficients`),
+    with their window means and spreads; None (and a note) when the monitor
+    cannot be read."""
+    from caseprep.contract.convergence import settle_window
+    from caseprep.contract.monitor import FORCES_NAME, read_monitor
+
+    from postproc.pipelines.monitor_coefficients import judge_monitor
+
+    try:
+        mon = read_monitor(case_dir, FORCES_NAME if (case_dir / "postProcessing" / FORCES_NAME).is_dir() else None)
+        n = len(mon["force.total_x"])
+        w = settle_window(n, opt.convergence) if opt.window is None else opt.window
+        return judge_monitor(mon, rv, rotations, axle, w, opt.convergence)
+    except (UserError, KeyError) as exc:
+        notes.append(f"coefficients not judged in counts: {exc}")
+        return None

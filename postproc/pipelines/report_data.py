@@ -119,6 +119,8 @@ CAUTION_KINDS = (
     "mesh-uncertainty",      # grid uncertainty larger than the differences between variants
     "ramp-separation",       # the diffuser ramp flow separates
     "pictures-missing",      # some pictures could not be drawn
+    "weights",               # the winner changes when one ranking weight moves
+    "decision",              # the analysis could not name a winner (its own words)
 )
 
 
@@ -155,6 +157,7 @@ class VariantFacts:
     complete: bool
     tie_with: tuple[str, ...] = ()
     notes: tuple[str, ...] = ()
+    score_uncertainty: float | None = None
 
 
 @dataclass(frozen=True)
@@ -218,6 +221,7 @@ class ReportData:
     notes: tuple[str, ...] = ()
     analysis: bool = False
     options: ReportOptions = field(default_factory=ReportOptions)
+    decision: dict | None = None  # analysis.json ranking.decision (status, winner, best_complete, tied, message)
 
 
 # --------------------------------------------------------------------------- choices
@@ -370,16 +374,13 @@ MISSING_FLAGS = ("not-run", "mesh-failed", "solver-crashed", "solve-failed", "ex
                  "forces-failed", "interrupted")
 
 
-def cautions_and_facts(results, ranking, *, mesh_study=(), flow_rows: dict | None = None,
-                       analysis: dict | None = None) -> tuple[tuple[VariantFacts, ...], tuple[Caution, ...], str | None]:
-    """The variants' standing, the cautions and the recommended variant
-    (the best-ranked variant with usable cases; None when none is)."""
+def cautions_and_facts(results, ranking, *, mesh_study=(), flow_rows: dict | None = None
+                       ) -> tuple[tuple[VariantFacts, ...], tuple[Caution, ...], str | None]:
+    """The variants' standing from the results table's own ranking, the
+    cautions and the recommended variant (the best-ranked variant with
+    usable cases; None when none is)."""
     facts, cautions = [], []
-    tie_with = {}
-    if analysis:
-        for v in analysis.get("ranking", {}).get("variants", []) if isinstance(analysis.get("ranking"), dict) else []:
-            if isinstance(v, dict) and v.get("variant"):
-                tie_with[v["variant"]] = tuple(v.get("tie_with") or ())
+    tie_with: dict[str, tuple[str, ...]] = {}
     points = {}
     for r in results:
         points.setdefault(r.variant, {})[(round(r.ride_height_front, 9), round(r.ride_height_rear, 9),
@@ -432,16 +433,109 @@ def cautions_and_facts(results, ranking, *, mesh_study=(), flow_rows: dict | Non
     for v, items in by_v.items():
         fr = min(f for _, f in items)
         cautions.append(Caution("ramp-separation", v or None, tuple(c for c, _ in items), float(fr)))
-    # analysis-dependent cautions (present only when the analysis gives them)
-    if analysis:
-        for p in analysis.get("peaks", []) if isinstance(analysis.get("peaks"), list) else []:
-            if isinstance(p, dict) and p.get("stall"):
-                cautions.append(Caution("stall-in-envelope", p.get("variant"), value=_f(p.get("peak_ride_height")),
-                                        detail=str(p.get("line", ""))))
-        for p in analysis.get("platform", []) if isinstance(analysis.get("platform"), list) else []:
-            if isinstance(p, dict) and p.get("bottoming_speed") is not None:
-                cautions.append(Caution("bottoming", p.get("variant"), value=_f(p.get("bottoming_speed"))))
     return tuple(facts), tuple(cautions), rec
+
+
+def _analysis_list(analysis: dict, key: str) -> list[dict]:
+    v = analysis.get(key)
+    return [x for x in v if isinstance(x, dict)] if isinstance(v, list) else []
+
+
+def from_analysis(analysis: dict, results) -> dict:
+    """What the report takes from ``analysis.json`` (postproc.pipelines.analysis):
+    the variants' standing (rank, score ± uncertainty, completeness, ties,
+    Pareto), the decision, the cautions it supports (incomplete winner, ties,
+    stall inside the envelope, bottoming below the top speed, a winner that
+    changes with the weights), the downforce–drag points with their
+    uncertainties, the fitted maps that span both ride heights and the
+    platform curves. Keys: ``facts``, ``cautions``, ``recommended``,
+    ``decision``, ``pareto``, ``maps``, ``map_notes``, ``platform``."""
+    rk = analysis.get("ranking") if isinstance(analysis.get("ranking"), dict) else {}
+    dec = rk.get("decision") if isinstance(rk.get("decision"), dict) else None
+    rows = {r.variant: r for r in results}
+    facts, pts, cautions = [], [], []
+    for v in _analysis_list(rk, "variants"):
+        name = str(v.get("variant", ""))
+        m = v.get("metrics") if isinstance(v.get("metrics"), dict) else {}
+        vals = {k: _f(x.get("value")) for k, x in m.items() if isinstance(x, dict)}
+        unc = {k: _f(x.get("uncertainty")) for k, x in m.items() if isinstance(x, dict)}
+        rank = v.get("rank") if isinstance(v.get("rank"), int) else None
+        facts.append(VariantFacts(
+            variant=name, rank=rank, score=_f(v.get("score")), pareto=bool(v.get("pareto")),
+            n_cases=sum(1 for r in results if r.variant == name),
+            n_flagged=sum(1 for r in results if r.variant == name and r.flags), metrics=vals,
+            complete=bool(v.get("complete")), tie_with=tuple(str(t) for t in v.get("tie_with") or ()),
+            score_uncertainty=_f(v.get("score_uncertainty"))))
+        if vals.get("downforce") is not None and vals.get("drag") is not None:
+            pts.append([name, vals["drag"], vals["downforce"], unc.get("drag"), unc.get("downforce"),
+                        bool(v.get("pareto")), tuple(v.get("tie_with") or ())])
+    # tie groups: variants linked by tie_with share a group number
+    group: dict[str, int] = {}
+    for name, *_rest, ties in pts:
+        if ties:
+            g = next((group[t] for t in ties if t in group), None) or (max(group.values(), default=0) + 1)
+            for x in (name, *ties):
+                group[x] = g
+    pareto = tuple(ParetoPoint(label=n, variant=n, drag=cd, downforce=df, drag_err=ucd, downforce_err=udf,
+                               on_front=front, tie_group=group.get(n)) for n, cd, df, ucd, udf, front, _ in pts)
+    recommended = None
+    if dec is not None:
+        recommended = dec.get("winner") or None
+        status = str(dec.get("status", ""))
+        if status == "incomplete" and facts:
+            top = next((f.variant for f in facts if f.rank == 1), None)
+            cautions.append(Caution("incomplete-winner", top, detail=str(dec.get("message", ""))))
+        elif status == "tie":
+            cautions.append(Caution("tie", None, detail=", ".join(str(t) for t in dec.get("tied") or ())))
+        elif status and status != "clear":
+            cautions.append(Caution("decision", None, detail=str(dec.get("message", status))))
+    ws = rk.get("weight_stability") if isinstance(rk.get("weight_stability"), dict) else None
+    if ws is not None and ws.get("stable") is False:
+        changed = [c for c in ws.get("checks", []) if isinstance(c, dict) and c.get("changed")]
+        cautions.append(Caution("weights", ws.get("top"), detail="; ".join(
+            f"{c.get('metric')} × {c.get('factor')} → {c.get('top')}" for c in changed)))
+    for p in _analysis_list(analysis, "peaks"):
+        if p.get("stall"):
+            cautions.append(Caution("stall-in-envelope", p.get("variant"), value=_f(p.get("peak_h")),
+                                    detail=f"yaw {p.get('yaw_deg')}°, {p.get('speed')} m/s"
+                                           + (f"; {p['note']}" if p.get("note") else "")))
+    curves = []
+    for p in _analysis_list(analysis, "platform"):
+        if p.get("status") != "ok":
+            continue
+        states = [s for s in p.get("states", []) if isinstance(s, dict)]
+        sp = [_f(s.get("speed")) for s in states]
+        for axle in ("front", "rear"):
+            curves.append(PlatformCurve(variant=str(p.get("variant")), style=axle, speed=sp,
+                                        value=[_f(s.get(f"ride_height_{axle}")) for s in states]))
+        b = _f(p.get("bottoming_speed"))
+        if b is not None:
+            cautions.append(Caution("bottoming", p.get("variant"), value=b,
+                                    detail=str(p.get("bottoming_mode") or "")))
+    maps, why = [], []
+    for m in _analysis_list(analysis, "maps"):
+        g = m.get("grid")
+        name = str(m.get("variant"))
+        coef = (m.get("coefficients") or {}).get("cl") or {}
+        if not isinstance(g, dict) or "cl" not in g or (m.get("design") or {}).get("dim") != 2:
+            why.append(f"{name} (yaw {m.get('yaw_deg')}°): " + (coef.get("reason") or "its points span one line "
+                                                                 "of ride heights"))
+            continue
+        F = np.asarray(g["ride_height_front"], dtype=float)
+        R = np.asarray(g["ride_height_rear"], dtype=float)
+        mine = [q for q in _analysis_list(analysis, "points") if q.get("variant") == name and q.get("usable")
+                and q.get("yaw_deg") == m.get("yaw_deg") and q.get("speed") == m.get("speed")
+                and q.get("mesh_level") == m.get("mesh_level")]
+        maps.append(MapData(variant=f"{name} (yaw {m.get('yaw_deg')}°)", quantity="downforce coefficient −C_L",
+                            front=F[0], rear=R[:, 0], value=-np.asarray(g["cl"], dtype=float),
+                            points_front=[q["ride_height_front"] for q in mine],
+                            points_rear=[q["ride_height_rear"] for q in mine],
+                            points_value=[-q["cl"] for q in mine if "cl" in q], points_error=None,
+                            note=f"{coef.get('model')}, leave-one-out rms {coef.get('loo_rms'):.3g}"
+                            if coef.get("loo_rms") is not None else str(coef.get("model") or "")))
+    del rows
+    return {"facts": tuple(facts), "cautions": tuple(cautions), "recommended": recommended, "decision": dec,
+            "pareto": pareto, "maps": tuple(maps), "map_notes": why, "platform": tuple(curves)}
 
 
 def _f(x):
@@ -513,9 +607,25 @@ def assemble(results, *, title: str, study: str = "", notes: Sequence[str] = (),
 
     ranking = ranking if ranking is not None else rank_variants(list(results))
     variants = [s.variant for s in ranking]
-    facts, cautions, rec = cautions_and_facts(results, ranking, mesh_study=mesh_study, flow_rows=flow_rows,
-                                              analysis=analysis)
+    facts, cautions, rec = cautions_and_facts(results, ranking, mesh_study=mesh_study, flow_rows=flow_rows)
     maps, map_note = maps_from_aero(aero_maps)
+    pareto = pareto_points(results, ranking, spread)
+    platform: tuple = ()
+    decision = None
+    a = from_analysis(analysis, results) if isinstance(analysis, dict) else None
+    if a is not None and a["facts"]:
+        # the analysis ranks on the common points with uncertainties and ties: its standing replaces
+        # the table's own; the table's cautions that it does not cover (missing and flagged cases by
+        # name, mesh uncertainty, ramp separation) stay
+        facts, rec, decision = a["facts"], a["recommended"], a["decision"]
+        cautions = tuple(c for c in cautions if c.kind not in ("incomplete-winner", "tie")) + a["cautions"]
+        pareto = a["pareto"] or pareto
+        platform = a["platform"]
+        if a["maps"]:
+            maps = a["maps"]
+        map_note = ("; ".join(a["map_notes"]) if a["map_notes"] else "")
+        if map_note:
+            map_note = "no map for " + map_note
     rows = []
     by_id = {r.case_id: r for r in results}
     for cid, row in (flow_rows or {}).items():
@@ -526,9 +636,9 @@ def assemble(results, *, title: str, study: str = "", notes: Sequence[str] = (),
         version=__version__, n_cases=len(results), n_usable=sum(1 for r in results if not r.flags),
         recommended=rec, variants=facts, cautions=cautions, ride_height_panels=ride_height_panels(results),
         yaw_panels=yaw_panels(results), maps=maps, map_note=map_note,
-        pareto=pareto_points(results, ranking, spread), platform=(), histories=tuple(histories),
+        pareto=pareto, platform=platform, histories=tuple(histories),
         picture_cases=tuple(picture_cases), scenes=tuple(scenes),
         baseline=check_baseline(options.baseline, variants) if scenes else options.baseline,
         pictures_skipped=tuple(pictures_skipped), cases=_case_rows(results), checks=tuple(checks),
         mesh_study=_mesh_rows(mesh_study), flow_rows=tuple(rows), notes=tuple(notes), analysis=bool(analysis),
-        options=options)
+        options=options, decision=decision)

@@ -10,7 +10,10 @@ Outputs (in the sweep folder unless told otherwise, atomic writes):
 * ``results/<case_id>.json`` — the full forces report of each case, with
   the body's y+ statistics per patch and the case's flags;
 * ``results.csv`` and ``results.json`` — one row per case (``results.json``
-  also holds the ranking, the mesh study and the fitted aero maps).
+  also holds the ranking, the mesh study and the fitted aero maps);
+* ``analysis.json`` — the analysis of the results table
+  (:mod:`postproc.pipelines.analysis`, the same as ``postproc analyse``):
+  maps with error bars, peak and stall, the platform, the honest ranking.
 
 Besides the forces, each case with a volume result gets its flow columns
 (:mod:`postproc.pipelines.case_flow`: diffuser recovery, main vortex pair,
@@ -26,10 +29,13 @@ in the manifest. A case is **flagged** (never ranked) when the runner
 flagged it, when it did not finish, when its forces could not be computed,
 or when the runtime force monitor is still drifting at the end of the run.
 The monitor is judged by the one convergence rule
-(:mod:`caseprep.contract.convergence`, as the runner judges it): over the
-last 30 % of the samples (at least 20), each total-force component against
-max(|its mean|, the resultant force), drift and std tolerance 1 %;
-``diverging`` there gives the ``forces-drifting`` flag.
+(:mod:`caseprep.contract.convergence`) over the settling window (the last
+30 % of the samples, at least 20): in coefficient counts when the case has
+reference values (each coefficient and the balance against its own
+tolerance; the reported coefficients are then the window means, with their
+standard deviations as ``u_*``), else each total-force component against
+max(|its mean|, the resultant force), as the runner judges it; ``diverging``
+gives the ``forces-drifting`` flag.
 """
 from __future__ import annotations
 
@@ -54,6 +60,7 @@ from caseprep.contract.locking import refuse_interrupted, sweep_lock
 from caseprep.contract.manifest import CaseRecord, Manifest, read_manifest
 from caseprep.contract.records import Flag, Status, as_flag, effective_status, flag_meaning, load_case_record, read_case_record
 from postproc.io.exports import latest_export
+from postproc.io.isolation import UnreadableFile, isolated, preload
 from postproc.io.surfaces import read_surface
 from postproc.kernels import wallchecks as wc
 from postproc.kernels.aeromap import fit_response_surface, map_grid
@@ -61,12 +68,19 @@ from postproc.kernels.polygons import face_geometry
 from postproc.kernels.meshstudy import grid_convergence, representative_cell_size
 from postproc.kernels.ranking import CaseResult, VariantScore, rank_variants
 from postproc.pipelines.case_flow import FlowOptions, analyse_case_flow
+from postproc.io.analysis_config import read_analysis_config
+from postproc.io.results_table import read_sweep_table
+from postproc.pipelines.analysis import OUTPUT_NAME as ANALYSIS_NAME
+from postproc.pipelines.analysis import analyse_table, default_config_path, resolve_options, write_analysis
+from postproc.pipelines.analysis_points import level_cell_size
 from postproc.pipelines.case_forces import ForcesReport, forces_report
 from postproc.pipelines.case_scene import scene_difference
 from postproc.pipelines.report_data import (ReportOptions, assemble, check_baseline, choose_picture_cases,
                                             history_from_monitor)
 
 RESULTS_DIR = "results"
+# the child processes that read the cases start with these loaded (postproc.io.isolation)
+preload("pyvista", "postproc.pipelines.case_flow", "postproc.pipelines.case_forces")
 
 @dataclass(frozen=True)
 class CaseOutcome:
@@ -146,6 +160,52 @@ def wall_yplus(case_dir: Path, case: CaseRecord) -> tuple[dict[str, dict], str |
     return out, None
 
 
+def _report_values(report: ForcesReport | None, yaw_deg: float, flags: list, notes: list[str]) -> tuple[dict, str | None]:
+    """The row's coefficients from a case's forces report (keyword arguments
+    of :class:`CaseResult`) and the monitor's verdict. With the rule in
+    coefficient counts the coefficients are its window means, with their
+    spreads as ``u_*``. Appends to ``flags`` and ``notes``."""
+    nan = math.nan
+    if report is None:
+        return {"cl": nan, "cd": nan, "cs": nan}, None
+    v: dict[str, Any] = {"cl": nan, "cd": nan, "cs": nan}
+    c = report.coefficients
+    if c is not None:
+        v.update(cl=float(c.lift), cd=float(c.drag), cs=float(c.side))
+    else:
+        flags.append(Flag.FORCES_FAILED)
+        notes.append("no reference values in the manifest: coefficients not computed")
+    b = report.balance
+    if b is not None:
+        v.update(cl_front=b.c_lift_front, cl_rear=b.c_lift_rear, balance=b.balance_front,
+                 stability_margin=b.stability_margin)
+        if abs(yaw_deg) < 1e-9 and b.stability_margin is not None:
+            # at zero yaw the side force is numerical noise about zero and its
+            # centre of pressure is meaningless: report no margin
+            v["stability_margin"] = None
+            notes.append("zero yaw: no side force to place, stability margin not reported")
+        notes.extend(b.notes)
+    verdict = None
+    counts = report.coefficient_convergence
+    if counts is not None:
+        # the rule in coefficient counts; the reported coefficients are its window means
+        verdict = counts["verdict"]
+        v.update({k: float(x) for k, x in counts["means"].items()
+                  if k in ("cl", "cd", "cs", "cl_front", "cl_rear", "balance") and x is not None and math.isfinite(x)})
+        v.update({f"u_{k}": float(x) for k, x in counts["stds"].items()
+                  if k in ("cl", "cd", "cs", "cl_front", "cl_rear") and x is not None})
+        notes.append(f"coefficients: means over the last {counts['window']} iterations of the monitor")
+    elif report.convergence is not None:
+        verdict = report.convergence.verdict
+    else:
+        notes.append("no runtime force monitor found: convergence not assessed")
+    if verdict == "diverging":
+        flags.append(Flag.FORCES_DRIFTING)
+    if report.reference is not None:
+        v.update(reference_area=float(report.reference.area), air_density=float(report.reference.rho))
+    return v, verdict
+
+
 def process_case(manifest: Manifest, case: CaseRecord, flow: FlowOptions | None = None) -> CaseOutcome:
     """Post-process one case of ``manifest``: its run record, its forces
     report (when its export exists), its :class:`CaseResult` row, its force
@@ -188,42 +248,19 @@ def process_case(manifest: Manifest, case: CaseRecord, flow: FlowOptions | None 
     else:
         try:
             report = forces_report(str(case_dir))  # the monitor judged by the one convergence rule
+        except UnreadableFile as exc:  # corrupt, absurd sizes or it crashed the reader: this case only
+            flags.append(Flag.UNREADABLE)
+            notes.append(f"unreadable: {exc}".replace("\n", " "))
         except UserError as exc:
             flags.append(Flag.FORCES_FAILED)
-            notes.append(f"forces: {exc}")
-    nan = math.nan
-    cl = cd = cs = nan
-    clf = clr = bal = margin = None
-    if report is not None:
-        c = report.coefficients
-        if c is not None:
-            cl, cd, cs = float(c.lift), float(c.drag), float(c.side)
-        else:
-            flags.append(Flag.FORCES_FAILED)
-            notes.append("no reference values in the manifest: coefficients not computed")
-        b = report.balance
-        if b is not None:
-            clf, clr = b.c_lift_front, b.c_lift_rear
-            bal, margin = b.balance_front, b.stability_margin
-            if abs(base["yaw_deg"]) < 1e-9 and margin is not None:
-                # at zero yaw the side force is numerical noise about zero and its
-                # centre of pressure is meaningless: report no margin
-                margin = None
-                notes.append("zero yaw: no side force to place, stability margin not reported")
-            notes.extend(b.notes)
-        if report.convergence is not None:
-            verdict = report.convergence.verdict
-            if verdict == "diverging":
-                flags.append(Flag.FORCES_DRIFTING)
-        else:
-            notes.append("no runtime force monitor found: convergence not assessed")
+            notes.append(f"forces: {exc}".replace("\n", " "))
+    values, verdict = _report_values(report, base["yaw_deg"], flags, notes)
     yplus: dict[str, dict] = {}
     if report is not None:
         yplus, why = wall_yplus(case_dir, case)
         if why:
             notes.append(why)
-    result = CaseResult(**base, cl=cl, cd=cd, cs=cs, cl_front=clf, cl_rear=clr, balance=bal,
-                        stability_margin=margin, flags=tuple(dict.fromkeys(flags)))
+    result = CaseResult(**base, **values, flags=tuple(dict.fromkeys(flags)))
     layers = None
     if rec is not None and rec.layers:
         layers = ", ".join(f"{d.get('patch')} {d.get('thickness_percent'):.0f} %" for d in rec.layers
@@ -232,12 +269,15 @@ def process_case(manifest: Manifest, case: CaseRecord, flow: FlowOptions | None 
     flow_cols: dict[str, Any] = {}
     scene = None
     if flow is not None and exported:
-        try:
-            cf = analyse_case_flow(case_dir, flow, label=case.case_id)
+        try:  # the volume is read and analysed in a child process: a bad file cannot end the sweep
+            cf = isolated(analyse_case_flow, case_dir, flow, label=case.case_id, what=str(case_dir / "VTK"))
             flow_cols = cf.metrics.to_dict()
             scene = cf.scene
             if cf.scene_error:
                 notes.append("picture: " + cf.scene_error)
+        except UnreadableFile as exc:
+            notes.append("unreadable: " + str(exc).replace("\n", " "))
+            result = replace(result, flags=tuple(dict.fromkeys((*result.flags, Flag.UNREADABLE))))
         except UserError as exc:
             notes.append("flow: " + str(exc).splitlines()[0])
     history = None
@@ -256,11 +296,20 @@ def process_case(manifest: Manifest, case: CaseRecord, flow: FlowOptions | None 
                                                  "flow": time.perf_counter() - t_forces})
 
 
-#: nominal cell size of mesh level m relative to level 0: each level scales
-#: every mesh length by 1/√2 (caseprep.planning.domain), so h_m = 2^(−m/2);
-#: used only when a case's real cell count is not known
-def level_cell_size(level: int) -> float:
-    return 2.0 ** (-0.5 * level)
+def outcome_row(o: CaseOutcome) -> dict[str, Any]:
+    """A flat dict of one case for the CSV/JSON tables."""
+    r = asdict(o.result)
+    r["flags"] = " ".join(o.result.flags)
+    r["downforce_coefficient"] = -o.result.cl if math.isfinite(o.result.cl) else None
+    r.update(status=o.status, cells=o.cells, iterations=o.iterations, convergence=o.convergence, layers=o.layers)
+    if o.yplus:
+        a = o.yplus[ALL_WALLS]  # all body and wheel faces together
+        r.update(yplus_median=a["median"], yplus_p95=a["p95"], yplus_max=a["max"],
+                 yplus_share_in_range=a["share_in_target"], yplus_range="{:g}-{:g}".format(*a["target"]))
+    r["notes"] = "; ".join(o.notes)
+    return r
+
+
 
 
 def case_cell_size(case: CaseRecord, cells: int | None) -> float | None:
@@ -401,6 +450,7 @@ class SweepAnalysis:
     outcomes: tuple[CaseOutcome, ...] = ()
     paths: dict[str, Path] = field(default_factory=dict)
     report_data: Any = field(default=None, repr=False)
+    analysis: dict[str, Any] | None = None   # analysis.json (postproc.pipelines.analysis), when written
 
 
 def analyse_results(results: list[CaseResult], title: str = "Sweep report", study: str = "",
@@ -469,6 +519,7 @@ def postprocess_sweep(
     force: bool = False,
     options: ReportOptions = ReportOptions(),
     flow: FlowOptions | None = None,
+    analysis_config: str | os.PathLike | None = None,
 ) -> SweepAnalysis:
     """Post-process every case of a sweep and write the tables.
 
@@ -486,21 +537,27 @@ def postprocess_sweep(
     sweep.
     """
     flow = flow or FlowOptions()
-    root = Path(read_manifest(sweep_dir).root or sweep_dir)  # not a sweep: refused before anything is created
+    manifest = read_manifest(sweep_dir)  # not a sweep: refused before anything is created
+    root = Path(manifest.root or sweep_dir)
     out = Path(out_dir) if out_dir is not None else root
+    cfg_path = analysis_config if analysis_config is not None else default_config_path(root, manifest.config_file)
+    analysis_cfg = read_analysis_config(cfg_path)
+    resolve_options(analysis_cfg)   # settings errors before anything is created or any case is processed
     with contextlib.ExitStack() as locks:  # one command at a time in the sweep (and the output) folder
         locks.enter_context(sweep_lock(root, "postproc sweep"))
         if out.resolve() != root.resolve():
             locks.enter_context(sweep_lock(out, "postproc sweep"))
         refuse_interrupted(root, "postproc sweep")
-        return _postprocess_locked(read_manifest(root), out, title, progress, force, options, flow)
+        return _postprocess_locked(read_manifest(root), out, title, progress, force, options, flow,
+                                   analysis_cfg)
 
 
 def _postprocess_locked(manifest: Manifest, out: Path, title, progress, force: bool, options: ReportOptions,
-                        flow: FlowOptions) -> SweepAnalysis:
+                        flow: FlowOptions, analysis_cfg) -> SweepAnalysis:
     """:func:`postprocess_sweep` holding the locks."""
     sweep_dir = manifest.root
-    existing = [p for p in (out / "results.csv", out / "results.json", out / REPORT_NAME) if p.exists()]
+    existing = [p for p in (out / "results.csv", out / "results.json", out / REPORT_NAME, out / ANALYSIS_NAME)
+                if p.exists()]
     if existing and not force:
         raise UserError(expected="no earlier results in the output folder", got=", ".join(str(p) for p in existing),
                         fix="pass --force to replace them, or -o to write somewhere else")
@@ -560,6 +617,12 @@ def _postprocess_locked(manifest: Manifest, out: Path, title, progress, force: b
         "mesh_study": list(analysis.mesh_study),
         "aero_maps": list(analysis.aero_maps),
     }))
+    analysis_doc = None
+    try:   # the same analysis as `postproc analyse` on this folder
+        analysis_doc = analyse_table(read_sweep_table(out), analysis_cfg)
+        paths["analysis"] = write_analysis(analysis_doc, out / ANALYSIS_NAME)
+    except UserError as exc:
+        analysis = replace(analysis, notes=analysis.notes + (f"analysis.json not written: {exc}",))
     # the pictured cases again, now with every flag known; a scene still missing is built now
     results = [o.result for o in outcomes]
     skipped: list[tuple[str, str]] = []
@@ -573,8 +636,9 @@ def _postprocess_locked(manifest: Manifest, out: Path, title, progress, force: b
             skipped.append((pc.case_id, tried.split(": ", 1)[1]))
         elif sc is None:
             try:
-                cf = analyse_case_flow(manifest.case_dir(manifest.case(pc.case_id)), replace(flow, scene=True),
-                                       label=pc.case_id)
+                cdir = manifest.case_dir(manifest.case(pc.case_id))
+                cf = isolated(analyse_case_flow, cdir, replace(flow, scene=True), label=pc.case_id,
+                              what=str(cdir / "VTK"))
                 sc = cf.scene
                 if sc is None:
                     skipped.append((pc.case_id, cf.scene_error or "no picture scene"))
@@ -589,22 +653,11 @@ def _postprocess_locked(manifest: Manifest, out: Path, title, progress, force: b
     base = next((sc for sc in scenes if sc.variant == baseline), None)
     scenes = [scene_difference(sc, base) for sc in scenes]
     flow_rows = {o.result.case_id: {"variant": o.result.variant, **o.flow} for o in outcomes if o.flow}
-    # analysis results beside the tables (ties, peak/stall, platform), when present: optional report sections
-    extra_notes = []
-    analysis_doc = None
-    apath = out / "analysis.json"
-    if apath.is_file():
-        try:
-            analysis_doc = json.loads(apath.read_text(encoding="utf-8"))
-            if not isinstance(analysis_doc, dict):
-                raise ValueError("not a JSON object")
-        except (ValueError, UnicodeDecodeError) as exc:
-            analysis_doc = None
-            extra_notes.append(f"{apath} not used: {exc}")
+    extra_notes: list[str] = []
     data = assemble(results, title=title, study=manifest.study, notes=notes + extra_notes, checks=checks,
                     mesh_study=list(analysis.mesh_study), aero_maps=list(analysis.aero_maps), flow_rows=flow_rows,
                     scenes=scenes, picture_cases=pcs, pictures_skipped=skipped,
                     histories=[o.history for o in outcomes if o.history is not None],
                     spread=_iterative_spread(outcomes), options=replace(options, baseline=baseline),
                     ranking=list(analysis.ranking), analysis=analysis_doc)
-    return replace(analysis, outcomes=tuple(outcomes), paths=paths, report_data=data)
+    return replace(analysis, outcomes=tuple(outcomes), paths=paths, report_data=data, analysis=analysis_doc)

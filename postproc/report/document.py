@@ -30,6 +30,12 @@ from .scales import CP_SCALE, DCP_SCALE, SENSE_COLOURS, SENSE_NAMES, hex_colour
 
 TEMPLATE = "report/sweep_report.html.j2"
 
+METRIC_LABELS = {
+    "downforce": "mean −C_L", "drag": "mean C_D", "efficiency": "mean −C_L/C_D", "balance_range": "balance range",
+    "yaw_retention": "yaw retention", "min_stability_margin": "min stability margin", "downforce_spread":
+    "downforce spread",
+}
+
 VIEW_NOTES = {
     "floor": "The body seen from below (nose left, driver's right side at the bottom), coloured by the pressure "
              "coefficient C_p on the one banded scale used for every variant.",
@@ -68,18 +74,26 @@ def fmt(x, nd: int = 3) -> str:
 def summary(data) -> dict:
     """The verdict in plain words: the recommended variant, why, and the
     standing of the others."""
-    ranked = [f for f in data.variants if f.rank is not None]
+    ranked = sorted((f for f in data.variants if f.rank is not None), key=lambda f: f.rank)
     if not ranked:
         return {"headline": "No variant can be recommended: no variant has a usable case.", "reasons": []}
     best = ranked[0]
     m = best.metrics
     reasons = []
+    dec = getattr(data, "decision", None)
+
+    def score(f):
+        u = getattr(f, "score_uncertainty", None)
+        return f"{f.score:.3f}" + (f" ± {u:.2g}" if u is not None else "") if f.score is not None else "—"
+
     if len(ranked) > 1:
         second = ranked[1]
-        reasons.append(f"It has the highest score, {best.score:.2f} against {second.score:.2f} for {second.variant} "
-                       f"(weighted performance and robustness, best = 1 per metric).")
+        reasons.append(f"{best.variant} has the highest score, {score(best)} against {score(second)} for "
+                       f"{second.variant} (weighted performance and robustness"
+                       + (" on the operating points every variant has" if dec is not None else ", best = 1 per metric")
+                       + ").")
     else:
-        reasons.append("It is the only variant with usable cases.")
+        reasons.append(f"{best.variant} is the only variant with usable cases.")
     if m.get("downforce") is not None:
         others = [f.metrics.get("downforce") for f in ranked[1:] if f.metrics.get("downforce") is not None]
         cmp_ = ""
@@ -98,6 +112,21 @@ def summary(data) -> dict:
                        " within their uncertainty: treat them as a tie.")
     if not best.complete:
         reasons.append("Careful: it lacks usable results at some points of the envelope (see the watch list).")
+    if dec is not None:
+        status = str(dec.get("status", ""))
+        if status == "clear" and dec.get("winner"):
+            head = f"Build {dec['winner']}."
+        elif status == "incomplete":
+            head = "No clean winner yet: " + str(dec.get("message", "")).rstrip(".") + "."
+            if dec.get("best_complete"):
+                reasons.append(f"The best variant with usable results over the whole envelope is "
+                               f"{dec['best_complete']}.")
+        elif status == "tie":
+            head = "A tie: " + ", ".join(str(t) for t in dec.get("tied") or ()) + " cannot be told apart within " \
+                   "their uncertainty."
+        else:
+            head = "No variant can be recommended: " + str(dec.get("message", status)).rstrip(".") + "."
+        return {"headline": head, "reasons": reasons, "variant": dec.get("winner")}
     head = f"Build {best.variant}." if best.complete and not best.tie_with else \
         f"Lean towards {best.variant}, with the reservations below."
     return {"headline": head, "reasons": reasons, "variant": best.variant}
@@ -112,7 +141,7 @@ def caution_text(c) -> tuple[str, str]:
     if c.kind == "flagged-points":
         return "high", (f"{v}: {n} case(s) carry flags ({c.detail}) and are not ranked: {', '.join(c.cases)}.")
     if c.kind == "incomplete-winner":
-        return "high", f"The recommended variant {v} is incomplete: {c.detail}."
+        return "high", f"The best-scoring variant {v} is incomplete: {c.detail.rstrip('.')}."
     if c.kind == "tie":
         return "high", f"{v} ties with {c.detail}: the data do not separate them."
     if c.kind == "stall-in-envelope":
@@ -128,6 +157,10 @@ def caution_text(c) -> tuple[str, str]:
                         f"{100 * c.value:.0f} % of the ramp length from the throat ({', '.join(c.cases)}).")
     if c.kind == "pictures-missing":
         return "note", f"Pictures: {c.detail}"
+    if c.kind == "weights":
+        return "high", f"The leading variant {v} changes when one ranking weight moves by ±25 %: {c.detail}."
+    if c.kind == "decision":
+        return "high", f"The analysis names no winner: {c.detail}."
     return "note", c.detail
 
 
@@ -245,11 +278,14 @@ def build_context(data, options: PictureOptions = PictureOptions(), info: Render
     cautions = [caution_text(c) for c in data.cautions]
     for n in pnotes + [f"{cid}: {why}" for cid, why in data.pictures_skipped]:
         cautions.append(("note", f"Pictures: {n}"))
+    metric_names = list(dict.fromkeys(k for f in data.variants for k in f.metrics))
     standings = [{
-        "rank": f.rank if f.rank is not None else "—", "variant": f.variant, "score": fmt(f.score, 3),
+        "rank": f.rank if f.rank is not None else "—", "variant": f.variant,
+        "score": fmt(f.score, 3) + (f" ± {f.score_uncertainty:.2g}" if getattr(f, "score_uncertainty", None)
+                                    is not None else ""),
         "pareto": "yes" if f.pareto else "", "complete": "yes" if f.complete else "no",
         "tie": ", ".join(f.tie_with), "n": f.n_cases, "flagged": f.n_flagged,
-        **{k: fmt(v, 3) for k, v in f.metrics.items()}, "notes": "; ".join(f.notes),
+        "values": [fmt(f.metrics.get(k), 3) for k in metric_names], "notes": "; ".join(f.notes),
     } for f in data.variants]
     base_cols = [("variant", "variant", None), ("case_id", "case", None)]
     diff_cols = base_cols + [
@@ -278,6 +314,7 @@ def build_context(data, options: PictureOptions = PictureOptions(), info: Render
         "summary": summary(data), "cautions": cautions,
         "picture_groups": groups, "figures": figures, "map_note": data.map_note,
         "standings": standings, "flow_tables": flow_tables,
+        "metric_labels": [METRIC_LABELS.get(k, k.replace("_", " ")) for k in metric_names],
         "mesh_study": data.mesh_study, "checks": _rows(data.checks, 2), "cases": data.cases,
         "flagged": [c for c in data.cases if c.get("flags")],
         "notes": list(data.notes), "baseline": data.baseline, "analysis": data.analysis,
@@ -308,9 +345,13 @@ def render_report(data, options: PictureOptions = PictureOptions()) -> tuple[str
     return text, info
 
 
-def write_report(data, path: str | os.PathLike, options: PictureOptions = PictureOptions()) -> tuple[Path, RenderInfo]:
-    """Render and write the report atomically; returns the path and timings."""
-    text, info = render_report(data, options)
+def write_report(data, path: str | os.PathLike, options: PictureOptions = PictureOptions(),
+                 info: RenderInfo | None = None) -> Path:
+    """Render and write the report atomically; returns the path. ``info``
+    (optional) is filled with what rendering took."""
+    text, got = render_report(data, options)
+    if info is not None:
+        info.__dict__.update(got.__dict__)
     p = Path(path)
-    write_text_atomic(p, text, root=p.parent)  # never through a link named like the report
-    return p, info
+    write_text_atomic(p, text)
+    return p

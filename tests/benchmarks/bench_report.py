@@ -132,13 +132,14 @@ def bench_case(cells: int) -> None:
 
 def bench_sweep(sweep: Path) -> None:
     from postproc.pipelines.sweep import postprocess_sweep
-    from postproc.report import write_report
+    from postproc.report import RenderInfo, write_report
 
     with tempfile.TemporaryDirectory() as d:
         t0, c0 = time.perf_counter(), time.process_time()
         analysis = postprocess_sweep(sweep, d, force=True)
         t_post = time.perf_counter() - t0
-        p, info = write_report(analysis, Path(d) / "report.html")
+        info = RenderInfo()
+        write_report(analysis, Path(d) / "report.html", info=info)
         t_all, c_all = time.perf_counter() - t0, time.process_time() - c0
         forces = sum(o.seconds.get("forces", 0.0) for o in analysis.outcomes)
         flow = sum(o.seconds.get("flow", 0.0) for o in analysis.outcomes)

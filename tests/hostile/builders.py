@@ -25,6 +25,24 @@ def body_polydata(n_sub: int = 1):
     return polydata(X, F, {"p": np.ones(m), "wallShearStress": np.zeros((m, 3)), "yPlus": np.full(m, 40.0)})
 
 
+def volume_vtu(path: Path) -> Path:
+    """A small hexahedral volume (27 cells, zero velocity, DEMO data) as a
+    compressed .vtu, as the converter writes ``internal.vtu``."""
+    import pyvista as pv
+
+    g = pv.ImageData(dimensions=(4, 4, 4), spacing=(0.1, 0.1, 0.1)).cast_to_unstructured_grid()
+    g.cell_data["U"] = np.zeros((g.n_cells, 3), np.float32)
+    g.cell_data["p"] = np.zeros(g.n_cells, np.float32)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    import vtk
+
+    w = vtk.vtkXMLUnstructuredGridWriter()  # appended, compressed: as the converter writes it
+    w.SetInputData(g)
+    w.SetFileName(str(path))
+    w.Write()
+    return path
+
+
 def run_record(case_id: str, **over) -> dict:
     """An ``ok`` run record of the shape the runner writes."""
     rec = {"case_id": case_id, "folder": f"cases/{case_id}", "status": "ok", "message": "", "ranks": 1,

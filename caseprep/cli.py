@@ -228,19 +228,30 @@ def _format_table(rows: list[dict], columns: tuple[str, ...]) -> str:
 
 @main.command("plan")
 @click.argument("config", type=click.Path(dir_okay=False))
-def plan_cmd(config: str) -> None:
+@click.option("--json", "as_json", is_flag=True,
+              help="Print every case as JSON: the table row plus first-cell height and centre y+, the gap plan, "
+                   "the free-stream turbulence at inlet and model, the local Mach number and each wheel's placement.")
+def plan_cmd(config: str, as_json: bool) -> None:
     """Print the sweep matrix of CONFIG (one row per case: id, variant,
     ride heights mm, pitch and yaw deg, speed m/s, mesh level, minimum ground
     clearance mm and where along the body (% of length from the nose),
     blockage %, estimated cells). Writes nothing."""
+    import json
+
     from caseprep.config.load import load_config
-    from caseprep.planning.planner import TABLE_COLUMNS, plan_all, table_rows
+    from caseprep.planning.planner import TABLE_COLUMNS, plan_all, plan_json, table_rows
+    from caseprep.contract.atomicio import json_ready
     from caseprep.contract.errors import UserErrors
 
     cfg = load_config(config)
     result = plan_all(cfg)
     if result.problems:
         raise result.problems[0] if len(result.problems) == 1 else UserErrors(result.problems)
+    if as_json:
+        click.echo(json.dumps({"study": cfg.study.name, "fidelity": cfg.mesh.fidelity, "yaw_mode": cfg.sweep.yaw_mode,
+                               "ground": cfg.ground.mode, "cases": json_ready(plan_json(result.cases)),
+                               "warnings": list(result.warnings)}, indent=1))
+        return
     rows = table_rows(result.cases)
     click.echo(f"study {cfg.study.name}: {len(rows)} cases, fidelity {cfg.mesh.fidelity}, yaw mode {cfg.sweep.yaw_mode}, "
                f"ground {cfg.ground.mode}")

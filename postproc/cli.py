@@ -528,12 +528,12 @@ def underbody_cmd(source, lines, speed, pressure, as_json, output, force):
 
 
 def _yplus_target(treatment: str, yplus_range: str | None) -> tuple[float, float]:
-    from postproc.kernels.wallchecks import YPLUS_RANGES
+    from caseprep.contract.walls import WALL_TREATMENTS
 
     if yplus_range:
         lo, hi = _floats(yplus_range, "--yplus-range", 2)
         return (lo, hi)
-    return YPLUS_RANGES[treatment]
+    return WALL_TREATMENTS[treatment].band
 
 
 def _print_walls(d: dict) -> None:
@@ -551,8 +551,9 @@ def _print_walls(d: dict) -> None:
 
 @main.command("walls")
 @click.argument("source", type=click.Path())
-@click.option("--treatment", type=click.Choice(["wall-functions", "resolved", "resolved-relaxed"]),
-              default="wall-functions", show_default=True, help="Intended wall treatment (its y+ range).")
+@click.option("--treatment", type=click.Choice(["wall-function", "low-re", "laminar"]),
+              default="wall-function", show_default=True,
+              help="Intended wall treatment (its y+ band: wall-function 30-150, low-re and laminar 0-5).")
 @click.option("--yplus-range", help="Explicit intended y+ range lo,hi (overrides --treatment).")
 @click.option("--nu", type=float, help="Kinematic viscosity (m^2/s) when there is no sweep manifest.")
 @click.option("--speed", type=float, help="Reference speed V (m/s) when there is no sweep manifest.")
@@ -573,8 +574,9 @@ def walls_cmd(source, treatment, yplus_range, nu, speed, lines, as_json, output,
               help="Length l normalising Q: the ride height (gap; 'auto' when the manifest gives it) or the "
                    "reference length.")
 @click.option("--gap", type=float, help="Gap scale h (m) when there is no sweep manifest.")
-@click.option("--treatment", type=click.Choice(["wall-functions", "resolved", "resolved-relaxed"]),
-              default="wall-functions", show_default=True, help="Intended wall treatment (its y+ range).")
+@click.option("--treatment", type=click.Choice(["wall-function", "low-re", "laminar"]),
+              default="wall-function", show_default=True,
+              help="Intended wall treatment (its y+ band: wall-function 30-150, low-re and laminar 0-5).")
 @_with_common
 def flow_cmd(source, q_star, q_scale, gap, treatment, as_json, output, force):
     """All flow-structure results of one case in one JSON: vortices, diffuser

@@ -78,9 +78,50 @@ def test_first_cell_height_worked_example():
     # log10(3.2e6) = 6.505150, 2·6.505150 − 0.65 = 12.360300, ln 12.3603 = 2.514490,
     # C_f = exp(−2.3 · 2.514490) = exp(−5.783327) = 3.07846e-3 (Schlichting),
     # u_tau = 40 · sqrt(3.07846e-3 / 2) = 40 · 0.0392330 = 1.569320 m/s,
-    # y = y+ nu / u_tau = 30 · 1.5e-5 / 1.569320 = 2.86748e-4 m.
+    # the cell centre sits at y+ = 30: y_c = y+ nu / u_tau = 30 · 1.5e-5 / 1.569320 = 2.86748e-4 m,
+    # the whole first cell twice that: 5.73496e-4 m.
     y = ph.first_cell_height(30.0, 40.0, 1.2, 1.5e-5)
-    assert y == pytest.approx(2.86748e-4, rel=1e-5)  # 6 digits carried through the steps
+    assert y == pytest.approx(2 * 2.86748e-4, rel=1e-5)  # 6 digits carried through the steps
+    assert ph.centre_yplus(y, 40.0, 1.2, 1.5e-5) == pytest.approx(30.0, rel=1e-12)  # the exact inverse
+
+
+def test_speed_of_sound_and_density_ratio():
+    # a = sqrt(1.4 · 287.05287 · 288.15) = 340.294 m/s: the ISO 2533 sea-level speed of sound (340.294 m/s, from memory)
+    assert ph.speed_of_sound(288.15) == pytest.approx(340.294, abs=1e-3)
+    # isentropic ρ/ρ0 = (1 + 0.2 M²)^-2.5; by hand at M = 0.3: 1.018^-2.5 = exp(-2.5 · 0.0178399) = 0.956380
+    assert ph.isentropic_density_ratio(0.3) == pytest.approx(0.956380, rel=1e-6)
+
+
+def test_sst_decay_closed_form():
+    # U dk/dx = -β* ω k, U dω/dx = -β ω² (SST without production, NASA Langley Turbulence Modeling Resource
+    # SST equations): integrate the ODEs numerically (RK4, 20 000 steps) and compare with the closed form.
+    k0, w0, U, X = 0.2, 40.0, 30.0, 5.0
+    y = np.array([k0, w0])
+    f = lambda y: np.array([-ph.SST_BETA_STAR * y[1] * y[0], -ph.SST_BETA2 * y[1] ** 2]) / U
+    n = 20000
+    h = X / n
+    for _ in range(n):
+        a = f(y); b = f(y + 0.5 * h * a); c = f(y + 0.5 * h * b); d = f(y + h * c)
+        y = y + h / 6 * (a + 2 * b + 2 * c + d)
+    k, w = ph.sst_decay(k0, w0, X, U)
+    assert k == pytest.approx(y[0], rel=1e-9) and w == pytest.approx(y[1], rel=1e-9)  # RK4 error ~ h^4
+
+
+@pytest.mark.parametrize("U,I,ell,x", [(40.0, 0.005, 0.014, 6.0), (80.0, 0.01, 0.05, 24.0), (25.0, 0.02, 0.1, 2.0)])
+def test_inlet_values_deliver_the_requested_turbulence_at_the_model(U, I, ell, x):
+    # inverting the decay: the inlet values, decayed over x (Spalart & Rumsey 2007, AIAA J. 45(10) 2544-2553: two-equation
+    # free-stream turbulence decays algebraically, k ~ (1 + β ω0 t)^(-β*/β)), give the requested intensity within 5 %
+    t = ph.turbulence_at_model(U, I, ell, x)
+    k, w = ph.sst_decay(t.k_inlet, t.omega_inlet, x, U)
+    assert np.sqrt(2 * k / 3) / U == pytest.approx(I, rel=0.05)
+    assert np.sqrt(k) / (ph.C_MU ** 0.25 * w) == pytest.approx(ell, rel=0.05)
+    assert t.k_inlet > t.k_model and t.intensity_inlet > I  # turbulence decays on its way to the model
+
+
+def test_unreachable_length_scale_is_refused():
+    # ω cannot fall below U/(β x) over x: a 1 mm scale at 0.5 % and 40 m/s over 6 m needs ω_m = 224 1/s > 40/(0.0828·6)
+    with pytest.raises(ValueError, match="cannot be reached"):
+        ph.turbulence_at_model(40.0, 0.005, 0.001, 6.0)
 
 
 def test_inlet_turbulence_textbook():

@@ -184,7 +184,7 @@ def test_inlet_turbulence_and_walls():
     for p in ("body", "floor", "ground"):
         assert k[p]["type"] == "kqRWallFunction"
         assert om[p]["type"] == "omegaWallFunction"
-        assert nut[p]["type"] == "nutkWallFunction"
+        assert nut[p]["type"] == "nutUSpaldingWallFunction"  # Spalding's law: valid through the buffer region
     assert parsed(files, "0/p")["boundaryField"]["outlet"] == {"type": "fixedValue", "value": ["uniform", 0]}
 
 
@@ -218,7 +218,7 @@ def test_controls_and_monitors():
     assert tp["RAS"]["RASModel"] == "kOmegaSST"
     assert parsed(files, "constant/transportProperties")["nu"] == pytest.approx(spec.flow.nu)
     dp = parsed(files, "system/decomposeParDict")
-    assert dp["method"] == "simple" and dp["numberOfSubdomains"] == spec.solver.n_procs
+    assert dp["method"] == "ptscotch" and dp["numberOfSubdomains"] == spec.solver.n_procs
 
 
 @pytest.mark.parametrize("n,w,exp", [(20, 20, 20), (20, 15, 10), (1000, 300, 250), (997, 300, 997), (100, 1, 1),

@@ -44,8 +44,10 @@ import numpy as np
 from caseprep.casefiles import foamdict
 from caseprep.planning.batch import BatchSettings
 from caseprep.planning.spec import CaseSpec, OrientedBox
+from caseprep.contract import walls
 from caseprep.contract.errors import UserError
 from caseprep.contract.monitor import FORCES_NAME
+from caseprep.contract.walls import WallTreatment
 from caseprep.contract.templating import environment
 
 # Relative path from a case's constant/triSurface/ to the sweep's geometry/ folder
@@ -115,6 +117,13 @@ LEAD_IN_PATCH_FACES = {
     "sides": [(0, 8, 10, 4), (8, 1, 5, 10), (3, 7, 11, 9), (9, 11, 6, 2)],
 }
 LEAD_IN_PATCH = "lead_in"
+# With prism layers on the ground under the body the box is 3 × 3 blocks in
+# e1 × e2 (split at the background cells of spec.domain.ground_layer_cells):
+# the bottom of the middle block is the patch ``ground`` (with layers), the
+# other bottoms the patch ``ground_far`` (the same wall, no layers).
+GROUND_FAR_PATCH = "ground_far"
+_LOCAL_FACES = {"inlet": (0, 4, 7, 3), "outlet": (1, 2, 6, 5), "bottom": (0, 3, 2, 1), "top": (4, 5, 6, 7),
+                "side_lo": (0, 1, 5, 4), "side_hi": (3, 7, 6, 2)}
 
 
 @dataclass(frozen=True)
@@ -230,11 +239,57 @@ def wheel_patches(spec: CaseSpec) -> list[str]:
     return [surface_patch_name(w.patch) for w in spec.wheels]
 
 
+def _grid(spec: CaseSpec) -> tuple[list[np.ndarray], list[dict[str, Any]], dict[str, list[tuple[int, ...]]]]:
+    """The 3 × 3-block background of a case with a layered ground rectangle:
+    vertices (m), blocks and faces per role (see :data:`GROUND_FAR_PATCH`)."""
+    d = spec.domain
+    i1, i2, j1, j2 = d.ground_layer_cells
+    n1, n2, n3 = d.cells
+    if not (0 < i1 < i2 < n1 and 0 < j1 < j2 < n2):
+        raise ValueError(f"ground rectangle {d.ground_layer_cells} does not fit inside {d.cells[:2]} background cells")
+    xs, ys = (0, i1, i2, n1), (0, j1, j2, n2)
+    ax = np.asarray(d.box.axes, dtype=float)
+    step = ax * (np.asarray(d.box.lengths, dtype=float) / np.asarray(d.cells, dtype=float))[:, None]
+    o = np.asarray(d.box.origin, dtype=float)
+    verts = [o + xs[a] * step[0] + ys[b] * step[1] + c * n3 * step[2] for c in (0, 1) for b in range(4) for a in range(4)]
+
+    def v(a: int, b: int, c: int) -> int:
+        return c * 16 + b * 4 + a
+
+    blocks, faces = [], {r: [] for r in ("inlet", "outlet", "sides", "top", "bottom", "bottom_far")}
+    for b in range(3):
+        for a in range(3):
+            loc = (v(a, b, 0), v(a + 1, b, 0), v(a + 1, b + 1, 0), v(a, b + 1, 0),
+                   v(a, b, 1), v(a + 1, b, 1), v(a + 1, b + 1, 1), v(a, b + 1, 1))
+            blocks.append({"verts": loc, "cells": (xs[a + 1] - xs[a], ys[b + 1] - ys[b], n3)})
+            face = {k: tuple(loc[i] for i in f) for k, f in _LOCAL_FACES.items()}
+            if a == 0:
+                faces["inlet"].append(face["inlet"])
+            if a == 2:
+                faces["outlet"].append(face["outlet"])
+            if b == 0:
+                faces["sides"].append(face["side_lo"])
+            if b == 2:
+                faces["sides"].append(face["side_hi"])
+            faces["top"].append(face["top"])
+            faces["bottom" if (a, b) == (1, 1) else "bottom_far"].append(face["bottom"])
+    return verts, blocks, faces
+
+
 def domain_patches(spec: CaseSpec) -> list[dict[str, Any]]:
     """Background-mesh patches: name, type, faces (corner indices), role."""
     g = spec.domain.ground
     if g not in ("moving", "stationary", "none"):
         raise ValueError(f"expected domain.ground moving/stationary/none, got {g!r}")
+    if spec.domain.ground_layer_cells is not None:
+        if g == "none" or spec.domain.lead_in > 0.0:
+            raise ValueError("a layered ground rectangle needs a ground and no lead-in floor")
+        out = []
+        for role, fs in _grid(spec)[2].items():
+            name = {"bottom": ground_patch_name(g), "bottom_far": GROUND_FAR_PATCH}.get(role, role)
+            ptype = "wall" if role.startswith("bottom") else "patch"
+            out.append({"name": name, "type": ptype, "faces": fs, "role": role})
+        return out
     out = []
     lead = spec.domain.lead_in > 0.0
     faces = LEAD_IN_PATCH_FACES if lead else DOMAIN_PATCH_FACES
@@ -253,6 +308,9 @@ def background_blocks(spec: CaseSpec) -> tuple[list[np.ndarray], list[dict[str, 
     :data:`LEAD_IN_PATCH_FACES`). Each block: vertex indices, cell counts,
     grading (1, 1, ``ground_grading``)."""
     d = spec.domain
+    if d.ground_layer_cells is not None:
+        verts, blocks, _ = _grid(spec)
+        return verts, blocks
     corners = list(d.box.corners())
     n1, n2, n3 = d.cells
     if d.lead_in <= 0.0:
@@ -284,6 +342,14 @@ def all_patches(spec: CaseSpec) -> list[str]:
 
 
 # --------------------------------------------------------------------------- boundary conditions
+def wall_treatment(spec: CaseSpec) -> WallTreatment:
+    """The wall treatment of a case (its layers', else its model's default)."""
+    name = spec.mesh.layers.treatment if spec.mesh.layers is not None else None
+    if name is not None and not turbulent(spec):
+        name = "laminar"
+    return walls.wall_treatment(name, spec.flow.model)
+
+
 def turbulent(spec: CaseSpec) -> bool:
     m = spec.flow.model
     if m not in ("kOmegaSST", "laminar"):
@@ -337,9 +403,13 @@ def boundary_conditions(spec: CaseSpec) -> dict[str, dict[str, dict[str, str]]]:
 
     zg = {"type": "zeroGradient"}
     slip = {"type": "slip"}
-    k_wall = {"type": "kqRWallFunction", "value": k_in}
-    om_wall = {"type": "omegaWallFunction", "value": om_in}
-    nut_wall = {"type": "nutkWallFunction", "value": _s(0.0)}
+    tr = wall_treatment(spec)
+    if tr.k == "fixedValue":  # turbulence resolved to the wall: k = 0 there
+        k_wall = {"type": "fixedValue", "value": _s(0.0)}
+    else:
+        k_wall = {"type": tr.k or "kqRWallFunction", "value": k_in}
+    om_wall = {"type": tr.omega or "omegaWallFunction", "value": om_in}
+    nut_wall = {"type": tr.nut or "nutkWallFunction", "value": _s(0.0)}
 
     for dp in domain_patches(spec):
         name, role = dp["name"], dp["role"]
@@ -353,9 +423,9 @@ def boundary_conditions(spec: CaseSpec) -> dict[str, dict[str, dict[str, str]]]:
                 {"type": "inletOutlet", "inletValue": k_in, "value": k_in},
                 {"type": "inletOutlet", "inletValue": om_in, "value": om_in},
                 {"type": "calculated", "value": nut_in})
-        elif role == "bottom" and spec.domain.ground == "moving":
+        elif role in ("bottom", "bottom_far") and spec.domain.ground == "moving":
             put(name, {"type": "fixedValue", "value": _u(f.ground_velocity)}, zg, k_wall, om_wall, nut_wall)
-        elif role == "bottom" and spec.domain.ground == "stationary":
+        elif role in ("bottom", "bottom_far") and spec.domain.ground == "stationary":
             put(name, {"type": "noSlip"}, zg, k_wall, om_wall, nut_wall)
         else:  # top, sides, far-field bottom
             put(name, slip, zg, slip, slip, {"type": "calculated", "value": nut_in})
@@ -372,6 +442,29 @@ def boundary_conditions(spec: CaseSpec) -> dict[str, dict[str, dict[str, str]]]:
                      "value": _u((0.0, 0.0, 0.0))}
             put(patch, U, zg, k_wall, om_wall, nut_wall)
     return bc
+
+
+# --------------------------------------------------------------------------- rotating zones
+def rotating_zones(spec: CaseSpec) -> list[dict[str, Any]]:
+    """The rotating reference zones of wheels with ``rotation = "zone"``: a
+    cylinder about the wheel axis through its centre, ``zone_radius`` (m)
+    in radius, over the wheel's width (m), as the mesher's cell zone and the
+    solver's MRF entry (origin, axis, omega rad/s: the wheel's own spin, so
+    the zone's frame turns with the rim). Names ``<patch>_zone``."""
+    out = []
+    for w in spec.wheels:
+        if w.rotation != "zone":
+            continue
+        if not w.zone_radius or not w.width:
+            raise ValueError(f"wheel {w.name}: a rotating zone needs zone_radius and width")
+        c, a = np.asarray(w.centre, dtype=float), np.asarray(w.axis, dtype=float)
+        a = a / np.linalg.norm(a)
+        half = 0.5 * float(w.width)
+        name = foamdict.word(surface_patch_name(w.patch) + "_zone")
+        out.append({"name": name, "point1": foamdict.fmt_vector(c - half * a), "point2": foamdict.fmt_vector(c + half * a),
+                    "radius": foamdict.fmt_scalar(w.zone_radius), "origin": foamdict.fmt_vector(c),
+                    "axis": foamdict.fmt_vector(a), "omega": foamdict.fmt_scalar(w.omega)})
+    return out
 
 
 # --------------------------------------------------------------------------- context
@@ -457,12 +550,13 @@ def context(spec: CaseSpec) -> dict[str, Any]:
             "min_thickness": foamdict.fmt_scalar(0.1 * total),
         }
     monitored = body_patches(spec) + wheel_patches(spec)
-    walls = [p for s in surf for p in s.patches]
-    if spec.domain.ground != "none":
-        walls_with_ground = walls + ["ground"]
-    else:
-        walls_with_ground = walls
+    surface_walls = [p for s in surf for p in s.patches]
+    ground_walls = [dp["name"] for dp in domain_patches(spec) if dp["type"] == "wall"]
+    walls_with_ground = surface_walls + ground_walls
+    layered = surface_walls + ([ground_patch_name(spec.domain.ground)]
+                               if m.layers is not None and m.layers.ground and spec.domain.ground_layer_cells is not None else [])
     bc = boundary_conditions(spec)
+    zones = rotating_zones(spec)
     return {
         "spec": spec,
         "case_id": spec.case_id,
@@ -480,10 +574,10 @@ def context(spec: CaseSpec) -> dict[str, Any]:
         "surface_max": m.surface_levels[1],
         "feature_level": m.feature_level,
         "feature_angle": foamdict.fmt_scalar(m.feature_angle_deg),
-        "regions": [dict(_box_dict(r.box), level=int(r.level)) for r in m.regions],
+        "regions": [dict(_box_dict(r.box), level=int(r.level), z_splits=int(r.z_splits)) for r in m.regions],
         "location_in_mesh": foamdict.fmt_vector(m.location_in_mesh),
         "layers": layers,
-        "layer_patches": walls,
+        "layer_patches": layered,
         "max_global_cells": int(max(2_000_000, 4 * int(spec.estimated_cells))),
         "merge_tolerance": "1e-06",
         "nu": foamdict.fmt_scalar(spec.flow.nu),
@@ -508,6 +602,9 @@ def context(spec: CaseSpec) -> dict[str, Any]:
         "names": {"forces": FORCES_NAME, "residuals": SOLVER_INFO_NAME,
                   "wall_shear": WALL_SHEAR_NAME, "yplus": YPLUS_NAME},
         "geometry_link_dir": GEOMETRY_FROM_TRISURFACE,
+        "zones": zones,
+        "zone_level": m.surface_levels[1],
+        "non_rotating_patches": [p for p in all_patches(spec) if p not in set(wheel_patches(spec))],
     }
 
 
@@ -553,6 +650,8 @@ def render_case(spec: CaseSpec, env: jinja2.Environment | None = None) -> dict[s
         if not ctx["surfaces"] and path in SURFACE_ONLY:
             continue  # empty test section: nothing to snap
         out[path] = CaseFile(env.get_template(tpl).render(ctx), mode)
+    if ctx["zones"]:
+        out["constant/MRFProperties"] = CaseFile(env.get_template("case/constant/MRFProperties.j2").render(ctx), 0o644)
     field_tpl = env.get_template("case/0/field.j2")
     for name in ctx["fields"]:
         cls, dims, kind = FIELD_INFO[name]

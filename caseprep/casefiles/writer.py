@@ -42,6 +42,8 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Mapping, Sequence
 
+import numpy as np
+
 from caseprep.contract import __version__
 from caseprep.contract.errors import UserError
 from caseprep.contract.manifest import MANIFEST_NAME, CaseRecord, Manifest, read_manifest, write_manifest
@@ -50,7 +52,8 @@ from caseprep.casefiles.render import (CASES_DIR, GEOMETRY_DIR, CaseFile, output
 from caseprep.contract.atomicio import open_folder, write_bytes_atomic, write_json_atomic, write_text_atomic
 from caseprep.contract.limits import is_case_id
 from caseprep.contract.locking import JOURNAL_NAME, interrupted_write, sweep_lock
-from caseprep.geometry.stl import convert_to_stl, scale_stl_bytes, stl_solid_names, with_solid_names_as_read
+from caseprep.geometry.stl import (convert_to_stl, read_stl, scale_stl_bytes, stl_ascii_text, stl_binary_bytes,
+                                   stl_solid_names, with_solid_names_as_read)
 from caseprep.planning.batch import BatchSettings
 from caseprep.planning.spec import CaseSpec
 
@@ -98,8 +101,35 @@ def _expected_solids(spec: CaseSpec) -> dict[str, list[str]]:
     return {s.file: [solid for solid, _ in s.regions] for s in surfaces(spec)}
 
 
+def _make_geometry(name: str, recipe: Mapping) -> bytes:
+    """A geometry file the planner asked for (``spec.extra["geometry_recipes"]``):
+    the ``source`` STL read in its ``unit``, the ``solids`` kept (None: all),
+    the points moved by p' = ``rotation`` @ p + ``offset`` (m; None: kept),
+    written as one binary STL solid (``solid_name`` given: a placed wheel)
+    or as ASCII with the kept solids' names (a body without its wheels)."""
+    try:
+        surf = read_stl(recipe["source"], recipe["unit"], default_name=recipe.get("solid_name") or "body")
+    except UserError as exc:
+        raise UserError(f"{exc} (making geometry/{name})") from None
+    if recipe.get("solids") is not None:
+        missing = [n for n in recipe["solids"] if n not in surf.solid_names]
+        if missing:
+            raise UserError(expected=f"the solids {missing} in {recipe['source']}", got=list(surf.solid_names),
+                            file=str(recipe["source"]), key="geometry solids", fix="check the solid names of the file")
+        surf = surf.select(recipe["solids"])
+    tris = surf.triangles
+    if recipe.get("rotation") is not None:
+        R = np.asarray(recipe["rotation"], dtype=float).reshape(3, 3)
+        tris = tris @ R.T + np.asarray(recipe["offset"], dtype=float).reshape(3)
+    if recipe.get("solid_name"):
+        return stl_binary_bytes(tris)
+    groups = [(n, tris[surf.solid == i]) for i, n in enumerate(surf.solid_names)]
+    return stl_ascii_text(groups).encode()
+
+
 def _prepare_geometry(specs: Sequence[CaseSpec], sources: Mapping, config_dir: Path) -> dict[str, bytes]:
-    """Bytes of each shared geometry file (copied, scaled or converted once)."""
+    """Bytes of each shared geometry file (copied, scaled, converted or made
+    from a recipe once)."""
     out: dict[str, bytes] = {}
     want: dict[str, tuple[list[str], CaseSpec, float]] = {}
     for spec in specs:
@@ -113,6 +143,10 @@ def _prepare_geometry(specs: Sequence[CaseSpec], sources: Mapping, config_dir: P
                                 fix="give differing surfaces different file names")
             want[name] = (solids, spec, scale)
     for name, (solids, spec, scale) in want.items():
+        recipe = (spec.extra.get("geometry_recipes") or {}).get(name)
+        if recipe is not None and name not in sources:
+            out[name] = _make_geometry(name, recipe)
+            continue
         src = _resolve_source(name, spec, sources, config_dir)
         is_stl = src.suffix.lower() == ".stl"
         if is_stl:

@@ -69,7 +69,8 @@ def _has_ground(cfg: Config) -> bool:
 
 
 def _air(cfg: Config, errs: _Problems) -> None:
-    for k in ("speed", "temperature", "pressure", "altitude", "density", "viscosity", "kinematic_viscosity"):
+    for k in ("speed", "temperature", "pressure", "altitude", "density", "viscosity", "kinematic_viscosity",
+              "underfloor_speed_factor"):
         errs.check(f"air.{k}", getattr(cfg.air, k))
 
 
@@ -136,6 +137,18 @@ def _wheels(cfg: Config, base: Path, errs: _Problems) -> None:
                      fix="check the path (relative to the config file's folder)")
         if sum(c * c for c in w.axis) == 0:
             errs.add(expected="a non-zero axis vector", got=w.axis, key=key + ".axis")
+        elif w.axis[0] ** 2 + w.axis[1] ** 2 < 1e-6 * sum(c * c for c in w.axis):
+            errs.add(expected="a wheel axis with a horizontal part (the wheel stands on the ground)", got=w.axis,
+                     key=key + ".axis", fix="give the axle direction, e.g. [0, 1, 0]")
+        for k in ("steering_deg", "camber_deg", "flattening", "zone_radius"):
+            errs.check(f"{key}.{k}", getattr(w, k), f"body.wheels[].{k}")
+        if w.zone_radius is not None and w.rotation != "zone":
+            errs.add(expected='zone_radius only with rotation = "zone"', got=w.zone_radius, key=key + ".zone_radius",
+                     fix='remove it or set rotation = "zone"')
+        elif w.zone_radius is not None and w.radius > 0 and 0 < w.zone_radius and not w.zone_radius < w.radius * (1 - w.flattening):
+            errs.add(expected="a rotating-zone radius below the loaded radius (the zone must not reach the ground)",
+                     got=w.zone_radius, key=key + ".zone_radius",
+                     fix=f"use less than {w.radius * (1.0 - w.flattening):.4g} m (a rim's radius is typical)")
     names = [w.name for w in wheels]
     for n in set(names):
         if names.count(n) > 1:
@@ -220,6 +233,15 @@ def _mesh(cfg: Config, errs: _Problems) -> None:
     r = KEYS["mesh.surface_levels"].range
     if m.surface_levels is not None and not r.lo <= m.surface_levels[0] <= m.surface_levels[1] <= r.hi:
         errs.add(expected=r.text(), got=m.surface_levels, key="mesh.surface_levels")
+    if m.wall_treatment == "low-re" and cfg.solver.turbulence_model == "laminar":
+        errs.add(expected="mesh.wall_treatment only with a turbulence model", got="low-re with laminar flow",
+                 key="mesh.wall_treatment", fix="remove it: a laminar case resolves its walls anyway")
+    if m.wall_treatment == "low-re" and m.fidelity == "smoke" and not m.layers:
+        errs.add(expected='prism layers for mesh.wall_treatment = "low-re"', got="the smoke preset (no layers)",
+                 key="mesh.wall_treatment", fix='use mesh.fidelity = "coarse" or "production", or give mesh.layers')
+    if m.wall_treatment == "low-re" and m.layer_expansion is not None and not m.layer_expansion > 1.0:
+        errs.add(expected="a layer expansion ratio above 1 for low-re layers (they grow from y+ ≈ 1)",
+                 got=m.layer_expansion, key="mesh.layer_expansion")
 
 
 def _domain(cfg: Config, errs: _Problems) -> None:

@@ -111,7 +111,9 @@ class Key:
     """One config key: ``unit`` (— when dimensionless), ``meaning``, the
     Python ``value`` of its default (:data:`NO_DEFAULT` when it has none) or
     the ``default`` text (for defaults derived elsewhere: "required",
-    "preset", …), allowed ``choices`` and valid ``range``."""
+    "preset", …), allowed ``choices``, valid ``range`` and the ``source`` of
+    the default (a reference, "common practice, no source", or empty for
+    keys without a default to justify)."""
 
     unit: str
     meaning: str
@@ -120,6 +122,7 @@ class Key:
     choices: tuple[str, ...] | None = None
     range: Range | None = None
     pattern: Pattern | None = None
+    source: str = ""
 
     def default_text(self) -> str:
         if self.value is NO_DEFAULT:
@@ -135,6 +138,7 @@ def _literal(v: Any) -> str:
     return f"{v:g}"
 
 
+_COMMON = "common practice, no source"
 RIDE_HEIGHT_FIX = "ride heights are measured upwards from the ground; use a value > 0"
 _YAW = Range(hi=45.0, open_hi=True, magnitude=True, expected="a yaw angle with |β| < {hi} deg")
 _PITCH = Range(hi=20.0, open_hi=True, magnitude=True, expected="a pitch angle with |θ| < {hi} deg",
@@ -156,22 +160,32 @@ KEYS: dict[str, Key] = {
     "air.speed": Key("m/s", "road speed V (the sweep's default speed)", default="required", range=_SPEED),
     "air.temperature": Key("K", "static temperature", default="288.15 (or from altitude)",
                            range=Range(150.0, 400.0, expected="a temperature in K between {lo} and {hi}",
-                                       fix="temperatures are absolute, in kelvin (20 °C = 293.15 K)")),
+                                       fix="temperatures are absolute, in kelvin (20 °C = 293.15 K)"),
+        source="ISO 2533:1975 standard atmosphere"),
     "air.pressure": Key("Pa", "static pressure (absolute)", default="101325 (or from altitude)",
                         range=Range(1.0e3, 2.0e5, expected="an absolute pressure in Pa between {lo} and {hi}",
-                                    fix="give the absolute static pressure in Pa (sea level: 101325)")),
+                                    fix="give the absolute static pressure in Pa (sea level: 101325)"),
+        source="ISO 2533:1975 standard atmosphere"),
     "air.altitude": Key("m", "ISO 2533 troposphere altitude for temperature and pressure", default="0",
                         range=Range(-2000.0, 11000.0,
                                     expected="an altitude in m between {lo} and {hi} (ISO 2533 troposphere)")),
-    "air.density": Key("kg/m³", "density", default="p/(R T)", range=_within(1e-3, 1e3, "kg/m³")),
-    "air.viscosity": Key("Pa s", "dynamic viscosity", default="Sutherland's law", range=_within(1e-7, 0.1, "Pa s")),
+    "air.density": Key("kg/m³", "density", default="p/(R T)", range=_within(1e-3, 1e3, "kg/m³"),
+        source="ideal gas, ISO 2533:1975 gas constant"),
+    "air.viscosity": Key("Pa s", "dynamic viscosity", default="Sutherland's law", range=_within(1e-7, 0.1, "Pa s"),
+        source="Sutherland (1893), ISO 2533:1975 constants"),
     "air.kinematic_viscosity": Key("m²/s", "kinematic viscosity (overrides viscosity/density)", default="μ/ρ",
                                    range=_within(1e-8, 0.1, "m²/s")),
+    "air.underfloor_speed_factor": Key("—", "peak speed under the floor / air speed: sizes the first cell and the Mach check",
+                                       1.4, range=Range(1.0, 3.0, expected="an underfloor speed factor from {lo} to {hi}",
+                                                        fix="1.3–1.5 is typical of a ground-effect floor"),
+                                       source=_COMMON + "; Bernoulli: a floor suction peak C_p = 1 − 1.4² ≈ −1"),
     "ground.mode": Key("—", "how the ground moves; none: far field, no ground", "moving",
-                       choices=("moving", "stationary", "none")),
+                       choices=("moving", "stationary", "none"),
+        source="the road moves under a car: a moving ground (common practice for ground-effect cars)"),
     "body.length_unit": Key("—", "unit of the geometry files", "m", choices=("m", "mm", "in")),
     "body.reference_area": Key("m²", 'reference area, or "auto" (frontal area of the first variant)', "auto",
-                               range=_within(1e-6, 1e4, "m²")),
+                               range=_within(1e-6, 1e4, "m²"),
+        source="frontal area: SAE J1594 (from memory)"),
     "body.reference_length": Key("m", "reference length for moment coefficients", default="wheelbase",
                                  range=_within(1e-4, _L, "m")),
     "body.wheelbase": Key("m", "wheelbase", default="rear_axle.x − front_axle.x", range=_within(1e-4, _L, "m")),
@@ -187,10 +201,28 @@ KEYS: dict[str, Key] = {
     "body.centre_of_gravity": Key("m", "centre of gravity (optional)", default="none", range=_POINT),
     "body.wheels[].name": Key("—", "wheel name (patch name)", default="required"),
     "body.wheels[].centre": Key("m", "wheel centre (body frame)", default="required", range=_POINT),
-    "body.wheels[].axis": Key("—", "rotation axis (body frame)", (0.0, 1.0, 0.0)),
-    "body.wheels[].radius": Key("m", "rolling radius", default="required", range=_within(1e-4, _L, "m")),
-    "body.wheels[].geometry": Key("—", "STL file of the wheel (same length_unit)", default="none"),
+    "body.wheels[].axis": Key("—", "rotation axis (body frame)", (0.0, 1.0, 0.0),
+        source="an axle along the body y axis"),
+    "body.wheels[].radius": Key("m", "unloaded radius; the wheel stands at the loaded radius r (1 − flattening)",
+                                default="required", range=_within(1e-4, _L, "m")),
+    "body.wheels[].geometry": Key("—", "STL file of the wheel (same length_unit), drawn at its centre", default="none"),
     "body.wheels[].solid": Key("—", "or: name of the wheel's solid in the body STL", default="none"),
+    "body.wheels[].steering_deg": Key("deg", "steering angle about the ground normal (+: front of the wheel to the "
+                                             "driver's left)", 0.0,
+                                      range=Range(hi=40.0, magnitude=True, fix="angles are in degrees",
+                                                  expected="a steering angle with |δ| ≤ {hi} deg (a road car's lock)"),
+                                      source="straight ahead"),
+    "body.wheels[].camber_deg": Key("deg", "camber (+: top of the wheel leaning away from the centre plane)", 0.0,
+                                    range=Range(hi=10.0, magnitude=True, fix="angles are in degrees",
+                                                expected="a camber angle with |γ| ≤ {hi} deg"), source="upright"),
+    "body.wheels[].flattening": Key("—", "depth the tyre is sunk into the ground, fraction of the radius (a flat "
+                                         "contact patch the mesher can resolve)", 0.02,
+                                    range=Range(0.0, 0.1, expected="a flattening from {lo} to {hi} of the radius"),
+                                    source=_COMMON + " (a patch about 0.4 r long)"),
+    "body.wheels[].rotation": Key("—", "rotating wall, or also a rotating reference zone (spoked wheels)", "wall",
+                                  choices=("wall", "zone"), source="axisymmetric wheels"),
+    "body.wheels[].zone_radius": Key("m", 'radius of the rotating reference zone (rotation = "zone")',
+                                     default="0.75 × radius", range=_within(1e-4, _L, "m"), source=_COMMON + " (a rim's radius)"),
     "variants.<name>.geometry": Key("—", 'STL file of this variant (relative to the config), or `"none"` '
                                          "(empty test section)", default="required"),
     "variants.<name>.length_unit": Key("—", "overrides body.length_unit", default="body.length_unit",
@@ -199,7 +231,8 @@ KEYS: dict[str, Key] = {
                                           range=_within(1e-6, 1e4, "m²")),
     "variants.<name>.description": Key("—", "free text", ""),
     "sweep.yaw_mode": Key("—", "how yaw is set up (see \"Yaw modes\")", "crosswind",
-                          choices=("crosswind", "yawed-model")),
+                          choices=("crosswind", "yawed-model"),
+        source="a car on the road in a side wind"),
     "sweep.variants": Key("—", "variants to run", default="all"),
     "sweep.ride_height": Key("m", "ride heights at the pitch pivot (crossed with pitch_deg)", default="—",
                              range=_RIDE_HEIGHT),
@@ -208,7 +241,8 @@ KEYS: dict[str, Key] = {
                                          default="—", range=_RIDE_HEIGHT),
     "sweep.yaw_deg": Key("deg", "yaw angles β", (0.0,), range=_YAW),
     "sweep.speed": Key("m/s", "road speeds", default="[air.speed]", range=_SPEED),
-    "sweep.mesh_level": Key("—", "mesh levels (each refines the base cell by √2)", (0,), range=_MESH_LEVEL),
+    "sweep.mesh_level": Key("—", "mesh levels (each refines the base cell by √2)", (0,), range=_MESH_LEVEL,
+        source="one mesh; add levels for a mesh study"),
     "sweep.points": Key("—", "explicit list of points instead of the axes", default="—"),
     "sweep.points[].variant": Key("—", "variant of the point", default="all variants"),
     "sweep.points[].ride_height": Key("m", "ride height at the pitch pivot", default="—", range=_RIDE_HEIGHT),
@@ -220,16 +254,21 @@ KEYS: dict[str, Key] = {
     "sweep.points[].speed": Key("m/s", "road speed", default="air.speed", range=_SPEED),
     "sweep.points[].mesh_level": Key("—", "mesh level", 0, range=_MESH_LEVEL),
     "mesh.fidelity": Key("—", "mesh fidelity preset (see \"Fidelity presets\")", "coarse",
-                         choices=("smoke", "coarse", "production")),
+                         choices=("smoke", "coarse", "production"),
+        source="the lightest preset that resolves the gap and the near-wall flow (README presets)"),
     "mesh.base_cell": Key("m", "background cell size at mesh level 0", default="preset × body length",
                           range=_within(1e-5, _L, "m", "below 10 µm the cell counts overflow (m, not mm?)")),
     "mesh.surface_levels": Key("—", "[min, max] refinement levels on the body", default="preset",
                                range=Range(0, 12, expected="[min, max] levels with {lo} ≤ min ≤ max ≤ {hi}")),
     "mesh.feature_level": Key("—", "refinement level of feature edges", default="preset", range=_LEVEL),
     "mesh.max_level": Key("—", "finest level allowed (underbody gap)", default="preset", range=_LEVEL),
-    "mesh.gap_cells": Key("—", "cells required across the smallest ground clearance", default="preset",
-                          range=_within(0.0, 100.0, "cells")),
-    "mesh.target_yplus": Key("—", "target y+ of the first cell", default="preset", range=_within(0.01, 1000.0, "dimensionless")),
+    "mesh.gap_cells": Key("—", "cells across the reference clearance (the lower ride height): prism layers and core "
+                               "cells", default="preset", range=_within(0.0, 100.0, "cells"), source=_COMMON),
+    "mesh.target_yplus": Key("—", "y+ at the first cell centre at mesh level 0 (flat plate at the underfloor speed)",
+                             default="preset", range=_within(0.01, 1000.0, "dimensionless"),
+                             source="inside the wall treatment's band (caseprep/contract/walls.py)"),
+    "mesh.wall_treatment": Key("—", "wall functions, or the viscous sublayer resolved (y+ ≈ 1)", "wall-function",
+                               choices=("wall-function", "low-re"), source=_COMMON),
     "mesh.layers": Key("—", "number of prism layers (0: none)", default="preset",
                        range=Range(0, 40, expected="a number of layers from {lo} to {hi}")),
     "mesh.layer_expansion": Key("—", "layer growth ratio", default="preset",
@@ -240,25 +279,29 @@ KEYS: dict[str, Key] = {
                          range=_within(0.0, _L, "m")),
     "domain.lead_in": Key("m", "empty test section: slip floor from the inlet to the ground's leading edge "
                                "(part of `length`)", default="0", range=Range(lo=0.0, hi=_L, expected="a lead-in length from {lo} to {hi} (m)")),
-    "domain.upstream": Key("body lengths", "inlet distance ahead of the body", 3.0,
-                           range=_within(0.0, float(MAX_DOMAIN_LENGTHS.value), "body lengths")),
-    "domain.downstream": Key("body lengths", "outlet distance behind the body", 6.0,
-                             range=_within(0.0, float(MAX_DOMAIN_LENGTHS.value), "body lengths")),
+    "domain.upstream": Key("body lengths", "inlet distance ahead of the body", 5.0,
+                           range=_within(0.0, float(MAX_DOMAIN_LENGTHS.value), "body lengths"), source=_COMMON),
+    "domain.downstream": Key("body lengths", "outlet distance behind the body", 10.0,
+                             range=_within(0.0, float(MAX_DOMAIN_LENGTHS.value), "body lengths"), source=_COMMON),
     "domain.width": Key("m", "domain width (default: sized for blockage)", default="auto", range=_within(0.0, _L, "m")),
     "domain.height": Key("m", "domain height (default: sized for blockage)", default="auto", range=_within(0.0, _L, "m")),
-    "domain.target_blockage": Key("—", "blockage the automatic size aims at (fraction)", 0.01),
-    "domain.max_blockage": Key("—", "blockage above which a case is refused (fraction)", 0.05),
+    "domain.target_blockage": Key("—", "blockage the automatic size aims at (fraction)", 0.01, source=_COMMON),
+    "domain.max_blockage": Key("—", "blockage above which a case is refused (fraction)", 0.05, source=_COMMON),
     "solver.turbulence_model": Key("—", "turbulence model of the steady solver", "kOmegaSST",
-                                   choices=("kOmegaSST", "laminar")),
+                                   choices=("kOmegaSST", "laminar"),
+        source="k-ω SST, Menter (1994) AIAA J. 32(8) 1598–1605: common practice for external vehicle flows"),
     "solver.iterations": Key("—", "iterations", default="preset", range=_count("a number of iterations", MAX_ITERATIONS)),
     "solver.write_interval": Key("—", "iterations between result writes", default="iterations",
                                  range=_count("a write interval", MAX_ITERATIONS)),
-    "solver.ranks": Key("—", "parallel ranks (MPI processes)", 1, range=_count("a number of ranks", MAX_RANKS)),
-    "solver.turbulence_intensity": Key("—", "inlet turbulence intensity (fraction)", 0.005,
+    "solver.ranks": Key("—", "parallel ranks (MPI processes)", 1, range=_count("a number of ranks", MAX_RANKS),
+        source="serial"),
+    "solver.turbulence_intensity": Key("—", "free-stream turbulence intensity at the model (fraction)", 0.005,
                                        range=Range(0.0, 0.2, open_lo=True,
-                                                   expected="a turbulence intensity fraction in ({lo}, {hi}] (0.01 = 1 %)")),
-    "solver.turbulence_length_scale": Key("m", "inlet turbulence length scale", default="0.001 × reference length",
-                                          range=_within(1e-6, _L, "m")),
+                                                   expected="a turbulence intensity fraction in ({lo}, {hi}] (0.01 = 1 %)"),
+                                       source=_COMMON + " (a low-turbulence tunnel)"),
+    "solver.turbulence_length_scale": Key("m", "free-stream turbulence length scale at the model",
+                                          default="0.02 × body length", range=_within(1e-6, _L, "m"),
+                                          source=_COMMON + " (decays mildly over 5 body lengths)"),
     "cluster.partition": Key("—", "batch partition (queue) of every job; empty: the cluster's default", "",
                              pattern=_BATCH_NAME),
     "cluster.account": Key("—", "account the jobs are charged to; empty: the user's default", "", pattern=_BATCH_NAME),
@@ -309,11 +352,12 @@ def unit(key: str) -> str:
 
 
 def markdown_table() -> str:
-    """The README's config table: key, unit, meaning, default, valid values."""
-    rows = ["| key | unit | meaning | default | valid values |", "|---|---|---|---|---|"]
+    """The README's config table: key, unit, meaning, default, valid values,
+    source of the default."""
+    rows = ["| key | unit | meaning | default | valid values | source of the default |", "|---|---|---|---|---|---|"]
     for name, k in KEYS.items():
         valid = (" / ".join(k.choices) if k.choices else k.range.table_text() if k.range
                  else k.pattern.expected if k.pattern else "")
         valid = valid.replace("|", "\\|")  # a bar inside a cell would split it
-        rows.append(f"| `{name}` | {k.unit} | {k.meaning} | {k.default_text()} | {valid} |")
+        rows.append(f"| `{name}` | {k.unit} | {k.meaning} | {k.default_text()} | {valid} | {k.source} |")
     return "\n".join(rows) + "\n"

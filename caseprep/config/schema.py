@@ -64,6 +64,7 @@ class AirCfg(_M):
     density: float | None = None
     viscosity: float | None = None
     kinematic_viscosity: float | None = None
+    underfloor_speed_factor: float = default("air.underfloor_speed_factor")
 
 
 class GroundCfg(_M):
@@ -77,6 +78,11 @@ class WheelCfg(_M):
     axis: Vec3 = default("body.wheels[].axis")
     geometry: str | None = None
     solid: str | None = None
+    steering_deg: float = default("body.wheels[].steering_deg")
+    camber_deg: float = default("body.wheels[].camber_deg")
+    flattening: float = default("body.wheels[].flattening")
+    rotation: Literal[choices("body.wheels[].rotation")] = default("body.wheels[].rotation")
+    zone_radius: float | None = None
 
     @field_validator("name")
     @classmethod
@@ -140,6 +146,7 @@ class MeshCfg(_M):
     layers: int | None = None
     layer_expansion: float | None = None
     ground_first_cell: float | None = None
+    wall_treatment: Literal[choices("mesh.wall_treatment")] = default("mesh.wall_treatment")
 
 
 class DomainCfg(_M):

@@ -46,7 +46,9 @@ CaseRecord::
       "estimated_cells": 180000,
       …the planning facts of INFO_FIELDS (geometry sources, air state, warnings…),
       "turbulence_model": "kOmegaSST",        # or "laminar"
-      "target_yplus": 50.0 | null,            # of the first prism layer; null without layers
+      "target_yplus": 50.0 | null,            # at the first prism layer's centre; null without layers
+      "wall_treatment": "wall-function",      # or "low-re", "laminar" (caseprep.contract.walls): its y+ band
+      "fluid_volume": 259.5,                  # m³: the sizing rule's domain box less the body, for h = (V/N)^(1/3)
       "outputs": {"forces": "postProcessing/uf_forces/0/force.dat", …}  # where the run's outputs land
     }
 
@@ -117,6 +119,20 @@ INFO_FIELDS: dict[str, str] = {
     "empty_section": "true for an empty test section (no body)",
     "ground_leading_edge": "empty test section: distance of the ground's leading edge from the inlet (m)",
     "ground_first_cell": "empty test section: first background cell height on the ground (m), or null",
+    "yplus_band": "y+ band of the wall treatment at the first cell centre [low, high]",
+    "first_cell_height": "height of the first prism layer at this mesh level (m), or null",
+    "centre_yplus": "flat-plate y+ at the first cell centre at this mesh level, or null",
+    "prism_layers": "prism layers: count n, expansion ratio, whether the ground under the body has them",
+    "underfloor_speed": "the speed the first cell is sized for: air speed × air.underfloor_speed_factor (m/s)",
+    "local_mach": "Mach number of the underfloor speed",
+    "gap": "underbody resolution: reference clearance (m), gap level, gap cell (m), splits along the floor normal "
+           "per slab, cells across the reference clearance and the fewest across any slab's own clearance",
+    "base_cell": "background cell size at this mesh level (m)",
+    "turbulence": "free-stream turbulence at the inlet and at the model: k (m²/s²), omega (1/s), nut (m²/s), "
+                  "intensity, length scale (m), distance inlet → model (m)",
+    "wheels": "per wheel: centre, axis, contact point (mesh frame, m), centre height, radius, loaded radius, "
+              "flattening depth, contact gap (m), spin omega (rad/s), rotation (wall or zone), steering and camber (deg)",
+    "geometry_recipes": "files made for this case under geometry/: source, unit, solids kept, rotation and offset",
     "report": "the config's [report] settings: baseline variant, pictured ride height (m) and yaw (deg)",
 }
 
@@ -125,8 +141,10 @@ INFO_FIELDS: dict[str, str] = {
 class CaseRecord:
     """One case of the sweep as the manifest describes it (schema above).
 
-    ``turbulence_model`` and ``target_yplus`` (of the first prism layer, None
-    without layers) are what the post-processing judges y+ by; ``outputs``
+    ``turbulence_model``, ``wall_treatment`` and ``target_yplus`` (at the
+    first prism layer's centre, None without layers) are what the
+    post-processing judges y+ by; ``fluid_volume`` (m³) gives the
+    representative cell size h = (V/N)^(1/3) of the mesh study; ``outputs``
     where the run's outputs land, relative to the case folder; ``info`` the
     planning facts of :data:`INFO_FIELDS`."""
 
@@ -147,6 +165,8 @@ class CaseRecord:
     estimated_cells: int | None = None
     turbulence_model: str | None = None
     target_yplus: float | None = None
+    wall_treatment: str | None = None
+    fluid_volume: float | None = None
     outputs: dict[str, str] = field(default_factory=dict)
     info: dict[str, Any] = field(default_factory=dict)
 
@@ -182,7 +202,8 @@ class CaseRecord:
             "estimated_cells": self.estimated_cells,
         }
         d.update((k, v) for k, v in self.info.items() if k in INFO_FIELDS)
-        d.update(turbulence_model=self.turbulence_model, target_yplus=self.target_yplus, outputs=dict(self.outputs))
+        d.update(turbulence_model=self.turbulence_model, target_yplus=self.target_yplus, wall_treatment=self.wall_treatment,
+                 fluid_volume=self.fluid_volume, outputs=dict(self.outputs))
         return d
 
     @classmethod
@@ -222,6 +243,8 @@ class CaseRecord:
                 estimated_cells=d.get("estimated_cells"),
                 turbulence_model=None if d.get("turbulence_model") is None else str(d["turbulence_model"]),
                 target_yplus=None if d.get("target_yplus") is None else float(d["target_yplus"]),
+                wall_treatment=None if d.get("wall_treatment") is None else str(d["wall_treatment"]),
+                fluid_volume=None if d.get("fluid_volume") is None else float(d["fluid_volume"]),
                 outputs={str(k): str(v) for k, v in (d.get("outputs") or {}).items()},
                 info={k: v for k, v in d.items() if k in INFO_FIELDS},
             )

@@ -9,6 +9,7 @@ import numpy as np
 from caseprep.geometry.checks import SurfaceReport, inspect_surface, weld
 from caseprep.geometry.hull import hull_points, projected_area
 from caseprep.geometry.stl import TriSurface
+from caseprep.geometry.underside import Underside, underside_map
 
 
 @dataclass(frozen=True)
@@ -18,7 +19,9 @@ class BodyGeometry:
     ``hull``: convex-hull vertices of the body solids (wheels excluded when
     they are separate solids), ``bounds`` (min, max) corners, ``area`` surface
     area (m²), ``frontal_area`` shadow area along +x (m², zero pitch and yaw),
-    ``solid_names`` the patches, ``report`` the topology facts.
+    ``solid_names`` the patches, ``report`` the topology facts,
+    ``underside`` the lowest surface height over a plan-view grid (body
+    solids only, :func:`caseprep.geometry.underside.underside_map`).
     """
 
     hull: np.ndarray
@@ -28,6 +31,7 @@ class BodyGeometry:
     solid_names: tuple[str, ...]
     report: SurfaceReport
     source: str
+    underside: Underside | None = None
 
     @property
     def length(self) -> float:
@@ -53,5 +57,6 @@ def analyse(surface: TriSurface, exclude_from_clearance: tuple[str, ...] = ()) -
         pts = weld(body.triangles)[0]
     hull = hull_points(pts)
     fa = projected_area(surface.triangles, [1.0, 0.0, 0.0])
+    under = underside_map(body.triangles if body.n_triangles else surface.triangles)
     return BodyGeometry(hull=hull, bounds=rep.bounds, area=rep.area, frontal_area=fa,
-                        solid_names=surface.solid_names, report=rep, source=surface.source)
+                        solid_names=surface.solid_names, report=rep, source=surface.source, underside=under)

@@ -199,6 +199,20 @@ def read_stl(path: str | Path, length_unit: str = "m", default_name: str = "body
     return TriSurface(tris * scale, solid, names, str(p))
 
 
+def stl_binary_bytes(triangles: np.ndarray) -> bytes:
+    """A binary STL of ``triangles`` (M, 3, 3, m; float32 as the format
+    stores them), normals from the vertex order (right-hand rule). One solid
+    (the format names none)."""
+    t = np.asarray(triangles, dtype=float)
+    n = np.cross(t[:, 1] - t[:, 0], t[:, 2] - t[:, 0])
+    ln = np.linalg.norm(n, axis=1, keepdims=True)
+    rec = np.zeros(len(t), dtype=_BIN_DTYPE)
+    rec["n"] = n / np.where(ln > 0, ln, 1.0)
+    rec["v"] = t
+    header = b"underfloor binary STL".ljust(80, b" ")
+    return header + np.uint32(len(t)).tobytes() + rec.tobytes()
+
+
 def stl_ascii_text(solids: list[tuple[str, np.ndarray]]) -> str:
     """ASCII STL text for ``solids`` = [(name, (M,3,3) triangles in m)].
     Normals are computed from the vertex order (right-hand rule)."""

@@ -10,8 +10,10 @@ e3 = 0), e2 = e3 × e1.
 Sizing rules (common practice for external vehicle aerodynamics, no single
 source):
 
-- inlet ``upstream`` = 3 body lengths ahead of the body, outlet
-  ``downstream`` = 6 body lengths behind it (config: ``domain.*``);
+- inlet ``upstream`` = 5 body lengths ahead of the body, outlet
+  ``downstream`` = 10 body lengths behind it (config: ``domain.*``); the
+  background cells there are the coarsest of the mesh, so the length costs
+  little;
 - width and height chosen so that the blockage (frontal area normal to the
   wind / inlet face area) equals ``domain.target_blockage`` = 1 %, with
   width = 2 × height over a ground (the ground mirrors the flow) and a square
@@ -25,32 +27,71 @@ body (and wheels) normal to the wind: an upper bound of the true shadow, so
 the blockage is never under-estimated.
 
 Mesh levels: level n of a refinement region means cells of base_cell / 2ⁿ.
-The sweep's ``mesh_level`` m scales the base cell by 1/√2ᵐ (every length of
-the mesh shrinks by √2 per level, about 2.8 × the cells).
+The sweep's ``mesh_level`` m scales the base cell by 1/√2ᵐ, and with it every
+other length of the mesh: the refinement levels and the gap's splits are
+chosen once per point (at mesh level 0) and kept, and the prism-layer
+heights scale by the same 1/√2ᵐ. The mesh levels of one point are therefore
+geometrically similar (about 2.8 × the cells per level); only the far-field
+boundaries move by less than one background cell (the domain is a whole
+number of cells long at every level), and the ground rectangle with prism
+layers follows the background cells likewise.
+
+The gap
+-------
+Under the body the mesh must resolve the flow between floor and ground.
+The **reference clearance** c is the smaller of the two ride heights (the
+heights of the ride-height reference points). Cells across a clearance h:
+
+    n(h) = s N + (h − s T)/Δz,
+
+with N prism layers of total thickness T on each of the s walls that carry
+them (s = 2: floor and ground, 1: floor only, 0: no layers) and Δz the core
+cell height. The underbody is covered by slab boxes (one per eighth of the
+body length) from the ground to the underside (floor, tunnels, diffuser:
+:mod:`caseprep.geometry.underside`); their cells are refined isotropically to
+the gap level g (the coarsest level at or above the finest surface level
+with at least ``iso_gap_cells`` cells across c) and then split ``z`` times
+along the floor normal, Δz = Δ_g/2ᶻ, z chosen per slab as the fewest splits
+that give n ≥ ``mesh.gap_cells`` across the larger of c and the slab's own
+smallest clearance. The rear of the floor gets a wake region behind the
+diffuser.
 """
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, field, replace
 from typing import Callable
 
 import numpy as np
 
-from caseprep.contract.frames import Placement, ground_to_wind_rotation, wind_direction_ground
+from caseprep.contract.frames import Placement, axle_axes, ground_to_wind_rotation, wind_direction_ground
 from caseprep.contract.limits import MAX_CELLS, MAX_RANKS
+from caseprep.contract.walls import LOW_RE_TARGET_YPLUS, WALL_TREATMENTS
+from caseprep.geometry.underside import Underside
 from caseprep.planning.physics import first_cell_height, layer_stack_thickness
 from caseprep.planning.spec import Domain, Layers, MeshSpec, OrientedBox, RefinementRegion
 
 WARN_BLOCKAGE = 0.01  # common practice, no source
+#: Slab boxes of the underbody region along the body (common practice, no source).
+UNDERBODY_SLABS = 8
+#: A layer stack pair filling more than this share of the reference clearance
+#: leaves too little room for the core flow (common practice, no source).
+MAX_STACK_SHARE = 0.75
 
 
 @dataclass(frozen=True)
 class Preset:
     """A fidelity preset. ``cells_per_length``: body length / base cell at
     mesh level 0; levels as in :class:`~caseprep.planning.spec.RefinementRegion`;
-    ``gap_cells``: cells required across the smallest ground clearance;
-    ``max_level``: finest level the underbody region may use; ``wake_length``
-    in body lengths behind the body; ``layers`` 0 = no prism layers."""
+    ``gap_cells``: cells required across the reference clearance (prism
+    layers and core cells, see the module docstring); ``iso_gap_cells``:
+    cells of the isotropic gap level across it; ``max_z_splits``: most
+    splits of the gap cells along the floor normal (0: isotropic cells
+    only); ``max_level``: finest isotropic level the underbody may use;
+    ``wake_length`` in body lengths behind the body; ``layers`` 0 = no prism
+    layers; ``target_yplus`` the y+ at the first cell centre at mesh level 0
+    (wall functions); ``ground_layers``: prism layers also on the ground
+    under the body."""
 
     name: str
     cells_per_length: float
@@ -58,36 +99,46 @@ class Preset:
     feature_level: int
     max_level: int
     gap_cells: float
+    iso_gap_cells: float
+    max_z_splits: int
     wake_level: int
     wake_length: float
     layers: int
     layer_expansion: float
     target_yplus: float
+    ground_layers: bool
     iterations: int
 
 
 PRESETS: dict[str, Preset] = {
-    # smoke: meshes and solves in under a minute on two cores (31–36 thousand
-    # cells on the demo body, 180 iterations). Base cell L/5; body surface at level 3 (L/40),
-    # so the body's shape and a diffuser ramp are there at all; no prism
-    # layers (wall functions). Gap rule with gap_cells = 1: the underbody
-    # gets the coarsest level whose cells fit once into the smallest ground
-    # clearance (level 4 = L/80 for clearances from L/80 to L/40; level 5 at
-    # most, so clearances below L/160 are refused). One or two cells across
-    # the gap give the venturi's blockage and the ordering of floors, not a
-    # resolved underbody boundary layer: use `coarse` or finer for numbers.
-    "smoke": Preset("smoke", 5.0, (1, 3), 2, 5, 1.0, 1, 1.0, 0, 1.3, 30.0, 180),
-    "coarse": Preset("coarse", 6.0, (3, 4), 4, 7, 4.0, 2, 2.0, 3, 1.3, 50.0, 1000),
-    "production": Preset("production", 8.0, (4, 6), 6, 9, 4.0, 3, 3.0, 8, 1.2, 30.0, 3000),
+    # smoke: meshes and solves in under a minute on two cores (tens of
+    # thousands of cells on the demo body, 180 iterations). Base cell L/5;
+    # body surface at level 3 (L/40), so the body's shape and a diffuser ramp
+    # are there at all; no prism layers (wall functions on the snapped
+    # cells). It relaxes the gap rule: one isotropic cell across the
+    # reference clearance (level 4 = L/80 for clearances from L/80 to L/40;
+    # level 5 at most, so clearances below L/160 are refused) and no splits.
+    # One or two cells across the gap give the venturi's blockage and the
+    # ordering of floors, not a resolved underbody boundary layer: use
+    # `coarse` or finer for numbers.
+    "smoke": Preset("smoke", 5.0, (1, 3), 2, 5, 1.0, 1.0, 0, 1, 1.0, 0, 1.3, 100.0, False, 180),
+    # coarse and production: at least 12 cells across the reference clearance
+    # (common practice, no source), prism layers on the body and on the
+    # ground under it, first cell centre at y+ 100 (coarse) / 60 (production)
+    # at mesh level 0: inside the wall-function band 30-150 for mesh levels
+    # 0-3 (coarse) / 0-2 (production) of a similar mesh study.
+    "coarse": Preset("coarse", 6.0, (3, 4), 4, 7, 12.0, 2.0, 3, 2, 2.0, 3, 1.2, 100.0, True, 1000),
+    "production": Preset("production", 8.0, (4, 6), 6, 9, 12.0, 2.0, 3, 3, 3.0, 5, 1.2, 60.0, True, 3000),
 }
 
-LEVEL_FACTOR = math.sqrt(2.0)  # base-cell refinement per sweep mesh level
+LEVEL_FACTOR = math.sqrt(2.0)  # refinement of every mesh length per sweep mesh level
 
 
 @dataclass(frozen=True)
 class MeshSettings:
     """A preset with the config's overrides applied (``base_cell`` None:
-    body length / cells_per_length)."""
+    body length / cells_per_length; ``layers`` None: as many as the wall
+    treatment needs, see :func:`layer_count`)."""
 
     preset: Preset
     base_cell: float | None
@@ -95,15 +146,21 @@ class MeshSettings:
     feature_level: int
     max_level: int
     gap_cells: float
-    layers: int
+    layers: int | None
     layer_expansion: float
     target_yplus: float
+    wall_treatment: str = "wall-function"
 
 
 def mesh_settings(fidelity: str, base_cell=None, surface_levels=None, feature_level=None, max_level=None,
-                  gap_cells=None, layers=None, layer_expansion=None, target_yplus=None) -> MeshSettings:
-    """Resolve a preset and the overrides (None keeps the preset's value)."""
+                  gap_cells=None, layers=None, layer_expansion=None, target_yplus=None,
+                  wall_treatment: str = "wall-function") -> MeshSettings:
+    """Resolve a preset and the overrides (None keeps the preset's value).
+    ``wall_treatment`` "low-re" aims at y+ ≈ 1 at the first cell centre
+    (``target_yplus`` then defaults to it) with as many layers as needed
+    unless ``layers`` is given."""
     p = PRESETS[fidelity]
+    low = wall_treatment == "low-re"
     return MeshSettings(
         preset=p,
         base_cell=base_cell,
@@ -111,9 +168,10 @@ def mesh_settings(fidelity: str, base_cell=None, surface_levels=None, feature_le
         feature_level=p.feature_level if feature_level is None else feature_level,
         max_level=p.max_level if max_level is None else max_level,
         gap_cells=p.gap_cells if gap_cells is None else gap_cells,
-        layers=p.layers if layers is None else layers,
+        layers=(None if low else p.layers) if layers is None else layers,
         layer_expansion=p.layer_expansion if layer_expansion is None else layer_expansion,
-        target_yplus=p.target_yplus if target_yplus is None else target_yplus,
+        target_yplus=(LOW_RE_TARGET_YPLUS if low else p.target_yplus) if target_yplus is None else target_yplus,
+        wall_treatment=wall_treatment,
     )
 
 
@@ -121,6 +179,114 @@ def base_cell_size(settings: MeshSettings, body_length: float, mesh_level: int) 
     """Background cell size (m) at sweep mesh level m: Δ0 / √2ᵐ."""
     d0 = settings.base_cell if settings.base_cell is not None else body_length / settings.preset.cells_per_length
     return d0 / LEVEL_FACTOR**mesh_level
+
+
+def layer_count(first_height: float, expansion: float, last_height: float) -> int:
+    """Fewest layers whose last one, h₁ rⁿ⁻¹, is at least ``last_height``:
+    n = 1 + ⌈ln(h_last/h₁)/ln r⌉ (geometric growth from ``first_height``
+    h₁ by ``expansion`` r > 1; heights in m). Elementary."""
+    if not first_height > 0 or not expansion > 1.0:
+        raise ValueError("expected a positive first height and an expansion ratio above 1")
+    if last_height <= first_height:
+        return 1
+    return 1 + math.ceil(math.log(last_height / first_height) / math.log(expansion) - 1e-12)
+
+
+@dataclass(frozen=True)
+class LayerPlan:
+    """Prism layers of a point at mesh level 0 (``first_height``, ``thickness``
+    in m) and the wall-function first height a low-Re stack grows to."""
+
+    n_layers: int
+    first_height: float
+    expansion: float
+    centre_yplus: float
+    thickness: float
+    treatment: str
+    ground: bool
+
+
+def plan_layers(settings: MeshSettings, local_speed: float, body_length: float, nu: float) -> LayerPlan | None:
+    """The prism layers at mesh level 0, or None without layers.
+
+    First height h₁ = 2 y+ ν/u_τ for the target centre y+ (flat plate at the
+    local speed: :func:`caseprep.planning.physics.first_cell_height`).
+    ``low-re`` without an explicit layer count: enough layers, growing by the
+    expansion ratio, for the last one to reach the first height a wall
+    function would use at the preset's y+ (:func:`layer_count`), i.e. the
+    stack spans the viscous sublayer, the buffer region and the inner log
+    layer."""
+    n = settings.layers
+    if n == 0:
+        return None
+    h1 = first_cell_height(settings.target_yplus, local_speed, body_length, nu)
+    if n is None:
+        h_wf = first_cell_height(settings.preset.target_yplus, local_speed, body_length, nu)
+        n = layer_count(h1, settings.layer_expansion, h_wf)
+    T = layer_stack_thickness(h1, n, settings.layer_expansion)
+    return LayerPlan(n_layers=int(n), first_height=float(h1), expansion=float(settings.layer_expansion),
+                     centre_yplus=float(settings.target_yplus), thickness=float(T), treatment=settings.wall_treatment,
+                     ground=bool(settings.preset.ground_layers))
+
+
+def cells_across(clearance: float, core_cell: float, layers: LayerPlan | None) -> float:
+    """Cells across a ``clearance`` (m): s N + (h − s T)/Δz with s = 2 stacks
+    (floor and ground) when the layers reach the ground, 1 otherwise, 0
+    without layers; ``core_cell`` Δz (m). A core thinner than zero counts
+    as zero (the stacks are squashed)."""
+    if layers is None:
+        return clearance / core_cell
+    s = 2 if layers.ground else 1
+    return s * layers.n_layers + max(clearance - s * layers.thickness, 0.0) / core_cell
+
+
+@dataclass(frozen=True)
+class GapPlan:
+    """The underbody resolution of one point (decided at mesh level 0).
+
+    ``reference_clearance`` c (m); ``level`` the isotropic gap level;
+    ``z_splits`` per underbody slab; ``cells_across`` the fewest cells over
+    the slabs across the larger of c and the slab's smallest clearance (at
+    least ``mesh.gap_cells``); ``cells_min`` the fewest across each slab's
+    own smallest clearance (below ``cells_across`` only where the floor dips
+    under the reference clearance)."""
+
+    reference_clearance: float
+    level: int
+    z_splits: tuple[int, ...]
+    cells_across: float
+    cells_min: float
+
+
+def plan_gap(reference_clearance: float, slab_clearances: list[float], base0: float, settings: MeshSettings,
+             layers: LayerPlan | None) -> GapPlan | tuple[str, str]:
+    """Choose the gap level and the per-slab splits (module docstring) at
+    mesh level 0 (``base0`` the level-0 base cell, m; clearances in m).
+    Returns a :class:`GapPlan`, or (what is wrong, how to fix it)."""
+    p = settings.preset
+    c = reference_clearance
+    smax = settings.surface_levels[1]
+    g0 = max(smax, math.ceil(math.log2(p.iso_gap_cells * base0 / c) - 1e-12))
+    clear = [max(c, h) for h in slab_clearances] or [c]
+    for g in range(g0, settings.max_level + 1):
+        dg = base0 / 2**g
+        ks = []
+        for h in clear:
+            k = next((k for k in range(p.max_z_splits + 1) if cells_across(h, dg / 2**k, layers) >= settings.gap_cells - 1e-9),
+                     None)
+            if k is None:
+                break
+            ks.append(k)
+        else:
+            n_ref = min(cells_across(h, dg / 2**k, layers) for h, k in zip(clear, ks))
+            n_min = min(cells_across(h0, dg / 2**k, layers) for h0, k in zip(slab_clearances or [c], ks))
+            return GapPlan(float(c), int(g), tuple(int(k) for k in ks), float(n_ref), float(n_min))
+    finest = base0 / 2**settings.max_level / 2**p.max_z_splits
+    have = cells_across(c, finest, layers)
+    return (f"the reference clearance {c * 1e3:.3f} mm needs {settings.gap_cells:g} cells across (prism layers and core "
+            f"cells); the finest cells allowed (level {settings.max_level}, {finest * 1e3:.3f} mm after "
+            f"{p.max_z_splits} splits along the floor normal) give {have:.1f}",
+            "raise the ride height, use a finer fidelity, raise mesh.max_level or lower mesh.gap_cells")
 
 
 def wind_axes(placement: Placement) -> np.ndarray:
@@ -139,7 +305,9 @@ def _box(name: str, origin_b: np.ndarray, axes: np.ndarray, lo: np.ndarray, hi: 
 @dataclass(frozen=True)
 class DomainPlan:
     """Domain, mesh and estimate of one case, plus notes (warnings) and
-    problems (messages for refused cases, without file/key)."""
+    problems (messages for refused cases: what, fix and optionally the
+    config key at fault; without it the point's own key), the gap plan and
+    the underbody facts (``info``: JSON-ready)."""
 
     domain: Domain
     mesh: MeshSpec
@@ -147,7 +315,56 @@ class DomainPlan:
     gap_level: int | None
     estimated_cells: int
     warnings: tuple[str, ...]
-    problems: tuple[tuple[str, str], ...]  # (what is wrong, how to fix it)
+    problems: tuple[tuple[str, ...], ...]  # (what is wrong, how to fix it[, the config key at fault])
+    gap: GapPlan | None = None
+    info: dict = field(default_factory=dict)
+    nominal_volume: float | None = None  # m³, the domain box of the sizing rule before rounding to whole cells
+
+
+@dataclass(frozen=True)
+class _Slab:
+    lo: np.ndarray      # (s, t, z) in axle axes from the ground point, m
+    hi: np.ndarray
+    clearance: float    # smallest underside height above the ground in the slab (m)
+    top: float          # 95th percentile of the underside height in the slab (m)
+    fluid_volume: float  # m³ above the ground and below the underside, inside the box
+
+
+def underbody_slabs(underside: Underside, placement: Placement, margin: float, n_slabs: int = UNDERBODY_SLABS) -> tuple[
+        list[_Slab], np.ndarray, np.ndarray]:
+    """Slab boxes covering the volume between the body's underside and the
+    ground, in the axle axes (x_A along the body on the ground, z_A the
+    ground normal; :func:`caseprep.contract.frames.axle_axes`). The body's
+    length is cut into ``n_slabs`` equal slabs; each reaches from ``margin``
+    (m) below the ground to the highest underside point inboard of the
+    body's rounded side edges (a tenth of the span in from each side) plus
+    ``2 margin``, and sideways over the slab's covered cells ±
+    ``margin``. Returns (slabs, axes rows x_A, y_A, z_A, ground point)."""
+    xA, yA, zA, g0 = axle_axes(placement)
+    axes = np.vstack([xA, yA, zA])
+    pts = underside.points()
+    q = (pts - g0) @ axes.T
+    h = placement.height_above_ground(pts)
+    s0, s1 = float(q[:, 0].min()) - 0.5 * underside.dx, float(q[:, 0].max()) + 0.5 * underside.dx
+    edges = np.linspace(s0, s1, n_slabs + 1)
+    slabs = []
+    for i in range(n_slabs):
+        sel = (q[:, 0] >= edges[i]) & (q[:, 0] <= edges[i + 1]) if i == n_slabs - 1 else (q[:, 0] >= edges[i]) & (q[:, 0] < edges[i + 1])
+        if not np.any(sel):
+            continue
+        t0, t1 = float(q[sel, 1].min()) - 0.5 * underside.dy - margin, float(q[sel, 1].max()) + 0.5 * underside.dy + margin
+        # the highest point of the floor, tunnels and diffuser in the slab: the underside inboard of the body's
+        # rounded side edges (a tenth of the span in from each side), two margins above it
+        span = t1 - t0
+        inner = sel & (q[:, 1] >= t0 + 0.1 * span) & (q[:, 1] <= t1 - 0.1 * span)
+        top95 = float(np.max(h[inner])) if np.any(inner) else float(np.percentile(h[sel], 95.0))
+        top = top95 + 2.0 * margin
+        a0 = edges[i] - (margin if i == 0 else 0.0)
+        a1 = edges[i + 1] + (margin if i == n_slabs - 1 else 0.0)
+        covered = float(np.count_nonzero(sel)) * underside.cell_area
+        vol = float(np.clip(h[sel], 0.0, top).sum()) * underside.cell_area + max((a1 - a0) * (t1 - t0) - covered, 0.0) * top
+        slabs.append(_Slab(np.array([a0, t0, -margin]), np.array([a1, t1, top]), float(h[sel].min()), top95, vol))
+    return slabs, axes, g0
 
 
 @dataclass(frozen=True)
@@ -158,7 +375,9 @@ class BodyExtent:
     wind (m²); ``min_clearance`` smallest ground clearance (m, None without a
     ground); ``ride_heights`` (front, rear) m or None; ``extent_range(axes)``
     (optional) the (min, max) of ``points @ axes.T`` — a caller planning many
-    cases passes a cached version (the range depends on the rotation only)."""
+    cases passes a cached version (the range depends on the rotation only);
+    ``underside`` the body's underside map (body frame, None: a single
+    underbody box)."""
 
     points: np.ndarray
     length: float
@@ -167,6 +386,7 @@ class BodyExtent:
     min_clearance: float | None = None
     ride_heights: tuple[float, float] | None = None
     extent_range: Callable[[np.ndarray], tuple[np.ndarray, np.ndarray]] | None = None
+    underside: Underside | None = None
 
 
 @dataclass(frozen=True)
@@ -206,6 +426,7 @@ class _Section:
     domain: Domain
     problems: tuple[tuple[str, str], ...]
     warnings: tuple[str, ...]
+    nominal_volume: float = 0.0  # m³: the sizing rule's box before rounding to whole cells (the same at every level)
 
 
 def _section(body: BodyExtent, lo, hi, axes, g0, ground: str, sz: DomainSizing, d0: float) -> _Section:
@@ -247,89 +468,187 @@ def _section(body: BodyExtent, lo, hi, axes, g0, ground: str, sz: DomainSizing, 
         warnings.append(f"blockage {100 * blockage:.2f} % is above 1 % (common-practice limit); results carry a blockage effect")
     domain = Domain(box=_box("domain", g0, axes, origin, origin + lens), cells=(int(n[0]), int(n[1]), int(n[2])),
                     ground=ground, blockage=float(blockage))
-    return _Section(origin, lens, (int(n[0]), int(n[1]), int(n[2])), domain, tuple(problems), tuple(warnings))
+    return _Section(origin, lens, (int(n[0]), int(n[1]), int(n[2])), domain, tuple(problems), tuple(warnings),
+                    float(Lx * W * H))
 
 
-def _regions(body: BodyExtent, lo, hi, axes, g0, ground: str, z0: float, settings: MeshSettings,
-             d0: float) -> tuple[list[RefinementRegion], int | None, list[tuple[str, str]]]:
-    """Refinement regions (wake; underbody gap and rear with a ground, else a
-    near-body box), the gap level and the problem of a gap too fine for the
-    preset's finest level."""
+def _ground_rectangle(sec: _Section, lo, hi, L: float) -> tuple[int, int, int, int] | None:
+    """Background cell indices (i1, i2, j1, j2) along e1 and e2 of the ground
+    rectangle that gets prism layers: the body's footprint from 0.1 L ahead
+    of it to 0.5 L behind it (its near wake on the ground) and 0.1 L to each
+    side, rounded outwards to whole background cells and kept one cell
+    inside the domain (common practice, no source). None for a domain too
+    small to split."""
+    n, lens, origin = sec.n, sec.lens, sec.origin
+    if n[0] < 3 or n[1] < 3:
+        return None
+    d1, d2 = lens[0] / n[0], lens[1] / n[1]
+    a, b = lo[0] - 0.1 * L - origin[0], hi[0] + 0.5 * L - origin[0]
+    c, e = lo[1] - 0.1 * L - origin[1], hi[1] + 0.1 * L - origin[1]
+    i1 = min(max(1, math.floor(a / d1)), n[0] - 2)
+    i2 = max(min(n[0] - 1, math.ceil(b / d1)), i1 + 1)
+    j1 = min(max(1, math.floor(c / d2)), n[1] - 2)
+    j2 = max(min(n[1] - 1, math.ceil(e / d2)), j1 + 1)
+    return (int(i1), int(i2), int(j1), int(j2))
+
+
+@dataclass(frozen=True)
+class _Regions:
+    """The refinement regions, the gap plan and its facts, and the problems
+    and warnings of the underbody resolution."""
+
+    regions: list[RefinementRegion]
+    gap: GapPlan | None
+    info: dict
+    problems: list[tuple[str, str]]
+    warnings: list[str]
+
+
+def _underbody(body: BodyExtent, lo, hi, placement: Placement, axes, g0, settings: MeshSettings, base0: float,
+               lp: LayerPlan | None, scale: float) -> _Regions:
+    """Underbody slabs and the wake behind the diffuser with their gap plan
+    (module docstring "The gap"); every box and level is decided at mesh
+    level 0 (``base0`` m) so the levels of a point stay similar."""
+    L = body.length
+    smax = settings.surface_levels[1]
+    wl = settings.preset.wake_level
+    margin = 0.02 * L
+    c_ref = float(min(body.ride_heights))
+    regions, problems, warnings = [], [], []
+    slabs, sax, sg0 = ([], None, None)
+    if body.underside is not None:
+        slabs, sax, sg0 = underbody_slabs(body.underside, placement, base0 / 2**smax)
+    gp = plan_gap(c_ref, [s.clearance for s in slabs], base0, settings, lp)
+    if isinstance(gp, tuple):
+        return _Regions([], None, {}, [gp], [])
+    if slabs:  # boxes again with a margin of one gap cell (level 0: the same boxes at every mesh level)
+        dg0 = base0 / 2**gp.level
+        slabs, sax, sg0 = underbody_slabs(body.underside, placement, dg0)
+        # one split count under the whole body: a change of the count (or the end of the split cells) where
+        # the floor or the diffuser meets the cells leaves wall faces of skewness up to 6 (measured on the demo
+        # floor's diffuser14 at coarse), so the flat cells end only off the body, in the fluid around the slabs
+        k = max(gp.z_splits)
+        for i, sl in enumerate(slabs):
+            regions.append(RefinementRegion(_box(f"underbody{i}", sg0, sax, sl.lo, sl.hi), gp.level, int(k),
+                                            fluid_volume=sl.fluid_volume))
+        # behind the diffuser: from a quarter length ahead of the tail to one length behind it,
+        # up to 1.25 × the exit height (the last slab's underside) and two cells of its level
+        tail = max(sl.hi[0] for sl in slabs)
+        lw = max(wl, min(gp.level - 1, smax))
+        t0, t1 = min(sl.lo[1] for sl in slabs), max(sl.hi[1] for sl in slabs)
+        regions.append(RefinementRegion(
+            _box("diffuser_wake", sg0, sax, np.array([tail - 0.25 * L, t0, -dg0]),
+                 np.array([tail + 1.0 * L, t1, 1.25 * slabs[-1].top + 2.0 * base0 / 2**lw])), lw))
+    else:  # no underside map: one box under the whole body
+        top = 1.5 * max(max(body.ride_heights), body.min_clearance)
+        regions.append(RefinementRegion(_box("underbody", g0, axes, np.array([lo[0] - margin, lo[1] - margin, -margin]),
+                                             np.array([hi[0] + margin, hi[1] + margin, top])), gp.level, max(gp.z_splits)))
+    info = {"reference_clearance": c_ref, "gap_level": gp.level, "gap_cell": base0 / 2**gp.level / scale,
+            "z_splits": max(gp.z_splits), "z_splits_needed_per_slab": list(gp.z_splits),
+            "gap_cells_reference": round(gp.cells_across, 2), "gap_cells_min": round(gp.cells_min, 2)}
+    if body.min_clearance < c_ref and gp.cells_min < settings.gap_cells - 1.0:  # more than a cell short
+        warnings.append(f"the smallest clearance ({body.min_clearance * 1e3:.3f} mm) is below the reference clearance "
+                        f"({c_ref * 1e3:.3f} mm): {gp.cells_min:.1f} cells across it")
+    if lp is not None:
+        stacks = (2 if lp.ground else 1) * lp.thickness
+        if stacks > MAX_STACK_SHARE * c_ref:
+            what = (f"the prism layers ({lp.n_layers} × {lp.first_height * 1e3:.4f} mm growing by {lp.expansion:g}, "
+                    f"{lp.thickness * 1e3:.3f} mm per stack, {'floor and ground' if lp.ground else 'floor'}) fill "
+                    f"{100 * stacks / c_ref:.0f} % of the reference clearance {c_ref * 1e3:.3f} mm (at most "
+                    f"{100 * MAX_STACK_SHARE:.0f} %)")
+            if lp.treatment == "low-re":
+                problems.append((what + ": the gap cannot hold the low-Re layers",
+                                 'raise the ride height, raise mesh.layer_expansion, or use mesh.wall_treatment = "wall-function"',
+                                 "mesh.wall_treatment"))
+            else:
+                warnings.append(what + "; the mesher may squash them")
+    return _Regions(regions, gp, info, problems, warnings)
+
+
+def _regions(body: BodyExtent, lo, hi, placement: Placement, axes, g0, ground: str, z0: float, settings: MeshSettings,
+             base0: float, lp: LayerPlan | None, scale: float) -> _Regions:
+    """Refinement regions: the wake; with a ground the underbody slabs and
+    the wake behind the diffuser (:func:`_underbody`), else a near-body box."""
     L = body.length
     bw, bh = hi[1] - lo[1], hi[2] - lo[2]
-    smin, smax = settings.surface_levels
-    regions: list[RefinementRegion] = []
-    problems: list[tuple[str, str]] = []
-    gap_level = None
-    margin = 0.02 * L
+    smin = settings.surface_levels[0]
     wl = settings.preset.wake_level
-    regions.append(RefinementRegion(_box(
+    margin = 0.02 * L
+    wake = RefinementRegion(_box(
         "wake", g0, axes, np.array([lo[0] - 0.1 * L, lo[1] - 0.2 * bw, max(z0, lo[2] - 0.3 * bh) if ground == "none" else -margin]),
-        np.array([hi[0] + settings.preset.wake_length * L, hi[1] + 0.2 * bw, hi[2] + 0.3 * bh])), wl))
-    clearance = body.min_clearance
-    if ground != "none" and clearance is not None:
-        if clearance > 0:
-            need = max(smax, math.ceil(math.log2(settings.gap_cells * d0 / clearance) - 1e-12))
-            gap_level = int(need)
-            if need > settings.max_level:
-                finest = d0 / 2**settings.max_level
-                problems.append((
-                    f"the smallest ground clearance {clearance * 1e3:.3f} mm needs {settings.gap_cells:g} cells of at most "
-                    f"{clearance / settings.gap_cells * 1e3:.3f} mm; the finest level allowed (level {settings.max_level}, "
-                    f"{finest * 1e3:.3f} mm cells) gives {clearance / finest:.2f} cells",
-                    "raise the ride height, use a finer fidelity or mesh level, or raise mesh.max_level"))
-                gap_level = settings.max_level
-            top = 1.5 * max(max(body.ride_heights) if body.ride_heights else 0.0, clearance)
-            regions.append(RefinementRegion(_box("underbody", g0, axes, np.array([lo[0] - margin, lo[1] - margin, -margin]),
-                                                 np.array([hi[0] + margin, hi[1] + margin, top])), gap_level))
-            regions.append(RefinementRegion(_box("rear", g0, axes, np.array([hi[0] - 0.25 * L, lo[1] - margin, -margin]),
-                                                 np.array([hi[0] + 0.5 * L, hi[1] + margin, lo[2] + 0.6 * bh])),
-                                            max(wl, min(gap_level - 1, smax))))
+        np.array([hi[0] + settings.preset.wake_length * L, hi[1] + 0.2 * bw, hi[2] + 0.3 * bh])), wl)
+    if ground != "none" and body.min_clearance is not None and body.ride_heights is not None:
+        r = _underbody(body, lo, hi, placement, axes, g0, settings, base0, lp, scale)
+        regions = [wake] + r.regions
     else:
-        regions.append(RefinementRegion(_box("near", g0, axes, np.array([lo[0] - 0.2 * L, lo[1] - 0.2 * bw, lo[2] - 0.2 * bh]),
-                                             np.array([hi[0] + 0.5 * L, hi[1] + 0.2 * bw, hi[2] + 0.2 * bh])), max(wl, smin)))
-    regions.sort(key=lambda r: r.level)
-    return regions, gap_level, problems
+        r = _Regions([], None, {}, [], [])
+        regions = [wake, RefinementRegion(_box("near", g0, axes, np.array([lo[0] - 0.2 * L, lo[1] - 0.2 * bw, lo[2] - 0.2 * bh]),
+                                              np.array([hi[0] + 0.5 * L, hi[1] + 0.2 * bw, hi[2] + 0.2 * bh])),
+                                         max(wl, smin))]
+    regions.sort(key=lambda x: x.level)
+    return _Regions(regions, r.gap, r.info, r.problems, r.warnings)
 
 
-def _layers(body: BodyExtent, ground: str, settings: MeshSettings, air_speed: float, nu: float,
-            d0: float) -> tuple[Layers | None, list[str]]:
-    """The prism layers for the target y+ (None without layers) and warnings
-    when the stack is thicker than the finest surface cell or half the gap."""
-    if settings.layers <= 0:
-        return None, []
-    warnings = []
-    h1 = first_cell_height(settings.target_yplus, air_speed, body.length, nu)
-    layers = Layers(n_layers=settings.layers, first_cell_height=h1, expansion=settings.layer_expansion,
-                    target_yplus=settings.target_yplus)
-    T = layer_stack_thickness(h1, settings.layers, settings.layer_expansion)
+def _layers(lp: LayerPlan | None, settings: MeshSettings, mesh_level: int, d0: float) -> tuple[Layers | None, list[tuple[str, str]], list[str]]:
+    """The prism layers of this mesh level (every height of the level-0
+    plan ``lp`` scaled by 1/√2ᵐ), the problem of a level whose first-cell y+
+    leaves the wall treatment's band or of too many layers, and a warning
+    when the stack is thicker than the finest surface cell."""
+    if lp is None:
+        return None, [], []
+    scale = LEVEL_FACTOR**mesh_level
+    layers = Layers(n_layers=lp.n_layers, first_cell_height=lp.first_height / scale, expansion=lp.expansion,
+                    target_yplus=lp.centre_yplus / scale, ground=lp.ground, treatment=lp.treatment)
+    problems, warnings = [], []
+    if lp.treatment != "laminar":
+        band = WALL_TREATMENTS[lp.treatment].band
+        if not band[0] <= layers.target_yplus <= band[1]:
+            problems.append((f"mesh level {mesh_level} puts the first cell centre at y+ {layers.target_yplus:.3g} (y+ "
+                             f"{lp.centre_yplus:.3g} at level 0, scaled by 1/√2 per level with every other mesh length), "
+                             f"outside the {lp.treatment} band {band[0]:g}–{band[1]:g}: the mesh levels cannot be similar "
+                             "and keep the wall treatment",
+                             "use fewer or lower mesh levels, or set mesh.target_yplus so that every level stays in the band",
+                             "sweep.mesh_level"))
+    if lp.n_layers > 40:
+        problems.append((f"the {lp.treatment} treatment needs {lp.n_layers} prism layers (first layer "
+                         f"{lp.first_height * 1e3:.4f} mm growing by {lp.expansion:g})",
+                         "raise mesh.layer_expansion or use wall functions", "mesh.layer_expansion"))
     ds = d0 / 2**settings.surface_levels[1]
+    T = lp.thickness / scale
     if T > ds:
         warnings.append(f"the prism-layer stack ({T * 1e3:.3f} mm) is thicker than the finest surface cell "
-                        f"({ds * 1e3:.3f} mm); the mesher may collapse layers (raise target_yplus or layers)")
-    if body.min_clearance is not None and ground != "none" and T > 0.5 * body.min_clearance:
-        warnings.append(f"the prism-layer stack ({T * 1e3:.3f} mm) fills more than half of the smallest ground clearance "
-                        f"({body.min_clearance * 1e3:.3f} mm)")
-    return layers, warnings
+                        f"({ds * 1e3:.3f} mm); the mesher may collapse layers (raise target_yplus or lower layers)")
+    return layers, problems, warnings
 
 
 def plan_domain(body: BodyExtent, placement: Placement, ground: str, sizing: DomainSizing, settings: MeshSettings,
-                mesh_level: int, air_speed: float, nu: float) -> DomainPlan:
+                mesh_level: int, air_speed: float, nu: float, local_speed: float | None = None) -> DomainPlan:
     """Size the domain and the mesh of one case: the background box
-    (:func:`_section`), the refinement regions (:func:`_regions`), the
-    prism layers (:func:`_layers`) and the point that marks the fluid.
+    (:func:`_section`), the prism layers (:func:`plan_layers`, decided at
+    mesh level 0 and scaled: :func:`_layers`), the ground rectangle with
+    layers (:func:`_ground_rectangle`), the refinement regions and the gap
+    plan (:func:`_regions`) and the point that marks the fluid.
 
     ``placement`` the body → ground transform; ``ground`` "moving" |
     "stationary" | "none"; ``mesh_level`` of the sweep point; ``air_speed``
-    m/s and ``nu`` m²/s for the first-cell height.
+    m/s, ``local_speed`` (m/s, default the air speed: the planner passes the
+    underfloor speed) and ``nu`` m²/s for the first-cell height.
     """
     axes = wind_axes(placement)
     g0 = placement.ground_point_body if ground != "none" else np.zeros(3)
     lo, hi = _wind_extent(body, axes, g0)
     d0 = base_cell_size(settings, body.length, mesh_level)
+    base0 = base_cell_size(settings, body.length, 0)
+    scale = LEVEL_FACTOR**mesh_level
     sec = _section(body, lo, hi, axes, g0, ground, sizing, d0)
-    regions, gap_level, gap_problems = _regions(body, lo, hi, axes, g0, ground, sec.origin[2], settings, d0)
-    layers, layer_warnings = _layers(body, ground, settings, air_speed, nu, d0)
+    lp = plan_layers(settings, local_speed if local_speed is not None else air_speed, body.length, nu)
+    if lp is not None and ground == "none":
+        lp = replace(lp, ground=False)
+    layers, layer_problems, layer_warnings = _layers(lp, settings, mesh_level, d0)
+    domain = sec.domain
+    if lp is not None and lp.ground and ground != "none":
+        domain = replace(domain, ground_layer_cells=_ground_rectangle(sec, lo, hi, body.length))
+    reg = _regions(body, lo, hi, placement, axes, g0, ground, sec.origin[2], settings, base0, lp, scale)
     # location in mesh: upstream of the body, at a fraction of a cell no refinement level puts on a face
     frac = 0.4371
     n = sec.n
@@ -338,11 +657,15 @@ def plan_domain(body: BodyExtent, placement: Placement, ground: str, sizing: Dom
     lim = g0 + (sec.origin + c) @ axes
     smin, smax = settings.surface_levels
     mesh = MeshSpec(base_cell=float(d0), surface_levels=(int(smin), int(smax)), feature_level=int(settings.feature_level),
-                    regions=tuple(regions), layers=layers, location_in_mesh=tuple(float(v) for v in lim))
-    est = estimate_cells(sec.domain, mesh, body.area)
-    return DomainPlan(domain=sec.domain, mesh=mesh, base_cell=float(d0), gap_level=gap_level, estimated_cells=est,
-                      warnings=sec.warnings + tuple(layer_warnings),
-                      problems=sec.problems + tuple(gap_problems) + tuple(cell_limit_problems(est)))
+                    regions=tuple(reg.regions), layers=layers, location_in_mesh=tuple(float(v) for v in lim))
+    footprint = None
+    if body.underside is not None and domain.ground_layer_cells is not None:
+        footprint = float(np.count_nonzero(np.isfinite(body.underside.z))) * body.underside.cell_area
+    est = estimate_cells(domain, mesh, body.area, ground_layer_area=footprint)
+    return DomainPlan(domain=domain, mesh=mesh, base_cell=float(d0), gap_level=None if reg.gap is None else reg.gap.level,
+                      estimated_cells=est, warnings=sec.warnings + tuple(reg.warnings) + tuple(layer_warnings),
+                      problems=sec.problems + tuple(layer_problems) + tuple(reg.problems) + tuple(cell_limit_problems(est)),
+                      gap=reg.gap, info=reg.info, nominal_volume=sec.nominal_volume)
 
 
 def cell_limit_problems(estimated_cells: int) -> list[tuple[str, str]]:
@@ -423,29 +746,35 @@ def plan_empty_section(*, placement: Placement, length: float, width: float, hei
                       warnings=(), problems=tuple(cell_limit_problems(int(n1 * n2 * n3))))
 
 
-def estimate_cells(domain: Domain, mesh: MeshSpec, body_area: float) -> int:
+def estimate_cells(domain: Domain, mesh: MeshSpec, body_area: float, ground_layer_area: float | None = None) -> int:
     """Rough cell count (±50 %) of the finished mesh.
 
-    Background n1·n2·n3; each refinement region (taken as nested, in order
-    of level) adds V (1/Δ_r³ − 1/Δ_prev³); the body surface adds three cells
-    thick of the finest surface cells, A/Δ_s² × 3, and each prism layer
-    A/Δ_s². Δ_n = base_cell / 2ⁿ (m); ``body_area`` m².
+    Background n1·n2·n3; each refinement region adds V (2ᶻ/Δ_r³ − 1/Δ_c³),
+    V its fluid volume (or its box volume), Δ_r = base_cell/2^level its cell,
+    z its splits along the floor normal and Δ_c the cell of the next coarser
+    level present (regions of one level are taken as disjoint, regions of
+    different levels as nested); the body surface adds three cells thick of
+    the finest surface cells, A/Δ_s² × 3, and each prism layer A/Δ_s²; with
+    layers on the ground, each layer adds the body's footprint area
+    ``ground_layer_area`` (m²) over the gap cells' face area. Δ_n =
+    base_cell / 2ⁿ (m); ``body_area`` m².
     """
     d0 = mesh.base_cell
     total = float(np.prod(np.asarray(domain.cells, dtype=float)))  # float: no integer overflow
-    prev = d0
-    for r in sorted(mesh.regions, key=lambda r: r.level):
+    levels = sorted({r.level for r in mesh.regions})
+    coarser = {lv: (d0 / 2**levels[i - 1] if i > 0 else d0) for i, lv in enumerate(levels)}
+    for r in mesh.regions:
         dr = d0 / 2**r.level
-        if dr >= prev:
-            continue
-        V = float(np.prod(r.box.lengths))
-        total += V * (1.0 / dr**3 - 1.0 / prev**3)
-        prev = dr
+        V = float(np.prod(r.box.lengths)) if r.fluid_volume is None else float(r.fluid_volume)
+        total += max(V * (2**r.z_splits / dr**3 - 1.0 / coarser[r.level]**3), 0.0)
     ds = d0 / 2**mesh.surface_levels[1]
     surf = body_area / ds**2
     total += 3.0 * surf
     if mesh.layers is not None:
         total += mesh.layers.n_layers * surf
+        if mesh.layers.ground and ground_layer_area:
+            gl = max((r.level for r in mesh.regions if r.box.name.startswith("underbody")), default=mesh.surface_levels[1])
+            total += mesh.layers.n_layers * ground_layer_area / (d0 / 2**gl) ** 2
     return int(round(total))
 
 

@@ -22,6 +22,8 @@ Sources
 """
 from __future__ import annotations
 
+from dataclasses import dataclass
+
 import numpy as np
 
 R_AIR = 287.05287          # J/(kg K), ISO 2533
@@ -101,24 +103,73 @@ def skin_friction_flat_plate(reynolds_x):
     return float(cf) if cf.ndim == 0 else cf
 
 
-def first_cell_height(target_yplus: float, speed: float, length: float, nu: float) -> float:
-    """Wall-normal height (m) of the first cell for a target y+.
+def friction_velocity_flat_plate(speed: float, length: float, nu: float) -> float:
+    """Friction velocity u_τ (m/s) of a smooth flat plate at the running length.
 
-    Re_x = V L / ν, C_f from :func:`skin_friction_flat_plate` (Schlichting),
-    wall shear τ_w = ½ ρ V² C_f, friction velocity u_τ = V sqrt(C_f / 2),
-    and y = y+ ν / u_τ. ``target_yplus`` dimensionless, ``speed`` V (m/s),
-    ``length`` L (m, the running length: the body length), ``nu`` kinematic
-    viscosity (m²/s). The height is the **full** first-cell height (the cell
-    centre sits at half of it). Valid where the flat-plate correlation is,
-    Re_x < 1e9; a flat-plate estimate, so y+ on a real body varies around it
+    Re_x = U L / ν, C_f from :func:`skin_friction_flat_plate` (Schlichting,
+    *Boundary-Layer Theory*, 7th ed., McGraw-Hill 1979), τ_w/ρ = ½ U² C_f and
+    u_τ = U √(C_f/2). ``speed`` U (m/s, the local speed outside the boundary
+    layer), ``length`` L (m, running length from the leading edge), ``nu``
+    kinematic viscosity (m²/s). Valid for a turbulent flat plate, Re_x < 1e9.
+    """
+    if speed <= 0 or length <= 0 or nu <= 0:
+        raise ValueError("expected positive speed, length and viscosity")
+    cf = skin_friction_flat_plate(speed * length / nu)
+    return float(speed * np.sqrt(cf / 2.0))
+
+
+def first_cell_height(centre_yplus: float, speed: float, length: float, nu: float) -> float:
+    """Wall-normal height (m) of the wall-adjacent cell whose **centre** sits
+    at the target y+.
+
+    h = 2 y+ ν / u_τ, the cell centre at h/2 (where the solver evaluates y+),
+    u_τ from :func:`friction_velocity_flat_plate` at the local speed U and
+    running length L: Re_x = U L/ν, C_f = (2 log10 Re_x − 0.65)^−2.3
+    (Schlichting, *Boundary-Layer Theory*, 7th ed., McGraw-Hill 1979),
+    u_τ = U √(C_f/2). ``centre_yplus`` dimensionless, ``speed`` U (m/s: the
+    planner passes the underfloor speed, the road speed times
+    ``air.underfloor_speed_factor``), ``length`` L (m, the body length),
+    ``nu`` (m²/s). Valid where the flat-plate correlation is (turbulent,
+    Re_x < 1e9); a flat-plate estimate, so y+ on a real body varies around it
     (stagnation and separation regions differ most).
     """
-    if target_yplus <= 0 or speed <= 0 or length <= 0 or nu <= 0:
-        raise ValueError("expected positive y+, speed, length and viscosity")
-    re = speed * length / nu
-    cf = skin_friction_flat_plate(re)
-    u_tau = speed * np.sqrt(cf / 2.0)
-    return float(target_yplus * nu / u_tau)
+    if centre_yplus <= 0:
+        raise ValueError("expected a positive y+")
+    return float(2.0 * centre_yplus * nu / friction_velocity_flat_plate(speed, length, nu))
+
+
+def centre_yplus(first_height: float, speed: float, length: float, nu: float) -> float:
+    """y+ (dimensionless) at the centre of a wall-adjacent cell of height
+    ``first_height`` (m): y+ = (h/2) u_τ/ν, the inverse of
+    :func:`first_cell_height` (same flat-plate estimate, same validity)."""
+    if first_height <= 0:
+        raise ValueError("expected a positive first-cell height")
+    return float(0.5 * first_height * friction_velocity_flat_plate(speed, length, nu) / nu)
+
+
+GAMMA_AIR = 1.4            # ratio of specific heats of dry air (ISO 2533:1975 uses κ = 1.4)
+
+
+def speed_of_sound(temperature) -> float:
+    """Speed of sound in dry air, m/s: a = √(γ R T), γ = 1.4, R =
+    287.05287 J/(kg K) (ISO 2533:1975), ``temperature`` T in K. Valid for
+    air as an ideal gas with constant γ (about 150–1000 K)."""
+    T = np.asarray(temperature, dtype=float)
+    if np.any(T <= 0):
+        raise ValueError(f"expected a positive temperature (K), got {temperature}")
+    a = np.sqrt(GAMMA_AIR * R_AIR * T)
+    return float(a) if a.ndim == 0 else a
+
+
+def isentropic_density_ratio(mach) -> float:
+    """ρ/ρ0 of an isentropic flow at Mach number M: (1 + (γ−1)/2 M²)^(−1/(γ−1)),
+    γ = 1.4 (Anderson, *Modern Compressible Flow*, 3rd ed., McGraw-Hill 2003,
+    §3.5, from memory). At M = 0.3 the density is 4.4 % below its stagnation
+    value: the usual limit for treating the flow as incompressible. Valid for
+    subsonic and supersonic isentropic flow of a perfect gas."""
+    m = np.asarray(mach, dtype=float)
+    r = (1.0 + 0.5 * (GAMMA_AIR - 1.0) * m**2) ** (-1.0 / (GAMMA_AIR - 1.0))
+    return float(r) if r.ndim == 0 else r
 
 
 def inlet_turbulence(speed: float, intensity: float, length_scale: float) -> tuple[float, float, float]:
@@ -136,6 +187,102 @@ def inlet_turbulence(speed: float, intensity: float, length_scale: float) -> tup
     k = 1.5 * (speed * intensity) ** 2
     omega = np.sqrt(k) / (C_MU**0.25 * length_scale)
     return float(k), float(omega), float(k / omega)
+
+
+# The k-ω SST model's outer-layer (k-ε branch, F1 → 0 away from walls)
+# destruction coefficients: Menter, F. R. (1994), AIAA J. 32(8), 1598–1605;
+# the same numbers are the solver's kOmegaSST defaults (beta2, betaStar).
+SST_BETA2 = 0.0828
+SST_BETA_STAR = 0.09
+
+
+@dataclass(frozen=True)
+class FreeStreamTurbulence:
+    """Free-stream turbulence at the inlet and where it reaches the model.
+
+    k in m²/s², ω in 1/s, ν_t = k/ω in m²/s, intensity I = √(2k/3)/U
+    (fraction), length scale ℓ = √k/(C_μ^¼ ω) (m); ``distance`` (m) from the
+    inlet to the model along the wind, ``speed`` U (m/s)."""
+
+    speed: float
+    distance: float
+    k_inlet: float
+    omega_inlet: float
+    nut_inlet: float
+    intensity_inlet: float
+    length_scale_inlet: float
+    k_model: float
+    omega_model: float
+    nut_model: float
+    intensity_model: float
+    length_scale_model: float
+
+    def to_dict(self) -> dict:
+        return dict(self.__dict__)
+
+
+def sst_decay(k0: float, omega0: float, distance: float, speed: float,
+              beta: float = SST_BETA2, beta_star: float = SST_BETA_STAR) -> tuple[float, float]:
+    """k (m²/s²) and ω (1/s) of uniform-flow turbulence after ``distance`` (m)
+    of convection at ``speed`` U (m/s), from k0, ω0 at distance 0.
+
+    With no mean-velocity gradient there is no production, and for slowly
+    varying fields diffusion is negligible, so the k-ω SST equations (as
+    written by the NASA Langley Turbulence Modeling Resource, "The Menter
+    Shear Stress Transport Turbulence Model", looked up) reduce to
+    U dk/dx = −β* ω k and U dω/dx = −β ω², whose solution is
+
+        ω(x) = ω0 / (1 + β ω0 x/U),   k(x) = k0 (1 + β ω0 x/U)^(−β*/β).
+
+    This algebraic decay of free-stream turbulence in two-equation models
+    is the behaviour analysed by Spalart, P. R. and Rumsey, C. L. (2007),
+    "Effective inflow conditions for turbulence models in aerodynamic
+    calculations", AIAA J. 45(10), 2544–2553 (quoted from memory; the
+    formula here is derived from the equations above). β = β2 = 0.0828 and
+    β* = 0.09 (the SST outer branch, which holds away from walls where the
+    blending function F1 → 0). Validity: uniform flow; the neglected
+    cross-diffusion term 2(1−F1)σ_ω2 ∇k·∇ω/ω is 1.7 β* k/U² ≈ 0.23 I² of the ω
+    destruction along this solution, and gradient diffusion is of the same
+    small order, so the formula holds to well under 1 % for I ≤ 0.2.
+    """
+    if k0 <= 0 or omega0 <= 0 or distance < 0 or speed <= 0:
+        raise ValueError("expected positive k0, omega0 and speed and a distance ≥ 0")
+    s = 1.0 + beta * omega0 * distance / speed
+    return float(k0 * s ** (-beta_star / beta)), float(omega0 / s)
+
+
+def turbulence_at_model(speed: float, intensity: float, length_scale: float, distance: float,
+                        beta: float = SST_BETA2, beta_star: float = SST_BETA_STAR) -> FreeStreamTurbulence:
+    """Inlet k, ω that decay to the requested turbulence at the model.
+
+    At the model: k_m = 3/2 (U I)², ω_m = √k_m/(C_μ^¼ ℓ) (:func:`inlet_turbulence`,
+    Wilcox 2006). Inverting :func:`sst_decay` over the inlet-to-model
+    ``distance`` x (m) at ``speed`` U (m/s), with a = β ω_m x/U:
+
+        ω_in = ω_m / (1 − a),   k_in = k_m (1 − a)^(−β*/β),
+
+    possible only for a < 1 (however large ω_in, ω cannot fall below
+    U/(β x) over the distance: a smaller length scale at the model cannot be
+    reached). Raises ValueError for a ≥ 1. ``intensity`` fraction,
+    ``length_scale`` m. Same validity and sources as :func:`sst_decay`.
+    """
+    k_m, om_m, nut_m = inlet_turbulence(speed, intensity, length_scale)
+    if distance < 0:
+        raise ValueError("expected a distance ≥ 0")
+    a = beta * om_m * distance / speed
+    if not a < 1.0:
+        ell_min = np.sqrt(k_m) * beta * distance / (C_MU**0.25 * speed)
+        raise ValueError(f"a length scale of {length_scale:.4g} m at the model cannot be reached over {distance:.4g} m "
+                         f"of decay at {speed:.4g} m/s: the turbulence decays to at least {ell_min:.4g} m whatever "
+                         "the inlet values")
+    om_in = om_m / (1.0 - a)
+    k_in = k_m * (1.0 - a) ** (-beta_star / beta)
+    return FreeStreamTurbulence(
+        speed=float(speed), distance=float(distance),
+        k_inlet=float(k_in), omega_inlet=float(om_in), nut_inlet=float(k_in / om_in),
+        intensity_inlet=float(np.sqrt(2.0 * k_in / 3.0) / speed), length_scale_inlet=float(np.sqrt(k_in) / (C_MU**0.25 * om_in)),
+        k_model=float(k_m), omega_model=float(om_m), nut_model=float(nut_m), intensity_model=float(intensity),
+        length_scale_model=float(length_scale))
 
 
 def layer_stack_thickness(first_height: float, n_layers: int, expansion: float) -> float:

@@ -17,25 +17,31 @@ cells of the finest level the preset allows (see :mod:`caseprep.planning.domain`
 """
 from __future__ import annotations
 
-from dataclasses import dataclass
+import hashlib
+import json
+from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
 
 from caseprep.config.load import load_config
 from caseprep.config.schema import EMPTY_GEOMETRY, Config
-from caseprep.planning.domain import (BodyExtent, DomainSizing, decomposition_split, mesh_settings, plan_domain,
-                                      plan_empty_section)
+from caseprep.contract.walls import WALL_TREATMENTS
+from caseprep.planning.domain import (LEVEL_FACTOR, BodyExtent, DomainSizing, decomposition_split, mesh_settings,
+                                      plan_domain, plan_empty_section)
 from caseprep.contract.errors import UserError, UserErrors
 from caseprep.contract.frames import (Placement, air_speed, body_to_ground_rotation, ground_velocity_ground, place_body,
                      wind_direction_ground)
 from caseprep.geometry.body import BodyGeometry, analyse
 from caseprep.geometry.checks import surface_problems
 from caseprep.geometry.hull import hull_points, hull_projected_area
+from caseprep.geometry.inside import inside
 from caseprep.geometry.stl import LENGTH_UNITS, read_stl
 from caseprep.contract.manifest import Reference
-from caseprep.planning.physics import air_density, inlet_turbulence, isa_troposphere, sutherland_viscosity
+from caseprep.planning.physics import (air_density, isa_troposphere, isentropic_density_ratio, speed_of_sound,
+                                      sutherland_viscosity, turbulence_at_model)
 from caseprep.planning.spec import CaseSpec, Flow, SolverSpec, Wheel
+from caseprep.planning.wheels import place_wheel, rolling_omega
 from caseprep.planning.points import SweepPoint, check_case_count, expand_collect
 
 
@@ -64,22 +70,6 @@ def air_properties(cfg: Config) -> Air:
     return Air(float(T), float(p), float(rho), float(mu), float(nu))
 
 
-def wheel_omega(centre, axis, contact, ground_velocity) -> float:
-    """Spin Ω (rad/s, right-hand rule about the unit ``axis``) that makes the
-    contact point move with the ground: Ω a × (c_p − c) = v_g for the part of
-    v_g the wheel can produce (perpendicular to the axis); least squares
-    Ω = v_g · (a × r) / |a × r|², r = c_p − c. Points in m (body frame),
-    velocity in m/s (body axes)."""
-    a = np.asarray(axis, float)
-    a = a / np.linalg.norm(a)
-    r = np.asarray(contact, float) - np.asarray(centre, float)
-    t = np.cross(a, r)
-    den = float(t @ t)
-    if den == 0.0:
-        raise ValueError("expected the contact point off the wheel axis")
-    return float(np.asarray(ground_velocity, float) @ t / den)
-
-
 @dataclass(frozen=True)
 class VariantGeometry:
     """One variant's geometry facts for all its cases."""
@@ -90,6 +80,7 @@ class VariantGeometry:
     body: BodyGeometry
     body_solids: tuple[str, ...]
     extent_hull: np.ndarray  # hull of body + wheel files (domain sizing, blockage)
+    wheel_hulls: dict = field(default_factory=dict)  # wheel name → hull points of its geometry (body frame, m)
 
 
 @dataclass(frozen=True)
@@ -143,11 +134,21 @@ def load_geometries(cfg: Config) -> tuple[dict[str, VariantGeometry], dict[str, 
                                   fix="half models with a symmetry plane are not supported: mirror the geometry to a full body "
                                       "(and draw it with y = 0 on the centre line)"))
         body_solids = tuple(n for n in s.solid_names if n not in wheel_solids) or s.solid_names
-        allp = [g.hull] + list(wheel_pts.values())
-        if wheel_solids:
-            allp.append(hull_points(s.triangles.reshape(-1, 3)))
+        hulls = {w.name: wheel_pts[w.name] for w in cfg.body.wheels if w.geometry and w.name in wheel_pts}
+        for w in cfg.body.wheels:
+            if w.solid and w.solid in s.solid_names:
+                hulls[w.name] = hull_points(s.select([w.solid]).triangles.reshape(-1, 3))
+        body_tris = s.select(body_solids).triangles
+        for i, w in enumerate(cfg.body.wheels):
+            if inside(body_tris, w.centre):
+                errs.append(UserError(expected="a wheel centre outside the body (in its wheel arch or beside it)",
+                                      got=f"({', '.join(f'{c:g}' for c in w.centre)}) m, inside the body of {v.geometry}",
+                                      file=cfg.file, key=f"body.wheels[{i}].centre",
+                                      fix="give the wheel centre in the body frame (x rearward, y right, z up, m); the body "
+                                          "surface must have an opening (wheel arch) where the wheel sits"))
+        allp = [g.hull] + list(hulls.values())
         ext = hull_points(np.vstack(allp)) if len(allp) > 1 else g.hull
-        out[name] = VariantGeometry(name, v.geometry, unit, g, body_solids, ext)
+        out[name] = VariantGeometry(name, v.geometry, unit, g, body_solids, ext, hulls)
     return out, wheel_pts, errs
 
 
@@ -168,6 +169,66 @@ def _reference_geometry(cfg: Config):
     return _vec(fa), _vec(ra), float(wb), float(lref), _vec(mp)
 
 
+def wall_treatment_name(cfg: Config) -> str:
+    """The wall treatment of the study: ``laminar`` for laminar flow, else
+    ``mesh.wall_treatment`` (see :mod:`caseprep.contract.walls`)."""
+    return "laminar" if cfg.solver.turbulence_model == "laminar" else cfg.mesh.wall_treatment
+
+
+def config_mesh_settings(cfg: Config):
+    """The mesh preset of ``cfg`` with its ``[mesh]`` overrides."""
+    m = cfg.mesh
+    return mesh_settings(m.fidelity, base_cell=m.base_cell, surface_levels=m.surface_levels, feature_level=m.feature_level,
+                         max_level=m.max_level, gap_cells=m.gap_cells, layers=m.layers, layer_expansion=m.layer_expansion,
+                         target_yplus=m.target_yplus, wall_treatment=wall_treatment_name(cfg))
+
+
+#: Local Mach number above which incompressible flow is questionable: the
+#: isentropic density change reaches 4.4 % at M = 0.3 (common practice; see
+#: :func:`caseprep.planning.physics.isentropic_density_ratio`).
+MACH_WARNING = 0.3
+
+
+def mach_note(cfg: Config, air: Air, speed: float) -> tuple[float, str | None]:
+    """Local Mach number under the floor, M = f U / a (f =
+    ``air.underfloor_speed_factor``, U the air speed in m/s, a = √(γ R T)
+    at the config's temperature), and a warning above :data:`MACH_WARNING`."""
+    f = cfg.air.underfloor_speed_factor
+    M = f * speed / speed_of_sound(air.temperature)
+    if M <= MACH_WARNING:
+        return float(M), None
+    drop = 100.0 * (1.0 - isentropic_density_ratio(M))
+    return float(M), (f"local Mach number {M:.2f} under the floor ({f:g} × {speed:.4g} m/s, speed of sound "
+                      f"{speed_of_sound(air.temperature):.1f} m/s) is above {MACH_WARNING:g}: the density there is "
+                      f"{drop:.1f} % below its stagnation value and the incompressible solver ignores it; treat the "
+                      "loads with care or use a compressible solver")
+
+
+#: Default free-stream length scale at the model, as a fraction of the body
+#: length (common practice, no source): large enough for the decay over the
+#: default 5 body lengths upstream to stay mild (k at the inlet 1.3 × that at
+#: the model at 0.5 % intensity, 1.9 × at 1 %).
+LENGTH_SCALE_FRACTION = 0.02
+#: Inlet k above this multiple of the model's: a strong decay, sensitive to the model constants.
+STRONG_DECAY = 4.0
+
+
+def flow_turbulence(cfg: Config, speed: float, body_length: float, distance: float,
+                    file_key: str = "solver.turbulence_length_scale"):
+    """Inlet k, ω that decay to the config's intensity and length scale at
+    the model, ``distance`` (m) downstream of the inlet
+    (:func:`caseprep.planning.physics.turbulence_at_model`); the length scale
+    defaults to :data:`LENGTH_SCALE_FRACTION` × ``body_length`` (m). Raises
+    UserError when the decay cannot deliver them."""
+    ell = cfg.solver.turbulence_length_scale or LENGTH_SCALE_FRACTION * body_length
+    try:
+        return turbulence_at_model(speed, cfg.solver.turbulence_intensity, ell, distance)
+    except ValueError as exc:
+        raise UserError(expected="free-stream turbulence that can reach the model", got=str(exc), file=cfg.file,
+                        key=file_key, fix="raise solver.turbulence_length_scale (or lower domain.upstream / "
+                                          "solver.turbulence_intensity)") from None
+
+
 def plan_all(cfg: Config) -> PlanResult:
     """Plan every case, collecting problems instead of stopping at the first."""
     problems: list[UserError] = []
@@ -180,9 +241,7 @@ def plan_all(cfg: Config) -> PlanResult:
     points, perrs = expand_collect(cfg)
     problems.extend(perrs)
     air = air_properties(cfg)
-    settings = mesh_settings(cfg.mesh.fidelity, cfg.mesh.base_cell, cfg.mesh.surface_levels, cfg.mesh.feature_level,
-                             cfg.mesh.max_level, cfg.mesh.gap_cells, cfg.mesh.layers, cfg.mesh.layer_expansion,
-                             cfg.mesh.target_yplus)
+    settings = config_mesh_settings(cfg)
     fa, ra, wb, lref, mp = _reference_geometry(cfg)
     baseline = next(iter(cfg.variants))
     cases: list[CaseSpec] = []
@@ -191,6 +250,8 @@ def plan_all(cfg: Config) -> PlanResult:
         empty = cfg.variants[pt.variant].geometry == EMPTY_GEOMETRY
         if not empty and (pt.variant not in geoms or (cfg.body.reference_area == "auto" and baseline not in geoms)):
             continue
+        if not empty and any(w.name not in geoms[pt.variant].wheel_hulls for w in cfg.body.wheels):
+            continue  # a wheel's geometry could not be read: already a problem
         try:
             if empty:
                 spec, notes = plan_empty_case(cfg, pt, air)
@@ -204,7 +265,66 @@ def plan_all(cfg: Config) -> PlanResult:
             continue
         cases.append(spec)
         warnings.extend(f"{spec.case_id}: {n}" for n in notes)
+    problems.extend(similarity_problems(cfg, cases))
     return PlanResult(tuple(cases), tuple(problems), tuple(warnings))
+
+
+def _lengths(c: CaseSpec) -> dict[str, float]:
+    """Every cell length of a case's mesh (m): the background cell along
+    each domain axis, the cell of each refinement region (with its splits
+    along the floor normal) and the first prism layer."""
+    d = c.domain
+    out = {f"background cell along e{i + 1}": float(d.box.lengths[i] / d.cells[i]) for i in range(3)}
+    for r in c.mesh.regions:
+        out[f"cell of region {r.box.name}"] = c.mesh.base_cell / 2**r.level
+        if r.z_splits:
+            out[f"split cell of region {r.box.name}"] = c.mesh.base_cell / 2**(r.level + r.z_splits)
+    for i, lv in enumerate(c.mesh.surface_levels):
+        out[f"surface cell ({'min' if i == 0 else 'max'} level)"] = c.mesh.base_cell / 2**lv
+    if c.mesh.layers is not None:
+        out["first prism layer"] = c.mesh.layers.first_cell_height
+        out["prism layer count"] = float(c.mesh.layers.n_layers)
+    return out
+
+
+def similarity_problems(cfg: Config, cases: list[CaseSpec], rel_tol: float = 1e-6) -> list[UserError]:
+    """The mesh levels of one point must be geometrically similar: every
+    cell length of level m equals that of the coarsest level times
+    (1/√2)^(m − m0) (layer counts equal), so that the grid convergence index
+    may assume h ∝ (1/√2)^m. Returns one UserError per point whose levels
+    are not, naming the first length that breaks the rule (e.g. a fixed
+    ``domain.width`` that is not a whole number of cells at every level)."""
+    groups: dict[tuple, list[CaseSpec]] = {}
+    for c in cases:
+        p = dict(c.params)
+        level = p.pop("mesh_level", 0)
+        groups.setdefault((c.variant, json.dumps(p, sort_keys=True)), []).append((level, c))
+    errs = []
+    for (variant, _), items in groups.items():
+        if len(items) < 2:
+            continue
+        items.sort(key=lambda t: t[0])
+        m0, c0 = items[0]
+        ref = _lengths(c0)
+        for m, c in items[1:]:
+            got = _lengths(c)
+            for name, v0 in ref.items():
+                want = v0 if name == "prism layer count" else v0 / LEVEL_FACTOR ** (m - m0)
+                v = got.get(name)
+                if v is None or abs(v - want) > rel_tol * abs(want):
+                    key = "domain.width" if name.endswith("e2") and cfg.domain.width is not None else (
+                        "domain.height" if name.endswith("e3") and cfg.domain.height is not None else "sweep.mesh_level")
+                    errs.append(UserError(
+                        expected="mesh levels of one point that are geometrically similar (every length × 1/√2 per level)",
+                        got=f"{name} of case {c.case_id} (level {m}) = {v if v is None else f'{v:.6g}'} m, similarity needs "
+                            f"{want:.6g} m from case {c0.case_id} (level {m0})",
+                        file=cfg.file, key=key,
+                        fix="leave domain.width and domain.height automatic (whole cells at every level), or run one mesh level"))
+                    break
+            else:
+                continue
+            break
+    return errs
 
 
 class _RotationCache:
@@ -252,15 +372,14 @@ def _wind(cfg: Config, pt: SweepPoint, P: Placement) -> tuple[float, np.ndarray,
     return U, w_body, vg_body
 
 
-def _flow(cfg: Config, air: Air, U: float, w_body: np.ndarray, vg_body: np.ndarray, lref: float) -> Flow:
+def _flow(cfg: Config, air: Air, U: float, w_body: np.ndarray, vg_body: np.ndarray, turb) -> Flow:
     """The case's flow: inlet velocity U·w (m/s), ground velocity, air, model
-    and inlet turbulence (intensity, length scale ``turbulence_length_scale``
-    or 1e-3 × the reference length ``lref``, m)."""
-    ell = cfg.solver.turbulence_length_scale or 1e-3 * lref
-    k, om, nut = inlet_turbulence(U, cfg.solver.turbulence_intensity, ell)
+    and the free-stream turbulence ``turb`` (:func:`flow_turbulence`: inlet
+    k, ω, ν_t that decay to the requested values at the model)."""
     return Flow(inlet_velocity=_vec(U * w_body), ground_velocity=_vec(vg_body), air_speed=float(U), rho=air.rho,
-                nu=air.nu, p_ref=0.0, model=cfg.solver.turbulence_model, intensity=cfg.solver.turbulence_intensity,
-                length_scale=float(ell), k=k, omega=om, nut=nut)
+                nu=air.nu, p_ref=0.0, model=cfg.solver.turbulence_model, intensity=turb.intensity_model,
+                length_scale=turb.length_scale_model, k=turb.k_inlet, omega=turb.omega_inlet, nut=turb.nut_inlet,
+                turbulence=turb.to_dict())
 
 
 def _solver(cfg: Config, domain, preset_iterations: int) -> SolverSpec:
@@ -313,26 +432,75 @@ def _place(cfg: Config, pt: SweepPoint, g: BodyGeometry, cache: _RotationCache):
     return P, clearance, at, pct, where
 
 
-def _wheels(cfg: Config, P: Placement, vg_body: np.ndarray, notes: list[str]) -> tuple[list[Wheel], dict[str, str]]:
-    """The wheels (rotation rate from the ground velocity ``vg_body`` when
-    the ground moves) and their geometry sources; a note for each wheel
-    whose centre is not within 2 % of its radius above the ground."""
-    wheels, sources = [], {}
+def plan_wheels(cfg: Config, pt: SweepPoint, vg: "VariantGeometry", P: Placement, vg_body: np.ndarray,
+                notes: list[str]) -> tuple[list[Wheel], list[dict], dict]:
+    """Place every wheel of the config on the ground for the body placement
+    ``P`` (:func:`caseprep.planning.wheels.place_wheel`): independent of the
+    body's ride height and pitch, yawed with the model, steered and cambered
+    as configured, sunk by its flattening; spin for rolling without slip on
+    the ground moving at ``vg_body`` (m/s, body axes). Returns the wheels, a
+    JSON-ready fact sheet per wheel (centre height, radius, loaded radius,
+    contact gap, spin) and the writer's recipes of the files to make: each
+    wheel transformed into place, named after its pose so cases with the
+    same pose share one file, and the body file without its wheel solids."""
+    wheels, facts, recipes = [], [], {}
+    wheel_solids = [w.solid for w in cfg.body.wheels if w.solid]
+    if wheel_solids:
+        recipes[f"{pt.variant}.stl"] = {"source": str(vg.source), "unit": vg.length_unit, "solids": list(vg.body_solids),
+                                        "rotation": None, "offset": None, "solid_name": None}
     for w in cfg.body.wheels:
-        c = np.asarray(w.centre, float)
-        a = np.asarray(w.axis, float) / np.linalg.norm(w.axis)
-        h = float(P.height_above_ground(c))
-        contact = c - h * P.ground_normal_body
-        omega = wheel_omega(c, a, contact, vg_body) if cfg.ground.mode == "moving" else 0.0
-        off = h - w.radius
-        if abs(off) > 0.02 * w.radius:
-            notes.append(f"wheel {w.name}: centre {h * 1e3:.2f} mm above the ground for a radius of {w.radius * 1e3:.2f} mm "
-                         f"({'gap' if off > 0 else 'overlap'} {abs(off) * 1e3:.2f} mm at the contact patch)")
-        wheels.append(Wheel(name=w.name, patch=w.solid or w.name, centre=_vec(c), axis=_vec(a), radius=float(w.radius),
-                            omega=float(omega), geometry=f"wheel_{w.name}.stl" if w.geometry else None))
-        if w.geometry:
-            sources[w.name] = w.geometry
-    return wheels, sources
+        wp = place_wheel(P, w.centre, w.axis, w.radius, vg.wheel_hulls[w.name], w.flattening, w.steering_deg, w.camber_deg)
+        omega = rolling_omega(wp.centre, wp.axis, wp.contact, vg_body) if cfg.ground.mode == "moving" else 0.0
+        if abs(wp.geometry_radius - w.radius) > 0.03 * w.radius:
+            notes.append(f"wheel {w.name}: its geometry's radius is {wp.geometry_radius * 1e3:.2f} mm, the configured "
+                         f"radius {w.radius * 1e3:.2f} mm: the contact follows the geometry, the spin the configured radius")
+        src, unit = (w.geometry, cfg.body.length_unit) if w.geometry else (vg.source, vg.length_unit)
+        key = json.dumps([src, w.solid, np.round(wp.rotation, 12).tolist(), np.round(wp.offset, 12).tolist()])
+        fname = f"wheel_{w.name}_{hashlib.sha256(key.encode()).hexdigest()[:8]}.stl"
+        recipes[fname] = {"source": str(src), "unit": unit, "solids": [w.solid] if w.solid else None,
+                          "rotation": wp.rotation.tolist(), "offset": wp.offset.tolist(), "solid_name": w.solid or w.name}
+        zone_r = (w.zone_radius if w.zone_radius is not None else ZONE_RADIUS_FRACTION * w.radius) if w.rotation == "zone" else None
+        wheels.append(Wheel(name=w.name, patch=w.solid or w.name, centre=_vec(wp.centre), axis=_vec(wp.axis),
+                            radius=float(w.radius), omega=float(omega), geometry=fname, rotation=w.rotation,
+                            zone_radius=None if zone_r is None else float(zone_r), width=float(wp.width),
+                            placement=wp.to_dict()))
+        facts.append({"name": w.name, **wp.to_dict(), "omega": float(omega), "rotation": w.rotation,
+                      "zone_radius": zone_r, "steering_deg": w.steering_deg, "camber_deg": w.camber_deg,
+                      "surface_speed_at_contact": (float(omega) * np.cross(wp.axis, wp.contact - wp.centre)).tolist()})
+    return wheels, facts, recipes
+
+
+#: Default radius of a wheel's rotating reference zone, fraction of its
+#: radius: about a rim's radius (common practice, no source).
+ZONE_RADIUS_FRACTION = 0.75
+
+
+def mesh_facts(cfg: Config, dp, body_volume: float, speed: float) -> dict:
+    """What a case's mesh is meant to be, for the manifest and ``caseprep
+    plan --json``: wall treatment and its y+ band, first-cell height (m) and
+    the flat-plate y+ at its centre at this mesh level, the underfloor speed
+    (m/s) it was sized for, the gap plan, and the fluid volume V (m³) from
+    which the representative cell size h = (V/N)^(1/3) follows once the
+    cell count N is known: the domain box of the sizing rule before its
+    rounding to whole background cells, less the body. That box is the same
+    at every mesh level of a point, so h follows the cell count alone; the
+    meshed box differs from it by less than one background cell per side,
+    whose few large cells bias h by about 0.1 %."""
+    L = dp.mesh.layers
+    tr = WALL_TREATMENTS[wall_treatment_name(cfg)]
+    box = dp.nominal_volume if dp.nominal_volume else float(np.prod(dp.domain.box.lengths))
+    V = float(box) - max(body_volume, 0.0)
+    return {
+        "wall_treatment": tr.name,
+        "yplus_band": list(tr.band),
+        "first_cell_height": None if L is None else L.first_cell_height,
+        "centre_yplus": None if L is None else L.target_yplus,
+        "prism_layers": None if L is None else {"n": L.n_layers, "expansion": L.expansion, "on_ground": L.ground},
+        "underfloor_speed": cfg.air.underfloor_speed_factor * speed,
+        "gap": dict(dp.info) or None,
+        "fluid_volume": V,
+        "base_cell": dp.base_cell,
+    }
 
 
 def plan_case(cfg: Config, pt: SweepPoint, geoms: dict[str, VariantGeometry], air: Air, settings, refgeo,
@@ -360,20 +528,32 @@ def plan_case(cfg: Config, pt: SweepPoint, geoms: dict[str, VariantGeometry], ai
     body = BodyExtent(points=vg.extent_hull, length=g.length, area=g.area, frontal_area=frontal_wind,
                       min_clearance=clearance,
                       ride_heights=(pt.ride_height_front, pt.ride_height_rear) if ground != "none" else None,
-                      extent_range=extent_range)
+                      extent_range=extent_range, underside=g.underside if ground != "none" else None)
     d = cfg.domain
     sizing = DomainSizing(upstream=d.upstream, downstream=d.downstream, width=d.width, height=d.height,
                           target_blockage=d.target_blockage, max_blockage=d.max_blockage)
-    dp = plan_domain(body, P, ground, sizing, settings, pt.mesh_level, U, air.nu)
+    dp = plan_domain(body, P, ground, sizing, settings, pt.mesh_level, U, air.nu,
+                     local_speed=cfg.air.underfloor_speed_factor * U)
     if dp.problems:
         extra = f" (at {where})" if where else ""
-        msgs = [UserError(f"case {cid} ({cfg.file} at {pt.source}): {what}{extra if 'clearance' in what else ''}", fix=fix,
-                          file=cfg.file, key=pt.source)
-                for what, fix in dp.problems]
+        msgs = []
+        for what, fix, *key in dp.problems:
+            k = key[0] if key else pt.source
+            msgs.append(UserError(f"case {cid} ({cfg.file} at {k}): {what}{extra if 'clearance' in what else ''}", fix=fix,
+                                  file=cfg.file, key=k))
         raise msgs[0] if len(msgs) == 1 else UserErrors(msgs)
     notes.extend(dp.warnings)
-    flow = _flow(cfg, air, U, w_body, vg_body, lref)
-    wheels, wheel_sources = _wheels(cfg, P, vg_body, notes)
+    mach, why = mach_note(cfg, air, U)
+    if why:
+        notes.append(why)
+    # the model starts `upstream` body lengths downstream of the inlet (plan_domain)
+    turb = flow_turbulence(cfg, U, g.length, cfg.domain.upstream * g.length)
+    if turb.k_inlet > STRONG_DECAY * turb.k_model:
+        notes.append(f"the free-stream turbulence decays strongly before the model (k at the inlet "
+                     f"{turb.k_inlet / turb.k_model:.1f} × that at the model): the values at the model depend on the "
+                     "model's decay constants; a larger solver.turbulence_length_scale decays less")
+    flow = _flow(cfg, air, U, w_body, vg_body, turb)
+    wheels, wheel_facts, recipes = plan_wheels(cfg, pt, vg, P, vg_body, notes)
     solver = _solver(cfg, dp.domain, settings.preset.iterations)
     area = reference_area(cfg, pt.variant, geoms)
     ref = Reference(area=area, length=lref, wheelbase=wb, front_axle=fa, rear_axle=ra, moment_point=mp, rho=air.rho,
@@ -383,16 +563,20 @@ def plan_case(cfg: Config, pt: SweepPoint, geoms: dict[str, VariantGeometry], ai
         "geometry_source": vg.source,
         "geometry_length_unit": vg.length_unit,
         "geometry_scale_to_m": LENGTH_UNITS[vg.length_unit],
-        "wheel_sources": wheel_sources,
+        "wheel_sources": {w.name: w.geometry for w in cfg.body.wheels if w.geometry},
         # what the writer reads: shared file name → source path and → scale to metres
-        "geometry_sources": {f"{pt.variant}.stl": str(vg.source),
-                             **{f"wheel_{n}.stl": str(p) for n, p in wheel_sources.items()}},
-        "geometry_scales": {f"{pt.variant}.stl": LENGTH_UNITS[vg.length_unit],
-                            **{f"wheel_{n}.stl": LENGTH_UNITS[cfg.body.length_unit] for n in wheel_sources}},
+        "geometry_sources": {f"{pt.variant}.stl": str(vg.source)},
+        "geometry_scales": {f"{pt.variant}.stl": LENGTH_UNITS[vg.length_unit]},
+        # files the writer makes: the body without its wheel solids, each wheel placed on the ground
+        "geometry_recipes": recipes,
+        "wheels": wheel_facts,
         "wheel_length_unit": cfg.body.length_unit,
         "air": {"temperature": air.temperature, "pressure": air.pressure, "mu": air.mu},
         "frontal_area_wind": frontal_wind,
         "min_clearance_x_percent": pct,
+        **mesh_facts(cfg, dp, float(g.report.volume), U),
+        "local_mach": mach,
+        "turbulence": turb.to_dict(),
         "warnings": list(notes),
         # what the sweep report pictures ([report]; postproc reads it from the manifest)
         "report": cfg.report.model_dump(exclude_none=True),
@@ -431,7 +615,9 @@ def plan_empty_case(cfg: Config, pt: SweepPoint, air: Air) -> tuple[CaseSpec, li
                             lead_in=float(d.lead_in or 0.0))
     U, w_body, vg_body = _wind(cfg, pt, P)
     lref = cfg.body.reference_length if cfg.body.reference_length is not None else float(d.length)
-    flow = _flow(cfg, air, U, w_body, vg_body, lref)
+    # without a body the "model" is the middle of the section
+    turb = flow_turbulence(cfg, U, float(d.length), 0.5 * float(d.length))
+    flow = _flow(cfg, air, U, w_body, vg_body, turb)
     solver = _solver(cfg, dp.domain, mesh_settings(m.fidelity).preset.iterations)
     ra = cfg.body.reference_area
     area = float(ra) if not isinstance(ra, str) else float(d.width * d.height)
@@ -446,6 +632,9 @@ def plan_empty_case(cfg: Config, pt: SweepPoint, air: Air) -> tuple[CaseSpec, li
         # first background cell on the ground (m), after the mesh level's refinement
         "ground_first_cell": None if m.ground_first_cell is None else float(m.ground_first_cell / 2.0 ** (0.5 * pt.mesh_level)),
         "air": {"temperature": air.temperature, "pressure": air.pressure, "mu": air.mu},
+        "turbulence": turb.to_dict(),
+        "fluid_volume": float(np.prod(dp.domain.box.lengths)),
+        "base_cell": dp.base_cell,
         "warnings": [],
     }
     spec = CaseSpec(
@@ -486,6 +675,27 @@ def check(path: str | Path) -> PlanResult:
     except UserError as e:
         return PlanResult((), (e,), ())
     return plan_all(cfg)
+
+
+#: Keys of each case in ``caseprep plan --json`` besides the table's columns.
+PLAN_FACTS = ("wall_treatment", "yplus_band", "first_cell_height", "centre_yplus", "prism_layers", "underfloor_speed",
+              "local_mach", "gap", "turbulence", "fluid_volume", "base_cell", "wheels", "warnings")
+
+
+def plan_json(cases) -> list[dict]:
+    """One JSON-ready dict per case for ``caseprep plan --json``: the table
+    row (:func:`table_rows`, mm and degrees there) plus the planning facts of
+    :data:`PLAN_FACTS` in SI units (m, m/s, m³; y+ dimensionless): wall
+    treatment and y+ band, first-cell height and the flat-plate y+ at its
+    centre, the gap plan, the free-stream turbulence at the inlet and at the
+    model, the local Mach number and the wheels' placement."""
+    out = []
+    for row, c in zip(table_rows(cases), cases):
+        d = dict(row)
+        d.update({k: c.extra.get(k) for k in PLAN_FACTS if k in c.extra})
+        d["estimated_cells"] = c.estimated_cells
+        out.append(d)
+    return out
 
 
 TABLE_COLUMNS = ("case", "variant", "rh_front_mm", "rh_rear_mm", "pitch_deg", "yaw_deg", "speed_m_s", "level",

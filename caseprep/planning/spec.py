@@ -54,10 +54,16 @@ class OrientedBox:
 @dataclass(frozen=True)
 class RefinementRegion:
     """A volume refinement region: cells inside ``box`` refined to ``level``
-    (level n = base cell size / 2**n)."""
+    (level n = base cell size / 2**n), then split ``z_splits`` more times
+    along the mesh frame's z axis (the floor normal: flat cells of
+    base/2**level × base/2**level × base/2**(level + z_splits)).
+    ``fluid_volume`` (m³, None: the box volume) is the part of the box the
+    flow occupies, for the cell estimate."""
 
     box: OrientedBox
     level: int
+    z_splits: int = 0
+    fluid_volume: float | None = None
 
 
 @dataclass(frozen=True)
@@ -72,6 +78,10 @@ class Domain:
     the bottom face is a slip far-field boundary like the sides and top).
     ``blockage`` is the frontal area of the body normal to the wind divided by
     the inlet face area (fraction, not %).
+    ``ground_layer_cells`` (i1, i2, j1, j2): background cell indices along e1
+    and e2 of the ground rectangle under the body that gets prism layers
+    (patch ``ground``; the rest of the ground is the patch ``ground_far``);
+    None: the whole ground is one patch ``ground`` without layers.
     ``ground_grading``: ratio of the last to the first background cell size
     along e3 (1 = uniform; > 1: cells grow away from the ground).
     ``lead_in`` (m): length along e1, from the inlet, of a slip floor ahead
@@ -86,21 +96,27 @@ class Domain:
     ground_grading: float = 1.0
     lead_in: float = 0.0
     lead_in_cells: int = 0
+    ground_layer_cells: tuple[int, int, int, int] | None = None
 
 
 @dataclass(frozen=True)
 class Layers:
-    """Prism layers on the body (and wheels).
+    """Prism layers on the body and wheels (and, with ``ground``, on the
+    ground under the body).
 
-    ``first_cell_height`` (m) from the target y+ (see caseprep.planning.physics);
-    ``n_layers``, ``expansion`` (ratio between consecutive layers);
-    ``target_yplus`` the y+ that height was computed for.
+    ``first_cell_height`` (m) of this mesh level; ``n_layers``, ``expansion``
+    (ratio between consecutive layers); ``target_yplus`` the y+ at the first
+    cell **centre** that height gives by the flat-plate estimate (see
+    caseprep.planning.physics) at this mesh level; ``treatment`` the wall
+    treatment (:data:`caseprep.contract.walls.WALL_TREATMENTS`).
     """
 
     n_layers: int
     first_cell_height: float
     expansion: float
     target_yplus: float
+    ground: bool = False
+    treatment: str = "wall-function"
 
 
 @dataclass(frozen=True)
@@ -120,13 +136,18 @@ class MeshSpec:
 
 @dataclass(frozen=True)
 class Wheel:
-    """A rotating wheel: a rotating wall on its own geometry file.
+    """A rotating wheel: a rotating wall on its own geometry file, and with
+    ``rotation = "zone"`` also a rotating reference zone (a cylinder of
+    ``zone_radius`` about the axis over the wheel's ``width``, for wheels
+    with spokes).
 
-    ``centre`` (m) and unit ``axis`` in the mesh frame; ``radius`` (m);
-    ``omega`` (rad/s, right-hand rule about ``axis``) chosen so the contact
-    patch moves with the ground; ``geometry`` the shared file name under the
-    sweep's geometry folder (None: the wheel is a named solid of the body
-    file, patch ``patch``)."""
+    ``centre`` (m) and unit ``axis`` in the mesh frame; ``radius`` (m, as
+    configured); ``omega`` (rad/s, right-hand rule about ``axis``) chosen so
+    the surface at the contact moves with the ground; ``geometry`` the
+    shared file name under the sweep's geometry folder (None: the wheel is
+    a named solid of the body file, patch ``patch``, placed with the body);
+    ``placement`` the JSON-ready contact facts
+    (:meth:`caseprep.planning.wheels.WheelPlacement.to_dict`)."""
 
     name: str
     patch: str
@@ -135,6 +156,10 @@ class Wheel:
     radius: float
     omega: float
     geometry: str | None = None
+    rotation: str = "wall"
+    zone_radius: float | None = None
+    width: float | None = None
+    placement: dict | None = None
 
 
 @dataclass(frozen=True)
@@ -145,8 +170,10 @@ class Flow:
     ``air_speed`` = |inlet_velocity| (m/s); ``rho`` kg/m³, ``nu`` m²/s,
     ``p_ref`` Pa (gauge reference, 0 by default: the solver's kinematic
     pressure is relative to it); turbulence ``model`` "kOmegaSST" or
-    "laminar"; inlet ``k`` (m²/s²), ``omega`` (1/s), ``nut`` (m²/s) from
-    ``intensity`` (fraction) and ``length_scale`` (m)."""
+    "laminar"; inlet ``k`` (m²/s²), ``omega`` (1/s), ``nut`` (m²/s) chosen
+    so that the free-stream turbulence decays to ``intensity`` (fraction) and
+    ``length_scale`` (m) at the model; ``turbulence`` the inlet and at-model
+    values (:class:`caseprep.planning.physics.FreeStreamTurbulence` as a dict)."""
 
     inlet_velocity: Vec3
     ground_velocity: Vec3
@@ -160,6 +187,7 @@ class Flow:
     k: float
     omega: float
     nut: float
+    turbulence: dict | None = None
 
 
 @dataclass(frozen=True)
@@ -226,6 +254,7 @@ class CaseSpec:
                 "body": list(self.body_patches),
                 "wheels": [w.patch for w in self.wheels],
                 "ground": "ground" if self.domain.ground != "none" else None,
+                **({"ground_far": "ground_far"} if self.domain.ground_layer_cells is not None else {}),
             },
             fidelity=self.fidelity,
             min_clearance=self.min_clearance,
@@ -233,5 +262,7 @@ class CaseSpec:
             estimated_cells=self.estimated_cells,
             turbulence_model=self.flow.model,
             target_yplus=self.mesh.layers.target_yplus if self.mesh.layers is not None else None,
+            wall_treatment=self.extra.get("wall_treatment"),
+            fluid_volume=self.extra.get("fluid_volume"),
             info={k: v for k, v in self.extra.items() if k in INFO_FIELDS},
         )

@@ -71,7 +71,7 @@ STAGE_TOOLS: dict[str, tuple[str, ...]] = {
 }
 FAILED_STATUS = {"mesh": Status.MESH_FAILED, "solve": Status.SOLVE_FAILED, "export": Status.EXPORT_FAILED}
 SOLVER_BINARIES = ("blockMesh", "snappyHexMesh", "checkMesh", "simpleFoam", "foamToVTK", "decomposePar",
-                   "reconstructPar")
+                   "redistributePar", "reconstructPar")
 INSTALL_HINT = "sudo apt-get install -y --no-install-recommends openfoam"
 
 

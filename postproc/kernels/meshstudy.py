@@ -27,13 +27,25 @@ solutions (any unit), r21 = h2/h1, r32 = h3/h2, ε21 = φ2 − φ1,
 
 Validity: all three solutions in the asymptotic range; s < 0 (oscillatory
 convergence) is reported as such and then p, φ_ext and the GCI are only
-indicative. Representative cell size: the base cell of each level (the
-meshes are refined uniformly by the mesh level), or (V/N)^(1/3).
+indicative. Representative cell size (Celik et al. 2008, eq. 1):
+h = (V/N)^(1/3) with V the flow domain's volume and N the mesh's cell count
+(:func:`representative_cell_size`); on geometrically similar meshes it
+follows the common refinement factor.
 """
 from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+
+
+def representative_cell_size(volume: float, cells: int) -> float:
+    """h = (V/N)^(1/3) (m): ``volume`` V of the flow domain (m³), ``cells``
+    N the mesh's cell count (Celik et al. 2008, eq. 1). Valid for any
+    three-dimensional mesh; it is a mean cell size, so it compares meshes of
+    one family (similar refinement) and not meshes built differently."""
+    if not volume > 0 or not cells > 0:
+        raise ValueError(f"expected a positive volume and cell count, got {volume}, {cells}")
+    return float((float(volume) / float(cells)) ** (1.0 / 3.0))
 
 
 @dataclass(frozen=True)

@@ -8,9 +8,9 @@ wall shear stress is kinematic (τ_w/ρ, m²/s²).
 y+ = y u_τ / ν with the friction velocity u_τ = √(τ_w/ρ) = √|τ_kin| and y the
 distance of the wall-adjacent cell centre from the wall (m), ν the kinematic
 viscosity (m²/s) (Pope, *Turbulent Flows*, 2000, §7.1.2; Schlichting &
-Gersten, *Boundary-Layer Theory*, 9th ed. 2017, §17.2). Intended ranges:
-30 ≤ y+ ≤ 300 for log-law wall functions, y+ ≲ 1 (up to ~5) for a resolved
-viscous sublayer (common practice, no source).
+Gersten, *Boundary-Layer Theory*, 9th ed. 2017, §17.2). The intended band
+of each wall treatment is declared once, in ``caseprep.contract.walls``;
+the callers pass it in (``target``).
 """
 from __future__ import annotations
 
@@ -18,22 +18,6 @@ from dataclasses import dataclass
 
 import numpy as np
 
-#: Intended y+ range of the first cell per wall treatment (common practice, no
-#: source): wall functions want it in the log layer, a resolved wall inside the
-#: viscous sublayer (relaxed: its edge).
-YPLUS_RANGES: dict[str, tuple[float, float]] = {
-    "wall-functions": (30.0, 300.0),
-    "resolved": (0.0, 1.0),
-    "resolved-relaxed": (0.0, 5.0),
-}
-#: The wall treatment each turbulence model of the case files uses.
-MODEL_TREATMENT: dict[str, str] = {"kOmegaSST": "wall-functions", "laminar": "resolved-relaxed"}
-
-
-def yplus_range(turbulence_model: str | None) -> tuple[float, float]:
-    """The intended y+ range of a case's turbulence model (that of
-    ``kOmegaSST`` for an unknown or missing model)."""
-    return YPLUS_RANGES[MODEL_TREATMENT.get(str(turbulence_model), MODEL_TREATMENT["kOmegaSST"])]
 ABSURD_YPLUS = 1.0e4
 
 

@@ -57,6 +57,7 @@ from typing import Any, Callable
 
 import numpy as np
 
+from caseprep.contract import walls
 from caseprep.contract.atomicio import json_ready, write_json_atomic, write_text_atomic
 from caseprep.contract.convergence import settle_window
 from caseprep.contract.monitor import read_monitor
@@ -72,7 +73,7 @@ from postproc.io.surfaces import read_surface
 from postproc.kernels import wallchecks as wc
 from postproc.kernels.aeromap import fit_response_surface, map_grid
 from postproc.kernels.polygons import face_geometry
-from postproc.kernels.meshstudy import grid_convergence
+from postproc.kernels.meshstudy import grid_convergence, representative_cell_size
 from postproc.kernels.ranking import CaseResult, VariantScore, rank_variants
 from postproc.pipelines.case_flow import FlowOptions, analyse_case_flow
 from postproc.io.analysis_config import read_analysis_config
@@ -115,14 +116,16 @@ class CaseOutcome:
     #: the forces report's JSON form when the outcome was read back from a
     #: stored result (``report`` is then None)
     stored_forces: dict[str, Any] | None = field(default=None, repr=False)
+    #: h = (V/N)^(1/3), m, from the real cell count
+    cell_size: float | None = None
 
     def row(self) -> dict[str, Any]:
         """The case as one flat row of the results tables (CSV and JSON)."""
         r = asdict(self.result)
         r["flags"] = " ".join(self.result.flags)
         r["downforce_coefficient"] = -self.result.cl if math.isfinite(self.result.cl) else None
-        r.update(status=self.status, cells=self.cells, iterations=self.iterations, convergence=self.convergence,
-                 layers=self.layers)
+        r.update(status=self.status, cells=self.cells, cell_size_h=self.cell_size, iterations=self.iterations,
+                 convergence=self.convergence, layers=self.layers)
         if self.yplus:
             a = self.yplus[ALL_WALLS]  # all body and wheel faces together
             r.update(yplus_median=a["median"], yplus_p95=a["p95"], yplus_max=a["max"],
@@ -144,7 +147,8 @@ class CaseOutcome:
         return json_ready({"result": asdict(self.result), "status": self.status, "cells": self.cells,
                            "iterations": self.iterations, "convergence": self.convergence, "layers": self.layers,
                            "notes": list(self.notes), "forces": self.forces_dict(), "yplus": self.yplus,
-                           "flow": self.flow, "flags": list(self.result.flags), "seconds": self.seconds})
+                           "flow": self.flow, "flags": list(self.result.flags), "seconds": self.seconds,
+                           "cell_size": self.cell_size})
 
     @classmethod
     def from_json(cls, d: dict[str, Any]) -> "CaseOutcome":
@@ -166,7 +170,17 @@ class CaseOutcome:
             raise TypeError("per-case result of the wrong shape")
         return cls(result=result, status=str(d["status"]), cells=d.get("cells"), iterations=d.get("iterations"),
                    convergence=d.get("convergence"), layers=d.get("layers"), notes=tuple(str(x) for x in notes),
-                   yplus=yplus, flow=flow, seconds=dict(d.get("seconds") or {}), stored_forces=forces)
+                   yplus=yplus, flow=flow, seconds=dict(d.get("seconds") or {}), stored_forces=forces,
+                   cell_size=_finite_or_none(d.get("cell_size")))
+
+
+def _finite_or_none(x: Any) -> float | None:
+    """A stored number that must be finite and positive (a cell size), else None."""
+    try:
+        v = float(x)
+    except (TypeError, ValueError):
+        return None
+    return v if math.isfinite(v) and v > 0 else None
 
 
 ALL_WALLS = "all body and wheel patches"
@@ -182,11 +196,22 @@ def wall_patches(case: CaseRecord) -> list[str]:
     return list(case.patches.get("body") or []) + list(case.patches.get("wheels") or [])
 
 
+def case_yplus_band(case: CaseRecord) -> tuple[float, float]:
+    """The y+ band a case is judged by: that of the wall treatment its
+    manifest record names (:data:`caseprep.contract.walls.WALL_TREATMENTS`,
+    the table the planner sized the first cell by); records without one get
+    their turbulence model's default treatment."""
+    try:
+        return walls.wall_treatment(case.wall_treatment, case.turbulence_model).band
+    except ValueError:
+        return walls.wall_treatment(None, case.turbulence_model).band
+
+
 def wall_yplus(case_dir: Path, case: CaseRecord, surface=None) -> tuple[dict[str, dict], str | None]:
     """y+ statistics of the body and wheel patches from the case's VTK export
     (the solver's ``yPlus`` face field): per patch min/median/p95/max and the
-    area share inside the wall treatment's intended range
-    (:func:`postproc.kernels.wallchecks.yplus_range` of the manifest's turbulence model).
+    area share inside the y+ band of the case's wall treatment (the one the
+    planner sized the first cell for: :func:`case_yplus_band`).
     ``surface``: those patches already read (with ``yPlus``); None: read
     them here. Returns (stats by patch, None) or ({}, why not)."""
     names = wall_patches(case)
@@ -197,7 +222,7 @@ def wall_yplus(case_dir: Path, case: CaseRecord, surface=None) -> tuple[dict[str
         yp = surf.array("yPlus")
     except UserError as exc:
         return {}, f"y+ not assessed: {exc}".splitlines()[0]
-    target = wc.yplus_range(case.turbulence_model)
+    target = case_yplus_band(case)
     S, _ = face_geometry(surf.points, (surf.offsets, surf.connectivity))
 
     areas = np.linalg.norm(S, axis=1)
@@ -364,34 +389,37 @@ def process_case(manifest: Manifest, case: CaseRecord, flow: FlowOptions | None 
         except UserError:
             pass
     return CaseOutcome(result=result, status=status, cells=rec.cells if rec else None,
+                       cell_size=case_cell_size(case, rec.cells if rec else None),
                        iterations=rec.iterations if rec else None, convergence=verdict,
                        notes=tuple(notes), report=report, yplus=yplus, layers=layers, flow=flow_cols, scene=scene,
                        history=history, seconds={"forces": t_forces - t_start,
                                                  "flow": time.perf_counter() - t_forces})
 
 
-def outcome_row(o: CaseOutcome) -> dict[str, Any]:
-    """A flat dict of one case for the CSV/JSON tables."""
-    r = asdict(o.result)
-    r["flags"] = " ".join(o.result.flags)
-    r["downforce_coefficient"] = -o.result.cl if math.isfinite(o.result.cl) else None
-    r.update(status=o.status, cells=o.cells, iterations=o.iterations, convergence=o.convergence, layers=o.layers)
-    if o.yplus:
-        a = o.yplus[ALL_WALLS]  # all body and wheel faces together
-        r.update(yplus_median=a["median"], yplus_p95=a["p95"], yplus_max=a["max"],
-                 yplus_share_in_range=a["share_in_target"], yplus_range="{:g}-{:g}".format(*a["target"]))
-    r["notes"] = "; ".join(o.notes)
-    return r
 
 
+def case_cell_size(case: CaseRecord, cells: int | None) -> float | None:
+    """h = (V/N)^(1/3) (m) of a case: V the fluid volume its manifest record
+    gives (``fluid_volume``, m³), N its real cell count from the run record;
+    None when either is missing."""
+    V = case.fluid_volume
+    try:
+        return representative_cell_size(float(V), int(cells)) if V is not None and cells else None
+    except (TypeError, ValueError):
+        return None
 
 
-def mesh_study(results: list[CaseResult]) -> list[dict[str, Any]]:
+def mesh_study(results: list[CaseResult], cell_sizes: dict[str, float | None] | None = None) -> list[dict[str, Any]]:
     """Grid convergence (Celik et al. 2008, postproc.kernels.meshstudy) of C_L and C_D
     for every operating point solved on three or more mesh levels (unflagged
-    cases only; the three finest levels are used). One dict per point and
-    coefficient: the point's parameters, the values per level, the apparent
-    order, the extrapolated value and the fine-mesh GCI (fraction)."""
+    cases only; the three finest levels are used). The representative cell
+    size of each case is h = (V/N)^(1/3) from its real cell count
+    (``cell_sizes``: case id → h in m) when every case of the point has one,
+    else the nominal 2^(−m/2) of its mesh level (``h_source`` says which).
+    One dict per point and coefficient: the point's parameters, the values
+    per level, h, the apparent order, the extrapolated value and the
+    fine-mesh GCI (fraction)."""
+    cell_sizes = cell_sizes or {}
     groups: dict[tuple, dict[int, CaseResult]] = {}
     for r in results:
         if r.flags or not math.isfinite(r.cl):
@@ -405,11 +433,16 @@ def mesh_study(results: list[CaseResult]) -> list[dict[str, Any]]:
             continue
         lv = sorted(by_level)[-3:][::-1]  # finest first
         rows = [by_level[m] for m in lv]
+        hs = [cell_sizes.get(r.case_id) for r in rows]
+        real = all(h is not None for h in hs) and hs[0] < hs[1] < hs[2]
+        if not real:
+            hs = [level_cell_size(m) for m in lv]
         for name, get in (("cl", lambda r: r.cl), ("cd", lambda r: r.cd)):
-            g = grid_convergence(*(get(r) for r in rows), *(level_cell_size(m) for m in lv))
+            g = grid_convergence(*(get(r) for r in rows), *hs)
             out.append({"variant": key[0], "ride_height_front": key[1], "ride_height_rear": key[2],
                         "pitch_deg": key[3], "yaw_deg": key[4], "speed": key[5], "coefficient": name,
-                        "levels": lv, "cases": [r.case_id for r in rows], **g.to_dict()})
+                        "levels": lv, "cases": [r.case_id for r in rows],
+                        "h_source": "cells" if real else "mesh level", **g.to_dict()})
     return out
 
 
@@ -511,14 +544,15 @@ class SweepAnalysis:
 
 def analyse_results(results: list[CaseResult], title: str = "Sweep report", study: str = "",
                     notes: list[str] | None = None, checks: list[dict] | None = None,
-                    mesh: list[dict] | None = None) -> SweepAnalysis:
+                    mesh: list[dict] | None = None, cell_sizes: dict[str, float | None] | None = None) -> SweepAnalysis:
     """Rank the variants, fit the aero maps and (unless ``mesh`` is given)
-    run the mesh study over ``results``; returns the :class:`SweepAnalysis`
-    with its report data (no flow numbers, pictures or histories: those
-    need the cases' files, :func:`postprocess_sweep`)."""
+    run the mesh study over ``results`` (``cell_sizes``: case id → h, m);
+    returns the :class:`SweepAnalysis` with its report data (no flow
+    numbers, pictures or histories: those need the cases' files,
+    :func:`postprocess_sweep`)."""
     ranking = tuple(rank_variants(results))
     maps = tuple(aero_maps(results))
-    study_rows = tuple(mesh_study(results) if mesh is None else mesh)
+    study_rows = tuple(mesh_study(results, cell_sizes) if mesh is None else mesh)
     data = assemble(results, title=title, study=study, notes=notes or (), checks=checks or (),
                     mesh_study=list(study_rows), aero_maps=list(maps), ranking=list(ranking),
                     options=ReportOptions(pictures=False))
@@ -1024,7 +1058,7 @@ def _assemble(manifest: Manifest, out: Path, outcomes: list[CaseOutcome], option
     checks = [{k: r.get(k) for k in check_keys} for r in rows]
     title = ropts.title or f"Sweep report — {manifest.study or out.name}"
     analysis = analyse_results([o.result for o in outcomes], title=title, study=manifest.study, notes=notes,
-                               checks=checks)
+                               checks=checks, cell_sizes={o.result.case_id: o.cell_size for o in outcomes})
     # the pictured cases, now with every flag known; a scene not built while the case was read is built now
     results = [o.result for o in outcomes]
     skipped: list[tuple[str, str]] = []

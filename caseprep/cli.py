@@ -168,6 +168,7 @@ def run_cmd(sweep_dir, jobs, ranks, only, stages, force, residual_tol, grace, qu
     click.echo("")
     for f in sorted({f for r in records for f in r.flags}):
         click.echo(f"  {f}: {flag_meaning(f)}")
+    click.echo(runner.format_cost(runner.sweep_cost(sweep_dir, records)))
     click.echo(f"{len(records)} case(s) in {runner.format_duration(dt)}: {len(records) - len(failed)} ran, "
                f"{len(failed)} failed, {len(flagged)} flagged. Records: {sweep_dir}/run_summary.json")
     if failed:

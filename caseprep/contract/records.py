@@ -125,12 +125,19 @@ class StageRun:
     """One stage of one case: ``status`` ``ok``, ``failed``, ``done-before``
     (marker present, not run again), ``running`` (started, not finished),
     ``interrupted`` or ``not-run``;
-    ``wall_time`` s (for ``done-before``, the time recorded then, if any)."""
+    ``wall_time`` s (for ``done-before``, the time recorded then, if any);
+    ``cores`` the cores the runner held for the case during the stage (its
+    ranks); ``core_seconds`` = wall_time × cores; ``cpu_seconds`` user +
+    system time of the stage's whole process tree (None: not measured). See
+    :mod:`caseprep.contract.cost`."""
 
     stage: str
     status: str
     wall_time: float | None = None
     returncode: int | None = None
+    cores: int | None = None
+    core_seconds: float | None = None
+    cpu_seconds: float | None = None
 
 
 @dataclass(frozen=True)
@@ -147,6 +154,10 @@ class CaseRunRecord:
     ``failed_tool`` and ``log_tail`` describe a failure. Times in s.
     ``host`` and ``pid``: the machine and the process id of the runner that
     wrote the record (a ``running`` record names where the stage runs).
+    ``core_seconds`` and ``cpu_seconds``: the sums over the stages that have
+    a figure (this run's and those done before); ``tool_times`` per tool whose
+    log prints them, its last ``execution`` (CPU) and ``clock`` time (s; for
+    a parallel solver the master rank's).
     ``numerics``: what the mesh stage chose from the mesh's quality
     (``non_orthogonal_correctors``, ``momentum_relaxation``; from
     ``system/meshNumerics``), None before meshing.
@@ -165,6 +176,9 @@ class CaseRunRecord:
     ranks: int = 1
     stages: tuple[StageRun, ...] = ()
     wall_time: float = 0.0
+    core_seconds: float | None = None
+    cpu_seconds: float | None = None
+    tool_times: dict[str, dict[str, float]] = field(default_factory=dict)
     started_utc: str = ""
     finished_utc: str = ""
     cells: int | None = None
@@ -200,6 +214,12 @@ class CaseRunRecord:
                 return s.wall_time
         return None
 
+    def stage_run(self, stage: str) -> StageRun | None:
+        for s in self.stages:
+            if s.stage == stage:
+                return s
+        return None
+
     def to_dict(self) -> dict[str, Any]:
         return json_ready(asdict(self))
 
@@ -220,8 +240,11 @@ _FIX = "the run record is written by `caseprep run`: run the case again (casepre
 _TEXT = ("case_id", "folder", "status", "message", "started_utc", "finished_utc", "end_reason", "convergence",
          "failed_tool", "log_tail")
 _WHOLE = ("ranks", "cells", "background_cells", "failed_checks", "iterations", "export_files")
-_NUMBERS = ("wall_time", "max_non_orthogonality", "max_skewness", "layer_coverage", "continuity_cumulative",
+_NUMBERS = ("wall_time", "core_seconds", "cpu_seconds", "max_non_orthogonality", "max_skewness", "layer_coverage", "continuity_cumulative",
             "residual_drop")
+
+
+_STAGE_KEYS = ("stage", "status", "wall_time", "returncode", "cores", "core_seconds", "cpu_seconds")
 
 
 def check_run_record_dict(d: object, source: str) -> None:
@@ -241,12 +264,14 @@ def check_run_record_dict(d: object, source: str) -> None:
         expect_dict(st, file=source, key=f"stages[{i}]", fix=_FIX)
         for k in ("stage", "status"):
             expect_str(st.get(k), file=source, key=f"stages[{i}].{k}", fix=_FIX, max_len=64)
-        expect_number(st.get("wall_time"), file=source, key=f"stages[{i}].wall_time", fix=_FIX, none_ok=True)
+        for k in ("wall_time", "core_seconds", "cpu_seconds"):
+            expect_number(st.get(k), file=source, key=f"stages[{i}].{k}", fix=_FIX, none_ok=True)
         expect_int(st.get("returncode"), file=source, key=f"stages[{i}].returncode", fix=_FIX, none_ok=True,
                    lo=-(2**31), hi=2**31)
-        extra = set(st) - {"stage", "status", "wall_time", "returncode"}
+        expect_int(st.get("cores"), file=source, key=f"stages[{i}].cores", fix=_FIX, none_ok=True, lo=0, hi=10**7)
+        extra = set(st) - set(_STAGE_KEYS)
         if extra:
-            raise UserError(expected="stage keys stage, status, wall_time, returncode", got=sorted(extra)[0],
+            raise UserError(expected="stage keys " + ", ".join(_STAGE_KEYS), got=sorted(extra)[0],
                             file=source, key=f"stages[{i}]", fix=_FIX)
     for i, ly in enumerate(expect_list(d.get("layers", []), file=source, key="layers", fix=_FIX)):
         expect_dict(ly, file=source, key=f"layers[{i}]", fix=_FIX)
@@ -260,6 +285,9 @@ def check_run_record_dict(d: object, source: str) -> None:
         expect_str(f, file=source, key=f"flags[{i}]", fix=_FIX, max_len=64)
     if d.get("force_settling") is not None:
         expect_dict(d["force_settling"], file=source, key="force_settling", fix=_FIX)
+    for tool, t in expect_dict(d.get("tool_times") or {}, file=source, key="tool_times", fix=_FIX).items():
+        for k, v in expect_dict(t, file=source, key=f"tool_times.{tool}", fix=_FIX).items():
+            expect_number(v, file=source, key=f"tool_times.{tool}.{k}", fix=_FIX, none_ok=True)
 
 
 def load_case_record(case_dir: str | os.PathLike) -> CaseRunRecord | None:

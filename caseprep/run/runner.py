@@ -53,6 +53,7 @@ from typing import Any, Callable, Iterable, Sequence
 
 from caseprep.run import solverlogs as sl
 from caseprep.contract.atomicio import open_folder, write_json_atomic
+from caseprep.contract.cost import cost_lines, cost_summary, stage_core_seconds
 from caseprep.contract.convergence import DEFAULT_OPTIONS, ConvergenceOptions, force_settling, judge_convergence
 from caseprep.contract.errors import UserError, did_you_mean
 from caseprep.contract.limits import MAX_RANKS
@@ -309,6 +310,7 @@ class _Job:
         self.stage_wall0 = 0.0
         self.last_beat = 0.0
         self.started_utc = ""
+        self.cpu: float | None = None  # CPU s of the current stage's process tree, once it ended
 
 
 def _plan(case_dir: Path, stages: Sequence[str], force: bool) -> tuple[list[str], dict[str, str], str | None]:
@@ -493,7 +495,7 @@ class _Run:
                 for job in list(self.running):
                     if job.proc is None:
                         continue
-                    rc = job.proc.poll()
+                    rc = _poll(job)
                     if rc is None:
                         if now - job.last_beat >= self.options.heartbeat:
                             job.last_beat = now
@@ -526,7 +528,7 @@ class _Run:
             elif s == stage:
                 stages.append(StageRun(s, "running"))
             elif job.plan.get(s) == "done-before" and STAGES.index(s) < STAGES.index(stage):
-                stages.append(StageRun(s, "done-before", job.previous.stage_time(s) if job.previous else None))
+                stages.append(_done_before(job, s))
             else:
                 stages.append(StageRun(s, "not-run"))
         return CaseRunRecord(case_id=job.rec.case_id, folder=job.rec.folder, status=Status.RUNNING,
@@ -541,7 +543,7 @@ class _Run:
         marker = job.dir / "logs" / f"{stage}.done"
         case, idx, total = job.rec.case_id, job.index, self.total
         if rc == 0 and marker.exists():
-            job.results[stage] = StageRun(stage, "ok", round(dt, 3), rc)
+            job.results[stage] = _stage_run(stage, "ok", dt, rc, self.ranks, job.cpu)
             job.proc = None
             self.emit(Progress(case, idx, total, "stage-done", stage, now - job.t0, dt))
             if job.to_run:
@@ -556,7 +558,7 @@ class _Run:
                 _await_stop(stop, STOP_SIGNAL_WAIT)
             if stop.requested:
                 return  # ended by the stop signal: recorded interrupted, not failed
-            job.results[stage] = StageRun(stage, "failed", round(dt, 3), rc)
+            job.results[stage] = _stage_run(stage, "failed", dt, rc, self.ranks, job.cpu)
             tool, log = _failing_tool(job.dir, stage, job.stage_wall0)
             out_log = job.dir / "logs" / f"underfloor-{stage}.out"
             if rc == 0:
@@ -595,7 +597,8 @@ class _Run:
                 nxt = job.to_run[0] if job.to_run else "the next stage"
                 msg = f"{why} before {nxt}"
             else:
-                job.results[job.stage] = StageRun(job.stage, "interrupted", round(now - job.stage_t0, 3), None)
+                job.results[job.stage] = _stage_run(job.stage, "interrupted", now - job.stage_t0, None, self.ranks,
+                                                    job.cpu)
                 msg = f"{why} during {job.stage}"
             rec = _finish_record(job, Status.INTERRUPTED, msg, self.ranks, self.options)
             self.finish(job, rec, summary=False)
@@ -622,6 +625,7 @@ def _start_stage(job: _Job, env: dict[str, str], emit, total: int) -> None:
     finally:
         os.close(dfd)
     job.stage = stage
+    job.cpu = None
     job.stage_t0 = time.monotonic()
     job.stage_wall0 = time.time()
     job.last_beat = job.stage_t0
@@ -629,6 +633,40 @@ def _start_stage(job: _Job, env: dict[str, str], emit, total: int) -> None:
     job.proc = subprocess.Popen([str(job.dir / "run.sh"), stage], cwd=job.dir, env=env, stdout=job.out,
                                 stderr=subprocess.STDOUT, stdin=subprocess.DEVNULL, start_new_session=True)
     emit(Progress(job.rec.case_id, job.index, total, "stage-start", stage, job.stage_t0 - job.t0))
+
+
+def _poll(job: _Job) -> int | None:
+    """The exit code of the job's stage process (None while it runs); on its
+    end also its CPU time: user + system time of ``run.sh`` and of every
+    process it waited for (the tools, mpirun and through it the ranks), from
+    the kernel's resource usage of the reaped process."""
+    proc = job.proc
+    if proc.returncode is not None:
+        return proc.returncode
+    try:
+        pid, status, usage = os.wait4(proc.pid, os.WNOHANG)
+    except ChildProcessError:  # reaped elsewhere: no usage figures
+        return proc.poll()
+    if pid == 0:
+        return None
+    proc.returncode = os.waitstatus_to_exitcode(status)
+    job.cpu = round(usage.ru_utime + usage.ru_stime, 3)
+    return proc.returncode
+
+
+def _stage_run(stage: str, status: str, wall: float, rc: int | None, cores: int, cpu: float | None) -> StageRun:
+    """A stage's entry with its cost (:mod:`caseprep.contract.cost`)."""
+    wall = round(wall, 3)
+    return StageRun(stage, status, wall, rc, cores=cores, core_seconds=stage_core_seconds(wall, cores),
+                    cpu_seconds=cpu)
+
+
+def _done_before(job: _Job, stage: str) -> StageRun:
+    """The entry of a stage done in an earlier run: its figures as recorded then."""
+    prev = job.previous.stage_run(stage) if job.previous is not None else None
+    if prev is None:
+        return StageRun(stage, "done-before")
+    return replace(prev, status="done-before", returncode=None)
 
 
 #: Seconds a stage that ended by a stop signal waits for the runner's own
@@ -703,7 +741,7 @@ def _finish_record(job: _Job, status: str, message: str, ranks: int, options: Ru
         if s in job.results:
             stages.append(job.results[s])
         elif job.plan.get(s) == "done-before":
-            stages.append(StageRun(s, "done-before", job.previous.stage_time(s) if job.previous else None))
+            stages.append(_done_before(job, s))
         else:
             stages.append(StageRun(s, "not-run"))
     valid = [s.stage for s in stages if s.status in ("ok", "failed", "done-before", "interrupted")]
@@ -716,11 +754,27 @@ def _finish_record(job: _Job, status: str, message: str, ranks: int, options: Ru
     if status in ("solve-failed", "interrupted") or "solve" not in [s.stage for s in stages if s.status in ("ok", "done-before")]:
         flags = [f for f in flags if f != "not-converged"]
     wall = sum(s.wall_time or 0.0 for s in stages if s.status in ("ok", "failed", "interrupted"))
+    core = [s.core_seconds for s in stages if s.core_seconds is not None]
+    cpu = [s.cpu_seconds for s in stages if s.cpu_seconds is not None]
     return CaseRunRecord(
         case_id=job.rec.case_id, folder=job.rec.folder, status=status, message=message, ranks=ranks,
-        stages=tuple(stages), wall_time=round(wall, 3), started_utc=job.started_utc, finished_utc=_utc(),
+        stages=tuple(stages), wall_time=round(wall, 3), core_seconds=round(sum(core), 3) if core else None,
+        cpu_seconds=round(sum(cpu), 3) if cpu else None, tool_times=_tool_times(job.dir, valid),
+        started_utc=job.started_utc, finished_utc=_utc(),
         flags=tuple(dict.fromkeys(flags)), failed_tool=failed_tool, log_tail=log_tail, **info,
     )
+
+
+def _tool_times(case_dir: Path, valid_stages: Sequence[str]) -> dict[str, dict[str, float]]:
+    """Per tool of ``valid_stages`` whose log prints them, its last CPU and clock times (s)."""
+    out = {}
+    for stage in valid_stages:
+        for tool in STAGE_TOOLS.get(stage, ()):
+            text = _read(case_dir / "logs" / f"{tool}.log")
+            t = sl.parse_times(text) if text is not None else None
+            if t is not None:
+                out[tool] = t
+    return out
 
 
 def _write_record(case_dir: Path, rec: CaseRunRecord) -> None:
@@ -740,10 +794,30 @@ def _write_summary(root: Path, manifest, records: dict[str, CaseRunRecord], rank
     counts: dict[str, int] = {}
     for r in rows:
         counts[r["status"]] = counts.get(r["status"], 0) + 1
+    cost = cost_summary(rows, {c.case_id: c.variant for c in manifest.cases})
     write_json_atomic(root / SUMMARY_NAME, root=root, obj={
         "schema": SUMMARY_SCHEMA, "schema_version": 1, "written_utc": _utc(), "ranks": ranks,
-        "counts": counts, "flag_meanings": {f: f.meaning for f in RUN_FLAGS}, "cases": rows,
+        "counts": counts, "flag_meanings": {f: f.meaning for f in RUN_FLAGS}, "cost": cost, "cases": rows,
     })
+
+
+def sweep_cost(sweep_dir: str | os.PathLike, records: Sequence[CaseRunRecord]) -> dict[str, Any]:
+    """The cost block (:func:`caseprep.contract.cost.cost_summary`) of the
+    manifest's cases: ``records`` where given, else each case's last record."""
+    root = Path(sweep_dir)
+    manifest = read_manifest(root)
+    mine = {r.case_id: r for r in records}
+    rows = []
+    for c in manifest.cases:
+        rec = mine.get(c.case_id) or read_case_record(manifest.case_dir(c))
+        if rec is not None:
+            rows.append(rec.to_dict())
+    return cost_summary(rows, {c.case_id: c.variant for c in manifest.cases})
+
+
+def format_cost(cost: dict[str, Any]) -> str:
+    """The cost block as text lines (per variant, then the total)."""
+    return "core time: " + "\n           ".join(cost_lines(cost))
 
 
 def summary_row(rec: CaseRunRecord) -> dict[str, str]:
@@ -763,6 +837,7 @@ def summary_row(rec: CaseRunRecord) -> dict[str, str]:
         "max resid": "-" if worst is None else f"{worst:.1e}",
         "mesh t": format_duration(rec.stage_time("mesh")),
         "solve t": format_duration(rec.stage_time("solve")),
+        "core-s": "-" if rec.core_seconds is None else f"{rec.core_seconds:.0f}",
         "flags": ", ".join(rec.flags) or "-",
     }
 
@@ -783,5 +858,5 @@ def format_summary_table(records: Sequence[CaseRunRecord]) -> str:
 
 __all__ = [
     "STAGES", "RunOptions", "Progress", "SweepInterrupted", "run_sweep", "summarize_logs", "missing_solver_binaries",
-    "INSTALL_HINT", "format_summary_table", "summary_row", "format_duration",
+    "INSTALL_HINT", "format_summary_table", "summary_row", "format_duration", "format_cost", "sweep_cost",
 ]

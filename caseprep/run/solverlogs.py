@@ -483,6 +483,23 @@ def parse_export(text: str) -> ExportLog:
     return ExportLog(files=files, times=times, finished=_finished(text), error=fatal_error(text), fields=tuple(flds))
 
 
+# ---------------------------------------------------------------- run times
+
+_TIMES = re.compile(rf"(?m)^ExecutionTime = ({_NUM}) s\s+ClockTime = ({_NUM}) s")
+
+
+def parse_times(text: str) -> dict[str, float] | None:
+    """The last ``ExecutionTime = … s  ClockTime = … s`` line a tool printed:
+    ``{"execution": CPU s, "clock": wall s}``, or None when it printed none.
+    For a parallel run the line is the master rank's (its own CPU time)."""
+    last = None
+    for last in _TIMES.finditer(text):
+        pass
+    if last is None:
+        return None
+    return {"execution": _float(last.group(1)), "clock": _float(last.group(2))}
+
+
 # ---------------------------------------------------------------- dispatch
 
 PARSERS = {

@@ -222,6 +222,7 @@ class ReportData:
     analysis: bool = False
     options: ReportOptions = field(default_factory=ReportOptions)
     decision: dict | None = None  # analysis.json ranking.decision (status, winner, best_complete, tied, message)
+    cost: tuple[dict, ...] = ()  # the solver's core time per variant and in total (cost_rows), text cells
 
 
 # --------------------------------------------------------------------------- choices
@@ -579,6 +580,26 @@ def _mesh_rows(mesh_study) -> tuple[dict, ...]:
     } for m in mesh_study)
 
 
+def cost_rows(cost: dict | None) -> tuple[dict, ...]:
+    """The report's cost table from the runner's cost block
+    (:func:`caseprep.contract.cost.cost_summary`): one row per variant, then
+    the total; text cells (core-seconds, core-hours, per converged point)."""
+    if not cost:
+        return ()
+    def f(x, nd):
+        return "—" if not isinstance(x, (int, float)) or not math.isfinite(x) else f"{x:.{nd}f}"
+    out = []
+    for name, g in list((cost.get("variants") or {}).items()) + [("all variants", cost.get("total") or {})]:
+        stages = g.get("core_seconds_by_stage") or {}
+        out.append({"group": name, "cases": str(g.get("cases", 0)), "converged": str(g.get("converged_points", 0)),
+                    "core_seconds": f(g.get("core_seconds"), 0), "core_hours": f(g.get("core_hours"), 3),
+                    "mesh": f(stages.get("mesh"), 0), "solve": f(stages.get("solve"), 0),
+                    "export": f(stages.get("export"), 0),
+                    "per_point_seconds": f(g.get("core_seconds_per_converged_point"), 0),
+                    "per_point_hours": f(g.get("core_hours_per_converged_point"), 4)})
+    return tuple(out)
+
+
 def _case_rows(results) -> tuple[dict, ...]:
     def f(x, nd):
         return "—" if x is None or (isinstance(x, float) and not math.isfinite(x)) else f"{x:.{nd}f}"
@@ -595,11 +616,12 @@ def assemble(results, *, title: str, study: str = "", notes: Sequence[str] = (),
              scenes: Sequence = (),
              picture_cases: Sequence[PictureCase] = (), pictures_skipped: Sequence[tuple[str, str]] = (),
              histories: Sequence[History] = (), spread: dict | None = None, analysis: dict | None = None,
-             options: ReportOptions = ReportOptions(), ranking=None) -> ReportData:
+             options: ReportOptions = ReportOptions(), ranking=None, cost: dict | None = None) -> ReportData:
     """Everything the report shows, from the sweep's results table
     (:class:`postproc.ranking.CaseResult` rows) and what the sweep computed
     beside it (flow columns by case id, picture scenes, force histories,
-    uncertainty half-widths by variant, the analysis results when present)."""
+    uncertainty half-widths by variant, the analysis results when present,
+    the runner's cost block)."""
     import datetime as _dt
 
     from caseprep.contract import __version__
@@ -641,4 +663,4 @@ def assemble(results, *, title: str, study: str = "", notes: Sequence[str] = (),
         baseline=check_baseline(options.baseline, variants) if scenes else options.baseline,
         pictures_skipped=tuple(pictures_skipped), cases=_case_rows(results), checks=tuple(checks),
         mesh_study=_mesh_rows(mesh_study), flow_rows=tuple(rows), notes=tuple(notes), analysis=bool(analysis),
-        options=options, decision=decision)
+        options=options, decision=decision, cost=cost_rows(cost))

@@ -65,6 +65,7 @@ from caseprep.contract.errors import UserError
 from caseprep.contract.limits import MAX_ANALYSIS_SECONDS
 from caseprep.contract.locking import refuse_interrupted, sweep_lock
 from caseprep.contract.manifest import CaseRecord, Manifest, read_manifest
+from caseprep.contract.cost import cost_summary
 from caseprep.contract.records import Flag, Status, as_flag, effective_status, flag_meaning, load_case_record, read_case_record
 from caseprep.contract.signals import StopRequested
 from postproc.io.exports import latest_export
@@ -598,6 +599,16 @@ def _iterative_spread(outcomes: list[CaseOutcome]) -> dict[str, tuple[float, flo
             for v, xs in acc.items()}
 
 
+def _run_cost(manifest: Manifest) -> dict | None:
+    """The solver's core time per variant and in total, from the cases' run
+    records (the runner's definition, :mod:`caseprep.contract.cost`); None
+    when no case has a record."""
+    rows = [rec.to_dict() for rec in (read_case_record(manifest.case_dir(c)) for c in manifest.cases) if rec is not None]
+    if not rows:
+        return None
+    return cost_summary(rows, {c.case_id: c.variant for c in manifest.cases})
+
+
 def _planned_rows(manifest: Manifest) -> list[CaseResult]:
     """The sweep's points with the runner's flags, before any forces (to
     choose the pictured cases while the cases are read the first time)."""
@@ -1115,7 +1126,7 @@ def _assemble(manifest: Manifest, out: Path, outcomes: list[CaseOutcome], option
                     scenes=scenes, picture_cases=pcs, pictures_skipped=skipped,
                     histories=[o.history for o in outcomes if o.history is not None],
                     spread=_iterative_spread(outcomes), options=replace(ropts, baseline=baseline),
-                    ranking=list(analysis.ranking), analysis=analysis_doc)
+                    ranking=list(analysis.ranking), analysis=analysis_doc, cost=_run_cost(manifest))
     analysis = replace(analysis, outcomes=tuple(outcomes), paths=paths, report_data=data, analysis=analysis_doc)
     if render is not None:
         render(analysis, paths["report"])

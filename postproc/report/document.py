@@ -315,7 +315,7 @@ def build_context(data, options: PictureOptions = PictureOptions(), info: Render
         "picture_groups": groups, "figures": figures, "map_note": data.map_note,
         "standings": standings, "flow_tables": flow_tables,
         "metric_labels": [METRIC_LABELS.get(k, k.replace("_", " ")) for k in metric_names],
-        "mesh_study": data.mesh_study, "checks": _rows(data.checks, 2), "cases": data.cases,
+        "mesh_study": data.mesh_study, "checks": _rows(data.checks, 2), "cases": data.cases, "cost": data.cost,
         "flagged": [c for c in data.cases if c.get("flags")],
         "notes": list(data.notes), "baseline": data.baseline, "analysis": data.analysis,
         "backend": info.backend, "picture_seconds": {k: f"{v:.2f}" for k, v in info.picture_seconds.items()},

@@ -32,11 +32,12 @@ from __future__ import annotations
 
 import math
 
+import hashlib
 import posixpath
 import re
 from dataclasses import dataclass
 from functools import lru_cache
-from typing import Any
+from typing import Any, Mapping
 
 import jinja2
 import numpy as np
@@ -696,6 +697,30 @@ def render_sweep_scripts(case_ids: list[str], max_ranks: int, batch: BatchSettin
     for name in BATCH_SCRIPTS:
         out[name] = CaseFile(env.get_template(f"sweep/{name}.j2").render(ctx), 0o755)
     return out
+
+
+#: The case files that make the mesh: the background mesher's, the snapping
+#: mesher's and the feature extractor's dictionaries (with the surfaces under
+#: constant/triSurface, see :func:`mesh_fingerprint`).
+MESH_FILES = ("system/blockMeshDict", "system/snappyHexMeshDict", "system/surfaceFeatureExtractDict")
+
+
+def mesh_fingerprint(files: Mapping[str, CaseFile], surfaces: Mapping[str, bytes] | None = None) -> str:
+    """A hash of everything that makes a case's mesh: the bytes of its
+    rendered mesh dictionaries (:data:`MESH_FILES`, those present), the names
+    its ``constant/triSurface`` links point to and, where given, those
+    surfaces' bytes (``surfaces``: file name → bytes). Two cases with the same
+    fingerprint run the meshing tools on the same input and get the same mesh
+    (the tools are deterministic in serial), so one can use the other's."""
+    h = hashlib.sha256()
+    for rel in sorted(files):
+        f = files[rel]
+        if rel in MESH_FILES or rel.startswith("constant/triSurface/"):
+            h.update(rel.encode() + b"\0" + f.text.encode() + b"\0" + (b"link" if f.symlink else b"file") + b"\0")
+            name = rel.rsplit("/", 1)[-1]
+            if f.symlink and surfaces is not None and name in surfaces:
+                h.update(hashlib.sha256(surfaces[name]).digest())
+    return "sha256:" + h.hexdigest()
 
 
 def outputs_record() -> dict[str, str]:

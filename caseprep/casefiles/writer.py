@@ -47,8 +47,8 @@ import numpy as np
 from caseprep.contract import __version__
 from caseprep.contract.errors import UserError
 from caseprep.contract.manifest import MANIFEST_NAME, CaseRecord, Manifest, read_manifest, write_manifest
-from caseprep.casefiles.render import (CASES_DIR, GEOMETRY_DIR, CaseFile, outputs_record, render_case, render_sweep_scripts,
-                     surfaces)
+from caseprep.casefiles.render import (CASES_DIR, GEOMETRY_DIR, CaseFile, mesh_fingerprint, outputs_record, render_case,
+                                       render_sweep_scripts, surfaces)
 from caseprep.contract.atomicio import open_folder, write_bytes_atomic, write_json_atomic, write_text_atomic
 from caseprep.contract.limits import is_case_id
 from caseprep.contract.locking import JOURNAL_NAME, interrupted_write, sweep_lock
@@ -333,10 +333,31 @@ def _old_manifest(root: Path, force: bool) -> Manifest | None:
                             "(its unreadable records are dropped)") from None
 
 
-def _planned_records(specs: Sequence[CaseSpec]) -> list[CaseRecord]:
-    """The manifest record of every planned case."""
+def _planned_records(specs: Sequence[CaseSpec], rendered: Mapping[str, Mapping[str, CaseFile]],
+                     geometry: Mapping[str, bytes]) -> list[CaseRecord]:
+    """The manifest record of every planned case, with its mesh fingerprint
+    when it may share its mesh (config ``mesh.reuse``)."""
     outputs = outputs_record()
-    return [dataclasses.replace(s.record(f"{CASES_DIR}/{s.case_id}"), outputs=outputs) for s in specs]
+    return [dataclasses.replace(s.record(f"{CASES_DIR}/{s.case_id}"), outputs=outputs,
+                                mesh_key=(mesh_fingerprint(rendered[s.case_id], geometry)
+                                          if s.solver.mesh_reuse == "identical" else None))
+            for s in specs]
+
+
+def assign_mesh_owners(records: Sequence[CaseRecord]) -> list[CaseRecord]:
+    """Each record with its mesh owner: the first record (in the given
+    order) with the same ``mesh_key``; a record without a key owns its own
+    mesh. Records of the same owner have the same variant by construction
+    (the surfaces are part of the key)."""
+    first: dict[str, str] = {}
+    out = []
+    for r in records:
+        if r.mesh_key is None:
+            out.append(dataclasses.replace(r, mesh_owner=r.case_id))
+            continue
+        owner = first.setdefault(r.mesh_key, r.case_id)
+        out.append(dataclasses.replace(r, mesh_owner=owner))
+    return out
 
 
 def _fingerprint_files(files: Mapping[str, CaseFile]) -> str:
@@ -431,6 +452,7 @@ def _settle(root: Path, journal: dict, old: Manifest | None, verified: bool) -> 
                     records.append(old_records[cid])
                 continue
         records.append(r)
+    records = assign_mesh_owners(records)
     listed = {r.case_id for r in records}
     unlisted = sorted(present - listed)
     manifest = Manifest(
@@ -552,7 +574,7 @@ def _write_locked(specs, root: Path, cfg: Path, config_path, force: bool, render
     old = _old_manifest(root, force)
     geo_todo = _geometry_to_write(root, geometry, force)
     new, replace, same = _cases_to_write(cases_dir, specs, rendered, force)
-    planned = _planned_records(specs)
+    planned = _planned_records(specs, rendered, geometry)
     journal = {
         "pid": os.getpid(), "command": "caseprep write", "config_file": str(config_path),
         "started_utc": _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ"),

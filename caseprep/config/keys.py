@@ -275,6 +275,10 @@ KEYS: dict[str, Key] = {
                                 range=Range(1.0, 2.0, expected="a layer expansion ratio from {lo} to {hi}")),
     "mesh.ground_first_cell": Key("m", "empty test section: first background cell on the ground, cells graded upwards",
                                   default="uniform cells", range=_within(1e-7, _L, "m")),
+    "mesh.reuse": Key("—", "identical: cases whose mesh dictionaries and surfaces are byte-identical (e.g. a speed "
+                           "axis) are meshed once and share that mesh; off: every case meshes", "identical",
+                      choices=("identical", "off"),
+                      source="a mesh is a function of its dictionaries and surfaces: sharing it changes no result"),
     "domain.length": Key("m", "empty test section: inlet to outlet", default='required with `geometry = "none"`',
                          range=_within(0.0, _L, "m")),
     "domain.lead_in": Key("m", "empty test section: slip floor from the inlet to the ground's leading edge "
@@ -302,6 +306,10 @@ KEYS: dict[str, Key] = {
     "solver.turbulence_length_scale": Key("m", "free-stream turbulence length scale at the model",
                                           default="0.02 × body length", range=_within(1e-6, _L, "m"),
                                           source=_COMMON + " (decays mildly over 5 body lengths)"),
+    "solver.warm_start": Key("—", "initial field: off = the uniform free stream; nearest = the converged fields of the "
+                                  "nearest solved case of the same variant and mesh level (README \"Warm starts\")",
+                             "off", choices=("off", "nearest"),
+                             source="measured: README \"Warm starts and mesh reuse (measured)\""),
     "cluster.partition": Key("—", "batch partition (queue) of every job; empty: the cluster's default", "",
                              pattern=_BATCH_NAME),
     "cluster.account": Key("—", "account the jobs are charged to; empty: the user's default", "", pattern=_BATCH_NAME),

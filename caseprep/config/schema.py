@@ -147,6 +147,7 @@ class MeshCfg(_M):
     layer_expansion: float | None = None
     ground_first_cell: float | None = None
     wall_treatment: Literal[choices("mesh.wall_treatment")] = default("mesh.wall_treatment")
+    reuse: Literal[choices("mesh.reuse")] = default("mesh.reuse")
 
 
 class DomainCfg(_M):
@@ -167,6 +168,7 @@ class SolverCfg(_M):
     ranks: int = default("solver.ranks")
     turbulence_intensity: float = default("solver.turbulence_intensity")
     turbulence_length_scale: float | None = None
+    warm_start: Literal[choices("solver.warm_start")] = default("solver.warm_start")
 
 
 class ClusterCfg(_M):

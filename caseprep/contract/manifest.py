@@ -49,7 +49,10 @@ CaseRecord::
       "target_yplus": 50.0 | null,            # at the first prism layer's centre; null without layers
       "wall_treatment": "wall-function",      # or "low-re", "laminar" (caseprep.contract.walls): its y+ band
       "fluid_volume": 259.5,                  # m³: the sizing rule's domain box less the body, for h = (V/N)^(1/3)
-      "outputs": {"forces": "postProcessing/uf_forces/0/force.dat", …}  # where the run's outputs land
+      "outputs": {"forces": "postProcessing/uf_forces/0/force.dat", …}, # where the run's outputs land
+      "mesh_key": "sha256:…" | null,          # of the mesh dictionaries and surfaces; null: never shared
+      "mesh_owner": "flat-ab12cd34" | null,   # the case whose mesh this case uses (itself: it meshes)
+      "warm_start": "off"                     # or "nearest": start from the nearest solved case
     }
 
 Every key a record carries is declared here: the fields of
@@ -76,6 +79,10 @@ from caseprep.contract.untrusted import (confined, expect_dict, expect_int, expe
                                          expect_vec3, read_json, relative_parts)
 
 SCHEMA = "underfloor-manifest"
+#: The initial fields a case may start from: ``off`` the uniform free stream
+#: written with the case; ``nearest`` the converged fields of the nearest
+#: solved case of the same variant and mesh level (caseprep.run.economy).
+WARM_STARTS: tuple[str, ...] = ("off", "nearest")
 SCHEMA_VERSION = 1
 MANIFEST_NAME = "manifest.json"
 
@@ -146,7 +153,14 @@ class CaseRecord:
     post-processing judges y+ by; ``fluid_volume`` (m³) gives the
     representative cell size h = (V/N)^(1/3) of the mesh study; ``outputs``
     where the run's outputs land, relative to the case folder; ``info`` the
-    planning facts of :data:`INFO_FIELDS`."""
+    planning facts of :data:`INFO_FIELDS`.
+
+    ``mesh_key``: a hash of everything that makes the mesh (the rendered mesh
+    dictionaries' bytes, the surfaces' names and bytes); None when the case
+    never shares. ``mesh_owner``: the case that meshes for every case with
+    the same key (the first in the manifest; its own id when it meshes
+    itself; None: it meshes itself). ``warm_start``: the initial field the
+    runner prepares (:data:`WARM_STARTS`)."""
 
     case_id: str
     folder: str
@@ -169,6 +183,14 @@ class CaseRecord:
     fluid_volume: float | None = None
     outputs: dict[str, str] = field(default_factory=dict)
     info: dict[str, Any] = field(default_factory=dict)
+    mesh_key: str | None = None
+    mesh_owner: str | None = None
+    warm_start: str = "off"
+
+    @property
+    def shares_mesh(self) -> bool:
+        """Whether this case uses another case's mesh instead of meshing."""
+        return self.mesh_owner is not None and self.mesh_owner != self.case_id
 
     def to_dict(self) -> dict[str, Any]:
         r = self.reference
@@ -203,7 +225,8 @@ class CaseRecord:
         }
         d.update((k, v) for k, v in self.info.items() if k in INFO_FIELDS)
         d.update(turbulence_model=self.turbulence_model, target_yplus=self.target_yplus, wall_treatment=self.wall_treatment,
-                 fluid_volume=self.fluid_volume, outputs=dict(self.outputs))
+                 fluid_volume=self.fluid_volume, outputs=dict(self.outputs), mesh_key=self.mesh_key,
+                 mesh_owner=self.mesh_owner, warm_start=self.warm_start)
         return d
 
     @classmethod
@@ -247,6 +270,9 @@ class CaseRecord:
                 fluid_volume=None if d.get("fluid_volume") is None else float(d["fluid_volume"]),
                 outputs={str(k): str(v) for k, v in (d.get("outputs") or {}).items()},
                 info={k: v for k, v in d.items() if k in INFO_FIELDS},
+                mesh_key=None if d.get("mesh_key") is None else str(d["mesh_key"]),
+                mesh_owner=None if d.get("mesh_owner") is None else str(d["mesh_owner"]),
+                warm_start=str(d.get("warm_start") or "off"),
             )
         except KeyError as exc:
             raise UserError(
@@ -366,6 +392,14 @@ def check_record_dict(d: object, source: str = MANIFEST_NAME, index: int | None 
     if d.get("turbulence_model") is not None:
         expect_str(d["turbulence_model"], file=source, key=f"{where}.turbulence_model", fix=_FIX, max_len=64)
     expect_number(d.get("target_yplus"), file=source, key=f"{where}.target_yplus", fix=_FIX, none_ok=True)
+    if d.get("mesh_key") is not None:
+        expect_str(d["mesh_key"], file=source, key=f"{where}.mesh_key", fix=_FIX, max_len=100)
+    if d.get("mesh_owner") is not None and not is_case_id(d["mesh_owner"]):
+        raise UserError(expected=f"a case id: {NAME_RULE}", got=d["mesh_owner"], file=source,
+                        key=f"{where}.mesh_owner", fix=_FIX)
+    if d.get("warm_start") is not None and d["warm_start"] not in WARM_STARTS:
+        raise UserError(expected="one of " + ", ".join(WARM_STARTS), got=d["warm_start"], file=source,
+                        key=f"{where}.warm_start", fix=_FIX)
     for k, v in expect_dict(d.get("outputs") or {}, file=source, key=f"{where}.outputs", fix=_FIX).items():
         relative_parts(v, file=source, key=f"{where}.outputs.{k}", what="an output path")
     rot = frames.get("rotation_body_to_ground")

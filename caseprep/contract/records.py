@@ -154,6 +154,12 @@ class CaseRunRecord:
     ``failed_tool`` and ``log_tail`` describe a failure. Times in s.
     ``host`` and ``pid``: the machine and the process id of the runner that
     wrote the record (a ``running`` record names where the stage runs).
+    ``mesh_source``: for a case whose manifest names another case as its
+    mesh owner, ``{"owner", "shared", "how", "files"}`` when it used that
+    mesh, or ``{"owner", "shared": false, "why"}`` when it meshed itself
+    instead. ``initial_field``: where the solve started from
+    (``{"kind": "uniform" | "copied" | "mapped", "source", "distance",
+    "speed_ratio", "why"}``, see :mod:`caseprep.run.fields`).
     ``core_seconds`` and ``cpu_seconds``: the sums over the stages that have
     a figure (this run's and those done before); ``tool_times`` per tool whose
     log prints them, its last ``execution`` (CPU) and ``clock`` time (s; for
@@ -203,6 +209,8 @@ class CaseRunRecord:
     log_tail: str = ""
     host: str = ""
     pid: int | None = None
+    mesh_source: dict[str, Any] | None = None
+    initial_field: dict[str, Any] | None = None
 
     @property
     def failed(self) -> bool:
@@ -285,6 +293,9 @@ def check_run_record_dict(d: object, source: str) -> None:
         expect_str(f, file=source, key=f"flags[{i}]", fix=_FIX, max_len=64)
     if d.get("force_settling") is not None:
         expect_dict(d["force_settling"], file=source, key="force_settling", fix=_FIX)
+    for k in ("mesh_source", "initial_field"):
+        if d.get(k) is not None:
+            expect_dict(d[k], file=source, key=k, fix=_FIX)
     for tool, t in expect_dict(d.get("tool_times") or {}, file=source, key="tool_times", fix=_FIX).items():
         for k, v in expect_dict(t, file=source, key=f"tool_times.{tool}", fix=_FIX).items():
             expect_number(v, file=source, key=f"tool_times.{tool}.{k}", fix=_FIX, none_ok=True)

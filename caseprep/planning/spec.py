@@ -195,7 +195,9 @@ class SolverSpec:
     """Solver controls: iteration budget, output interval, parallel ranks,
     the decomposition split (product = n_procs) and relaxation (the momentum
     relaxation and the non-orthogonal correctors follow the mesh: see
-    :data:`caseprep.casefiles.render.MESH_NUMERICS`)."""
+    :data:`caseprep.casefiles.render.MESH_NUMERICS`). ``mesh_reuse`` and
+    ``warm_start``: the run economy (config ``mesh.reuse``,
+    ``solver.warm_start``), carried into the manifest for the runner."""
 
     n_iterations: int
     write_interval: int
@@ -205,6 +207,8 @@ class SolverSpec:
     relax_turb: float = 0.7
     consistent: bool = True
     monitor_interval: int = 1
+    mesh_reuse: str = "identical"
+    warm_start: str = "off"
 
 
 @dataclass(frozen=True)
@@ -265,4 +269,5 @@ class CaseSpec:
             wall_treatment=self.extra.get("wall_treatment"),
             fluid_volume=self.extra.get("fluid_volume"),
             info={k: v for k, v in self.extra.items() if k in INFO_FIELDS},
+            warm_start=self.solver.warm_start,
         )

@@ -51,7 +51,9 @@ from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import Any, Callable, Iterable, Sequence
 
+from caseprep.run import reuse
 from caseprep.run import solverlogs as sl
+from caseprep.run.economy import RunPlan, plan_run
 from caseprep.contract.atomicio import open_folder, write_json_atomic
 from caseprep.contract.cost import cost_lines, cost_summary, stage_core_seconds
 from caseprep.contract.convergence import DEFAULT_OPTIONS, ConvergenceOptions, force_settling, judge_convergence
@@ -311,6 +313,12 @@ class _Job:
         self.last_beat = 0.0
         self.started_utc = ""
         self.cpu: float | None = None  # CPU s of the current stage's process tree, once it ended
+        self.mesh_owner: str | None = None  # the case whose mesh this one uses (the run plan)
+        self.source: str | None = None  # the case whose fields it starts from (the run plan)
+        self.distance: float | None = None
+        self.deps: list[tuple[str, str]] = []  # (case, stage) of this run that must end before this case starts
+        self.mesh_source: dict[str, Any] | None = None
+        self.initial_field: dict[str, Any] | None = None
 
 
 def _plan(case_dir: Path, stages: Sequence[str], force: bool) -> tuple[list[str], dict[str, str], str | None]:
@@ -386,11 +394,36 @@ def _run_locked(root: Path, manifest, jobs: int | None, ranks: int | None, stage
     emit(Progress("", 0, len(selected), "layout", message=layout.reason))
     records: dict[str, CaseRunRecord] = {}
     pending = _pending_jobs(manifest, selected, stages, force, layout.ranks, options, records, emit)
+    pending = _apply_plan(manifest, pending, layout.jobs)
     run = _Run(root, manifest, len(selected), layout.ranks, options, emit, _environment(layout.ranks),
                socket.gethostname(), os.getpid(), records)
     with StopSignals() as stop:
         run.loop(pending, layout.jobs, stop)
     return [records[c.case_id] for c in selected]
+
+
+def _apply_plan(manifest, pending: list[_Job], slots: int) -> list[_Job]:
+    """The jobs in the order of the run plan (:func:`caseprep.run.economy.plan_run`),
+    each with its mesh owner, warm-start source and the stages of this run
+    it waits for (an owner's mesh stage, a source's solve stage)."""
+    ids = [j.rec.case_id for j in pending]
+    running = set(ids)
+    solved = [c.case_id for c in manifest.cases if c.case_id not in running
+              and (manifest.case_dir(c) / "logs" / "solve.done").is_file()]
+    plan: RunPlan = plan_run(manifest.cases, ids, solved, slots)
+    by_id = {j.rec.case_id: j for j in pending}
+    for job in pending:
+        cid = job.rec.case_id
+        if "mesh" in job.to_run and cid in plan.mesh_owner:
+            job.mesh_owner = plan.mesh_owner[cid]
+            if job.mesh_owner in by_id:
+                job.deps.append((job.mesh_owner, "mesh"))
+        if "solve" in job.to_run and cid in plan.source:
+            job.source, job.distance = plan.source[cid], plan.distance.get(cid)
+            if job.source in by_id:
+                job.deps.append((job.source, "solve"))
+    rank = {cid: i for i, cid in enumerate(plan.order)}
+    return sorted(pending, key=lambda j: rank.get(j.rec.case_id, len(rank) + j.index))
 
 
 def _checked_stages(stages: Sequence[str] | None) -> list[str]:
@@ -481,7 +514,10 @@ class _Run:
         try:
             while (pending or self.running) and not stop.requested:
                 while pending and len(self.running) < jobs and not stop.requested:
-                    job = pending.pop(0)
+                    job = self.next_ready(pending)
+                    if job is None:
+                        break  # every waiting case needs a running one to finish first
+                    pending.remove(job)
                     job.t0 = time.monotonic()
                     job.started_utc = _utc()
                     self.running.append(job)  # before starting: a stop must find its process
@@ -508,9 +544,39 @@ class _Run:
         if stop.requested:
             self.interrupt(stop)
 
+    def next_ready(self, pending: list[_Job]) -> _Job | None:
+        """The first pending job whose owners and sources of this run have
+        finished the stages it needs (None: all wait; with nothing running,
+        the first job, which then falls back to meshing itself or a cold start)."""
+        waiting = {j.rec.case_id: j for j in pending}
+        active = {j.rec.case_id: j for j in self.running}
+
+        def settled(cid: str, stage: str) -> bool:
+            if cid in waiting:
+                return False
+            j = active.get(cid)
+            if j is None:
+                return True
+            busy = j.stage == stage and stage not in j.results
+            return not busy and stage not in j.to_run
+
+        for job in pending:
+            if all(settled(cid, st) for cid, st in job.deps):
+                return job
+        return pending[0] if not self.running else None
+
     def start_stage(self, job: _Job, summary: bool = False) -> None:
         """Mark the case ``running`` on disk (record, and the summary when
-        ``summary``), then start its next stage."""
+        ``summary``), then start its next stage (a shared mesh is linked
+        here, at once, and the next stage started)."""
+        if job.to_run[0] == "mesh" and job.mesh_owner is not None and self.share_mesh(job):
+            if not job.to_run:
+                rec = _finish_record(job, Status.OK, "", self.ranks, self.options)
+                self.running.remove(job)
+                self.finish(job, rec)
+                self.emit(Progress(job.rec.case_id, job.index, self.total, "case-done", None, rec.wall_time, 0.0,
+                                   rec.message, rec))
+                return
         stage = job.to_run[0]
         rec = self.running_record(job, stage)
         self.records[job.rec.case_id] = rec
@@ -518,6 +584,46 @@ class _Run:
         if summary:
             _write_summary(self.root, self.manifest, self.records, self.ranks)
         _start_stage(job, self.env, self.emit, self.total)
+
+    def share_mesh(self, job: _Job) -> bool:
+        """Give ``job`` its owner's finished mesh instead of meshing (True),
+        or record why it meshes itself (False)."""
+        owner = job.mesh_owner
+        odir = self.manifest.case_dir(self.manifest.case(owner))
+        rec = self.records.get(owner)
+        why = None
+        if rec is not None and rec.status == Status.MESH_FAILED:
+            why = f"the mesh of case {owner} failed"
+        why = why or reuse.mesh_ready(odir)
+        if why is not None:
+            why = why if why.startswith("the mesh") else f"case {owner}: {why}"
+            job.mesh_source = {"owner": owner, "shared": False, "why": f"{why}; meshed itself"}
+            return False
+        case = job.rec.case_id
+        t0, c0 = time.monotonic(), time.process_time()
+        self.emit(Progress(case, job.index, self.total, "stage-start", "mesh", t0 - job.t0,
+                           message=f"mesh of {owner}"))
+        try:
+            for later in STAGES:
+                (job.dir / "logs").mkdir(exist_ok=True)
+                with contextlib.suppress(FileNotFoundError):
+                    (job.dir / "logs" / f"{later}.done").unlink()
+                if job.plan.get(later) == "done-before":
+                    job.plan[later] = "not-run"
+            reuse.clear_results(job.dir)
+            share = reuse.share_mesh(odir, job.dir)
+            (job.dir / "logs" / "mesh.done").touch()
+        except OSError as exc:
+            job.mesh_source = {"owner": owner, "shared": False, "why": f"linking its mesh failed ({exc}); meshed itself"}
+            return False
+        job.to_run.pop(0)
+        now = time.monotonic()
+        job.results["mesh"] = _stage_run("mesh", "ok", now - t0, 0, self.ranks, round(time.process_time() - c0, 3))
+        job.mesh_source = {"owner": owner, "shared": True, "how": share.how, "files": share.files,
+                           "bytes": share.bytes}
+        self.emit(Progress(case, job.index, self.total, "stage-done", "mesh", now - job.t0, now - t0,
+                           message=f"mesh of {owner} ({share.how})"))
+        return True
 
     def running_record(self, job: _Job, stage: str) -> CaseRunRecord:
         """The record while ``stage`` runs: no result of the stages being redone."""
@@ -761,8 +867,19 @@ def _finish_record(job: _Job, status: str, message: str, ranks: int, options: Ru
         stages=tuple(stages), wall_time=round(wall, 3), core_seconds=round(sum(core), 3) if core else None,
         cpu_seconds=round(sum(cpu), 3) if cpu else None, tool_times=_tool_times(job.dir, valid),
         started_utc=job.started_utc, finished_utc=_utc(),
-        flags=tuple(dict.fromkeys(flags)), failed_tool=failed_tool, log_tail=log_tail, **info,
+        flags=tuple(dict.fromkeys(flags)), failed_tool=failed_tool, log_tail=log_tail,
+        mesh_source=job.mesh_source if job.mesh_source is not None else _previous(job, "mesh_source", "mesh"),
+        initial_field=job.initial_field if job.initial_field is not None else _previous(job, "initial_field", "solve"),
+        **info,
     )
+
+
+def _previous(job: _Job, name: str, stage: str):
+    """A fact of the previous record that still holds: the stage that made
+    it was done before and not run again."""
+    if job.previous is None or job.plan.get(stage) != "done-before" or stage in job.results:
+        return None
+    return getattr(job.previous, name, None)
 
 
 def _tool_times(case_dir: Path, valid_stages: Sequence[str]) -> dict[str, dict[str, float]]:

@@ -1,0 +1,190 @@
+"""The run economy in the runner, with stand-in run.sh scripts (no solver):
+mesh sharing (links, owner first, fall-back when the owner failed or has no
+mesh), the run plan's order and its dependencies under ``-j N``. The real
+solver's side (a shared mesh solves, a warm start converges sooner) is in
+tests/test_economy_solver.py."""
+from __future__ import annotations
+
+import json
+import sys
+from pathlib import Path
+
+import pytest
+
+from caseprep.contract.manifest import read_manifest
+from caseprep.run import runner
+from caseprep.run.economy import plan_run
+
+sys.path.insert(0, str(Path(__file__).parent))
+from test_runner import FIX  # noqa: E402
+from tiny_case import write_manifest_only  # noqa: E402
+
+SCRIPT = r"""#!/bin/bash
+# stand-in following the case folder contract; the mesh stage makes a fake polyMesh
+set -u
+cd "$(dirname "$0")" || exit 1
+FIX="{fix}"
+mkdir -p logs
+[ $# -eq 0 ] && set -- mesh solve export
+for s in "$@"; do
+  echo "$s $(date +%s.%N)" >> logs/calls.txt
+  case "$s" in
+    mesh)
+      rm -f logs/mesh.done; rm -rf constant/polyMesh
+      sleep {sleep}
+      {mesh_fail}
+      mkdir -p constant/polyMesh system
+      echo "faces of $(basename "$PWD")" > constant/polyMesh/faces
+      echo "points" > constant/polyMesh/points
+      echo "meshNumerics" > system/meshNumerics
+      cp "$FIX/blockMesh.log" logs/blockMesh.log
+      cp "$FIX/snappyHexMesh_layers.log" logs/snappyHexMesh.log
+      cp "$FIX/checkMesh_ok.log" logs/checkMesh.log
+      touch logs/mesh.done ;;
+    solve)
+      rm -f logs/solve.done
+      [ -f constant/polyMesh/faces ] || exit 4
+      sleep {sleep}
+      cp "$FIX/simpleFoam_converged.log" logs/simpleFoam.log
+      echo "end $(date +%s.%N)" >> logs/calls.txt
+      touch logs/solve.done ;;
+    export)
+      cp "$FIX/foamToVTK.log" logs/foamToVTK.log
+      touch logs/export.done ;;
+  esac
+done
+"""
+
+
+def stand_in(root: Path, cid: str, sleep: float = 0.2, mesh_fail: bool = False) -> None:
+    p = root / "cases" / cid / "run.sh"
+    p.write_text(SCRIPT.format(fix=FIX, sleep=sleep, mesh_fail="exit 1" if mesh_fail else ""))
+    p.chmod(0o755)
+
+
+def economy_sweep(root: Path, points: dict[str, tuple[float, float, str | None]], warm: str = "off",
+                  variant: dict[str, str] | None = None, sleep: float = 0.2) -> Path:
+    """A manifest of stand-in cases: id → (ride height m, speed m/s, mesh owner or None)."""
+    write_manifest_only(root, list(points))
+    m = json.loads((root / "manifest.json").read_text())
+    for c in m["cases"]:
+        h, v, owner = points[c["case_id"]]
+        c["params"] = {"ride_height_front": h, "ride_height_rear": h + 0.02, "pitch_deg": 0.0, "yaw_deg": 0.0,
+                       "speed": v, "mesh_level": 0}
+        c["mesh_owner"] = owner or c["case_id"]
+        c["mesh_key"] = f"sha256:{owner or c['case_id']}"
+        c["warm_start"] = warm
+        c["variant"] = (variant or {}).get(c["case_id"], "v")
+    (root / "manifest.json").write_text(json.dumps(m))
+    for cid in points:
+        stand_in(root, cid, sleep)
+    return root
+
+
+def calls(root: Path, cid: str) -> list[tuple[str, float]]:
+    p = root / "cases" / cid / "logs" / "calls.txt"
+    return [(a, float(b)) for a, b in (line.split() for line in p.read_text().splitlines())] if p.exists() else []
+
+
+def test_a_speed_pair_meshes_once_and_the_second_case_links_the_mesh(tmp_path):
+    # the sharer comes first in the manifest: the plan still runs the owner's mesh first
+    root = economy_sweep(tmp_path / "s", {"b40": (0.02, 40.0, "a30"), "a30": (0.02, 30.0, None)})
+    events = []
+    recs = {r.case_id: r for r in runner.run_sweep(root, jobs=2, ranks=1, progress=events.append)}
+    assert [c for c, _ in calls(root, "b40")] == ["solve", "end", "export"]  # no mesh stage of its own
+    assert [c for c, _ in calls(root, "a30")][0] == "mesh"
+    a, b = root / "cases" / "a30", root / "cases" / "b40"
+    assert (b / "constant/polyMesh/faces").stat().st_ino == (a / "constant/polyMesh/faces").stat().st_ino
+    assert (b / "constant/polyMesh/faces").read_text() == "faces of a30\n"
+    assert (b / "system/meshNumerics").read_text() == "meshNumerics\n"
+    assert "no meshing tool ran" in (b / "logs/meshShared.log").read_text()
+    rb = recs["b40"]
+    assert rb.status == "ok" and rb.mesh_source["owner"] == "a30" and rb.mesh_source["shared"] is True
+    assert rb.mesh_source["how"] == "hard links" and rb.mesh_source["files"] == 2
+    assert rb.cells == recs["a30"].cells == 1904  # the owner's mesh facts, from its copied logs
+    assert recs["a30"].mesh_source is None
+    # b started after a's mesh stage ended
+    a_mesh_done = next(i for i, e in enumerate(events) if e.case_id == "a30" and e.event == "stage-done"
+                       and e.stage == "mesh")
+    b_start = next(i for i, e in enumerate(events) if e.case_id == "b40" and e.event == "case-start")
+    assert b_start > a_mesh_done
+    # the mesh stage of the sharer cost almost nothing
+    assert rb.stage_run("mesh").wall_time < 0.5 * recs["a30"].stage_run("mesh").wall_time
+
+
+def test_a_failed_owner_makes_the_sharer_mesh_itself(tmp_path):
+    root = economy_sweep(tmp_path / "s", {"a30": (0.02, 30.0, None), "b40": (0.02, 40.0, "a30")})
+    stand_in(root, "a30", mesh_fail=True)
+    recs = {r.case_id: r for r in runner.run_sweep(root, jobs=2, ranks=1)}
+    assert recs["a30"].status == "mesh-failed"
+    rb = recs["b40"]
+    assert rb.status == "ok" and [c for c, _ in calls(root, "b40")][0] == "mesh"
+    assert rb.mesh_source["shared"] is False and "failed" in rb.mesh_source["why"]
+    assert "meshed itself" in rb.mesh_source["why"]
+
+
+def test_only_the_sharer_without_the_owners_mesh_meshes_itself(tmp_path):
+    root = economy_sweep(tmp_path / "s", {"a30": (0.02, 30.0, None), "b40": (0.02, 40.0, "a30")})
+    (rec,) = runner.run_sweep(root, only=["b40"], jobs=1, ranks=1)
+    assert rec.status == "ok" and rec.mesh_source["shared"] is False
+    assert "mesh stage is not done" in rec.mesh_source["why"]
+    # once the owner has a mesh, a forced rerun of the sharer uses it
+    runner.run_sweep(root, only=["a30"], jobs=1, ranks=1)
+    (rec,) = runner.run_sweep(root, only=["b40"], jobs=1, ranks=1, force=True)
+    assert rec.mesh_source["shared"] is True
+    # a resumed run keeps the record of how the mesh was made
+    (again,) = runner.run_sweep(root, only=["b40"], jobs=1, ranks=1)
+    assert again.status == "skipped" and again.mesh_source["shared"] is True
+
+
+def test_three_ride_heights_by_two_speeds_owner_first_under_two_jobs(tmp_path):
+    pts = {}
+    for h, tag in ((0.02, "h20"), (0.025, "h25"), (0.03, "h30")):
+        pts[f"{tag}v30"] = (h, 30.0, None)
+        pts[f"{tag}v40"] = (h, 40.0, f"{tag}v30")
+    root = economy_sweep(tmp_path / "s", pts, sleep=0.3)
+    recs = {r.case_id: r for r in runner.run_sweep(root, jobs=2, ranks=1)}
+    assert all(r.status == "ok" for r in recs.values())
+    for h in ("h20", "h25", "h30"):
+        owner, sharer = calls(root, f"{h}v30"), calls(root, f"{h}v40")
+        assert [c for c, _ in sharer][0] == "solve"
+        mesh_end = owner[1][1]  # the owner's next call (solve) starts after its mesh ended
+        assert sharer[0][1] >= mesh_end - 1e-3
+        assert recs[f"{h}v40"].mesh_source["shared"] is True
+
+
+@pytest.fixture
+def grid(tmp_path):
+    pts = {}
+    for h, tag in ((0.02, "h20"), (0.025, "h25"), (0.03, "h30")):
+        pts[f"{tag}v30"] = (h, 30.0, None)
+        pts[f"{tag}v40"] = (h, 40.0, f"{tag}v30")
+    return economy_sweep(tmp_path / "s", pts, warm="nearest")
+
+
+@pytest.mark.parametrize("slots", [1, 2])
+def test_the_plan_puts_every_source_and_owner_before_its_cases(grid, slots):
+    m = read_manifest(grid)
+    ids = [c.case_id for c in m.cases]
+    plan = plan_run(m.cases, ids, slots=slots)
+    assert sorted(plan.order) == sorted(ids)
+    pos = {c: i for i, c in enumerate(plan.order)}
+    for c, s in plan.source.items():
+        assert pos[s] < pos[c]
+    for c, o in plan.mesh_owner.items():
+        assert pos[o] < pos[c]
+    cold = [c for c in ids if c not in plan.source]
+    assert len(cold) == slots  # the roots: the middle of the sweep, then the farthest case
+    assert plan.order[0] == "h25v30"  # the medoid: middle ride height, first of its speeds in the manifest
+    # the speed twin (shared mesh, distance 0.5 after similarity scaling) is the nearest source
+    assert plan.source["h25v40"] == "h25v30" and plan.distance["h25v40"] == pytest.approx(0.5)
+    # a ride-height step of half the span (front and rear both move): √(0.5² + 0.5²)
+    assert plan.distance.get("h20v30", plan.distance.get("h30v30")) == pytest.approx(2 ** 0.5 / 2)
+
+
+def test_no_source_across_variants_or_mesh_levels(tmp_path):
+    root = economy_sweep(tmp_path / "s", {"a": (0.02, 30.0, None), "b": (0.021, 30.0, None)}, warm="nearest",
+                         variant={"a": "flat", "b": "ramp"})
+    m = read_manifest(root)
+    plan = plan_run(m.cases, ["a", "b"])
+    assert plan.source == {}

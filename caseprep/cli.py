@@ -113,10 +113,13 @@ class _RunProgress:
 @click.option("--grace", type=click.FloatRange(min=0.0), default=RUN_DEFAULTS.kill_grace, show_default=True,
               help="Seconds between SIGTERM and SIGKILL for the running cases when the run is stopped "
                    "(keep it below the scheduler's own grace, e.g. SLURM's KillWait).")
+@click.option("--cold", is_flag=True, help="Start every case from the uniform free stream (no warm start).")
+@click.option("--warm-from", "warm_from", metavar="ID", default=None,
+              help="Start the selected cases from this solved case (same variant and mesh level).")
 @click.option("-q", "--quiet", is_flag=True, help="Print only failures and the final table.")
 @click.option("-v", "--verbose", is_flag=True, help="Also print each stage's start and end.")
 @click.option("--skip-solver-check", is_flag=True, hidden=True)
-def run_cmd(sweep_dir, jobs, ranks, only, stages, force, residual_tol, grace, quiet, verbose,
+def run_cmd(sweep_dir, jobs, ranks, only, stages, force, residual_tol, grace, cold, warm_from, quiet, verbose,
             skip_solver_check) -> None:
     """Run the solver over the cases of SWEEP_DIR (a folder written by
     `caseprep write`): mesh, solve and export each case, resumably.
@@ -143,7 +146,11 @@ def run_cmd(sweep_dir, jobs, ranks, only, stages, force, residual_tol, grace, qu
     t0 = time.monotonic()
     show = _RunProgress(quiet, verbose)
     tty = sys.stdout.isatty()
+    if cold and warm_from:
+        raise UserError(expected="either --cold or --warm-from", got="both", key="--warm-from",
+                        fix="drop one of them")
     opts = runner.RunOptions(convergence=ConvergenceOptions(residual_tol=residual_tol), kill_grace=grace,
+                             cold=cold, warm_from=warm_from,
                              heartbeat=1.0 if tty else RUN_DEFAULTS.heartbeat)  # a terminal's bar moves on
     try:
         try:

@@ -41,6 +41,7 @@ from __future__ import annotations
 
 import contextlib
 import datetime as _dt
+import json
 import os
 import shutil
 import signal
@@ -53,7 +54,9 @@ from typing import Any, Callable, Iterable, Sequence
 
 from caseprep.run import reuse
 from caseprep.run import solverlogs as sl
-from caseprep.run.economy import RunPlan, plan_run
+from caseprep.run import fields as initial_fields
+from caseprep.run import warmstart
+from caseprep.run.economy import RunPlan, case_distance, group_key, plan_run
 from caseprep.contract.atomicio import open_folder, write_json_atomic
 from caseprep.contract.cost import cost_lines, cost_summary, stage_core_seconds
 from caseprep.contract.convergence import DEFAULT_OPTIONS, ConvergenceOptions, force_settling, judge_convergence
@@ -148,6 +151,9 @@ class RunOptions:
     ``poll``: seconds between checks of the running processes.
     ``kill_grace``: seconds between SIGTERM and SIGKILL when stopped (keep it
     below the scheduler's own grace, e.g. SLURM's KillWait, 30 s by default).
+    ``cold``: every case starts from the uniform free stream, whatever the
+    manifest asks; ``warm_from``: every selected case starts from this
+    case's solution (same variant, mesh level, yaw mode and ground only).
     """
 
     convergence: ConvergenceOptions = DEFAULT_OPTIONS
@@ -156,6 +162,8 @@ class RunOptions:
     heartbeat: float = 30.0
     poll: float = 0.2
     kill_grace: float = 10.0
+    cold: bool = False
+    warm_from: str | None = None
 
 
 @dataclass(frozen=True)
@@ -387,6 +395,8 @@ def _run_locked(root: Path, manifest, jobs: int | None, ranks: int | None, stage
                             fix=f"use {key} 1 or more, at most the number of cores")
     stages = _checked_stages(stages)
     selected = _selected_cases(root, manifest, only)
+    if options.warm_from is not None:
+        _forced_source(manifest, selected, options.warm_from)
     emit = progress or (lambda ev: None)
     plans = [_plan(manifest.case_dir(c), stages, force) for c in selected]
     n_pending = sum(1 for to_run, _plan_, why in plans if to_run and not why)
@@ -394,7 +404,7 @@ def _run_locked(root: Path, manifest, jobs: int | None, ranks: int | None, stage
     emit(Progress("", 0, len(selected), "layout", message=layout.reason))
     records: dict[str, CaseRunRecord] = {}
     pending = _pending_jobs(manifest, selected, stages, force, layout.ranks, options, records, emit)
-    pending = _apply_plan(manifest, pending, layout.jobs)
+    pending = _apply_plan(manifest, pending, layout.jobs, options)
     run = _Run(root, manifest, len(selected), layout.ranks, options, emit, _environment(layout.ranks),
                socket.gethostname(), os.getpid(), records)
     with StopSignals() as stop:
@@ -402,7 +412,25 @@ def _run_locked(root: Path, manifest, jobs: int | None, ranks: int | None, stage
     return [records[c.case_id] for c in selected]
 
 
-def _apply_plan(manifest, pending: list[_Job], slots: int) -> list[_Job]:
+def _forced_source(manifest, selected: Sequence[CaseRecord], source: str) -> None:
+    """Refuse ``--warm-from SOURCE`` for a case it cannot start: another
+    variant, mesh level, yaw mode or ground, or the case itself."""
+    src = manifest.case(source)
+    for c in selected:
+        if c.case_id == source:
+            raise UserError(expected="a warm-start source other than the case itself", got=source, key="--warm-from",
+                            fix="name another solved case, or leave --only without it")
+        if group_key(c) != group_key(src):
+            names = ("variant", "mesh level", "yaw mode", "ground")
+            diff = next(n for n, a, b in zip(names, group_key(c), group_key(src)) if a != b)
+            raise UserError(expected=f"a warm-start source of the same variant, mesh level, yaw mode and ground as "
+                                     f"case {c.case_id} ({diff} {group_key(c)[names.index(diff)]})",
+                            got=f"{source} ({diff} {group_key(src)[names.index(diff)]})", key="--warm-from",
+                            fix="a field of another body or mesh is no starting point: pick a case of the same "
+                                "variant and mesh level, or run cold")
+
+
+def _apply_plan(manifest, pending: list[_Job], slots: int, options: RunOptions) -> list[_Job]:
     """The jobs in the order of the run plan (:func:`caseprep.run.economy.plan_run`),
     each with its mesh owner, warm-start source and the stages of this run
     it waits for (an owner's mesh stage, a source's solve stage)."""
@@ -418,10 +446,16 @@ def _apply_plan(manifest, pending: list[_Job], slots: int) -> list[_Job]:
             job.mesh_owner = plan.mesh_owner[cid]
             if job.mesh_owner in by_id:
                 job.deps.append((job.mesh_owner, "mesh"))
-        if "solve" in job.to_run and cid in plan.source:
+        if "solve" not in job.to_run or options.cold:
+            continue
+        if options.warm_from is not None:
+            src = manifest.case(options.warm_from)
+            group = [c for c in manifest.cases if group_key(c) == group_key(src)]
+            job.source, job.distance = src.case_id, round(case_distance(job.rec, src, group), 6)
+        elif cid in plan.source:
             job.source, job.distance = plan.source[cid], plan.distance.get(cid)
-            if job.source in by_id:
-                job.deps.append((job.source, "solve"))
+        if job.source in by_id:
+            job.deps.append((job.source, "solve"))
     rank = {cid: i for i, cid in enumerate(plan.order)}
     return sorted(pending, key=lambda j: rank.get(j.rec.case_id, len(rank) + j.index))
 
@@ -578,12 +612,34 @@ class _Run:
                                    rec.message, rec))
                 return
         stage = job.to_run[0]
+        prelude = self.initial_field(job) if stage == "solve" else None
         rec = self.running_record(job, stage)
         self.records[job.rec.case_id] = rec
         _write_record(job.dir, rec)
         if summary:
             _write_summary(self.root, self.manifest, self.records, self.ranks)
-        _start_stage(job, self.env, self.emit, self.total)
+        _start_stage(job, self.env, self.emit, self.total, prelude)
+
+    def initial_field(self, job: _Job) -> list[str] | None:
+        """Decide the initial field of ``job``'s solve (:mod:`caseprep.run.warmstart`),
+        note it in ``job.initial_field``; the command that prepares it (None: none needed)."""
+        wants = (job.rec.warm_start == "nearest" or self.options.warm_from is not None) and not self.options.cold
+        if not wants:
+            choice = warmstart.InitialChoice("uniform")
+        elif job.source is None:
+            choice = warmstart.choose(job.rec, None, None, None, (), False,
+                                      "no case of the same variant and mesh level solved before it (it is a root "
+                                      "of the run plan)")
+        else:
+            src = self.manifest.case(job.source)
+            sdir = self.manifest.case_dir(src)
+            solved = (sdir / "logs" / "solve.done").is_file()
+            flags = summarize_logs(sdir, ["mesh", "solve"], self.options)["flags"] if solved else ()
+            choice = warmstart.choose(job.rec, src, sdir, job.distance, flags, solved)
+        job.initial_field = choice.to_record()
+        with contextlib.suppress(FileNotFoundError):
+            (job.dir / "logs" / initial_fields.RESULT_NAME).unlink()
+        return choice.command(job.dir)
 
     def share_mesh(self, job: _Job) -> bool:
         """Give ``job`` its owner's finished mesh instead of meshing (True),
@@ -648,6 +704,8 @@ class _Run:
         dt = now - job.stage_t0
         marker = job.dir / "logs" / f"{stage}.done"
         case, idx, total = job.rec.case_id, job.index, self.total
+        if stage == "solve":
+            _read_initial_result(job)
         if rc == 0 and marker.exists():
             job.results[stage] = _stage_run(stage, "ok", dt, rc, self.ranks, job.cpu)
             job.proc = None
@@ -715,7 +773,7 @@ class _Run:
         raise SweepInterrupted([self.records[c] for c in order if c in self.records], stop.signum)
 
 
-def _start_stage(job: _Job, env: dict[str, str], emit, total: int) -> None:
+def _start_stage(job: _Job, env: dict[str, str], emit, total: int, prelude: list[str] | None = None) -> None:
     stage = job.to_run.pop(0)
     dfd = open_folder(job.dir, ["logs"])  # no link followed below the case folder
     try:
@@ -736,9 +794,33 @@ def _start_stage(job: _Job, env: dict[str, str], emit, total: int) -> None:
     job.stage_wall0 = time.time()
     job.last_beat = job.stage_t0
     job.out = os.fdopen(fd, "w")
-    job.proc = subprocess.Popen([str(job.dir / "run.sh"), stage], cwd=job.dir, env=env, stdout=job.out,
+    cmd = [str(job.dir / "run.sh"), stage]
+    if prelude:  # the initial field is prepared first, as part of the stage (its time and CPU count there)
+        cmd = ["bash", "-c", 'set -e; "$@"; exec ./run.sh ' + stage, "initial-field", *prelude]
+    job.proc = subprocess.Popen(cmd, cwd=job.dir, env=env, stdout=job.out,
                                 stderr=subprocess.STDOUT, stdin=subprocess.DEVNULL, start_new_session=True)
     emit(Progress(job.rec.case_id, job.index, total, "stage-start", stage, job.stage_t0 - job.t0))
+
+
+def _read_initial_result(job: _Job) -> None:
+    """What the initial-field preparation did (logs/initialField.json),
+    into ``job.initial_field``: a warm start that fell back says why."""
+    if job.initial_field is None or job.initial_field.get("kind") == "uniform":
+        return
+    p = job.dir / "logs" / initial_fields.RESULT_NAME
+    try:
+        done = json.loads(p.read_text()) if p.is_file() and p.stat().st_size < 65536 else None
+    except (OSError, ValueError):
+        done = None
+    if not isinstance(done, dict) or done.get("kind") not in initial_fields.KINDS:
+        job.initial_field = {**job.initial_field, "kind": "unknown",
+                             "why": f"no readable logs/{initial_fields.RESULT_NAME}: the preparation did not finish"}
+        return
+    job.initial_field = {**job.initial_field, "kind": done["kind"]}
+    if done.get("why"):
+        job.initial_field["why"] = str(done["why"])[:500]
+    if done.get("source_time"):
+        job.initial_field["source_time"] = str(done["source_time"])[:32]
 
 
 def _poll(job: _Job) -> int | None:

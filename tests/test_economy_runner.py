@@ -45,7 +45,8 @@ for s in "$@"; do
       rm -f logs/solve.done
       [ -f constant/polyMesh/faces ] || exit 4
       sleep {sleep}
-      cp "$FIX/simpleFoam_converged.log" logs/simpleFoam.log
+      cp "$FIX/{solver}" logs/simpleFoam.log
+      mkdir -p 5 && printf '{u5}' > 5/U && printf '{p5}' > 5/p
       echo "end $(date +%s.%N)" >> logs/calls.txt
       touch logs/solve.done ;;
     export)
@@ -56,14 +57,38 @@ done
 """
 
 
-def stand_in(root: Path, cid: str, sleep: float = 0.2, mesh_fail: bool = False) -> None:
-    p = root / "cases" / cid / "run.sh"
-    p.write_text(SCRIPT.format(fix=FIX, sleep=sleep, mesh_fail="exit 1" if mesh_fail else ""))
+HEADER = "FoamFile\n{{\n    version 2.0;\n    format ascii;\n    class {cls};\n    object {name};\n}}\n"
+UNIFORM = HEADER + ("dimensions [0 1 -1 0 0 0 0];\n\ninternalField   uniform {value};\n\nboundaryField\n{{\n"
+                    "    inlet\n    {{\n        type fixedValue;\n        value uniform {value};\n    }}\n}}\n")
+#: the stand-in's "solution": three cells
+SOLVED_U = [(10.0, 0.0, 1.0), (20.0, 0.5, 0.0), (30.0, 0.0, -1.0)]
+SOLVED_P = [-100.0, 0.0, 50.0]
+
+
+def _list_file(cls: str, name: str, kind: str, values) -> str:
+    body = "\n".join(f"({a} {b} {c})" if kind == "vector" else f"{a}" for a, b, c in
+                     (v if isinstance(v, tuple) else (v, 0, 0) for v in values))
+    return (HEADER.format(cls=cls, name=name).replace("{{", "{").replace("}}", "}")
+            + f"internalField   nonuniform List<{kind}>\n{len(values)}\n(\n{body}\n)\n;\n\nboundaryField\n{{\n}}\n")
+
+
+def stand_in(root: Path, cid: str, sleep: float = 0.2, mesh_fail: bool = False,
+             solver: str = "simpleFoam_converged.log") -> None:
+    case = root / "cases" / cid
+    p = case / "run.sh"
+    u5 = _list_file("volVectorField", "U", "vector", SOLVED_U).replace("%", "%%")
+    p5 = _list_file("volScalarField", "p", "scalar", SOLVED_P).replace("%", "%%")
+    p.write_text(SCRIPT.format(fix=FIX, sleep=sleep, mesh_fail="exit 1" if mesh_fail else "", solver=solver,
+                               u5=u5.replace("\n", "\\n"), p5=p5.replace("\n", "\\n")))
     p.chmod(0o755)
+    (case / "0").mkdir(exist_ok=True)
+    (case / "0" / "U").write_text(UNIFORM.format(cls="volVectorField", name="U", value="(40 0 0)"))
+    (case / "0" / "p").write_text(UNIFORM.format(cls="volScalarField", name="p", value="0"))
 
 
 def economy_sweep(root: Path, points: dict[str, tuple[float, float, str | None]], warm: str = "off",
                   variant: dict[str, str] | None = None, sleep: float = 0.2) -> Path:
+    # reference speed = the point's speed (the warm start scales by their ratio)
     """A manifest of stand-in cases: id → (ride height m, speed m/s, mesh owner or None)."""
     write_manifest_only(root, list(points))
     m = json.loads((root / "manifest.json").read_text())
@@ -75,6 +100,7 @@ def economy_sweep(root: Path, points: dict[str, tuple[float, float, str | None]]
         c["mesh_key"] = f"sha256:{owner or c['case_id']}"
         c["warm_start"] = warm
         c["variant"] = (variant or {}).get(c["case_id"], "v")
+        c["reference"]["speed"] = v
     (root / "manifest.json").write_text(json.dumps(m))
     for cid in points:
         stand_in(root, cid, sleep)
@@ -188,3 +214,101 @@ def test_no_source_across_variants_or_mesh_levels(tmp_path):
     m = read_manifest(root)
     plan = plan_run(m.cases, ["a", "b"])
     assert plan.source == {}
+
+
+def _events_index(events, case, event, stage=None):
+    return next(i for i, e in enumerate(events) if e.case_id == case and e.event == event
+                and (stage is None or e.stage == stage))
+
+
+def test_warm_starts_wait_for_their_sources_under_two_jobs(grid):
+    events = []
+    recs = {r.case_id: r for r in runner.run_sweep(grid, jobs=2, ranks=1, progress=events.append)}
+    assert all(r.status == "ok" and not r.flags for r in recs.values())
+    plan = plan_run(read_manifest(grid).cases, list(recs), slots=2)
+    for case, src in plan.source.items():
+        # never started before its source's solve stage ended
+        assert _events_index(events, case, "case-start") > _events_index(events, src, "stage-done", "solve")
+        init = recs[case].initial_field
+        assert init["source"] == src and init["distance"] == pytest.approx(plan.distance[case])
+        ratio = 40.0 / 30.0 if case.endswith("v40") and src.endswith("v30") else (
+            30.0 / 40.0 if case.endswith("v30") and src.endswith("v40") else 1.0)
+        assert init["speed_ratio"] == pytest.approx(ratio)
+        shared = recs[case].mesh_source is not None and init["source"] == recs[case].mesh_source["owner"]
+        if shared:  # the stand-in's three-cell solution copied
+            assert init["kind"] == "copied"
+        else:  # the solver's mapping utility cannot map a stand-in's fake mesh: a cold start, said so
+            assert init["kind"] == "uniform" and "could not be made" in init["why"]
+    roots = [c for c in recs if c not in plan.source]
+    for r in roots:
+        assert recs[r].initial_field["kind"] == "uniform" and "root of the run plan" in recs[r].initial_field["why"]
+
+
+def test_a_copied_warm_start_scales_the_fields_by_the_speed_ratio(tmp_path):
+    from caseprep.run import fields
+
+    root = economy_sweep(tmp_path / "s", {"a30": (0.02, 30.0, None), "b40": (0.02, 40.0, "a30")}, warm="nearest")
+    recs = {r.case_id: r for r in runner.run_sweep(root, jobs=1, ranks=1)}
+    init = recs["b40"].initial_field
+    assert init["kind"] == "copied" and init["source"] == "a30" and init["source_time"] == "5"
+    b = root / "cases" / "b40"
+    r = 40.0 / 30.0  # dynamic similarity: U ∝ V, p ∝ V² (module docstring of caseprep.run.fields)
+    assert fields.read_internal(b / "0/U") == pytest.approx(r * __import__("numpy").array(SOLVED_U))
+    assert list(fields.read_internal(b / "0/p")) == pytest.approx([r * r * v for v in SOLVED_P])
+    assert "value uniform (40 0 0);" in (b / "0/U").read_text()  # its own inlet condition kept
+    # a cold rerun restores the uniform field it was written with
+    (rec,) = runner.run_sweep(root, only=["b40"], force=True, options=runner.RunOptions(cold=True))
+    assert rec.initial_field == {"kind": "uniform", "source": None, "distance": None, "speed_ratio": None}
+    assert fields.read_internal(b / "0/U") == (40.0, 0.0, 0.0)
+
+
+def test_a_flagged_source_is_never_used(tmp_path):
+    root = economy_sweep(tmp_path / "s", {"a30": (0.02, 30.0, None), "b40": (0.02, 40.0, "a30")}, warm="nearest")
+    stand_in(root, "a30", solver="simpleFoam_endtime.log")  # used its budget, monitor missing: not-converged
+    recs = {r.case_id: r for r in runner.run_sweep(root, jobs=1, ranks=1)}
+    assert "not-converged" in recs["a30"].flags
+    init = recs["b40"].initial_field
+    assert init["kind"] == "uniform" and init["source"] == "a30"
+    assert "flagged not-converged" in init["why"] and "cold start" in init["why"]
+
+
+def test_a_source_without_its_mesh_gives_a_cold_start(tmp_path):
+    import shutil
+
+    root = economy_sweep(tmp_path / "s", {"a": (0.02, 30.0, None), "b": (0.025, 30.0, None)}, warm="nearest")
+    runner.run_sweep(root, only=["a"], jobs=1, ranks=1)
+    shutil.rmtree(root / "cases" / "a" / "constant" / "polyMesh")
+    (rec,) = runner.run_sweep(root, only=["b"], jobs=1, ranks=1)
+    assert rec.initial_field["kind"] == "uniform" and rec.initial_field["source"] == "a"
+    assert "has no mesh" in rec.initial_field["why"]
+
+
+def test_a_forced_warm_start_across_variants_is_refused(tmp_path):
+    from caseprep.contract.errors import UserError
+
+    root = economy_sweep(tmp_path / "s", {"a": (0.02, 30.0, None), "b": (0.02, 30.0, None)},
+                         variant={"a": "flat", "b": "ramp"})
+    with pytest.raises(UserError) as exc:
+        runner.run_sweep(root, only=["b"], options=runner.RunOptions(warm_from="a"))
+    msg = str(exc.value)
+    assert "same variant" in msg and "variant ramp" in msg and "variant flat" in msg and "--warm-from" in msg
+    assert not (root / "cases" / "b" / "logs").exists()  # refused before anything ran
+
+
+def test_cli_warm_from_same_variant_and_cold_flag(tmp_path):
+    from click.testing import CliRunner
+
+    from caseprep.cli import main
+
+    root = economy_sweep(tmp_path / "s", {"a": (0.02, 30.0, None), "b": (0.025, 30.0, None)})
+    r = CliRunner().invoke(main, ["run", str(root), "--only", "a", "-j", "1", "--ranks", "1", "--skip-solver-check"])
+    assert r.exit_code == 0, r.output
+    assert "per converged point" in r.output
+    r = CliRunner().invoke(main, ["run", str(root), "--only", "b", "--warm-from", "a", "-j", "1", "--ranks", "1",
+                                  "--skip-solver-check"])
+    assert r.exit_code == 0, r.output
+    init = json.loads((root / "cases" / "b" / "underfloor-run.json").read_text())["initial_field"]
+    # another mesh: mapped by the solver's utility, which cannot map the stand-in's fake mesh (cold, said so)
+    assert init["source"] == "a" and init["kind"] == "uniform" and "could not be made" in init["why"]
+    r = CliRunner().invoke(main, ["run", str(root), "--cold", "--warm-from", "a", "--skip-solver-check"])
+    assert r.exit_code == 2 and "either --cold or --warm-from" in r.output

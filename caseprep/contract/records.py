@@ -164,6 +164,10 @@ class CaseRunRecord:
     a figure (this run's and those done before); ``tool_times`` per tool whose
     log prints them, its last ``execution`` (CPU) and ``clock`` time (s; for
     a parallel solver the master rank's).
+    ``faces_in_error``: the mesher's final list of faces failing its strict
+    quality criteria (criterion → count; see
+    :meth:`caseprep.run.solverlogs.SnappyLog.faces_failing_the_solve` for
+    which of them flag the case).
     ``numerics``: what the mesh stage chose from the mesh's quality
     (``non_orthogonal_correctors``, ``momentum_relaxation``; from
     ``system/meshNumerics``), None before meshing.
@@ -193,6 +197,7 @@ class CaseRunRecord:
     failed_checks: int | None = None
     max_non_orthogonality: float | None = None
     max_skewness: float | None = None
+    faces_in_error: dict[str, int] = field(default_factory=dict)
     numerics: dict[str, Any] | None = None
     layer_coverage: float | None = None
     layers: tuple[dict[str, Any], ...] = ()
@@ -299,6 +304,8 @@ def check_run_record_dict(d: object, source: str) -> None:
     for tool, t in expect_dict(d.get("tool_times") or {}, file=source, key="tool_times", fix=_FIX).items():
         for k, v in expect_dict(t, file=source, key=f"tool_times.{tool}", fix=_FIX).items():
             expect_number(v, file=source, key=f"tool_times.{tool}.{k}", fix=_FIX, none_ok=True)
+    for k, v in expect_dict(d.get("faces_in_error") or {}, file=source, key="faces_in_error", fix=_FIX).items():
+        expect_int(v, file=source, key=f"faces_in_error.{k}", fix=_FIX, lo=0, hi=10**13)
 
 
 def load_case_record(case_dir: str | os.PathLike) -> CaseRunRecord | None:

@@ -312,3 +312,72 @@ def test_cli_warm_from_same_variant_and_cold_flag(tmp_path):
     assert init["source"] == "a" and init["kind"] == "uniform" and "could not be made" in init["why"]
     r = CliRunner().invoke(main, ["run", str(root), "--cold", "--warm-from", "a", "--skip-solver-check"])
     assert r.exit_code == 2 and "either --cold or --warm-from" in r.output
+
+
+REPLAY = r'''
+import pathlib, re, sys, time
+log = pathlib.Path(sys.argv[1]).read_text()
+head, *blocks = re.split(r"(?m)^(?=Time = )", log)
+rows = pathlib.Path(sys.argv[2]).read_text().splitlines(keepends=True)
+hdr = [r for r in rows if r.startswith("#")]
+rows = [r for r in rows if not r.startswith("#")]
+out = open("logs/simpleFoam.log", "w"); out.write(head)
+mon = pathlib.Path("postProcessing/uf_forces/0"); mon.mkdir(parents=True, exist_ok=True)
+f = open(mon / "force.dat", "w"); f.write("".join(hdr))
+for i, b in enumerate(blocks):
+    if pathlib.Path("logs/settled.stop").exists():  # as the solver's abort watch does: write and end
+        out.write("End\n"); break
+    out.write(b); out.flush()
+    if i < len(rows):
+        f.write(rows[i]); f.flush()
+    time.sleep(float(sys.argv[3]))
+'''
+
+
+def test_the_settled_stop_rule_stops_a_settled_solve_early(tmp_path):
+    """A replay of a real smoke run (tests/data/smoke_run: its whole budget of 150 iterations) as a
+    growing log and force monitor; with the stop rule ``settled`` the runner asks it
+    to stop as soon as the convergence rule counts it converged with the monitor settled."""
+    from caseprep.contract.convergence import DEFAULT_OPTIONS
+
+    root = economy_sweep(tmp_path / "s", {"a": (0.02, 30.0, None), "b": (0.02, 30.0, None)})
+    m = json.loads((root / "manifest.json").read_text())
+    m["cases"][0]["stop_rule"] = "settled"  # a: settled; b: budget
+    (root / "manifest.json").write_text(json.dumps(m))
+    data = Path(__file__).parent / "data" / "smoke_run"
+    for cid in ("a", "b"):
+        case = root / "cases" / cid
+        (case / "replay.py").write_text(REPLAY)
+        text = (case / "run.sh").read_text().replace(
+            'cp "$FIX/simpleFoam_converged.log" logs/simpleFoam.log',
+            f'"{sys.executable}" replay.py "{data / "simpleFoam.log"}" "{data / "force.dat"}" 0.03')
+        (case / "run.sh").write_text(text)
+    recs = {r.case_id: r for r in runner.run_sweep(root, jobs=2, ranks=1,
+                                                    options=runner.RunOptions(settle_check=0.1))}
+    a, b = recs["a"], recs["b"]
+    assert b.iterations == 150 and b.end_reason == "end-time" and b.settled_stop is None  # its whole budget
+    assert a.settled_stop is not None and a.status == "ok" and not a.flags
+    at = a.settled_stop["at_iteration"]
+    assert DEFAULT_OPTIONS.stop_min_iterations <= at < 150 and "settled at iteration" in a.settled_stop["reason"]
+    # it ended within a few iterations of the request (0.1 s checks, 0.03 s per iteration)
+    assert at <= a.iterations <= at + 8 and a.end_reason == "end-time"
+    assert "settled" in runner.summary_row(a)["end"]
+
+
+def test_judge_stop_rule():
+    from caseprep.contract.convergence import DEFAULT_OPTIONS, judge_stop
+
+    res = {"p": tuple([0.5] * 5 + [1e-4] * 95)}
+    settled = {"verdict": "converged", "window": 30, "max_drift": 0.001, "max_rel_std": 0.001}
+    moving = dict(settled, verdict="oscillating")
+    assert judge_stop(res, {"p": 1e-4}, settled, 100)[0] is True
+    assert judge_stop(res, {"p": 1e-4}, settled, DEFAULT_OPTIONS.stop_min_iterations - 1)[0] is False
+    # residuals below the tolerance do not stop a run whose loads still move
+    ok, why = judge_stop(res, {"p": 1e-4}, moving, 100)
+    assert ok is False and "not settled" in why
+    # settled by the rule's 1 % but not within the stop's margin (half of it)
+    ok, why = judge_stop(res, {"p": 1e-4}, dict(settled, max_drift=0.008), 100)
+    assert ok is False and "not yet within 0.5 %" in why
+    # residuals above the tolerance that fell too little
+    ok, why = judge_stop({"p": tuple([0.01] * 100)}, {"p": 5e-3}, settled, 100)
+    assert ok is False and "orders of magnitude" in why

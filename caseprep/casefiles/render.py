@@ -63,6 +63,10 @@ GEOMETRY_DIR = "geometry"
 SOLVER_INFO_NAME = "uf_residuals"
 WALL_SHEAR_NAME = "uf_wall_shear"
 YPLUS_NAME = "uf_yplus"
+STOP_NAME = "uf_settled_stop"
+#: The file whose appearance stops a solve with the stop rule ``settled``
+#: (written by the runner; the solver writes its fields and ends).
+STOP_FILE = "logs/settled.stop"
 OUTPUTS = {
     "forces": f"postProcessing/{FORCES_NAME}/0/force.dat",
     "moments": f"postProcessing/{FORCES_NAME}/0/moment.dat",
@@ -601,7 +605,9 @@ def context(spec: CaseSpec) -> dict[str, Any]:
         "residual_u": foamdict.fmt_scalar(RESIDUAL_TARGETS["U"]),
         "residual_turb": foamdict.fmt_scalar(RESIDUAL_TARGETS["turbulence"]),
         "names": {"forces": FORCES_NAME, "residuals": SOLVER_INFO_NAME,
-                  "wall_shear": WALL_SHEAR_NAME, "yplus": YPLUS_NAME},
+                  "wall_shear": WALL_SHEAR_NAME, "yplus": YPLUS_NAME, "stop": STOP_NAME},
+        "stop_settled": spec.solver.stop_rule == "settled",
+        "stop_file": STOP_FILE,
         "geometry_link_dir": GEOMETRY_FROM_TRISURFACE,
         "zones": zones,
         "zone_level": m.surface_levels[1],

@@ -310,6 +310,11 @@ KEYS: dict[str, Key] = {
                                   "nearest solved case of the same variant and mesh level (README \"Warm starts\")",
                              "off", choices=("off", "nearest"),
                              source="measured: README \"Warm starts and mesh reuse (measured)\""),
+    "solver.stop_rule": Key("—", "when a solve ends: budget = at solver.iterations (or the solver's residual "
+                                 "criterion); settled = also as soon as the convergence rule counts it converged "
+                                 "with the force monitor settled (at least 40 iterations)", "budget",
+                            choices=("budget", "settled"),
+                            source="measured: README \"Warm starts and mesh reuse (measured)\""),
     "cluster.partition": Key("—", "batch partition (queue) of every job; empty: the cluster's default", "",
                              pattern=_BATCH_NAME),
     "cluster.account": Key("—", "account the jobs are charged to; empty: the user's default", "", pattern=_BATCH_NAME),

@@ -169,6 +169,7 @@ class SolverCfg(_M):
     turbulence_intensity: float = default("solver.turbulence_intensity")
     turbulence_length_scale: float | None = None
     warm_start: Literal[choices("solver.warm_start")] = default("solver.warm_start")
+    stop_rule: Literal[choices("solver.stop_rule")] = default("solver.stop_rule")
 
 
 class ClusterCfg(_M):

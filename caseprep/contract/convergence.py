@@ -100,6 +100,8 @@ class ConvergenceOptions:
     settle_tol: float = 0.01                  # drift and relative std tolerance
     settle_floor: float = 1.0                 # floor of a component's scale, × the resultant force
     trend_r2: float = 0.5                     # R² above which a drift is a trend (diverging)
+    stop_min_iterations: int = 40             # earliest iteration a run may stop as settled (two smallest windows)
+    stop_margin: float = 0.5                  # a stop needs drift and std within this share of settle_tol
     # the rule in coefficient counts (absolute, each coefficient in its own units; see judge_coefficients)
     count_tol_lift: float = 0.005             # C_L, C_LF, C_LR
     count_tol_drag_side: float = 0.002        # C_D, C_S, C_N
@@ -306,6 +308,36 @@ def judge_convergence(residuals: Mapping[str, Sequence[float]], final: Mapping[s
     return True, (f"force monitor settled over the last {settling.get('window')} iterations "
                   f"(drift {100 * settling['max_drift']:.2g} %, std {100 * settling['max_rel_std']:.2g} %) and "
                   f"residuals fell ≥ {options.min_residual_drop:g} orders (worst {worst})"), drop
+
+
+def judge_stop(residuals: Mapping[str, Sequence[float]], final: Mapping[str, float],
+               settling: Mapping[str, Any] | None, iterations: int,
+               options: ConvergenceOptions = DEFAULT_OPTIONS) -> tuple[bool, str]:
+    """Whether a run still iterating may stop now (the stop rule
+    ``settled``): at least ``options.stop_min_iterations`` iterations, the
+    run counts as converged by :func:`judge_convergence` as if its budget
+    ended here, **and** its force monitor has settled over its window
+    (verdict ``converged``, also when every residual is already below the
+    tolerance: small residuals alone do not show that the loads stopped
+    moving) with its drift and standard deviation within
+    ``options.stop_margin`` × ``settle_tol``, so that the judgement of the
+    finished run, a few iterations later and over a slightly longer window,
+    still finds it settled. Returns (stop, reason). Pure function;
+    thresholds common practice, no source."""
+    if iterations < options.stop_min_iterations:
+        return False, f"{iterations} iterations, fewer than {options.stop_min_iterations}"
+    ok, why, _ = judge_convergence(residuals, final, settling, options)
+    if not ok:
+        return False, why
+    if settling is None or settling.get("verdict") != "converged":
+        return False, "the force monitor has not settled"
+    margin = options.stop_margin * options.settle_tol
+    drift, std = settling.get("max_drift", math.inf), settling.get("max_rel_std", math.inf)
+    if not (drift <= margin and std <= margin):
+        return False, (f"the force monitor is settled but not yet within {100 * margin:g} % "
+                       f"(drift {100 * drift:.2g} %, std {100 * std:.2g} %)")
+    return True, (f"settled at iteration {iterations}: force monitor within {100 * margin:g} % over the "
+                  f"last {settling.get('window')} iterations; {why}")
 
 
 # --------------------------------------------------------------------------- the rule in coefficient counts

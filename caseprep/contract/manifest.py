@@ -52,7 +52,8 @@ CaseRecord::
       "outputs": {"forces": "postProcessing/uf_forces/0/force.dat", …}, # where the run's outputs land
       "mesh_key": "sha256:…" | null,          # of the mesh dictionaries and surfaces; null: never shared
       "mesh_owner": "flat-ab12cd34" | null,   # the case whose mesh this case uses (itself: it meshes)
-      "warm_start": "off"                     # or "nearest": start from the nearest solved case
+      "warm_start": "off",                    # or "nearest": start from the nearest solved case
+      "stop_rule": "budget"                   # or "settled": stop once converged with the loads settled
     }
 
 Every key a record carries is declared here: the fields of
@@ -83,6 +84,10 @@ SCHEMA = "underfloor-manifest"
 #: written with the case; ``nearest`` the converged fields of the nearest
 #: solved case of the same variant and mesh level (caseprep.run.economy).
 WARM_STARTS: tuple[str, ...] = ("off", "nearest")
+#: When a solve ends: ``budget`` at the iteration budget (or the solver's own
+#: residual criterion); ``settled`` also as soon as the convergence rule counts
+#: the run converged with its force monitor settled (caseprep.contract.convergence.judge_stop).
+STOP_RULES: tuple[str, ...] = ("budget", "settled")
 SCHEMA_VERSION = 1
 MANIFEST_NAME = "manifest.json"
 
@@ -160,7 +165,8 @@ class CaseRecord:
     never shares. ``mesh_owner``: the case that meshes for every case with
     the same key (the first in the manifest; its own id when it meshes
     itself; None: it meshes itself). ``warm_start``: the initial field the
-    runner prepares (:data:`WARM_STARTS`)."""
+    runner prepares (:data:`WARM_STARTS`); ``stop_rule`` when the solve
+    ends (:data:`STOP_RULES`)."""
 
     case_id: str
     folder: str
@@ -186,6 +192,7 @@ class CaseRecord:
     mesh_key: str | None = None
     mesh_owner: str | None = None
     warm_start: str = "off"
+    stop_rule: str = "budget"
 
     @property
     def shares_mesh(self) -> bool:
@@ -226,7 +233,7 @@ class CaseRecord:
         d.update((k, v) for k, v in self.info.items() if k in INFO_FIELDS)
         d.update(turbulence_model=self.turbulence_model, target_yplus=self.target_yplus, wall_treatment=self.wall_treatment,
                  fluid_volume=self.fluid_volume, outputs=dict(self.outputs), mesh_key=self.mesh_key,
-                 mesh_owner=self.mesh_owner, warm_start=self.warm_start)
+                 mesh_owner=self.mesh_owner, warm_start=self.warm_start, stop_rule=self.stop_rule)
         return d
 
     @classmethod
@@ -273,6 +280,7 @@ class CaseRecord:
                 mesh_key=None if d.get("mesh_key") is None else str(d["mesh_key"]),
                 mesh_owner=None if d.get("mesh_owner") is None else str(d["mesh_owner"]),
                 warm_start=str(d.get("warm_start") or "off"),
+                stop_rule=str(d.get("stop_rule") or "budget"),
             )
         except KeyError as exc:
             raise UserError(
@@ -400,6 +408,9 @@ def check_record_dict(d: object, source: str = MANIFEST_NAME, index: int | None 
     if d.get("warm_start") is not None and d["warm_start"] not in WARM_STARTS:
         raise UserError(expected="one of " + ", ".join(WARM_STARTS), got=d["warm_start"], file=source,
                         key=f"{where}.warm_start", fix=_FIX)
+    if d.get("stop_rule") is not None and d["stop_rule"] not in STOP_RULES:
+        raise UserError(expected="one of " + ", ".join(STOP_RULES), got=d["stop_rule"], file=source,
+                        key=f"{where}.stop_rule", fix=_FIX)
     for k, v in expect_dict(d.get("outputs") or {}, file=source, key=f"{where}.outputs", fix=_FIX).items():
         relative_parts(v, file=source, key=f"{where}.outputs.{k}", what="an output path")
     rot = frames.get("rotation_body_to_ground")

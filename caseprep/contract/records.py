@@ -159,7 +159,10 @@ class CaseRunRecord:
     mesh, or ``{"owner", "shared": false, "why"}`` when it meshed itself
     instead. ``initial_field``: where the solve started from
     (``{"kind": "uniform" | "copied" | "mapped", "source", "distance",
-    "speed_ratio", "why"}``, see :mod:`caseprep.run.fields`).
+    "speed_ratio", "why"}``, see :mod:`caseprep.run.fields`). ``settled_stop``:
+    with the stop rule ``settled``, the iteration at which the runner asked
+    the solver to stop and why (``{"at_iteration", "reason"}``), None when
+    the solve ran to its end.
     ``core_seconds`` and ``cpu_seconds``: the sums over the stages that have
     a figure (this run's and those done before); ``tool_times`` per tool whose
     log prints them, its last ``execution`` (CPU) and ``clock`` time (s; for
@@ -216,6 +219,7 @@ class CaseRunRecord:
     pid: int | None = None
     mesh_source: dict[str, Any] | None = None
     initial_field: dict[str, Any] | None = None
+    settled_stop: dict[str, Any] | None = None
 
     @property
     def failed(self) -> bool:
@@ -298,7 +302,7 @@ def check_run_record_dict(d: object, source: str) -> None:
         expect_str(f, file=source, key=f"flags[{i}]", fix=_FIX, max_len=64)
     if d.get("force_settling") is not None:
         expect_dict(d["force_settling"], file=source, key="force_settling", fix=_FIX)
-    for k in ("mesh_source", "initial_field"):
+    for k in ("mesh_source", "initial_field", "settled_stop"):
         if d.get(k) is not None:
             expect_dict(d[k], file=source, key=k, fix=_FIX)
     for tool, t in expect_dict(d.get("tool_times") or {}, file=source, key="tool_times", fix=_FIX).items():

@@ -391,7 +391,7 @@ def _solver(cfg: Config, domain, preset_iterations: int) -> SolverSpec:
     split = decomposition_split(cfg.solver.ranks, corners.max(axis=0) - corners.min(axis=0))
     return SolverSpec(n_iterations=int(iters), write_interval=int(cfg.solver.write_interval or iters),
                       n_procs=int(cfg.solver.ranks), split=split, mesh_reuse=cfg.mesh.reuse,
-                      warm_start=cfg.solver.warm_start)
+                      warm_start=cfg.solver.warm_start, stop_rule=cfg.solver.stop_rule)
 
 
 def _place(cfg: Config, pt: SweepPoint, g: BodyGeometry, cache: _RotationCache):

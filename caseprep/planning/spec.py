@@ -195,9 +195,10 @@ class SolverSpec:
     """Solver controls: iteration budget, output interval, parallel ranks,
     the decomposition split (product = n_procs) and relaxation (the momentum
     relaxation and the non-orthogonal correctors follow the mesh: see
-    :data:`caseprep.casefiles.render.MESH_NUMERICS`). ``mesh_reuse`` and
-    ``warm_start``: the run economy (config ``mesh.reuse``,
-    ``solver.warm_start``), carried into the manifest for the runner."""
+    :data:`caseprep.casefiles.render.MESH_NUMERICS`). ``mesh_reuse``,
+    ``warm_start`` and ``stop_rule``: the run economy (config ``mesh.reuse``,
+    ``solver.warm_start``, ``solver.stop_rule``), carried into the manifest
+    for the runner."""
 
     n_iterations: int
     write_interval: int
@@ -209,6 +210,7 @@ class SolverSpec:
     monitor_interval: int = 1
     mesh_reuse: str = "identical"
     warm_start: str = "off"
+    stop_rule: str = "budget"
 
 
 @dataclass(frozen=True)
@@ -270,4 +272,5 @@ class CaseSpec:
             fluid_volume=self.extra.get("fluid_volume"),
             info={k: v for k, v in self.extra.items() if k in INFO_FIELDS},
             warm_start=self.solver.warm_start,
+            stop_rule=self.solver.stop_rule,
         )

@@ -59,7 +59,8 @@ from caseprep.run import warmstart
 from caseprep.run.economy import RunPlan, case_distance, group_key, plan_run
 from caseprep.contract.atomicio import open_folder, write_json_atomic
 from caseprep.contract.cost import cost_lines, cost_summary, stage_core_seconds
-from caseprep.contract.convergence import DEFAULT_OPTIONS, ConvergenceOptions, force_settling, judge_convergence
+from caseprep.contract.convergence import (DEFAULT_OPTIONS, ConvergenceOptions, force_settling, judge_convergence,
+                                           judge_stop)
 from caseprep.contract.errors import UserError, did_you_mean
 from caseprep.contract.limits import MAX_RANKS
 from caseprep.contract.locking import refuse_interrupted, sweep_lock
@@ -70,6 +71,8 @@ from caseprep.contract.records import (RECORD_NAME, RUN_FLAGS, SUMMARY_NAME, SUM
                                        StageRun, Status, effective_status, read_case_record)
 
 STAGES: tuple[str, ...] = ("mesh", "solve", "export")
+#: The stop file of the stop rule ``settled`` (the case's controlDict watches it; see casefiles.render.STOP_FILE).
+STOP_FILE = "logs/settled.stop"
 STAGE_TOOLS: dict[str, tuple[str, ...]] = {
     "mesh": ("blockMesh", "surfaceFeatureExtract", "snappyHexMesh", "checkMesh"),
     "solve": ("decomposePar", "simpleFoam", "reconstructPar"),
@@ -154,6 +157,8 @@ class RunOptions:
     ``cold``: every case starts from the uniform free stream, whatever the
     manifest asks; ``warm_from``: every selected case starts from this
     case's solution (same variant, mesh level, yaw mode and ground only).
+    ``settle_check``: seconds between two looks at a running solve whose
+    case has the stop rule ``settled`` (:func:`caseprep.contract.convergence.judge_stop`).
     """
 
     convergence: ConvergenceOptions = DEFAULT_OPTIONS
@@ -164,6 +169,7 @@ class RunOptions:
     kill_grace: float = 10.0
     cold: bool = False
     warm_from: str | None = None
+    settle_check: float = 5.0
 
 
 @dataclass(frozen=True)
@@ -330,6 +336,8 @@ class _Job:
         self.deps: list[tuple[str, str]] = []  # (case, stage) of this run that must end before this case starts
         self.mesh_source: dict[str, Any] | None = None
         self.initial_field: dict[str, Any] | None = None
+        self.stop: dict[str, Any] | None = None  # the settled stop requested (iteration, reason)
+        self.last_settle_check = 0.0
 
 
 def _plan(case_dir: Path, stages: Sequence[str], force: bool) -> tuple[list[str], dict[str, str], str | None]:
@@ -570,6 +578,10 @@ class _Run:
                         continue
                     rc = _poll(job)
                     if rc is None:
+                        if (job.stage == "solve" and job.rec.stop_rule == "settled" and job.stop is None
+                                and now - job.last_settle_check >= self.options.settle_check):
+                            job.last_settle_check = now
+                            _check_settled(job, self.options)
                         if now - job.last_beat >= self.options.heartbeat:
                             job.last_beat = now
                             self.emit(Progress(job.rec.case_id, job.index, self.total, "running", job.stage,
@@ -640,8 +652,10 @@ class _Run:
             flags = summarize_logs(sdir, ["mesh", "solve"], self.options)["flags"] if solved else ()
             choice = warmstart.choose(job.rec, src, sdir, job.distance, flags, solved)
         job.initial_field = choice.to_record()
-        with contextlib.suppress(FileNotFoundError):
-            (job.dir / "logs" / initial_fields.RESULT_NAME).unlink()
+        job.stop = None
+        for stale in (initial_fields.RESULT_NAME, Path(STOP_FILE).name):
+            with contextlib.suppress(FileNotFoundError):
+                (job.dir / "logs" / stale).unlink()
         return choice.command(job.dir)
 
     def share_mesh(self, job: _Job) -> bool:
@@ -805,6 +819,23 @@ def _start_stage(job: _Job, env: dict[str, str], emit, total: int, prelude: list
     emit(Progress(job.rec.case_id, job.index, total, "stage-start", stage, job.stage_t0 - job.t0))
 
 
+def _check_settled(job: _Job, options: RunOptions) -> None:
+    """The stop rule ``settled``: when the running solve counts as converged
+    with its force monitor settled (:func:`caseprep.contract.convergence.judge_stop`),
+    create the stop file the solver watches; it then writes its fields and ends."""
+    text = _read(job.dir / "logs" / "simpleFoam.log")
+    if not text:
+        return
+    log = sl.parse_solver(text)
+    if log.end_reason != "incomplete":
+        return  # it is ending by itself
+    settling = force_settling(job.dir, options.convergence)
+    stop, why = judge_stop(log.residuals, log.final_residuals, settling, log.iterations, options.convergence)
+    if stop:
+        (job.dir / STOP_FILE).touch()
+        job.stop = {"at_iteration": log.iterations, "reason": why}
+
+
 def _read_initial_result(job: _Job) -> None:
     """What the initial-field preparation did (logs/initialField.json),
     into ``job.initial_field``: a warm start that fell back says why."""
@@ -954,6 +985,7 @@ def _finish_record(job: _Job, status: str, message: str, ranks: int, options: Ru
         started_utc=job.started_utc, finished_utc=_utc(),
         flags=tuple(dict.fromkeys(flags)), failed_tool=failed_tool, log_tail=log_tail,
         mesh_source=job.mesh_source if job.mesh_source is not None else _previous(job, "mesh_source", "mesh"),
+        settled_stop=job.stop if job.stop is not None else _previous(job, "settled_stop", "solve"),
         initial_field=job.initial_field if job.initial_field is not None else _previous(job, "initial_field", "solve"),
         **info,
     )
@@ -1035,7 +1067,7 @@ def summary_row(rec: CaseRunRecord) -> dict[str, str]:
         "check": mesh,
         "layers": layers,
         "iter": "-" if rec.iterations is None else str(rec.iterations),
-        "end": rec.end_reason or "-",
+        "end": ("settled" if rec.settled_stop and rec.end_reason == "end-time" else rec.end_reason) or "-",
         "max resid": "-" if worst is None else f"{worst:.1e}",
         "mesh t": format_duration(rec.stage_time("mesh")),
         "solve t": format_duration(rec.stage_time("solve")),

@@ -6,12 +6,15 @@ differences between the two.
 
 The sweep (DEMO floor study, ``smoke`` fidelity): the chosen variants × front
 ride height 20/25/30 mm (rake 0.6°) × speed 30/40 m/s at yaw 0 — a speed axis
-and three ride heights per variant. It is written twice from the same config,
-once with ``mesh.reuse = "off"`` and ``solver.warm_start = "off"`` (every case
-meshes and starts from the uniform free stream) and once with
-``mesh.reuse = "identical"`` and ``solver.warm_start = "nearest"``; both run
-with ``caseprep run -j 1 --ranks 1`` (one solver process at a time), the
-cold sweep first. Core-seconds and converged points come from each sweep's
+and three ride heights per variant. It is written three times from the same config:
+``cold`` (``mesh.reuse = "off"``, ``solver.warm_start = "off"``,
+``solver.stop_rule = "budget"``: every case meshes, starts from the uniform
+free stream and runs its iteration budget unless the solver's residual
+criterion ends it), ``reuse+settled`` (shared meshes, cold starts, the stop
+rule ``settled``) and ``economy`` (shared meshes, warm starts from the nearest
+solved case, the stop rule ``settled``); each runs with ``caseprep run -j 1
+--ranks 1`` (one solver process at a time), in that order. The middle
+condition separates what the warm starts add. Core-seconds and converged points come from each sweep's
 ``run_summary.json`` (the runner's own accounting); the coefficients from
 ``postproc sweep`` (window means of the force monitor), paired by case id
 (the same point has the same id in both sweeps).
@@ -42,9 +45,10 @@ BIN = Path(sys.executable).parent
 
 from caseprep.contract.convergence import DEFAULT_OPTIONS  # noqa: E402
 
-CONDITIONS = {
-    "cold": ('reuse = "off"', 'warm_start = "off"'),
-    "economy": ('reuse = "identical"', 'warm_start = "nearest"'),
+CONDITIONS = {  # name: (mesh switches, solver switches)
+    "cold": ('reuse = "off"', 'warm_start = "off"\nstop_rule = "budget"'),
+    "reuse+settled": ('reuse = "identical"', 'warm_start = "off"\nstop_rule = "settled"'),
+    "economy": ('reuse = "identical"', 'warm_start = "nearest"\nstop_rule = "settled"'),
 }
 
 
@@ -126,19 +130,38 @@ def main(argv=None) -> int:
               f"{t['converged_points']}/{t['cases']} converged; {r['uptime_before']}", flush=True)
         coeffs[cond] = coefficients(sweep)
     print()
-    cold, eco = (results["runs"][c]["cost"]["total"] for c in CONDITIONS)
-    pc, pe = cold["core_seconds_per_converged_point"], eco["core_seconds_per_converged_point"]
-    saving = None if not pc or not pe else 1.0 - pe / pc
-    results["saving_per_converged_point"] = saving
-    print("| condition | cases | converged | mesh core-s | solve core-s | core-s | CPU s | core-s per converged point |")
-    print("|---|---|---|---|---|---|---|---|")
+    tot = {c: results["runs"][c]["cost"]["total"] for c in CONDITIONS}
+
+    def per_point(t, key):
+        return t[key] / t["converged_points"] if t["converged_points"] else None
+
+    savings = {}
+    for c in list(CONDITIONS)[1:]:
+        for key in ("core_seconds", "cpu_seconds"):
+            a, b = per_point(tot["cold"], key), per_point(tot[c], key)
+            savings[f"{c} {key}"] = None if not a or not b else 1.0 - b / a
+    a, b = per_point(tot["reuse+settled"], "cpu_seconds"), per_point(tot["economy"], "cpu_seconds")
+    savings["warm starts alone, cpu_seconds"] = None if not a or not b else 1.0 - b / a
+    results["savings_per_converged_point"] = savings
+    saving = savings.get("economy core_seconds")
+    print("| condition | cases | converged | iterations | mesh core-s | solve core-s | core-s | CPU s "
+          "| core-s per converged point | CPU s per converged point |")
+    print("|---|---|---|---|---|---|---|---|---|---|")
     for cond in CONDITIONS:
-        t = results["runs"][cond]["cost"]["total"]
+        t = tot[cond]
         st = t["core_seconds_by_stage"]
-        print(f"| {cond} | {t['cases']} | {t['converged_points']} | {st.get('mesh', 0):.0f} | {st.get('solve', 0):.0f} "
-              f"| {t['core_seconds']:.0f} | {t['cpu_seconds']:.0f} | {t['core_seconds_per_converged_point']} |")
+        its = sum(c.get("iterations") or 0 for c in results["runs"][cond]["cases"].values())
+        cpp = per_point(t, "cpu_seconds")
+        print(f"| {cond} | {t['cases']} | {t['converged_points']} | {its} | {st.get('mesh', 0):.0f} "
+              f"| {st.get('solve', 0):.0f} | {t['core_seconds']:.0f} | {t['cpu_seconds']:.0f} "
+              f"| {t['core_seconds_per_converged_point']:.1f} | {'-' if cpp is None else f'{cpp:.1f}'} |")
+    print()
+    for k, v in savings.items():
+        print(f"{k}: {'-' if v is None else f'{100 * v:.1f} %'} fewer per converged point than cold"
+              if not k.startswith("warm") else f"{k}: {'-' if v is None else f'{100 * v:.1f} %'} fewer per "
+              "converged point than reuse+settled")
     if saving is not None:
-        print(f"\neconomy: {100 * saving:.1f} % fewer core-seconds per converged point (target ≥ 40 %)")
+        print(f"economy: {100 * saving:.1f} % fewer core-seconds per converged point (target ≥ 40 %)")
     tol_l, tol_d = DEFAULT_OPTIONS.count_tol_lift, DEFAULT_OPTIONS.count_tol_drag_side
     rows = []
     for cid, (cl0, cd0) in sorted(coeffs["cold"].items()):
@@ -163,8 +186,17 @@ def main(argv=None) -> int:
     worst_d = max((abs(r["dcd"]) for r in finite), default=math.nan)
     results.update(max_abs_dcl=worst_l, max_abs_dcd=worst_d, tol_cl=tol_l, tol_cd=tol_d,
                    within_tolerance=bool(finite) and worst_l <= tol_l and worst_d <= tol_d)
-    print(f"\nlargest |ΔC_L| {worst_l:.4f} (tolerance {tol_l}), largest |ΔC_D| {worst_d:.4f} (tolerance {tol_d}): "
-          f"{'within' if results['within_tolerance'] else 'NOT within'} the convergence rule's tolerance")
+    print(f"\neconomy against cold: largest |ΔC_L| {worst_l:.4f} (tolerance {tol_l}), largest |ΔC_D| {worst_d:.4f} "
+          f"(tolerance {tol_d}): {'within' if results['within_tolerance'] else 'NOT within'} the convergence rule's "
+          "tolerance")
+    mid = [(cl1 - coeffs["cold"][cid][0], cd1 - coeffs["cold"][cid][1])
+           for cid, (cl1, cd1) in coeffs["reuse+settled"].items() if cid in coeffs["cold"]]
+    mid = [(a, b) for a, b in mid if math.isfinite(a) and math.isfinite(b)]
+    if mid:
+        results["reuse_settled_max_abs_dcl"] = max(abs(a) for a, _ in mid)
+        results["reuse_settled_max_abs_dcd"] = max(abs(b) for _, b in mid)
+        print(f"reuse+settled against cold: largest |ΔC_L| {results['reuse_settled_max_abs_dcl']:.4f}, "
+              f"largest |ΔC_D| {results['reuse_settled_max_abs_dcd']:.4f}")
     (work / "bench_economy.json").write_text(json.dumps(results, indent=2))
     print(f"written: {work / 'bench_economy.json'}")
     if not a.out:

@@ -1,6 +1,8 @@
 """The run economy with the real solver (marker ``solver``): the DEMO flat
 floor at the ``smoke`` fidelity, 3 ride heights × 2 speeds at yaw 0, written
-with ``mesh.reuse = "identical"`` and ``solver.warm_start = "nearest"`` and
+with ``mesh.reuse = "identical"``, ``solver.warm_start = "nearest"`` and
+``solver.stop_rule = "settled"`` (a run ends once converged with its loads
+settled: without it most smoke runs use their whole budget warm or cold) and
 run through ``caseprep run -j 1`` (one solver process at a time: the
 ordering under ``-j 2`` is tested with stand-in scripts in
 tests/test_economy_runner.py). About 3–4 CPU-minutes for the sweep (three
@@ -41,7 +43,7 @@ def solved(tmp_path_factory):
             pytest.fail(f"solver programs missing: {missing}")
         pytest.skip(f"solver programs missing: {missing}")
     tmp = tmp_path_factory.mktemp("economy")
-    cfg = demo_config(tmp, extra_solver='warm_start = "nearest"')
+    cfg = demo_config(tmp, extra_solver='warm_start = "nearest"\nstop_rule = "settled"')
     sweep = tmp / "sweep"
     env = dict(os.environ, PATH=f"{BIN}{os.pathsep}{os.environ.get('PATH', '')}")
     subprocess.run([str(BIN / "caseprep"), "write", str(cfg), "-o", str(sweep)], check=True, env=env,

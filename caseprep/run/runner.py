@@ -169,7 +169,7 @@ class RunOptions:
     kill_grace: float = 10.0
     cold: bool = False
     warm_from: str | None = None
-    settle_check: float = 5.0
+    settle_check: float = 1.0
 
 
 @dataclass(frozen=True)

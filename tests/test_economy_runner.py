@@ -381,3 +381,13 @@ def test_judge_stop_rule():
     # residuals above the tolerance that fell too little
     ok, why = judge_stop({"p": tuple([0.01] * 100)}, {"p": 5e-3}, settled, 100)
     assert ok is False and "orders of magnitude" in why
+
+
+def test_a_flagged_case_solved_before_is_not_planned_as_a_source(tmp_path):
+    root = economy_sweep(tmp_path / "s", {"near": (0.021, 30.0, None), "far": (0.03, 30.0, None),
+                                          "new": (0.02, 30.0, None)}, warm="nearest")
+    stand_in(root, "near", solver="simpleFoam_endtime.log")  # ends flagged not-converged
+    runner.run_sweep(root, only=["near"], jobs=1, ranks=1)
+    runner.run_sweep(root, only=["far"], jobs=1, ranks=1)
+    (rec,) = runner.run_sweep(root, only=["new"], jobs=1, ranks=1)
+    assert rec.initial_field["source"] == "far"  # the nearer one is flagged: never a source

@@ -423,6 +423,16 @@ def _run_locked(root: Path, manifest, jobs: int | None, ranks: int | None, stage
     return [records[c.case_id] for c in selected]
 
 
+def _usable_source(case_dir: Path) -> bool:
+    """Whether a case outside this run may be planned as a warm-start
+    source: its solve stage is done and its last record carries no flag
+    that forbids it (:data:`caseprep.run.warmstart.BLOCKING_FLAGS`)."""
+    if not (case_dir / "logs" / "solve.done").is_file():
+        return False
+    rec = read_case_record(case_dir)
+    return rec is not None and not any(f in warmstart.BLOCKING_FLAGS for f in rec.flags)
+
+
 def _forced_source(manifest, selected: Sequence[CaseRecord], source: str) -> None:
     """Refuse ``--warm-from SOURCE`` for a case it cannot start: another
     variant, mesh level, yaw mode or ground, or the case itself."""
@@ -447,8 +457,7 @@ def _apply_plan(manifest, pending: list[_Job], slots: int, options: RunOptions) 
     it waits for (an owner's mesh stage, a source's solve stage)."""
     ids = [j.rec.case_id for j in pending]
     running = set(ids)
-    solved = [c.case_id for c in manifest.cases if c.case_id not in running
-              and (manifest.case_dir(c) / "logs" / "solve.done").is_file()]
+    solved = [c.case_id for c in manifest.cases if c.case_id not in running and _usable_source(manifest.case_dir(c))]
     plan: RunPlan = plan_run(manifest.cases, ids, solved, slots)
     by_id = {j.rec.case_id: j for j in pending}
     for job in pending:

@@ -101,7 +101,8 @@ class ConvergenceOptions:
     settle_floor: float = 1.0                 # floor of a component's scale, × the resultant force
     trend_r2: float = 0.5                     # R² above which a drift is a trend (diverging)
     stop_min_iterations: int = 40             # earliest iteration a run may stop as settled (two smallest windows)
-    stop_margin: float = 0.5                  # a stop needs drift and std within this share of settle_tol
+    stop_margin: float = 0.5                  # a stop needs the loads within this share of count_tol_drag_side
+    stop_window_fraction: float = 0.5         # share of the samples the stop rule looks back over
     # the rule in coefficient counts (absolute, each coefficient in its own units; see judge_coefficients)
     count_tol_lift: float = 0.005             # C_L, C_LF, C_LR
     count_tol_drag_side: float = 0.002        # C_D, C_S, C_N
@@ -310,20 +311,33 @@ def judge_convergence(residuals: Mapping[str, Sequence[float]], final: Mapping[s
                   f"residuals fell ≥ {options.min_residual_drop:g} orders (worst {worst})"), drop
 
 
+def stop_window(n_samples: int, options: ConvergenceOptions = DEFAULT_OPTIONS) -> int:
+    """Samples the stop rule looks back over: ``ceil(stop_window_fraction ×
+    n_samples)``, at least ``stop_min_iterations``, at most ``n_samples`` —
+    longer than the settling window, so that a slow drift shows."""
+    return int(min(n_samples, max(options.stop_min_iterations,
+                                  int(np.ceil(options.stop_window_fraction * n_samples)))))
+
+
 def judge_stop(residuals: Mapping[str, Sequence[float]], final: Mapping[str, float],
-               settling: Mapping[str, Any] | None, iterations: int,
-               options: ConvergenceOptions = DEFAULT_OPTIONS) -> tuple[bool, str]:
-    """Whether a run still iterating may stop now (the stop rule
-    ``settled``): at least ``options.stop_min_iterations`` iterations, the
-    run counts as converged by :func:`judge_convergence` as if its budget
-    ended here, **and** its force monitor has settled over its window
-    (verdict ``converged``, also when every residual is already below the
-    tolerance: small residuals alone do not show that the loads stopped
-    moving) with its drift and standard deviation within
-    ``options.stop_margin`` × ``settle_tol``, so that the judgement of the
-    finished run, a few iterations later and over a slightly longer window,
-    still finds it settled. Returns (stop, reason). Pure function;
-    thresholds common practice, no source."""
+               settling: Mapping[str, Any] | None, forces: Mapping[str, Sequence[float]], force_scale: float,
+               iterations: int, options: ConvergenceOptions = DEFAULT_OPTIONS) -> tuple[bool, str]:
+    """Whether a run still iterating may stop now (the stop rule ``settled``).
+
+    All of: at least ``options.stop_min_iterations`` iterations; the run
+    counts as converged by :func:`judge_convergence` as if its budget ended
+    here, with its force monitor settled (verdict ``converged`` also when
+    every residual is below the tolerance: small residuals alone do not show
+    that the loads stopped moving); and, over the last :func:`stop_window`
+    samples, every total-force component (``forces``: ``force.total_x/y/z``
+    in N, body axes: z ≈ lift, x and y ≈ drag and side force at small pitch)
+    drifted (change of the fitted line across the window) and scattered
+    (standard deviation about that line) less than ``stop_margin`` × its
+    tolerance in coefficient counts (``count_tol_lift`` for z,
+    ``count_tol_drag_side`` for x and y), in coefficient units: divided by
+    ``force_scale`` = q·A (N) — so that what is left of a slow drift stays
+    inside the tolerance of the rule in coefficient counts. Returns (stop, reason). Pure function; thresholds
+    common practice, no source."""
     if iterations < options.stop_min_iterations:
         return False, f"{iterations} iterations, fewer than {options.stop_min_iterations}"
     ok, why, _ = judge_convergence(residuals, final, settling, options)
@@ -331,13 +345,27 @@ def judge_stop(residuals: Mapping[str, Sequence[float]], final: Mapping[str, flo
         return False, why
     if settling is None or settling.get("verdict") != "converged":
         return False, "the force monitor has not settled"
-    margin = options.stop_margin * options.settle_tol
-    drift, std = settling.get("max_drift", math.inf), settling.get("max_rel_std", math.inf)
-    if not (drift <= margin and std <= margin):
-        return False, (f"the force monitor is settled but not yet within {100 * margin:g} % "
-                       f"(drift {100 * drift:.2g} %, std {100 * std:.2g} %)")
-    return True, (f"settled at iteration {iterations}: force monitor within {100 * margin:g} % over the "
-                  f"last {settling.get('window')} iterations; {why}")
+    if not (force_scale > 0 and math.isfinite(force_scale)) or not forces:
+        return False, "no force scale (q·A) or no force monitor to judge the stop by"
+    n = min(len(v) for v in forces.values())
+    if n < options.stop_min_iterations:
+        return False, f"{n} monitor samples, fewer than {options.stop_min_iterations}"
+    w = stop_window(n, options)
+    for name, values in sorted(forces.items()):
+        v = np.asarray(values, dtype=np.float64)[-w:]
+        if not np.isfinite(v).all():
+            return False, f"{name} is not finite"
+        tol = options.stop_margin * (options.count_tol_lift if name.endswith("_z") else options.count_tol_drag_side)
+        x = np.arange(v.size, dtype=np.float64)
+        x -= x.mean()
+        slope = float(np.dot(x, v - v.mean()) / np.dot(x, x))
+        drift = abs(slope) * (v.size - 1) / force_scale
+        scatter = float(np.std(v - v.mean() - slope * x)) / force_scale
+        if drift > tol or scatter > tol:
+            return False, (f"{name} still moves over the last {w} iterations: drift {drift:.4f}, scatter "
+                           f"{scatter:.4f} in coefficient units (stop below {tol:g})")
+    return True, (f"settled at iteration {iterations}: every force component within half its coefficient "
+                  f"tolerance over the last {w} iterations; {why}")
 
 
 # --------------------------------------------------------------------------- the rule in coefficient counts

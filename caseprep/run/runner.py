@@ -65,6 +65,7 @@ from caseprep.contract.errors import UserError, did_you_mean
 from caseprep.contract.limits import MAX_RANKS
 from caseprep.contract.locking import refuse_interrupted, sweep_lock
 from caseprep.contract.manifest import MANIFEST_NAME, CaseRecord, read_manifest
+from caseprep.contract.monitor import FORCES_NAME, read_monitor
 from caseprep.contract.progress import format_duration
 from caseprep.contract.signals import StopSignals, exit_code, signal_name
 from caseprep.contract.records import (RECORD_NAME, RUN_FLAGS, SUMMARY_NAME, SUMMARY_SCHEMA, CaseRunRecord, Flag,
@@ -839,7 +840,14 @@ def _check_settled(job: _Job, options: RunOptions) -> None:
     if log.end_reason != "incomplete":
         return  # it is ending by itself
     settling = force_settling(job.dir, options.convergence)
-    stop, why = judge_stop(log.residuals, log.final_residuals, settling, log.iterations, options.convergence)
+    try:
+        mon = read_monitor(job.dir, FORCES_NAME)
+    except UserError:
+        return
+    forces = {k: v for k, v in mon.items() if k.startswith("force.total_")}
+    ref = job.rec.reference
+    stop, why = judge_stop(log.residuals, log.final_residuals, settling, forces, ref.q * ref.area, log.iterations,
+                           options.convergence)
     if stop:
         (job.dir / STOP_FILE).touch()
         job.stop = {"at_iteration": log.iterations, "reason": why}

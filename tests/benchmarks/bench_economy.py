@@ -138,10 +138,10 @@ def main(argv=None) -> int:
     savings = {}
     for c in list(CONDITIONS)[1:]:
         for key in ("core_seconds", "cpu_seconds"):
-            a, b = per_point(tot["cold"], key), per_point(tot[c], key)
-            savings[f"{c} {key}"] = None if not a or not b else 1.0 - b / a
-    a, b = per_point(tot["reuse+settled"], "cpu_seconds"), per_point(tot["economy"], "cpu_seconds")
-    savings["warm starts alone, cpu_seconds"] = None if not a or not b else 1.0 - b / a
+            x, y = per_point(tot["cold"], key), per_point(tot[c], key)
+            savings[f"{c} {key}"] = None if not x or not y else 1.0 - y / x
+    x, y = per_point(tot["reuse+settled"], "cpu_seconds"), per_point(tot["economy"], "cpu_seconds")
+    savings["warm starts alone, cpu_seconds"] = None if not x or not y else 1.0 - y / x
     results["savings_per_converged_point"] = savings
     saving = savings.get("economy core_seconds")
     print("| condition | cases | converged | iterations | mesh core-s | solve core-s | core-s | CPU s "

@@ -307,14 +307,14 @@ KEYS: dict[str, Key] = {
                                           default="0.02 × body length", range=_within(1e-6, _L, "m"),
                                           source=_COMMON + " (decays mildly over 5 body lengths)"),
     "solver.warm_start": Key("—", "initial field: off = the uniform free stream; nearest = the converged fields of the "
-                                  "nearest solved case of the same variant and mesh level (README \"Warm starts\")",
-                             "off", choices=("off", "nearest"),
-                             source="measured: README \"Warm starts and mesh reuse (measured)\""),
+                                  "nearest solved case of the same variant and mesh level (README \"Mesh reuse and warm starts\")",
+                             "nearest", choices=("off", "nearest"),
+                             source="measured: README \"Mesh reuse, warm starts and the settled stop (measured)\""),
     "solver.stop_rule": Key("—", "when a solve ends: budget = at solver.iterations (or the solver's residual "
                                  "criterion); settled = also as soon as the convergence rule counts it converged "
-                                 "with the force monitor settled (at least 40 iterations)", "budget",
+                                 "with the force monitor settled (at least 40 iterations)", "settled",
                             choices=("budget", "settled"),
-                            source="measured: README \"Warm starts and mesh reuse (measured)\""),
+                            source="measured: README \"Mesh reuse, warm starts and the settled stop (measured)\""),
     "cluster.partition": Key("—", "batch partition (queue) of every job; empty: the cluster's default", "",
                              pattern=_BATCH_NAME),
     "cluster.account": Key("—", "account the jobs are charged to; empty: the user's default", "", pattern=_BATCH_NAME),

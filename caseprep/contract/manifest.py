@@ -166,7 +166,9 @@ class CaseRecord:
     the same key (the first in the manifest; its own id when it meshes
     itself; None: it meshes itself). ``warm_start``: the initial field the
     runner prepares (:data:`WARM_STARTS`); ``stop_rule`` when the solve
-    ends (:data:`STOP_RULES`)."""
+    ends (:data:`STOP_RULES`). A record without these fields (a sweep
+    written before them) reads as ``off`` and ``budget``: its files know
+    nothing of either (the config's defaults are in caseprep.config.keys)."""
 
     case_id: str
     folder: str

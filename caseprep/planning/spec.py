@@ -17,6 +17,7 @@ from typing import Any
 
 import numpy as np
 
+from caseprep.config.keys import KEYS
 from caseprep.contract.frames import Placement
 from caseprep.contract.manifest import INFO_FIELDS, CaseRecord, Reference
 
@@ -208,9 +209,9 @@ class SolverSpec:
     relax_turb: float = 0.7
     consistent: bool = True
     monitor_interval: int = 1
-    mesh_reuse: str = "identical"
-    warm_start: str = "off"
-    stop_rule: str = "budget"
+    mesh_reuse: str = KEYS["mesh.reuse"].value
+    warm_start: str = KEYS["solver.warm_start"].value
+    stop_rule: str = KEYS["solver.stop_rule"].value
 
 
 @dataclass(frozen=True)

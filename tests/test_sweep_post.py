@@ -64,17 +64,16 @@ def test_real_smoke_sweep(tmp_path):
     # coefficient counts), with their spreads; the monitor's last sample, reduced the same way,
     # is the export's wind-axes coefficient (same integral, Float32 storage: 1e-6)
     rep = forces_report(str(root / "cases" / "smoke-a")).to_dict()
-    counts = rep["coefficient_convergence"]
+    counts = rep["convergence"]
     assert o.result.cd == pytest.approx(counts["means"]["cd"], rel=1e-12)
     assert o.result.cl == pytest.approx(counts["means"]["cl"], rel=1e-12)
     assert o.result.u_cl == pytest.approx(counts["stds"]["cl"], rel=1e-12)
     from caseprep.contract.frames import axes_rotations
     from caseprep.contract.manifest import read_manifest
-    from postproc.kernels import coefficients as co
-    from postproc.pipelines.monitor_coefficients import coefficient_series
+    from caseprep.contract.monitor import coefficient_series
 
     rec = read_manifest(root).cases[0]
-    last = coefficient_series(read_monitor(root / "cases" / "smoke-a"), co.ReferenceValues.from_reference(rec.reference),
+    last = coefficient_series(read_monitor(root / "cases" / "smoke-a"), rec.reference,
                               axes_rotations(rec.placement, rec.wind_direction_body), window=1)
     scale = float(np.hypot(rep["coefficients"]["drag"], rep["coefficients"]["lift"]))
     assert abs(last["cd"][0] - rep["coefficients"]["drag"]) <= 1e-6 * scale

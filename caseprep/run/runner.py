@@ -53,7 +53,7 @@ from typing import Any, Callable, Iterable, Sequence
 
 from caseprep.run import solverlogs as sl
 from caseprep.contract.atomicio import open_folder, write_json_atomic
-from caseprep.contract.convergence import DEFAULT_OPTIONS, ConvergenceOptions, force_settling, judge_convergence
+from caseprep.contract.convergence import DEFAULT_OPTIONS, ConvergenceOptions, judge_case_monitor, judge_convergence
 from caseprep.contract.errors import UserError, did_you_mean
 from caseprep.contract.limits import MAX_RANKS
 from caseprep.contract.locking import refuse_interrupted, sweep_lock
@@ -255,7 +255,7 @@ def summarize_logs(case_dir: Path, valid_stages: Sequence[str], options: RunOpti
             elif r.end_reason == "converged":
                 out["convergence"] = "the solver's residual criterion was met"
             else:
-                settling = force_settling(case_dir, options.convergence)
+                settling = judge_case_monitor(case_dir, options.convergence)
                 ok, why, drop = judge_convergence(r.residuals, r.final_residuals, settling, options.convergence)
                 out.update(convergence=why, residual_drop=drop, force_settling=settling)
                 if not ok:

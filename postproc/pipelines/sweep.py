@@ -34,12 +34,10 @@ flagged it, when it did not finish, when its forces could not be computed,
 or when the runtime force monitor is still drifting at the end of the run.
 The monitor is judged by the one convergence rule
 (:mod:`caseprep.contract.convergence`) over the settling window (the last
-30 % of the samples, at least 20): in coefficient counts when the case has
-reference values (each coefficient and the balance against its own
-tolerance; the reported coefficients are then the window means, with their
-standard deviations as ``u_*``), else each total-force component against
-max(|its mean|, the resultant force), as the runner judges it; ``diverging``
-gives the ``forces-drifting`` flag.
+30 % of the samples, at least 20) in coefficient counts, as the runner
+judges it: each coefficient and the balance against its own tolerance; the
+reported coefficients are the window means, with their standard deviations
+as ``u_*``; ``diverging`` gives the ``forces-drifting`` flag.
 """
 from __future__ import annotations
 
@@ -260,7 +258,7 @@ def _report_values(report: ForcesReport | None, yaw_deg: float, flags: list, not
             notes.append("zero yaw: no side force to place, stability margin not reported")
         notes.extend(b.notes)
     verdict = None
-    counts = report.coefficient_convergence
+    counts = report.convergence
     if counts is not None:
         # the rule in coefficient counts; the reported coefficients are its window means
         verdict = counts["verdict"]
@@ -269,10 +267,8 @@ def _report_values(report: ForcesReport | None, yaw_deg: float, flags: list, not
         v.update({f"u_{k}": float(x) for k, x in counts["stds"].items()
                   if k in ("cl", "cd", "cs", "cl_front", "cl_rear") and x is not None})
         notes.append(f"coefficients: means over the last {counts['window']} iterations of the monitor")
-    elif report.convergence is not None:
-        verdict = report.convergence.verdict
     else:
-        notes.append("no runtime force monitor found: convergence not assessed")
+        notes.append("no runtime force monitor judged: convergence not assessed")
     if verdict == "diverging":
         flags.append(Flag.FORCES_DRIFTING)
     if report.reference is not None:
@@ -567,33 +563,21 @@ REPORT_NAME = "report.html"
 def _iterative_spread(outcomes: list[CaseOutcome]) -> dict[str, tuple[float, float]]:
     """Per variant: the RMS over its unflagged cases of the runtime force
     monitor's standard deviation over the settling window, as coefficient
-    half-widths (−C_L, C_D): the std of the body-axes force over qA (body
-    and wind axes differ by the pitch and yaw angles, a few degrees: cos 4°
-    = 0.998). Variants without monitor statistics are left out."""
+    half-widths (−C_L, C_D): the standard deviations of C_L and C_D of the
+    monitor's verdict in coefficient counts. Variants without monitor
+    statistics are left out."""
     acc: dict[str, list[tuple[float, float]]] = {}
     for o in outcomes:
         if o.result.flags:
             continue
-        sz = sx = qa = None
-        rep = o.report
-        if rep is not None and rep.convergence is not None and rep.reference is not None:
-            stats = rep.convergence.series
-            fz, fx = stats.get("force.total_z"), stats.get("force.total_x")
-            sz, sx = (fz.std if fz is not None else None), (fx.std if fx is not None else None)
-            qa = float(rep.reference.q) * float(rep.reference.area)
-        elif rep is None and o.stored_forces:  # read back from a stored result: the same numbers as JSON
-            d = o.stored_forces
-            series = (d.get("convergence") or {}).get("series") or {}
-            ref = d.get("reference") or {}
-            sz = (series.get("force.total_z") or {}).get("std")
-            sx = (series.get("force.total_x") or {}).get("std")
-            if ref.get("q") is not None and ref.get("area") is not None:
-                qa = float(ref["q"]) * float(ref["area"])
-        if sz is None or sx is None or not qa or qa <= 0:
+        counts = o.report.convergence if o.report is not None else (o.stored_forces or {}).get("convergence")
+        stds = (counts or {}).get("stds") or {} if isinstance(counts, dict) else {}
+        sz, sx = stds.get("cl"), stds.get("cd")
+        if not isinstance(sz, (int, float)) or not isinstance(sx, (int, float)):
             continue
         sz, sx = float(sz), float(sx)
         if math.isfinite(sz) and math.isfinite(sx):
-            acc.setdefault(o.result.variant, []).append((sz / qa, sx / qa))
+            acc.setdefault(o.result.variant, []).append((sz, sx))
     return {v: (float(np.sqrt(np.mean([a * a for a, _ in xs]))), float(np.sqrt(np.mean([b * b for _, b in xs]))))
             for v, xs in acc.items()}
 

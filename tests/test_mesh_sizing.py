@@ -154,7 +154,7 @@ def test_mesh_levels_are_geometrically_similar(tmp_path):
 def test_cell_size_from_cell_count_follows_the_count_ratio(tmp_path):
     # h = (V/N)^(1/3) (Celik et al. 2008, eq. 1): recorded per case from its manifest volume and real cell count; the
     # ratio of two levels' h is the cube root of the inverse cell-count ratio, and the mesh study uses these h
-    from postproc.kernels.ranking import CaseResult
+    from postproc.pipelines.sweep_rows import CaseResult
     from postproc.pipelines.sweep import case_cell_size, mesh_study
 
     cases = plan(load_config(floor_config(tmp_path, ride_heights=(0.02,), variants=("diffuser14",), levels=(0, 1, 2))))

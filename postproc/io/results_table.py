@@ -367,19 +367,36 @@ def read_sweep_table(folder: str | Path) -> ResultsTable:
         raise UserError(expected="a list of case rows under 'cases'", got=type(cases).__name__, file=str(p), key="cases",
                         fix="re-run `postproc sweep --force`")
     _check_rows(len(cases), str(p), "cases")
+    extras = {}
+    for c in cases:
+        cid = str(c.get("case_id") or "")
+        if cid and "/" not in cid and "\\" not in cid:
+            extras[cid] = _case_extras(root / "results" / f"{cid}.json")
+    return rows_table(cases, str(p), extras)
+
+
+def rows_table(cases: list[dict], source: str, extras: Mapping[str, Mapping[str, float]] | None = None) -> ResultsTable:
+    """The results table of a sweep's rows (``results.json``'s ``cases``,
+    or :class:`postproc.pipelines.sweep_rows.CaseResult` rows as dicts);
+    ``extras``: per case id, values used where the row has none (reference
+    area, density, iterative spreads). ``source`` names the rows in
+    messages."""
+    _check_rows(len(cases), source, "cases")
     records, ids = [], []
     for i, c in enumerate(cases):
         rec = dict(c)
         cid = str(c.get("case_id") or f"cases[{i}]")
-        if isinstance(rec.get("flags"), list):
+        if isinstance(rec.get("flags"), (list, tuple)):
             rec["flags"] = " ".join(str(f) for f in rec["flags"])
-        extra = _case_extras(root / "results" / f"{cid}.json") if "/" not in cid and "\\" not in cid else {}
-        for k, v in extra.items():
-            if rec.get(k) is None:      # the row's own value (window spread, area) wins
-                rec[k] = v
-        records.append((rec, lambda name, i=i, cid=cid: f"{p} cases[{i}] ({cid})"))
+        for k, v in (extras or {}).get(cid, {}).items():
+            if rec.get(k) is None or (isinstance(rec.get(k), float) and math.isnan(rec[k])):
+                rec[k] = v      # the row's own value (window spread, area) wins
+        for k, v in list(rec.items()):   # NaN (unknown) is an empty cell
+            if isinstance(v, float) and math.isnan(v):
+                rec[k] = None
+        records.append((rec, lambda name, i=i, cid=cid: f"{source} cases[{i}] ({cid})"))
         ids.append(cid)
-    return _table(_parse_rows(records, ids), str(p), "sweep", [])
+    return _table(_parse_rows(records, ids), source, "sweep", [])
 
 
 def read_results(source: str | Path) -> ResultsTable:

@@ -1,7 +1,9 @@
 """Post-process a whole sweep: every case's forces, coefficients, balance and
 convergence, joined with what the runner recorded, into one results table,
-then the variant ranking, the mesh study and the aero maps — all as data
-(:class:`SweepAnalysis`, ``results.json``) that the report then renders.
+then the mesh study and the analysis of the table (maps, peaks, platform,
+ranking: :mod:`postproc.pipelines.analysis`) — all as data
+(:class:`SweepAnalysis`, ``results.json``, ``analysis.json``) that the
+report then renders.
 
 Inputs: a sweep folder written by ``caseprep write`` (``manifest.json``) and
 run by ``caseprep run`` (``<case>/underfloor-run.json``, ``VTK/``).
@@ -14,7 +16,7 @@ Outputs (in the sweep folder unless told otherwise, atomic writes):
 * ``shards/<I>-of-<N>.json`` — the state of each run over a shard
   (:mod:`postproc.pipelines.shards`);
 * ``results.csv`` and ``results.json`` — one row per case (``results.json``
-  also holds the ranking, the mesh study and the fitted aero maps);
+  also holds the flags' meanings, the notes and the mesh study);
 * ``analysis.json`` — the analysis of the results table
   (:mod:`postproc.pipelines.analysis`, the same as ``postproc analyse``):
   maps with error bars, peak and stall, the platform, the honest ranking.
@@ -69,13 +71,11 @@ from postproc.io.exports import latest_export
 from postproc.io.isolation import UnreadableFile, isolated, physical_memory, preload
 from postproc.io.surfaces import read_surface
 from postproc.kernels import wallchecks as wc
-from postproc.kernels.aeromap import fit_response_surface, map_grid
 from postproc.kernels.polygons import face_geometry
 from postproc.kernels.meshstudy import grid_convergence, representative_cell_size
-from postproc.kernels.ranking import CaseResult, VariantScore, rank_variants
 from postproc.pipelines.case_flow import FlowOptions, analyse_case_flow
-from postproc.io.analysis_config import read_analysis_config
-from postproc.io.results_table import read_sweep_table
+from postproc.io.analysis_config import AnalysisConfig, read_analysis_config
+from postproc.io.results_table import read_sweep_table, rows_table
 from postproc.pipelines.analysis import OUTPUT_NAME as ANALYSIS_NAME
 from postproc.pipelines.analysis import analyse_table, default_config_path, resolve_options, write_analysis
 from postproc.pipelines.analysis_points import level_cell_size
@@ -85,6 +85,7 @@ from postproc.pipelines.report_data import (ReportOptions, assemble, check_basel
                                             history_from_monitor)
 from postproc.pipelines.caseresults import (RESULTS_DIR, Fingerprint, fingerprint, read_case_result,
                                             write_case_result)
+from postproc.pipelines.sweep_rows import CaseResult
 from postproc.pipelines.shards import ALL, Shard, manifest_digest, read_shard_states, run_cases, write_shard_state
 # the child processes that read the cases start with these loaded (postproc.io.isolation)
 preload("pyvista", "postproc.pipelines.case_flow", "postproc.pipelines.case_forces")
@@ -473,59 +474,19 @@ def _csv(rows: list[dict[str, Any]]) -> str:
 
 
 #: Points of the fitted ride-height map along each side of its grid.
-MAP_GRID_POINTS = 24
-
-
-def aero_maps(results: list[CaseResult]) -> list[dict[str, Any]]:
-    """The fitted downforce maps, one per variant with at least three
-    unflagged points at the smallest |yaw|: a least-squares quadratic
-    response surface of −C_L over the front and rear ride heights
-    (:func:`postproc.kernels.aeromap.fit_response_surface`), its fit quality,
-    its gradient at the mean ride heights (per mm) and, when both ride
-    heights vary, its values on a ``MAP_GRID_POINTS``² grid over the
-    rectangle of the points (ride heights m)."""
-    ok = [r for r in results if not r.flags]
-    variants = list(dict.fromkeys(r.variant for r in results))
-    ymin = min((abs(r.yaw_deg) for r in ok), default=0.0)
-    base = [r for r in ok if abs(abs(r.yaw_deg) - ymin) < 1e-9]
-    out = []
-    for v in variants:
-        rows = [r for r in base if r.variant == v
-                and math.isfinite(r.ride_height_front) and math.isfinite(r.ride_height_rear) and math.isfinite(r.cl)]
-        if len(rows) < 3:
-            continue
-        hf = [r.ride_height_front for r in rows]
-        hr = [r.ride_height_rear for r in rows]
-        fit = fit_response_surface(hf, hr, [-r.cl for r in rows], degree=2)
-        g = fit.gradient(np.mean(hf), np.mean(hr))
-        grid = None
-        if len(set(hf)) > 1 and len(set(hr)) > 1:
-            front, rear, values = map_grid(fit, hf, hr, MAP_GRID_POINTS)
-            grid = {"front": front, "rear": rear, "values": values}
-        measured = [-r.cl for r in rows]
-        out.append({"variant": v, "coefficient": "downforce", "label": "−C_L", "degree": fit.degree,
-                    "n_points": fit.n_points, "r2": fit.r2, "rms": fit.rms,
-                    "d_front_per_mm": float(g[0]) / 1000.0, "d_rear_per_mm": float(g[1]) / 1000.0,
-                    "points": {"front": hf, "rear": hr, "value": measured,
-                               "error": [float(fit(a, b)) - m for a, b, m in zip(hf, hr, measured)]},
-                    "grid": grid})
-    return out
-
-
 @dataclass(frozen=True)
 class SweepAnalysis:
     """A sweep's results as data, what the report renders: the rows
-    (``results``), the variant ranking, the fitted aero maps
-    (:func:`aero_maps`), the mesh study (:func:`mesh_study`), notes on the
-    flags, the per-case run and mesh checks, and — after
-    :func:`postprocess_sweep` — the per-case outcomes and the written paths
-    (keys ``csv``, ``json``, ``report``, ``cases``)."""
+    (``results``), the mesh study (:func:`mesh_study`), notes on the flags,
+    the per-case run and mesh checks, the analysis of the table
+    (``analysis``: maps, peaks, platform, ranking; what ``analysis.json``
+    holds) and — after :func:`postprocess_sweep` — the per-case outcomes and
+    the written paths (keys ``csv``, ``json``, ``analysis``, ``report``,
+    ``cases``)."""
 
     title: str
     study: str
     results: tuple[CaseResult, ...]
-    ranking: tuple[VariantScore, ...]
-    aero_maps: tuple[dict[str, Any], ...]
     mesh_study: tuple[dict[str, Any], ...]
     notes: tuple[str, ...] = ()
     checks: tuple[dict[str, Any], ...] = ()
@@ -534,52 +495,36 @@ class SweepAnalysis:
     report_data: Any = field(default=None, repr=False)
     analysis: dict[str, Any] | None = None   # analysis.json (postproc.pipelines.analysis), when written
     #: True when nothing had changed since the tables and the report were
-    #: written (they were left as they are; no ranking or report data here)
+    #: written (they were left as they are; no analysis or report data here)
     up_to_date: bool = False
 
 
 def analyse_results(results: list[CaseResult], title: str = "Sweep report", study: str = "",
                     notes: list[str] | None = None, checks: list[dict] | None = None,
-                    mesh: list[dict] | None = None, cell_sizes: dict[str, float | None] | None = None) -> SweepAnalysis:
-    """Rank the variants, fit the aero maps and (unless ``mesh`` is given)
-    run the mesh study over ``results`` (``cell_sizes``: case id → h, m);
-    returns the :class:`SweepAnalysis` with its report data (no flow
-    numbers, pictures or histories: those need the cases' files,
-    :func:`postprocess_sweep`)."""
-    ranking = tuple(rank_variants(results))
-    maps = tuple(aero_maps(results))
+                    mesh: list[dict] | None = None, cell_sizes: dict[str, float | None] | None = None,
+                    analysis_config: AnalysisConfig | None = None) -> SweepAnalysis:
+    """The analysis of ``results`` rows held in memory (the same as
+    ``postproc analyse`` on their table, with ``analysis_config`` or the
+    defaults) and, unless ``mesh`` is given, the mesh study
+    (``cell_sizes``: case id → h, m); returns the :class:`SweepAnalysis`
+    with its report data (no flow numbers, pictures or histories: those need
+    the cases' files, :func:`postprocess_sweep`). A table the analysis
+    refuses leaves a note and a report without a standing."""
     study_rows = tuple(mesh_study(results, cell_sizes) if mesh is None else mesh)
-    data = assemble(results, title=title, study=study, notes=notes or (), checks=checks or (),
-                    mesh_study=list(study_rows), aero_maps=list(maps), ranking=list(ranking),
-                    options=ReportOptions(pictures=False))
-    return SweepAnalysis(title=title, study=study, results=tuple(results), ranking=ranking, aero_maps=maps,
-                         mesh_study=study_rows, notes=tuple(notes or ()), checks=tuple(checks or ()),
-                         report_data=data)
+    notes = list(notes or ())
+    doc = None
+    try:
+        doc = analyse_table(rows_table([asdict(r) for r in results], "the sweep's results"),
+                            analysis_config or AnalysisConfig())
+    except UserError as exc:
+        notes.append(f"no analysis: {exc}".replace("\n", " "))
+    data = assemble(results, title=title, study=study, notes=notes, checks=checks or (),
+                    mesh_study=list(study_rows), analysis=doc, options=ReportOptions(pictures=False))
+    return SweepAnalysis(title=title, study=study, results=tuple(results), mesh_study=study_rows,
+                         notes=tuple(notes), checks=tuple(checks or ()), report_data=data, analysis=doc)
 
 
 REPORT_NAME = "report.html"
-
-
-def _iterative_spread(outcomes: list[CaseOutcome]) -> dict[str, tuple[float, float]]:
-    """Per variant: the RMS over its unflagged cases of the runtime force
-    monitor's standard deviation over the settling window, as coefficient
-    half-widths (−C_L, C_D): the standard deviations of C_L and C_D of the
-    monitor's verdict in coefficient counts. Variants without monitor
-    statistics are left out."""
-    acc: dict[str, list[tuple[float, float]]] = {}
-    for o in outcomes:
-        if o.result.flags:
-            continue
-        counts = o.report.convergence if o.report is not None else (o.stored_forces or {}).get("convergence")
-        stds = (counts or {}).get("stds") or {} if isinstance(counts, dict) else {}
-        sz, sx = stds.get("cl"), stds.get("cd")
-        if not isinstance(sz, (int, float)) or not isinstance(sx, (int, float)):
-            continue
-        sz, sx = float(sz), float(sx)
-        if math.isfinite(sz) and math.isfinite(sx):
-            acc.setdefault(o.result.variant, []).append((sz, sx))
-    return {v: (float(np.sqrt(np.mean([a * a for a, _ in xs]))), float(np.sqrt(np.mean([b * b for _, b in xs]))))
-            for v, xs in acc.items()}
 
 
 def _planned_rows(manifest: Manifest) -> list[CaseResult]:
@@ -884,7 +829,7 @@ def _postprocess_locked(manifest: Manifest, out: Path, options: SweepOptions, pr
         if same is not None:  # nothing to compute and nothing to rewrite
             title = ropts.title or f"Sweep report — {manifest.study or out.name}"
             return SweepAnalysis(title=title, study=manifest.study, results=tuple(o.result for o in same),
-                                 ranking=(), aero_maps=(), mesh_study=(), outcomes=tuple(same),
+                                 mesh_study=(), outcomes=tuple(same),
                                  paths=_table_paths(out), up_to_date=True)
     _refuse_existing_tables(out, options.force)
     run = _process_shard(manifest, out, options, progress, want_scene)
@@ -1041,10 +986,9 @@ def _assemble(manifest: Manifest, out: Path, outcomes: list[CaseOutcome], option
                   "yplus_share_in_range", "yplus_range")
     checks = [{k: r.get(k) for k in check_keys} for r in rows]
     title = ropts.title or f"Sweep report — {manifest.study or out.name}"
-    analysis = analyse_results([o.result for o in outcomes], title=title, study=manifest.study, notes=notes,
-                               checks=checks, cell_sizes={o.result.case_id: o.cell_size for o in outcomes})
-    # the pictured cases, now with every flag known; a scene not built while the case was read is built now
     results = [o.result for o in outcomes]
+    study_rows = mesh_study(results, {o.result.case_id: o.cell_size for o in outcomes})
+    # the pictured cases, now with every flag known; a scene not built while the case was read is built now
     skipped: list[tuple[str, str]] = []
     pcs = choose_picture_cases(results, variants, ropts) if ropts.pictures else []
     by_id = {o.result.case_id: o for o in outcomes}
@@ -1083,9 +1027,7 @@ def _assemble(manifest: Manifest, out: Path, outcomes: list[CaseOutcome], option
         "flags": {f: flag_meaning(f) for f in flags},
         "notes": notes,
         "cases": rows,
-        "ranking": [asdict(s) for s in analysis.ranking],
-        "mesh_study": list(analysis.mesh_study),
-        "aero_maps": list(analysis.aero_maps),
+        "mesh_study": list(study_rows),
         "inputs": digest,
     }))
     analysis_doc = None
@@ -1093,14 +1035,14 @@ def _assemble(manifest: Manifest, out: Path, outcomes: list[CaseOutcome], option
         analysis_doc = analyse_table(read_sweep_table(out), analysis_cfg)
         paths["analysis"] = write_analysis(analysis_doc, out / ANALYSIS_NAME)
     except UserError as exc:
-        analysis = replace(analysis, notes=analysis.notes + (f"analysis.json not written: {exc}",))
+        notes.append(f"analysis.json not written: {exc}".replace("\n", " "))
     data = assemble(results, title=title, study=manifest.study, notes=notes, checks=checks,
-                    mesh_study=list(analysis.mesh_study), aero_maps=list(analysis.aero_maps), flow_rows=flow_rows,
-                    scenes=scenes, picture_cases=pcs, pictures_skipped=skipped,
-                    histories=[o.history for o in outcomes if o.history is not None],
-                    spread=_iterative_spread(outcomes), options=replace(ropts, baseline=baseline),
-                    ranking=list(analysis.ranking), analysis=analysis_doc)
-    analysis = replace(analysis, outcomes=tuple(outcomes), paths=paths, report_data=data, analysis=analysis_doc)
+                    mesh_study=study_rows, flow_rows=flow_rows, scenes=scenes, picture_cases=pcs,
+                    pictures_skipped=skipped, histories=[o.history for o in outcomes if o.history is not None],
+                    options=replace(ropts, baseline=baseline), analysis=analysis_doc)
+    analysis = SweepAnalysis(title=title, study=manifest.study, results=tuple(results), mesh_study=tuple(study_rows),
+                             notes=tuple(notes), checks=tuple(checks), outcomes=tuple(outcomes), paths=paths,
+                             report_data=data, analysis=analysis_doc)
     if render is not None:
         render(analysis, paths["report"])
     return analysis

@@ -52,7 +52,9 @@ def test_sweep_mesh_study_and_ranking_on_the_finest_level(tmp_path):
     # law in the level cell size h_m = 2^(-m/2) (Richardson 1911: exact recovery)
     from postproc.pipelines.sweep_rows import CaseResult
     from postproc.report import write_report
-    from postproc.pipelines.sweep import analyse_results, level_cell_size, mesh_study
+    from postproc.pipelines.analysis_points import level_cell_size
+    from postproc.pipelines.sweep import analyse_results
+    from postproc.pipelines.sweep_rows import mesh_study
 
     rows = []
     for m in (0, 1, 2):

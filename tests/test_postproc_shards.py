@@ -302,7 +302,7 @@ def smoke_sweep(tmp_path_factory):
 @pytest.mark.solver
 def test_parallel_and_sharded_equal_serial_on_real_cases(smoke_sweep, tmp_path, monkeypatch):
     import postproc.pipelines.case_forces as case_forces
-    import postproc.pipelines.sweep as sweep_mod
+    import postproc.pipelines.sweep_case as sweep_mod
 
     reads = []
     real = sweep_mod.read_surface

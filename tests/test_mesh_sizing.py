@@ -16,7 +16,7 @@ from caseprep.contract.errors import UserError, UserErrors
 from caseprep.contract.manifest import CaseRecord
 from caseprep.contract.walls import WALL_TREATMENTS
 from caseprep.planning import physics as ph
-from caseprep.planning.domain import LEVEL_FACTOR, cells_across
+from caseprep.planning.meshsizing import LEVEL_FACTOR, cells_across
 from caseprep.planning.planner import plan, plan_all
 
 ROOT = Path(__file__).resolve().parents[1]

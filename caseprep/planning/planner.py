@@ -27,8 +27,9 @@ import numpy as np
 from caseprep.config.load import load_config
 from caseprep.config.schema import EMPTY_GEOMETRY, Config
 from caseprep.contract.walls import WALL_TREATMENTS
-from caseprep.planning.domain import (LEVEL_FACTOR, BodyExtent, DomainSizing, decomposition_split, mesh_settings,
-                                      plan_domain, plan_empty_section)
+from caseprep.planning.domain import BodyExtent, DomainSizing, decomposition_split, plan_domain
+from caseprep.planning.empty_section import plan_empty_section
+from caseprep.planning.meshsizing import LEVEL_FACTOR, mesh_settings
 from caseprep.contract.errors import UserError, UserErrors
 from caseprep.contract.frames import (Placement, air_speed, body_to_ground_rotation, ground_velocity_ground, place_body,
                      wind_direction_ground)

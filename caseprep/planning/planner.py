@@ -27,48 +27,22 @@ import numpy as np
 from caseprep.config.load import load_config
 from caseprep.config.schema import EMPTY_GEOMETRY, Config
 from caseprep.contract.walls import WALL_TREATMENTS
-from caseprep.planning.domain import BodyExtent, DomainSizing, decomposition_split, plan_domain
+from caseprep.planning.domain import BodyExtent, DomainSizing, plan_domain
 from caseprep.planning.empty_section import plan_empty_section
 from caseprep.planning.meshsizing import LEVEL_FACTOR, mesh_settings
 from caseprep.contract.errors import UserError, UserErrors
-from caseprep.contract.frames import (Placement, air_speed, body_to_ground_rotation, ground_velocity_ground, place_body,
-                     wind_direction_ground)
+from caseprep.contract.frames import Placement, body_to_ground_rotation, place_body
 from caseprep.geometry.body import BodyGeometry, analyse
 from caseprep.geometry.checks import surface_problems
 from caseprep.geometry.hull import hull_points, hull_projected_area
 from caseprep.geometry.inside import inside
 from caseprep.geometry.stl import LENGTH_UNITS, read_stl
 from caseprep.contract.manifest import Reference
-from caseprep.planning.physics import (air_density, isa_troposphere, isentropic_density_ratio, speed_of_sound,
-                                      sutherland_viscosity, turbulence_at_model)
-from caseprep.planning.spec import CaseSpec, Flow, SolverSpec, Wheel
+from caseprep.planning.spec import CaseSpec, Wheel
 from caseprep.planning.wheels import place_wheel, rolling_omega
 from caseprep.planning.points import SweepPoint, check_case_count, expand_collect
-
-
-@dataclass(frozen=True)
-class Air:
-    """Resolved free-stream properties: T (K), p (Pa), ρ (kg/m³), μ (Pa s), ν (m²/s)."""
-
-    temperature: float
-    pressure: float
-    rho: float
-    mu: float
-    nu: float
-
-
-def air_properties(cfg: Config) -> Air:
-    """T and p from the config (or ISO 2533 at ``air.altitude``, default sea
-    level); ρ = p/(R T) and μ from Sutherland's law unless given; ν = μ/ρ
-    unless ``air.kinematic_viscosity`` is given."""
-    a = cfg.air
-    T0, p0 = isa_troposphere(a.altitude or 0.0)
-    T = a.temperature if a.temperature is not None else T0
-    p = a.pressure if a.pressure is not None else p0
-    rho = a.density if a.density is not None else air_density(p, T)
-    mu = a.viscosity if a.viscosity is not None else sutherland_viscosity(T)
-    nu = a.kinematic_viscosity if a.kinematic_viscosity is not None else mu / rho
-    return Air(float(T), float(p), float(rho), float(mu), float(nu))
+from caseprep.planning.flowsetup import (STRONG_DECAY, Air, air_properties, flow_spec, flow_turbulence, mach_note,
+                                        point_wind, solver_spec, vec3)
 
 
 @dataclass(frozen=True)
@@ -153,10 +127,6 @@ def load_geometries(cfg: Config) -> tuple[dict[str, VariantGeometry], dict[str, 
     return out, wheel_pts, errs
 
 
-def _vec(v) -> tuple[float, float, float]:
-    return tuple(float(x) for x in v)
-
-
 def _reference_geometry(cfg: Config):
     b = cfg.body
     has_ground = cfg.ground.mode != "none"
@@ -167,7 +137,7 @@ def _reference_geometry(cfg: Config):
     if wb is None:
         wb = lref
     mp = b.moment_point if b.moment_point is not None else tuple(0.5 * (np.asarray(fa) + np.asarray(ra)))
-    return _vec(fa), _vec(ra), float(wb), float(lref), _vec(mp)
+    return vec3(fa), vec3(ra), float(wb), float(lref), vec3(mp)
 
 
 def wall_treatment_name(cfg: Config) -> str:
@@ -182,52 +152,6 @@ def config_mesh_settings(cfg: Config):
     return mesh_settings(m.fidelity, base_cell=m.base_cell, surface_levels=m.surface_levels, feature_level=m.feature_level,
                          max_level=m.max_level, gap_cells=m.gap_cells, layers=m.layers, layer_expansion=m.layer_expansion,
                          target_yplus=m.target_yplus, wall_treatment=wall_treatment_name(cfg))
-
-
-#: Local Mach number above which incompressible flow is questionable: the
-#: isentropic density change reaches 4.4 % at M = 0.3 (common practice; see
-#: :func:`caseprep.planning.physics.isentropic_density_ratio`).
-MACH_WARNING = 0.3
-
-
-def mach_note(cfg: Config, air: Air, speed: float) -> tuple[float, str | None]:
-    """Local Mach number under the floor, M = f U / a (f =
-    ``air.underfloor_speed_factor``, U the air speed in m/s, a = √(γ R T)
-    at the config's temperature), and a warning above :data:`MACH_WARNING`."""
-    f = cfg.air.underfloor_speed_factor
-    M = f * speed / speed_of_sound(air.temperature)
-    if M <= MACH_WARNING:
-        return float(M), None
-    drop = 100.0 * (1.0 - isentropic_density_ratio(M))
-    return float(M), (f"local Mach number {M:.2f} under the floor ({f:g} × {speed:.4g} m/s, speed of sound "
-                      f"{speed_of_sound(air.temperature):.1f} m/s) is above {MACH_WARNING:g}: the density there is "
-                      f"{drop:.1f} % below its stagnation value and the incompressible solver ignores it; treat the "
-                      "loads with care or use a compressible solver")
-
-
-#: Default free-stream length scale at the model, as a fraction of the body
-#: length (common practice, no source): large enough for the decay over the
-#: default 5 body lengths upstream to stay mild (k at the inlet 1.3 × that at
-#: the model at 0.5 % intensity, 1.9 × at 1 %).
-LENGTH_SCALE_FRACTION = 0.02
-#: Inlet k above this multiple of the model's: a strong decay, sensitive to the model constants.
-STRONG_DECAY = 4.0
-
-
-def flow_turbulence(cfg: Config, speed: float, body_length: float, distance: float,
-                    file_key: str = "solver.turbulence_length_scale"):
-    """Inlet k, ω that decay to the config's intensity and length scale at
-    the model, ``distance`` (m) downstream of the inlet
-    (:func:`caseprep.planning.physics.turbulence_at_model`); the length scale
-    defaults to :data:`LENGTH_SCALE_FRACTION` × ``body_length`` (m). Raises
-    UserError when the decay cannot deliver them."""
-    ell = cfg.solver.turbulence_length_scale or LENGTH_SCALE_FRACTION * body_length
-    try:
-        return turbulence_at_model(speed, cfg.solver.turbulence_intensity, ell, distance)
-    except ValueError as exc:
-        raise UserError(expected="free-stream turbulence that can reach the model", got=str(exc), file=cfg.file,
-                        key=file_key, fix="raise solver.turbulence_length_scale (or lower domain.upstream / "
-                                          "solver.turbulence_intensity)") from None
 
 
 def plan_all(cfg: Config) -> PlanResult:
@@ -362,37 +286,6 @@ class _RotationCache:
         return self._d[k]
 
 
-def _wind(cfg: Config, pt: SweepPoint, P: Placement) -> tuple[float, np.ndarray, np.ndarray]:
-    """(resultant air speed m/s, relative-wind direction (unit) and ground
-    velocity (m/s, zero unless the ground moves), both in body axes) of a
-    point placed by ``P``."""
-    beta, mode = float(np.radians(pt.yaw_deg)), cfg.sweep.yaw_mode
-    U = air_speed(pt.speed, beta, mode)
-    w_body = P.vector_to_body(wind_direction_ground(beta, mode))
-    vg_body = P.vector_to_body(ground_velocity_ground(pt.speed, beta, mode)) if cfg.ground.mode == "moving" else np.zeros(3)
-    return U, w_body, vg_body
-
-
-def _flow(cfg: Config, air: Air, U: float, w_body: np.ndarray, vg_body: np.ndarray, turb) -> Flow:
-    """The case's flow: inlet velocity U·w (m/s), ground velocity, air, model
-    and the free-stream turbulence ``turb`` (:func:`flow_turbulence`: inlet
-    k, ω, ν_t that decay to the requested values at the model)."""
-    return Flow(inlet_velocity=_vec(U * w_body), ground_velocity=_vec(vg_body), air_speed=float(U), rho=air.rho,
-                nu=air.nu, p_ref=0.0, model=cfg.solver.turbulence_model, intensity=turb.intensity_model,
-                length_scale=turb.length_scale_model, k=turb.k_inlet, omega=turb.omega_inlet, nut=turb.nut_inlet,
-                turbulence=turb.to_dict())
-
-
-def _solver(cfg: Config, domain, preset_iterations: int) -> SolverSpec:
-    """Iterations (the config's, else the preset's), write interval and the
-    rank split of the domain box."""
-    iters = cfg.solver.iterations or preset_iterations
-    corners = domain.box.corners()
-    split = decomposition_split(cfg.solver.ranks, corners.max(axis=0) - corners.min(axis=0))
-    return SolverSpec(n_iterations=int(iters), write_interval=int(cfg.solver.write_interval or iters),
-                      n_procs=int(cfg.solver.ranks), split=split)
-
-
 def _place(cfg: Config, pt: SweepPoint, g: BodyGeometry, cache: _RotationCache):
     """(placement, smallest clearance m, its body point, its % of the length
     from the nose, a description) of a point; with a ground the body stands
@@ -461,7 +354,7 @@ def plan_wheels(cfg: Config, pt: SweepPoint, vg: "VariantGeometry", P: Placement
         recipes[fname] = {"source": str(src), "unit": unit, "solids": [w.solid] if w.solid else None,
                           "rotation": wp.rotation.tolist(), "offset": wp.offset.tolist(), "solid_name": w.solid or w.name}
         zone_r = (w.zone_radius if w.zone_radius is not None else ZONE_RADIUS_FRACTION * w.radius) if w.rotation == "zone" else None
-        wheels.append(Wheel(name=w.name, patch=w.solid or w.name, centre=_vec(wp.centre), axis=_vec(wp.axis),
+        wheels.append(Wheel(name=w.name, patch=w.solid or w.name, centre=vec3(wp.centre), axis=vec3(wp.axis),
                             radius=float(w.radius), omega=float(omega), geometry=fname, rotation=w.rotation,
                             zone_radius=None if zone_r is None else float(zone_r), width=float(wp.width),
                             placement=wp.to_dict()))
@@ -516,7 +409,7 @@ def plan_case(cfg: Config, pt: SweepPoint, geoms: dict[str, VariantGeometry], ai
     cid = pt.case_id
     notes: list[str] = []
     P, clearance, at, pct, where = _place(cfg, pt, g, cache)
-    U, w_body, vg_body = _wind(cfg, pt, P)
+    U, w_body, vg_body = point_wind(cfg, pt, P)
     frontal_wind = cache.get("frontal", pt.variant, w_body, lambda: hull_projected_area(vg.extent_hull, w_body))
 
     def extent_range(axes: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -553,13 +446,13 @@ def plan_case(cfg: Config, pt: SweepPoint, geoms: dict[str, VariantGeometry], ai
         notes.append(f"the free-stream turbulence decays strongly before the model (k at the inlet "
                      f"{turb.k_inlet / turb.k_model:.1f} × that at the model): the values at the model depend on the "
                      "model's decay constants; a larger solver.turbulence_length_scale decays less")
-    flow = _flow(cfg, air, U, w_body, vg_body, turb)
+    flow = flow_spec(cfg, air, U, w_body, vg_body, turb)
     wheels, wheel_facts, recipes = plan_wheels(cfg, pt, vg, P, vg_body, notes)
-    solver = _solver(cfg, dp.domain, settings.preset.iterations)
+    solver = solver_spec(cfg, dp.domain, settings.preset.iterations)
     area = reference_area(cfg, pt.variant, geoms)
     ref = Reference(area=area, length=lref, wheelbase=wb, front_axle=fa, rear_axle=ra, moment_point=mp, rho=air.rho,
                     nu=air.nu, speed=float(U), p_ref=0.0,
-                    cog=_vec(cfg.body.centre_of_gravity) if cfg.body.centre_of_gravity is not None else None)
+                    cog=vec3(cfg.body.centre_of_gravity) if cfg.body.centre_of_gravity is not None else None)
     extra = {
         "geometry_source": vg.source,
         "geometry_length_unit": vg.length_unit,
@@ -586,7 +479,7 @@ def plan_case(cfg: Config, pt: SweepPoint, geoms: dict[str, VariantGeometry], ai
         case_id=cid, variant=pt.variant, params=pt.params(), yaw_mode=mode, placement=P, geometry=f"{pt.variant}.stl",
         geometry_solid_names=vg.body_solids, flow=flow, wheels=tuple(wheels), domain=dp.domain, mesh=dp.mesh, solver=solver,
         reference=ref, fidelity=cfg.mesh.fidelity, min_clearance=clearance,
-        min_clearance_at=_vec(at) if at is not None else None, estimated_cells=dp.estimated_cells, extra=extra)
+        min_clearance_at=vec3(at) if at is not None else None, estimated_cells=dp.estimated_cells, extra=extra)
     return spec, notes
 
 
@@ -614,16 +507,16 @@ def plan_empty_case(cfg: Config, pt: SweepPoint, air: Air) -> tuple[CaseSpec, li
     dp = plan_empty_section(placement=P, length=d.length, width=d.width, height=d.height, base_cell=m.base_cell,
                             mesh_level=pt.mesh_level, ground=cfg.ground.mode, first_cell=m.ground_first_cell,
                             lead_in=float(d.lead_in or 0.0))
-    U, w_body, vg_body = _wind(cfg, pt, P)
+    U, w_body, vg_body = point_wind(cfg, pt, P)
     lref = cfg.body.reference_length if cfg.body.reference_length is not None else float(d.length)
     # without a body the "model" is the middle of the section
     turb = flow_turbulence(cfg, U, float(d.length), 0.5 * float(d.length))
-    flow = _flow(cfg, air, U, w_body, vg_body, turb)
-    solver = _solver(cfg, dp.domain, mesh_settings(m.fidelity).preset.iterations)
+    flow = flow_spec(cfg, air, U, w_body, vg_body, turb)
+    solver = solver_spec(cfg, dp.domain, mesh_settings(m.fidelity).preset.iterations)
     ra = cfg.body.reference_area
     area = float(ra) if not isinstance(ra, str) else float(d.width * d.height)
-    origin = _vec(P.ground_point_body)
-    mp = _vec(cfg.body.moment_point) if cfg.body.moment_point is not None else origin
+    origin = vec3(P.ground_point_body)
+    mp = vec3(cfg.body.moment_point) if cfg.body.moment_point is not None else origin
     ref = Reference(area=area, length=float(lref), wheelbase=float(lref), front_axle=origin, rear_axle=origin, moment_point=mp,
                     rho=air.rho, nu=air.nu, speed=float(U), p_ref=0.0, cog=None)
     extra = {

@@ -28,7 +28,7 @@ cases — in worker processes, per shard, reusing stored results — and
 merges shards.
 
 Besides the forces, each case with a volume result gets its flow columns
-(:mod:`postproc.pipelines.case_flow`: diffuser recovery, main vortex pair,
+(:mod:`postproc.pipelines.flow_columns`: diffuser recovery, main vortex pair,
 ramp separation, floor suction — the numbers ``postproc flow`` gives), and
 one case per variant (the same operating point for all) its picture scene.
 The HTML report (``report.html``, :mod:`postproc.report`) is rendered from
@@ -65,7 +65,7 @@ from caseprep.contract.records import Flag, read_case_record
 from caseprep.contract.signals import StopRequested
 from postproc.io.analysis_config import read_analysis_config
 from postproc.pipelines.analysis import default_config_path, resolve_options
-from postproc.pipelines.case_flow import FlowOptions
+from postproc.pipelines.flow_columns import FlowOptions
 from postproc.pipelines.caseresults import Fingerprint, fingerprint, read_case_result, write_case_result
 from postproc.pipelines.report_data import choose_picture_cases
 from postproc.pipelines.shards import ALL, Shard, manifest_digest, read_shard_states, run_cases, write_shard_state

@@ -32,13 +32,13 @@ from postproc.io.surfaces import read_surface
 from postproc.kernels import wallchecks as wc
 from postproc.kernels.meshstudy import representative_cell_size
 from postproc.kernels.polygons import face_geometry
-from postproc.pipelines.case_flow import FlowOptions, analyse_case_flow
+from postproc.pipelines.flow_columns import FlowOptions, analyse_case_flow
 from postproc.pipelines.case_forces import ForcesReport, forces_report
 from postproc.pipelines.report_data import history_from_monitor
 from postproc.pipelines.sweep_rows import ALL_WALLS, CaseOutcome, CaseResult
 
 # the child processes that read the cases start with these loaded (postproc.io.isolation)
-preload("pyvista", "postproc.pipelines.case_flow", "postproc.pipelines.case_forces")
+preload("pyvista", "postproc.pipelines.flow_columns", "postproc.pipelines.case_forces")
 #: limits of a case's volume analysis (flow columns, pictures): the machine's memory, MAX_ANALYSIS_SECONDS
 ANALYSIS_LIMITS = {"memory": physical_memory(), "timeout": float(MAX_ANALYSIS_SECONDS.value)}
 

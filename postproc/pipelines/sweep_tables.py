@@ -27,7 +27,7 @@ from postproc.io.isolation import isolated
 from postproc.io.results_table import read_sweep_table, rows_table
 from postproc.pipelines.analysis import OUTPUT_NAME as ANALYSIS_NAME
 from postproc.pipelines.analysis import analyse_table, write_analysis
-from postproc.pipelines.case_flow import FlowOptions, analyse_case_flow
+from postproc.pipelines.flow_columns import FlowOptions, analyse_case_flow
 from postproc.pipelines.case_scene import scene_difference
 from postproc.pipelines.caseresults import RESULTS_DIR, fingerprint, read_case_result
 from postproc.pipelines.report_data import (ReportOptions, assemble, check_baseline, choose_picture_cases,

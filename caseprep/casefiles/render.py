@@ -162,7 +162,11 @@ def effective_write_interval(n_iterations: int, write_interval: int) -> int:
 
 
 def context(spec: CaseSpec) -> dict[str, Any]:
-    """Template context of one case: formatted numbers and patch tables."""
+    """Template context of one case: formatted numbers and patch tables.
+
+    Long because: it lists, key after key, every value the templates read; split up,
+    the one place that defines the templates' inputs would be scattered.
+    """
     check_component(spec.case_id, "case id")
     check_component(spec.variant, "variant name")
     d = spec.domain

@@ -1,6 +1,6 @@
 """Planner: validated config → one :class:`~caseprep.planning.spec.CaseSpec` per sweep point.
 
-Reads each geometry once (:mod:`caseprep.geometry.stl`), expands the sweep
+Reads each geometry once (:mod:`caseprep.planning.geometries`), expands the sweep
 (:mod:`caseprep.planning.points`), places the body (:func:`caseprep.contract.frames.place_body`),
 measures the ground clearance on the precomputed convex-hull vertices, sizes
 domain and mesh (:mod:`caseprep.planning.domain`) and fills in flow, wheels, solver
@@ -19,7 +19,7 @@ from __future__ import annotations
 
 import hashlib
 import json
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
@@ -32,30 +32,16 @@ from caseprep.planning.empty_section import plan_empty_section
 from caseprep.planning.meshsizing import LEVEL_FACTOR, mesh_settings
 from caseprep.contract.errors import UserError, UserErrors
 from caseprep.contract.frames import Placement, body_to_ground_rotation, place_body
-from caseprep.geometry.body import BodyGeometry, analyse
-from caseprep.geometry.checks import surface_problems
-from caseprep.geometry.hull import hull_points, hull_projected_area
-from caseprep.geometry.inside import inside
-from caseprep.geometry.stl import LENGTH_UNITS, read_stl
+from caseprep.geometry.body import BodyGeometry
+from caseprep.geometry.hull import hull_projected_area
+from caseprep.geometry.stl import LENGTH_UNITS
 from caseprep.contract.manifest import Reference
 from caseprep.planning.spec import CaseSpec, Wheel
 from caseprep.planning.wheels import place_wheel, rolling_omega
 from caseprep.planning.points import SweepPoint, check_case_count, expand_collect
+from caseprep.planning.geometries import VariantGeometry, load_geometries
 from caseprep.planning.flowsetup import (STRONG_DECAY, Air, air_properties, flow_spec, flow_turbulence, mach_note,
                                         point_wind, solver_spec, vec3)
-
-
-@dataclass(frozen=True)
-class VariantGeometry:
-    """One variant's geometry facts for all its cases."""
-
-    name: str
-    source: str
-    length_unit: str
-    body: BodyGeometry
-    body_solids: tuple[str, ...]
-    extent_hull: np.ndarray  # hull of body + wheel files (domain sizing, blockage)
-    wheel_hulls: dict = field(default_factory=dict)  # wheel name → hull points of its geometry (body frame, m)
 
 
 @dataclass(frozen=True)
@@ -66,65 +52,6 @@ class PlanResult:
     cases: tuple[CaseSpec, ...]
     problems: tuple[UserError, ...]
     warnings: tuple[str, ...]
-
-
-def load_geometries(cfg: Config) -> tuple[dict[str, VariantGeometry], dict[str, np.ndarray], list[UserError]]:
-    """Read and check every variant's geometry and every wheel file once.
-    Returns (variants, wheel hull points by wheel name, problems)."""
-    errs: list[UserError] = []
-    wheel_solids = tuple(w.solid for w in cfg.body.wheels if w.solid)
-    wheel_pts: dict[str, np.ndarray] = {}
-    for i, w in enumerate(cfg.body.wheels):
-        if w.geometry:
-            key = f"body.wheels[{i}].geometry"
-            try:
-                s = read_stl(w.geometry, cfg.body.length_unit, default_name=w.name)
-            except UserError as e:
-                errs.append(UserError(str(e) + f" (config {cfg.file} at {key})"))
-                continue
-            g = analyse(s)
-            errs.extend(surface_problems(g.report, w.geometry, key, cfg.body.length_unit))
-            wheel_pts[w.name] = g.hull
-    out: dict[str, VariantGeometry] = {}
-    for name, v in cfg.variants.items():
-        if v.geometry == EMPTY_GEOMETRY:
-            continue  # empty test section: nothing to read
-        unit = cfg.length_unit(name)
-        key = f"variants.{name}.geometry"
-        try:
-            s = read_stl(v.geometry, unit, default_name=name)
-        except UserError as e:
-            errs.append(UserError(str(e) + f" (config {cfg.file} at {key})"))
-            continue
-        missing = [n for n in wheel_solids if n not in s.solid_names]
-        if missing:
-            errs.append(UserError(expected=f"the wheel solids {', '.join(missing)} in the geometry", got=f"solids {', '.join(s.solid_names)}",
-                                  file=v.geometry, key=key, fix="name the solids in the STL or fix body.wheels[].solid"))
-        g = analyse(s, exclude_from_clearance=wheel_solids)
-        errs.extend(surface_problems(g.report, v.geometry, key, unit))
-        (y0, y1) = g.bounds[0][1], g.bounds[1][1]
-        if min(-y0, y1) < 1e-3 * max(y1 - y0, 1e-9):
-            errs.append(UserError(expected="a whole body spanning both sides of y = 0", got=f"y from {y0:.4g} m to {y1:.4g} m",
-                                  file=v.geometry, key=key,
-                                  fix="half models with a symmetry plane are not supported: mirror the geometry to a full body "
-                                      "(and draw it with y = 0 on the centre line)"))
-        body_solids = tuple(n for n in s.solid_names if n not in wheel_solids) or s.solid_names
-        hulls = {w.name: wheel_pts[w.name] for w in cfg.body.wheels if w.geometry and w.name in wheel_pts}
-        for w in cfg.body.wheels:
-            if w.solid and w.solid in s.solid_names:
-                hulls[w.name] = hull_points(s.select([w.solid]).triangles.reshape(-1, 3))
-        body_tris = s.select(body_solids).triangles
-        for i, w in enumerate(cfg.body.wheels):
-            if inside(body_tris, w.centre):
-                errs.append(UserError(expected="a wheel centre outside the body (in its wheel arch or beside it)",
-                                      got=f"({', '.join(f'{c:g}' for c in w.centre)}) m, inside the body of {v.geometry}",
-                                      file=cfg.file, key=f"body.wheels[{i}].centre",
-                                      fix="give the wheel centre in the body frame (x rearward, y right, z up, m); the body "
-                                          "surface must have an opening (wheel arch) where the wheel sits"))
-        allp = [g.hull] + list(hulls.values())
-        ext = hull_points(np.vstack(allp)) if len(allp) > 1 else g.hull
-        out[name] = VariantGeometry(name, v.geometry, unit, g, body_solids, ext, hulls)
-    return out, wheel_pts, errs
 
 
 def _reference_geometry(cfg: Config):
@@ -399,7 +326,12 @@ def mesh_facts(cfg: Config, dp, body_volume: float, speed: float) -> dict:
 
 def plan_case(cfg: Config, pt: SweepPoint, geoms: dict[str, VariantGeometry], air: Air, settings, refgeo,
               cache: _RotationCache | None = None) -> tuple[CaseSpec, list[str]]:
-    """Plan one point; raises UserError if the case must be refused."""
+    """Plan one point; raises UserError if the case must be refused.
+
+    Long because: it is the sequence that resolves one case (place, measure the
+    clearance, size the domain and mesh, flow, wheels, solver, reference values),
+    each step one call whose results the later steps use.
+    """
     cache = cache if cache is not None else _RotationCache()
     fa, ra, wb, lref, mp = refgeo
     vg = geoms[pt.variant]

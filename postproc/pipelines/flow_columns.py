@@ -91,7 +91,11 @@ def station_label(frac: float) -> str:
 
 
 def flow_metrics(payload: dict, options: FlowOptions = FlowOptions()) -> FlowMetrics:
-    """Reduce a ``postproc flow`` payload to the sweep's flow columns."""
+    """Reduce a ``postproc flow`` payload to the sweep's flow columns.
+
+    Long because: it reads the payload's sections one column after another, each
+    with its own guard for a missing part.
+    """
     cols: dict = {}
     notes: list[str] = []
     d = payload.get("diffuser") or {}

@@ -373,6 +373,34 @@ def _analysis_list(analysis: dict, key: str) -> list[dict]:
     return [x for x in v if isinstance(x, dict)] if isinstance(v, list) else []
 
 
+def _maps_from_analysis(analysis: dict) -> tuple[list[MapData], list[str]]:
+    """The analysis's fitted −C_L maps that span both ride heights, as plot
+    data with the usable points behind them, and why each other map is not
+    drawn."""
+    maps, why = [], []
+    for m in _analysis_list(analysis, "maps"):
+        g = m.get("grid")
+        name = str(m.get("variant"))
+        coef = (m.get("coefficients") or {}).get("cl") or {}
+        if not isinstance(g, dict) or "cl" not in g or (m.get("design") or {}).get("dim") != 2:
+            why.append(f"{name} (yaw {m.get('yaw_deg')}°): " + (coef.get("reason") or "its points span one line "
+                                                                 "of ride heights"))
+            continue
+        F = np.asarray(g["ride_height_front"], dtype=float)
+        R = np.asarray(g["ride_height_rear"], dtype=float)
+        mine = [q for q in _analysis_list(analysis, "points") if q.get("variant") == name and q.get("usable")
+                and q.get("yaw_deg") == m.get("yaw_deg") and q.get("speed") == m.get("speed")
+                and q.get("mesh_level") == m.get("mesh_level")]
+        maps.append(MapData(variant=f"{name} (yaw {m.get('yaw_deg')}°)", quantity="downforce coefficient −C_L",
+                            front=F[0], rear=R[:, 0], value=-np.asarray(g["cl"], dtype=float),
+                            points_front=[q["ride_height_front"] for q in mine],
+                            points_rear=[q["ride_height_rear"] for q in mine],
+                            points_value=[-q["cl"] for q in mine if "cl" in q], points_error=None,
+                            note=f"{coef.get('model')}, leave-one-out rms {coef.get('loo_rms'):.3g}"
+                            if coef.get("loo_rms") is not None else str(coef.get("model") or "")))
+    return maps, why
+
+
 def from_analysis(analysis: dict, results) -> dict:
     """What the report takes from ``analysis.json`` (postproc.pipelines.analysis):
     the variants' standing (rank, score ± uncertainty, completeness, ties,
@@ -444,27 +472,7 @@ def from_analysis(analysis: dict, results) -> dict:
         if b is not None:
             cautions.append(Caution("bottoming", p.get("variant"), value=b,
                                     detail=str(p.get("bottoming_mode") or "")))
-    maps, why = [], []
-    for m in _analysis_list(analysis, "maps"):
-        g = m.get("grid")
-        name = str(m.get("variant"))
-        coef = (m.get("coefficients") or {}).get("cl") or {}
-        if not isinstance(g, dict) or "cl" not in g or (m.get("design") or {}).get("dim") != 2:
-            why.append(f"{name} (yaw {m.get('yaw_deg')}°): " + (coef.get("reason") or "its points span one line "
-                                                                 "of ride heights"))
-            continue
-        F = np.asarray(g["ride_height_front"], dtype=float)
-        R = np.asarray(g["ride_height_rear"], dtype=float)
-        mine = [q for q in _analysis_list(analysis, "points") if q.get("variant") == name and q.get("usable")
-                and q.get("yaw_deg") == m.get("yaw_deg") and q.get("speed") == m.get("speed")
-                and q.get("mesh_level") == m.get("mesh_level")]
-        maps.append(MapData(variant=f"{name} (yaw {m.get('yaw_deg')}°)", quantity="downforce coefficient −C_L",
-                            front=F[0], rear=R[:, 0], value=-np.asarray(g["cl"], dtype=float),
-                            points_front=[q["ride_height_front"] for q in mine],
-                            points_rear=[q["ride_height_rear"] for q in mine],
-                            points_value=[-q["cl"] for q in mine if "cl" in q], points_error=None,
-                            note=f"{coef.get('model')}, leave-one-out rms {coef.get('loo_rms'):.3g}"
-                            if coef.get("loo_rms") is not None else str(coef.get("model") or "")))
+    maps, why = _maps_from_analysis(analysis)
     del rows
     return {"facts": tuple(facts), "cautions": tuple(cautions), "recommended": recommended, "decision": dec,
             "pareto": pareto, "maps": tuple(maps), "map_notes": why, "platform": tuple(curves)}

@@ -3,7 +3,7 @@
 Reads each geometry once (:mod:`caseprep.planning.geometries`), expands the sweep
 (:mod:`caseprep.planning.points`), places the body (:func:`caseprep.contract.frames.place_body`),
 measures the ground clearance on the precomputed convex-hull vertices, sizes
-domain and mesh (:mod:`caseprep.planning.domain`) and fills in flow, wheels, solver
+domain and mesh (:mod:`caseprep.planning.domain`, :mod:`caseprep.planning.meshsizing`) and fills in flow, wheels, solver
 and reference values. All vectors are in the mesh frame = body frame
 (x rearward, y right, z up, m). Nothing is written.
 
@@ -13,7 +13,7 @@ linear function over the surface lies at a vertex, and over the vertices at
 a hull vertex). Wheels (separate wheel files or wheel solids) are excluded:
 they touch the ground. A case whose clearance is ≤ 0 (touching or
 penetrating) is refused, and so is a gap thinner than ``mesh.gap_cells``
-cells of the finest level the preset allows (see :mod:`caseprep.planning.domain`).
+cells of the finest level the preset allows (see :mod:`caseprep.planning.meshsizing`).
 """
 from __future__ import annotations
 

@@ -489,7 +489,7 @@ def _f(x):
 def history_from_monitor(label: str, monitor: dict, window: int | None, verdict: str = "",
                          flagged: bool = False) -> History | None:
     """A force history for the small multiples from a runtime monitor
-    (:func:`postproc.convergence.read_monitor`): the total force components
+    (:func:`caseprep.contract.monitor.read_monitor`): the total force components
     along body x and z (N) and the first iteration of the settling window
     (the last ``window`` samples)."""
     it = monitor.get("Time")

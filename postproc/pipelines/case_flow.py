@@ -18,6 +18,7 @@ from pathlib import Path
 import numpy as np
 
 from caseprep.contract.errors import UserError
+from caseprep.contract.walls import WALL_TREATMENTS
 
 from postproc.io import flow as flowio
 from postproc.kernels import diffuser as dif
@@ -370,7 +371,12 @@ def analyse_underbody(case: flowio.FlowCase, *, lines=(0.0,), speed: float | Non
     return out
 
 
-def analyse_walls(case: flowio.FlowCase, *, target: tuple[float, float] = (30.0, 300.0),
+#: The y+ band flow passes judge by when none is given: the wall-function
+#: treatment's (caseprep.contract.walls, where it is declared).
+DEFAULT_YPLUS_BAND: tuple[float, float] = WALL_TREATMENTS["wall-function"].band
+
+
+def analyse_walls(case: flowio.FlowCase, *, target: tuple[float, float] = DEFAULT_YPLUS_BAND,
                   nu: float | None = None, speed: float | None = None, floor_lines=(0.0,), centres=None) -> dict:
     """y+ per wall patch, streamwise shear reversals on the floor lines and
     suspicious cell values. JSON-ready dict."""
@@ -464,7 +470,7 @@ def q_normalisation(case: flowio.FlowCase, q_scale: str = "auto", gap: float | N
 
 
 def flow_payload(case: flowio.FlowCase, *, q_star: float | None = None, q_scale: str = "auto",
-                 gap: float | None = None, target: tuple[float, float] = (30.0, 300.0),
+                 gap: float | None = None, target: tuple[float, float] = DEFAULT_YPLUS_BAND,
                  gd: GradientData | None = None) -> tuple[dict, GradientData | None]:
     """All flow-structure results of one case (vortices, diffuser,
     underbody, walls) as one JSON-ready dict, each part replaced by
@@ -567,7 +573,7 @@ class FlowOptions:
     q_scale: str = "auto"
     q_star: float | None = None
     gap: float | None = None
-    target: tuple[float, float] = (30.0, 300.0)
+    target: tuple[float, float] = DEFAULT_YPLUS_BAND
     pair_stations: tuple[float, ...] = PAIR_STATIONS
     scene: bool = False
     plan_cells: int = 320

@@ -88,6 +88,36 @@ def test_hardest_variant_coarse_runs(tmp_path):
     assert rec["status"] == "ok", rec  # meshed, solved (budget used up: flagged not-converged) and exported
     assert rec["iterations"] == 100, rec
     check_layered_run(case, 100)
+    lo, hi, median = floor_yplus(case)
+    # the solver's own y+ on the floor: its area-weighted median inside the band the first cell was sized for
+    # (2 y+ nu/u_tau from Schlichting's flat-plate friction at 1.4 V; band of Spalding's wall function,
+    # caseprep/contract/walls.py)
+    assert lo <= median <= hi, (median, lo, hi)
+
+
+def floor_yplus(case: Path) -> tuple[float, float, float]:
+    """(band low, band high, area-weighted median) of the solver's ``yPlus``
+    on the floor: the body's underside faces (their normal, out of the fluid into the body, z > 0.9) in its
+    latest VTK export; the band is the one the case's manifest names."""
+    import numpy as np
+
+    from caseprep.contract.manifest import read_manifest
+    from caseprep.contract.walls import wall_treatment
+    from postproc.io.exports import latest_export
+    from postproc.io.surfaces import read_surface
+    from postproc.kernels.polygons import face_geometry
+
+    rec = next(c for c in read_manifest(case.parent.parent).cases if c.case_id == case.name)
+    surf = read_surface(latest_export(case), list(rec.patches["body"]), arrays=["yPlus"])
+    S, _ = face_geometry(surf.points, (surf.offsets, surf.connectivity))
+    a = np.linalg.norm(S, axis=1)
+    down = S[:, 2] / np.where(a > 0, a, 1.0) > 0.9
+    yp, w = np.asarray(surf.array("yPlus"), float)[down], a[down]
+    order = np.argsort(yp)
+    cum = np.cumsum(w[order])
+    median = float(yp[order][np.searchsorted(cum, 0.5 * cum[-1])])
+    lo, hi = wall_treatment(rec.wall_treatment, rec.turbulence_model).band
+    return lo, hi, median
 
 
 def check_layered_run(case: Path, iterations: int) -> None:

@@ -126,7 +126,7 @@ def test_estimated_cells_above_the_limit_are_refused(tmp_path):
     assert r.exit_code == 2 and "estimated" in r.output and "cells per case" in r.output, r.output
 
 
-def test_ride_height_above_one_body_length_is_refused(tmp_path):
+def test_ride_height_above_five_body_lengths_is_refused(tmp_path):
     cfg = _cfg(tmp_path, _sub("sweep", "ride_height = [30.0]"))
     r, _ = _check(cfg)
     assert r.exit_code == 2 and "sweep.ride_height[0]" in r.output and "body length" in r.output, r.output

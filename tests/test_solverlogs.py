@@ -3,7 +3,9 @@
 The fixtures under tests/data/logs/ are excerpts of logs produced by
 tests/tiny_case.py (variants ok / collapsed / crash, 30 and 500 iterations,
 1 and 2 ranks), of the tiny case switched to the k-omega SST turbulence model,
-and of a deliberately sheared background mesh; lines were
+of a deliberately sheared background mesh, and the end of the mesher's and
+the checker's logs of the demo floor's 14-degree diffuser at `coarse`
+(20 mm; ``snappy_relaxed_tail.log``, ``checkMesh_layered_*.log``); lines were
 deleted, never edited. Expected values are the numbers printed in those logs,
 so exact equality (or float round-trip equality) is the right check.
 """
@@ -52,6 +54,29 @@ def test_snappy_layers_collapsed_flagged():
     assert r.layer_coverage == 0.0
     assert r.collapsed_patches() == ("body",)
     assert r.extruded_faces == 0
+
+
+def test_snappy_relaxed_faces_do_not_fail_the_solve():
+    """The mesher's final list on a layered mesh: 126 faces between its strict
+    65 deg and the relaxed 75 deg, 2 of poor tet quality, 2 wall faces above
+    its skewness limit of 3 — with the checker's maxima 73.8 deg and 3.01,
+    none of them fails the finite-volume solve; above the checker's skewness
+    limit they do."""
+    r = sl.parse_snappy(read("snappy_relaxed_tail.log"))
+    assert r.illegal_faces == 130
+    assert r.faces_in_error == (("non-orthogonality > 65 degrees", 126),
+                                ("faces with face-decomposition tet quality < 1e-15", 2),
+                                ("faces with skewness > 4 (internal) or 3 (boundary)", 2))
+    ok = sl.parse_checkmesh(read("checkMesh_layered_ok.log"))
+    assert ok.mesh_ok and ok.max_non_orthogonality == pytest.approx(73.81268335) and ok.max_skewness < 4
+    assert r.faces_failing_the_solve(ok.max_non_orthogonality, ok.max_skewness) == 0
+    skew = sl.parse_checkmesh(read("checkMesh_layered_skew.log"))
+    assert skew.mesh_ok is False and skew.max_skewness == pytest.approx(4.14146266)
+    assert r.faces_failing_the_solve(ok.max_non_orthogonality, skew.max_skewness) == 2
+    # beyond the solver numerics' top band the non-orthogonal faces count
+    assert r.faces_failing_the_solve(81.0, ok.max_skewness) == 126
+    # unknown maxima: every listed face but the tet-quality ones counts
+    assert r.faces_failing_the_solve(None, None) == 128
 
 
 def test_snappy_fatal_error():

@@ -168,7 +168,7 @@ def _run(args: list[str], timeout: float) -> subprocess.CompletedProcess:
 
 def test_example_configs_plan_the_gaps():
     """``caseprep plan`` accepts the three configs and gives each case a clearance equal to its ride height (the gap
-    convention above) and the blockage of the 12 D × 24 D section (no solver needed)."""
+    convention above) and the blockage of the 12.5 D × 25 D section (no solver needed)."""
     caseprep = _tool("caseprep")
     expected = {"sweep_re100": [25, 50, 100, 200, 400, 25], "sweep_re20": [25, 50, 100, 400], "stationary_re100": [25]}
     for name in CONFIGS:
@@ -181,8 +181,10 @@ def test_example_configs_plan_the_gaps():
         assert [float(row["rh_front_mm"]) for row in rows] == expected[name]
         for row in rows:
             assert float(row["clearance_mm"]) == pytest.approx(float(row["rh_front_mm"]), abs=1e-6)
-            # frontal area of the faceted sphere (0.0078141 m², 0.5 % below πD²/4) over the 1.2 m × 2.4 m inlet
-            assert float(row["blockage_pct"]) == pytest.approx(100 * 0.0078141 / (1.2 * 2.4), abs=0.01)
+            # frontal area of the faceted sphere (0.0078141 m², 0.5 % below πD²/4) over the 1.25 m × 2.5 m inlet
+            # (target blockage 0.27 %, section rounded up to whole 0.05 m background cells; one cell less per
+            # side at the finer mesh level: 0.255 %)
+            assert float(row["blockage_pct"]) == pytest.approx(100 * 0.0078141 / (1.25 * 2.5), abs=0.01)
 
 
 @pytest.fixture(scope="module")

@@ -58,6 +58,9 @@ MAX_ITERATIONS = Limit("solver.iterations and solver.write_interval", 1_000_000,
                        "a steady solve converges in thousands of iterations")
 MAX_DOMAIN_LENGTHS = Limit("domain.upstream and domain.downstream", 100, "body lengths",
                            "the background mesh grows with the domain")
+MAX_RIDE_HEIGHT_LENGTHS = Limit("front or rear ride height of one case", 5, "body lengths",
+                                "beyond a few body lengths no ground effect is left to study (a sphere's wall "
+                                "effect on drag is about 1 % at 4 diameters); larger usually means mm read as m")
 MAX_LENGTH = Limit("any length or coordinate of the config and the geometry (domain sizes, points, ride heights)",
                    10_000, "m", "a vehicle study fits in a 10 km box; larger means a unit slip (mm read as m)")
 MAX_STL_TRIANGLES = Limit("triangles of one geometry file", 50_000_000, "triangles",

@@ -147,6 +147,10 @@ class CaseRunRecord:
     ``failed_tool`` and ``log_tail`` describe a failure. Times in s.
     ``host`` and ``pid``: the machine and the process id of the runner that
     wrote the record (a ``running`` record names where the stage runs).
+    ``faces_in_error``: the mesher's final list of faces failing its strict
+    quality criteria (criterion → count; see
+    :meth:`caseprep.run.solverlogs.SnappyLog.faces_failing_the_solve` for
+    which of them flag the case).
     ``numerics``: what the mesh stage chose from the mesh's quality
     (``non_orthogonal_correctors``, ``momentum_relaxation``; from
     ``system/meshNumerics``), None before meshing.
@@ -175,6 +179,7 @@ class CaseRunRecord:
     failed_checks: int | None = None
     max_non_orthogonality: float | None = None
     max_skewness: float | None = None
+    faces_in_error: dict[str, int] = field(default_factory=dict)
     numerics: dict[str, Any] | None = None
     layer_coverage: float | None = None
     layers: tuple[dict[str, Any], ...] = ()
@@ -262,6 +267,8 @@ def check_run_record_dict(d: object, source: str) -> None:
         expect_str(f, file=source, key=f"flags[{i}]", fix=_FIX, max_len=64)
     if d.get("force_settling") is not None:
         expect_dict(d["force_settling"], file=source, key="force_settling", fix=_FIX)
+    for k, v in expect_dict(d.get("faces_in_error") or {}, file=source, key="faces_in_error", fix=_FIX).items():
+        expect_int(v, file=source, key=f"faces_in_error.{k}", fix=_FIX, lo=0, hi=10**13)
 
 
 def load_case_record(case_dir: str | os.PathLike) -> CaseRunRecord | None:

@@ -24,6 +24,7 @@ from pathlib import Path
 
 import numpy as np
 
+from caseprep.contract.limits import MAX_RIDE_HEIGHT_LENGTHS
 from caseprep.config.load import load_config
 from caseprep.config.schema import EMPTY_GEOMETRY, Config
 from caseprep.contract.walls import WALL_TREATMENTS
@@ -245,8 +246,9 @@ def _place(cfg: Config, pt: SweepPoint, g: BodyGeometry, cache: _RotationCache):
                         got=f"clearance {clearance * 1e3:.3f} mm at {where} in case {pt.case_id}", file=cfg.file,
                         key=pt.source, fix="the body touches or penetrates the ground: raise the ride height or reduce the pitch")
     h_max = max(pt.ride_height_front, pt.ride_height_rear)
-    if h_max > g.length:
-        raise UserError(expected="ride heights up to one body length (the ground effect this tool studies)",
+    if h_max > float(MAX_RIDE_HEIGHT_LENGTHS) * g.length:
+        raise UserError(expected=f"ride heights up to {MAX_RIDE_HEIGHT_LENGTHS.value:g} body lengths "
+                                 "(the ground effect this tool studies)",
                         got=f"{h_max:g} m for a body {g.length:.4g} m long in case {pt.case_id}", file=cfg.file,
                         key=pt.source,
                         fix='ride heights are in m (not mm); for a body far from any ground use ground.mode = "none"')

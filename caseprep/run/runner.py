@@ -231,10 +231,13 @@ def summarize_logs(case_dir: Path, valid_stages: Sequence[str], options: RunOpti
                                   for p in s.layers)
             if s.collapsed_patches(options.min_layer_coverage):
                 flags.append(Flag.LAYERS_COLLAPSED)
-            if s.illegal_faces:
+        c = sl.parse_checkmesh(cm) if cm is not None else None
+        if sn is not None:
+            out["faces_in_error"] = dict(s.faces_in_error)
+            if s.faces_failing_the_solve(c.max_non_orthogonality if c is not None else None,
+                                         c.max_skewness if c is not None else None):
                 flags.append(Flag.MESH_ILLEGAL_FACES)
-        if cm is not None:
-            c = sl.parse_checkmesh(cm)
+        if c is not None:
             cells = c.cells if c.cells is not None else cells
             out.update(mesh_ok=c.mesh_ok, failed_checks=c.failed_checks,
                        max_non_orthogonality=c.max_non_orthogonality, max_skewness=c.max_skewness)

@@ -168,6 +168,35 @@ class SnappyLog(_Dict):
     illegal_faces: int | None
     finished: bool
     error: str | None
+    faces_in_error: tuple[tuple[str, int], ...] = ()
+
+    def faces_failing_the_solve(self, max_non_orthogonality: float | None,
+                                max_skewness: float | None = None) -> int | None:
+        """The mesher's illegal faces that matter to the finite-volume solve
+        (None when the log gives no count). Left out of the mesher's final
+        list: faces of non-orthogonality above its strict limit while the
+        checker's maximum stays below :data:`SOLVE_NON_ORTHO_LIMIT` (the
+        mesher's relaxed pass accepted them, and the solver's non-orthogonal
+        correctors follow the checker's maximum: run.sh's
+        ``system/meshNumerics``); faces above the mesher's (stricter) wall
+        skewness limit while the checker's maximum stays within its own
+        :data:`CHECKER_SKEWNESS_LIMIT`; and faces of poor face-decomposition
+        tet quality (used to track particles through cells, not by the
+        finite-volume discretisation). Without the itemised list, the total."""
+        if self.illegal_faces is None or not self.faces_in_error:
+            return self.illegal_faces
+        n = 0
+        for what, count in self.faces_in_error:
+            if what.startswith("faces with face-decomposition tet quality"):
+                continue
+            if (what.startswith("non-orthogonality") and max_non_orthogonality is not None
+                    and max_non_orthogonality < SOLVE_NON_ORTHO_LIMIT):
+                continue
+            if (what.startswith("faces with skewness") and max_skewness is not None
+                    and max_skewness <= CHECKER_SKEWNESS_LIMIT):
+                continue
+            n += count
+        return n
 
     @property
     def layer_coverage(self) -> float | None:
@@ -185,6 +214,32 @@ class SnappyLog(_Dict):
         half the layers means the near-wall resolution the case was sized
         for is not there)."""
         return tuple(p.patch for p in self.layers if p.coverage is not None and p.coverage < min_coverage)
+
+
+#: Largest non-orthogonality (deg) up to which the mesher's relaxed faces
+#: are accepted for the solve: the top band of the solver numerics that
+#: follow the mesh (caseprep.casefiles.render.MESH_NUMERICS, 3 correctors
+#: from 80 deg; common practice, no source).
+SOLVE_NON_ORTHO_LIMIT = 80.0
+#: The mesh checker's skewness limit (its default, from memory): above it
+#: the checker reports a failed check.
+CHECKER_SKEWNESS_LIMIT = 4.0
+
+_FACES_IN_ERROR = re.compile(r"(?m)^Checking faces in error :\n((?:[ \t]+[^\n]*:[ \t]*\d+[ \t]*\n)+)")
+
+
+def _faces_in_error(text: str) -> tuple[tuple[str, int], ...]:
+    """The mesher's last itemised list of faces in error: (criterion, count)
+    per line, criteria with a zero count left out."""
+    blocks = _FACES_IN_ERROR.findall(text)
+    if not blocks:
+        return ()
+    out = []
+    for line in blocks[-1].splitlines():
+        what, _, count = line.rpartition(":")
+        if count.strip().isdigit() and int(count) > 0:
+            out.append((" ".join(what.split()), int(count)))
+    return tuple(out)
 
 
 _CELLS_LINE = re.compile(r"(?m)^(Initial mesh|After [^:\n]*|Snapped mesh|Layer mesh)\s*:\s*cells:(\d+)")
@@ -264,6 +319,7 @@ def parse_snappy(text: str) -> SnappyLog:
         illegal_faces=illegal,
         finished=_finished(text),
         error=fatal_error(text),
+        faces_in_error=_faces_in_error(text) if illegal else (),
     )
 
 

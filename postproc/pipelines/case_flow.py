@@ -17,6 +17,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from caseprep.contract.errors import UserError
+from caseprep.contract.walls import WALL_TREATMENTS
 
 from postproc.io import flow as flowio
 from postproc.kernels import diffuser as dif
@@ -369,7 +370,12 @@ def analyse_underbody(case: flowio.FlowCase, *, lines=(0.0,), speed: float | Non
     return out
 
 
-def analyse_walls(case: flowio.FlowCase, *, target: tuple[float, float] = (30.0, 300.0),
+#: The y+ band flow passes judge by when none is given: the wall-function
+#: treatment's (caseprep.contract.walls, where it is declared).
+DEFAULT_YPLUS_BAND: tuple[float, float] = WALL_TREATMENTS["wall-function"].band
+
+
+def analyse_walls(case: flowio.FlowCase, *, target: tuple[float, float] = DEFAULT_YPLUS_BAND,
                   nu: float | None = None, speed: float | None = None, floor_lines=(0.0,), centres=None) -> dict:
     """y+ per wall patch, streamwise shear reversals on the floor lines and
     suspicious cell values. JSON-ready dict."""
@@ -463,7 +469,7 @@ def q_normalisation(case: flowio.FlowCase, q_scale: str = "auto", gap: float | N
 
 
 def flow_payload(case: flowio.FlowCase, *, q_star: float | None = None, q_scale: str = "auto",
-                 gap: float | None = None, target: tuple[float, float] = (30.0, 300.0),
+                 gap: float | None = None, target: tuple[float, float] = DEFAULT_YPLUS_BAND,
                  gd: GradientData | None = None) -> tuple[dict, GradientData | None]:
     """All flow-structure results of one case (vortices, diffuser,
     underbody, walls) as one JSON-ready dict, each part replaced by

@@ -43,7 +43,7 @@ import numpy as np
 from caseprep.contract.errors import UserError
 
 from postproc.io import flow as flowio
-from postproc.pipelines.case_flow import flow_payload, references
+from postproc.pipelines.case_flow import DEFAULT_YPLUS_BAND, flow_payload, references
 from postproc.pipelines.case_scene import build_scene
 
 
@@ -64,7 +64,7 @@ class FlowOptions:
     q_scale: str = "auto"
     q_star: float | None = None
     gap: float | None = None
-    target: tuple[float, float] = (30.0, 300.0)
+    target: tuple[float, float] = DEFAULT_YPLUS_BAND
     pair_stations: tuple[float, ...] = PAIR_STATIONS
     scene: bool = False
     plan_cells: int = 320

@@ -135,6 +135,11 @@ def test_case_monitor_window_and_verdicts(tmp_path):
     loose = tmp_path / "loose"
     _write_monitor(loose, settle, side, -settle)
     assert cv.judge_case_monitor(loose) is None
+    # the runner hands over the case's manifest record (no lookup of the manifest per case): same verdict
+    from caseprep.contract.manifest import read_manifest
+
+    rec = read_manifest(tmp_path / "a").cases[0]
+    assert cv.judge_case_monitor(loose, record=rec) == s
 
 
 #: The demo smoke case the trimmed run comes from (flat floor, 20 mm, pitch −0.6°): its manifest's

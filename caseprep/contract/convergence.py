@@ -69,7 +69,7 @@ import numpy as np
 
 from caseprep.contract.errors import UserError
 from caseprep.contract.frames import axes_rotations, axle_axes
-from caseprep.contract.manifest import find_case_manifest
+from caseprep.contract.manifest import CaseRecord, find_case_manifest
 from caseprep.contract.monitor import case_monitor, coefficient_series
 
 VERDICTS = ("converged", "oscillating", "diverging")
@@ -286,17 +286,20 @@ def judge_monitor(monitor: Mapping[str, Sequence[float]], reference: Any,
 
 
 def judge_case_monitor(case_dir: str | os.PathLike, options: ConvergenceOptions = DEFAULT_OPTIONS,
-                       window: int | None = None) -> dict[str, Any] | None:
+                       window: int | None = None, record: CaseRecord | None = None) -> dict[str, Any] | None:
     """The verdict in coefficient counts (:func:`judge_monitor`) of the force
     monitor of a case folder of a sweep, with the reference values, frames
-    and axles of its manifest record; None when the case has no manifest
-    record or no readable monitor with enough samples (nothing to judge by).
-    The verdict the runner records and the post-processing reports."""
+    and axles of its manifest ``record`` (looked up from the sweep's manifest
+    when None); None when the case has no manifest record or no readable
+    monitor with enough samples (nothing to judge by). The verdict the
+    runner records and the post-processing reports."""
     try:
-        found = find_case_manifest(case_dir)
-        if found is None:
-            return None
-        rec = found[1]
+        rec = record
+        if rec is None:
+            found = find_case_manifest(case_dir)
+            if found is None:
+                return None
+            rec = found[1]
         axle = None if rec.ground == "none" else axle_axes(rec.placement)
         return judge_monitor(case_monitor(case_dir), rec.reference, axes_rotations(rec.placement,
                              rec.wind_direction_body), axle, window, options)

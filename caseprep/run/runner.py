@@ -207,9 +207,12 @@ def _read(path: Path) -> str | None:
         return None
 
 
-def summarize_logs(case_dir: Path, valid_stages: Sequence[str], options: RunOptions = RunOptions()) -> dict[str, Any]:
+def summarize_logs(case_dir: Path, valid_stages: Sequence[str], options: RunOptions = RunOptions(),
+                   record: CaseRecord | None = None) -> dict[str, Any]:
     """Read the logs of ``valid_stages`` in ``case_dir/logs`` into record
-    fields (cells, checker verdict, layers, solver outcome, export) and flags."""
+    fields (cells, checker verdict, layers, solver outcome, export) and flags.
+    ``record``: the case's manifest record (its reference values and frames
+    for the monitor's verdict; looked up from the manifest when None)."""
     logs = case_dir / "logs"
     out: dict[str, Any] = {}
     flags: list[str] = []
@@ -258,7 +261,7 @@ def summarize_logs(case_dir: Path, valid_stages: Sequence[str], options: RunOpti
             elif r.end_reason == "converged":
                 out["convergence"] = "the solver's residual criterion was met"
             else:
-                settling = judge_case_monitor(case_dir, options.convergence)
+                settling = judge_case_monitor(case_dir, options.convergence, record=record)
                 ok, why, drop = judge_convergence(r.residuals, r.final_residuals, settling, options.convergence)
                 out.update(convergence=why, residual_drop=drop, force_settling=settling)
                 if not ok:
@@ -710,7 +713,7 @@ def _finish_record(job: _Job, status: str, message: str, ranks: int, options: Ru
         else:
             stages.append(StageRun(s, "not-run"))
     valid = [s.stage for s in stages if s.status in ("ok", "failed", "done-before", "interrupted")]
-    info = summarize_logs(job.dir, valid, options)
+    info = summarize_logs(job.dir, valid, options, job.rec)
     flags = list(info.pop("flags"))
     if status == "mesh-failed":
         flags.insert(0, "mesh-failed")

@@ -62,14 +62,12 @@ def _table(r: dict) -> str:
                   f"{f(b['cp_x'], '.4g')} m behind the front axle",
                   f"side-force centre of pressure: {f(b['side_cp_x'], '.4g')} m behind the front axle; "
                   f"stability margin {f(b['stability_margin'], '.4f')} (positive = stabilising)"]
-    cv = r.get("convergence")
-    if cv:
-        lines.append(f"convergence of the runtime monitor (last {cv['window']} samples): {cv['verdict']}")
-    cc = r.get("coefficient_convergence")
+    cc = r.get("convergence")
     if cc:
         worst = ", ".join(f"{k} {s['mean']:.4f} ± {s['std']:.4f} (drift {s['drift']:+.4f}, tol {s['tolerance']:g})"
                           for k, s in cc["series"].items() if s["verdict"] != "converged")
-        lines.append(f"in coefficient counts (window means ± std): {cc['verdict']}" + (f": {worst}" if worst else ""))
+        lines.append(f"convergence of the runtime monitor in coefficient counts (last {cc['window']} samples, "
+                     f"window means ± std): {cc['verdict']}" + (f": {worst}" if worst else ""))
     for n in r.get("notes", []) + ((b or {}).get("notes", []) if b else []):
         lines.append(f"note: {n}")
     return "\n".join(lines)

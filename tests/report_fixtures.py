@@ -6,7 +6,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from postproc.kernels.ranking import CaseResult
+from postproc.pipelines.sweep_rows import CaseResult
 from postproc.pipelines.case_scene import scene_difference
 from postproc.pipelines.report_data import PictureCase, ReportOptions, assemble, history_from_monitor
 
@@ -33,6 +33,17 @@ def demo_rows(variants):
     return rows
 
 
+def demo_analysis(rows) -> dict:
+    """The analysis of the demo rows (``postproc analyse`` with the default settings)."""
+    from dataclasses import asdict
+
+    from postproc.io.analysis_config import AnalysisConfig
+    from postproc.io.results_table import rows_table
+    from postproc.pipelines.analysis import analyse_table
+
+    return analyse_table(rows_table([asdict(r) for r in rows], "demo rows"), AnalysisConfig())
+
+
 def demo_report_data(variants=("flat", "ramp8", "ramp14"), title="DEMO floor study", notes=(),
                      pictures=True, max_bytes=5_000_000):
     rows = demo_rows(variants)
@@ -56,8 +67,7 @@ def demo_report_data(variants=("flat", "ramp8", "ramp14"), title="DEMO floor stu
                              "floor_cp_mean": -0.4, "vortex_70_circulation": 0.01, "vortex_70_y": 0.2,
                              "vortex_70_height": 0.006}
                  for j, r in enumerate(rows)}
-    spread = {v: (0.004, 0.001) for v in variants}
     return assemble(rows, title=title, study="DEMO <study> & co", notes=list(notes), flow_rows=flow_rows,
-                    scenes=scenes, picture_cases=pcs, histories=hist, spread=spread,
+                    scenes=scenes, picture_cases=pcs, histories=hist, analysis=demo_analysis(rows),
                     options=ReportOptions(pictures=pictures, baseline=variants[0] if pictures else None,
                                           max_bytes=max_bytes))

@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from caseprep.contract.convergence import ConvergenceOptions, assess, count_stats, judge_coefficients
+from caseprep.contract.convergence import ConvergenceOptions, count_stats, judge_coefficients
 from caseprep.contract.errors import UserError
 
 N = 300
@@ -25,10 +25,9 @@ def test_side_force_wandering_3_percent_is_not_converged():
     r = judge_coefficients(s)
     assert r["series"]["cs"]["verdict"] == "diverging" and r["verdict"] == "diverging"
     assert r["series"]["cs"]["drift"] == pytest.approx(0.06 * BASE["cs"], rel=1e-9)
-    # the loose rule (each force component within 1 % of the resultant) calls the same monitor
-    # converged: the side force is 3 % of a resultant ≈ 1.62 — why a rule in counts is needed
-    loose = assess(s, window=N, floor=float(np.hypot(BASE["cl"], BASE["cd"])), options=ConvergenceOptions())
-    assert loose.series["cs"].verdict == "converged"
+    # against the resultant (≈ 1.62) the same drift is 0.19 %, within a 1 %-of-the-resultant
+    # tolerance; in counts it is 0.003 > 0.002 — why the rule judges each coefficient by itself
+    assert abs(r["series"]["cs"]["drift"]) / float(np.hypot(BASE["cl"], BASE["cd"])) < 0.01
 
 
 def test_a_0p1_percent_oscillation_is_converged_and_reports_the_window_mean():
@@ -63,11 +62,16 @@ def test_bad_windows_are_refused():
     assert judge_coefficients(wander, ConvergenceOptions(count_tol_lift=0.01))["verdict"] == "converged"
 
 
-def test_monitor_series_reduce_like_the_export():
-    # a monitor holding the same loads every sample gives, per sample, exactly the
-    # coefficients of the export's reduction (postproc.coefficients) — one definition
+@pytest.mark.parametrize("rake, yaw_deg, yaw_mode", [(0.0, 0.0, "crosswind"), (0.04, 4.0, "crosswind"),
+                                                 (-0.02, 6.0, "yawed-model")])
+def test_monitor_series_reduce_like_the_export(rake, yaw_deg, yaw_mode):
+    # a monitor holding the same loads every sample gives, per sample, the coefficients of the
+    # export's reduction (postproc.kernels.coefficients) for a pitched and yawed body too
+    from caseprep.contract.convergence import judge_monitor
+    from caseprep.contract.frames import axes_rotations, axle_axes, place_body, wind_direction_ground
+    from caseprep.contract.monitor import coefficient_series
     from postproc.kernels import coefficients as co
-    from postproc.pipelines.monitor_coefficients import _result, coefficient_series, judge_monitor
+    from postproc.kernels.forces import ForceResult
 
     ref = co.ReferenceValues(area=1.2, length=2.0, rho=1.2, speed=40.0, moment_point=(1.0, 0.0, 0.0),
                              front_axle=(0.3, 0.0, 0.1), rear_axle=(2.8, 0.0, 0.1))
@@ -75,13 +79,20 @@ def test_monitor_series_reduce_like_the_export():
     n = 40
     mon = {f"force.total_{c}": np.full(n, F[i]) for i, c in enumerate("xyz")}
     mon.update({f"moment.total_{c}": np.full(n, M[i]) for i, c in enumerate("xyz")})
-    axle = (np.eye(3)[0], np.eye(3)[1], np.eye(3)[2], np.zeros(3))   # level body on the plane z = 0
-    s = coefficient_series(mon, ref, axle=axle, window=20)
-    r = _result(F, M, np.array(ref.moment_point))
-    c, b = co.coefficients(r, ref), co.balance(r, ref)     # level body, zero yaw
+    beta = np.radians(yaw_deg)   # ride heights 30 mm front, 30 mm + rake rear over a 2.5 m base
+    placement = place_body(np.array([0.3, 0.0, 0.0]), np.array([2.8, 0.0, 0.0]), 0.03, 0.03 + rake, beta, yaw_mode)
+    wind = placement.rotation.T @ wind_direction_ground(beta, yaw_mode)
+    rot, axle = axes_rotations(placement, wind), axle_axes(placement)
+    s = coefficient_series(mon, ref, rot, axle, window=20)
+    z = np.zeros(3)
+    r = ForceResult(force=F, force_pressure=z, force_viscous=z, moment=M, moment_pressure=z, moment_viscous=z,
+                    area=0.0, about=np.array(ref.moment_point), n_faces=0)
+    c, b = co.coefficients(r, ref, rot), co.balance(r, ref, axle)
     assert len(s["cl"]) == 20
-    assert s["cl"][0] == pytest.approx(c.lift) and s["cd"][0] == pytest.approx(c.drag)
-    assert s["cn"][0] == pytest.approx(c.yawing)
-    assert s["cl_front"][0] == pytest.approx(b.c_lift_front) and s["cl_rear"][0] == pytest.approx(b.c_lift_rear)
-    v = judge_monitor(mon, ref, axle=axle, window=20)
-    assert v["verdict"] == "converged" and v["means"]["cl"] == pytest.approx(c.lift)
+    # the same formulas evaluated in another order: equal to rounding (1e-12 of values of order 1)
+    for key, want in (("cl", c.lift), ("cd", c.drag), ("cs", c.side), ("cn", c.yawing),
+                      ("cl_front", b.c_lift_front), ("cl_rear", b.c_lift_rear)):
+        assert s[key][0] == pytest.approx(want, rel=1e-12, abs=1e-12), key
+    v = judge_monitor(mon, ref, rot, axle, window=20)
+    assert v["verdict"] == "converged" and v["means"]["cl"] == pytest.approx(c.lift, rel=1e-12)
+

@@ -127,8 +127,9 @@ def test_single_point_per_variant_refuses_maps_but_ranks(tmp_path):
 
 def test_sweep_folder_source(tmp_path):
     # a folder as `postproc sweep` leaves it: results.json rows (flags as a
-    # space-separated string) and results/<case>.json with the reference
-    # values and the force monitor's spread over the settling window
+    # space-separated string, no spreads of their own) and results/<case>.json
+    # whose forces report holds the reference values and the monitor's verdict
+    # in coefficient counts with its spreads over the settling window
     sweep = tmp_path / "sweep"
     (sweep / "results").mkdir(parents=True)
     cases = []
@@ -139,17 +140,16 @@ def test_sweep_folder_source(tmp_path):
                       "pitch_deg": -0.5, "yaw_deg": 0.0, "speed": 40.0, "mesh_level": 0, "cl": float(cl),
                       "cd": float(cd), "cs": 0.0, "cl_front": float(clf), "cl_rear": float(clr), "balance": None,
                       "flags": "not-converged" if cid == "b-15" else "", "status": "ok"})
-        (sweep / "results" / f"{cid}.json").write_text(json.dumps({
-            "reference": {"area": 0.9, "q": 980.0},
-            "convergence": {"series": {"force.total_x": {"std": 0.09}, "force.total_y": {"std": 0.12},
-                                       "force.total_z": {"std": 0.441}}}}))
+        (sweep / "results" / f"{cid}.json").write_text(json.dumps({"forces": {
+            "reference": {"area": 0.9, "q": 980.0, "rho": 1.2},
+            "convergence": {"verdict": "converged", "stds": {"cl": 5e-4, "cd": 1.5e-4, "cs": 1e-4}}}}))
     (sweep / "results.json").write_text(json.dumps({"cases": cases}))
     r = _run([sweep])
     assert r.exit_code == 0, r.output
     d = json.loads((sweep / "analysis.json").read_text())
     pt = next(p for p in d["points"] if p["cases"] == ["a-0"])
     assert pt["reference_area"] == pytest.approx(0.9)
-    # iterative u of C_L = σ(F_z)/(qA) = 0.441/(980·0.9) = 5e-4
+    # the iterative u of C_L is the window std of C_L in the case's stored result
     assert pt["uncertainty"]["cl"]["iterative"] == pytest.approx(5e-4, rel=1e-9)
     b = next(v for v in d["ranking"]["variants"] if v["variant"] == "b")
     assert b["complete"] is False and b["flagged_points"][0]["flags"] == ["not-converged"]

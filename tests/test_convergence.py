@@ -5,37 +5,38 @@ import numpy as np
 import pytest
 
 from caseprep.contract.errors import UserError
-from caseprep.contract.convergence import assess, assess_series
+from caseprep.contract.convergence import count_stats, judge_coefficients
 from caseprep.contract.monitor import read_monitor
 
 N = np.arange(400)
 
 
 def test_verdicts():
+    # each series in its own units against its tolerance (coefficient counts, invented histories)
     rng = np.random.default_rng(0)
     settled = 0.85 + 0.4 * np.exp(-N / 30) + 1e-4 * rng.normal(size=N.size)
-    s = assess_series("Cd", settled, window=200, floor=1e-3)
+    s = count_stats("cd", settled[-200:], 0.002)
     assert s.verdict == "converged" and s.mean == pytest.approx(0.85, abs=1e-3)
     osc = 0.85 + 0.05 * np.sin(N / 5.0)
-    assert assess_series("Cd", osc, window=200, floor=1e-3).verdict == "oscillating"
+    assert count_stats("cd", osc[-200:], 0.002).verdict == "oscillating"
     runaway = 0.85 + 0.002 * N
-    s = assess_series("Cd", runaway, window=200, floor=1e-3)
-    assert s.verdict == "diverging" and s.drift == pytest.approx(0.002 * 199 / s.mean, rel=1e-9)
+    s = count_stats("cd", runaway[-200:], 0.002)
+    assert s.verdict == "diverging" and s.drift == pytest.approx(0.002 * 199, rel=1e-9)
     bad = settled.copy()
     bad[-3] = np.nan
-    assert assess_series("Cd", bad, floor=1e-3).verdict == "diverging"
-    # near-zero series (side force of a symmetric body) judged against the floor, not its tiny mean
-    assert assess_series("Cs", 1e-6 * rng.normal(size=300), floor=1e-3).verdict == "converged"
-    a = assess({"Cd": settled, "Cl": osc}, window=200, floor=1e-3)
-    assert a.verdict == "oscillating" and a.window == 200
+    assert count_stats("cd", bad[-200:], 0.002).verdict == "diverging"
+    # a near-zero series (side force of a symmetric body) is judged in counts, not relative to its tiny mean
+    assert count_stats("cs", 1e-6 * rng.normal(size=300), 0.002).verdict == "converged"
+    a = judge_coefficients({"cd": settled[-200:], "cl": osc[-200:]})
+    assert a["verdict"] == "oscillating" and a["window"] == 200
     with pytest.raises(UserError):
-        assess_series("Cd", [1.0, 2.0], floor=1e-3)
+        count_stats("cd", [1.0, 2.0], 0.002)
 
 
 def test_inputs_not_modified():
     v = np.linspace(0, 1, 50)
     v0 = v.copy()
-    assess_series("x", v, window=20, floor=1e-3)
+    count_stats("x", v, 0.002)
     np.testing.assert_array_equal(v, v0)
 
 

@@ -369,25 +369,39 @@ def test_the_settled_stop_rule_stops_a_settled_solve_early(tmp_path):
 def test_judge_stop_rule():
     import numpy as np
 
-    from caseprep.contract.convergence import DEFAULT_OPTIONS, judge_stop
+    from caseprep.contract.convergence import (DEFAULT_OPTIONS, judge_coefficients, judge_stop, stop_options,
+                                               stop_window)
 
-    res = {"p": tuple([0.5] * 5 + [1e-4] * 95)}
-    settled = {"verdict": "converged", "window": 30, "max_drift": 0.001, "max_rel_std": 0.001}
-    moving = dict(settled, verdict="oscillating")
-    qa = 100.0  # N
-    flat = {"force.total_x": np.full(100, 20.0), "force.total_z": np.full(100, -50.0)}
-    assert judge_stop(res, {"p": 1e-4}, settled, flat, qa, 100)[0] is True
-    assert judge_stop(res, {"p": 1e-4}, settled, flat, qa, DEFAULT_OPTIONS.stop_min_iterations - 1)[0] is False
-    # residuals below the tolerance do not stop a run whose loads still move
-    ok, why = judge_stop(res, {"p": 1e-4}, moving, flat, qa, 100)
-    assert ok is False and "not settled" in why
-    # a slow drift: 0.0030 in C_L over the last 50 iterations, settled by the 1 % rule but not for a stop
-    # (the stop needs the lift component within 0.5 × 0.005 in coefficient units)
-    slow = dict(flat, **{"force.total_z": -50.0 + np.linspace(0.0, 0.6, 100)})
-    ok, why = judge_stop(res, {"p": 1e-4}, settled, slow, qa, 100)
-    assert ok is False and "force.total_z still moves over the last 50 iterations: drift 0.0030" in why
-    half = dict(flat, **{"force.total_z": -50.0 + np.linspace(0.0, 0.4, 100)})  # 0.0020 < 0.0025: stops
-    assert judge_stop(res, {"p": 1e-4}, settled, half, qa, 100)[0] is True
+    n = 100
+    w = stop_window(n)
+    assert w == 50  # the last half of the run (at least 40)
+    res = {"p": tuple([0.5] * 5 + [1e-4] * (n - 5))}
+    strict = stop_options(DEFAULT_OPTIONS)
+    assert strict.count_tol_lift == 0.0025 and strict.count_tol_drag_side == 0.001
+
+    def verdict(cl, opts):
+        return judge_coefficients({"cl": np.asarray(cl)[-w:], "cd": np.full(w, 0.21)}, opts)
+
+    steady = np.full(n, -0.80)
+    assert judge_stop(res, {"p": 1e-4}, verdict(steady, strict), n)[0] is True
+    assert judge_stop(res, {"p": 1e-4}, verdict(steady, strict), DEFAULT_OPTIONS.stop_min_iterations - 1)[0] is False
+    # a slow drift of C_L, 0.003 across the window: within the rule's 0.005, not within the stop's half
+    slow = -0.80 + np.linspace(0.0, 0.006, n)
+    assert verdict(slow, DEFAULT_OPTIONS)["verdict"] == "converged"
+    ok, why = judge_stop(res, {"p": 1e-4}, verdict(slow, strict), n)
+    assert ok is False and "not within half its tolerances" in why and "cl drift" in why
+    # residuals below the tolerance do not stop a run without a monitor
+    assert judge_stop(res, {"p": 1e-4}, None, n) == (False, "no force monitor to judge the stop by")
     # residuals above the tolerance that fell too little
-    ok, why = judge_stop({"p": tuple([0.01] * 100)}, {"p": 5e-3}, settled, flat, qa, 100)
+    ok, why = judge_stop({"p": tuple([0.01] * n)}, {"p": 5e-3}, verdict(steady, strict), n)
     assert ok is False and "orders of magnitude" in why
+
+
+def test_a_flagged_case_solved_before_is_not_planned_as_a_source(tmp_path):
+    root = economy_sweep(tmp_path / "s", {"near": (0.021, 30.0, None), "far": (0.03, 30.0, None),
+                                          "new": (0.02, 30.0, None)}, warm="nearest")
+    stand_in(root, "near", solver="simpleFoam_endtime.log")  # ends flagged not-converged
+    runner.run_sweep(root, only=["near"], jobs=1, ranks=1)
+    runner.run_sweep(root, only=["far"], jobs=1, ranks=1)
+    (rec,) = runner.run_sweep(root, only=["new"], jobs=1, ranks=1)
+    assert rec.initial_field["source"] == "far"  # the nearer one is flagged: never a source

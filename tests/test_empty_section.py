@@ -9,7 +9,7 @@ import pytest
 
 from caseprep.casefiles import foamdict as fd
 from caseprep.config.load import load_config
-from caseprep.planning.domain import ground_grading
+from caseprep.planning.empty_section import ground_grading
 from caseprep.contract.errors import UserError, UserErrors
 from caseprep.planning.planner import plan
 from caseprep.casefiles.render import render_case

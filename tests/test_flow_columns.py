@@ -22,7 +22,7 @@ from caseprep.contract.frames import place_body
 from caseprep.contract.manifest import CaseRecord, Manifest, Reference, write_manifest
 from postproc.cli import main
 from postproc.io import flow as flowio
-from postproc.pipelines.case_flow import FlowOptions, analyse_case_flow, flow_metrics
+from postproc.pipelines.flow_columns import FlowOptions, analyse_case_flow, flow_metrics
 from postproc.pipelines.sweep import SweepOptions, postprocess_sweep
 
 from flow_meshes import box_grid, box_patch, lamb_oseen

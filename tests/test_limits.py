@@ -191,3 +191,58 @@ def test_readme_lists_every_limit():
     sec = sec[:sec.index("\n## ", 5)]
     for lim in LIMITS:
         assert f"| {lim.what} | {_num(lim.value)} {lim.unit} | {lim.why} |" in sec, lim
+
+
+# ------------------------------------------------------------------ results tables (postproc analyse)
+
+def _floor_table(path: Path, rows: int, variants: int) -> Path:
+    """A results CSV of an invented floor (DEMO numbers): ``variants``
+    variants sharing a grid of front ride height × rake, −C_L peaking at
+    20 mm front ride height."""
+    import math
+
+    lines = ["# DEMO — invented results table",
+             "case_id,variant,ride_height_front,ride_height_rear,yaw_deg,speed,mesh_level,cl,cd,cs,cl_front,cl_rear,flags"]
+    for i in range(rows):
+        k = i // variants
+        hf, rake = 0.010 + 0.0005 * (k % 80), 0.002 * ((k // 80) % 20)
+        x = hf / 0.02
+        df = 1.2 * x * math.exp(1 - x) * (1 + 2 * rake) + 0.003 * math.sin(7.0 * i)
+        lines.append(f"r{i},v{i % variants},{hf:.5f},{hf + rake:.5f},0,40,0,{-df:.5f},{0.3 + 0.05 * df:.5f},0,"
+                     f"{-0.45 * df:.5f},{-0.55 * df:.5f},")
+    path.write_text("\n".join(lines) + "\n")
+    return path
+
+
+def test_results_table_over_the_row_limit_is_refused_at_once(tmp_path):
+    # 207,000 rows used to run for minutes (a duplicate check quadratic in the rows, then the analysis)
+    from postproc.cli import main as postproc_main
+
+    from caseprep.contract.limits import MAX_TABLE_ROWS
+
+    src = _floor_table(tmp_path / "results.csv", 207_000, 3)
+    t0 = time.perf_counter()
+    r = CliRunner().invoke(postproc_main, ["analyse", str(src), "-o", str(tmp_path / "out")])
+    took = time.perf_counter() - t0
+    assert r.exit_code == 2 and r.exception is None or isinstance(r.exception, SystemExit), r.output
+    assert f"expected at most {int(MAX_TABLE_ROWS):,} data rows, got '207,000 rows' in {src} at line 207002" in r.output
+    assert "Fix: split the table" in r.output
+    assert not (tmp_path / "out").exists()
+    assert took < 20, took          # reading 12 MB of text and counting lines; seconds even on a busy machine
+
+
+@pytest.mark.slow
+def test_results_table_at_the_row_limit_is_analysed(tmp_path):
+    # 10,000 rows (4 variants at 2,500 points each, the spline's leave-one-out capped at 200 points per map):
+    # measured 5–8 s on the shared two-core machine; 120 s is the bound of a hang, not a benchmark
+    from postproc.cli import main as postproc_main
+
+    from caseprep.contract.limits import MAX_TABLE_ROWS
+
+    src = _floor_table(tmp_path / "results.csv", int(MAX_TABLE_ROWS), 4)
+    t0 = time.perf_counter()
+    r = CliRunner().invoke(postproc_main, ["analyse", str(src), "-o", str(tmp_path / "out")])
+    took = time.perf_counter() - t0
+    assert r.exit_code == 0, r.output
+    assert (tmp_path / "out" / "analysis.json").is_file()
+    assert took < 120, took

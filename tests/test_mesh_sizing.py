@@ -16,7 +16,7 @@ from caseprep.contract.errors import UserError, UserErrors
 from caseprep.contract.manifest import CaseRecord
 from caseprep.contract.walls import WALL_TREATMENTS
 from caseprep.planning import physics as ph
-from caseprep.planning.domain import LEVEL_FACTOR, cells_across
+from caseprep.planning.meshsizing import LEVEL_FACTOR, cells_across
 from caseprep.planning.planner import plan, plan_all
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -62,7 +62,7 @@ def test_first_cell_centre_sits_in_the_wall_function_band(tmp_path, fidelity):
         assert yc == pytest.approx(c.extra["centre_yplus"], rel=1e-6)
         assert c.extra["yplus_band"] == [lo, hi] and c.extra["wall_treatment"] == "wall-function"
         # the post-processing judges the case by the same band (declared once in caseprep.contract.walls)
-        from postproc.pipelines.sweep import case_yplus_band
+        from postproc.pipelines.sweep_case import case_yplus_band
         assert case_yplus_band(CaseRecord.from_dict(c.record("cases/x").to_dict())) == (lo, hi)
 
 
@@ -154,8 +154,9 @@ def test_mesh_levels_are_geometrically_similar(tmp_path):
 def test_cell_size_from_cell_count_follows_the_count_ratio(tmp_path):
     # h = (V/N)^(1/3) (Celik et al. 2008, eq. 1): recorded per case from its manifest volume and real cell count; the
     # ratio of two levels' h is the cube root of the inverse cell-count ratio, and the mesh study uses these h
-    from postproc.kernels.ranking import CaseResult
-    from postproc.pipelines.sweep import case_cell_size, mesh_study
+    from postproc.pipelines.sweep_rows import CaseResult
+    from postproc.pipelines.sweep_case import case_cell_size
+    from postproc.pipelines.sweep_rows import mesh_study
 
     cases = plan(load_config(floor_config(tmp_path, ride_heights=(0.02,), variants=("diffuser14",), levels=(0, 1, 2))))
     recs = {c.params["mesh_level"]: CaseRecord.from_dict(c.record(f"cases/{c.case_id}").to_dict()) for c in cases}

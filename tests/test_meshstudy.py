@@ -50,9 +50,11 @@ def test_oscillatory_and_degenerate_sets_say_so():
 def test_sweep_mesh_study_and_ranking_on_the_finest_level(tmp_path):
     # three mesh levels of one operating point, values on an exact second-order
     # law in the level cell size h_m = 2^(-m/2) (Richardson 1911: exact recovery)
-    from postproc.kernels.ranking import CaseResult, rank_variants
+    from postproc.pipelines.sweep_rows import CaseResult
     from postproc.report import write_report
-    from postproc.pipelines.sweep import analyse_results, level_cell_size, mesh_study
+    from postproc.pipelines.analysis_points import level_cell_size
+    from postproc.pipelines.sweep import analyse_results
+    from postproc.pipelines.sweep_rows import mesh_study
 
     rows = []
     for m in (0, 1, 2):
@@ -67,9 +69,10 @@ def test_sweep_mesh_study_and_ranking_on_the_finest_level(tmp_path):
     assert a_cl["order"] == pytest.approx(2.0, rel=1e-9) and a_cl["extrapolated"] == pytest.approx(-1.2, rel=1e-9)
     b_cd = next(s for s in study if s["variant"] == "b" and s["coefficient"] == "cd")
     assert b_cd["gci_fine"] == 0.0  # identical on every level
-    # the ranking uses level 2 only: variant a's downforce there is 1.2 - 0.3/4
-    scores = {s.variant: s for s in rank_variants(rows)}
-    assert scores["a"].metrics["downforce"] == pytest.approx(1.2 - 0.3 * 0.25)
-    assert scores["a"].n_cases == 1
-    text = write_report(analyse_results(rows, mesh=study), tmp_path / "r.html").read_text()
+    # the analysis compares on the finest level: variant a's downforce there is 1.2 - 0.3/4
+    a = analyse_results(rows, mesh=study)
+    scores = {v["variant"]: v for v in a.analysis["ranking"]["variants"]}
+    assert scores["a"]["metrics"]["downforce"]["value"] == pytest.approx(1.2 - 0.3 * 0.25)
+    assert scores["a"]["n_usable"] == 1
+    text = write_report(a, tmp_path / "r.html").read_text()
     assert "Mesh dependence" in text and "Celik" in text

@@ -23,7 +23,7 @@ sys.path.insert(0, str(Path(__file__).parent / "hostile"))
 from builders import edit_manifest, finished_sweep, run_record  # noqa: E402
 from caseprep.contract.templating import environment  # noqa: E402
 from postproc.cli import main as postproc_main  # noqa: E402
-from postproc.pipelines.sweep import spreadsheet_safe  # noqa: E402
+from postproc.pipelines.sweep_rows import spreadsheet_safe  # noqa: E402
 
 TEMPLATE = "report/sweep_report.html.j2"
 

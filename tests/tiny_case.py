@@ -340,19 +340,23 @@ def write_tiny_sweep(root: str | os.PathLike, variants=("ok",), n_iter: int = 30
     return root
 
 
-def write_manifest_only(root: str | os.PathLike, case_ids) -> Path:
+def write_manifest_only(root: str | os.PathLike, case_ids, reference: Reference | None = None,
+                        placement=None, wind_direction_body=(1.0, 0.0, 0.0)) -> Path:
     """manifest.json and cases.txt for cases ``cases/<id>`` (folders created
-    empty), with the tiny case's placement and reference values."""
+    empty), with the tiny case's placement and reference values unless
+    others are given."""
     root = Path(root)
-    placement = place_body(np.array([0.30, 0.0, 0.05]), np.array([0.50, 0.0, 0.05]), 0.05, 0.05)
-    ref = Reference(area=0.0128, length=0.2, wheelbase=0.2, front_axle=(0.3, 0.0, 0.0),
-                    rear_axle=(0.5, 0.0, 0.0), moment_point=(0.4, 0.0, 0.0), rho=1.0, nu=1e-3, speed=1.0)
+    if placement is None:
+        placement = place_body(np.array([0.30, 0.0, 0.05]), np.array([0.50, 0.0, 0.05]), 0.05, 0.05)
+    ref = reference or Reference(area=0.0128, length=0.2, wheelbase=0.2, front_axle=(0.3, 0.0, 0.0),
+                                 rear_axle=(0.5, 0.0, 0.0), moment_point=(0.4, 0.0, 0.0), rho=1.0, nu=1e-3,
+                                 speed=1.0)
     records = []
     for cid in case_ids:
         (root / "cases" / cid).mkdir(parents=True, exist_ok=True)
         records.append(CaseRecord(
             case_id=cid, folder=f"cases/{cid}", variant="v", params={}, yaw_mode="crosswind",
-            ground="stationary", mesh_frame="body", placement=placement, wind_direction_body=(1.0, 0.0, 0.0),
+            ground="stationary", mesh_frame="body", placement=placement, wind_direction_body=tuple(wind_direction_body),
             reference=ref, patches={"body": ["body"], "wheels": [], "ground": "ground"}, fidelity="smoke"))
     write_manifest(Manifest(cases=tuple(records), tool_version="test", config_file="", config_hash="",
                             created_utc="", study="test"), root)

@@ -79,10 +79,25 @@ MAX_VTK_SECONDS = Limit("time to read one case's VTK surfaces", 600, "s",
 MAX_ANALYSIS_SECONDS = Limit("time to read and analyse one case's volume (flow columns, flow commands)", 3600, "s",
                              "a hung reader must not hang the sweep; a large mesh's vortex analysis takes minutes")
 
+# ------------------------------------------------------------ results tables (postproc analyse)
+MAX_TABLE_BYTES = Limit("size of a results CSV, or of a sweep's results.json, read by postproc analyse", 50_000_000,
+                        "bytes", "the whole table is held in memory as text while it is parsed")
+MAX_TABLE_ROWS = Limit("data rows of a results table", MAX_CASES.value, "rows",
+                       "as many as a sweep has cases; the maps, peaks and ranking of 10,000 rows take minutes")
+MAX_TABLE_COLUMNS = Limit("columns of a results CSV", 200, "columns",
+                          "the table has 20 columns (others are ignored); each column is parsed in every row")
+MAX_CELL_LENGTH = Limit("characters of one cell of a results CSV", 256, "characters",
+                        "names have at most 64 characters, flags a few words, numbers about 20 characters")
+MAX_TABLE_VARIANTS = Limit("variants of a results table", MAX_VARIANTS.value, "variants",
+                           "each variant gets its maps, peaks and platform; as many as a sweep may have")
+MAX_TABLE_PAIRS = Limit("variants × distinct operating points of a results table", 200_000, "pairs",
+                        "the ranking lists, for every variant, each point of the envelope it misses or has flagged")
+
 LIMITS: tuple[Limit, ...] = (
     MAX_NAME_LENGTH, MAX_TEXT_LENGTH, MAX_CONFIG_BYTES, MAX_AXIS_VALUES, MAX_VARIANTS, MAX_CASES, MAX_CELLS,
     MAX_RANKS, MAX_ITERATIONS, MAX_DOMAIN_LENGTHS, MAX_LENGTH, MAX_STL_TRIANGLES, MAX_JSON_BYTES, MAX_JSON_DEPTH,
-    MAX_VTK_MEMORY, MAX_VTM_BLOCKS, MAX_VTK_SECONDS, MAX_ANALYSIS_SECONDS,
+    MAX_VTK_MEMORY, MAX_VTM_BLOCKS, MAX_VTK_SECONDS, MAX_ANALYSIS_SECONDS, MAX_TABLE_BYTES, MAX_TABLE_ROWS,
+    MAX_TABLE_COLUMNS, MAX_CELL_LENGTH, MAX_TABLE_VARIANTS, MAX_TABLE_PAIRS,
 )
 
 

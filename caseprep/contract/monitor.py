@@ -5,13 +5,16 @@ name :data:`FORCES_NAME`; it writes ``postProcessing/<name>/<start time>/``
 ``force.dat`` (N), ``moment.dat`` (N·m about the monitor's centre) and, for
 ``forceCoeffs``, ``coefficient.dat``, one row per iteration (steady) or time
 step. :func:`read_monitor` reads them into series by column name (joining
-restarts); the files are untrusted input.
+restarts); the files are untrusted input. :func:`coefficient_series`
+reduces the monitor's loads to the coefficients the convergence rule judges
+(:mod:`caseprep.contract.convergence`), sample by sample.
 """
 from __future__ import annotations
 
 import os
 import re
 from pathlib import Path
+from typing import Any, Mapping, Sequence
 
 import numpy as np
 
@@ -113,3 +116,70 @@ def _isnum(s: str) -> bool:
         return True
     except ValueError:
         return False
+
+
+def case_monitor(case_dir: str | os.PathLike) -> dict[str, np.ndarray]:
+    """The force monitor of a case: :data:`FORCES_NAME` when the case has
+    it, else every monitor under ``postProcessing/`` (:func:`read_monitor`).
+    Raises UserError when none is readable."""
+    named = (Path(case_dir) / "postProcessing" / FORCES_NAME).is_dir()
+    return read_monitor(case_dir, FORCES_NAME if named else None)
+
+
+def coefficient_series(monitor: Mapping[str, Sequence[float]], reference: Any,
+                       rotations: Mapping[str, np.ndarray] | None = None,
+                       axle: tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray] | None = None,
+                       window: int | None = None) -> dict[str, np.ndarray]:
+    """The monitor's loads over its last ``window`` samples (all when None)
+    as coefficient series, each sample reduced like an exported surface.
+
+    ``monitor``: ``force.total_x/y/z`` (N) and optionally
+    ``moment.total_x/y/z`` (N·m about ``reference.moment_point``, where the
+    case files put the monitor's centre), body axes. ``reference``: any
+    object with ``area`` (m²), ``length`` (m), ``rho`` (kg/m³), ``speed``
+    (m/s), ``moment_point``, ``front_axle``, ``rear_axle`` (body frame, m):
+    the manifest's :class:`~caseprep.contract.manifest.Reference` or the
+    post-processing's reference values. ``rotations``:
+    :func:`caseprep.contract.frames.axes_rotations` of the case (default a
+    level body at zero yaw); ``axle``: :func:`caseprep.contract.frames.axle_axes`
+    (None: no axle loads, e.g. a body without ground).
+
+    Formulas (per sample; q = ½ρV²):
+    C_D, C_S, C_L = (Q_W F)_x,y,z / (q A) and C_N = (Q_W M)_z / (q A L),
+    Q_W the body → wind rotation; axle loads from statics about the
+    wheelbase midpoint at ground level m (ℓ the axles' distance along x_A
+    once projected on the ground): L = F·z_A, M_m = (M + (r_0 − m) × F)·y_A,
+    C_LF = (L/2 + M_m/ℓ)/(q A), C_LR = (L/2 − M_m/ℓ)/(q A) (the definitions
+    of ``postproc.kernels.coefficients``; vehicle-aerodynamics practice,
+    SAE J1594 terms, from memory). Without ``moment.total_*`` the moment
+    series (C_N, axle loads) are left out. Raises KeyError when the forces
+    are missing, UserError for a wheelbase that is not positive."""
+    F = np.stack([np.asarray(monitor[f"force.total_{c}"], dtype=float) for c in "xyz"], axis=1)
+    has_m = all(f"moment.total_{c}" in monitor for c in "xyz")
+    M = np.stack([np.asarray(monitor[f"moment.total_{c}"], dtype=float) for c in "xyz"], axis=1) if has_m else None
+    if window is not None:
+        F = F[-window:]
+        M = None if M is None else M[-window:]
+    qA = 0.5 * float(reference.rho) * float(reference.speed) ** 2 * float(reference.area)
+    Qw = np.asarray((rotations or {}).get("wind", np.eye(3)), dtype=float)
+    fw = F @ Qw.T
+    out = {"cl": fw[:, 2] / qA, "cd": fw[:, 0] / qA, "cs": fw[:, 1] / qA}
+    if M is None:
+        return out
+    out["cn"] = (M @ Qw.T)[:, 2] / (qA * float(reference.length))
+    if axle is None or reference.front_axle is None or reference.rear_axle is None:
+        return out
+    xA, yA, zA, g = (np.asarray(a, dtype=float) for a in axle)
+    on_ground = lambda p: p - np.dot(p - g, zA) * zA  # noqa: E731
+    fa = on_ground(np.asarray(reference.front_axle, dtype=float))
+    ra = on_ground(np.asarray(reference.rear_axle, dtype=float))
+    mid = 0.5 * (fa + ra)
+    wb = float(np.dot(ra - fa, xA))
+    if not wb > 0:
+        raise UserError(expected="a rear axle behind the front axle (larger body x)", got=f"{wb:.6g} m apart",
+                        key="reference.rear_axle", fix="check the axle positions (body frame, x rearward)")
+    lift = F @ zA
+    pitch = (M + np.cross(np.asarray(reference.moment_point, dtype=float) - mid, F)) @ yA
+    out["cl_front"] = (lift / 2 + pitch / wb) / qA
+    out["cl_rear"] = (lift / 2 - pitch / wb) / qA
+    return out

@@ -178,8 +178,10 @@ class CaseRunRecord:
     :mod:`caseprep.contract.convergence`); ``residual_drop``: the smallest drop of a field's
     initial residual over the run, in orders of magnitude (log10 of the
     largest of the first five iterations over the final); ``force_settling``:
-    the force monitor over the settling window (``window`` samples,
-    ``verdict``, largest |drift| and relative std, fractions).
+    the force monitor's verdict in coefficient counts over the settling
+    window (:func:`caseprep.contract.convergence.judge_case_monitor`:
+    ``verdict``, ``window`` samples, per coefficient ``series`` statistics,
+    window ``means`` and ``stds``), None without a monitor to judge by.
     """
 
     case_id: str

@@ -36,25 +36,9 @@ boundaries move by less than one background cell (the domain is a whole
 number of cells long at every level), and the ground rectangle with prism
 layers follows the background cells likewise.
 
-The gap
--------
-Under the body the mesh must resolve the flow between floor and ground.
-The **reference clearance** c is the smaller of the two ride heights (the
-heights of the ride-height reference points). Cells across a clearance h:
-
-    n(h) = s N + (h − s T)/Δz,
-
-with N prism layers of total thickness T on each of the s walls that carry
-them (s = 2: floor and ground, 1: floor only, 0: no layers) and Δz the core
-cell height. The underbody is covered by slab boxes (one per eighth of the
-body length) from the ground to the underside (floor, tunnels, diffuser:
-:mod:`caseprep.geometry.underside`); their cells are refined isotropically to
-the gap level g (the coarsest level at or above the finest surface level
-with at least ``iso_gap_cells`` cells across c) and then split ``z`` times
-along the floor normal, Δz = Δ_g/2ᶻ, z chosen per slab as the fewest splits
-that give n ≥ ``mesh.gap_cells`` across the larger of c and the slab's own
-smallest clearance. The rear of the floor gets a wake region behind the
-diffuser.
+The mesh lengths (presets, base cell per level, prism layers, the gap plan)
+are in :mod:`caseprep.planning.meshsizing`; the empty test section in
+:mod:`caseprep.planning.empty_section`.
 """
 from __future__ import annotations
 
@@ -66,9 +50,10 @@ import numpy as np
 
 from caseprep.contract.frames import Placement, axle_axes, ground_to_wind_rotation, wind_direction_ground
 from caseprep.contract.limits import MAX_CELLS, MAX_RANKS
-from caseprep.contract.walls import LOW_RE_TARGET_YPLUS, WALL_TREATMENTS
+from caseprep.contract.walls import WALL_TREATMENTS
 from caseprep.geometry.underside import Underside
-from caseprep.planning.physics import first_cell_height, layer_stack_thickness
+from caseprep.planning.meshsizing import (LEVEL_FACTOR, GapPlan, LayerPlan, MeshSettings, base_cell_size, plan_gap,
+                                         plan_layers)
 from caseprep.planning.spec import Domain, Layers, MeshSpec, OrientedBox, RefinementRegion
 
 WARN_BLOCKAGE = 0.01  # common practice, no source
@@ -79,216 +64,6 @@ UNDERBODY_SLABS = 8
 MAX_STACK_SHARE = 0.75
 
 
-@dataclass(frozen=True)
-class Preset:
-    """A fidelity preset. ``cells_per_length``: body length / base cell at
-    mesh level 0; levels as in :class:`~caseprep.planning.spec.RefinementRegion`;
-    ``gap_cells``: cells required across the reference clearance (prism
-    layers and core cells, see the module docstring); ``iso_gap_cells``:
-    cells of the isotropic gap level across it; ``max_z_splits``: most
-    splits of the gap cells along the floor normal (0: isotropic cells
-    only); ``max_level``: finest isotropic level the underbody may use;
-    ``wake_length`` in body lengths behind the body; ``layers`` 0 = no prism
-    layers; ``target_yplus`` the y+ at the first cell centre at mesh level 0
-    (wall functions); ``ground_layers``: prism layers also on the ground
-    under the body."""
-
-    name: str
-    cells_per_length: float
-    surface_levels: tuple[int, int]
-    feature_level: int
-    max_level: int
-    gap_cells: float
-    iso_gap_cells: float
-    max_z_splits: int
-    wake_level: int
-    wake_length: float
-    layers: int
-    layer_expansion: float
-    target_yplus: float
-    ground_layers: bool
-    iterations: int
-
-
-PRESETS: dict[str, Preset] = {
-    # smoke: meshes and solves in under a minute on two cores (tens of
-    # thousands of cells on the demo body, 180 iterations). Base cell L/5;
-    # body surface at level 3 (L/40), so the body's shape and a diffuser ramp
-    # are there at all; no prism layers (wall functions on the snapped
-    # cells). It relaxes the gap rule: one isotropic cell across the
-    # reference clearance (level 4 = L/80 for clearances from L/80 to L/40;
-    # level 5 at most, so clearances below L/160 are refused) and no splits.
-    # One or two cells across the gap give the venturi's blockage and the
-    # ordering of floors, not a resolved underbody boundary layer: use
-    # `coarse` or finer for numbers.
-    "smoke": Preset("smoke", 5.0, (1, 3), 2, 5, 1.0, 1.0, 0, 1, 1.0, 0, 1.3, 100.0, False, 180),
-    # coarse and production: at least 12 cells across the reference clearance
-    # (common practice, no source), prism layers on the body and on the
-    # ground under it, first cell centre at y+ 100 (coarse) / 60 (production)
-    # at mesh level 0: inside the wall-function band 30-150 for mesh levels
-    # 0-3 (coarse) / 0-2 (production) of a similar mesh study.
-    "coarse": Preset("coarse", 6.0, (3, 4), 4, 7, 12.0, 2.0, 3, 2, 2.0, 3, 1.2, 100.0, True, 1000),
-    "production": Preset("production", 8.0, (4, 6), 6, 9, 12.0, 2.0, 3, 3, 3.0, 5, 1.2, 60.0, True, 3000),
-}
-
-LEVEL_FACTOR = math.sqrt(2.0)  # refinement of every mesh length per sweep mesh level
-
-
-@dataclass(frozen=True)
-class MeshSettings:
-    """A preset with the config's overrides applied (``base_cell`` None:
-    body length / cells_per_length; ``layers`` None: as many as the wall
-    treatment needs, see :func:`layer_count`)."""
-
-    preset: Preset
-    base_cell: float | None
-    surface_levels: tuple[int, int]
-    feature_level: int
-    max_level: int
-    gap_cells: float
-    layers: int | None
-    layer_expansion: float
-    target_yplus: float
-    wall_treatment: str = "wall-function"
-
-
-def mesh_settings(fidelity: str, base_cell=None, surface_levels=None, feature_level=None, max_level=None,
-                  gap_cells=None, layers=None, layer_expansion=None, target_yplus=None,
-                  wall_treatment: str = "wall-function") -> MeshSettings:
-    """Resolve a preset and the overrides (None keeps the preset's value).
-    ``wall_treatment`` "low-re" aims at y+ ≈ 1 at the first cell centre
-    (``target_yplus`` then defaults to it) with as many layers as needed
-    unless ``layers`` is given."""
-    p = PRESETS[fidelity]
-    low = wall_treatment == "low-re"
-    return MeshSettings(
-        preset=p,
-        base_cell=base_cell,
-        surface_levels=tuple(surface_levels) if surface_levels is not None else p.surface_levels,
-        feature_level=p.feature_level if feature_level is None else feature_level,
-        max_level=p.max_level if max_level is None else max_level,
-        gap_cells=p.gap_cells if gap_cells is None else gap_cells,
-        layers=(None if low else p.layers) if layers is None else layers,
-        layer_expansion=p.layer_expansion if layer_expansion is None else layer_expansion,
-        target_yplus=(LOW_RE_TARGET_YPLUS if low else p.target_yplus) if target_yplus is None else target_yplus,
-        wall_treatment=wall_treatment,
-    )
-
-
-def base_cell_size(settings: MeshSettings, body_length: float, mesh_level: int) -> float:
-    """Background cell size (m) at sweep mesh level m: Δ0 / √2ᵐ."""
-    d0 = settings.base_cell if settings.base_cell is not None else body_length / settings.preset.cells_per_length
-    return d0 / LEVEL_FACTOR**mesh_level
-
-
-def layer_count(first_height: float, expansion: float, last_height: float) -> int:
-    """Fewest layers whose last one, h₁ rⁿ⁻¹, is at least ``last_height``:
-    n = 1 + ⌈ln(h_last/h₁)/ln r⌉ (geometric growth from ``first_height``
-    h₁ by ``expansion`` r > 1; heights in m). Elementary."""
-    if not first_height > 0 or not expansion > 1.0:
-        raise ValueError("expected a positive first height and an expansion ratio above 1")
-    if last_height <= first_height:
-        return 1
-    return 1 + math.ceil(math.log(last_height / first_height) / math.log(expansion) - 1e-12)
-
-
-@dataclass(frozen=True)
-class LayerPlan:
-    """Prism layers of a point at mesh level 0 (``first_height``, ``thickness``
-    in m) and the wall-function first height a low-Re stack grows to."""
-
-    n_layers: int
-    first_height: float
-    expansion: float
-    centre_yplus: float
-    thickness: float
-    treatment: str
-    ground: bool
-
-
-def plan_layers(settings: MeshSettings, local_speed: float, body_length: float, nu: float) -> LayerPlan | None:
-    """The prism layers at mesh level 0, or None without layers.
-
-    First height h₁ = 2 y+ ν/u_τ for the target centre y+ (flat plate at the
-    local speed: :func:`caseprep.planning.physics.first_cell_height`).
-    ``low-re`` without an explicit layer count: enough layers, growing by the
-    expansion ratio, for the last one to reach the first height a wall
-    function would use at the preset's y+ (:func:`layer_count`), i.e. the
-    stack spans the viscous sublayer, the buffer region and the inner log
-    layer."""
-    n = settings.layers
-    if n == 0:
-        return None
-    h1 = first_cell_height(settings.target_yplus, local_speed, body_length, nu)
-    if n is None:
-        h_wf = first_cell_height(settings.preset.target_yplus, local_speed, body_length, nu)
-        n = layer_count(h1, settings.layer_expansion, h_wf)
-    T = layer_stack_thickness(h1, n, settings.layer_expansion)
-    return LayerPlan(n_layers=int(n), first_height=float(h1), expansion=float(settings.layer_expansion),
-                     centre_yplus=float(settings.target_yplus), thickness=float(T), treatment=settings.wall_treatment,
-                     ground=bool(settings.preset.ground_layers))
-
-
-def cells_across(clearance: float, core_cell: float, layers: LayerPlan | None) -> float:
-    """Cells across a ``clearance`` (m): s N + (h − s T)/Δz with s = 2 stacks
-    (floor and ground) when the layers reach the ground, 1 otherwise, 0
-    without layers; ``core_cell`` Δz (m). A core thinner than zero counts
-    as zero (the stacks are squashed)."""
-    if layers is None:
-        return clearance / core_cell
-    s = 2 if layers.ground else 1
-    return s * layers.n_layers + max(clearance - s * layers.thickness, 0.0) / core_cell
-
-
-@dataclass(frozen=True)
-class GapPlan:
-    """The underbody resolution of one point (decided at mesh level 0).
-
-    ``reference_clearance`` c (m); ``level`` the isotropic gap level;
-    ``z_splits`` per underbody slab; ``cells_across`` the fewest cells over
-    the slabs across the larger of c and the slab's smallest clearance (at
-    least ``mesh.gap_cells``); ``cells_min`` the fewest across each slab's
-    own smallest clearance (below ``cells_across`` only where the floor dips
-    under the reference clearance)."""
-
-    reference_clearance: float
-    level: int
-    z_splits: tuple[int, ...]
-    cells_across: float
-    cells_min: float
-
-
-def plan_gap(reference_clearance: float, slab_clearances: list[float], base0: float, settings: MeshSettings,
-             layers: LayerPlan | None) -> GapPlan | tuple[str, str]:
-    """Choose the gap level and the per-slab splits (module docstring) at
-    mesh level 0 (``base0`` the level-0 base cell, m; clearances in m).
-    Returns a :class:`GapPlan`, or (what is wrong, how to fix it)."""
-    p = settings.preset
-    c = reference_clearance
-    smax = settings.surface_levels[1]
-    g0 = max(smax, math.ceil(math.log2(p.iso_gap_cells * base0 / c) - 1e-12))
-    clear = [max(c, h) for h in slab_clearances] or [c]
-    for g in range(g0, settings.max_level + 1):
-        dg = base0 / 2**g
-        ks = []
-        for h in clear:
-            k = next((k for k in range(p.max_z_splits + 1) if cells_across(h, dg / 2**k, layers) >= settings.gap_cells - 1e-9),
-                     None)
-            if k is None:
-                break
-            ks.append(k)
-        else:
-            n_ref = min(cells_across(h, dg / 2**k, layers) for h, k in zip(clear, ks))
-            n_min = min(cells_across(h0, dg / 2**k, layers) for h0, k in zip(slab_clearances or [c], ks))
-            return GapPlan(float(c), int(g), tuple(int(k) for k in ks), float(n_ref), float(n_min))
-    finest = base0 / 2**settings.max_level / 2**p.max_z_splits
-    have = cells_across(c, finest, layers)
-    return (f"the reference clearance {c * 1e3:.3f} mm needs {settings.gap_cells:g} cells across (prism layers and core "
-            f"cells); the finest cells allowed (level {settings.max_level}, {finest * 1e3:.3f} mm after "
-            f"{p.max_z_splits} splits along the floor normal) give {have:.1f}",
-            "raise the ride height, use a finer fidelity, raise mesh.max_level or lower mesh.gap_cells")
-
-
 def wind_axes(placement: Placement) -> np.ndarray:
     """Rows e1 (horizontal wind), e2, e3 (ground normal) in body axes."""
     wg = wind_direction_ground(placement.beta, placement.yaw_mode)
@@ -296,7 +71,7 @@ def wind_axes(placement: Placement) -> np.ndarray:
     return np.vstack([placement.vector_to_body(G2W[i]) for i in range(3)])
 
 
-def _box(name: str, origin_b: np.ndarray, axes: np.ndarray, lo: np.ndarray, hi: np.ndarray) -> OrientedBox:
+def oriented_box(name: str, origin_b: np.ndarray, axes: np.ndarray, lo: np.ndarray, hi: np.ndarray) -> OrientedBox:
     o = origin_b + lo @ axes
     return OrientedBox(name=name, origin=tuple(float(v) for v in o), axes=tuple(tuple(float(c) for c in a) for a in axes),
                        lengths=tuple(float(v) for v in (hi - lo)))
@@ -466,7 +241,7 @@ def _section(body: BodyExtent, lo, hi, axes, g0, ground: str, sz: DomainSizing, 
                          "enlarge domain.width/height, or raise domain.max_blockage to accept the blockage knowingly"))
     elif blockage > WARN_BLOCKAGE:
         warnings.append(f"blockage {100 * blockage:.2f} % is above 1 % (common-practice limit); results carry a blockage effect")
-    domain = Domain(box=_box("domain", g0, axes, origin, origin + lens), cells=(int(n[0]), int(n[1]), int(n[2])),
+    domain = Domain(box=oriented_box("domain", g0, axes, origin, origin + lens), cells=(int(n[0]), int(n[1]), int(n[2])),
                     ground=ground, blockage=float(blockage))
     return _Section(origin, lens, (int(n[0]), int(n[1]), int(n[2])), domain, tuple(problems), tuple(warnings),
                     float(Lx * W * H))
@@ -529,7 +304,7 @@ def _underbody(body: BodyExtent, lo, hi, placement: Placement, axes, g0, setting
         # floor's diffuser14 at coarse), so the flat cells end only off the body, in the fluid around the slabs
         k = max(gp.z_splits)
         for i, sl in enumerate(slabs):
-            regions.append(RefinementRegion(_box(f"underbody{i}", sg0, sax, sl.lo, sl.hi), gp.level, int(k),
+            regions.append(RefinementRegion(oriented_box(f"underbody{i}", sg0, sax, sl.lo, sl.hi), gp.level, int(k),
                                             fluid_volume=sl.fluid_volume))
         # behind the diffuser: from a quarter length ahead of the tail to one length behind it,
         # up to 1.25 × the exit height (the last slab's underside) and two cells of its level
@@ -537,11 +312,11 @@ def _underbody(body: BodyExtent, lo, hi, placement: Placement, axes, g0, setting
         lw = max(wl, min(gp.level - 1, smax))
         t0, t1 = min(sl.lo[1] for sl in slabs), max(sl.hi[1] for sl in slabs)
         regions.append(RefinementRegion(
-            _box("diffuser_wake", sg0, sax, np.array([tail - 0.25 * L, t0, -dg0]),
+            oriented_box("diffuser_wake", sg0, sax, np.array([tail - 0.25 * L, t0, -dg0]),
                  np.array([tail + 1.0 * L, t1, 1.25 * slabs[-1].top + 2.0 * base0 / 2**lw])), lw))
     else:  # no underside map: one box under the whole body
         top = 1.5 * max(max(body.ride_heights), body.min_clearance)
-        regions.append(RefinementRegion(_box("underbody", g0, axes, np.array([lo[0] - margin, lo[1] - margin, -margin]),
+        regions.append(RefinementRegion(oriented_box("underbody", g0, axes, np.array([lo[0] - margin, lo[1] - margin, -margin]),
                                              np.array([hi[0] + margin, hi[1] + margin, top])), gp.level, max(gp.z_splits)))
     info = {"reference_clearance": c_ref, "gap_level": gp.level, "gap_cell": base0 / 2**gp.level / scale,
             "z_splits": max(gp.z_splits), "z_splits_needed_per_slab": list(gp.z_splits),
@@ -574,7 +349,7 @@ def _regions(body: BodyExtent, lo, hi, placement: Placement, axes, g0, ground: s
     smin = settings.surface_levels[0]
     wl = settings.preset.wake_level
     margin = 0.02 * L
-    wake = RefinementRegion(_box(
+    wake = RefinementRegion(oriented_box(
         "wake", g0, axes, np.array([lo[0] - 0.1 * L, lo[1] - 0.2 * bw, max(z0, lo[2] - 0.3 * bh) if ground == "none" else -margin]),
         np.array([hi[0] + settings.preset.wake_length * L, hi[1] + 0.2 * bw, hi[2] + 0.3 * bh])), wl)
     if ground != "none" and body.min_clearance is not None and body.ride_heights is not None:
@@ -582,7 +357,7 @@ def _regions(body: BodyExtent, lo, hi, placement: Placement, axes, g0, ground: s
         regions = [wake] + r.regions
     else:
         r = _Regions([], None, {}, [], [])
-        regions = [wake, RefinementRegion(_box("near", g0, axes, np.array([lo[0] - 0.2 * L, lo[1] - 0.2 * bw, lo[2] - 0.2 * bh]),
+        regions = [wake, RefinementRegion(oriented_box("near", g0, axes, np.array([lo[0] - 0.2 * L, lo[1] - 0.2 * bw, lo[2] - 0.2 * bh]),
                                               np.array([hi[0] + 0.5 * L, hi[1] + 0.2 * bw, hi[2] + 0.2 * bh])),
                                          max(wl, smin))]
     regions.sort(key=lambda x: x.level)
@@ -675,75 +450,6 @@ def cell_limit_problems(estimated_cells: int) -> list[tuple[str, str]]:
     return [(f"an estimated {estimated_cells:.3g} cells, above the limit of {MAX_CELLS.value:.3g} cells per case "
              f"({MAX_CELLS.why})",
              "raise mesh.base_cell (m, not mm?), lower the fidelity, mesh levels or refinement levels, or shrink the domain")]
-
-
-def ground_grading(height: float, first_cell: float, top_cell: float) -> tuple[int, float, float]:
-    """Cells across a layer of ``height`` (m) that start at ``first_cell`` (m)
-    on the ground and grow geometrically to about ``top_cell`` (m) at the top.
-
-    With n cells of sizes h₁ rᵏ (k = 0 … n−1): h₁ (rⁿ − 1)/(r − 1) = H and
-    h₁ rⁿ⁻¹ ≈ Δ give r = (H − h₁)/(H − Δ) and n = 1 + ln(Δ/h₁)/ln r, rounded
-    up; r is then solved again (bisection) so the n cells fill H exactly with
-    the first cell kept at h₁. Returns (n, r, grading) with grading = rⁿ⁻¹, the
-    last-to-first cell size ratio (the mesher's simpleGrading value).
-    Requires 0 < h₁ < Δ and H ≥ 2Δ (all in m). Geometric series: elementary.
-    """
-    H, h1, d = float(height), float(first_cell), float(top_cell)
-    if not (0.0 < h1 < d and H >= 2.0 * d):
-        raise ValueError(f"expected 0 < first_cell < top_cell and height ≥ 2 top_cell, got {h1}, {d}, {H}")
-    r0 = (H - h1) / (H - d)
-    n = max(2, math.ceil(1.0 + math.log(d / h1) / math.log(r0) - 1e-9))
-    if n * h1 >= H:  # pragma: no cover - excluded by h1 < d ≤ H/2 and the rounding up
-        return n, 1.0, 1.0
-    lo, hi = 1.0 + 1e-12, r0 * 2.0
-    for _ in range(200):  # sum_{k<n} h1 r^k is increasing in r
-        mid = 0.5 * (lo + hi)
-        if h1 * (mid**n - 1.0) / (mid - 1.0) > H:
-            hi = mid
-        else:
-            lo = mid
-    r = 0.5 * (lo + hi)
-    return n, float(r), float(r ** (n - 1))
-
-
-def plan_empty_section(*, placement: Placement, length: float, width: float, height: float, base_cell: float,
-                       mesh_level: int, ground: str, first_cell: float | None = None, lead_in: float = 0.0) -> DomainPlan:
-    """Domain and background mesh of an empty test section (no body).
-
-    The box is aligned with the horizontal relative wind (e1, inlet at
-    e1 = 0: the ground's leading edge), the ground normal (e3, ground at
-    e3 = 0) and e2 = e3 × e1, centred on the ground point's e2 line;
-    ``length``, ``width``, ``height`` in m are kept exactly. Cells: base cell
-    Δ = ``base_cell``/√2ᵐ (m) along e1 and e2; along e3 uniform Δ cells, or,
-    with ``first_cell`` (m), cells graded from ``first_cell`` on the ground to
-    about Δ at the top (:func:`ground_grading`). ``lead_in`` (m, part of
-    ``length``): a slip floor from the inlet to the ground's leading edge, so
-    that the leading edge sits in undisturbed uniform flow instead of on the
-    inlet (where the fixed inlet velocity would raise the pressure and the
-    total pressure of the air near the floor); its cells are Δ long. No
-    refinement regions, no layers: the background mesh is the final mesh.
-    """
-    axes = wind_axes(placement)
-    g0 = placement.ground_point_body
-    d0 = base_cell / LEVEL_FACTOR**mesh_level
-    k = max(1, math.ceil(lead_in / d0 - 1e-9)) if lead_in > 0.0 else 0
-    n1 = k + max(1, math.ceil((length - lead_in) / d0 - 1e-9))
-    n2 = max(1, math.ceil(width / d0 - 1e-9))
-    grading = 1.0
-    if first_cell is not None:
-        h1 = first_cell / LEVEL_FACTOR**mesh_level
-        n3, _, grading = ground_grading(height, h1, d0)
-    else:
-        n3 = max(1, math.ceil(height / d0 - 1e-9))
-    lo = np.array([0.0, -0.5 * width, 0.0])
-    box = _box("domain", g0, axes, lo, lo + np.array([length, width, height]))
-    domain = Domain(box=box, cells=(int(n1), int(n2), int(n3)), ground=ground, blockage=0.0, ground_grading=float(grading),
-                    lead_in=float(lead_in), lead_in_cells=int(k))
-    c = np.array([0.4371 * length, 0.5 * width + 0.1371 * width / n2, 0.4371 * height])
-    mesh = MeshSpec(base_cell=float(d0), surface_levels=(0, 0), feature_level=0, regions=(), layers=None,
-                    location_in_mesh=tuple(float(v) for v in g0 + (lo + c) @ axes))
-    return DomainPlan(domain=domain, mesh=mesh, base_cell=float(d0), gap_level=None, estimated_cells=int(n1 * n2 * n3),
-                      warnings=(), problems=tuple(cell_limit_problems(int(n1 * n2 * n3))))
 
 
 def estimate_cells(domain: Domain, mesh: MeshSpec, body_area: float, ground_layer_area: float | None = None) -> int:

@@ -1,9 +1,9 @@
 """Planner: validated config → one :class:`~caseprep.planning.spec.CaseSpec` per sweep point.
 
-Reads each geometry once (:mod:`caseprep.geometry.stl`), expands the sweep
+Reads each geometry once (:mod:`caseprep.planning.geometries`), expands the sweep
 (:mod:`caseprep.planning.points`), places the body (:func:`caseprep.contract.frames.place_body`),
 measures the ground clearance on the precomputed convex-hull vertices, sizes
-domain and mesh (:mod:`caseprep.planning.domain`) and fills in flow, wheels, solver
+domain and mesh (:mod:`caseprep.planning.domain`, :mod:`caseprep.planning.meshsizing`) and fills in flow, wheels, solver
 and reference values. All vectors are in the mesh frame = body frame
 (x rearward, y right, z up, m). Nothing is written.
 
@@ -13,13 +13,13 @@ linear function over the surface lies at a vertex, and over the vertices at
 a hull vertex). Wheels (separate wheel files or wheel solids) are excluded:
 they touch the ground. A case whose clearance is ≤ 0 (touching or
 penetrating) is refused, and so is a gap thinner than ``mesh.gap_cells``
-cells of the finest level the preset allows (see :mod:`caseprep.planning.domain`).
+cells of the finest level the preset allows (see :mod:`caseprep.planning.meshsizing`).
 """
 from __future__ import annotations
 
 import hashlib
 import json
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
@@ -28,60 +28,21 @@ from caseprep.contract.limits import MAX_RIDE_HEIGHT_LENGTHS
 from caseprep.config.load import load_config
 from caseprep.config.schema import EMPTY_GEOMETRY, Config
 from caseprep.contract.walls import WALL_TREATMENTS
-from caseprep.planning.domain import (LEVEL_FACTOR, BodyExtent, DomainSizing, decomposition_split, mesh_settings,
-                                      plan_domain, plan_empty_section)
+from caseprep.planning.domain import BodyExtent, DomainSizing, plan_domain
+from caseprep.planning.empty_section import plan_empty_section
+from caseprep.planning.meshsizing import LEVEL_FACTOR, mesh_settings
 from caseprep.contract.errors import UserError, UserErrors
-from caseprep.contract.frames import (Placement, air_speed, body_to_ground_rotation, ground_velocity_ground, place_body,
-                     wind_direction_ground)
-from caseprep.geometry.body import BodyGeometry, analyse
-from caseprep.geometry.checks import surface_problems
-from caseprep.geometry.hull import hull_points, hull_projected_area
-from caseprep.geometry.inside import inside
-from caseprep.geometry.stl import LENGTH_UNITS, read_stl
+from caseprep.contract.frames import Placement, body_to_ground_rotation, place_body
+from caseprep.geometry.body import BodyGeometry
+from caseprep.geometry.hull import hull_projected_area
+from caseprep.geometry.stl import LENGTH_UNITS
 from caseprep.contract.manifest import Reference
-from caseprep.planning.physics import (air_density, isa_troposphere, isentropic_density_ratio, speed_of_sound,
-                                      sutherland_viscosity, turbulence_at_model)
-from caseprep.planning.spec import CaseSpec, Flow, SolverSpec, Wheel
+from caseprep.planning.spec import CaseSpec, Wheel
 from caseprep.planning.wheels import place_wheel, rolling_omega
 from caseprep.planning.points import SweepPoint, check_case_count, expand_collect
-
-
-@dataclass(frozen=True)
-class Air:
-    """Resolved free-stream properties: T (K), p (Pa), ρ (kg/m³), μ (Pa s), ν (m²/s)."""
-
-    temperature: float
-    pressure: float
-    rho: float
-    mu: float
-    nu: float
-
-
-def air_properties(cfg: Config) -> Air:
-    """T and p from the config (or ISO 2533 at ``air.altitude``, default sea
-    level); ρ = p/(R T) and μ from Sutherland's law unless given; ν = μ/ρ
-    unless ``air.kinematic_viscosity`` is given."""
-    a = cfg.air
-    T0, p0 = isa_troposphere(a.altitude or 0.0)
-    T = a.temperature if a.temperature is not None else T0
-    p = a.pressure if a.pressure is not None else p0
-    rho = a.density if a.density is not None else air_density(p, T)
-    mu = a.viscosity if a.viscosity is not None else sutherland_viscosity(T)
-    nu = a.kinematic_viscosity if a.kinematic_viscosity is not None else mu / rho
-    return Air(float(T), float(p), float(rho), float(mu), float(nu))
-
-
-@dataclass(frozen=True)
-class VariantGeometry:
-    """One variant's geometry facts for all its cases."""
-
-    name: str
-    source: str
-    length_unit: str
-    body: BodyGeometry
-    body_solids: tuple[str, ...]
-    extent_hull: np.ndarray  # hull of body + wheel files (domain sizing, blockage)
-    wheel_hulls: dict = field(default_factory=dict)  # wheel name → hull points of its geometry (body frame, m)
+from caseprep.planning.geometries import VariantGeometry, load_geometries
+from caseprep.planning.flowsetup import (STRONG_DECAY, Air, air_properties, flow_spec, flow_turbulence, mach_note,
+                                        point_wind, solver_spec, vec3)
 
 
 @dataclass(frozen=True)
@@ -94,69 +55,6 @@ class PlanResult:
     warnings: tuple[str, ...]
 
 
-def load_geometries(cfg: Config) -> tuple[dict[str, VariantGeometry], dict[str, np.ndarray], list[UserError]]:
-    """Read and check every variant's geometry and every wheel file once.
-    Returns (variants, wheel hull points by wheel name, problems)."""
-    errs: list[UserError] = []
-    wheel_solids = tuple(w.solid for w in cfg.body.wheels if w.solid)
-    wheel_pts: dict[str, np.ndarray] = {}
-    for i, w in enumerate(cfg.body.wheels):
-        if w.geometry:
-            key = f"body.wheels[{i}].geometry"
-            try:
-                s = read_stl(w.geometry, cfg.body.length_unit, default_name=w.name)
-            except UserError as e:
-                errs.append(UserError(str(e) + f" (config {cfg.file} at {key})"))
-                continue
-            g = analyse(s)
-            errs.extend(surface_problems(g.report, w.geometry, key, cfg.body.length_unit))
-            wheel_pts[w.name] = g.hull
-    out: dict[str, VariantGeometry] = {}
-    for name, v in cfg.variants.items():
-        if v.geometry == EMPTY_GEOMETRY:
-            continue  # empty test section: nothing to read
-        unit = cfg.length_unit(name)
-        key = f"variants.{name}.geometry"
-        try:
-            s = read_stl(v.geometry, unit, default_name=name)
-        except UserError as e:
-            errs.append(UserError(str(e) + f" (config {cfg.file} at {key})"))
-            continue
-        missing = [n for n in wheel_solids if n not in s.solid_names]
-        if missing:
-            errs.append(UserError(expected=f"the wheel solids {', '.join(missing)} in the geometry", got=f"solids {', '.join(s.solid_names)}",
-                                  file=v.geometry, key=key, fix="name the solids in the STL or fix body.wheels[].solid"))
-        g = analyse(s, exclude_from_clearance=wheel_solids)
-        errs.extend(surface_problems(g.report, v.geometry, key, unit))
-        (y0, y1) = g.bounds[0][1], g.bounds[1][1]
-        if min(-y0, y1) < 1e-3 * max(y1 - y0, 1e-9):
-            errs.append(UserError(expected="a whole body spanning both sides of y = 0", got=f"y from {y0:.4g} m to {y1:.4g} m",
-                                  file=v.geometry, key=key,
-                                  fix="half models with a symmetry plane are not supported: mirror the geometry to a full body "
-                                      "(and draw it with y = 0 on the centre line)"))
-        body_solids = tuple(n for n in s.solid_names if n not in wheel_solids) or s.solid_names
-        hulls = {w.name: wheel_pts[w.name] for w in cfg.body.wheels if w.geometry and w.name in wheel_pts}
-        for w in cfg.body.wheels:
-            if w.solid and w.solid in s.solid_names:
-                hulls[w.name] = hull_points(s.select([w.solid]).triangles.reshape(-1, 3))
-        body_tris = s.select(body_solids).triangles
-        for i, w in enumerate(cfg.body.wheels):
-            if inside(body_tris, w.centre):
-                errs.append(UserError(expected="a wheel centre outside the body (in its wheel arch or beside it)",
-                                      got=f"({', '.join(f'{c:g}' for c in w.centre)}) m, inside the body of {v.geometry}",
-                                      file=cfg.file, key=f"body.wheels[{i}].centre",
-                                      fix="give the wheel centre in the body frame (x rearward, y right, z up, m); the body "
-                                          "surface must have an opening (wheel arch) where the wheel sits"))
-        allp = [g.hull] + list(hulls.values())
-        ext = hull_points(np.vstack(allp)) if len(allp) > 1 else g.hull
-        out[name] = VariantGeometry(name, v.geometry, unit, g, body_solids, ext, hulls)
-    return out, wheel_pts, errs
-
-
-def _vec(v) -> tuple[float, float, float]:
-    return tuple(float(x) for x in v)
-
-
 def _reference_geometry(cfg: Config):
     b = cfg.body
     has_ground = cfg.ground.mode != "none"
@@ -167,7 +65,7 @@ def _reference_geometry(cfg: Config):
     if wb is None:
         wb = lref
     mp = b.moment_point if b.moment_point is not None else tuple(0.5 * (np.asarray(fa) + np.asarray(ra)))
-    return _vec(fa), _vec(ra), float(wb), float(lref), _vec(mp)
+    return vec3(fa), vec3(ra), float(wb), float(lref), vec3(mp)
 
 
 def wall_treatment_name(cfg: Config) -> str:
@@ -182,52 +80,6 @@ def config_mesh_settings(cfg: Config):
     return mesh_settings(m.fidelity, base_cell=m.base_cell, surface_levels=m.surface_levels, feature_level=m.feature_level,
                          max_level=m.max_level, gap_cells=m.gap_cells, layers=m.layers, layer_expansion=m.layer_expansion,
                          target_yplus=m.target_yplus, wall_treatment=wall_treatment_name(cfg))
-
-
-#: Local Mach number above which incompressible flow is questionable: the
-#: isentropic density change reaches 4.4 % at M = 0.3 (common practice; see
-#: :func:`caseprep.planning.physics.isentropic_density_ratio`).
-MACH_WARNING = 0.3
-
-
-def mach_note(cfg: Config, air: Air, speed: float) -> tuple[float, str | None]:
-    """Local Mach number under the floor, M = f U / a (f =
-    ``air.underfloor_speed_factor``, U the air speed in m/s, a = √(γ R T)
-    at the config's temperature), and a warning above :data:`MACH_WARNING`."""
-    f = cfg.air.underfloor_speed_factor
-    M = f * speed / speed_of_sound(air.temperature)
-    if M <= MACH_WARNING:
-        return float(M), None
-    drop = 100.0 * (1.0 - isentropic_density_ratio(M))
-    return float(M), (f"local Mach number {M:.2f} under the floor ({f:g} × {speed:.4g} m/s, speed of sound "
-                      f"{speed_of_sound(air.temperature):.1f} m/s) is above {MACH_WARNING:g}: the density there is "
-                      f"{drop:.1f} % below its stagnation value and the incompressible solver ignores it; treat the "
-                      "loads with care or use a compressible solver")
-
-
-#: Default free-stream length scale at the model, as a fraction of the body
-#: length (common practice, no source): large enough for the decay over the
-#: default 5 body lengths upstream to stay mild (k at the inlet 1.3 × that at
-#: the model at 0.5 % intensity, 1.9 × at 1 %).
-LENGTH_SCALE_FRACTION = 0.02
-#: Inlet k above this multiple of the model's: a strong decay, sensitive to the model constants.
-STRONG_DECAY = 4.0
-
-
-def flow_turbulence(cfg: Config, speed: float, body_length: float, distance: float,
-                    file_key: str = "solver.turbulence_length_scale"):
-    """Inlet k, ω that decay to the config's intensity and length scale at
-    the model, ``distance`` (m) downstream of the inlet
-    (:func:`caseprep.planning.physics.turbulence_at_model`); the length scale
-    defaults to :data:`LENGTH_SCALE_FRACTION` × ``body_length`` (m). Raises
-    UserError when the decay cannot deliver them."""
-    ell = cfg.solver.turbulence_length_scale or LENGTH_SCALE_FRACTION * body_length
-    try:
-        return turbulence_at_model(speed, cfg.solver.turbulence_intensity, ell, distance)
-    except ValueError as exc:
-        raise UserError(expected="free-stream turbulence that can reach the model", got=str(exc), file=cfg.file,
-                        key=file_key, fix="raise solver.turbulence_length_scale (or lower domain.upstream / "
-                                          "solver.turbulence_intensity)") from None
 
 
 def plan_all(cfg: Config) -> PlanResult:
@@ -362,38 +214,6 @@ class _RotationCache:
         return self._d[k]
 
 
-def _wind(cfg: Config, pt: SweepPoint, P: Placement) -> tuple[float, np.ndarray, np.ndarray]:
-    """(resultant air speed m/s, relative-wind direction (unit) and ground
-    velocity (m/s, zero unless the ground moves), both in body axes) of a
-    point placed by ``P``."""
-    beta, mode = float(np.radians(pt.yaw_deg)), cfg.sweep.yaw_mode
-    U = air_speed(pt.speed, beta, mode)
-    w_body = P.vector_to_body(wind_direction_ground(beta, mode))
-    vg_body = P.vector_to_body(ground_velocity_ground(pt.speed, beta, mode)) if cfg.ground.mode == "moving" else np.zeros(3)
-    return U, w_body, vg_body
-
-
-def _flow(cfg: Config, air: Air, U: float, w_body: np.ndarray, vg_body: np.ndarray, turb) -> Flow:
-    """The case's flow: inlet velocity U·w (m/s), ground velocity, air, model
-    and the free-stream turbulence ``turb`` (:func:`flow_turbulence`: inlet
-    k, ω, ν_t that decay to the requested values at the model)."""
-    return Flow(inlet_velocity=_vec(U * w_body), ground_velocity=_vec(vg_body), air_speed=float(U), rho=air.rho,
-                nu=air.nu, p_ref=0.0, model=cfg.solver.turbulence_model, intensity=turb.intensity_model,
-                length_scale=turb.length_scale_model, k=turb.k_inlet, omega=turb.omega_inlet, nut=turb.nut_inlet,
-                turbulence=turb.to_dict())
-
-
-def _solver(cfg: Config, domain, preset_iterations: int) -> SolverSpec:
-    """Iterations (the config's, else the preset's), write interval and the
-    rank split of the domain box."""
-    iters = cfg.solver.iterations or preset_iterations
-    corners = domain.box.corners()
-    split = decomposition_split(cfg.solver.ranks, corners.max(axis=0) - corners.min(axis=0))
-    return SolverSpec(n_iterations=int(iters), write_interval=int(cfg.solver.write_interval or iters),
-                      n_procs=int(cfg.solver.ranks), split=split, mesh_reuse=cfg.mesh.reuse,
-                      warm_start=cfg.solver.warm_start, stop_rule=cfg.solver.stop_rule)
-
-
 def _place(cfg: Config, pt: SweepPoint, g: BodyGeometry, cache: _RotationCache):
     """(placement, smallest clearance m, its body point, its % of the length
     from the nose, a description) of a point; with a ground the body stands
@@ -463,7 +283,7 @@ def plan_wheels(cfg: Config, pt: SweepPoint, vg: "VariantGeometry", P: Placement
         recipes[fname] = {"source": str(src), "unit": unit, "solids": [w.solid] if w.solid else None,
                           "rotation": wp.rotation.tolist(), "offset": wp.offset.tolist(), "solid_name": w.solid or w.name}
         zone_r = (w.zone_radius if w.zone_radius is not None else ZONE_RADIUS_FRACTION * w.radius) if w.rotation == "zone" else None
-        wheels.append(Wheel(name=w.name, patch=w.solid or w.name, centre=_vec(wp.centre), axis=_vec(wp.axis),
+        wheels.append(Wheel(name=w.name, patch=w.solid or w.name, centre=vec3(wp.centre), axis=vec3(wp.axis),
                             radius=float(w.radius), omega=float(omega), geometry=fname, rotation=w.rotation,
                             zone_radius=None if zone_r is None else float(zone_r), width=float(wp.width),
                             placement=wp.to_dict()))
@@ -508,7 +328,12 @@ def mesh_facts(cfg: Config, dp, body_volume: float, speed: float) -> dict:
 
 def plan_case(cfg: Config, pt: SweepPoint, geoms: dict[str, VariantGeometry], air: Air, settings, refgeo,
               cache: _RotationCache | None = None) -> tuple[CaseSpec, list[str]]:
-    """Plan one point; raises UserError if the case must be refused."""
+    """Plan one point; raises UserError if the case must be refused.
+
+    Long because: it is the sequence that resolves one case (place, measure the
+    clearance, size the domain and mesh, flow, wheels, solver, reference values),
+    each step one call whose results the later steps use.
+    """
     cache = cache if cache is not None else _RotationCache()
     fa, ra, wb, lref, mp = refgeo
     vg = geoms[pt.variant]
@@ -518,7 +343,7 @@ def plan_case(cfg: Config, pt: SweepPoint, geoms: dict[str, VariantGeometry], ai
     cid = pt.case_id
     notes: list[str] = []
     P, clearance, at, pct, where = _place(cfg, pt, g, cache)
-    U, w_body, vg_body = _wind(cfg, pt, P)
+    U, w_body, vg_body = point_wind(cfg, pt, P)
     frontal_wind = cache.get("frontal", pt.variant, w_body, lambda: hull_projected_area(vg.extent_hull, w_body))
 
     def extent_range(axes: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -555,13 +380,13 @@ def plan_case(cfg: Config, pt: SweepPoint, geoms: dict[str, VariantGeometry], ai
         notes.append(f"the free-stream turbulence decays strongly before the model (k at the inlet "
                      f"{turb.k_inlet / turb.k_model:.1f} × that at the model): the values at the model depend on the "
                      "model's decay constants; a larger solver.turbulence_length_scale decays less")
-    flow = _flow(cfg, air, U, w_body, vg_body, turb)
+    flow = flow_spec(cfg, air, U, w_body, vg_body, turb)
     wheels, wheel_facts, recipes = plan_wheels(cfg, pt, vg, P, vg_body, notes)
-    solver = _solver(cfg, dp.domain, settings.preset.iterations)
+    solver = solver_spec(cfg, dp.domain, settings.preset.iterations)
     area = reference_area(cfg, pt.variant, geoms)
     ref = Reference(area=area, length=lref, wheelbase=wb, front_axle=fa, rear_axle=ra, moment_point=mp, rho=air.rho,
                     nu=air.nu, speed=float(U), p_ref=0.0,
-                    cog=_vec(cfg.body.centre_of_gravity) if cfg.body.centre_of_gravity is not None else None)
+                    cog=vec3(cfg.body.centre_of_gravity) if cfg.body.centre_of_gravity is not None else None)
     extra = {
         "geometry_source": vg.source,
         "geometry_length_unit": vg.length_unit,
@@ -588,7 +413,7 @@ def plan_case(cfg: Config, pt: SweepPoint, geoms: dict[str, VariantGeometry], ai
         case_id=cid, variant=pt.variant, params=pt.params(), yaw_mode=mode, placement=P, geometry=f"{pt.variant}.stl",
         geometry_solid_names=vg.body_solids, flow=flow, wheels=tuple(wheels), domain=dp.domain, mesh=dp.mesh, solver=solver,
         reference=ref, fidelity=cfg.mesh.fidelity, min_clearance=clearance,
-        min_clearance_at=_vec(at) if at is not None else None, estimated_cells=dp.estimated_cells, extra=extra)
+        min_clearance_at=vec3(at) if at is not None else None, estimated_cells=dp.estimated_cells, extra=extra)
     return spec, notes
 
 
@@ -616,16 +441,16 @@ def plan_empty_case(cfg: Config, pt: SweepPoint, air: Air) -> tuple[CaseSpec, li
     dp = plan_empty_section(placement=P, length=d.length, width=d.width, height=d.height, base_cell=m.base_cell,
                             mesh_level=pt.mesh_level, ground=cfg.ground.mode, first_cell=m.ground_first_cell,
                             lead_in=float(d.lead_in or 0.0))
-    U, w_body, vg_body = _wind(cfg, pt, P)
+    U, w_body, vg_body = point_wind(cfg, pt, P)
     lref = cfg.body.reference_length if cfg.body.reference_length is not None else float(d.length)
     # without a body the "model" is the middle of the section
     turb = flow_turbulence(cfg, U, float(d.length), 0.5 * float(d.length))
-    flow = _flow(cfg, air, U, w_body, vg_body, turb)
-    solver = _solver(cfg, dp.domain, mesh_settings(m.fidelity).preset.iterations)
+    flow = flow_spec(cfg, air, U, w_body, vg_body, turb)
+    solver = solver_spec(cfg, dp.domain, mesh_settings(m.fidelity).preset.iterations)
     ra = cfg.body.reference_area
     area = float(ra) if not isinstance(ra, str) else float(d.width * d.height)
-    origin = _vec(P.ground_point_body)
-    mp = _vec(cfg.body.moment_point) if cfg.body.moment_point is not None else origin
+    origin = vec3(P.ground_point_body)
+    mp = vec3(cfg.body.moment_point) if cfg.body.moment_point is not None else origin
     ref = Reference(area=area, length=float(lref), wheelbase=float(lref), front_axle=origin, rear_axle=origin, moment_point=mp,
                     rho=air.rho, nu=air.nu, speed=float(U), p_ref=0.0, cog=None)
     extra = {

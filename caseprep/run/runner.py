@@ -59,13 +59,12 @@ from caseprep.run import warmstart
 from caseprep.run.economy import RunPlan, case_distance, group_key, plan_run
 from caseprep.contract.atomicio import open_folder, write_json_atomic
 from caseprep.contract.cost import cost_lines, cost_summary, stage_core_seconds
-from caseprep.contract.convergence import (DEFAULT_OPTIONS, ConvergenceOptions, force_settling, judge_convergence,
-                                           judge_stop)
+from caseprep.contract.convergence import (DEFAULT_OPTIONS, ConvergenceOptions, judge_case_monitor, judge_convergence,
+                                           judge_stop, stop_options, stop_window)
 from caseprep.contract.errors import UserError, did_you_mean
 from caseprep.contract.limits import MAX_RANKS
 from caseprep.contract.locking import refuse_interrupted, sweep_lock
 from caseprep.contract.manifest import MANIFEST_NAME, CaseRecord, read_manifest
-from caseprep.contract.monitor import FORCES_NAME, read_monitor
 from caseprep.contract.progress import format_duration
 from caseprep.contract.signals import StopSignals, exit_code, signal_name
 from caseprep.contract.records import (RECORD_NAME, RUN_FLAGS, SUMMARY_NAME, SUMMARY_SCHEMA, CaseRunRecord, Flag,
@@ -225,9 +224,12 @@ def _read(path: Path) -> str | None:
         return None
 
 
-def summarize_logs(case_dir: Path, valid_stages: Sequence[str], options: RunOptions = RunOptions()) -> dict[str, Any]:
+def summarize_logs(case_dir: Path, valid_stages: Sequence[str], options: RunOptions = RunOptions(),
+                   record: CaseRecord | None = None) -> dict[str, Any]:
     """Read the logs of ``valid_stages`` in ``case_dir/logs`` into record
-    fields (cells, checker verdict, layers, solver outcome, export) and flags."""
+    fields (cells, checker verdict, layers, solver outcome, export) and flags.
+    ``record``: the case's manifest record (its reference values and frames
+    for the monitor's verdict; looked up from the manifest when None)."""
     logs = case_dir / "logs"
     out: dict[str, Any] = {}
     flags: list[str] = []
@@ -276,7 +278,7 @@ def summarize_logs(case_dir: Path, valid_stages: Sequence[str], options: RunOpti
             elif r.end_reason == "converged":
                 out["convergence"] = "the solver's residual criterion was met"
             else:
-                settling = force_settling(case_dir, options.convergence)
+                settling = judge_case_monitor(case_dir, options.convergence, record=record)
                 ok, why, drop = judge_convergence(r.residuals, r.final_residuals, settling, options.convergence)
                 out.update(convergence=why, residual_drop=drop, force_settling=settling)
                 if not ok:
@@ -659,7 +661,7 @@ class _Run:
             src = self.manifest.case(job.source)
             sdir = self.manifest.case_dir(src)
             solved = (sdir / "logs" / "solve.done").is_file()
-            flags = summarize_logs(sdir, ["mesh", "solve"], self.options)["flags"] if solved else ()
+            flags = summarize_logs(sdir, ["mesh", "solve"], self.options, src)["flags"] if solved else ()
             choice = warmstart.choose(job.rec, src, sdir, job.distance, flags, solved)
         job.initial_field = choice.to_record()
         job.stop = None
@@ -839,15 +841,12 @@ def _check_settled(job: _Job, options: RunOptions) -> None:
     log = sl.parse_solver(text)
     if log.end_reason != "incomplete":
         return  # it is ending by itself
-    settling = force_settling(job.dir, options.convergence)
-    try:
-        mon = read_monitor(job.dir, FORCES_NAME)
-    except UserError:
+    n = log.iterations
+    if n < options.convergence.stop_min_iterations:
         return
-    forces = {k: v for k, v in mon.items() if k.startswith("force.total_")}
-    ref = job.rec.reference
-    stop, why = judge_stop(log.residuals, log.final_residuals, settling, forces, ref.q * ref.area, log.iterations,
-                           options.convergence)
+    settling = judge_case_monitor(job.dir, stop_options(options.convergence), window=stop_window(n, options.convergence),
+                                  record=job.rec)
+    stop, why = judge_stop(log.residuals, log.final_residuals, settling, n, options.convergence)
     if stop:
         (job.dir / STOP_FILE).touch()
         job.stop = {"at_iteration": log.iterations, "reason": why}
@@ -984,7 +983,7 @@ def _finish_record(job: _Job, status: str, message: str, ranks: int, options: Ru
         else:
             stages.append(StageRun(s, "not-run"))
     valid = [s.stage for s in stages if s.status in ("ok", "failed", "done-before", "interrupted")]
-    info = summarize_logs(job.dir, valid, options)
+    info = summarize_logs(job.dir, valid, options, job.rec)
     flags = list(info.pop("flags"))
     if status == "mesh-failed":
         flags.insert(0, "mesh-failed")

@@ -60,6 +60,27 @@ def preload(*modules: str) -> None:
             _PRELOAD.extend(m for m in modules if m not in _PRELOAD)
 
 
+def _forget_inherited_server() -> None:
+    """In a process forked from one that had started the server process
+    (e.g. a worker of ``postproc sweep -j N``): the server is its parent's
+    child, not its own, so asking after it fails (``waitpid``: no child
+    processes). Forget the inherited server so that the first read here
+    starts one of its own."""
+    try:
+        from multiprocessing import forkserver
+    except ImportError:  # pragma: no cover - platforms without fork
+        return
+    srv = getattr(forkserver, "_forkserver", None)
+    if srv is not None and getattr(srv, "_forkserver_pid", None) is not None:
+        for name in ("_forkserver_pid", "_forkserver_address", "_forkserver_alive_fd"):
+            if hasattr(srv, name):
+                setattr(srv, name, None)
+
+
+if hasattr(os, "register_at_fork"):
+    os.register_at_fork(after_in_child=_forget_inherited_server)
+
+
 def _context():
     global _ctx
     with _ctx_lock:

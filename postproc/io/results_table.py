@@ -13,7 +13,10 @@ CSV rules: one header line, comma-separated, UTF-8; lines starting with
 ``;``-separated list of words, empty = the row is usable; a flagged row may
 leave its coefficients empty. Unknown columns are ignored (and named in the
 notes). Everything read is untrusted: every problem is a
-:class:`~caseprep.errors.UserError` naming the file, line and column.
+:class:`~caseprep.errors.UserError` naming the file, line and column, and
+the sizes (bytes, rows, columns, cell length, variants, variant × point
+pairs) are bounded by :mod:`caseprep.contract.limits` before the analysis
+starts.
 """
 from __future__ import annotations
 
@@ -21,6 +24,7 @@ import csv
 import io
 import json
 import math
+from collections import Counter
 from dataclasses import dataclass
 from pathlib import Path
 from types import MappingProxyType
@@ -29,6 +33,8 @@ from typing import Any, Callable, Mapping
 import numpy as np
 
 from caseprep.contract.errors import UserError, UserErrors
+from caseprep.contract.limits import (MAX_CELL_LENGTH, MAX_TABLE_BYTES, MAX_TABLE_COLUMNS, MAX_TABLE_PAIRS,
+                                     MAX_TABLE_ROWS, MAX_TABLE_VARIANTS)
 
 
 @dataclass(frozen=True)
@@ -68,7 +74,6 @@ COLUMNS: Mapping[str, Column] = MappingProxyType({
 NUMERIC = tuple(k for k, c in COLUMNS.items() if c.kind in ("float", "int"))
 #: ride heights above this (m) are taken for millimetres (no ground vehicle's floor rides 1 m up)
 RIDE_HEIGHT_MAX = 1.0
-MAX_BYTES = 50_000_000
 MAX_PROBLEMS = 20
 
 
@@ -195,6 +200,34 @@ def _check_units(rows: list[dict], source: str) -> None:
 POINT = ("ride_height_front", "ride_height_rear", "yaw_deg", "speed", "mesh_level")
 
 
+def _check_rows(n: int, source: str, at: str) -> None:
+    """At most :data:`~caseprep.contract.limits.MAX_TABLE_ROWS` data rows."""
+    if n > MAX_TABLE_ROWS.value:
+        raise UserError(expected=f"at most {int(MAX_TABLE_ROWS):,} data rows", got=f"{n:,} rows", file=source, key=at,
+                        fix="split the table (one file per study, or per group of variants) and analyse each")
+
+
+def _check_breadth(rows: list[dict], source: str) -> None:
+    """At most :data:`~caseprep.contract.limits.MAX_TABLE_VARIANTS` variants
+    and :data:`~caseprep.contract.limits.MAX_TABLE_PAIRS` variant × distinct
+    operating point pairs (the ranking's lists of missing points grow with
+    their product)."""
+    variants = {r["variant"] for r in rows}
+    if len(variants) > MAX_TABLE_VARIANTS.value:
+        raise UserError(expected=f"at most {int(MAX_TABLE_VARIANTS)} variants", got=f"{len(variants):,} variants",
+                        file=source, key="variant",
+                        fix="analyse the variants in groups (one table each), or check that 'variant' holds "
+                            "the geometry names, not run labels")
+    points = {tuple(round(float(r[k]), 9) for k in POINT) for r in rows}
+    pairs = len(variants) * len(points)
+    if pairs > MAX_TABLE_PAIRS.value:
+        raise UserError(expected=f"at most {int(MAX_TABLE_PAIRS):,} variant × operating-point pairs",
+                        got=f"{len(variants)} variants × {len(points):,} distinct points = {pairs:,}", file=source,
+                        key="ride_height_front, ride_height_rear, yaw_deg, speed, mesh_level",
+                        fix="round the operating points to the tested grid (ride heights to 0.1 mm), or analyse "
+                            "fewer variants at a time")
+
+
 def _table(rows: list[dict], source: str, kind: str, notes: list[str]) -> ResultsTable:
     if not rows:
         raise UserError(expected="at least one data row", got="none", file=source,
@@ -208,8 +241,9 @@ def _table(rows: list[dict], source: str, kind: str, notes: list[str]) -> Result
     if not rows:
         raise UserError(expected="at least one row with an operating point (ride heights, yaw, speed)",
                         got="none", file=source, fix="only flagged rows without ride heights were found")
+    _check_breadth(rows, source)
     ids = [r["case_id"] for r in rows]
-    dup = sorted({i for i in ids if ids.count(i) > 1})
+    dup = sorted(i for i, k in Counter(ids).items() if k > 1)   # one pass: tables run to MAX_TABLE_ROWS
     if dup:
         raise UserError(expected="unique case_id values", got=", ".join(dup[:5]), file=source, key="case_id",
                         fix="give every row its own label (or drop the case_id column)")
@@ -226,9 +260,11 @@ def _table(rows: list[dict], source: str, kind: str, notes: list[str]) -> Result
 def _read_text(path: Path) -> str:
     if not path.is_file():
         raise UserError(expected="a results CSV file or a sweep folder", got=str(path), fix="check the path")
-    if path.stat().st_size > MAX_BYTES:
-        raise UserError(expected=f"a results file below {MAX_BYTES // 1_000_000} MB", got=f"{path.stat().st_size} bytes",
-                        file=str(path))
+    size = path.stat().st_size
+    if size > MAX_TABLE_BYTES.value:
+        raise UserError(expected=f"a results file of at most {int(MAX_TABLE_BYTES):,} bytes", got=f"{size:,} bytes",
+                        file=str(path), key="file size",
+                        fix="split the table (one file per study or per variant group) and analyse each")
     try:
         return path.read_bytes().decode("utf-8-sig")
     except UnicodeDecodeError:
@@ -243,18 +279,24 @@ def read_results_csv(path: str | Path) -> ResultsTable:
     numbered = [(i + 1, ln) for i, ln in enumerate(text.splitlines()) if ln.strip() and not ln.lstrip().startswith("#")]
     if not numbered:
         raise UserError(expected="a header line and data rows", got="an empty file", file=str(p))
+    _check_rows(len(numbered) - 1, str(p), f"line {numbered[-1][0]}")
     reader = csv.reader(io.StringIO("\n".join(ln for _, ln in numbered)))
     try:
         table = list(reader)
     except csv.Error as exc:
         raise UserError(f"{p} is not a valid CSV file ({exc})", fix="check the quoting") from None
+    _check_rows(len(table) - 1, str(p), f"line {numbered[-1][0]}")
     header = [h.strip() for h in table[0]]
+    if len(header) > MAX_TABLE_COLUMNS.value:
+        raise UserError(expected=f"at most {int(MAX_TABLE_COLUMNS)} columns", got=f"{len(header)} columns", file=str(p),
+                        key=f"header (line {numbered[0][0]})",
+                        fix="keep the table's columns (README, postproc analyse) and drop the others")
     missing = [k for k, c in COLUMNS.items() if c.required and k not in header]
     if missing:
         raise UserError(expected="the required columns " + ", ".join(k for k, c in COLUMNS.items() if c.required),
                         got="no column " + ", ".join(missing), file=str(p), key="header (line "
                         f"{numbered[0][0]})", fix="add the missing columns (names as listed, SI units)")
-    dups = sorted({h for h in header if header.count(h) > 1})
+    dups = sorted(h for h, k in Counter(header).items() if k > 1)
     if dups:
         raise UserError(expected="each column once", got=", ".join(dups), file=str(p), key="header")
     ignored = [h for h in header if h not in COLUMNS]
@@ -264,6 +306,11 @@ def read_results_csv(path: str | Path) -> ResultsTable:
         if len(cells) != len(header):
             raise UserError(expected=f"{len(header)} cells as in the header", got=f"{len(cells)} cells",
                             file=f"{p} line {line}", fix="check for a missing or extra comma")
+        long = [h for h, c in zip(header, cells) if len(c) > MAX_CELL_LENGTH.value]
+        if long:
+            raise UserError(expected=f"cells of at most {int(MAX_CELL_LENGTH)} characters",
+                            got=f"{max(len(c) for c in cells):,} characters", file=f"{p} line {line}",
+                            key=long[0], fix="names are at most 64 characters, numbers plain decimals")
         rec = dict(zip(header, cells))
         records.append((rec, lambda name, line=line: f"{p} line {line}"))
     ids = [f"{r.get('variant', '').strip() or 'row'}@line{numbered[k + 1][0]}" for k, (r, _) in enumerate(records)]
@@ -274,36 +321,31 @@ def read_results_csv(path: str | Path) -> ResultsTable:
 def _case_extras(case_file: Path) -> dict[str, float]:
     """Reference area, air density and iterative uncertainties of one case from its
     ``results/<case>.json`` (written by ``postproc sweep``); {} when absent.
-    Used where the results row has no value of its own (a row's ``u_*`` are
-    the window spreads of the rule in coefficient counts).
-
-    Fallback iterative uncertainty: the force monitor's standard deviation over the
-    settling window divided by q·A. The monitor judges body-frame force
-    components (N); C_L takes the vertical one, C_D and C_S the in-plane
-    resultant of the two horizontal ones (a bound at any yaw), and the axle
-    lifts C_LF, C_LR the vertical one (an axle cannot move by more than the
-    whole lift without a pitching-moment swing we do not record — an
-    approximation, stated in the notes)."""
+    Used where the results row has no value of its own. The uncertainties
+    are the standard deviations over the settling window of the monitor's
+    verdict in coefficient counts (``convergence.stds``)."""
     try:
+        if case_file.stat().st_size > MAX_TABLE_BYTES.value:
+            return {}
         d = json.loads(case_file.read_text(encoding="utf-8"))
-    except (OSError, json.JSONDecodeError, UnicodeDecodeError):
+    except (OSError, json.JSONDecodeError, UnicodeDecodeError, RecursionError):
         return {}
     if not isinstance(d, dict):
         return {}
+    d = d.get("forces") if isinstance(d.get("forces"), dict) else {}   # the case's forces report
     out: dict[str, float] = {}
     ref = d.get("reference") if isinstance(d.get("reference"), dict) else {}
-    area, q, rho = ref.get("area"), ref.get("q"), ref.get("rho")
+    area, rho = ref.get("area"), ref.get("rho")
     if isinstance(area, (int, float)) and area > 0:
         out["reference_area"] = float(area)
     if isinstance(rho, (int, float)) and rho > 0:
         out["air_density"] = float(rho)
-    series = ((d.get("convergence") or {}).get("series") or {}) if isinstance(d.get("convergence"), dict) else {}
-    std = {k: v.get("std") for k, v in series.items() if isinstance(v, dict) and isinstance(v.get("std"), (int, float))}
-    if isinstance(q, (int, float)) and q > 0 and "reference_area" in out and std:
-        qa = q * out["reference_area"]
-        sx, sy, sz = (float(std.get(f"force.total_{c}", math.nan)) for c in "xyz")
-        out["u_cl"] = out["u_cl_front"] = out["u_cl_rear"] = sz / qa
-        out["u_cd"] = out["u_cs"] = math.hypot(sx, sy) / qa
+    conv = d.get("convergence") if isinstance(d.get("convergence"), dict) else {}
+    stds = conv.get("stds") if isinstance(conv.get("stds"), dict) else {}
+    for k in ("cl", "cd", "cs", "cl_front", "cl_rear"):
+        u = stds.get(k)
+        if isinstance(u, (int, float)) and not isinstance(u, bool) and math.isfinite(u) and u >= 0:
+            out[f"u_{k}"] = float(u)
     return out
 
 
@@ -324,24 +366,37 @@ def read_sweep_table(folder: str | Path) -> ResultsTable:
     if not isinstance(cases, list) or not all(isinstance(c, dict) for c in cases):
         raise UserError(expected="a list of case rows under 'cases'", got=type(cases).__name__, file=str(p), key="cases",
                         fix="re-run `postproc sweep --force`")
+    _check_rows(len(cases), str(p), "cases")
+    extras = {}
+    for c in cases:
+        cid = str(c.get("case_id") or "")
+        if cid and "/" not in cid and "\\" not in cid:
+            extras[cid] = _case_extras(root / "results" / f"{cid}.json")
+    return rows_table(cases, str(p), extras)
+
+
+def rows_table(cases: list[dict], source: str, extras: Mapping[str, Mapping[str, float]] | None = None) -> ResultsTable:
+    """The results table of a sweep's rows (``results.json``'s ``cases``,
+    or :class:`postproc.pipelines.sweep_rows.CaseResult` rows as dicts);
+    ``extras``: per case id, values used where the row has none (reference
+    area, density, iterative spreads). ``source`` names the rows in
+    messages."""
+    _check_rows(len(cases), source, "cases")
     records, ids = [], []
-    approximated = False
     for i, c in enumerate(cases):
         rec = dict(c)
         cid = str(c.get("case_id") or f"cases[{i}]")
-        if isinstance(rec.get("flags"), list):
+        if isinstance(rec.get("flags"), (list, tuple)):
             rec["flags"] = " ".join(str(f) for f in rec["flags"])
-        extra = _case_extras(root / "results" / f"{cid}.json") if "/" not in cid and "\\" not in cid else {}
-        for k, v in extra.items():
-            if rec.get(k) is None:      # the row's own value (window spread, area) wins
-                if k.startswith("u_"):
-                    approximated = True
-                rec[k] = v
-        records.append((rec, lambda name, i=i, cid=cid: f"{p} cases[{i}] ({cid})"))
+        for k, v in (extras or {}).get(cid, {}).items():
+            if rec.get(k) is None or (isinstance(rec.get(k), float) and math.isnan(rec[k])):
+                rec[k] = v      # the row's own value (window spread, area) wins
+        for k, v in list(rec.items()):   # NaN (unknown) is an empty cell
+            if isinstance(v, float) and math.isnan(v):
+                rec[k] = None
+        records.append((rec, lambda name, i=i, cid=cid: f"{source} cases[{i}] ({cid})"))
         ids.append(cid)
-    notes = ["sweep source: some iterative uncertainties estimated from the force monitor's spread "
-             "(σ(F)/(qA); axle-lift spread taken as the whole-lift spread)"] if approximated else []
-    return _table(_parse_rows(records, ids), str(p), "sweep", notes)
+    return _table(_parse_rows(records, ids), source, "sweep", [])
 
 
 def read_results(source: str | Path) -> ResultsTable:

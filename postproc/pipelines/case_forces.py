@@ -14,7 +14,8 @@ from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any
 
-from caseprep.contract.convergence import DEFAULT_OPTIONS, Assessment, ConvergenceOptions, assess_force_monitor
+from caseprep.contract.convergence import DEFAULT_OPTIONS, ConvergenceOptions, judge_monitor
+from caseprep.contract.monitor import case_monitor
 from caseprep.contract.errors import UserError
 from caseprep.contract.frames import axes_rotations, axle_axes
 from caseprep.contract.manifest import CaseRecord, find_case_manifest
@@ -72,8 +73,10 @@ class ForcesReport:
     ``time``, ``patches``, ``settings`` as used), the integrated loads
     (``result``, N and N·m about ``result.about``, body frame), the open
     fraction |ΣS|/Σ|S| (``closure``), and — when reference values are known —
-    the ``reference`` values, ``coefficients`` and ``balance``; the verdict of
-    the runtime force monitor (``convergence``) for a case folder; ``notes``."""
+    the ``reference`` values, ``coefficients`` and ``balance``; for a case
+    folder with reference values, the verdict of its runtime force monitor in
+    coefficient counts with the window means and spreads (``convergence``,
+    :func:`caseprep.contract.convergence.judge_monitor`); ``notes``."""
 
     source: str
     time: float | None
@@ -86,8 +89,7 @@ class ForcesReport:
     reference: co.ReferenceValues | None = None
     coefficients: co.Coefficients | None = None
     balance: co.Balance | None = None
-    convergence: Assessment | None = None
-    coefficient_convergence: dict[str, Any] | None = None   # the rule in coefficient counts, window means
+    convergence: dict[str, Any] | None = None
 
     def to_dict(self) -> dict[str, Any]:
         """The JSON form (``postproc forces --json``, ``results/<case>.json``)."""
@@ -103,9 +105,7 @@ class ForcesReport:
         if self.balance is not None:
             out["balance"] = self.balance.to_dict()
         if self.convergence is not None:
-            out["convergence"] = self.convergence.to_dict()
-        if self.coefficient_convergence is not None:
-            out["coefficient_convergence"] = self.coefficient_convergence
+            out["convergence"] = self.convergence
         return out
 
 
@@ -193,8 +193,9 @@ def forces_report(target: str, options: ForcesOptions = ForcesOptions(),
     Raises UserError on bad input.
 
     The runtime force monitor of a case folder is judged by the one
-    convergence rule (:func:`caseprep.contract.convergence.assess_force_monitor`
-    with ``options.convergence`` over ``options.window`` samples, default its
+    convergence rule in coefficient counts
+    (:func:`caseprep.contract.convergence.judge_monitor` with
+    ``options.convergence`` over ``options.window`` samples, default its
     settling window), as the runner and the sweep judge it.
 
     ``surface``: the patches already read from ``target``'s export (with the
@@ -233,38 +234,27 @@ def forces_report(target: str, options: ForcesOptions = ForcesOptions(),
             notes.append("no ground (far field): axle loads, aero balance and centres of pressure not computed")
         elif rv.front_axle is not None and rv.rear_axle is not None:
             balance = co.balance(res, rv, axle_axes(placement))
-    verdict = counts = None
+    verdict = None
     if src.case_dir is not None and (src.case_dir / "postProcessing").is_dir():
-        try:
-            verdict = assess_force_monitor(src.case_dir, window=opt.window, options=opt.convergence)
-        except UserError as exc:
-            notes.append(f"convergence not assessed: {exc}")
-        if rv is not None and verdict is not None:
-            counts = _coefficient_convergence(src.case_dir, rv, axes_rotations(placement, wind),
-                                              axle_axes(placement) if balance is not None else None, opt, notes)
+        if rv is None:
+            notes.append("convergence not assessed: the rule in coefficient counts needs reference values "
+                         "(a case of a sweep, or --area, --length, --speed)")
+        else:
+            axle = None if (record is not None and record.ground == "none") else axle_axes(placement)
+            verdict = _monitor_verdict(src.case_dir, rv, axes_rotations(placement, wind), axle, opt, notes)
     return ForcesReport(source=str(src.vtk_file), time=surf.time, patches=tuple(surf.part_names), settings=settings,
                         result=res, closure=res.open_fraction, notes=tuple(notes),
                         show_parts=record is not None or len(surf.part_names) != 1, reference=rv,
-                        coefficients=coefficients, balance=balance, convergence=verdict,
-                        coefficient_convergence=counts)
+                        coefficients=coefficients, balance=balance, convergence=verdict)
 
 
-def _coefficient_convergence(case_dir: Path, rv: co.ReferenceValues, rotations, axle, opt: ForcesOptions,
-                             notes: list[str]) -> dict[str, Any] | None:
-    """The monitor's coefficients judged in coefficient counts over the
-    settling window (:func:`caseprep.contract.convergence.judge_coefficients`),
-    with their window means and spreads; None (and a note) when the monitor
-    cannot be read."""
-    from caseprep.contract.convergence import settle_window
-    from caseprep.contract.monitor import FORCES_NAME, read_monitor
-
-    from postproc.pipelines.monitor_coefficients import judge_monitor
-
+def _monitor_verdict(case_dir: Path, rv: co.ReferenceValues, rotations, axle, opt: ForcesOptions,
+                     notes: list[str]) -> dict[str, Any] | None:
+    """The monitor's verdict in coefficient counts over the settling window
+    (:func:`caseprep.contract.convergence.judge_monitor`), with its window
+    means and spreads; None (and a note) when the monitor cannot be read."""
     try:
-        mon = read_monitor(case_dir, FORCES_NAME if (case_dir / "postProcessing" / FORCES_NAME).is_dir() else None)
-        n = len(mon["force.total_x"])
-        w = settle_window(n, opt.convergence) if opt.window is None else opt.window
-        return judge_monitor(mon, rv, rotations, axle, w, opt.convergence)
+        return judge_monitor(case_monitor(case_dir), rv, rotations, axle, opt.window, opt.convergence)
     except (UserError, KeyError) as exc:
-        notes.append(f"coefficients not judged in counts: {exc}")
+        notes.append(f"convergence not assessed: {exc}")
         return None

@@ -186,6 +186,9 @@ def build_scene(case: flowio.FlowCase, refs, *, label: str, variant: str, case_i
     cores); ``q_scale`` (1/s²) the Q normalisation and ``q_level`` the
     iso-value of Q/q_scale; ``spacing`` (m) of the plan grid (default body
     :func:`plan_spacing`).
+
+    Long because: it gathers each layer of the picture (body, ground, underside raster,
+    Q iso-surface, cores, streaks) in turn, each a call into a kernel or the reader.
     """
     notes: list[str] = []
     if not refs.speed:

@@ -2,10 +2,12 @@
 pipeline to the report renderer (:mod:`postproc.report`), which only draws
 and phrases it.
 
-Everything here is computed from the sweep's results (and, when present,
-from the analysis results): the choice of the reference case of each
-variant for the pictures, the curves of the plots, the facts behind the
-summary and the cautions. Units: SI (ride heights m, angles degrees);
+The variants' standing, the recommendation, the maps, the Pareto points
+and the platform come from the analysis of the results table
+(``analysis.json``, :mod:`postproc.pipelines.analysis`); from the results
+rows themselves come the choice of the reference case of each variant for
+the pictures, the curves of the plots and the cautions about missing and
+flagged cases. Units: SI (ride heights m, angles degrees);
 coefficients in wind axes, downforce = −C_L.
 """
 from __future__ import annotations
@@ -238,7 +240,7 @@ def choose_picture_cases(results, variants: Sequence[str], options: ReportOption
     middle values) at yaw ``options.reference_yaw_deg`` (default the smallest
     |yaw|), on each variant's finest mesh level, unflagged. A variant without
     that point gets its nearest unflagged point, with a note. ``results``:
-    :class:`postproc.ranking.CaseResult` rows."""
+    :class:`postproc.pipelines.sweep_rows.CaseResult` rows."""
     usable = [r for r in results if not r.flags and math.isfinite(r.ride_height_front)]
     if not usable:
         return []
@@ -320,99 +322,29 @@ def yaw_panels(results) -> tuple[Panel, ...]:
     return tuple(panels)
 
 
-def maps_from_aero(aero_maps) -> tuple[tuple[MapData, ...], str]:
-    """The fitted ride-height maps of the sweep (``aero_maps`` of
-    :func:`postproc.pipelines.sweep.aero_maps`: one dict per variant with its
-    grid of values) as plot data; a variant whose points do not span both
-    front and rear ride height has no grid, and the note says so."""
-    maps, why = [], []
-    for m in aero_maps:
-        g = m.get("grid")
-        pts = m.get("points", {})
-        if not g:
-            why.append(f"{m['variant']}: {m.get('n_points', 0)} point(s), not spread in both ride heights")
-            continue
-        maps.append(MapData(variant=m["variant"], quantity="downforce coefficient −C_L", front=g["front"],
-                            rear=g["rear"], value=np.asarray(g["values"], dtype=float),
-                            points_front=pts.get("front", ()), points_rear=pts.get("rear", ()),
-                            points_value=pts.get("value", ()), points_error=pts.get("error"),
-                            note=f"degree {m.get('degree')}, R² {m.get('r2', float('nan')):.3f}"))
-    note = "" if not why else "no map for " + "; ".join(why)
-    if not aero_maps:
-        note = "no map: a map needs at least three usable points of a variant at the smallest |yaw|"
-    return tuple(maps), note
-
-
-def pareto_points(results, ranking, spread: dict[str, tuple[float, float]] | None = None) -> tuple[ParetoPoint, ...]:
-    """Each ranked variant in the downforce–drag plane: the mean −C_L and
-    mean C_D of its unflagged cases on its finest mesh level, with the
-    uncertainty half-widths ``spread[variant]`` = (downforce, drag) when
-    given (e.g. the iterative standard deviation over the settled window,
-    or the grid uncertainty), and whether it is on the front (no variant
-    with both more downforce and less drag)."""
-    pts = []
-    for s in ranking:
-        rows = [r for r in results if r.variant == s.variant and not r.flags and math.isfinite(r.cl)]
-        if not rows:
-            continue
-        fin = max(r.mesh_level for r in rows)
-        rows = [r for r in rows if r.mesh_level == fin]
-        df = float(np.mean([-r.cl for r in rows]))
-        cd = float(np.mean([r.cd for r in rows]))
-        e = (spread or {}).get(s.variant)
-        pts.append([s.variant, cd, df, e])
-    out = []
-    for v, cd, df, e in pts:
-        dominated = any((df2 >= df and cd2 <= cd) and (df2 > df or cd2 < cd) for v2, cd2, df2, _ in pts if v2 != v)
-        out.append(ParetoPoint(label=v, variant=v, drag=cd, downforce=df,
-                               drag_err=e[1] if e else None, downforce_err=e[0] if e else None,
-                               on_front=not dominated))
-    return tuple(out)
-
-
 #: flags meaning that a case has no result at all (the others: a result that is not trusted)
 MISSING_FLAGS = ("not-run", "mesh-failed", "solver-crashed", "solve-failed", "export-failed", "export-empty",
                  "forces-failed", "interrupted")
 
 
-def cautions_and_facts(results, ranking, *, mesh_study=(), flow_rows: dict | None = None
-                       ) -> tuple[tuple[VariantFacts, ...], tuple[Caution, ...], str | None]:
-    """The variants' standing from the results table's own ranking, the
-    cautions and the recommended variant (the best-ranked variant with
-    usable cases; None when none is)."""
-    facts, cautions = [], []
-    tie_with: dict[str, tuple[str, ...]] = {}
-    points = {}
-    for r in results:
-        points.setdefault(r.variant, {})[(round(r.ride_height_front, 9), round(r.ride_height_rear, 9),
-                                          round(r.yaw_deg, 6), r.mesh_level)] = r
-    usable_keys = {v: {k for k, r in d.items() if not r.flags} for v, d in points.items()}
-    all_keys = set().union(*[set(d) for d in points.values()]) if points else set()
-    for s in ranking:
-        rows = [r for r in results if r.variant == s.variant]
+def table_cautions(results, facts: Sequence[VariantFacts] = (), *, mesh_study=(),
+                   flow_rows: dict | None = None) -> tuple[Caution, ...]:
+    """The cautions the results table itself supports: per variant, its
+    cases without a result and its flagged cases (by name); the grid
+    uncertainty of −C_L against the downforce difference of the analysis's
+    two best-ranked variants (``facts``); ramp separation from the flow
+    columns."""
+    cautions = []
+    for v in dict.fromkeys(r.variant for r in results):
+        rows = [r for r in results if r.variant == v]
         missing = [r.case_id for r in rows if any(f in MISSING_FLAGS for f in r.flags)]
         flagged = [r.case_id for r in rows if r.flags and r.case_id not in missing]
         if missing:
-            cautions.append(Caution("missing-points", s.variant, tuple(missing), float(len(missing))))
+            cautions.append(Caution("missing-points", v, tuple(missing), float(len(missing))))
         if flagged:
-            cautions.append(Caution("flagged-points", s.variant, tuple(flagged), float(len(flagged)),
+            cautions.append(Caution("flagged-points", v, tuple(flagged), float(len(flagged)),
                                     "; ".join(sorted({f for r in rows for f in r.flags if r.case_id in flagged}))))
-        ranked = s.metrics.get("downforce") is not None
-        # complete: a usable result at every point of the sweep's envelope
-        complete = usable_keys.get(s.variant, set()) >= all_keys
-        facts.append(VariantFacts(variant=s.variant, rank=s.rank if ranked else None,
-                                  score=s.score if ranked else None, pareto=s.pareto, n_cases=s.n_cases,
-                                  n_flagged=s.n_flagged, metrics=dict(s.metrics), complete=complete,
-                                  tie_with=tie_with.get(s.variant, ()), notes=tuple(s.notes)))
-    ranked = [f for f in facts if f.rank is not None]
-    rec = ranked[0].variant if ranked else None
-    if ranked and not ranked[0].complete:
-        n_bad = sum(1 for r in results if r.variant == rec and r.flags)
-        cautions.append(Caution("incomplete-winner", rec, value=float(n_bad),
-                                detail=f"{n_bad} of its points have no usable result, so its score rests on fewer "
-                                       f"operating points than planned"))
-    if ranked and ranked[0].tie_with:
-        cautions.append(Caution("tie", rec, detail=", ".join(ranked[0].tie_with)))
+    ranked = sorted((f for f in facts if f.rank is not None), key=lambda f: f.rank)
     # grid uncertainty against the difference between the two best variants
     if len(ranked) >= 2 and mesh_study:
         gci = [m for m in mesh_study if m.get("coefficient") == "cl" and m.get("gci_fine") is not None
@@ -434,12 +366,40 @@ def cautions_and_facts(results, ranking, *, mesh_study=(), flow_rows: dict | Non
     for v, items in by_v.items():
         fr = min(f for _, f in items)
         cautions.append(Caution("ramp-separation", v or None, tuple(c for c, _ in items), float(fr)))
-    return tuple(facts), tuple(cautions), rec
+    return tuple(cautions)
 
 
 def _analysis_list(analysis: dict, key: str) -> list[dict]:
     v = analysis.get(key)
     return [x for x in v if isinstance(x, dict)] if isinstance(v, list) else []
+
+
+def _maps_from_analysis(analysis: dict) -> tuple[list[MapData], list[str]]:
+    """The analysis's fitted −C_L maps that span both ride heights, as plot
+    data with the usable points behind them, and why each other map is not
+    drawn."""
+    maps, why = [], []
+    for m in _analysis_list(analysis, "maps"):
+        g = m.get("grid")
+        name = str(m.get("variant"))
+        coef = (m.get("coefficients") or {}).get("cl") or {}
+        if not isinstance(g, dict) or "cl" not in g or (m.get("design") or {}).get("dim") != 2:
+            why.append(f"{name} (yaw {m.get('yaw_deg')}°): " + (coef.get("reason") or "its points span one line "
+                                                                 "of ride heights"))
+            continue
+        F = np.asarray(g["ride_height_front"], dtype=float)
+        R = np.asarray(g["ride_height_rear"], dtype=float)
+        mine = [q for q in _analysis_list(analysis, "points") if q.get("variant") == name and q.get("usable")
+                and q.get("yaw_deg") == m.get("yaw_deg") and q.get("speed") == m.get("speed")
+                and q.get("mesh_level") == m.get("mesh_level")]
+        maps.append(MapData(variant=f"{name} (yaw {m.get('yaw_deg')}°)", quantity="downforce coefficient −C_L",
+                            front=F[0], rear=R[:, 0], value=-np.asarray(g["cl"], dtype=float),
+                            points_front=[q["ride_height_front"] for q in mine],
+                            points_rear=[q["ride_height_rear"] for q in mine],
+                            points_value=[-q["cl"] for q in mine if "cl" in q], points_error=None,
+                            note=f"{coef.get('model')}, leave-one-out rms {coef.get('loo_rms'):.3g}"
+                            if coef.get("loo_rms") is not None else str(coef.get("model") or "")))
+    return maps, why
 
 
 def from_analysis(analysis: dict, results) -> dict:
@@ -513,27 +473,7 @@ def from_analysis(analysis: dict, results) -> dict:
         if b is not None:
             cautions.append(Caution("bottoming", p.get("variant"), value=b,
                                     detail=str(p.get("bottoming_mode") or "")))
-    maps, why = [], []
-    for m in _analysis_list(analysis, "maps"):
-        g = m.get("grid")
-        name = str(m.get("variant"))
-        coef = (m.get("coefficients") or {}).get("cl") or {}
-        if not isinstance(g, dict) or "cl" not in g or (m.get("design") or {}).get("dim") != 2:
-            why.append(f"{name} (yaw {m.get('yaw_deg')}°): " + (coef.get("reason") or "its points span one line "
-                                                                 "of ride heights"))
-            continue
-        F = np.asarray(g["ride_height_front"], dtype=float)
-        R = np.asarray(g["ride_height_rear"], dtype=float)
-        mine = [q for q in _analysis_list(analysis, "points") if q.get("variant") == name and q.get("usable")
-                and q.get("yaw_deg") == m.get("yaw_deg") and q.get("speed") == m.get("speed")
-                and q.get("mesh_level") == m.get("mesh_level")]
-        maps.append(MapData(variant=f"{name} (yaw {m.get('yaw_deg')}°)", quantity="downforce coefficient −C_L",
-                            front=F[0], rear=R[:, 0], value=-np.asarray(g["cl"], dtype=float),
-                            points_front=[q["ride_height_front"] for q in mine],
-                            points_rear=[q["ride_height_rear"] for q in mine],
-                            points_value=[-q["cl"] for q in mine if "cl" in q], points_error=None,
-                            note=f"{coef.get('model')}, leave-one-out rms {coef.get('loo_rms'):.3g}"
-                            if coef.get("loo_rms") is not None else str(coef.get("model") or "")))
+    maps, why = _maps_from_analysis(analysis)
     del rows
     return {"facts": tuple(facts), "cautions": tuple(cautions), "recommended": recommended, "decision": dec,
             "pareto": pareto, "maps": tuple(maps), "map_notes": why, "platform": tuple(curves)}
@@ -550,7 +490,7 @@ def _f(x):
 def history_from_monitor(label: str, monitor: dict, window: int | None, verdict: str = "",
                          flagged: bool = False) -> History | None:
     """A force history for the small multiples from a runtime monitor
-    (:func:`postproc.convergence.read_monitor`): the total force components
+    (:func:`caseprep.contract.monitor.read_monitor`): the total force components
     along body x and z (N) and the first iteration of the settling window
     (the last ``window`` samples)."""
     it = monitor.get("Time")
@@ -612,42 +552,38 @@ def _case_rows(results) -> tuple[dict, ...]:
 
 
 def assemble(results, *, title: str, study: str = "", notes: Sequence[str] = (), checks: Sequence[dict] = (),
-             mesh_study: Sequence[dict] = (), aero_maps: Sequence[dict] = (), flow_rows: dict | None = None,
-             scenes: Sequence = (),
+             mesh_study: Sequence[dict] = (), flow_rows: dict | None = None, scenes: Sequence = (),
              picture_cases: Sequence[PictureCase] = (), pictures_skipped: Sequence[tuple[str, str]] = (),
-             histories: Sequence[History] = (), spread: dict | None = None, analysis: dict | None = None,
-             options: ReportOptions = ReportOptions(), ranking=None, cost: dict | None = None) -> ReportData:
+             histories: Sequence[History] = (), analysis: dict | None = None,
+             options: ReportOptions = ReportOptions(), cost: dict | None = None) -> ReportData:
     """Everything the report shows, from the sweep's results table
-    (:class:`postproc.ranking.CaseResult` rows) and what the sweep computed
-    beside it (flow columns by case id, picture scenes, force histories,
-    uncertainty half-widths by variant, the analysis results when present,
-    the runner's cost block)."""
+    (:class:`postproc.pipelines.sweep_rows.CaseResult` rows), the analysis
+    of that table (``analysis``: what ``analysis.json`` holds — the
+    variants' standing, the decision, maps, Pareto points, platform) and
+    what the sweep computed beside it (flow columns by case id, picture
+    scenes, force histories; ``cost``: the runner's cost block,
+    :func:`caseprep.contract.cost.cost_summary`). Without an analysis the
+    report shows the table and its cautions, no standing and no
+    recommendation."""
     import datetime as _dt
 
     from caseprep.contract import __version__
-    from postproc.kernels.ranking import rank_variants
 
-    ranking = ranking if ranking is not None else rank_variants(list(results))
-    variants = [s.variant for s in ranking]
-    facts, cautions, rec = cautions_and_facts(results, ranking, mesh_study=mesh_study, flow_rows=flow_rows)
-    maps, map_note = maps_from_aero(aero_maps)
-    pareto = pareto_points(results, ranking, spread)
-    platform: tuple = ()
-    decision = None
+    variants = list(dict.fromkeys(r.variant for r in results))
     a = from_analysis(analysis, results) if isinstance(analysis, dict) else None
-    if a is not None and a["facts"]:
-        # the analysis ranks on the common points with uncertainties and ties: its standing replaces
-        # the table's own; the table's cautions that it does not cover (missing and flagged cases by
-        # name, mesh uncertainty, ramp separation) stay
+    facts, cautions, rec, decision = (), (), None, None
+    pareto: tuple = ()
+    platform: tuple = ()
+    maps: tuple = ()
+    map_note = "no map: the analysis of the results table is missing (see the notes)"
+    if a is not None:
         facts, rec, decision = a["facts"], a["recommended"], a["decision"]
-        cautions = tuple(c for c in cautions if c.kind not in ("incomplete-winner", "tie")) + a["cautions"]
-        pareto = a["pareto"] or pareto
-        platform = a["platform"]
-        if a["maps"]:
-            maps = a["maps"]
-        map_note = ("; ".join(a["map_notes"]) if a["map_notes"] else "")
-        if map_note:
-            map_note = "no map for " + map_note
+        cautions, pareto, platform, maps = a["cautions"], a["pareto"], a["platform"], a["maps"]
+        map_note = ("no map for " + "; ".join(a["map_notes"])) if a["map_notes"] else ""
+    else:
+        cautions = (Caution("decision", None, detail="no analysis of the results table: no variant is "
+                                                     "recommended"),)
+    cautions = table_cautions(results, facts, mesh_study=mesh_study, flow_rows=flow_rows) + tuple(cautions)
     rows = []
     by_id = {r.case_id: r for r in results}
     for cid, row in (flow_rows or {}).items():
@@ -656,9 +592,9 @@ def assemble(results, *, title: str, study: str = "", notes: Sequence[str] = (),
     return ReportData(
         title=title, study=study, created=_dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC"),
         version=__version__, n_cases=len(results), n_usable=sum(1 for r in results if not r.flags),
-        recommended=rec, variants=facts, cautions=cautions, ride_height_panels=ride_height_panels(results),
-        yaw_panels=yaw_panels(results), maps=maps, map_note=map_note,
-        pareto=pareto, platform=platform, histories=tuple(histories),
+        recommended=rec, variants=tuple(facts), cautions=cautions, ride_height_panels=ride_height_panels(results),
+        yaw_panels=yaw_panels(results), maps=tuple(maps), map_note=map_note,
+        pareto=tuple(pareto), platform=tuple(platform), histories=tuple(histories),
         picture_cases=tuple(picture_cases), scenes=tuple(scenes),
         baseline=check_baseline(options.baseline, variants) if scenes else options.baseline,
         pictures_skipped=tuple(pictures_skipped), cases=_case_rows(results), checks=tuple(checks),

@@ -32,8 +32,7 @@ TEMPLATE = "report/sweep_report.html.j2"
 
 METRIC_LABELS = {
     "downforce": "mean −C_L", "drag": "mean C_D", "efficiency": "mean −C_L/C_D", "balance_range": "balance range",
-    "yaw_retention": "yaw retention", "min_stability_margin": "min stability margin", "downforce_spread":
-    "downforce spread",
+    "yaw_retention": "yaw retention", "downforce_spread": "downforce spread",
 }
 
 VIEW_NOTES = {

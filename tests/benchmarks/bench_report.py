@@ -40,7 +40,7 @@ from flow_meshes import box_grid, box_patch, lamb_oseen  # noqa: E402
 from caseprep.contract.frames import place_body  # noqa: E402
 from caseprep.contract.manifest import CaseRecord, Reference  # noqa: E402
 from postproc.io import flow as flowio  # noqa: E402
-from postproc.pipelines import case_flow  # noqa: E402
+from postproc.pipelines import case_flow, flow_columns  # noqa: E402
 from postproc.pipelines.case_scene import build_scene, scene_difference  # noqa: E402
 from postproc.report import pictures as pics  # noqa: E402
 
@@ -95,7 +95,7 @@ def bench_case(cells: int) -> None:
     refs = case_flow.references(case)
     t0, c0 = time.perf_counter(), time.process_time()
     scene = build_scene(case, refs, label="bench", variant="bench", case_id="bench-0001", gd=gd,
-                        vortices=case_flow._tracks_only(v), q_scale=v["q_scale"],
+                        vortices=flow_columns.tracks_only(v), q_scale=v["q_scale"],
                         q_level=payload["q_normalisation"]["threshold"])
     t_scene, c_scene = time.perf_counter() - t0, time.process_time() - c0
     print(f"flow pass (gradients, Q, vortices, diffuser, underbody, walls): {t_flow:.2f} s wall, {c_flow:.2f} s CPU; "

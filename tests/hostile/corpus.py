@@ -10,7 +10,8 @@ that leaves its folder, a file that lies about its size, …
 
 Kinds: ``config``, ``geometry``, ``name`` (run through ``caseprep check``
 and ``caseprep write``), ``vtk``, ``manifest``, ``record`` (run through
-``postproc sweep`` or ``postproc forces``).
+``postproc sweep`` or ``postproc forces``), ``table`` (results tables
+through ``postproc analyse``).
 """
 from __future__ import annotations
 
@@ -638,5 +639,68 @@ def record_inputs() -> list[Hostile]:
                     "flags: record-unreadable") for n, s in r]
 
 
+# ------------------------------------------------------------------ results tables
+
+TABLE_HEADER = "case_id,variant,ride_height_front,ride_height_rear,yaw_deg,speed,mesh_level,cl,cd,cs,cl_front,cl_rear,flags"
+
+
+def _table_row(i: int, variant: str, hf: float, hr: float) -> str:
+    """One usable row of an invented floor (DEMO numbers)."""
+    return f"r{i},{variant},{hf:.6f},{hr:.6f},0,40,0,-1.1,0.3,0,-0.5,-0.6,"
+
+
+def _csv(lines: Callable[[], list[str]] | None = None, raw: Callable[[Path], None] | None = None):
+    """A results CSV (header + ``lines()``, or written by ``raw(path)``) through ``postproc analyse``."""
+    def build(tmp: Path) -> list[str]:
+        path = tmp / "results.csv"
+        if raw is not None:
+            raw(path)
+        else:
+            path.write_text("\n".join([TABLE_HEADER, *lines()]) + "\n")
+        return ["analyse", str(path), "-o", str(tmp.parent / "out")]
+    return build
+
+
+def _sparse(size: int) -> Callable[[Path], None]:
+    def write(path: Path) -> None:
+        with open(path, "wb") as fh:
+            fh.write((TABLE_HEADER + "\n").encode())
+            fh.truncate(size)          # a hole: the size without the disk space
+    return write
+
+
+def _sweep_results(n: int):
+    """A post-processed sweep folder whose results.json lists ``n`` case rows."""
+    def build(tmp: Path) -> list[str]:
+        root = tmp / "sw"
+        root.mkdir()
+        row = {"case_id": "a", "variant": "a", "ride_height_front": 0.02, "ride_height_rear": 0.03, "yaw_deg": 0.0,
+               "speed": 40.0, "mesh_level": 0, "cl": -1.1, "cd": 0.3, "cs": 0.0, "cl_front": -0.5, "cl_rear": -0.6,
+               "flags": ""}
+        (root / "results.json").write_text(json.dumps({"cases": [dict(row, case_id=f"c{i}") for i in range(n)]}))
+        return ["analyse", str(root), "-o", str(tmp.parent / "out")]
+    return build
+
+
+def table_inputs() -> list[Hostile]:
+    grid = [(0.01 + 0.001 * (k % 40), 0.002 * (k // 40)) for k in range(400)]
+    t = [
+        # 207,000 rows: past the row limit long before any parsing or fitting
+        ("rows-207k", _csv(lambda: [_table_row(i, f"v{i % 3}", *grid[i % 400]) for i in range(207_000)]),
+         "at most 10,000 data rows"),
+        ("columns-300", _csv(raw=lambda p: p.write_text(TABLE_HEADER + "".join(f",x{i}" for i in range(300)) + "\n")),
+         "at most 200 columns"),
+        ("cell-10k-characters", _csv(lambda: [_table_row(0, "v" * 10_000, 0.02, 0.03)]), "cells of at most 256"),
+        ("variants-300", _csv(lambda: [_table_row(i, f"v{i}", 0.02, 0.03) for i in range(300)]), "at most 200 variants"),
+        # 150 variants, each at its own 66 points: 150 × 9,900 pairs for the ranking's lists
+        ("pairs-1.5M", _csv(lambda: [_table_row(i, f"v{i % 150}", 0.01 + 1e-5 * i, 0.03) for i in range(9_900)]),
+         "variant × operating-point pairs"),
+        ("bytes-60MB", _csv(raw=_sparse(60_000_000)), "at most 50,000,000 bytes"),
+        ("sweep-results-20k-rows", _sweep_results(20_001), "at most 10,000 data rows"),
+    ]
+    return [Hostile(f"table-{n}", "table", "postproc", b, 2, frag) for n, b, frag in t]
+
+
 def all_inputs() -> list[Hostile]:
-    return config_inputs() + geometry_inputs() + name_inputs() + vtk_inputs() + manifest_inputs() + record_inputs()
+    return (config_inputs() + geometry_inputs() + name_inputs() + vtk_inputs() + manifest_inputs() + record_inputs()
+            + table_inputs())

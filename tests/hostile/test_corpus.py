@@ -33,7 +33,7 @@ from postproc.cli import main as postproc_main  # noqa: E402
 TIMEOUT = 60
 
 CAD_INPUTS = corpus.config_inputs() + corpus.geometry_inputs() + corpus.name_inputs()
-RESULT_INPUTS = corpus.vtk_inputs() + corpus.manifest_inputs() + corpus.record_inputs()
+RESULT_INPUTS = corpus.vtk_inputs() + corpus.manifest_inputs() + corpus.record_inputs() + corpus.table_inputs()
 
 
 def test_corpus_is_large_and_names_are_unique():

@@ -40,8 +40,8 @@ def coarse_config(tmp: Path, *, variants: list[str], ride_heights: list[float], 
     text = re.sub(r"(?m)^ride_height = .*$", f"ride_height = {ride_heights!r}", text)
     text = re.sub(r"(?m)^yaw_deg = .*$", f"yaw_deg = {yaws!r}", text)
     text = text.replace("[sweep]\n", f"[sweep]\nvariants = {json.dumps(variants)}\n", 1)
-    if iterations is not None:
-        text = text.replace("[solver]\n", f"[solver]\niterations = {iterations}\n", 1)
+    if iterations is not None:  # a fixed budget: every iteration run (the numerics are under test, not the stop)
+        text = text.replace("[solver]\n", f"[solver]\niterations = {iterations}\nstop_rule = \"budget\"\n", 1)
     cfg = tmp / "coarse.toml"
     cfg.write_text(text)
     return cfg

@@ -308,13 +308,15 @@ KEYS: dict[str, Key] = {
                                           source=_COMMON + " (decays mildly over 5 body lengths)"),
     "solver.warm_start": Key("—", "initial field: off = the uniform free stream; nearest = the converged fields of the "
                                   "nearest solved case of the same variant and mesh level (README \"Mesh reuse and warm starts\")",
-                             "nearest", choices=("off", "nearest"),
-                             source="measured: README \"Mesh reuse, warm starts and the settled stop (measured)\""),
+                             "off", choices=("off", "nearest"),
+                             source="opt-in: measured savings in README \"Mesh reuse, warm starts and the settled stop (measured)\"; "
+                                    "a warm start may land on another branch of a hysteretic flow"),
     "solver.stop_rule": Key("—", "when a solve ends: budget = at solver.iterations (or the solver's residual "
                                  "criterion); settled = also as soon as the convergence rule counts it converged "
-                                 "with the force monitor settled (at least 40 iterations)", "settled",
+                                 "with the force monitor settled (at least 40 iterations)", "budget",
                             choices=("budget", "settled"),
-                            source="measured: README \"Mesh reuse, warm starts and the settled stop (measured)\""),
+                            source="opt-in: with the coefficient-count rule it seldom fires, and its window differs from "
+                                   "the post-processing's (README \"Mesh reuse, warm starts and the settled stop (measured)\")"),
     "cluster.partition": Key("—", "batch partition (queue) of every job; empty: the cluster's default", "",
                              pattern=_BATCH_NAME),
     "cluster.account": Key("—", "account the jobs are charged to; empty: the user's default", "", pattern=_BATCH_NAME),

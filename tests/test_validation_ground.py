@@ -75,10 +75,9 @@ def cd_translating_near_wall(re: float, delta: float) -> float:
     "Forces on a finite-sized particle located close to a wall in a linear
     shear flow", Phys. Fluids 21, 033302 — fitted to their resolved
     (spectral-element) simulations. The paper itself was not accessible to
-    us: the equation and δ are taken from a transcription of it in the
-    open-source multiphysics code Alya (Barcelona Supercomputing Center,
-    particle drag model "wall correction: Zeng"). Validity range of the
-    drag fit: not given there; the paper's simulations covered Re up to a few
+    us: the equation and δ are as published in a secondary transcription,
+    not checked against the original. Validity range of the drag fit: not
+    given there; the paper's simulations covered Re up to a few
     hundred and gaps down to nearly touching (from memory). Units: none.
     """
     sd = math.sqrt(delta)
@@ -120,8 +119,8 @@ def cl_translating_near_wall(re: float, delta: float) -> float:
     "Migration velocities of spherical solid particles near a vertical wall
     for Reynolds number from 0.1 to 5", Phys. Fluids 16, 204. The
     coefficients, the stated validity range and the composition are taken
-    from the same Alya transcription as the drag (its particle lift model
-    "Zeng, translation parallel to the wall"); the transcription writes
+    from the same secondary transcription as the drag (not checked against
+    the original paper); the transcription writes
     5.78·10⁻⁶ L* without the exponent 4.58, which we take from memory of
     Takemura (2004) — it is the value that makes C_L0 continuous at L* = 10
     (0.0725 from both branches; without it the branches differ by 17 %).
